@@ -1,0 +1,38 @@
+"""The lock file: every locked version of a plan, each chained to the one before."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+from ..errors import IntegrityStop
+from .files import replace_atomically
+
+
+def read_lock(path: Path) -> dict[str, Any] | None:
+    """The lock document, or None when the plan was never locked."""
+    if not path.exists():
+        return None
+    try:
+        doc = json.loads(path.read_text("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise IntegrityStop(f"{path.name}: not a readable lock file ({exc})") from None
+    if (
+        not isinstance(doc, dict)
+        or doc.get("prespec") != 1
+        or not isinstance(doc.get("versions"), list)
+        or not doc["versions"]
+        or not all(isinstance(v, dict) for v in doc["versions"])
+    ):
+        raise IntegrityStop(f"{path.name}: not a prespec lock file (prespec: 1, versions: [...])")
+    return doc
+
+
+def latest(doc: dict[str, Any]) -> dict[str, Any]:
+    return doc["versions"][-1]
+
+
+def write_lock(path: Path, doc: dict[str, Any]) -> None:
+    text = json.dumps(doc, indent=2, ensure_ascii=False) + "\n"
+    replace_atomically(path, text.encode("utf-8"))

@@ -1,0 +1,76 @@
+"""How a data cell is compared with a value written in the plan.
+
+SPEC.md: blank is an empty or whitespace-only cell, or a null; values match as exact text after
+trimming, or by numeric equality when both sides are numbers (so ``1``, ``"1"`` and ``1.0``
+agree); comparisons are case-sensitive.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Iterable
+from typing import Any
+
+_NUMBER = re.compile(r"[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?")
+
+
+def is_blank(cell: Any) -> bool:
+    if cell is None:
+        return True
+    if isinstance(cell, float) and math.isnan(cell):
+        return True
+    if isinstance(cell, str):
+        return cell.strip() == ""
+    try:  # pandas.NA, numpy.nan, NaT
+        import pandas as pd
+
+        return bool(pd.isna(cell))
+    except (TypeError, ValueError):
+        return False
+
+
+def as_text(cell: Any) -> str:
+    """The trimmed text of a non-blank cell (numbers as Python prints them)."""
+    if isinstance(cell, float) and cell.is_integer():
+        return str(int(cell)) if abs(cell) < 1e16 else repr(cell)
+    return str(cell).strip()
+
+
+def as_number(value: Any) -> float | None:
+    """The value as a finite number, or None when it is not a plain number."""
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, int | float):
+        number = float(value)
+    else:
+        try:
+            import numpy as np
+
+            if isinstance(value, np.integer | np.floating):
+                number = float(value)
+            else:
+                text = str(value).strip()
+                if not _NUMBER.fullmatch(text):
+                    return None
+                number = float(text)
+        except (TypeError, ValueError):
+            return None
+    return number if math.isfinite(number) else None
+
+
+class ValueSet:
+    """A set of plan values that answers ``cell in set`` by the matching rule above."""
+
+    def __init__(self, values: Iterable[Any]) -> None:
+        self.values = list(values)
+        self._texts = {as_text(v) for v in self.values}
+        self._numbers = {n for v in self.values if (n := as_number(v)) is not None}
+
+    def __contains__(self, cell: Any) -> bool:
+        if is_blank(cell):
+            return False
+        if as_text(cell) in self._texts:
+            return True
+        number = as_number(cell)
+        return number is not None and number in self._numbers
