@@ -1,0 +1,163 @@
+"""Tests of equal proportions in two or more independent groups.
+
+Every function takes counts (events and group totals), validates them, and returns a
+:class:`~prespec.stats.results.TestResult`. One-sided alternatives refer to the first group's
+proportion: ``greater`` means p1 > p2, ``less`` means p1 < p2.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+from scipy import stats
+
+from prespec.stats import _checks
+from prespec.stats.results import TestResult
+from prespec.stats.tables import expected_counts
+
+#: Relative tolerance for tables as probable as the observed one in the two-sided Fisher test.
+FISHER_TIE_TOLERANCE = 1e-7
+
+
+def _normal_p(z: float, alternative: str) -> float:
+    """P-value of a standard normal statistic ``z`` for the given alternative."""
+    if math.isnan(z):
+        return math.nan
+    if alternative == "greater":
+        return float(stats.norm.sf(z))
+    if alternative == "less":
+        return float(stats.norm.cdf(z))
+    return float(min(1.0, 2.0 * stats.norm.sf(abs(z))))
+
+
+def pearson_chi_square(
+    events: Sequence[int],
+    totals: Sequence[int],
+    *,
+    continuity: bool = False,
+    alternative: str = "two-sided",
+) -> TestResult:
+    """Pearson's chi-square test of equal proportions in a k×2 table, with k − 1 df.
+
+    ``continuity=True`` applies Yates' correction (2×2 only): each |O − E| is reduced by 0.5,
+    never below 0. A one-sided alternative (2×2 only) refers the signed square root of X²
+    (the sign of p1 − p2) to the standard normal distribution. A zero expected count (a zero
+    column margin) leaves the test undefined: statistic and p-value are ``nan``.
+
+    References
+    ----------
+    Pearson K. On the criterion that a given system of deviations from the probable ...
+    Philosophical Magazine 1900;50:157–175.
+    Yates F. Contingency tables involving small numbers and the chi-square test. Supplement to
+    the Journal of the Royal Statistical Society 1934;1:217–235.
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, sections 3.2 and 3.5.
+    """
+    ev, tot = _checks.table(events, totals)
+    alt = _checks.alternative(alternative)
+    if not isinstance(continuity, bool):
+        raise ValueError(f"continuity must be true or false, got {continuity!r}")  # noqa: TRY004 (the interface raises ValueError)
+    k = len(ev)
+    if continuity and k != 2:
+        raise ValueError(f"the continuity correction applies to 2 groups only, got {k}")
+    if alt != "two-sided" and k != 2:
+        raise ValueError(f"a one-sided alternative needs exactly 2 groups, got {k}")
+    df = k - 1
+    method = "pearson-chi-square"
+    expected = expected_counts(ev, tot)
+    if np.any(expected == 0.0):
+        return TestResult(method, math.nan, df, math.nan, alt)
+    observed = np.column_stack([np.asarray(ev, float), np.asarray(tot, float) - ev])
+    deviation = np.abs(observed - expected)
+    if continuity:
+        deviation = np.maximum(deviation - 0.5, 0.0)
+    x2 = float(np.sum(deviation**2 / expected))
+    if alt == "two-sided":
+        p = float(stats.chi2.sf(x2, df))
+    else:
+        # sign of p1 - p2, exactly, from the integer cross product
+        sign = float(np.sign(ev[0] * tot[1] - ev[1] * tot[0]))
+        p = _normal_p(sign * math.sqrt(x2), alt)
+    return TestResult(method, x2, df, p, alt)
+
+
+def two_proportion_z(
+    x1: int, n1: int, x2: int, n2: int, *, alternative: str = "two-sided"
+) -> TestResult:
+    """The two-proportion z test with the pooled standard error.
+
+    The statistic is z = (p1 − p2) / sqrt(p(1 − p)(1/n1 + 1/n2)), p the pooled proportion;
+    z² equals the uncorrected Pearson X² of the same 2×2 table. When no group has an event,
+    or every participant has one, the standard error is 0 and z and p are ``nan``.
+
+    References
+    ----------
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, section 3.2.3 (z² = X²).
+    Fleiss JL, Levin B, Paik MC. Statistical Methods for Rates and Proportions, 3rd ed. Wiley,
+    2003, section 2.5.
+    """
+    x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
+    x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
+    alt = _checks.alternative(alternative)
+    method = "two-proportion-z"
+    pooled = (x1 + x2) / (n1 + n2)
+    variance = pooled * (1.0 - pooled) * (1.0 / n1 + 1.0 / n2)
+    if variance <= 0.0:
+        return TestResult(method, math.nan, None, math.nan, alt)
+    z = (x1 / n1 - x2 / n2) / math.sqrt(variance)
+    return TestResult(method, z, None, _normal_p(z, alt), alt)
+
+
+def fisher_exact(
+    x1: int, n1: int, x2: int, n2: int, *, alternative: str = "two-sided"
+) -> TestResult:
+    """Fisher's exact test on the 2×2 table [[x1, n1 − x1], [x2, n2 − x2]].
+
+    Conditional on both margins, x1 is hypergeometric. ``greater`` (p1 > p2, odds ratio > 1)
+    sums the upper tail P(X >= x1), ``less`` the lower tail. The two-sided p-value sums the
+    probabilities of all tables no more probable than the observed one, counting a table as
+    tied when its probability is within a relative 1e-7 of the observed one (so that rounding
+    cannot drop a table that is mathematically as probable). With a zero column margin only
+    one table is possible and p = 1. The statistic is ``None``.
+
+    References
+    ----------
+    Fisher RA. On the interpretation of chi-square from contingency tables, and the
+    calculation of P. Journal of the Royal Statistical Society 1922;85:87–94.
+    Agresti A. A survey of exact inference for contingency tables. Statistical Science
+    1992;7:131–177 (the two-sided rule by probability ordering).
+    """
+    x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
+    x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
+    alt = _checks.alternative(alternative)
+    method = "fisher-exact"
+    population, events = n1 + n2, x1 + x2
+    law = stats.hypergeom(population, events, n1)
+    if alt == "greater":
+        p = float(law.sf(x1 - 1))
+    elif alt == "less":
+        p = float(law.cdf(x1))
+    else:
+        p = _fisher_two_sided(x1, law, max(0, events - n2), min(events, n1))
+    return TestResult(method, None, None, min(1.0, p), alt)
+
+
+def _fisher_two_sided(x1: int, law: stats.rv_discrete, low: int, high: int) -> float:
+    """Sum of the probabilities of tables no more probable than x1, over support [low, high]."""
+    support = np.arange(low, high + 1)
+    log_p = law.logpmf(support)
+    limit = log_p[x1 - low] + math.log1p(FISHER_TIE_TOLERANCE)
+    counted = log_p <= limit
+    mode = int(np.argmax(log_p))
+    if counted[mode]:
+        return 1.0  # the observed table is as probable as the most probable one
+    # The hypergeometric law is unimodal, so the counted tables are the two tails.
+    below = np.flatnonzero(counted[:mode])
+    above = np.flatnonzero(counted[mode + 1 :])
+    p = 0.0
+    if below.size:
+        p += float(law.cdf(support[below[-1]]))
+    if above.size:
+        p += float(law.sf(support[mode + 1 + above[0]] - 1))
+    return p
