@@ -1,0 +1,277 @@
+"""The public Python interface of prespec: one function per command.
+
+Every function takes paths and plain values, returns a small result, and raises a
+``PrespecError`` subclass for anything the user must fix (see ``errors.py``).
+"""
+
+from __future__ import annotations
+
+import getpass
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from . import audit
+from .departures import Departure, Note
+from .environment import differences, environment
+from .errors import BadInput, IntegrityStop
+from .execute import RunOutcome, check_out_folder, default_folder, run_pipeline
+from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
+
+__all__ = [
+    "CheckResult",
+    "LockResult",
+    "VerifyResult",
+    "amend",
+    "check",
+    "demo",
+    "lock",
+    "resolve_actor",
+    "run",
+    "schema",
+    "verify",
+]
+
+
+def resolve_actor(actor: str | None) -> str:
+    """``--actor``, else ``PRESPEC_ACTOR``, else the login name."""
+    if actor:
+        return actor
+    if env := os.environ.get("PRESPEC_ACTOR"):
+        return env
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # pragma: no cover - no passwd entry
+        return "unknown"
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    loaded: LoadedPlan
+    summary: str
+    lock_status: str
+
+
+def _lock_status(loaded: LoadedPlan) -> str:
+    doc = audit.read_lock(audit.lock_path(loaded.path))
+    if doc is None:
+        return "not locked"
+    last = audit.latest(doc)
+    if last.get("fingerprint") == loaded.fingerprint:
+        return f"locked (version {last.get('version')}), unchanged"
+    return f"differs from its lock (version {last.get('version')})"
+
+
+def check(plan: str | Path) -> CheckResult:
+    """Validate a plan; nothing is written."""
+    loaded = load_plan(Path(plan))
+    return CheckResult(loaded, summary(loaded.model), _lock_status(loaded))
+
+
+def schema() -> dict[str, Any]:
+    return json_schema()
+
+
+@dataclass(frozen=True)
+class LockResult:
+    fingerprint: str
+    version: int
+    created: bool  # False when the plan was already locked unchanged
+    note: str | None = None
+
+
+def _version_record(loaded: LoadedPlan, version: int, previous: str | None, reason: str | None,
+                    actor: str) -> dict[str, Any]:
+    return {
+        "version": version,
+        "fingerprint": loaded.fingerprint,
+        "plan": loaded.resolved,
+        "plan_file_sha256": loaded.file_sha256,
+        "previous": previous,
+        "reason": reason,
+        "at": audit.utc_now(),
+        "actor": actor,
+        "environment": environment(),
+    }
+
+
+def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[str, Any],
+                   action: str, actor: str, deviations: list[dict[str, Any]]) -> None:
+    """Write the lock, then the log entry; restore the old lock if the log cannot be written."""
+    plan_path = loaded.path
+    lock_file = audit.lock_path(plan_path)
+    before = lock_file.read_bytes() if lock_file.exists() else None
+    new_doc = {"prespec": 1, "versions": [*(doc["versions"] if doc else []), record]}
+    audit.check_chain(audit.read_log(audit.log_path(plan_path)), audit.log_path(plan_path).name)
+    audit.write_lock(lock_file, new_doc)
+    try:
+        audit.append(
+            audit.log_path(plan_path),
+            audit.head_path(plan_path),
+            actor=actor,
+            action=action,
+            plan=record["fingerprint"],
+            data=None,
+            details={"version": record["version"], "plan_file_sha256": record["plan_file_sha256"],
+                     "reason": record["reason"]},
+            deviations=deviations,
+        )
+    except BaseException:
+        if before is None:
+            lock_file.unlink(missing_ok=True)
+        else:
+            audit.replace_atomically(lock_file, before)
+        raise
+
+
+def lock(plan: str | Path, *, actor: str | None = None) -> LockResult:
+    """Resolve the plan, write the lock and a ``lock`` entry; a no-op if already locked."""
+    loaded = load_plan(Path(plan))
+    doc = audit.read_lock(audit.lock_path(loaded.path))
+    if doc is not None:
+        last = audit.latest(doc)
+        if last.get("fingerprint") == loaded.fingerprint:
+            note = None
+            if last.get("plan_file_sha256") != loaded.file_sha256:
+                note = "the file's bytes differ from the locked file's (layout or comments only)"
+            return LockResult(loaded.fingerprint, int(last["version"]), False, note)
+        raise IntegrityStop(
+            f"{loaded.path}: the plan's meaning differs from its lock (version "
+            f"{last.get('version')}, {last.get('fingerprint')}); to lock the change as the next "
+            f"version run: prespec amend {loaded.path} --reason \"...\""
+        )
+    actor = resolve_actor(actor)
+    record = _version_record(loaded, 1, None, None, actor)
+    _write_version(loaded, None, record, "lock", actor, [])
+    return LockResult(loaded.fingerprint, 1, True)
+
+
+def amend(plan: str | Path, *, reason: str, actor: str | None = None) -> LockResult:
+    """Lock a changed plan as the next version, chained to the previous one."""
+    if not reason or not reason.strip():
+        raise BadInput("amend: --reason must say why the plan changed")
+    loaded = load_plan(Path(plan))
+    doc = audit.read_lock(audit.lock_path(loaded.path))
+    if doc is None:
+        raise BadInput(f"{loaded.path}: not locked yet; lock it first: prespec lock {loaded.path}")
+    last = audit.latest(doc)
+    if last.get("fingerprint") == loaded.fingerprint:
+        return LockResult(loaded.fingerprint, int(last["version"]), False,
+                          "the plan's meaning is unchanged; nothing to amend")
+    actor = resolve_actor(actor)
+    version = int(last["version"]) + 1
+    record = _version_record(loaded, version, last["fingerprint"], reason.strip(), actor)
+    runs = [e for e in audit.read_log(audit.log_path(loaded.path)) if e.get("action") == "run"]
+    deviations = []
+    if runs:
+        deviations.append(Departure(
+            "amended-after-unblinding",
+            f"version {version} locked after {len(runs)} run(s) on data (reason: {reason.strip()})",
+            "no amendment after a run",
+            f"amendment to version {version}",
+        ).to_json())
+    _write_version(loaded, doc, record, "amend", actor, deviations)
+    return LockResult(loaded.fingerprint, version, True)
+
+
+def _plan_in_force(loaded: LoadedPlan, accept: str | None) -> tuple[Any, str, int | None,
+                                                                     list[Departure], list[Note],
+                                                                     dict[str, Any] | None]:
+    doc = audit.read_lock(audit.lock_path(loaded.path))
+    path = loaded.path
+    if doc is None:
+        if accept is None:
+            raise IntegrityStop(
+                f"{path}: not locked; lock it first (prespec lock {path}), or give "
+                "--accept-deviation \"REASON\" to run it unlocked, recorded as run-without-lock"
+            )
+        dev = Departure("run-without-lock", "the plan as written was run without a lock",
+                        "a locked plan", loaded.fingerprint, accepted=accept)
+        return loaded.model, loaded.fingerprint, None, [dev], [], None
+    last = audit.latest(doc)
+    if fingerprint(last["plan"]) != last.get("fingerprint"):
+        raise IntegrityStop(f"{audit.lock_path(path).name}: version {last.get('version')} does "
+                            "not match its own fingerprint (the lock was edited)")
+    model = plan_from_resolved(last["plan"], source=audit.lock_path(path).name)
+    deviations: list[Departure] = []
+    notes: list[Note] = []
+    if loaded.fingerprint != last["fingerprint"]:
+        if accept is None:
+            raise IntegrityStop(
+                f"{path}: the plan file no longer matches its lock (version {last['version']}); "
+                f"lock the change with prespec amend {path} --reason \"...\", or give "
+                "--accept-deviation \"REASON\" to run the locked plan, recorded as "
+                "plan-modified-after-lock"
+            )
+        deviations.append(Departure(
+            "plan-modified-after-lock",
+            "the plan file differs in meaning from its lock; the locked plan was run",
+            last["fingerprint"], loaded.fingerprint, accepted=accept))
+    elif loaded.file_sha256 != last.get("plan_file_sha256"):
+        notes.append(Note("plan-file-reformatted",
+                          "the plan file's bytes differ from the locked file's, its meaning "
+                          "does not (layout or comments)"))
+    return model, last["fingerprint"], int(last["version"]), deviations, notes, last
+
+
+def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
+        actor: str | None = None, accept_deviation: str | None = None) -> RunOutcome:
+    """Run the locked plan on ``data``; write the report folder and the ``run`` entry."""
+    if accept_deviation is not None and not accept_deviation.strip():
+        raise BadInput("--accept-deviation needs a reason")
+    loaded = load_plan(Path(plan))
+    data_path = Path(data)
+    if not data_path.is_file():
+        raise BadInput(f"{data_path}: no such data file")
+    log, head = audit.log_path(loaded.path), audit.head_path(loaded.path)
+    entries = audit.read_log(log)
+    audit.check_chain(entries, log.name)
+    audit.check_head(entries, head)
+    model, fp, version, deviations, notes, record = _plan_in_force(loaded, accept_deviation)
+    env = environment()
+    if record is not None:
+        diffs = differences(record.get("environment") or {}, env)
+        if diffs:
+            deviations.append(Departure(
+                "environment-differs-from-lock",
+                "versions differ from those recorded at lock time: "
+                + ", ".join(f"{n} {a} → {b}" for n, a, b in diffs),
+                "; ".join(f"{n} {a}" for n, a, _ in diffs),
+                "; ".join(f"{n} {b}" for n, _, b in diffs)))
+    for e in entries:
+        for d in e.get("deviations", []):
+            if e.get("action") == "amend" and d.get("code") == "amended-after-unblinding":
+                deviations.append(Departure("amended-after-unblinding", d.get("detail", ""),
+                                            d.get("expected"), d.get("found")))
+    runs = [e for e in entries if e.get("action") == "run"]
+    out_path = Path(out) if out is not None else default_folder(loaded.path, "run")
+    check_out_folder(out_path)
+    return run_pipeline(
+        plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
+        data_path=data_path, out=out_path, actor=resolve_actor(actor), environment=env,
+        deviations=deviations, notes=notes,
+        previous_data=runs[-1].get("data") if runs else None,
+    )
+
+
+@dataclass
+class VerifyResult:
+    passed: list[str] = field(default_factory=list)
+
+
+def verify(plan: str | Path, *, expect: str | None = None) -> VerifyResult:
+    """Check the lock, the log and every report the log names, from the files alone."""
+    from .verify import verify_all
+
+    return verify_all(Path(plan), expect=expect)
+
+
+def demo(folder: str | Path = "prespec-demo", *, actor: str | None = None) -> Path:
+    """Write the invented demo study, lock and run it; return the path of report.html."""
+    from .demo import write_demo
+
+    plan_path, data_path = write_demo(Path(folder))
+    lock(plan_path, actor=actor)
+    outcome = run(plan_path, data_path, actor=actor)
+    return outcome.folder / "report.html"
