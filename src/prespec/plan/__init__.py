@@ -1,0 +1,127 @@
+"""The plan: loading a YAML plan file, validating it, resolving defaults, fingerprinting it.
+
+Public interface: :class:`LoadedPlan`, :func:`load_plan`, :func:`plan_from_resolved`,
+:func:`fingerprint`, :func:`json_schema`, :func:`summary`, and the model classes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import rfc8785
+from pydantic import ValidationError
+
+from prespec.errors import PlanError
+from prespec.plan.locate import Issue, Locator
+from prespec.plan.messages import issue_from_pydantic
+from prespec.plan.model import (
+    Condition,
+    DataSpec,
+    GraphicalMultiplicity,
+    Hypothesis,
+    MonteCarlo,
+    Outcome,
+    Plan,
+    Scalar,
+    Sparse,
+    Then,
+)
+from prespec.plan.rules import availability_issues, format_issues, value_key
+from prespec.plan.summary import summary
+from prespec.plan.yamlread import parse_plan_yaml, read_plan_bytes
+
+__all__ = [
+    "Condition",
+    "DataSpec",
+    "GraphicalMultiplicity",
+    "Hypothesis",
+    "LoadedPlan",
+    "MonteCarlo",
+    "Outcome",
+    "Plan",
+    "Scalar",
+    "Sparse",
+    "Then",
+    "fingerprint",
+    "json_schema",
+    "load_plan",
+    "plan_from_resolved",
+    "resolve",
+    "summary",
+    "value_key",
+]
+
+
+@dataclass(frozen=True)
+class LoadedPlan:
+    """A plan file, loaded and validated, with its defaults resolved and its fingerprint."""
+
+    path: Path
+    file_sha256: str
+    model: Plan
+    resolved: dict[str, Any]
+    fingerprint: str
+
+
+def load_plan(path: str | Path) -> LoadedPlan:
+    """Read, validate and resolve a plan file; any problem is a one-line :class:`PlanError`."""
+    file = str(path)
+    plan_path = Path(path)
+    data = read_plan_bytes(plan_path, file)
+    doc = parse_plan_yaml(data, file)
+    plan = _validate(doc.data, Locator(file, doc.data, doc.lines, doc.key_lines))
+    resolved = resolve(plan)
+    return LoadedPlan(
+        path=plan_path,
+        file_sha256="sha256:" + hashlib.sha256(data).hexdigest(),
+        model=plan,
+        resolved=resolved,
+        fingerprint=fingerprint(resolved),
+    )
+
+
+def plan_from_resolved(resolved: dict[str, Any], source: str = "lock") -> Plan:
+    """Validate a stored resolved plan (e.g. from a lock) again; errors name ``source``."""
+    if not isinstance(resolved, dict):
+        raise PlanError(source, None, None, "a stored plan must be a mapping")
+    return _validate(resolved, Locator(source, resolved))
+
+
+def resolve(plan: Plan) -> dict[str, Any]:
+    """The plan as a JSON-able dict with YAML key names and every default written in."""
+    return plan.model_dump(mode="json", by_alias=True)
+
+
+def fingerprint(resolved: dict[str, Any]) -> str:
+    """``sha256:`` and the hex SHA-256 of the RFC 8785 canonical JSON of ``resolved``.
+
+    Reference: Rundgren, Jordan, Erdtman, RFC 8785, JSON Canonicalization Scheme (2020).
+    """
+    return "sha256:" + hashlib.sha256(rfc8785.dumps(resolved)).hexdigest()
+
+
+def json_schema() -> dict[str, Any]:
+    """The JSON Schema (draft 2020-12) of the plan format, generated from the models."""
+    schema = Plan.model_json_schema(by_alias=True, mode="validation")
+    return {"$schema": "https://json-schema.org/draft/2020-12/schema", **schema}
+
+
+def _validate(raw: dict[str, Any], where: Locator) -> Plan:
+    """Types first (pydantic), then the format's rules, then what this version can run."""
+    try:
+        plan = Plan.model_validate(raw)
+    except ValidationError as exc:
+        issues = [issue_from_pydantic(dict(e), raw) for e in exc.errors()]
+        raise _first(issues, where) from None
+    for phase in (format_issues, availability_issues):
+        issues = list(phase(plan))
+        if issues:
+            raise _first(issues, where)
+    return plan
+
+
+def _first(issues: list[Issue], where: Locator) -> PlanError:
+    return where.error(min(issues, key=where.sort_key))

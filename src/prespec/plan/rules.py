@@ -1,0 +1,433 @@
+"""The rules across keys of a typed plan (SPEC.md, "How the keys combine").
+
+:func:`format_issues` checks a plan against format version 1 as a whole; :func:`availability_issues`
+then refuses what format version 1 knows but this version of prespec cannot run yet. Each yields
+:class:`Issue` objects; the loader reports the first in document order.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Iterator
+from typing import Any
+
+from prespec.plan import vocabulary as v
+from prespec.plan.locate import Issue
+from prespec.plan.model import Hypothesis, Plan, suggest
+from prespec.plan.yamlread import KeyPath, show
+
+_NUMBER = re.compile(r"[-+]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?")
+_RESERVED_ID = re.compile(r"[:\[\]\s]")
+_TOLERANCE = 1e-12
+
+
+def value_key(value: object) -> tuple[str, object]:
+    """The matching key of a plan or data value (SPEC.md, "Reading the data").
+
+    Values agree as exact text after trimming, or by numeric equality when both are numbers,
+    so ``1``, ``"1"`` and ``1.0`` share one key.
+    """
+    if isinstance(value, bool):
+        return ("text", "true" if value else "false")
+    if isinstance(value, (int, float)):
+        return ("number", float(value))
+    text = str(value).strip()
+    if _NUMBER.fullmatch(text):
+        return ("number", float(text))
+    return ("text", text)
+
+
+def _not_in(what: str, value: object, known: list[str]) -> str:
+    listed = ", ".join(known) if known else "none"
+    return f"{show(value)} is not one of {what} (known: {listed})" + suggest(value, known)
+
+
+def _blank(text: str | None) -> bool:
+    return text is not None and not text.strip()
+
+
+def format_issues(plan: Plan) -> Iterator[Issue]:
+    """Every breach of the format's rules across keys."""
+    if not plan.title.strip():
+        yield Issue(("title",), "must not be empty")
+    yield from _data_issues(plan)
+    yield from _outcome_issues(plan)
+    yield from _multiplicity_issues(plan)
+    if not plan.hypotheses:
+        yield Issue(("hypotheses",), "must list at least one hypothesis")
+    seen: dict[str, int] = {}
+    for i, hyp in enumerate(plan.hypotheses):
+        yield from _hypothesis_issues(plan, hyp, ("hypotheses", i), seen)
+
+
+def _data_issues(plan: Plan) -> Iterator[Issue]:
+    data = plan.data
+    for key in ("id", "group"):
+        if _blank(getattr(data, key)):
+            yield Issue(("data", key), "must name a column")
+    if data.id == data.group:
+        yield Issue(("data", "group"), f"names the same column as data.id ({show(data.id)}); "
+                    "the group and the unit id are different columns")
+    if not data.groups:
+        yield Issue(("data", "groups"), "must list at least one group")
+    first: dict[str, int] = {}
+    for j, name in enumerate(data.groups):
+        path = ("data", "groups", j)
+        if not name.strip():
+            yield Issue(path, "a group name must not be empty")
+        elif name != name.strip():
+            yield Issue(path, f"{show(name)} starts or ends with spaces; data values are "
+                        "trimmed, so it would never match")
+        if name in first:
+            yield Issue(path, f"{show(name)} is listed twice (first as item {first[name] + 1})")
+        first.setdefault(name, j)
+    if data.reference is not None and data.reference not in data.groups:
+        yield Issue(("data", "reference"), _not_in("data.groups", data.reference, data.groups))
+    for name in data.planned_n or {}:
+        if name not in data.groups:
+            yield Issue(("data", "planned_n", name), _not_in("data.groups", name, data.groups),
+                        at_key=True)
+    for i, cond in enumerate(data.include):
+        yield from _condition_issues(cond, ("data", "include", i))
+
+
+def _condition_issues(cond: Any, path: KeyPath) -> Iterator[Issue]:
+    if _blank(cond.column):
+        yield Issue((*path, "column"), "must name a column")
+    given = cond.given()
+    if not given:
+        yield Issue(path, "needs one operator: in, not_in, equals, between or is_missing")
+    elif len(given) > 1:
+        yield Issue((*path, given[1]), f"has both '{given[0]}' and '{given[1]}'; give one "
+                    "operator per condition and list more conditions to combine them",
+                    at_key=True)
+    for name in ("in", "not_in"):
+        values = cond.in_ if name == "in" else cond.not_in
+        if values is not None and not values:
+            yield Issue((*path, name), "must list at least one value")
+    if cond.between is not None:
+        if len(cond.between) != 2:
+            yield Issue((*path, "between"), "expected [low, high], two numbers")
+        elif cond.between[0] > cond.between[1]:
+            yield Issue((*path, "between"), f"low {show(cond.between[0])} is above high "
+                        f"{show(cond.between[1])}")
+
+
+def _outcome_issues(plan: Plan) -> Iterator[Issue]:
+    if not plan.outcomes:
+        yield Issue(("outcomes",), "must define at least one outcome")
+    for name, out in plan.outcomes.items():
+        path: KeyPath = ("outcomes", name)
+        if not name.strip():
+            yield Issue(path, "an outcome name must not be empty", at_key=True)
+        if _blank(out.column):
+            yield Issue((*path, "column"), "must name a column")
+        keys: dict[str, dict[tuple[str, object], object]] = {}
+        for side in ("event", "no_event"):
+            values = getattr(out, side)
+            if not values:
+                yield Issue((*path, side), "must list at least one value")
+            keys[side] = {}
+            for j, value in enumerate(values):
+                key = value_key(value)
+                if key in keys[side]:
+                    yield Issue((*path, side, j), f"{show(value)} is listed twice (as "
+                                f"{show(keys[side][key])} and {show(value)})")
+                keys[side].setdefault(key, value)
+                other = keys.get("event") if side == "no_event" else None
+                if other is not None and key in other:
+                    yield Issue((*path, side, j), f"{show(value)} is also in event (as "
+                                f"{show(other[key])}); values match as text or as equal "
+                                "numbers, and a value cannot count as both")
+
+
+def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
+    mult = plan.multiplicity
+    if isinstance(mult, str):
+        return
+    ids = [h.id for h in plan.hypotheses]
+    base: KeyPath = ("multiplicity",)
+    total = 0.0
+    for hyp_id, weight in mult.weights.items():
+        if hyp_id not in ids:
+            yield Issue((*base, "weights", hyp_id), _not_in("the hypothesis ids", hyp_id, ids),
+                        at_key=True)
+        if not 0 <= weight <= 1:
+            yield Issue((*base, "weights", hyp_id), f"a weight must be in [0, 1], found "
+                        f"{show(weight)}")
+        total += weight
+    if total > 1 + _TOLERANCE:
+        yield Issue((*base, "weights"), f"the weights sum to {total:g}; they must sum to at "
+                    "most 1")
+    for source, row in mult.transitions.items():
+        path = (*base, "transitions", source)
+        if source not in ids:
+            yield Issue(path, _not_in("the hypothesis ids", source, ids), at_key=True)
+        for target, weight in row.items():
+            if target == source:
+                yield Issue((*path, target), f"{show(source)} cannot pass weight to itself",
+                            at_key=True)
+            elif target not in ids:
+                yield Issue((*path, target), _not_in("the hypothesis ids", target, ids),
+                            at_key=True)
+            if not 0 <= weight <= 1:
+                yield Issue((*path, target), f"a transition weight must be in [0, 1], found "
+                            f"{show(weight)}")
+        if sum(row.values()) > 1 + _TOLERANCE:
+            yield Issue(path, f"the transitions from {show(source)} sum to "
+                        f"{sum(row.values()):g}; they must sum to at most 1")
+
+
+def _hypothesis_issues(plan: Plan, hyp: Hypothesis, path: KeyPath,
+                       seen: dict[str, int]) -> Iterator[Issue]:
+    if not hyp.id.strip():
+        yield Issue((*path, "id"), "must not be empty")
+    elif _RESERVED_ID.search(hyp.id):
+        yield Issue((*path, "id"), f"{show(hyp.id)} holds a space, ':', '[' or ']'; these are "
+                    "kept for the ids prespec derives (H2:a-vs-b, H3[term])")
+    if hyp.id in seen:
+        yield Issue((*path, "id"), f"{show(hyp.id)} is already the id of hypothesis "
+                    f"{seen[hyp.id] + 1}; ids must be unique")
+    seen.setdefault(hyp.id, int(path[1]))
+    if hyp.title is not None and _blank(hyp.title):
+        yield Issue((*path, "title"), "must not be empty (leave it out instead)")
+    if hyp.outcome not in plan.outcomes:
+        yield Issue((*path, "outcome"), _not_in("the outcomes", hyp.outcome,
+                                                list(plan.outcomes)))
+    yield from _compare_issues(plan, hyp, path)
+    yield from _test_issues(hyp, hyp.test, (*path, "test"))
+    yield from _comparison_issues(hyp, path)
+    yield from _estimate_issues(hyp, path)
+    yield from _option_issues(plan, hyp, path)
+
+
+def _compare_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    if isinstance(hyp.compare, str):
+        return
+    groups = plan.data.groups
+    for j, name in enumerate(hyp.compare):
+        if name not in groups:
+            yield Issue((*path, "compare", j), _not_in("data.groups", name, groups))
+    if len(hyp.compare) == 2 and hyp.compare[0] == hyp.compare[1]:
+        yield Issue((*path, "compare", 1), f"compares {show(hyp.compare[0])} with itself; "
+                    "give two different groups")
+
+
+def _test_issues(hyp: Hypothesis, test: str, path: KeyPath) -> Iterator[Issue]:
+    """Rules a test must meet on this hypothesis; used for ``test`` and ``sparse.test``."""
+    kind, label = hyp.kind, v.KIND_LABELS[hyp.kind]
+    if test not in v.KNOWN_TESTS_BY_KIND[kind]:
+        tests = ", ".join(sorted(v.KNOWN_TESTS_BY_KIND[kind]))
+        yield Issue(path, f"'{test}' is not a test for compare {label} (tests for {label}: "
+                    f"{tests})")
+        return
+    if test in v.TWO_SIDED_ONLY_BY_KIND[kind] and hyp.alternative != "two-sided":
+        where = "compare: all" if kind == "all" else f"'{test}'"
+        yield Issue(path, f"{where} is tested two-sided only, and alternative is "
+                    f"'{hyp.alternative}'")
+    if test in v.MARGIN_ONLY_TESTS and hyp.comparison == "superiority":
+        yield Issue(path, f"'{test}' tests non-inferiority or equivalence; set comparison "
+                    "and margin, or choose another test")
+    if hyp.comparison != "superiority" and test not in v.MARGIN_TESTS:
+        tests = ", ".join(sorted(v.MARGIN_TESTS))
+        yield Issue(path, f"'{test}' does not test {hyp.comparison} (tests with a margin: "
+                    f"{tests})")
+    if test in v.STRATIFIED_TESTS and not hyp.strata:
+        yield Issue(path, f"'{test}' needs strata: [column, ...] on the hypothesis")
+
+
+def _comparison_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    comparison, margin = hyp.comparison, hyp.margin
+    if comparison == "superiority":
+        if margin is not None:
+            yield Issue((*path, "margin"), "a margin is used only with comparison: "
+                        "non-inferiority or equivalence")
+        return
+    if hyp.kind != "pair":
+        yield Issue((*path, "comparison"), f"{comparison} applies to compare [a, b] only")
+        return
+    if hyp.measure == "odds-ratio":
+        yield Issue((*path, "measure"), "odds-ratio margins are not supported; use "
+                    "risk-difference or risk-ratio")
+        return
+    ratio = hyp.measure == "risk-ratio"
+    if comparison == "non-inferiority":
+        if hyp.alternative == "two-sided":
+            yield Issue((*path, "alternative"), "non-inferiority needs a one-sided alternative "
+                        "(greater or less: the direction of benefit)")
+        if margin is None:
+            yield Issue((*path, "margin"), "is required for non-inferiority")
+        elif isinstance(margin, list):
+            yield Issue((*path, "margin"), "non-inferiority takes one margin, not [low, high]")
+        elif hyp.alternative != "two-sided":
+            yield from _ni_margin(margin, hyp.alternative, ratio, (*path, "margin"))
+        return
+    if hyp.alternative != "two-sided":
+        yield Issue((*path, "alternative"), "equivalence is decided by two one-sided tests; "
+                    "leave alternative two-sided")
+    if not isinstance(margin, list):
+        yield Issue((*path, "margin"), "equivalence needs margin: [low, high]")
+        return
+    low, high = margin
+    centre, bounds = (1.0, (0.0, math.inf)) if ratio else (0.0, (-1.0, 1.0))
+    if not bounds[0] < low < centre < high < bounds[1]:
+        where = "0 < low < 1 < high" if ratio else "-1 < low < 0 < high < 1"
+        yield Issue((*path, "margin"), f"an equivalence margin on the {hyp.measure} needs "
+                    f"{where}, found [{show(low)}, {show(high)}]")
+
+
+def _ni_margin(margin: float, alternative: str, ratio: bool, path: KeyPath) -> Iterator[Issue]:
+    if ratio:
+        if margin <= 0:
+            yield Issue(path, f"a risk-ratio margin must be above 0, found {show(margin)}")
+        elif (alternative == "greater") != (margin < 1):
+            side = "below 1" if alternative == "greater" else "above 1"
+            yield Issue(path, f"with alternative {alternative} the risk-ratio margin lies "
+                        f"{side}, found {show(margin)}")
+        return
+    if not -1 < margin < 1:
+        yield Issue(path, f"a risk-difference margin must be in (-1, 1), found {show(margin)}")
+    elif (alternative == "greater") != (margin < 0):
+        side = "below 0" if alternative == "greater" else "above 0"
+        yield Issue(path, f"with alternative {alternative} the risk-difference margin lies "
+                    f"{side}, found {show(margin)}")
+
+
+def _estimate_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    kind, label = hyp.kind, v.KIND_LABELS[hyp.kind]
+    measures = v.MEASURES_BY_KIND[kind]
+    if not measures:
+        if hyp.measure is not None:
+            yield Issue((*path, "measure"), f"compare: {label} has no measure (its estimate is "
+                        "null); leave measure out")
+        if hyp.interval is not None:
+            yield Issue((*path, "interval"), f"compare: {label} has no interval; leave "
+                        "interval out")
+        return
+    if hyp.measure not in measures:
+        yield Issue((*path, "measure"), f"'{hyp.measure}' is not a measure for compare {label} "
+                    f"(measures for {label}: {', '.join(measures)})")
+        return
+    if hyp.test in v.STRATIFIED_TESTS:
+        allowed: tuple[str, ...] = (v.STRATIFIED_INTERVALS[hyp.measure],)
+        under = f"{hyp.measure} under '{hyp.test}'"
+    else:
+        allowed = v.INTERVALS_BY_MEASURE[hyp.measure]
+        under = hyp.measure
+    if hyp.interval not in allowed:
+        yield Issue((*path, "interval"), f"'{hyp.interval}' is not an interval for {under} "
+                    f"(intervals: {', '.join(allowed)})")
+
+
+def _option_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    kind, label = hyp.kind, v.KIND_LABELS[hyp.kind]
+    if hyp.continuity and hyp.test not in v.CONTINUITY_TESTS_BY_KIND[kind]:
+        yield Issue((*path, "continuity"), "continuity applies only to pearson-chi-square on "
+                    "compare [a, b] and to cochran-mantel-haenszel")
+    if hyp.sparse is not None:
+        sp = (*path, "sparse", "test")
+        if hyp.sparse.test == hyp.test:
+            yield Issue(sp, f"switches to '{hyp.test}', the test already chosen")
+        else:
+            yield from _test_issues(hyp, hyp.sparse.test, sp)
+        if hyp.comparison != "superiority":
+            yield Issue((*path, "sparse"), "a sparse switch applies to superiority comparisons "
+                        "only")
+    if kind == "single":
+        if hyp.null_rate is None:
+            yield Issue((*path, "null_rate"), "is required for compare [a] (the rate under the "
+                        "null hypothesis)", line_path=path)
+    elif hyp.null_rate is not None:
+        yield Issue((*path, "null_rate"), "is used only with compare [a]", at_key=True)
+    stratified = {hyp.test, hyp.sparse.test if hyp.sparse else ""} & v.STRATIFIED_TESTS
+    if hyp.strata is not None:
+        yield from _strata_issues(plan, hyp.strata, bool(stratified), (*path, "strata"))
+    if hyp.then is not None and kind != "all":
+        yield Issue((*path, "then"), f"follow-up comparisons apply to compare: all, not {label}",
+                    at_key=True)
+    if hyp.scores is not None:
+        yield from _score_issues(plan, hyp, (*path, "scores"))
+    fisher_k = kind == "all" and "fisher-exact" in {hyp.test, hyp.sparse.test if hyp.sparse
+                                                     else ""}
+    if hyp.monte_carlo is not None and not fisher_k:
+        yield Issue((*path, "monte_carlo"), "a Monte Carlo p-value applies only to fisher-exact "
+                    "on compare: all", at_key=True)
+
+
+def _strata_issues(plan: Plan, strata: list[str], stratified: bool,
+                   path: KeyPath) -> Iterator[Issue]:
+    if not stratified:
+        tests = ", ".join(sorted(v.STRATIFIED_TESTS))
+        yield Issue(path, f"strata are used only by {tests}", at_key=True)
+    if not strata:
+        yield Issue(path, "must name at least one column")
+    for j, column in enumerate(strata):
+        if not column.strip():
+            yield Issue((*path, j), "must name a column")
+        elif column == plan.data.group:
+            yield Issue((*path, j), f"{show(column)} is the group column; strata are other "
+                        "columns")
+        elif column in strata[:j]:
+            yield Issue((*path, j), f"{show(column)} is listed twice")
+
+
+def _score_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    if hyp.kind != "trend":
+        yield Issue(path, "scores are used only with compare: trend", at_key=True)
+        return
+    k = len(plan.data.groups)
+    if len(hyp.scores or []) != k:
+        yield Issue(path, f"expected {k} scores, one per group in data.groups order, found "
+                    f"{len(hyp.scores or [])}")
+    elif len(set(hyp.scores or [])) != k:
+        yield Issue(path, "the scores must be distinct numbers")
+
+
+def availability_issues(plan: Plan) -> Iterator[Issue]:
+    """What format version 1 knows but this version of prespec cannot run."""
+    mult = plan.multiplicity
+    name = mult if isinstance(mult, str) else mult.method
+    if name not in v.AVAILABLE_MULTIPLICITY:
+        where: KeyPath = ("multiplicity",) if isinstance(mult, str) else ("multiplicity",
+                                                                          "method")
+        yield Issue(where, v.unavailable(name, v.AVAILABLE_MULTIPLICITY))
+    for i, hyp in enumerate(plan.hypotheses):
+        yield from _hypothesis_availability(hyp, ("hypotheses", i))
+
+
+def _unavailable_test(kind: str, test: str) -> str:
+    shown = ""
+    if kind == "all" and test == "fisher-exact":
+        shown = "'fisher-exact' on compare: all (the exact k×2 test)"
+    return v.unavailable(test, v.AVAILABLE_TESTS_BY_KIND[kind], v.KIND_LABELS[kind], shown)
+
+
+def _hypothesis_availability(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    kind = hyp.kind
+    if kind not in v.AVAILABLE_KINDS:
+        avail = ", ".join(v.KIND_LABELS[k] for k in v.KINDS if k in v.AVAILABLE_KINDS)
+        yield Issue((*path, "compare"), f"compare {v.KIND_LABELS[kind]} is known but not "
+                    f"available in this version of prespec (available: {avail})")
+    else:
+        if hyp.test not in v.AVAILABLE_TESTS_BY_KIND[kind]:
+            yield Issue((*path, "test"), _unavailable_test(kind, hyp.test))
+        if hyp.sparse is not None and hyp.sparse.test not in v.AVAILABLE_TESTS_BY_KIND[kind]:
+            yield Issue((*path, "sparse", "test"), _unavailable_test(kind, hyp.sparse.test))
+        yield from _estimate_availability(hyp, path)
+    for key in sorted(v.KNOWN_HYPOTHESIS_OPTIONS - v.AVAILABLE_HYPOTHESIS_OPTIONS):
+        if getattr(hyp, key) is not None:
+            yield Issue((*path, key), f"'{key}' is known but not available in this version "
+                        "of prespec", at_key=True)
+
+
+def _estimate_availability(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    if hyp.comparison not in v.AVAILABLE_COMPARISONS:
+        yield Issue((*path, "comparison"),
+                    v.unavailable(hyp.comparison, v.AVAILABLE_COMPARISONS))
+    if hyp.measure is not None and hyp.measure not in v.AVAILABLE_MEASURES:
+        yield Issue((*path, "measure"), v.unavailable(hyp.measure, v.AVAILABLE_MEASURES))
+    elif hyp.interval is not None and hyp.interval not in v.AVAILABLE_INTERVALS:
+        measure = hyp.measure or ""
+        for_measure = v.AVAILABLE_INTERVALS & set(v.INTERVALS_BY_MEASURE.get(measure, ()))
+        yield Issue((*path, "interval"), v.unavailable(hyp.interval, for_measure, measure))

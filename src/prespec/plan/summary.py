@@ -1,0 +1,77 @@
+"""A plain-text account of a plan, for ``prespec check``."""
+
+from __future__ import annotations
+
+from prespec.plan.model import Condition, Hypothesis, Plan
+from prespec.plan.yamlread import show
+
+
+def _values(values: list[str | int | float]) -> str:
+    return ", ".join(show(x) for x in values)
+
+
+def _condition(cond: Condition) -> str:
+    name, operand = cond.op()
+    if name == "in":
+        return f"{cond.column} is one of {_values(cond.in_ or [])}"
+    if name == "not_in":
+        return f"{cond.column} is none of {_values(cond.not_in or [])}"
+    if name == "equals":
+        return f"{cond.column} equals {show(operand)}"
+    if name == "between":
+        low, high = cond.between or [0.0, 0.0]
+        return f"{cond.column} from {show(low)} to {show(high)} inclusive"
+    return f"{cond.column} is {'blank' if operand else 'not blank'}"
+
+
+def _compare(plan: Plan, hyp: Hypothesis) -> str:
+    if hyp.compare == "all":
+        return f"all {len(plan.data.groups)} groups"
+    if hyp.compare == "trend":
+        return f"trend over {len(plan.data.groups)} ordered groups"
+    if len(hyp.compare) == 1:
+        return f"{hyp.compare[0]} against a rate of {show(hyp.null_rate)}"
+    return f"{hyp.compare[0]} vs {hyp.compare[1]}"
+
+
+def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
+    parts = [hyp.test + (" (continuity-corrected)" if hyp.continuity else ""),
+             hyp.alternative, hyp.comparison]
+    if hyp.margin is not None:
+        parts.append(f"margin {show(hyp.margin) if not isinstance(hyp.margin, list) else hyp.margin}")
+    if hyp.measure is not None:
+        parts.append(f"{hyp.measure} with {hyp.interval} interval")
+    if hyp.sparse is not None:
+        parts.append(f"{hyp.sparse.test} if an expected count is below "
+                     f"{show(hyp.sparse.min_expected)}")
+    if hyp.strata:
+        parts.append(f"strata {', '.join(hyp.strata)}")
+    title = f" - {hyp.title}" if hyp.title else ""
+    return (f"  {hyp.id} [{hyp.role}] {hyp.outcome}: {_compare(plan, hyp)}{title}\n"
+            f"      {'; '.join(parts)}")
+
+
+def summary(plan: Plan) -> str:
+    """A readable multi-line summary of the plan."""
+    data = plan.data
+    groups = ", ".join(f"{g} (reference)" if g == data.reference else g for g in data.groups)
+    lines = [f"Plan:          {plan.title}",
+             f"Protocol:      {plan.protocol or '(none given)'}",
+             f"Unit id:       column {data.id}",
+             f"Groups:        {groups} (column {data.group})"]
+    if data.planned_n:
+        planned = ", ".join(f"{g} {n}" for g, n in data.planned_n.items())
+        lines.append(f"Planned n:     {planned}")
+    if data.include:
+        lines.append("Population:    rows where " + "; and ".join(map(_condition, data.include)))
+    else:
+        lines.append("Population:    every row")
+    lines.append("Outcomes:")
+    for name, out in plan.outcomes.items():
+        lines.append(f"  {name}: column {out.column}; event = {_values(out.event)}; "
+                     f"no event = {_values(out.no_event)}; blank counts as: {out.missing}")
+    mult = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
+    lines.append(f"Alpha:         {show(plan.alpha)}, multiplicity: {mult}")
+    lines.append(f"Hypotheses ({len(plan.hypotheses)}):")
+    lines.extend(_hypothesis(plan, hyp) for hyp in plan.hypotheses)
+    return "\n".join(lines)

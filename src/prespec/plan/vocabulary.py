@@ -1,0 +1,167 @@
+"""The names of the plan format, and which of them this version of prespec can run.
+
+Every name SPEC.md defines is *known*: the plan model accepts it and checks its rules. Only the
+*available* names run in this release; a known but unavailable name is refused with its own
+message. A later issue makes a method available by adding its name to an ``AVAILABLE_*`` set.
+
+Compare kinds: ``pair`` is ``compare: [a, b]``, ``single`` is ``compare: [a]``, ``all`` is the
+k-group comparison and ``trend`` the ordered one.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+Kind = Literal["pair", "single", "all", "trend"]
+
+KINDS: tuple[Kind, ...] = ("pair", "single", "all", "trend")
+KIND_LABELS: dict[str, str] = {
+    "pair": "[a, b]",
+    "single": "[a]",
+    "all": "all",
+    "trend": "trend",
+}
+
+# Tests, per compare kind (SPEC.md, "How the keys combine").
+KNOWN_TESTS_BY_KIND: dict[str, frozenset[str]] = {
+    "pair": frozenset(
+        {
+            "pearson-chi-square",
+            "likelihood-ratio",
+            "two-proportion-z",
+            "fisher-exact",
+            "barnard-exact",
+            "boschloo-exact",
+            "cochran-mantel-haenszel",
+            "farrington-manning",
+        }
+    ),
+    "single": frozenset({"binomial-exact", "one-proportion-z"}),
+    "all": frozenset({"pearson-chi-square", "likelihood-ratio", "fisher-exact"}),
+    "trend": frozenset({"cochran-armitage-trend"}),
+}
+KNOWN_TESTS: frozenset[str] = frozenset().union(*KNOWN_TESTS_BY_KIND.values())
+
+AVAILABLE_TESTS_BY_KIND: dict[str, frozenset[str]] = {
+    "pair": frozenset({"pearson-chi-square", "two-proportion-z", "fisher-exact"}),
+    "single": frozenset(),
+    "all": frozenset({"pearson-chi-square"}),
+    "trend": frozenset(),
+}
+AVAILABLE_KINDS: frozenset[str] = frozenset({"pair", "all"})
+
+# Tests that only have a two-sided form, per kind; every test on `all` is two-sided only.
+TWO_SIDED_ONLY_BY_KIND: dict[str, frozenset[str]] = {
+    "pair": frozenset({"likelihood-ratio"}),
+    "single": frozenset(),
+    "all": KNOWN_TESTS_BY_KIND["all"],
+    "trend": frozenset(),
+}
+# Tests that take `continuity: true` (the corrected statistic), per kind.
+CONTINUITY_TESTS_BY_KIND: dict[str, frozenset[str]] = {
+    "pair": frozenset({"pearson-chi-square", "cochran-mantel-haenszel"}),
+    "single": frozenset(),
+    "all": frozenset(),
+    "trend": frozenset(),
+}
+STRATIFIED_TESTS: frozenset[str] = frozenset({"cochran-mantel-haenszel"})
+# Tests for non-inferiority and equivalence (with a margin), and those used only there.
+MARGIN_TESTS: frozenset[str] = frozenset({"farrington-manning", "two-proportion-z"})
+MARGIN_ONLY_TESTS: frozenset[str] = frozenset({"farrington-manning"})
+
+# Measures, per kind; the first is the default (CMH defaults to the odds ratio).
+MEASURES_BY_KIND: dict[str, tuple[str, ...]] = {
+    "pair": ("risk-difference", "risk-ratio", "odds-ratio"),
+    "single": ("proportion",),
+    "all": (),
+    "trend": (),
+}
+STRATIFIED_DEFAULT_MEASURE = "odds-ratio"
+KNOWN_MEASURES: frozenset[str] = frozenset().union(*map(frozenset, MEASURES_BY_KIND.values()))
+AVAILABLE_MEASURES: frozenset[str] = frozenset({"risk-difference"})
+
+# Intervals, per measure; the first is the default.
+INTERVALS_BY_MEASURE: dict[str, tuple[str, ...]] = {
+    "risk-difference": ("newcombe", "wald", "agresti-caffo", "miettinen-nurminen"),
+    "risk-ratio": ("katz", "koopman"),
+    "odds-ratio": ("woolf", "miettinen-nurminen", "exact-conditional"),
+    "proportion": ("wilson", "clopper-pearson", "jeffreys"),
+}
+# Under a stratified test the interval is the stratified one, one per measure.
+STRATIFIED_INTERVALS: dict[str, str] = {
+    "odds-ratio": "robins-breslow-greenland",
+    "risk-ratio": "greenland-robins",
+    "risk-difference": "sato",
+}
+KNOWN_INTERVALS: frozenset[str] = frozenset().union(
+    *map(frozenset, INTERVALS_BY_MEASURE.values()), STRATIFIED_INTERVALS.values()
+)
+AVAILABLE_INTERVALS: frozenset[str] = frozenset({"newcombe", "wald"})
+
+ALTERNATIVES: tuple[str, ...] = ("two-sided", "greater", "less")
+KNOWN_COMPARISONS: tuple[str, ...] = ("superiority", "non-inferiority", "equivalence")
+AVAILABLE_COMPARISONS: frozenset[str] = frozenset({"superiority"})
+ROLES: tuple[str, ...] = ("primary", "secondary", "exploratory")
+MISSING_RULES: tuple[str, ...] = ("exclude", "event", "no-event", "error")
+PAIRWISE: tuple[str, ...] = ("reference", "all")
+
+KNOWN_MULTIPLICITY: tuple[str, ...] = (
+    "none",
+    "bonferroni",
+    "sidak",
+    "holm",
+    "hochberg",
+    "hommel",
+    "fixed-sequence",
+    "benjamini-hochberg",
+    "benjamini-yekutieli",
+    "graphical",
+)
+# The names written alone; `graphical` is only ever a mapping.
+MULTIPLICITY_NAMES: tuple[str, ...] = tuple(m for m in KNOWN_MULTIPLICITY if m != "graphical")
+AVAILABLE_MULTIPLICITY: frozenset[str] = frozenset({"none", "bonferroni", "holm"})
+
+# Optional hypothesis keys that are known; those not available are refused when given.
+KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
+    {
+        "title",
+        "alternative",
+        "comparison",
+        "margin",
+        "measure",
+        "interval",
+        "continuity",
+        "sparse",
+        "role",
+        "null_rate",
+        "strata",
+        "scores",
+        "then",
+        "monte_carlo",
+    }
+)
+AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS - {
+    "then",
+    "strata",
+    "monte_carlo",
+    "scores",
+}
+
+# Keys of later parts of the format (SPEC.md, "Later parts", "Design and interim looks"):
+# named so that a plan using them is told they are not available yet, not that they are unknown.
+LATER_KEYS: dict[str, frozenset[str]] = {
+    "plan": frozenset({"design"}),
+    "data": frozenset({"source", "table"}),
+    "hypothesis": frozenset({"looks", "over", "within"}),
+}
+
+
+def unavailable(name: str, available: frozenset[str], where: str = "", shown: str = "") -> str:
+    """The one message for a known name that this version cannot run.
+
+    ``where`` names the compare kind the list is for; ``shown`` replaces the quoted name.
+    """
+    names = ", ".join(sorted(available)) or "none yet"
+    label = f"available for {where}" if where else "available"
+    return (f"{shown or repr(name)} is known but not available in this version of prespec "
+            f"({label}: {names})")
