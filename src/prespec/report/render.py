@@ -1,0 +1,182 @@
+"""Executing the report notebook on a report folder and exporting it to stand-alone HTML.
+
+:func:`render_notebook` runs the template notebook shipped in the package with papermill, in
+the report folder, passing it only the name and the SHA-256 of ``results.json``; the notebook
+reads everything else from that file. The executed notebook becomes ``report.ipynb`` and its
+HTML export, with the code hidden and the figures embedded, ``report.html``. Both are written
+under temporary names and renamed into place only when both are complete.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+from pathlib import Path
+from typing import Any
+
+import nbformat
+from nbformat import NotebookNode
+
+from prespec.errors import PrespecError
+from prespec.report.template import TEMPLATE
+
+RESULTS = "results.json"
+NOTEBOOK = "report.ipynb"
+HTML = "report.html"
+KERNEL = "python3"
+_PARTIAL_NOTEBOOK = ".report.partial.ipynb"
+_PARTIAL_HTML = ".report.partial.html"
+
+# The lab template of nbconvert, without the scripts it would fetch from the network
+# (require.js, MathJax, Mermaid): the report needs none of them and must stand alone.
+_HTML_TEMPLATE_NAME = "prespec_report.html.j2"
+_HTML_TEMPLATE = """\
+{%- extends 'index.html.j2' -%}
+{%- block html_head_js -%}{%- endblock html_head_js -%}
+{%- block html_head_js_mathjax -%}{%- endblock html_head_js_mathjax -%}
+{%- block html_head_js_mermaidjs -%}{%- endblock html_head_js_mermaidjs -%}
+{%- block html_head_css -%}
+<style type="text/css">
+body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
+.jp-RenderedHTMLCommon table.prespec { margin: 0.4em 0 1em; border-collapse: collapse; }
+.jp-RenderedHTMLCommon table.prespec th, .jp-RenderedHTMLCommon table.prespec td {
+  border: 1px solid #c8c8c8; padding: 0.25em 0.7em; text-align: left; vertical-align: top;
+}
+.jp-RenderedHTMLCommon table.prespec td.num {
+  text-align: right; font-variant-numeric: tabular-nums;
+}
+.jp-RenderedHTMLCommon table.prespec thead th { background: #ececec; }
+.jp-RenderedHTMLCommon table.prespec tbody tr:nth-child(odd) { background: #fafafa; }
+.jp-RenderedHTMLCommon table.prespec-fields th { background: #f3f3f3; font-weight: 600; }
+.prespec-hyp { border-top: 1px solid #bdbdbd; margin-top: 1.6em; }
+.prespec-exploratory { font-weight: normal; font-style: italic; color: #555555; }
+</style>
+{%- endblock html_head_css -%}
+"""
+
+
+def results_digest(path: Path) -> str:
+    """``sha256:<hex>`` of a file's bytes."""
+    return "sha256:" + hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def render_notebook(folder: Path, *, kernel_name: str | None = None) -> None:
+    """Execute the report notebook in ``folder`` and write ``report.ipynb`` and ``report.html``.
+
+    ``folder`` must hold ``results.json`` and the figures that :func:`write_figures` wrote.
+    The kernel is the current interpreter's ipykernel (``python3``) unless ``kernel_name`` says
+    otherwise. Any failure raises :class:`prespec.errors.PrespecError` with a one-line message
+    and leaves neither file behind.
+    """
+    folder = Path(folder)
+    results_path = folder / RESULTS
+    if not results_path.is_file():
+        raise PrespecError(f"{results_path}: no results file to report on")
+    partial_nb = folder / _PARTIAL_NOTEBOOK
+    partial_html = folder / _PARTIAL_HTML
+    try:
+        digest = results_digest(results_path)
+        executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL)
+        _clean(executed, _title(results_path))
+        page = _to_html(executed)
+        nbformat.write(executed, partial_nb)
+        partial_html.write_text(page, encoding="utf-8")
+        os.replace(partial_nb, folder / NOTEBOOK)
+        os.replace(partial_html, folder / HTML)
+    except PrespecError:
+        _discard(partial_nb, partial_html)
+        raise
+    except Exception as exc:  # any other failure of papermill, nbconvert or the disk
+        _discard(partial_nb, partial_html)
+        raise PrespecError(f"report for {folder}: {_one_line(exc)}") from exc
+
+
+def _discard(*paths: Path) -> None:
+    for path in paths:
+        path.unlink(missing_ok=True)
+
+
+def _one_line(exc: BaseException) -> str:
+    words = " ".join(str(exc).split())
+    return f"{type(exc).__name__}: {words}" if words else type(exc).__name__
+
+
+def _execute(folder: Path, output: Path, digest: str, kernel_name: str) -> NotebookNode:
+    import papermill
+    from papermill.exceptions import PapermillExecutionError
+
+    # papermill logs each cell at INFO level; a report run prints nothing of that.
+    logging.getLogger("papermill").setLevel(logging.WARNING)
+    try:
+        node: NotebookNode = papermill.execute_notebook(
+            str(TEMPLATE),
+            str(output),
+            parameters={"results_file": RESULTS, "results_sha256": digest},
+            kernel_name=kernel_name,
+            progress_bar=False,
+            log_output=False,
+            cwd=str(folder),
+            **_kernel_options(),
+        )
+    except PapermillExecutionError as exc:
+        message = " ".join(str(exc.evalue).split())
+        raise PrespecError(
+            f"report notebook failed in cell {exc.exec_count}: {exc.ename}: {message}"
+        ) from exc
+    return node
+
+
+def _kernel_options() -> dict[str, Any]:
+    """Encrypt the kernel's local sockets where libzmq can (the kernel then stays quiet too)."""
+    import zmq
+    from traitlets.config import Config
+
+    if not zmq.has("curve"):
+        return {}
+    return {"config": Config({"KernelManager": {"transport_encryption": "auto"}})}
+
+
+def _title(results_path: Path) -> str:
+    """The plan's title for the page's <title> (the notebook itself shows the results)."""
+    try:
+        title = json.loads(results_path.read_bytes()).get("title")
+    except (ValueError, AttributeError):
+        return "prespec report"
+    return f"{title} — prespec report" if isinstance(title, str) and title else "prespec report"
+
+
+def _clean(nb: NotebookNode, title: str) -> None:
+    """Drop what makes the executed notebook differ from run to run: times and temp names."""
+    meta: dict[str, Any] = nb.metadata.get("papermill", {})
+    for key in ("start_time", "end_time", "duration"):
+        meta.pop(key, None)
+    meta["input_path"] = "template.ipynb"
+    meta["output_path"] = NOTEBOOK
+    for cell in nb.cells:
+        cell.metadata.pop("execution", None)
+        pm = cell.metadata.get("papermill")
+        if isinstance(pm, dict):
+            for key in ("start_time", "end_time", "duration"):
+                pm.pop(key, None)
+        if "injected-parameters" in cell.metadata.get("tags", []):
+            cell.id = "injected-parameters"
+    nb.metadata["title"] = title
+
+
+def _to_html(nb: NotebookNode) -> str:
+    import jinja2
+    from nbconvert import HTMLExporter
+
+    exporter = HTMLExporter(
+        template_name="lab",
+        extra_loaders=[jinja2.DictLoader({_HTML_TEMPLATE_NAME: _HTML_TEMPLATE})],
+        template_file=_HTML_TEMPLATE_NAME,
+        exclude_input=True,
+        exclude_input_prompt=True,
+        exclude_output_prompt=True,
+        exclude_anchor_links=True,
+    )
+    body, _resources = exporter.from_notebook_node(nb, resources={"metadata": {"name": "report"}})
+    return str(body)

@@ -1,0 +1,121 @@
+"""The source of the report notebook, ``template.ipynb``.
+
+The notebook shipped in the package is generated from this module and committed beside it
+(a test checks that the two agree). After editing the cells, regenerate it with::
+
+    python -m prespec.report.template
+
+The notebook receives two parameters only, ``results_file`` and ``results_sha256``. Its first
+cell after the parameters checks the hash of the results file and stops if it differs; every
+other value is read from that file. The display logic lives in :mod:`prespec.report.sections`.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import nbformat
+from nbformat import NotebookNode
+
+TEMPLATE = Path(__file__).with_name("template.ipynb")
+
+PARAMETERS = '''\
+# Parameters, replaced when the report is executed.
+results_file = "results.json"
+results_sha256 = ""
+'''
+
+CELLS: list[tuple[str, str]] = [
+    ("check-results", '''\
+# Read results.json once, and stop unless its hash is the one the report was started with.
+import hashlib
+import json
+from pathlib import Path
+
+results_bytes = Path(results_file).read_bytes()
+found_sha256 = "sha256:" + hashlib.sha256(results_bytes).hexdigest()
+if found_sha256 != results_sha256:
+    raise RuntimeError(
+        f"{results_file} has hash {found_sha256}, expected {results_sha256 or 'none given'}"
+    )
+results = json.loads(results_bytes)
+if not isinstance(results, dict):
+    raise TypeError(f"{results_file} does not hold a JSON object")
+'''),
+    ("header", '''\
+from IPython.display import HTML, Image, display
+
+from prespec.report import sections
+
+display(HTML(sections.header(results)))
+display(HTML(sections.caution(results)))
+'''),
+    ("departures", '''\
+display(HTML(sections.departures(results)))
+'''),
+    ("population", '''\
+display(HTML(sections.population(results)))
+'''),
+    ("outcomes", '''\
+outcome_parts = sections.outcomes(results)
+display(HTML("<h2>Outcomes</h2>" if outcome_parts else ""))
+for _name, outcome_html, figure in outcome_parts:
+    display(HTML(outcome_html))
+    display(Image(filename=figure))
+'''),
+    ("hypotheses", '''\
+display(HTML(sections.hypotheses_heading(results)))
+for hypothesis_html in sections.hypotheses(results):
+    display(HTML(hypothesis_html))
+forest = sections.forest_figure(results)
+if forest is not None:
+    display(HTML("<h3>Estimates and intervals</h3>"))
+    display(Image(filename=forest))
+'''),
+    ("multiplicity", '''\
+display(HTML(sections.multiplicity(results)))
+'''),
+    ("environment", '''\
+display(HTML(sections.environment(results)))
+'''),
+    ("caution-end", '''\
+display(HTML(sections.caution(results)))
+'''),
+]
+
+
+def build() -> NotebookNode:
+    """The template notebook, with fixed cell ids so that it is the same on every build."""
+    nb = nbformat.v4.new_notebook()
+    params = nbformat.v4.new_code_cell(PARAMETERS.rstrip("\n"))
+    params.id = "parameters"
+    params.metadata["tags"] = ["parameters"]
+    nb.cells.append(params)
+    for cell_id, source in CELLS:
+        cell = nbformat.v4.new_code_cell(source.rstrip("\n"))
+        cell.id = cell_id
+        nb.cells.append(cell)
+    nb.metadata["kernelspec"] = {
+        "display_name": "Python 3 (ipykernel)",
+        "language": "python",
+        "name": "python3",
+    }
+    nb.metadata["language_info"] = {"name": "python"}
+    nb.metadata["title"] = "prespec report"
+    nbformat.validate(nb)
+    return nb
+
+
+def dumps() -> str:
+    """The template as the text written to ``template.ipynb``."""
+    return nbformat.writes(build()) + "\n"
+
+
+def write(path: Path = TEMPLATE) -> Path:
+    """Write the template notebook (by default into the package) and return its path."""
+    path.write_text(dumps(), encoding="utf-8")
+    return path
+
+
+if __name__ == "__main__":
+    print(write())

@@ -1,0 +1,312 @@
+"""Tests of the report's figures (src/prespec/report/figures.py) and of its value formatting.
+
+The results below are invented (the wound-dressing scenario of SPEC.md); the report computes
+nothing, so the tests check that what is drawn and shown is what results.json holds.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+from pathlib import Path
+from typing import Any
+
+import matplotlib
+import numpy as np
+import pytest
+from matplotlib.image import imread
+
+from prespec.errors import PrespecError
+from prespec.report import values
+from prespec.report.figures import DIFFERENCES, has_estimates, proportions_name, write_figures
+
+TITLE = "Dressing <b>regimens</b> & 30-day wound infection"
+CAUTION = (
+    "prespec computes what the plan asks; it does not judge whether the plan suits the study. "
+    "Results that inform clinical or regulatory decisions need review by a qualified "
+    "statistician under the applicable guidance (ICH E9 and local requirements)."
+)
+
+
+def sample_results() -> dict[str, Any]:
+    """An invented run of a three-arm wound-dressing plan, touching every kind of hypothesis."""
+    groups = [
+        {"group": "gauze", "events": 41, "total": 196, "missing": 4, "proportion": 0.2092,
+         "ci": [0.158, 0.271], "ci_method": "wilson", "level": 0.95},
+        {"group": "alginate", "events": 30, "total": 200, "missing": 0, "proportion": 0.15,
+         "ci": [0.1072, 0.2061], "ci_method": "wilson", "level": 0.95},
+        {"group": "negative-pressure", "events": 23, "total": 198, "missing": 2,
+         "proportion": 0.1162, "ci": [0.0788, 0.1681], "ci_method": "wilson", "level": 0.95},
+    ]
+    reopen = [
+        {"group": "gauze", "events": 3, "total": 196, "missing": 4, "proportion": 0.0153,
+         "ci": [0.0052, 0.044], "ci_method": "wilson", "level": 0.95},
+        {"group": "alginate", "events": 1, "total": 200, "missing": 0, "proportion": 0.005,
+         "ci": [0.0009, 0.0277], "ci_method": "wilson", "level": 0.95},
+        {"group": "negative-pressure", "events": 0, "total": 198, "missing": 2,
+         "proportion": 0.0, "ci": [0.0, 0.019], "ci_method": "wilson", "level": 0.95},
+    ]
+    base = {"comparison": "superiority", "margin": None, "continuity": False, "rule": None}
+    hypotheses = [
+        {**base, "id": "H1", "title": "Negative-pressure vs gauze", "role": "primary",
+         "outcome": "infection", "compare": ["negative-pressure", "gauze"],
+         "alternative": "two-sided", "planned_test": "pearson-chi-square",
+         "test": "pearson-chi-square", "statistic": 6.12, "df": 1, "p_value": 0.0134,
+         "p_adjusted": 0.0268, "reject": True,
+         "estimate": {"measure": "risk-difference", "value": -0.094, "ci": [-0.17, -0.019],
+                      "ci_method": "newcombe", "level": 0.95},
+         "table": {"groups": ["negative-pressure", "gauze"], "events": [23, 41],
+                   "totals": [198, 196]},
+         "expected": [[32.1, 165.9], [31.9, 164.1]]},
+        {**base, "id": "H2", "title": "Alginate vs gauze, wound reopening", "role": "secondary",
+         "outcome": "reopening", "compare": ["alginate", "gauze"], "alternative": "two-sided",
+         "planned_test": "pearson-chi-square", "test": "fisher-exact", "statistic": None,
+         "df": None, "p_value": 0.3712, "p_adjusted": 0.3712, "reject": False,
+         "estimate": {"measure": "risk-ratio", "value": 0.3267, "ci": [0.0343, 3.108],
+                      "ci_method": "katz", "level": 0.95},
+         "table": {"groups": ["alginate", "gauze"], "events": [1, 3], "totals": [200, 196]},
+         "expected": [[2.02, 197.98], [1.98, 194.02]],
+         "rule": {"switch": "sparse", "min_expected": 5, "smallest_expected": 1.98,
+                  "from": "pearson-chi-square", "to": "fisher-exact"}},
+        {**base, "id": "H3", "title": "Negative-pressure not worse than alginate",
+         "role": "secondary", "outcome": "infection", "compare": ["negative-pressure", "alginate"],
+         "alternative": "less", "comparison": "non-inferiority", "margin": 0.05,
+         "planned_test": "farrington-manning", "test": "farrington-manning",
+         "statistic": -3.41, "df": None, "p_value": 0.0000321, "p_adjusted": 0.0000963,
+         "reject": True,
+         "estimate": {"measure": "risk-difference", "value": -0.0338, "ci": [-0.0951, 0.0268],
+                      "ci_method": "miettinen-nurminen", "level": 0.9},
+         "table": {"groups": ["negative-pressure", "alginate"], "events": [23, 30],
+                   "totals": [198, 200]},
+         "expected": [[26.37, 171.63], [26.63, 173.37]]},
+        {**base, "id": "H4", "title": "Any difference among the three arms",
+         "role": "exploratory", "outcome": "infection", "compare": "all",
+         "alternative": "two-sided", "planned_test": "pearson-chi-square",
+         "test": "pearson-chi-square", "statistic": 6.205, "df": 2, "p_value": 0.04494,
+         "p_adjusted": None, "reject": None, "estimate": None,
+         "table": {"groups": ["gauze", "alginate", "negative-pressure"],
+                   "events": [41, 30, 23], "totals": [196, 200, 198]},
+         "expected": [[31.02, 164.98], [31.65, 168.35], [31.33, 166.67]]},
+        {**base, "id": "H5", "title": "Odds of reopening, negative-pressure vs gauze",
+         "role": "exploratory", "outcome": "reopening", "compare": ["negative-pressure", "gauze"],
+         "alternative": "two-sided", "planned_test": "fisher-exact", "test": "fisher-exact",
+         "statistic": None, "df": None, "p_value": 0.1224, "p_adjusted": None, "reject": None,
+         "estimate": {"measure": "odds-ratio", "value": 0.1408, "ci": [0.0072, 2.743],
+                      "ci_method": "woolf", "level": 0.95},
+         "table": {"groups": ["negative-pressure", "gauze"], "events": [0, 3],
+                   "totals": [198, 196]},
+         "expected": [[1.51, 196.49], [1.49, 194.51]]},
+        {**base, "id": "H6", "title": "Alginate vs gauze, infection", "role": "secondary",
+         "outcome": "infection", "compare": ["alginate", "gauze"], "alternative": "two-sided",
+         "planned_test": "two-proportion-z", "test": "two-proportion-z", "statistic": None,
+         "df": None, "p_value": None, "p_adjusted": None, "reject": None,
+         "estimate": {"measure": "risk-difference", "value": None, "ci": None,
+                      "ci_method": "wald", "level": 0.95},
+         "table": {"groups": ["alginate", "gauze"], "events": [30, 41], "totals": [200, 196]},
+         "expected": None},
+    ]
+    return {
+        "prespec": 1,
+        "kind": "run",
+        "title": TITLE,
+        "protocol": "WD-2027-01",
+        "plan": "sha256:3f0c" + "1" * 60,
+        "plan_version": 2,
+        "data": "sha256:9ab1" + "2" * 60,
+        "data_file": "data/wounds.csv",
+        "created": "2026-12-01T23:10:00Z",
+        "actor": "jdoe",
+        "alpha": 0.05,
+        "multiplicity": "holm",
+        "environment": {"python": "3.11.7", "numpy": "2.4.6", "scipy": "1.17.1",
+                        "statsmodels": "0.15.0", "pandas": "3.1.1", "prespec": "0.1.0"},
+        "population": {"rows_read": 612, "excluded_by_filter": 9, "excluded_group": 3,
+                       "analysed": 600},
+        "groups": {"infection": groups, "reopening": reopen},
+        "hypotheses": hypotheses,
+        "deviations": [
+            {"code": "sample-size-shortfall", "detail": "gauze analysed 196 of 300 planned",
+             "expected": "300", "found": "196"},
+            {"code": "unexpected-group", "detail": "3 rows with arm 'foam <x>'",
+             "expected": "gauze, alginate, negative-pressure", "found": "foam <x>"},
+        ],
+        "notes": [{"code": "missing-excluded", "detail": "6 blank outcomes left out"}],
+        "caution": CAUTION,
+    }
+
+
+def rehearsal_results() -> dict[str, Any]:
+    """A blinded rehearsal: no groups, no hypotheses, no departures."""
+    res = sample_results()
+    for key in ("groups", "hypotheses", "population"):
+        del res[key]
+    res.update(kind="rehearsal", deviations=[], notes=[], title="Rehearsal of WD-2027-01")
+    return res
+
+
+# --- value formatting -------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("p", "shown"),
+    [
+        (0.0134, "0.01340"),
+        (0.04494, "0.04494"),
+        (0.371249, "0.3712"),
+        (1.0, "1.000"),
+        (0.00012345, "0.0001234"),  # 4 significant digits, still fixed notation
+        (0.0001, "0.0001000"),
+        (0.0000999, "< 0.0001"),
+        (0.0, "< 0.0001"),
+        (None, "—"),
+    ],
+)
+def test_fmt_p(p: float | None, shown: str) -> None:
+    assert values.fmt_p(p) == shown
+
+
+def test_number_formats() -> None:
+    assert values.fmt_estimate(-0.094) == "-0.0940"
+    assert values.fmt_estimate(None) == "—"
+    assert values.fmt_statistic(6.12) == "6.120"
+    assert values.fmt_level(0.95) == "95%"
+    assert values.fmt_level(0.9) == "90%"
+    assert values.fmt_level(0.975) == "97.5%"
+    assert values.fmt_interval(-0.17, -0.019) == "(-0.1700, -0.0190)"
+    assert values.fmt_interval(None, 0.2) == "(—, 0.2000)"
+    assert values.fmt_interval(None, None) == "—"
+    assert values.fmt_count(41) == "41"
+    assert values.fmt_count(41.0) == "41"
+
+
+def test_readers_reject_wrong_types_naming_the_key() -> None:
+    assert values.number(None, "a") is None
+    assert values.number(float("nan"), "a") is None
+    assert values.number(3, "a") == 3.0
+    with pytest.raises(PrespecError, match=r"^results.json: hypotheses\[1\].p_value: expected a "
+                                           r"number or null, found 'abc'$"):
+        values.number("abc", "hypotheses[1].p_value")
+    with pytest.raises(PrespecError, match="expected a number"):
+        values.number(True, "x")
+    with pytest.raises(PrespecError, match=r"expected \[low, high\]"):
+        values.pair([0.1], "ci")
+
+
+# --- figures ------------------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def drawn(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, list[Path]]:
+    folder = tmp_path_factory.mktemp("figures")
+    return folder, write_figures(sample_results(), folder)
+
+
+def test_figures_written_with_deterministic_names(drawn: tuple[Path, list[Path]]) -> None:
+    folder, paths = drawn
+    assert [p.relative_to(folder).as_posix() for p in paths] == [
+        "figures/proportions-infection.png",
+        "figures/proportions-reopening.png",
+        "figures/differences.png",
+    ]
+    assert sorted(p.name for p in (folder / "figures").iterdir()) == [
+        "differences.png", "proportions-infection.png", "proportions-reopening.png",
+    ]  # no temporary file left
+
+
+def test_figures_decode_with_sane_shapes(drawn: tuple[Path, list[Path]]) -> None:
+    _, paths = drawn
+    for path in paths:
+        assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+        img = imread(path)
+        height, width, channels = img.shape
+        assert width == 800  # 8 inches at 100 dpi
+        assert 150 <= height <= 2000
+        assert channels in (3, 4)
+        # Something is drawn: the image is neither blank nor one colour.
+        assert np.unique(img[..., :3].reshape(-1, 3), axis=0).shape[0] > 20
+    proportions = imread(paths[0])
+    differences = imread(paths[2])
+    # Three panels of 6 hypotheses with an estimate are taller than 3 groups.
+    assert differences.shape[0] > proportions.shape[0]
+
+
+def test_figures_identical_bytes_on_second_run(
+    drawn: tuple[Path, list[Path]], tmp_path: Path
+) -> None:
+    _, first = drawn
+    second = write_figures(sample_results(), tmp_path)
+    for a, b in zip(first, second, strict=True):
+        assert a.read_bytes() == b.read_bytes(), a.name
+        assert b"Software" not in a.read_bytes()  # no creator stamp
+        assert b"tIME" not in a.read_bytes()  # no time chunk
+
+
+def test_figures_follow_the_results(drawn: tuple[Path, list[Path]], tmp_path: Path) -> None:
+    _, first = drawn
+    res = sample_results()
+    res["hypotheses"][0]["estimate"]["value"] = -0.05
+    changed = write_figures(res, tmp_path)
+    assert changed[2].read_bytes() != first[2].read_bytes()
+    assert changed[0].read_bytes() == first[0].read_bytes()
+
+
+def test_no_differences_figure_without_estimates(tmp_path: Path) -> None:
+    res = sample_results()
+    for hyp in res["hypotheses"]:
+        hyp["estimate"] = None
+    assert not has_estimates(res)
+    paths = write_figures(res, tmp_path)
+    assert [p.name for p in paths] == ["proportions-infection.png", "proportions-reopening.png"]
+    assert not (tmp_path / DIFFERENCES).exists()
+
+
+def test_rehearsal_writes_no_figures_and_does_not_fail(tmp_path: Path) -> None:
+    assert write_figures(rehearsal_results(), tmp_path) == []
+
+
+def test_dollar_signs_and_markup_in_titles_are_plain_text(tmp_path: Path) -> None:
+    res = sample_results()
+    res["hypotheses"][0]["title"] = "Cost $5 vs $10 <i>arm</i>"
+    res["groups"]["infection"][0]["group"] = "$x^2$"
+    paths = write_figures(res, tmp_path)  # mathtext would fail or render; plain text does not
+    assert all(imread(p).shape[1] == 800 for p in paths)
+
+
+def test_malformed_results_raise_one_line_error(tmp_path: Path) -> None:
+    res = sample_results()
+    res["groups"]["infection"][1]["proportion"] = "0.15"
+    with pytest.raises(PrespecError, match=r"groups.infection\[1\].proportion: expected a number"):
+        write_figures(res, tmp_path)
+    res = sample_results()
+    res["hypotheses"][2]["estimate"]["ci"] = [0.1, 0.2, 0.3]
+    with pytest.raises(PrespecError, match=r"hypotheses.H3.estimate.ci: expected \[low, high\]"):
+        write_figures(res, tmp_path)
+
+
+def test_write_figures_does_not_change_the_results_or_the_backend(tmp_path: Path) -> None:
+    res = sample_results()
+    before = copy.deepcopy(res)
+    backend = matplotlib.get_backend()
+    write_figures(res, tmp_path)
+    assert res == before
+    assert json.dumps(res) == json.dumps(before)
+    assert matplotlib.get_backend() == backend
+
+
+@pytest.mark.parametrize(
+    ("outcome", "name"),
+    [
+        ("infection", "figures/proportions-infection.png"),
+        ("wound_reopening.30d", "figures/proportions-wound_reopening.30d.png"),
+    ],
+)
+def test_proportions_name_plain(outcome: str, name: str) -> None:
+    assert proportions_name(outcome) == name
+
+
+def test_proportions_name_unsafe_outcome_stays_in_figures() -> None:
+    for outcome in ("../../etc/passwd", "a/b", "infection rate", "..", "x."):
+        name = proportions_name(outcome)
+        assert name.startswith("figures/proportions-") and name.endswith(".png")
+        assert "/" not in name[len("figures/"):] and ".." not in name
+    assert proportions_name("a/b") != proportions_name("a b")
