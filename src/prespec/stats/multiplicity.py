@@ -25,8 +25,10 @@ def _bonferroni(p: np.ndarray) -> np.ndarray:
 
 
 def _sidak(p: np.ndarray) -> np.ndarray:
-    # 1 - (1 - p)^m, written so that small p keep their precision
-    return -np.expm1(p.size * np.log1p(-p))
+    # 1 - (1 - p)^m, written so that small p keep their precision; p = 1 gives log 0 = -inf
+    # and so exactly 1, which is right, hence the silenced warning
+    with np.errstate(divide="ignore"):
+        return -np.expm1(p.size * np.log1p(-p))
 
 
 def _holm(p: np.ndarray) -> np.ndarray:
