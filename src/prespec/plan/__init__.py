@@ -115,12 +115,19 @@ def _validate(raw: dict[str, Any], where: Locator) -> Plan:
         plan = Plan.model_validate(raw)
     except ValidationError as exc:
         issues = [issue_from_pydantic(dict(e), raw) for e in exc.errors()]
-        raise _first(issues, where) from None
+        raise _first(_misspelt_first(issues), where) from None
     for phase in (format_issues, availability_issues):
         issues = list(phase(plan))
         if issues:
             raise _first(issues, where)
     return plan
+
+
+def _misspelt_first(issues: list[Issue]) -> list[Issue]:
+    """Drop "is required" where the same mapping has an unknown key: likely the misspelling."""
+    unknown = {i.path for i in issues if i.at_key and i.message.endswith("?")}
+    return [i for i in issues
+            if not (i.message == "is required" and i.path[:-1] in unknown)] or issues
 
 
 def _first(issues: list[Issue], where: Locator) -> PlanError:

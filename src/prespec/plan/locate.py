@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import Any
 
 from prespec.errors import PlanError
 from prespec.plan.yamlread import KeyPath
+
+_PLAIN_ID = re.compile(r"[^\s:\[\].]+")  # an id that reads clearly inside a key path
 
 
 @dataclass(frozen=True)
@@ -63,7 +66,7 @@ class Locator:
             return None
         ids = [h.get("id") if isinstance(h, dict) else None for h in hyps]
         hyp_id = ids[index]
-        if isinstance(hyp_id, str) and hyp_id and ids.count(hyp_id) == 1:
+        if isinstance(hyp_id, str) and _PLAIN_ID.fullmatch(hyp_id) and ids.count(hyp_id) == 1:
             return hyp_id
         return None
 

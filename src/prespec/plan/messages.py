@@ -126,5 +126,8 @@ def issue_from_pydantic(error: dict[str, Any], raw: Any) -> Issue:
         bound = {"greater_than": ("gt", "greater than"), "less_than": ("lt", "less than"),
                  "greater_than_equal": ("ge", "at least"),
                  "less_than_equal": ("le", "at most")}[kind]
-        return Issue(path, f"must be {bound[1]} {ctx.get(bound[0])}, found {show(found)}")
+        limit = ctx.get(bound[0])
+        if isinstance(limit, float) and limit.is_integer():
+            limit = int(limit)
+        return Issue(path, f"must be {bound[1]} {limit}, found {show(found)}")
     return Issue(path, " ".join(str(error["msg"]).split()))

@@ -69,7 +69,7 @@ def _scalar(value: Any) -> Any:
 
 Scalar = Annotated[str | int | float, BeforeValidator(_scalar)]
 Number = Annotated[float, BeforeValidator(_not_bool)]
-Probability = Annotated[float, BeforeValidator(_not_bool), Field(gt=0, lt=1)]
+Probability = Annotated[float, Field(gt=0, lt=1), BeforeValidator(_not_bool)]
 
 
 def _compare(value: Any) -> Any:
@@ -205,7 +205,7 @@ class Outcome(_Model):
 class Sparse(_Model):
     """A pre-specified switch of test when the smallest expected count is below a bound."""
 
-    min_expected: Annotated[float, BeforeValidator(_not_bool), Field(gt=0)]
+    min_expected: Annotated[float, Field(gt=0), BeforeValidator(_not_bool)]
     test: TestName
 
 

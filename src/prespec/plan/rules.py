@@ -187,8 +187,8 @@ def _hypothesis_issues(plan: Plan, hyp: Hypothesis, path: KeyPath,
         yield Issue((*path, "id"), f"{show(hyp.id)} holds a space, ':', '[' or ']'; these are "
                     "kept for the ids prespec derives (H2:a-vs-b, H3[term])")
     if hyp.id in seen:
-        yield Issue((*path, "id"), f"{show(hyp.id)} is already the id of hypothesis "
-                    f"{seen[hyp.id] + 1}; ids must be unique")
+        yield Issue((*path, "id"), f"{show(hyp.id)} is already the id of hypotheses"
+                    f"[{seen[hyp.id] + 1}]; ids must be unique")
     seen.setdefault(hyp.id, int(path[1]))
     if hyp.title is not None and _blank(hyp.title):
         yield Issue((*path, "title"), "must not be empty (leave it out instead)")
@@ -316,8 +316,20 @@ def _estimate_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
         allowed = v.INTERVALS_BY_MEASURE[hyp.measure]
         under = hyp.measure
     if hyp.interval not in allowed:
+        hint = ""
+        owner = _measure_of_interval(str(hyp.interval), hyp.test in v.STRATIFIED_TESTS)
+        if owner and owner != hyp.measure and owner in measures:
+            hint = f"; '{hyp.interval}' is an interval for {owner} (set measure: {owner})"
         yield Issue((*path, "interval"), f"'{hyp.interval}' is not an interval for {under} "
-                    f"(intervals: {', '.join(allowed)})")
+                    f"(intervals: {', '.join(allowed)}){hint}")
+
+
+def _measure_of_interval(interval: str, stratified: bool) -> str | None:
+    if stratified:
+        owners = [m for m, i in v.STRATIFIED_INTERVALS.items() if i == interval]
+    else:
+        owners = [m for m, ints in v.INTERVALS_BY_MEASURE.items() if interval in ints]
+    return owners[0] if len(owners) == 1 else None
 
 
 def _option_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:

@@ -6,6 +6,12 @@ from prespec.plan.model import Condition, Hypothesis, Plan
 from prespec.plan.yamlread import show
 
 
+def _num(value: float | None) -> str:
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return show(value)
+
+
 def _values(values: list[str | int | float]) -> str:
     return ", ".join(show(x) for x in values)
 
@@ -20,7 +26,7 @@ def _condition(cond: Condition) -> str:
         return f"{cond.column} equals {show(operand)}"
     if name == "between":
         low, high = cond.between or [0.0, 0.0]
-        return f"{cond.column} from {show(low)} to {show(high)} inclusive"
+        return f"{cond.column} from {_num(low)} to {_num(high)} inclusive"
     return f"{cond.column} is {'blank' if operand else 'not blank'}"
 
 
@@ -30,7 +36,7 @@ def _compare(plan: Plan, hyp: Hypothesis) -> str:
     if hyp.compare == "trend":
         return f"trend over {len(plan.data.groups)} ordered groups"
     if len(hyp.compare) == 1:
-        return f"{hyp.compare[0]} against a rate of {show(hyp.null_rate)}"
+        return f"{hyp.compare[0]} against a rate of {_num(hyp.null_rate)}"
     return f"{hyp.compare[0]} vs {hyp.compare[1]}"
 
 
@@ -38,12 +44,13 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
     parts = [hyp.test + (" (continuity-corrected)" if hyp.continuity else ""),
              hyp.alternative, hyp.comparison]
     if hyp.margin is not None:
-        parts.append(f"margin {show(hyp.margin) if not isinstance(hyp.margin, list) else hyp.margin}")
+        margin = hyp.margin if isinstance(hyp.margin, list) else [hyp.margin]
+        parts.append("margin " + " to ".join(map(_num, margin)))
     if hyp.measure is not None:
         parts.append(f"{hyp.measure} with {hyp.interval} interval")
     if hyp.sparse is not None:
         parts.append(f"{hyp.sparse.test} if an expected count is below "
-                     f"{show(hyp.sparse.min_expected)}")
+                     f"{_num(hyp.sparse.min_expected)}")
     if hyp.strata:
         parts.append(f"strata {', '.join(hyp.strata)}")
     title = f" - {hyp.title}" if hyp.title else ""
@@ -71,7 +78,7 @@ def summary(plan: Plan) -> str:
         lines.append(f"  {name}: column {out.column}; event = {_values(out.event)}; "
                      f"no event = {_values(out.no_event)}; blank counts as: {out.missing}")
     mult = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
-    lines.append(f"Alpha:         {show(plan.alpha)}, multiplicity: {mult}")
+    lines.append(f"Alpha:         {_num(plan.alpha)}, multiplicity: {mult}")
     lines.append(f"Hypotheses ({len(plan.hypotheses)}):")
     lines.extend(_hypothesis(plan, hyp) for hyp in plan.hypotheses)
     return "\n".join(lines)

@@ -88,21 +88,40 @@ class _Loader(Reader, Scanner, Parser, Composer, _CoreResolver):
         _CoreResolver.__init__(self)
         self.alias_uses = 0
         self.depth = 0
+        self.sizes: dict[int, int] = {}  # id(node) -> number of nodes once aliases expand
 
     def compose_node(self, parent: Node | None, index: Any) -> Node:
-        line = self.peek_event().start_mark.line + 1
-        if self.check_event(AliasEvent):
+        event = self.peek_event()
+        line = event.start_mark.line + 1
+        if isinstance(event, AliasEvent):
             self.alias_uses += 1
             if self.alias_uses > MAX_ALIASES:
                 raise _Problem(line, f"more than {MAX_ALIASES} alias uses (*name); "
                                "write the values out")
+            target = self.anchors.get(event.anchor)
+            if target is not None and id(target) not in self.sizes:
+                raise _Problem(line, "an alias refers to a value that contains it")
         self.depth += 1
         try:
             if self.depth > MAX_DEPTH:
                 raise _Problem(line, f"nested deeper than {MAX_DEPTH} levels")
-            return super().compose_node(parent, index)
+            node = super().compose_node(parent, index)
         finally:
             self.depth -= 1
+        if id(node) not in self.sizes:
+            self.sizes[id(node)] = self._size(node)
+            if self.sizes[id(node)] > MAX_NODES:
+                raise _Problem(_line(node), f"more than {MAX_NODES} values once aliases are "
+                               "expanded; write the plan out plainly")
+        return node
+
+    def _size(self, node: Node) -> int:
+        if isinstance(node, SequenceNode):
+            return 1 + sum(self.sizes.get(id(c), 1) for c in node.value)
+        if isinstance(node, MappingNode):
+            return 1 + sum(self.sizes.get(id(k), 1) + self.sizes.get(id(v), 1)
+                           for k, v in node.value)
+        return 1
 
 
 def read_plan_bytes(path: Path, file: str) -> bytes:
@@ -110,7 +129,7 @@ def read_plan_bytes(path: Path, file: str) -> bytes:
     try:
         size = path.stat().st_size
         if size > MAX_BYTES:
-            raise PlanError(file, None, None, _too_large(size))
+            raise PlanError(file, 1, None, _too_large(size))
         with path.open("rb") as handle:
             data = handle.read(MAX_BYTES + 1)
     except FileNotFoundError:
@@ -120,7 +139,7 @@ def read_plan_bytes(path: Path, file: str) -> bytes:
     except OSError as exc:
         raise PlanError(file, None, None, f"cannot read the plan file ({exc.strerror})") from None
     if len(data) > MAX_BYTES:
-        raise PlanError(file, None, None, _too_large(len(data)))
+        raise PlanError(file, 1, None, _too_large(len(data)))
     return data
 
 
@@ -131,7 +150,7 @@ def _too_large(size: int) -> str:
 def parse_plan_yaml(data: bytes, file: str) -> YamlDoc:
     """Parse plan bytes to a :class:`YamlDoc`; every problem is a one-line :class:`PlanError`."""
     if len(data) > MAX_BYTES:
-        raise PlanError(file, None, None, _too_large(len(data)))
+        raise PlanError(file, 1, None, _too_large(len(data)))
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -147,21 +166,27 @@ def parse_plan_yaml(data: bytes, file: str) -> YamlDoc:
 
 
 def _parse_text(text: str) -> YamlDoc:
-    loader = _Loader(text)
+    loader: _Loader | None = None
     try:
+        loader = _Loader(text)
         root = loader.get_single_node()
     except ReaderError as exc:
         line = text.count("\n", 0, exc.position) + 1
-        raise _Problem(line, f"character {exc.character!r} is not allowed in a plan file") from None
+        char = exc.character if isinstance(exc.character, int) else ord(str(exc.character))
+        raise _Problem(line, f"the control character U+{char:04X} is not allowed in a plan "
+                       "file") from None
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         line = mark.line + 1 if mark is not None else None
         what = " ".join(str(exc.problem or exc.context or "unreadable").split())
+        if what == "but found another document":
+            what = "a plan file holds one document, and a second one starts here"
         raise _Problem(line, f"not valid YAML: {what}") from None
     except yaml.YAMLError as exc:
         raise _Problem(None, f"not valid YAML: {' '.join(str(exc).split())}") from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
     if root is None:
         raise _Problem(1, "the plan file is empty")
     builder = _Builder()
