@@ -113,7 +113,8 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     out_dir = Path(folder) / FIGURES
     with matplotlib.style.context("default"), matplotlib.rc_context(_RC):
         figures = [(name, job.draw()) for name, job in jobs]
-        out_dir.mkdir(parents=True, exist_ok=True)
+        if figures:
+            out_dir.mkdir(parents=True, exist_ok=True)
         for name, fig in figures:
             path = Path(folder) / name
             _save(fig, path)

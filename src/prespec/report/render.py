@@ -20,7 +20,8 @@ import nbformat
 from nbformat import NotebookNode
 
 from prespec.errors import PrespecError
-from prespec.report.template import TEMPLATE
+
+TEMPLATE = Path(__file__).with_name("template.ipynb")
 
 RESULTS = "results.json"
 NOTEBOOK = "report.ipynb"
@@ -37,6 +38,12 @@ _HTML_TEMPLATE = """\
 {%- block html_head_js -%}{%- endblock html_head_js -%}
 {%- block html_head_js_mathjax -%}{%- endblock html_head_js_mathjax -%}
 {%- block html_head_js_mermaidjs -%}{%- endblock html_head_js_mermaidjs -%}
+{% block data_png scoped %}
+<div class="jp-RenderedImage jp-OutputArea-output {{ extra_class }}">
+<img src="data:image/png;base64,{{ output.data['image/png'] | escape_html }}" \
+alt="{{ (output | get_metadata('alt', 'image/png')) or 'figure' | escape_html }}">
+</div>
+{%- endblock data_png %}
 {%- block html_head_css -%}
 <style type="text/css">
 body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }

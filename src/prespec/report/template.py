@@ -59,9 +59,10 @@ display(HTML(sections.population(results)))
     ("outcomes", '''\
 outcome_parts = sections.outcomes(results)
 display(HTML("<h2>Outcomes</h2>" if outcome_parts else ""))
-for _name, outcome_html, figure in outcome_parts:
+for name, outcome_html, figure in outcome_parts:
     display(HTML(outcome_html))
-    display(Image(filename=figure))
+    alt = f"Proportion with the event in each group, with intervals: {name}"
+    display(Image(filename=figure, metadata={"alt": alt}))
 '''),
     ("hypotheses", '''\
 display(HTML(sections.hypotheses_heading(results)))
@@ -70,7 +71,8 @@ for hypothesis_html in sections.hypotheses(results):
 forest = sections.forest_figure(results)
 if forest is not None:
     display(HTML("<h3>Estimates and intervals</h3>"))
-    display(Image(filename=forest))
+    alt = "Estimate and interval of each hypothesis that has one"
+    display(Image(filename=forest, metadata={"alt": alt}))
 '''),
     ("multiplicity", '''\
 display(HTML(sections.multiplicity(results)))
