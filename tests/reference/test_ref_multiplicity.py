@@ -22,8 +22,21 @@ STATSMODELS_NAMES = {
 # Benjamini Y, Hochberg Y. Controlling the false discovery rate. JRSS B 1995;57:289-300,
 # section 4: the 15 p-values of their example, in increasing order. # from memory
 BH_1995_EXAMPLE = [
-    0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344,
-    0.0459, 0.3240, 0.4262, 0.5719, 0.6528, 0.7590, 1.0000,
+    0.0001,
+    0.0004,
+    0.0019,
+    0.0095,
+    0.0201,
+    0.0278,
+    0.0298,
+    0.0344,
+    0.0459,
+    0.3240,
+    0.4262,
+    0.5719,
+    0.6528,
+    0.7590,
+    1.0000,
 ]
 
 

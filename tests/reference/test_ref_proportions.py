@@ -85,7 +85,9 @@ def test_fisher_matches_scipy_on_random_tables(alternative: str) -> None:
     [(0, 1, 0, 1), (1, 1, 0, 1), (0, 5, 0, 7), (5, 5, 7, 7), (0, 1, 1, 1), (2, 4, 2, 4)],
 )
 @pytest.mark.parametrize("alternative", ALTERNATIVES)
-def test_fisher_matches_scipy_at_the_edges(x1: int, n1: int, x2: int, n2: int, alternative: str) -> None:
+def test_fisher_matches_scipy_at_the_edges(
+    x1: int, n1: int, x2: int, n2: int, alternative: str
+) -> None:
     # scipy.stats.fisher_exact: zero margins give p = 1 (only one table is possible).
     ours = fisher_exact(x1, n1, x2, n2, alternative=alternative).p_value
     ref = scipy.stats.fisher_exact([[x1, n1 - x1], [x2, n2 - x2]], alternative=alternative)
@@ -138,7 +140,9 @@ def test_chi_square_one_sided_is_the_signed_root_on_the_normal(continuity: bool)
         root = math.copysign(math.sqrt(ref.statistic), x1 / n1 - x2 / n2)
         if x1 * n2 == x2 * n1:
             root = 0.0
-        greater = pearson_chi_square([x1, x2], [n1, n2], continuity=continuity, alternative="greater")
+        greater = pearson_chi_square(
+            [x1, x2], [n1, n2], continuity=continuity, alternative="greater"
+        )
         less = pearson_chi_square([x1, x2], [n1, n2], continuity=continuity, alternative="less")
         assert greater.p_value == pytest.approx(scipy.stats.norm.sf(root), rel=1e-9)
         assert less.p_value == pytest.approx(scipy.stats.norm.cdf(root), rel=1e-9)

@@ -40,11 +40,14 @@ def table(events: Sequence[object], totals: Sequence[object]) -> tuple[list[int]
     except TypeError:
         raise ValueError("events and totals must be sequences of integers") from None
     if len(ev) != len(tot):
-        raise ValueError(f"events ({len(ev)} groups) and totals ({len(tot)} groups) differ in length")
+        raise ValueError(
+            f"events ({len(ev)} groups) and totals ({len(tot)} groups) differ in length"
+        )
     if len(ev) < 2:
         raise ValueError(f"a comparison needs at least 2 groups, got {len(ev)}")
     checked = [
-        events_of_total(f"events[{i}]", x, f"totals[{i}]", n) for i, (x, n) in enumerate(zip(ev, tot))
+        events_of_total(f"events[{i}]", x, f"totals[{i}]", n)
+        for i, (x, n) in enumerate(zip(ev, tot))
     ]
     return [x for x, _ in checked], [n for _, n in checked]
 

@@ -100,6 +100,4 @@ def newcombe_difference(x1: int, n1: int, x2: int, n2: int, level: float) -> Est
     difference = _difference(x1, n1, x2, n2)
     low = difference - math.hypot(p1 - l1, u2 - p2)
     high = difference + math.hypot(u1 - p1, p2 - l2)
-    return Estimate(
-        "risk-difference", difference, max(-1.0, low), min(1.0, high), "newcombe", lvl
-    )
+    return Estimate("risk-difference", difference, max(-1.0, low), min(1.0, high), "newcombe", lvl)
