@@ -169,7 +169,7 @@ def test_z_matches_statsmodels(alternative: str, statsmodels_name: str) -> None:
 
 
 def test_z_squared_equals_uncorrected_chi_square() -> None:
-    # common practice (Agresti, Categorical Data Analysis, 2013, section 3.2.3): for a 2x2
+    # common practice (Agresti, Categorical Data Analysis, 2013, chapter 3): for a 2x2
     # table the squared pooled z statistic is Pearson's X^2, and their two-sided p agree.
     for x1, n1, x2, n2 in _random_tables(seed=13, count=300, max_n=500):
         if x1 + x2 == 0 or x1 + x2 == n1 + n2:

@@ -65,7 +65,7 @@ def wald_difference(x1: int, n1: int, x2: int, n2: int, level: float) -> Estimat
     ----------
     Newcombe RG. Interval estimation for the difference between independent proportions:
     comparison of eleven methods. Statistics in Medicine 1998;17:873–890 (method 1).
-    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, section 3.1.2.
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, chapter 3.
     """
     x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
     x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)

@@ -48,11 +48,12 @@ def pearson_chi_square(
 
     References
     ----------
-    Pearson K. On the criterion that a given system of deviations from the probable ...
-    Philosophical Magazine 1900;50:157–175.
+    Pearson K. On the criterion that a given system of deviations from the probable in the
+    case of a correlated system of variables is such that it can be reasonably supposed to
+    have arisen from random sampling. Philosophical Magazine, Series 5, 1900;50:157–175.
     Yates F. Contingency tables involving small numbers and the chi-square test. Supplement to
     the Journal of the Royal Statistical Society 1934;1:217–235.
-    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, sections 3.2 and 3.5.
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, chapter 3.
     """
     ev, tot = _checks.table(events, totals)
     alt = _checks.alternative(alternative)
@@ -93,9 +94,9 @@ def two_proportion_z(
 
     References
     ----------
-    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, section 3.2.3 (z² = X²).
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, chapter 3 (z² = X²).
     Fleiss JL, Levin B, Paik MC. Statistical Methods for Rates and Proportions, 3rd ed. Wiley,
-    2003, section 2.5.
+    2003.
     """
     x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
     x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)

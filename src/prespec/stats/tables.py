@@ -14,7 +14,7 @@ def expected_counts(events: Sequence[int], totals: Sequence[int]) -> np.ndarray:
 
     Each cell is row total × column total / grand total, the expected frequency of the
     chi-square test of independence (Pearson 1900; Agresti, *Categorical Data Analysis*, 3rd
-    ed., 2013, section 3.2.1). A zero column margin gives a column of zeros.
+    ed., 2013, chapter 3). A zero column margin gives a column of zeros.
 
     Raises ValueError unless there are k >= 2 groups of integers with 0 <= events <= totals
     and totals >= 1.
