@@ -54,8 +54,23 @@ def run_html(run_report: Path) -> str:
 
 @pytest.fixture(scope="module")
 def rehearsal_report(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """A rehearsal report, rendered while a user-level ``python3`` kernelspec points elsewhere.
+
+    The report must still run on this interpreter's kernel, not on the one that spec names.
+    """
     folder = _prepare(tmp_path_factory.mktemp("rehearsal") / "report", rehearsal_results())
-    render.render_notebook(folder, kernel_name="python3")
+    data_dir = tmp_path_factory.mktemp("jupyter-data")
+    spec = data_dir / "kernels" / "python3"
+    spec.mkdir(parents=True)
+    argv = [str(data_dir / "no-such-python"), "-m", "ipykernel_launcher", "-f",
+            "{connection_file}"]
+    (spec / "kernel.json").write_text(json.dumps(
+        {"argv": argv, "display_name": "elsewhere", "language": "python"}
+    ))
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("JUPYTER_DATA_DIR", str(data_dir))
+        mp.setenv("JUPYTER_PREFER_ENV_PATH", "0")  # the user's data dir first, as outside a venv
+        render.render_notebook(folder, kernel_name="python3")
     return folder
 
 
@@ -211,6 +226,7 @@ def test_rehearsal_without_groups_or_hypotheses(rehearsal_report: Path) -> None:
     assert "No departures from the plan were recorded." in page
     assert "results.json holds no tested hypotheses." in page
     assert "results.json gives no population counts." in page
+    assert "<h2>Outcomes</h2>" not in page
     assert "<img " not in page
     assert not (rehearsal_report / "figures").exists()
     assert page.count(html.escape(CAUTION)) == 2

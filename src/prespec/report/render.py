@@ -115,7 +115,9 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str) -> Noteb
     from papermill.exceptions import PapermillExecutionError
 
     # papermill logs each cell at INFO level; a report run prints nothing of that.
-    logging.getLogger("papermill").setLevel(logging.WARNING)
+    logger = logging.getLogger("papermill")
+    level = logger.level
+    logger.setLevel(logging.WARNING)
     try:
         node: NotebookNode = papermill.execute_notebook(
             str(TEMPLATE),
@@ -125,24 +127,54 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str) -> Noteb
             progress_bar=False,
             log_output=False,
             cwd=str(folder),
-            **_kernel_options(),
+            **_kernel_options(kernel_name),
         )
     except PapermillExecutionError as exc:
         message = " ".join(str(exc.evalue).split())
         raise PrespecError(
             f"report notebook failed in cell {exc.exec_count}: {exc.ename}: {message}"
         ) from exc
+    finally:
+        logger.setLevel(level)
     return node
 
 
-def _kernel_options() -> dict[str, Any]:
-    """Encrypt the kernel's local sockets where libzmq can (the kernel then stays quiet too)."""
+def _kernel_options(kernel_name: str) -> dict[str, Any]:
+    """Options for the notebook client: this interpreter's kernel, with encrypted local sockets.
+
+    ``python3`` always means the ipykernel of the running interpreter (``sys.executable``),
+    even where a user-level kernelspec of that name points at another Python. The kernel's
+    local sockets are encrypted where libzmq can (the kernel then also stays quiet).
+    """
     import zmq
+    from jupyter_client.manager import AsyncKernelManager
     from traitlets.config import Config
 
-    if not zmq.has("curve"):
-        return {}
-    return {"config": Config({"KernelManager": {"transport_encryption": "auto"}})}
+    options: dict[str, Any] = {}
+    if zmq.has("curve"):
+        options["config"] = Config({"KernelManager": {"transport_encryption": "auto"}})
+    if kernel_name == KERNEL:
+        options["kernel_manager_class"] = _this_interpreter_manager(AsyncKernelManager)
+    return options
+
+
+def _this_interpreter_manager(base: type[Any]) -> type[Any]:
+    from ipykernel.kernelspec import RESOURCES, get_kernel_dict
+    from jupyter_client.kernelspec import KernelSpec, KernelSpecManager
+    from traitlets import default
+
+    class ThisInterpreterSpecs(KernelSpecManager):  # type: ignore[misc]
+        def get_kernel_spec(self, kernel_name: str) -> KernelSpec:
+            if kernel_name == KERNEL:
+                return KernelSpec(resource_dir=RESOURCES, **get_kernel_dict())
+            return super().get_kernel_spec(kernel_name)
+
+    class ThisInterpreterKernel(base):  # type: ignore[misc, valid-type]
+        @default("kernel_spec_manager")
+        def _specs(self) -> KernelSpecManager:
+            return ThisInterpreterSpecs(data_dir=self.data_dir)
+
+    return ThisInterpreterKernel
 
 
 def _title(results_path: Path) -> str:

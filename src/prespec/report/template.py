@@ -58,7 +58,8 @@ display(HTML(sections.population(results)))
 '''),
     ("outcomes", '''\
 outcome_parts = sections.outcomes(results)
-display(HTML("<h2>Outcomes</h2>" if outcome_parts else ""))
+if outcome_parts:
+    display(HTML("<h2>Outcomes</h2>"))
 for name, outcome_html, figure in outcome_parts:
     display(HTML(outcome_html))
     alt = f"Proportion with the event in each group, with intervals: {name}"
