@@ -70,6 +70,11 @@ CASES = [
         "hypotheses.H2.test",
         ("'chi-squared' is not a known test (known: barnard-exact, binomial-exact,",
          "did you mean 'pearson-chi-square'?")),
+    Bad("line break inside a value", swap(H2_TEST, '    test: "chi\\nsquared"\n'), "\"chi",
+        "hypotheses.H2.test", ("'chi\\nsquared' is not a known test",)),
+    Bad("line break inside a duplicate key", swap("alpha: 0.05\n",
+                                                  'alpha: 0.05\n"a\\nb": 1\n"a\\nb": 2\n'),
+        '"a\\nb": 2', None, ("duplicate key 'a\\nb' (first at line 20)",)),
     Bad("known but unavailable test", swap(H2_TEST, "    test: barnard-exact\n"),
         "barnard-exact", "hypotheses.H2.test",
         (("'barnard-exact' is known but not available in this version of prespec (available "

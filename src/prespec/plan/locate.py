@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from prespec.errors import PlanError
-from prespec.plan.yamlread import KeyPath
+from prespec.plan.yamlread import KeyPath, one_line
 
 _PLAIN_ID = re.compile(r"[^\s:\[\].]+")  # an id that reads clearly inside a key path
 
@@ -73,9 +73,9 @@ class Locator:
     def error(self, issue: Issue) -> PlanError:
         """The one-line error for ``issue``."""
         where = issue.path if issue.line_path is None else issue.line_path
-        return PlanError(
-            self.file, self.line(where, issue.at_key), self.display(issue.path), issue.message
-        )
+        path = self.display(issue.path)
+        return PlanError(self.file, self.line(where, issue.at_key),
+                         one_line(path) if path else None, one_line(issue.message))
 
     def sort_key(self, issue: Issue) -> int:
         """Document order: the issue's line (issues without one go last)."""

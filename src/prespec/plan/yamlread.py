@@ -162,7 +162,7 @@ def parse_plan_yaml(data: bytes, file: str) -> YamlDoc:
     try:
         return _parse_text(text)
     except _Problem as problem:
-        raise PlanError(file, problem.line, None, problem.message) from None
+        raise PlanError(file, problem.line, None, one_line(problem.message)) from None
 
 
 def _parse_text(text: str) -> YamlDoc:
@@ -252,9 +252,9 @@ class _Builder:
             key = _scalar(key_node)
             if not isinstance(key, str):
                 raise _Problem(line, f"keys are text: {describe(key)} is not; quote it "
-                               f"('{key_node.value}') to use it as a key")
+                               f"({show(key_node.value)}) to use it as a key")
             if key in first:
-                raise _Problem(line, f"duplicate key '{key}' (first at line {first[key]})")
+                raise _Problem(line, f"duplicate key {show(key)} (first at line {first[key]})")
             first[key] = line
             self.key_lines[(*path, key)] = line
             out[key] = self.build(value_node, (*path, key))
@@ -277,7 +277,7 @@ def _scalar(node: ScalarNode) -> Any:
         wanted = {"null": type(None), "bool": bool, "int": int, "float": (float, int)}
         kind = tag[len(_CORE):]
         if not isinstance(value, wanted[kind]) or (kind == "int" and isinstance(value, bool)):
-            raise _Problem(_line(node), f"'{text}' is not a valid {_show_tag(tag)} value")
+            raise _Problem(_line(node), f"{show(text)} is not a valid {_show_tag(tag)} value")
         if kind == "float":
             value = float(value)
     else:
@@ -309,6 +309,11 @@ def core_value(text: str) -> Any:
     if _NAN.fullmatch(text):
         return math.nan
     return text
+
+
+def one_line(text: str) -> str:
+    """``text`` with any line break written as an escape, so an error stays one line."""
+    return text.replace("\r", "\\r").replace("\n", "\\n")
 
 
 def describe(value: Any) -> str:
