@@ -19,7 +19,8 @@ PRESPEC = [sys.executable, "-m", "prespec"]
 
 def cli(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
     env = {**os.environ, "PRESPEC_ACTOR": "test-monitor"}
-    return subprocess.run([*PRESPEC, *args], cwd=cwd, env=env, capture_output=True, text=True,
+    return subprocess.run([*PRESPEC, *args], check=False, cwd=cwd, env=env, capture_output=True,
+                          text=True,
                           timeout=300)
 
 

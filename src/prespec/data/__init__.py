@@ -1,9 +1,9 @@
 """Reading data, matching values, and reducing rows to count tables."""
 
 from ..canonical import file_sha256
+from ..matching import ValueSet, as_number, as_text, is_blank, value_key
 from .prepare import GroupCounts, OutcomeCounts, Prepared, prepare
 from .read import read_data
-from .values import ValueSet, as_number, as_text, is_blank
 
 __all__ = [
     "GroupCounts",
@@ -16,4 +16,5 @@ __all__ = [
     "is_blank",
     "prepare",
     "read_data",
+    "value_key",
 ]

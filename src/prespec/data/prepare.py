@@ -18,7 +18,7 @@ import pandas as pd
 
 from ..departures import Departure, Note
 from ..errors import DataError
-from .values import ValueSet, as_number, as_text, is_blank
+from ..matching import ValueSet, as_number, as_text, is_blank
 
 _SHOW = 5  # how many offending values an error message lists
 

@@ -15,6 +15,7 @@ import rfc8785
 from pydantic import ValidationError
 
 from prespec.errors import PlanError
+from prespec.matching import value_key
 from prespec.plan.locate import Issue, Locator
 from prespec.plan.messages import issue_from_pydantic
 from prespec.plan.model import (
@@ -29,7 +30,7 @@ from prespec.plan.model import (
     Sparse,
     Then,
 )
-from prespec.plan.rules import availability_issues, format_issues, value_key
+from prespec.plan.rules import availability_issues, format_issues
 from prespec.plan.summary import summary
 from prespec.plan.yamlread import parse_plan_yaml, read_plan_bytes
 

@@ -12,30 +12,14 @@ import re
 from collections.abc import Iterator
 from typing import Any
 
+from prespec.matching import value_key
 from prespec.plan import vocabulary as v
 from prespec.plan.locate import Issue
 from prespec.plan.model import Hypothesis, Plan, suggest
 from prespec.plan.yamlread import KeyPath, show
 
-_NUMBER = re.compile(r"[-+]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?")
 _RESERVED_ID = re.compile(r"[:\[\]\s]")
 _TOLERANCE = 1e-12
-
-
-def value_key(value: object) -> tuple[str, object]:
-    """The matching key of a plan or data value (SPEC.md, "Reading the data").
-
-    Values agree as exact text after trimming, or by numeric equality when both are numbers,
-    so ``1``, ``"1"`` and ``1.0`` share one key.
-    """
-    if isinstance(value, bool):
-        return ("text", "true" if value else "false")
-    if isinstance(value, (int, float)):
-        return ("number", float(value))
-    text = str(value).strip()
-    if _NUMBER.fullmatch(text):
-        return ("number", float(text))
-    return ("text", text)
 
 
 def _not_in(what: str, value: object, known: list[str]) -> str:

@@ -1,4 +1,4 @@
-"""How a data cell is compared with a value written in the plan.
+"""How a data cell is compared with a value written in the plan: one rule for the whole tool.
 
 SPEC.md: blank is an empty or whitespace-only cell, or a null; values match as exact text after
 trimming, or by numeric equality when both sides are numbers (so ``1``, ``"1"`` and ``1.0``
@@ -59,18 +59,23 @@ def as_number(value: Any) -> float | None:
     return number if math.isfinite(number) else None
 
 
+def value_key(value: Any) -> tuple[str, Any]:
+    """The key under which values agree: a number when the value is one, else its trimmed text.
+
+    Two values match exactly when their keys are equal: text equal after trimming implies
+    equal numbers when both are numbers, and numbers compare by value, so ``1``, ``"1"`` and
+    ``1.0`` share the key ``("number", 1.0)``.
+    """
+    number = as_number(value)
+    return ("number", number) if number is not None else ("text", as_text(value))
+
+
 class ValueSet:
     """A set of plan values that answers ``cell in set`` by the matching rule above."""
 
     def __init__(self, values: Iterable[Any]) -> None:
         self.values = list(values)
-        self._texts = {as_text(v) for v in self.values}
-        self._numbers = {n for v in self.values if (n := as_number(v)) is not None}
+        self._keys = {value_key(v) for v in self.values}
 
     def __contains__(self, cell: Any) -> bool:
-        if is_blank(cell):
-            return False
-        if as_text(cell) in self._texts:
-            return True
-        number = as_number(cell)
-        return number is not None and number in self._numbers
+        return not is_blank(cell) and value_key(cell) in self._keys
