@@ -114,7 +114,13 @@ def test_lock_file_must_hold_versions(tmp_path: Path) -> None:
     path.write_text("{not json")
     with pytest.raises(IntegrityStop):
         audit.read_lock(path)
-    doc = {"prespec": 1, "versions": [{"version": 1}]}
+    path.write_text('{"prespec": 1, "versions": [{"version": 1}]}')
+    with pytest.raises(IntegrityStop, match="version 1 lacks fingerprint, plan"):
+        audit.read_lock(path)
+    doc = {"prespec": 1, "versions": [{"version": 1, "fingerprint": "sha256:0", "plan": {},
+                                       "plan_file_sha256": "sha256:1", "previous": None,
+                                       "reason": None, "at": "2026-12-01T00:00:00Z",
+                                       "actor": "ana", "environment": {}}]}
     audit.write_lock(path, doc)
     assert audit.read_lock(path) == doc
     assert not list(tmp_path.glob(".*tmp"))  # the temporary file was renamed, not left behind

@@ -85,10 +85,12 @@ CASES = [
     Bad("unknown multiplicity", swap("multiplicity: holm", "multiplicity: holmes"), "holmes",
         "multiplicity", ("'holmes' is not a known multiplicity (known: none, bonferroni,",
                          "did you mean 'holm'?")),
-    Bad("unavailable multiplicity", swap("multiplicity: holm", "multiplicity: hochberg"),
-        "hochberg", "multiplicity",
-        (("'hochberg' is known but not available in this version of prespec (available: "
-         "bonferroni, holm, none)"),)),
+    Bad("unavailable multiplicity",
+        swap("multiplicity: holm", "multiplicity: {method: graphical, weights: {H1: 1}}"),
+        "graphical", "multiplicity.method",
+        (("'graphical' is known but not available in this version of prespec (available: "
+         "benjamini-hochberg, benjamini-yekutieli, bonferroni, fixed-sequence, hochberg, "
+         "holm, hommel, none, sidak)"),)),
     Bad("graphical weights over 1",
         swap("multiplicity: holm", "multiplicity: {method: graphical, weights: {H1: 0.5, "
              "H2: 0.6}}"), "graphical", "multiplicity.weights",

@@ -10,6 +10,9 @@ import pytest
 from prespec.stats import ADJUSTMENT_METHODS, adjust
 
 METHODS = sorted(ADJUSTMENT_METHODS)
+# fixed-sequence depends on the pre-specified order by design, so it is left out of the checks
+# that a family's adjusted values do not depend on the order it is given in.
+ORDER_FREE = [m for m in METHODS if m != "fixed-sequence"]
 
 
 def test_the_methods_offered() -> None:
@@ -21,6 +24,7 @@ def test_the_methods_offered() -> None:
         "holm",
         "hochberg",
         "hommel",
+        "fixed-sequence",
         "benjamini-hochberg",
         "benjamini-yekutieli",
     }
@@ -38,7 +42,7 @@ def test_one_hypothesis_is_not_adjusted(method: str) -> None:
         assert adjust([p], method) == pytest.approx([p], rel=1e-12)
 
 
-@pytest.mark.parametrize("method", METHODS)
+@pytest.mark.parametrize("method", ORDER_FREE)
 def test_output_is_plain_floats_in_input_order_capped_at_one(method: str) -> None:
     p = [0.2, 0.001, 0.9, 0.04, 0.04]
     adjusted = adjust(p, method)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from collections.abc import Sequence
 
@@ -106,6 +107,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         return _dispatch(args)
+    except BrokenPipeError:  # the reader went away (`prespec schema | head`): not an error
+        devnull = os.open(os.devnull, os.O_WRONLY)  # as the Python docs advise (signal module)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except PrespecError as exc:
         for line in getattr(exc, "passed", []):
             print(f"ok    {line}")

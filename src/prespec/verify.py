@@ -30,6 +30,13 @@ def _fail(result: VerifyResult, message: str) -> VerifyFailure:
     return VerifyFailure(message, list(result.passed))
 
 
+def _version_of(entry: dict[str, Any]) -> int | None:
+    """The lock version a lock/amend entry names, or None when it names none readable."""
+    details = entry.get("details")
+    version = details.get("version") if isinstance(details, dict) else None
+    return version if isinstance(version, int) and not isinstance(version, bool) else None
+
+
 def _check_log(plan: Path, result: VerifyResult) -> list[dict[str, Any]]:
     log, head = audit.log_path(plan), audit.head_path(plan)
     try:
@@ -71,13 +78,13 @@ def _check_lock(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
             raise _fail(result, f"{where}: 'previous' does not name version {index - 1}")
         action = "lock" if index == 1 else "amend"
         if not any(e["action"] == action and e["plan"] == derived
-                   and e.get("details", {}).get("version") == index for e in entries):
+                   and _version_of(e) == index for e in entries):
             raise _fail(result, f"{where}: the log has no {action} entry for {derived}")
         previous = derived
     extra = [e for e in entries if e["action"] in ("lock", "amend")
-             and e.get("details", {}).get("version", 0) > len(doc["versions"])]
+             and (_version_of(e) or 0) > len(doc["versions"])]
     if extra:
-        raise _fail(result, f"{name}: the log records version {extra[0]['details']['version']}, "
+        raise _fail(result, f"{name}: the log records version {_version_of(extra[0])}, "
                     "the lock does not (a version was removed)")
     result.passed.append(f"lock: {len(doc['versions'])} version(s), fingerprints and links intact, "
                          "each recorded in the log")
@@ -99,7 +106,7 @@ def _check_plan_file(plan: Path, doc: dict[str, Any], entries: list[dict[str, An
     accepted = any(
         d.get("code") == "plan-modified-after-lock" and d.get("found") == loaded.fingerprint
         and d.get("accepted")
-        for e in entries for d in e.get("deviations", [])
+        for e in entries for d in (e.get("deviations") or []) if isinstance(d, dict)
     )
     if not accepted:
         raise _fail(result, f"plan file: {plan.name} differs in meaning from lock version "
@@ -113,7 +120,7 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if entry["action"] not in ("run", "rehearse"):
             continue
         where = f"log entry {entry['seq']} ({entry['action']})"
-        details = entry.get("details") or {}
+        details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
         rel = details.get("report")
         if not isinstance(rel, str) or Path(rel).is_absolute():
             raise _fail(result, f"{where}: no relative report path")

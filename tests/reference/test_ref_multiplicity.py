@@ -63,7 +63,17 @@ def test_published_example_rejections() -> None:
 
 
 def test_every_adjusting_method_is_checked_here() -> None:
-    assert set(STATSMODELS_NAMES) | {"none"} == ADJUSTMENT_METHODS
+    # fixed-sequence is not in statsmodels; it is checked by hand below.
+    assert set(STATSMODELS_NAMES) | {"none", "fixed-sequence"} == ADJUSTMENT_METHODS
+
+
+def test_fixed_sequence_stops_at_the_first_non_rejection() -> None:
+    # common practice (Maurer, Hothorn and Lehmacher 1995; Westfall and Krishen 2001): each
+    # hypothesis is tested at the full alpha in the pre-specified order and testing stops at
+    # the first that is not rejected, so the adjusted p-value is the running maximum.
+    p = [0.01, 0.04, 0.06, 0.001]
+    assert adjust(p, "fixed-sequence") == pytest.approx([0.01, 0.04, 0.06, 0.06], rel=1e-15)
+    assert [q <= 0.05 for q in adjust(p, "fixed-sequence")] == [True, True, False, False]
 
 
 @pytest.mark.filterwarnings("ignore:divide by zero encountered in log1p:RuntimeWarning")

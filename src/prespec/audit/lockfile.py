@@ -9,6 +9,9 @@ from typing import Any
 from ..errors import IntegrityStop
 from .files import replace_atomically
 
+VERSION_KEYS = ("version", "fingerprint", "plan", "plan_file_sha256", "previous", "reason", "at",
+                "actor", "environment")
+
 
 def read_lock(path: Path) -> dict[str, Any] | None:
     """The lock document, or None when the plan was never locked."""
@@ -26,6 +29,13 @@ def read_lock(path: Path) -> dict[str, Any] | None:
         or not all(isinstance(v, dict) for v in doc["versions"])
     ):
         raise IntegrityStop(f"{path.name}: not a prespec lock file (prespec: 1, versions: [...])")
+    for index, version in enumerate(doc["versions"], start=1):
+        missing = [k for k in VERSION_KEYS if k not in version]
+        if missing:
+            raise IntegrityStop(f"{path.name}: version {index} lacks {', '.join(missing)}")
+        if not isinstance(version["plan"], dict) or not isinstance(version["fingerprint"], str) \
+                or not isinstance(version["version"], int):
+            raise IntegrityStop(f"{path.name}: version {index} is malformed")
     return doc
 
 

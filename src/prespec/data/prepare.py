@@ -59,6 +59,10 @@ class Prepared:
     notes: tuple[Note, ...]
 
 
+def _rows(n: int) -> str:
+    return f"{n} row" if n == 1 else f"{n} rows"
+
+
 def _listing(values: Counter[str]) -> str:
     items = [f"{v!r} ({n})" for v, n in sorted(values.items(), key=lambda kv: (-kv[1], kv[0]))]
     shown = ", ".join(items[:_SHOW])
@@ -169,7 +173,7 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
         deviations.append(
             Departure(
                 "unexpected-group",
-                f"{int(stray.sum())} rows left out: column {spec.group!r} holds values "
+                f"{_rows(int(stray.sum()))} left out: column {spec.group!r} holds values "
                 f"outside data.groups: {_listing(found)}",
                 ", ".join(groups),
                 ", ".join(sorted(found)),
@@ -245,7 +249,7 @@ def _count_outcome(
         deviations.append(
             Departure(
                 "unmapped-outcome-value",
-                f"outcome {name!r} (column {outcome.column!r}): {int(unmapped_rows.sum())} rows "
+                f"outcome {name!r} (column {outcome.column!r}): {_rows(int(unmapped_rows.sum()))} "
                 f"with values that are neither event nor no_event: {_listing(found)}; "
                 f"treated by the missing rule ({outcome.missing})",
                 "event: " + ", ".join(map(as_text, outcome.event))

@@ -78,6 +78,13 @@ def _benjamini_yekutieli(p: np.ndarray) -> np.ndarray:
     return _step_up_fdr(p, float(np.sum(1.0 / np.arange(1, p.size + 1))))
 
 
+def _fixed_sequence(p: np.ndarray) -> np.ndarray:
+    # Hypotheses are tested in the given order at the full alpha, stopping at the first that
+    # is not rejected; the adjusted p-value is the running maximum in that order (Maurer,
+    # Hothorn and Lehmacher 1995; Westfall and Krishen, J Stat Plan Inference 2001).
+    return np.maximum.accumulate(p)
+
+
 def _unsort(sorted_values: np.ndarray, order: np.ndarray) -> np.ndarray:
     result = np.empty_like(sorted_values)
     result[order] = sorted_values
@@ -91,6 +98,7 @@ _ADJUSTERS: dict[str, Adjuster] = {
     "holm": _holm,
     "hochberg": _hochberg,
     "hommel": _hommel,
+    "fixed-sequence": _fixed_sequence,
     "benjamini-hochberg": _benjamini_hochberg,
     "benjamini-yekutieli": _benjamini_yekutieli,
 }
