@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any
 
 from . import audit
+from .canonical import canonical_json, sha256_tag
 from .departures import Departure, Note
 from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
@@ -81,6 +82,12 @@ class LockResult:
     note: str | None = None
 
 
+def version_digest(record: dict[str, Any]) -> str:
+    """``sha256:`` of the canonical JSON of a whole lock version, kept in its log entry, so
+    that an edit to any field of the lock (reason, actor, time, environment) is detected."""
+    return sha256_tag(canonical_json(record))
+
+
 def _version_record(loaded: LoadedPlan, version: int, previous: str | None, reason: str | None,
                     actor: str) -> dict[str, Any]:
     return {
@@ -114,7 +121,7 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
             plan=record["fingerprint"],
             data=None,
             details={"version": record["version"], "plan_file_sha256": record["plan_file_sha256"],
-                     "reason": record["reason"]},
+                     "reason": record["reason"], "record": version_digest(record)},
             deviations=deviations,
         )
     except BaseException:

@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from . import audit
-from .api import VerifyResult
+from .api import VerifyResult, version_digest
 from .canonical import file_sha256
 from .errors import IntegrityStop, PrespecError
 from .manifest import check_manifest
@@ -77,9 +77,13 @@ def _check_lock(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
         if version.get("previous") != previous:
             raise _fail(result, f"{where}: 'previous' does not name version {index - 1}")
         action = "lock" if index == 1 else "amend"
-        if not any(e["action"] == action and e["plan"] == derived
-                   and _version_of(e) == index for e in entries):
+        logged = [e for e in entries if e["action"] == action and e["plan"] == derived
+                  and _version_of(e) == index]
+        if not logged:
             raise _fail(result, f"{where}: the log has no {action} entry for {derived}")
+        if logged[0]["details"].get("record") != version_digest(version):
+            raise _fail(result, f"{where}: differs from the version its {action} entry recorded "
+                        "(the lock was edited)")
         previous = derived
     extra = [e for e in entries if e["action"] in ("lock", "amend")
              and (_version_of(e) or 0) > len(doc["versions"])]

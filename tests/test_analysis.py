@@ -1,0 +1,144 @@
+"""From the plan's hypotheses to results entries: dispatch, sparse switch, levels, family.
+
+Each p-value and interval is checked against scipy/statsmodels computed here on the same table,
+so the test shows the pipeline hands the right table to the right method.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+import scipy.stats
+from statsmodels.stats.multitest import multipletests
+from statsmodels.stats.proportion import confint_proportions_2indep, proportions_ztest
+
+from prespec.analysis import analyse, interval_level
+from prespec.data import GroupCounts, OutcomeCounts, Prepared
+from prespec.plan import Plan, load_plan
+
+PLAN = """\
+prespec: 1
+title: Invented hand-hygiene study
+data: {id: pid, group: ward, groups: [a, b, c]}
+outcomes:
+  y: {column: y, event: [1], no_event: [0], missing: exclude}
+alpha: 0.05
+multiplicity: MULT
+hypotheses:
+  - {id: H1, outcome: y, compare: [b, a], test: pearson-chi-square,
+     sparse: {min_expected: 5, test: fisher-exact}}
+  - {id: H2, outcome: y, compare: [c, a], test: two-proportion-z, alternative: ALT,
+     interval: wald}
+  - {id: H3, outcome: y, compare: [c, b], test: pearson-chi-square, continuity: true}
+  - {id: H4, outcome: y, compare: all, test: pearson-chi-square, role: exploratory}
+"""
+
+
+def plan(tmp_path: Path, mult: str = "holm", alt: str = "less") -> Plan:
+    path = tmp_path / "p.yaml"
+    path.write_text(PLAN.replace("MULT", mult).replace("ALT", alt))
+    return load_plan(path).model
+
+
+def prepared(counts: dict[str, tuple[int, int]]) -> Prepared:
+    groups = tuple(GroupCounts(g, e, n, 0, 0) for g, (e, n) in counts.items())
+    total = sum(n for _, n in counts.values())
+    return Prepared(total, 0, 0, total, {"y": OutcomeCounts("y", groups)}, (), ())
+
+
+TABLE = {"a": (30, 100), "b": (18, 100), "c": (12, 90)}
+
+
+def test_each_hypothesis_gets_its_table_and_method(tmp_path: Path) -> None:
+    entries, notes = analyse(plan(tmp_path), prepared(TABLE))
+    h1, h2, h3, h4 = entries
+    assert h1["table"] == {"groups": ["b", "a"], "events": [18, 30], "totals": [100, 100]}
+    # scipy.stats.chi2_contingency, uncorrected, on [[18, 82], [30, 70]]
+    chi = scipy.stats.chi2_contingency([[18, 82], [30, 70]], correction=False)
+    assert h1["statistic"] == pytest.approx(chi.statistic, rel=1e-9)
+    assert h1["p_value"] == pytest.approx(chi.pvalue, rel=1e-9) and h1["df"] == 1
+    assert h1["rule"] is None and h1["test"] == "pearson-chi-square"
+    # statsmodels.stats.proportion.proportions_ztest, pooled, "smaller" = our "less"
+    z, p = proportions_ztest([12, 30], [90, 100], alternative="smaller")
+    assert h2["statistic"] == pytest.approx(z, rel=1e-9)
+    assert h2["p_value"] == pytest.approx(p, rel=1e-9)
+    # one-sided: the interval is at 1 - 2 alpha (SPEC.md), Wald as asked
+    low, high = confint_proportions_2indep(12, 90, 30, 100, method="wald", compare="diff",
+                                           alpha=0.10)
+    assert h2["estimate"]["level"] == pytest.approx(0.90)
+    assert h2["estimate"]["ci"] == pytest.approx([low, high], rel=1e-9)
+    assert h2["estimate"]["ci_method"] == "wald"
+    chi_c = scipy.stats.chi2_contingency([[12, 78], [18, 82]], correction=True)
+    assert h3["p_value"] == pytest.approx(chi_c.pvalue, rel=1e-9)
+    chi_k = scipy.stats.chi2_contingency([[30, 70], [18, 82], [12, 78]], correction=False)
+    assert h4["p_value"] == pytest.approx(chi_k.pvalue, rel=1e-9) and h4["df"] == 2
+    assert h4["estimate"] is None and h4["table"]["groups"] == ["a", "b", "c"]
+    # the expected counts: row total x column total / grand total (common practice)
+    assert h4["expected"][0] == pytest.approx([100 * 60 / 290, 100 * 230 / 290], rel=1e-12)
+    assert notes == []
+
+
+def test_default_interval_is_newcombe_at_one_minus_alpha(tmp_path: Path) -> None:
+    h1 = analyse(plan(tmp_path), prepared(TABLE))[0][0]
+    low, high = confint_proportions_2indep(18, 100, 30, 100, method="newcomb", compare="diff",
+                                           alpha=0.05)
+    assert h1["estimate"]["measure"] == "risk-difference"
+    assert h1["estimate"]["value"] == pytest.approx(-0.12, rel=1e-12)
+    assert h1["estimate"]["ci"] == pytest.approx([low, high], rel=1e-9)
+    assert h1["estimate"]["level"] == pytest.approx(0.95)
+
+
+@pytest.mark.parametrize("method,sm", [("holm", "holm"), ("bonferroni", "bonferroni"),
+                                       ("hochberg", "simes-hochberg"),
+                                       ("benjamini-hochberg", "fdr_bh")])
+def test_family_excludes_exploratory(tmp_path: Path, method: str, sm: str) -> None:
+    entries, _ = analyse(plan(tmp_path, mult=method), prepared(TABLE))
+    raw = [e["p_value"] for e in entries[:3]]
+    # statsmodels.stats.multitest.multipletests over the three confirmatory hypotheses
+    reject, adjusted, _, _ = multipletests(raw, alpha=0.05, method=sm)
+    assert [e["p_adjusted"] for e in entries[:3]] == pytest.approx(list(adjusted), rel=1e-9)
+    assert [e["reject"] for e in entries[:3]] == list(reject)
+    assert entries[3]["p_adjusted"] is None and entries[3]["reject"] is None
+
+
+def test_none_leaves_p_unadjusted(tmp_path: Path) -> None:
+    entries, _ = analyse(plan(tmp_path, mult="none"), prepared(TABLE))
+    assert all(e["p_adjusted"] == e["p_value"] for e in entries[:3])
+
+
+def test_sparse_switch_fires_below_the_threshold(tmp_path: Path) -> None:
+    sparse = {"a": (1, 12), "b": (6, 11), "c": (12, 90)}
+    h1 = analyse(plan(tmp_path), prepared(sparse))[0][0]
+    # expected events for b: 11 x 7 / 23 = 3.348 < 5 (row x column / total, common practice)
+    assert h1["rule"] == {"switch": "sparse", "min_expected": 5,
+                          "smallest_expected": pytest.approx(11 * 7 / 23, rel=1e-12),
+                          "from": "pearson-chi-square", "to": "fisher-exact"}
+    assert h1["test"] == "fisher-exact" and h1["planned_test"] == "pearson-chi-square"
+    # scipy.stats.fisher_exact on [[6, 5], [1, 11]], two-sided
+    assert h1["p_value"] == pytest.approx(scipy.stats.fisher_exact([[6, 5], [1, 11]]).pvalue,
+                                          rel=1e-12)
+    assert h1["statistic"] is None and h1["df"] is None
+
+
+def test_not_computable_is_null_with_a_note(tmp_path: Path) -> None:
+    # no events in a or b: the smallest expected count is 0, so the sparse switch fires and
+    # scipy.stats.fisher_exact([[0, 10], [0, 10]]) gives p = 1
+    entries, notes = analyse(plan(tmp_path), prepared({"a": (0, 10), "b": (0, 10),
+                                                       "c": (0, 0)}))
+    h1, h2, h3, h4 = entries
+    assert h1["test"] == "fisher-exact"
+    assert h1["p_value"] == scipy.stats.fisher_exact([[0, 10], [0, 10]]).pvalue == 1.0
+    assert h1["estimate"]["value"] == 0.0
+    for h in (h2, h3, h4):  # c has no analysed participants
+        assert h["p_value"] is None and h["p_adjusted"] is None and h["reject"] is None
+        assert h["statistic"] is None and h["estimate"] is None and h["expected"] is None
+    assert [n.detail.split(":")[0] for n in notes if n.code == "not-computable"] == \
+        ["H2", "H3", "H4", "H2", "H3"]
+
+
+def test_interval_levels() -> None:
+    # SPEC.md: 1 - alpha two-sided; 1 - 2 alpha one-sided or with a margin
+    assert interval_level(0.05, "two-sided", "superiority") == pytest.approx(0.95)
+    assert interval_level(0.025, "greater", "superiority") == pytest.approx(0.95)
+    assert interval_level(0.05, "two-sided", "equivalence") == pytest.approx(0.90)
