@@ -17,7 +17,7 @@ from .canonical import canonical_json, sha256_tag
 from .departures import Departure, Note
 from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
-from .execute import RunOutcome, check_out_folder, default_folder, run_pipeline
+from .execute import RunOutcome, check_out_folder, compute_results, default_folder, publish
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
 
 __all__ = [
@@ -253,13 +253,15 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
                                             d.get("expected"), d.get("found")))
     runs = [e for e in entries if e.get("action") == "run"]
     out_path = Path(out) if out is not None else default_folder(loaded.path, "run")
-    check_out_folder(out_path)
-    return run_pipeline(
+    if out is not None:
+        check_out_folder(out_path)  # before the work; the default location is numbered instead
+    results = compute_results(
         plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
-        data_path=data_path, out=out_path, actor=resolve_actor(actor), environment=env,
+        data_path=data_path, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes,
         previous_data=runs[-1].get("data") if runs else None,
     )
+    return publish(loaded.path, out_path, results, numbered=out is None)
 
 
 @dataclass

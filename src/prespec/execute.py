@@ -34,19 +34,36 @@ class RunOutcome:
 
 
 def default_folder(plan_path: Path, kind: str) -> Path:
-    """``reports/<plan stem>/<YYYYMMDDTHHMMSSZ>-run`` beside the plan, ``-2``, ``-3`` on a clash."""
+    """``reports/<plan stem>/<YYYYMMDDTHHMMSSZ>-run`` beside the plan (not yet reserved)."""
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
-    base = plan_path.parent / "reports" / plan_path.stem / f"{stamp}-{kind}"
-    candidate, n = base, 1
-    while candidate.exists():
-        n += 1
-        candidate = base.with_name(f"{base.name}-{n}")
-    return candidate
+    return plan_path.parent / "reports" / plan_path.stem / f"{stamp}-{kind}"
 
 
 def check_out_folder(out: Path) -> None:
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
         raise BadInput(f"{out}: the report folder must not exist yet or be empty")
+
+
+def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:
+    """Claim the report folder by creating it empty; (the folder, whether we created it).
+
+    ``numbered`` (the default location) moves on to ``-2``, ``-3`` … when another run holds
+    the name, so that runs started at the same second never share a folder; a folder named
+    with ``--out`` must not exist or be empty. The complete report is later renamed over the
+    empty folder, which POSIX rename allows.
+    """
+    out.parent.mkdir(parents=True, exist_ok=True)
+    candidate, n = out, 1
+    while True:
+        try:
+            candidate.mkdir()
+            return candidate, True
+        except FileExistsError:
+            if not numbered:
+                check_out_folder(candidate)
+                return candidate, False
+            n += 1
+            candidate = out.with_name(f"{out.name}-{n}")
 
 
 def _safe_name(text: str) -> str:
@@ -130,6 +147,7 @@ def write_report(folder: Path, results: dict[str, Any], *, render: bool = True) 
 
     folder.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}.partial-", dir=folder.parent))
+    tmp.chmod(0o755)  # mkdtemp makes it private; a report folder is an ordinary folder
     try:
         text = json.dumps(results, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
         (tmp / "results.json").write_text(text, encoding="utf-8")
@@ -138,9 +156,7 @@ def write_report(folder: Path, results: dict[str, Any], *, render: bool = True) 
         if render:
             render_notebook(tmp)
         manifest = write_manifest(tmp)
-        if folder.exists():
-            folder.rmdir()  # checked empty before the run started
-        os.replace(tmp, folder)
+        os.replace(tmp, folder)  # over the empty folder reserved for this run
         audit.files.fsync_dir(folder.parent)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -148,21 +164,20 @@ def write_report(folder: Path, results: dict[str, Any], *, render: bool = True) 
     return manifest
 
 
-def run_pipeline(
+def compute_results(
     *,
     plan_path: Path,
     plan: Any,
     fingerprint: str,
     version: int | None,
     data_path: Path,
-    out: Path,
     actor: str,
     environment: dict[str, str],
     deviations: list[Departure],
     notes: list[Note],
     previous_data: str | None,
-) -> RunOutcome:
-    """Run ``plan`` on ``data_path``; write the report to ``out``; append the ``run`` entry."""
+) -> dict[str, Any]:
+    """Read the data, reduce it, run the statistics: the results.json document (not written)."""
     frame = read_data(data_path)
     data_hash = file_sha256(data_path)
     prepared = prepare(frame, plan, data_path)
@@ -180,7 +195,7 @@ def run_pipeline(
     notes = [*notes, *prepared.notes]
     hypotheses, stat_notes = analyse(plan, prepared)
     notes.extend(stat_notes)
-    results = build_results(
+    return build_results(
         kind="run",
         plan=plan,
         fingerprint=fingerprint,
@@ -194,20 +209,37 @@ def run_pipeline(
         deviations=deviations,
         notes=notes,
     )
-    manifest = write_report(out, results)
-    report_rel = Path(os.path.relpath(out.resolve(), plan_path.parent.resolve())).as_posix()
+
+
+def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bool,
+            action: str = "run") -> RunOutcome:
+    """Write the report folder atomically, then append its log entry.
+
+    If the entry cannot be appended the folder is removed: a report the log does not name
+    must not survive.
+    """
+    folder, created = reserve_folder(out, numbered=numbered)
+    try:
+        manifest = write_report(folder, results)
+    except BaseException:
+        if created:
+            shutil.rmtree(folder, ignore_errors=True)
+        raise
+    report_rel = Path(os.path.relpath(folder.resolve(), plan_path.parent.resolve())).as_posix()
     try:
         entry = audit.append(
             audit.log_path(plan_path),
             audit.head_path(plan_path),
-            actor=actor,
-            action="run",
-            plan=fingerprint,
-            data=data_hash,
+            actor=results["actor"],
+            action=action,
+            plan=results["plan"],
+            data=results["data"],
             details={"report": report_rel, "manifest": manifest},
             deviations=results["deviations"],
         )
     except BaseException:
-        shutil.rmtree(out, ignore_errors=True)  # an unlogged report must not survive
+        shutil.rmtree(folder, ignore_errors=True)
+        if not created:
+            folder.mkdir(exist_ok=True)  # leave a user's empty --out folder as it was
         raise
-    return RunOutcome(out, results, entry)
+    return RunOutcome(folder, results, entry)
