@@ -14,7 +14,7 @@ import time
 from collections import defaultdict
 from pathlib import Path
 
-import prespec.report as report_pkg  # execute.py imports from it lazily, at each call
+import prespec.report as report_pkg  # publish.py imports from it lazily, at each call
 from prespec import api, execute
 from prespec.report import render
 

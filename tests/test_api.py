@@ -199,12 +199,9 @@ def test_actor_resolution(monkeypatch: pytest.MonkeyPatch) -> None:
 
 def test_runs_in_the_same_second_get_numbered_folders(study: tuple[Path, Path],
                                                       monkeypatch: pytest.MonkeyPatch) -> None:
-    import prespec.execute
-
     plan, data = study
     api.lock(plan)
     fixed = plan.parent / "reports" / "trial" / "20270101T000000Z-run"
-    monkeypatch.setattr(prespec.execute, "default_folder", lambda p, kind: fixed)
     monkeypatch.setattr(api, "default_folder", lambda p, kind: fixed)
     names = [api.run(plan, data).folder.name for _ in range(3)]
     assert names == ["20270101T000000Z-run", "20270101T000000Z-run-2", "20270101T000000Z-run-3"]

@@ -17,8 +17,9 @@ from .canonical import canonical_json, sha256_tag
 from .departures import Departure, Note
 from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
-from .execute import RunOutcome, check_out_folder, compute_results, default_folder, publish
+from .execute import check_out_folder, compute_results, default_folder
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
+from .publish import RunOutcome, publish
 
 __all__ = [
     "CheckResult",
