@@ -18,8 +18,11 @@ class Cond(SimpleNamespace):
         return key, value
 
 
-def make_plan(include=(), missing="exclude", planned_n=None, event=(1,), no_event=(0,)):
+def make_plan(include=(), missing="exclude", planned_n=None, event=(1,), no_event=(0,),
+              strata=None):
+    hypotheses = [SimpleNamespace(id="H1", outcome="inf", strata=strata)]
     return SimpleNamespace(
+        hypotheses=hypotheses,
         data=SimpleNamespace(id="pid", group="arm", groups=["a", "b"], reference="a",
                              include=list(include), planned_n=planned_n),
         outcomes={"inf": SimpleNamespace(column="y", event=list(event),
@@ -143,3 +146,18 @@ def test_parquet_numbers_match_plan_values(tmp_path: Path) -> None:
     prep = prepare(read_data(path), make_plan(), path)
     assert prep.outcomes["inf"].table(["a", "b"]) == ([1, 1], [2, 1])
     assert prep.outcomes["inf"].of("b").blank == 1
+
+
+def test_strata_tables(tmp_path: Path) -> None:
+    text = CSV.replace("pid,arm,ok,age,y", "pid,arm,site,age,y").replace(",yes,", ",n,", 5)
+    text = text.replace(",no,", ",s,").replace(",yes,", ",s,")
+    path = write(tmp_path, text + "10,a,,20,1\n")
+    prep = prepare(read_data(path), make_plan(strata=["site"]), path)
+    (north, south) = prep.strata[("inf", ("site",))]
+    assert north.values == ("n",) and south.values == ("s",)
+    # n: rows 1, 2 (a) and 4, 5, 6 blank (b); s: row 3 (a), 9 unmapped (b); row 10 has no site
+    assert north.counts.table(["a", "b"]) == ([1, 1], [2, 2])
+    assert south.counts.table(["a", "b"]) == ([1, 0], [1, 0])
+    assert [n.code for n in prep.notes] == ["missing-exclude", "blank-stratum"]
+    with pytest.raises(DataError, match=r"column 'centre' \(hypotheses.H1.strata\)"):
+        prepare(read_data(path), make_plan(strata=["centre"]), path)

@@ -2,13 +2,14 @@
 
 from ..canonical import file_sha256
 from ..matching import ValueSet, as_number, as_text, is_blank, value_key
-from .prepare import GroupCounts, OutcomeCounts, Prepared, prepare
+from .prepare import GroupCounts, OutcomeCounts, Prepared, Stratum, prepare
 from .read import read_data
 
 __all__ = [
     "GroupCounts",
     "OutcomeCounts",
     "Prepared",
+    "Stratum",
     "ValueSet",
     "as_number",
     "as_text",

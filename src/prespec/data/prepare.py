@@ -9,7 +9,7 @@ sample-size shortfalls).
 from __future__ import annotations
 
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -49,6 +49,14 @@ class OutcomeCounts:
 
 
 @dataclass(frozen=True)
+class Stratum:
+    """The counts of one stratum: its value in each stratification column, and the tables."""
+
+    values: tuple[str, ...]
+    counts: OutcomeCounts
+
+
+@dataclass(frozen=True)
 class Prepared:
     rows_read: int
     excluded_by_filter: int
@@ -57,6 +65,8 @@ class Prepared:
     outcomes: dict[str, OutcomeCounts]
     deviations: tuple[Departure, ...]
     notes: tuple[Note, ...]
+    # per (outcome, stratification columns) used by a hypothesis: the strata, sorted
+    strata: dict[tuple[str, tuple[str, ...]], tuple[Stratum, ...]] = field(default_factory=dict)
 
 
 def _rows(n: int) -> str:
@@ -142,6 +152,10 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
         needed.setdefault(cond.column, f"data.include[{index}]")
     for name, outcome in plan.outcomes.items():
         needed.setdefault(outcome.column, f"outcomes.{name}.column")
+    stratified = {(h.outcome, tuple(h.strata)): h.id for h in plan.hypotheses if h.strata}
+    for (_, columns), hyp_id in stratified.items():
+        for column in columns:
+            needed.setdefault(column, f"hypotheses.{hyp_id}.strata")
     _check_columns(frame, needed, source)
     _check_ids(frame, spec.id, source, line_offset)
 
@@ -180,10 +194,21 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
             )
         )
     analysed_rows = keep & in_group
-    outcomes = {
-        name: _count_outcome(frame, name, outcome, group_col, analysed_rows, groups, source,
-                             line_offset, deviations, notes)
+    kinds = {
+        name: _classify_outcome(frame, name, outcome, analysed_rows, source, line_offset,
+                                deviations)
         for name, outcome in plan.outcomes.items()
+    }
+    outcomes = {
+        name: _tally(name, kinds[name], group_col, analysed_rows, groups, outcome.missing)
+        for name, outcome in plan.outcomes.items()
+    }
+    for name, counts in outcomes.items():
+        _missing_note(name, plan.outcomes[name].missing, counts, notes)
+    strata = {
+        key: _strata(frame, key, kinds[key[0]], group_col, analysed_rows, groups,
+                     plan.outcomes[key[0]].missing, notes)
+        for key in stratified
     }
     if spec.planned_n:
         for name, counts in outcomes.items():
@@ -207,21 +232,20 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
         outcomes=outcomes,
         deviations=tuple(deviations),
         notes=tuple(notes),
+        strata=strata,
     )
 
 
-def _count_outcome(
+def _classify_outcome(
     frame: pd.DataFrame,
     name: str,
     outcome: Any,
-    group_col: np.ndarray,
     rows: np.ndarray,
-    groups: list[str],
     source: str,
     line_offset: int,
     deviations: list[Departure],
-    notes: list[Note],
-) -> OutcomeCounts:
+) -> np.ndarray:
+    """Per row: "event", "no-event", "blank" or "unmapped"; departures and errors as SPEC.md."""
     events, no_events = ValueSet(outcome.event), ValueSet(outcome.no_event)
 
     def classify(cell: Any) -> str:
@@ -264,6 +288,12 @@ def _count_outcome(
             f"{int(blank_rows.sum())} analysed rows (rows {', '.join(map(str, where))}); "
             "missing: error"
         )
+    return kind
+
+
+def _tally(name: str, kind: np.ndarray, group_col: np.ndarray, rows: np.ndarray,
+           groups: list[str], missing: str) -> OutcomeCounts:
+    """Events and totals per group over ``rows``, blanks and unmapped values by the rule."""
     counts = []
     for group in groups:
         in_group = rows & (group_col == group)
@@ -271,25 +301,57 @@ def _count_outcome(
         n_no = int((in_group & (kind == "no-event")).sum())
         n_blank = int((in_group & (kind == "blank")).sum())
         n_unmapped = int((in_group & (kind == "unmapped")).sum())
-        n_missing = n_blank + n_unmapped
-        if outcome.missing == "event":
-            n_event += n_missing
-        elif outcome.missing == "no-event":
-            n_no += n_missing
+        if missing == "event":
+            n_event += n_blank + n_unmapped
+        elif missing == "no-event":
+            n_no += n_blank + n_unmapped
         counts.append(GroupCounts(group, n_event, n_event + n_no, n_blank, n_unmapped))
-    missing_total = sum(c.blank + c.unmapped for c in counts)
-    if missing_total:
-        per_group = ", ".join(f"{c.group} {c.blank + c.unmapped}" for c in counts)
-        action = {
-            "exclude": "left out of the analysis",
-            "event": "counted as events",
-            "no-event": "counted as no event",
-        }[outcome.missing]
-        notes.append(
-            Note(
-                f"missing-{outcome.missing}",
-                f"outcome {name!r}: {missing_total} missing outcomes {action} "
-                f"(missing: {outcome.missing}); per group: {per_group}",
-            )
-        )
     return OutcomeCounts(name, tuple(counts))
+
+
+def _missing_note(name: str, missing: str, counts: OutcomeCounts, notes: list[Note]) -> None:
+    missing_total = sum(c.blank + c.unmapped for c in counts.groups)
+    if not missing_total:
+        return
+    per_group = ", ".join(f"{c.group} {c.blank + c.unmapped}" for c in counts.groups)
+    action = {
+        "exclude": "left out of the analysis",
+        "event": "counted as events",
+        "no-event": "counted as no event",
+    }[missing]
+    notes.append(
+        Note(
+            f"missing-{missing}",
+            f"outcome {name!r}: {missing_total} missing outcomes {action} "
+            f"(missing: {missing}); per group: {per_group}",
+        )
+    )
+
+
+def _strata(frame: pd.DataFrame, key: tuple[str, tuple[str, ...]], kind: np.ndarray,
+            group_col: np.ndarray, rows: np.ndarray, groups: list[str], missing: str,
+            notes: list[Note]) -> tuple[Stratum, ...]:
+    """The count tables of each stratum (the distinct values of the columns), sorted.
+
+    Rows with a blank stratification value belong to no stratum and are left out of the
+    stratified analysis, with a note.
+    """
+    name, columns = key
+    labels = [_per_unique(frame[c], lambda cell: None if is_blank(cell) else as_text(cell))
+              for c in columns]
+    blank = np.zeros(len(rows), dtype=bool)
+    for lab in labels:
+        blank |= np.array([x is None for x in lab])
+    if (rows & blank).any():
+        notes.append(Note("blank-stratum", f"outcome {name!r}, strata {', '.join(columns)}: "
+                          f"{_rows(int((rows & blank).sum()))} with a blank stratum value left "
+                          "out of the stratified analysis"))
+    rows = rows & ~blank
+    combined = np.array(["\x1f".join(parts) if rows[i] else "" for i, parts in
+                         enumerate(zip(*labels, strict=True))], dtype=object)
+    values = sorted({combined[i] for i in np.flatnonzero(rows)})
+    return tuple(
+        Stratum(tuple(v.split("\x1f")),
+                _tally(name, kind, group_col, rows & (combined == v), groups, missing))
+        for v in values
+    )
