@@ -1,19 +1,22 @@
 """The statistics of one run: each hypothesis of the plan computed on its count table.
 
-This module knows the plan's vocabulary and dispatches to the pure functions of ``stats``;
-it neither reads files nor writes anything. Multiplicity is applied over the non-exploratory
-hypotheses; ``reject`` is ``p_adjusted <= alpha``.
+This module knows the plan's vocabulary and the order of the decisions (sparse switch, test,
+estimate, multiplicity, gatekeeping); ``methods.py`` maps names to the pure functions of
+``stats``. It neither reads files nor writes anything.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from typing import Any
 
-from . import stats
+from . import methods
 from .data import Prepared
 from .departures import Note
+from .stats import multiplicity, tables
+from .stats.results import TestResult
+
+MAIN_FAMILY = "main"
 
 
 def _finite(value: float | None, what: str, notes: list[Note]) -> float | None:
@@ -34,37 +37,30 @@ def interval_level(alpha: float, alternative: str, comparison: str) -> float:
     return 1.0 - 2.0 * alpha
 
 
-def _run_test(
-    test: str, events: list[int], totals: list[int], hyp: Any
-) -> stats.TestResult:
-    alternative = hyp.alternative
-    if test == "pearson-chi-square":
-        return stats.pearson_chi_square(
-            events, totals, continuity=bool(hyp.continuity), alternative=alternative
-        )
-    if test == "two-proportion-z":
-        return stats.two_proportion_z(
-            events[0], totals[0], events[1], totals[1], alternative=alternative
-        )
-    if test == "fisher-exact":
-        return stats.fisher_exact(
-            events[0], totals[0], events[1], totals[1], alternative=alternative
-        )
-    raise ValueError(f"test {test!r} is not available")  # the plan validator refuses it first
+def _groups_of(hyp: Any, plan: Any) -> list[str]:
+    return list(plan.data.groups) if hyp.kind in ("all", "trend") else list(hyp.compare)
 
 
-_INTERVALS: dict[str, Callable[[int, int, int, int, float], stats.Estimate]] = {
-    "newcombe": stats.newcombe_difference,
-    "wald": stats.wald_difference,
-}
+def _table(hyp: Any, plan: Any, prepared: Prepared) -> tuple[methods.Table, list[dict] | None]:
+    groups = _groups_of(hyp, plan)
+    events, totals = prepared.outcomes[hyp.outcome].table(groups)
+    if not hyp.strata:
+        return methods.Table(events, totals), None
+    shown, strata = [], []
+    for stratum in prepared.strata[(hyp.outcome, tuple(hyp.strata))]:
+        s_events, s_totals = stratum.counts.table(groups)
+        shown.append({"stratum": dict(zip(hyp.strata, stratum.values, strict=True)),
+                      "events": s_events, "totals": s_totals})
+        strata.append((s_events[0], s_totals[0], s_events[1], s_totals[1]))
+    return methods.Table(events, totals, strata), shown
 
 
-def _rule(hyp: Any, events: list[int], totals: list[int]) -> dict[str, Any] | None:
+def _rule(hyp: Any, table: methods.Table) -> dict[str, Any] | None:
     sparse = hyp.sparse
     if sparse is None:
         return None
-    smallest = stats.smallest_expected(events, totals)
-    if smallest < sparse.min_expected and sparse.test != hyp.test:
+    smallest = tables.smallest_expected(table.events, table.totals)
+    if smallest < sparse.min_expected:
         return {
             "switch": "sparse",
             "min_expected": sparse.min_expected,
@@ -75,21 +71,42 @@ def _rule(hyp: Any, events: list[int], totals: list[int]) -> dict[str, Any] | No
     return None
 
 
-def compute_hypothesis(
-    hyp: Any, plan: Any, prepared: Prepared, notes: list[Note]
-) -> dict[str, Any]:
-    """One hypothesis's entry of results.json, before the multiplicity adjustment."""
-    groups = list(plan.data.groups) if hyp.kind in ("all", "trend") else list(hyp.compare)
-    events, totals = prepared.outcomes[hyp.outcome].table(groups)
-    entry: dict[str, Any] = {
+def _margin_check(hyp: Any, est: dict[str, Any] | None, decided: bool | None
+                  ) -> dict[str, Any] | None:
+    """Whether the interval excludes the margin on the side of benefit, and agrees with the test."""
+    if hyp.comparison == "superiority" or est is None or None in est["ci"]:
+        return None
+    low, high = est["ci"]
+    if hyp.comparison == "equivalence":
+        m_low, m_high = hyp.margin
+        excludes = m_low < low and high < m_high
+    elif hyp.alternative == "greater":
+        excludes = low > hyp.margin
+    else:
+        excludes = high < hyp.margin
+    return {
+        "interval_excludes_margin": excludes,
+        "agrees_with_test": None if decided is None else excludes == decided,
+    }
+
+
+def _blank_entry(hyp: Any, plan: Any, groups: list[str], table: methods.Table) -> dict[str, Any]:
+    scores = hyp.scores
+    if hyp.kind == "trend" and scores is None:
+        scores = list(range(len(groups)))
+    return {
         "id": hyp.id,
         "title": hyp.title,
         "role": hyp.role,
+        "kind": hyp.kind,
         "outcome": hyp.outcome,
         "compare": hyp.compare,
         "alternative": hyp.alternative,
         "comparison": hyp.comparison,
         "margin": hyp.margin,
+        "null_rate": hyp.null_rate,
+        "scores": scores,
+        "strata": hyp.strata,
         "planned_test": hyp.test,
         "test": hyp.test,
         "continuity": hyp.continuity,
@@ -99,90 +116,188 @@ def compute_hypothesis(
         "p_adjusted": None,
         "reject": None,
         "estimate": None,
-        "table": {"groups": groups, "events": events, "totals": totals},
+        "table": {"groups": groups, "events": table.events, "totals": table.totals},
         "expected": None,
+        "strata_tables": None,
+        "homogeneity": None,
+        "monte_carlo": None,
+        "margin_check": None,
         "rule": None,
+        "parent": None,
+        "gate": None,
+        "family": None if hyp.role == "exploratory" else MAIN_FAMILY,
     }
-    empty = [g for g, n in zip(groups, totals, strict=True) if n == 0]
+
+
+def _test_json(result: TestResult, what: str, notes: list[Note]) -> dict[str, Any]:
+    return {"test": result.method,
+            "statistic": _finite(result.statistic, f"{what} statistic", notes),
+            "df": result.df,
+            "p_value": _finite(result.p_value, f"{what} p-value", notes)}
+
+
+def compute_hypothesis(hyp: Any, plan: Any, prepared: Prepared,
+                       notes: list[Note]) -> dict[str, Any]:
+    """One hypothesis's entry of results.json, before the multiplicity adjustment."""
+    groups = _groups_of(hyp, plan)
+    table, strata_shown = _table(hyp, plan, prepared)
+    entry = _blank_entry(hyp, plan, groups, table)
+    entry["strata_tables"] = strata_shown
+    empty = [g for g, n in zip(groups, table.totals, strict=True) if n == 0]
     if empty:
-        notes.append(
-            Note(
-                "not-computable",
-                f"{hyp.id}: no analysed participants in {', '.join(empty)}; "
-                "test and estimate not computable",
-            )
-        )
+        notes.append(Note("not-computable", f"{hyp.id}: no analysed participants in "
+                          f"{', '.join(empty)}; test and estimate not computable"))
         return entry
-    expected = stats.expected_counts(events, totals)
-    entry["expected"] = [[float(a), float(b)] for a, b in expected]
-    rule = _rule(hyp, events, totals)
-    test = rule["to"] if rule else hyp.test
+    if hyp.kind != "single":
+        expected = tables.expected_counts(table.events, table.totals)
+        entry["expected"] = [[float(a), float(b)] for a, b in expected]
+    rule = _rule(hyp, table) if hyp.kind != "single" else None
+    run_as = hyp.model_copy(update={"test": rule["to"]}) if rule else hyp
     if rule:
         entry["rule"] = rule
-        notes.append(
-            Note(
-                "sparse-switch",
-                f"{hyp.id}: smallest expected count {rule['smallest_expected']:.4g} is below "
-                f"{rule['min_expected']:g}; the pre-specified switch from {rule['from']} to "
-                f"{rule['to']} applied",
-            )
-        )
-    result = _run_test(test, events, totals, hyp)
-    entry["test"] = test
-    entry["statistic"] = _finite(result.statistic, f"{hyp.id}: the statistic", notes)
-    entry["df"] = result.df
-    entry["p_value"] = _finite(result.p_value, f"{hyp.id}: the p-value", notes)
-    if hyp.kind == "pair" and hyp.measure is not None:
-        level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
-        est = _INTERVALS[hyp.interval](events[0], totals[0], events[1], totals[1], level)
+        notes.append(Note("sparse-switch", f"{hyp.id}: smallest expected count "
+                          f"{rule['smallest_expected']:.4g} is below {rule['min_expected']:g}; "
+                          f"the pre-specified switch from {rule['from']} to {rule['to']} applied"))
+    outcome = methods.TESTS[run_as.test](table, run_as)
+    entry.update(_test_json(outcome.result, f"{hyp.id}: the", notes))
+    entry["test"] = run_as.test
+    entry["monte_carlo"] = outcome.monte_carlo
+    if outcome.monte_carlo is not None:
+        mc = outcome.monte_carlo
+        mc["standard_error"] = _finite(mc["standard_error"], f"{hyp.id}: the Monte Carlo "
+                                       "standard error", notes)
+    if table.strata is not None:
+        het = methods.homogeneity(table)
+        if het is not None:
+            entry["homogeneity"] = {"test": het.method, **{
+                k: v for k, v in _test_json(het, f"{hyp.id}: the homogeneity", notes).items()
+                if k != "test"}}
+            if entry["homogeneity"]["p_value"] is not None:
+                notes.append(Note("homogeneity", f"{hyp.id}: Breslow–Day test with Tarone's "
+                                  f"correction over {len(table.strata)} strata, p = "
+                                  f"{entry['homogeneity']['p_value']:.4g}"))
+    level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
+    est = methods.estimate(hyp, table, level)
+    if est is not None:
         entry["estimate"] = {
             "measure": est.measure,
             "value": _finite(est.value, f"{hyp.id}: the estimate", notes),
-            "ci": [
-                _finite(est.low, f"{hyp.id}: the lower limit", notes),
-                _finite(est.high, f"{hyp.id}: the upper limit", notes),
-            ],
+            "ci": [_finite(est.low, f"{hyp.id}: the lower limit", notes),
+                   _finite(est.high, f"{hyp.id}: the upper limit", notes)],
             "ci_method": est.method,
             "level": level,
+            "note": getattr(est, "note", None),
         }
+        if entry["estimate"]["note"]:
+            notes.append(Note("interval-adjustment", f"{hyp.id}: {entry['estimate']['note']}"))
     return entry
 
 
-def adjust_family(entries: list[dict[str, Any]], method: str, alpha: float,
-                  notes: list[Note]) -> None:
-    """Fill ``p_adjusted`` and ``reject`` over the non-exploratory hypotheses, in plan order.
+def _adjusted(raw: list[float], method: Any, ids: list[str]) -> list[float]:
+    if isinstance(method, str):
+        return multiplicity.adjust(raw, method)
+    weights = [float(method.weights.get(i, 0.0)) for i in ids]
+    transitions = [[float(method.transitions.get(a, {}).get(b, 0.0)) for b in ids] for a in ids]
+    return methods.stats_function("graphical.graphical_adjust")(raw, weights, transitions)
+
+
+def adjust_family(entries: list[dict[str, Any]], method: Any, alpha: float,
+                  notes: list[Note], label: str) -> None:
+    """Fill ``p_adjusted`` and ``reject`` over one family of hypotheses, in plan order.
 
     A p-value that could not be computed enters the adjustment as 1 (it can never be
     rejected, and it does not make the others easier to reject); a note says so.
     """
-    family = [e for e in entries if e["role"] != "exploratory"]
+    name = method if isinstance(method, str) else method.method
     raw = []
-    for e in family:
+    for e in entries:
         if e["p_value"] is None:
-            notes.append(
-                Note("not-computable", f"{e['id']}: no p-value; it enters {method} as 1")
-            )
-            raw.append(1.0)
-        else:
-            raw.append(e["p_value"])
-    adjusted = stats.adjust(raw, method) if family else []
-    for e, p_adj in zip(family, adjusted, strict=True):
+            notes.append(Note("not-computable", f"{e['id']}: no p-value; it enters {name} "
+                              f"({label}) as 1"))
+        raw.append(1.0 if e["p_value"] is None else e["p_value"])
+    adjusted = _adjusted(raw, method, [e["id"] for e in entries]) if entries else []
+    for e, p_adj in zip(entries, adjusted, strict=True):
         if e["p_value"] is None:
             continue
         e["p_adjusted"] = float(p_adj)
         e["reject"] = bool(p_adj <= alpha)
 
 
+def _decide_margins(entries: list[dict[str, Any]], plan: Any) -> None:
+    for e in entries:
+        hyp = plan.hypothesis(e["parent"]) if e["parent"] else None
+        source = hyp if hyp is not None else plan.hypothesis(e["id"])
+        if source.comparison == "superiority":
+            continue
+        decided = e["reject"]
+        if decided is None and e["p_value"] is not None:  # exploratory: the nominal decision
+            decided = e["p_value"] <= plan.alpha
+        e["margin_check"] = _margin_check(source, e["estimate"], decided)
+
+
+def _follow_ups(hyp: Any, plan: Any) -> list[Any]:
+    """The pairwise hypotheses of ``then``: each arm against the reference, or every pair."""
+    groups = list(plan.data.groups)
+    if hyp.then.pairwise == "reference":
+        ref = plan.data.reference
+        pairs = [(g, ref) for g in groups if g != ref]
+    else:
+        pairs = [(groups[j], groups[i]) for i in range(len(groups))
+                 for j in range(i + 1, len(groups))]
+    return [
+        hyp.model_copy(update={
+            "id": f"{hyp.id}:{a}-vs-{b}",
+            "title": f"{a} vs {b} (follow-up of {hyp.id})",
+            "compare": [a, b],
+            "measure": "risk-difference",
+            "interval": "newcombe",
+            "then": None,
+            "monte_carlo": None,
+        })
+        for a, b in pairs
+    ]
+
+
 def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[Note]]:
-    """Every hypothesis of the plan, adjusted for multiplicity; and the notes they raise."""
+    """Every hypothesis of the plan, adjusted for multiplicity, with the gated follow-ups."""
     notes: list[Note] = []
     entries = [compute_hypothesis(h, plan, prepared, notes) for h in plan.hypotheses]
-    adjust_family(entries, plan.multiplicity, plan.alpha, notes)
-    return entries, notes
+    main = [e for e in entries if e["role"] != "exploratory"]
+    adjust_family(main, plan.multiplicity, plan.alpha, notes, "the main family")
+    out: list[dict[str, Any]] = []
+    for hyp, entry in zip(plan.hypotheses, entries, strict=True):
+        out.append(entry)
+        if hyp.then is None:
+            continue
+        family = f"{hyp.id} pairwise"
+        follow = []
+        for sub in _follow_ups(hyp, plan):
+            e = compute_hypothesis(sub, plan, prepared, notes)
+            e["parent"] = hyp.id
+            e["family"] = None if hyp.role == "exploratory" else family
+            follow.append(e)
+        if hyp.role == "exploratory":
+            out.extend(follow)
+            continue
+        gate_open = entry["reject"] is True
+        for e in follow:
+            e["gate"] = "open" if gate_open else "closed"
+        if gate_open:
+            adjust_family(follow, hyp.then.multiplicity, plan.alpha, notes, family)
+        else:
+            for e in follow:
+                e["reject"] = False
+            notes.append(Note("gate-closed", f"{hyp.id} was not rejected, so its pairwise "
+                              "follow-ups are not tested (their p-values are nominal)"))
+        out.extend(follow)
+    _decide_margins(out, plan)
+    return out, notes
 
 
 def group_summaries(plan: Any, prepared: Prepared) -> dict[str, list[dict[str, Any]]]:
     """Per outcome and group: events, total, missing, proportion and its Wilson interval."""
+    from .stats import intervals
+
     level = 1.0 - plan.alpha
     out: dict[str, list[dict[str, Any]]] = {}
     for name, counts in prepared.outcomes.items():
@@ -199,7 +314,7 @@ def group_summaries(plan: Any, prepared: Prepared) -> dict[str, list[dict[str, A
                 "level": level,
             }
             if gc.total > 0:
-                est = stats.wilson(gc.events, gc.total, level)
+                est = intervals.wilson(gc.events, gc.total, level)
                 row["proportion"] = est.value
                 row["ci"] = [est.low, est.high]
             rows.append(row)
