@@ -103,6 +103,10 @@ CASES = [
         swap("multiplicity: holm", "multiplicity:\n  method: graphical\n  weights:\n"
              "    H1: 0.5\n    H4: 0.5\n"), "H4: 0.5", "multiplicity.weights.H4",
         ("'H4' is not one of the hypothesis ids (known: H1, H2, H3)",)),
+    Bad("graphical weight for an exploratory hypothesis",
+        swap("multiplicity: holm", "multiplicity:\n  method: graphical\n  weights:\n"
+             "    H1: 0.5\n    H3: 0.5\n"), "H3: 0.5", "multiplicity.weights.H3",
+        ("'H3' is exploratory, and exploratory hypotheses are outside the multiplicity family",)),
     Bad("graphical as a bare name", swap("multiplicity: holm", "multiplicity: graphical"),
         "multiplicity: graphical", "multiplicity", ("graphical takes a mapping",)),
     Bad("duplicate key", swap("alpha: 0.05\n", "alpha: 0.05\nalpha: 0.025\n"), "alpha: 0.025",

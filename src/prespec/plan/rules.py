@@ -126,17 +126,25 @@ def _outcome_issues(plan: Plan) -> Iterator[Issue]:
                                 "numbers, and a value cannot count as both")
 
 
+def _outside_family(hyp_id: str) -> str:
+    return (f"{show(hyp_id)} is exploratory, and exploratory hypotheses are outside the "
+            "multiplicity family; give it a role of primary or secondary, or leave it out")
+
+
 def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
     mult = plan.multiplicity
     if isinstance(mult, str):
         return
     ids = [h.id for h in plan.hypotheses]
+    exploratory = {h.id for h in plan.hypotheses if h.role == "exploratory"}
     base: KeyPath = ("multiplicity",)
     total = 0.0
     for hyp_id, weight in mult.weights.items():
         if hyp_id not in ids:
             yield Issue((*base, "weights", hyp_id), _not_in("the hypothesis ids", hyp_id, ids),
                         at_key=True)
+        elif hyp_id in exploratory:
+            yield Issue((*base, "weights", hyp_id), _outside_family(hyp_id), at_key=True)
         if not 0 <= weight <= 1:
             yield Issue((*base, "weights", hyp_id), f"a weight must be in [0, 1], found "
                         f"{show(weight)}")
@@ -148,6 +156,8 @@ def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
         path = (*base, "transitions", source)
         if source not in ids:
             yield Issue(path, _not_in("the hypothesis ids", source, ids), at_key=True)
+        elif source in exploratory:
+            yield Issue(path, _outside_family(source), at_key=True)
         for target, weight in row.items():
             if target == source:
                 yield Issue((*path, target), f"{show(source)} cannot pass weight to itself",
@@ -155,6 +165,8 @@ def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
             elif target not in ids:
                 yield Issue((*path, target), _not_in("the hypothesis ids", target, ids),
                             at_key=True)
+            elif target in exploratory:
+                yield Issue((*path, target), _outside_family(target), at_key=True)
             if not 0 <= weight <= 1:
                 yield Issue((*path, target), f"a transition weight must be in [0, 1], found "
                             f"{show(weight)}")
