@@ -57,7 +57,8 @@ def build_results(
         "created": audit.utc_now(),
         "actor": actor,
         "alpha": plan.alpha,
-        "multiplicity": plan.multiplicity,
+        "multiplicity": (plan.multiplicity if isinstance(plan.multiplicity, str)
+                         else plan.multiplicity.model_dump(mode="json")),
         "environment": environment,
         "population": {
             "rows_read": prepared.rows_read,
