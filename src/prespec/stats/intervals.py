@@ -8,7 +8,8 @@ from __future__ import annotations
 
 import math
 
-from scipy import stats
+import numpy as np
+from scipy import optimize, stats
 
 from prespec.stats import _checks
 from prespec.stats.results import Estimate
@@ -101,3 +102,146 @@ def newcombe_difference(x1: int, n1: int, x2: int, n2: int, level: float) -> Est
     low = difference - math.hypot(p1 - l1, u2 - p2)
     high = difference + math.hypot(u1 - p1, p2 - l2)
     return Estimate("risk-difference", difference, max(-1.0, low), min(1.0, high), "newcombe", lvl)
+
+
+def agresti_caffo_difference(x1: int, n1: int, x2: int, n2: int, level: float) -> Estimate:
+    """Agresti–Caffo interval for the risk difference p1 − p2, clipped to [−1, 1].
+
+    One event and one non-event are added to each group, p̃i = (xi + 1)/(ni + 2), and the Wald
+    interval is formed on the adjusted proportions: p̃1 − p̃2 ± z·sqrt(Σ p̃i(1 − p̃i)/(ni + 2)).
+    The reported value stays the observed difference x1/n1 − x2/n2. The interval is centred on
+    the adjusted difference, so at low confidence levels in very small groups it can exclude
+    the observed difference (0/1 vs 1/1 at 90 per cent: [−0.967, 0.300] against −1); from
+    95 per cent up it contains it.
+
+    References
+    ----------
+    Agresti A, Caffo B. Simple and effective confidence intervals for proportions and
+    differences of proportions result from adding two successes and two failures. The American
+    Statistician 2000;54:280–288.
+    """
+    x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
+    x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
+    lvl = _checks.level(level)
+    q1, q2 = (x1 + 1) / (n1 + 2), (x2 + 1) / (n2 + 2)
+    centre = ((x1 + 1) * (n2 + 2) - (x2 + 1) * (n1 + 2)) / ((n1 + 2) * (n2 + 2))
+    half = _critical(lvl) * math.sqrt(q1 * (1.0 - q1) / (n1 + 2) + q2 * (1.0 - q2) / (n2 + 2))
+    low = max(-1.0, centre - half)
+    high = min(1.0, centre + half)
+    return Estimate("risk-difference", _difference(x1, n1, x2, n2), low, high, "agresti-caffo", lvl)
+
+
+def difference_constrained_mle(
+    x1: int, n1: int, x2: int, n2: int, delta: float
+) -> tuple[float, float]:
+    """Maximum likelihood estimates (p̃1, p̃2) of two binomial proportions with p1 − p2 = delta.
+
+    The closed form of Farrington and Manning (1990, section 2; also Miettinen and Nurminen
+    1985): p̃1 is the root in the admissible range of the cubic a p³ + b p² + c p + d = 0 with
+    θ = n2/n1, a = 1 + θ, b = −(1 + θ + p̂1 + θp̂2 + δ(θ + 2)),
+    c = δ² + δ(2p̂1 + θ + 1) + p̂1 + θp̂2 and d = −p̂1δ(1 + δ), taken by the trigonometric
+    solution; p̃2 = p̃1 − δ. The log-likelihood is strictly concave in p2 on the admissible
+    interval max(0, −δ) <= p2 <= min(1, 1 − δ), so the root is its unique maximiser; it is
+    clipped into that interval against rounding. delta must lie in [−1, 1].
+
+    References
+    ----------
+    Farrington CP, Manning G. Test statistics and sample size formulae for comparative
+    binomial trials with null hypothesis of non-zero risk difference or non-unity relative
+    risk. Statistics in Medicine 1990;9:1447–1454.
+    Miettinen O, Nurminen M. Comparative analysis of two rates. Statistics in Medicine
+    1985;4:213–226.
+    """
+    if delta <= -1.0:
+        return 0.0, 1.0
+    if delta >= 1.0:
+        return 1.0, 0.0
+    p1, p2 = x1 / n1, x2 / n2
+    theta = n2 / n1
+    a = 1.0 + theta
+    b = -(1.0 + theta + p1 + theta * p2 + delta * (theta + 2.0))
+    c = delta * delta + delta * (2.0 * p1 + theta + 1.0) + p1 + theta * p2
+    d = -p1 * delta * (1.0 + delta)
+    shift = b / (3.0 * a)
+    v = shift**3 - b * c / (6.0 * a * a) + d / (2.0 * a)
+    radicand = max(0.0, shift * shift - c / (3.0 * a))
+    u = math.copysign(math.sqrt(radicand), v)
+    if u == 0.0:
+        root = -shift  # a triple root: the depressed cubic is t³ = 0
+    else:
+        cosine = min(1.0, max(-1.0, v / u**3))
+        root = 2.0 * u * math.cos((math.pi + math.acos(cosine)) / 3.0) - shift
+    root = min(min(1.0, 1.0 + delta), max(max(0.0, delta), root))
+    return root, min(1.0, max(0.0, root - delta))
+
+
+def _mn_difference_share(x1: int, n1: int, x2: int, n2: int, delta: float) -> float:
+    """Z/sqrt(1 + Z²) for the Miettinen–Nurminen score statistic Z at p1 − p2 = delta.
+
+    Z = (p̂1 − p̂2 − δ)/sqrt(V), V = (p̃1(1 − p̃1)/n1 + p̃2(1 − p̃2)/n2)·N/(N − 1). The bounded
+    form (d̂ − δ)/sqrt((d̂ − δ)² + V) is finite and continuous on all of [−1, 1], including
+    δ = −1 and δ = 1 where V = 0; at the single point where numerator and V are both 0 (δ = d̂
+    with each p̂ equal to 0 or 1) it is 0, its limit.
+    """
+    numerator = _difference(x1, n1, x2, n2) - delta
+    t1, t2 = difference_constrained_mle(x1, n1, x2, n2, delta)
+    total = n1 + n2
+    variance = (t1 * (1.0 - t1) / n1 + t2 * (1.0 - t2) / n2) * total / (total - 1)
+    denominator = math.sqrt(numerator * numerator + variance)
+    return 0.0 if denominator == 0.0 else numerator / denominator
+
+
+def _mn_difference_lower(x1: int, n1: int, x2: int, n2: int, share: float) -> float:
+    """Lower Miettinen–Nurminen limit: the δ in [−1, d̂] where Z(δ) = z, i.e. the share is
+    z/sqrt(1 + z²).
+
+    The bracket [−1, d̂] is valid: at δ = −1 the constrained estimates are (0, 1), V = 0 and
+    the share is exactly 1 > target whenever d̂ > −1; at δ = d̂ the numerator is 0 and the share
+    0 < target. The share is continuous in δ (the constrained estimates are), so brentq finds
+    the crossing. At d̂ = −1 the limit is −1.
+    """
+    estimate = _difference(x1, n1, x2, n2)
+    if estimate <= -1.0:
+        return -1.0
+    return float(
+        optimize.brentq(
+            lambda delta: _mn_difference_share(x1, n1, x2, n2, delta) - share,
+            -1.0,
+            estimate,
+            xtol=1e-15,
+            rtol=4 * np.finfo(float).eps,
+            maxiter=500,
+        )
+    )
+
+
+def miettinen_nurminen_difference(x1: int, n1: int, x2: int, n2: int, level: float) -> Estimate:
+    """Miettinen–Nurminen score interval for the risk difference p1 − p2.
+
+    The interval is the set of δ with |Z(δ)| <= z, where
+    Z(δ) = (p̂1 − p̂2 − δ)/sqrt((p̃1(1 − p̃1)/n1 + p̃2(1 − p̃2)/n2)·N/(N − 1)), N = n1 + n2, and
+    (p̃1, p̃2) are the maximum likelihood estimates under p1 − p2 = δ in closed form
+    (:func:`difference_constrained_mle`). Each limit is found by brentq on a bracket proved to
+    hold a sign change (see ``_mn_difference_lower``); the upper limit is minus the lower limit
+    of the swapped table, so swapping the groups mirrors the interval exactly. The limits can
+    be exactly −1 or 1 (0/n1 vs all events, and the reverse).
+
+    References
+    ----------
+    Miettinen O, Nurminen M. Comparative analysis of two rates. Statistics in Medicine
+    1985;4:213–226.
+    Newcombe RG. Interval estimation for the difference between independent proportions:
+    comparison of eleven methods. Statistics in Medicine 1998;17:873–890 (method 6).
+    Farrington CP, Manning G. Statistics in Medicine 1990;9:1447–1454 (the constrained
+    estimates).
+    """
+    x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
+    x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
+    lvl = _checks.level(level)
+    z = _critical(lvl)
+    share = z / math.sqrt(1.0 + z * z)
+    low = _mn_difference_lower(x1, n1, x2, n2, share)
+    high = -_mn_difference_lower(x2, n2, x1, n1, share)
+    return Estimate(
+        "risk-difference", _difference(x1, n1, x2, n2), low, high, "miettinen-nurminen", lvl
+    )

@@ -29,7 +29,12 @@ class TestResult:
 
 @dataclass(frozen=True)
 class Estimate:
-    """A point estimate with its confidence interval ``[low, high]`` at ``level``."""
+    """A point estimate with its confidence interval ``[low, high]`` at ``level``.
+
+    ``high`` may be ``inf`` (an unbounded upper limit, e.g. a ratio with no events in the second
+    group) and ``value`` may be ``nan`` or ``inf`` where the estimate is undefined or unbounded.
+    ``note`` says how the data were adjusted, if they were (e.g. 0.5 added to every cell).
+    """
 
     measure: str
     value: float
@@ -37,3 +42,4 @@ class Estimate:
     high: float
     method: str
     level: float
+    note: str | None = None
