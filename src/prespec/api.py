@@ -6,8 +6,10 @@ Every function takes paths and plain values, returns a small result, and raises 
 
 from __future__ import annotations
 
+import copy
 import getpass
 import os
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,16 +21,19 @@ from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
 from .execute import check_out_folder, compute_results, default_folder
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
-from .publish import RunOutcome, publish
+from .publish import RunOutcome, complete_interrupted, publish
 
 __all__ = [
     "CheckResult",
     "LockResult",
     "VerifyResult",
     "amend",
+    "apply_overrides",
     "check",
     "demo",
+    "history",
     "lock",
+    "new_key",
     "resolve_actor",
     "run",
     "schema",
@@ -105,7 +110,9 @@ def _version_record(loaded: LoadedPlan, version: int, previous: str | None, reas
 
 
 def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[str, Any],
-                   action: str, actor: str, deviations: list[dict[str, Any]]) -> None:
+                   action: str, actor: str, deviations: list[dict[str, Any]],
+                   sign: audit.log.Signer | None = None,
+                   changes: list[str] | None = None) -> None:
     """Write the lock, then the log entry; restore the old lock if the log cannot be written."""
     plan_path = loaded.path
     lock_file = audit.lock_path(plan_path)
@@ -122,8 +129,10 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
             plan=record["fingerprint"],
             data=None,
             details={"version": record["version"], "plan_file_sha256": record["plan_file_sha256"],
-                     "reason": record["reason"], "record": version_digest(record)},
+                     "reason": record["reason"], "record": version_digest(record),
+                     **({"changes": changes} if changes is not None else {})},
             deviations=deviations,
+            sign=sign,
         )
     except BaseException:
         if before is None:
@@ -133,8 +142,21 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
         raise
 
 
-def lock(plan: str | Path, *, actor: str | None = None) -> LockResult:
-    """Resolve the plan, write the lock and a ``lock`` entry; a no-op if already locked."""
+def _signer(sign: str | Path | None) -> audit.log.Signer | None:
+    if sign is None:
+        return None
+    from .signing import signer
+
+    return signer(sign)
+
+
+def lock(plan: str | Path, *, actor: str | None = None,
+         sign: str | Path | None = None) -> LockResult:
+    """Resolve the plan, write the lock and a ``lock`` entry; a no-op if already locked.
+
+    ``sign``: a private key file (``prespec key new``) that signs the entry.
+    """
+    signer = _signer(sign)
     loaded = load_plan(Path(plan))
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is not None:
@@ -151,14 +173,22 @@ def lock(plan: str | Path, *, actor: str | None = None) -> LockResult:
         )
     actor = resolve_actor(actor)
     record = _version_record(loaded, 1, None, None, actor)
-    _write_version(loaded, None, record, "lock", actor, [])
+    _write_version(loaded, None, record, "lock", actor, [], signer)
     return LockResult(loaded.fingerprint, 1, True)
 
 
-def amend(plan: str | Path, *, reason: str, actor: str | None = None) -> LockResult:
-    """Lock a changed plan as the next version, chained to the previous one."""
+def amend(plan: str | Path, *, reason: str, actor: str | None = None,
+          sign: str | Path | None = None) -> LockResult:
+    """Lock a changed plan as the next version, chained to the previous one.
+
+    The entry lists what changed in meaning (as ``prespec history`` shows it); an amendment
+    after a run on the data is recorded as ``amended-after-unblinding``.
+    """
+    from .history import plan_changes
+
     if not reason or not reason.strip():
         raise BadInput("amend: --reason must say why the plan changed")
+    signer = _signer(sign)
     loaded = load_plan(Path(plan))
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is None:
@@ -179,7 +209,8 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None) -> LockRes
             "no amendment after a run",
             f"amendment to version {version}",
         ).to_json())
-    _write_version(loaded, doc, record, "amend", actor, deviations)
+    changes = [str(c) for c in plan_changes(last["plan"], loaded.resolved)]
+    _write_version(loaded, doc, record, "amend", actor, deviations, signer, changes)
     return LockResult(loaded.fingerprint, version, True)
 
 
@@ -223,9 +254,106 @@ def _plan_in_force(loaded: LoadedPlan, accept: str | None) -> tuple[Any, str, in
     return model, last["fingerprint"], int(last["version"]), deviations, notes, last
 
 
+def _hypothesis_index(resolved: dict[str, Any], ident: str, key: str) -> int:
+    ids = [h.get("id") for h in resolved.get("hypotheses", [])]
+    if ident not in ids:
+        raise BadInput(f"{key}: the plan has no hypothesis {ident!r} (it has: "
+                       f"{', '.join(str(i) for i in ids)})")
+    return ids.index(ident)
+
+
+def apply_overrides(resolved: dict[str, Any], overrides: Mapping[str, Any]
+                    ) -> tuple[dict[str, Any], list[dict[str, Any]]]:
+    """The resolved plan with ``overrides`` applied, and the keys whose value changed.
+
+    Keys are ``alpha``, ``multiplicity`` and ``hypotheses.<id>.<key>`` (e.g.
+    ``hypotheses.H1.test``). A value equal to the locked one changes nothing and is not
+    listed. Each change is ``{"key", "locked", "used"}``. A hypothesis's ``sparse`` switch to
+    the very test now used no longer applies: it is removed, and listed as a change too.
+    """
+    plan = copy.deepcopy(resolved)
+    changed: list[dict[str, Any]] = []
+    for key, value in overrides.items():
+        parts = key.split(".")
+        if parts[0] == "hypotheses" and len(parts) == 3:
+            target = plan["hypotheses"][_hypothesis_index(plan, parts[1], key)]
+            name = parts[2]
+            if name == "id":
+                raise BadInput(f"{key}: a hypothesis id cannot be overridden")
+        elif len(parts) == 1 and parts[0] in ("alpha", "multiplicity"):
+            target, name = plan, parts[0]
+        else:
+            raise BadInput(f"{key}: not a key that can be overridden (alpha, multiplicity, "
+                           "hypotheses.<id>.<key>)")
+        locked = target.get(name)
+        if locked == value and type(locked) is type(value):
+            continue
+        target[name] = value
+        changed.append({"key": key, "locked": locked, "used": value})
+        sparse = target.get("sparse") if name == "test" else None
+        if isinstance(sparse, dict) and sparse.get("test") == value:
+            # the pre-specified switch would switch to the test now used: it no longer applies
+            target["sparse"] = None
+            changed.append({"key": key.rsplit(".", 1)[0] + ".sparse", "locked": sparse,
+                            "used": None})
+    return plan, changed
+
+
+def _affected(hypothesis: dict[str, Any], changes: list[dict[str, Any]]) -> bool:
+    """Whether an override reaches this hypothesis's result."""
+    hid = str(hypothesis.get("id"))
+    for change in changes:
+        key = change["key"]
+        if key.startswith("hypotheses."):
+            owner = key.split(".")[1]
+            if hid == owner or hid.startswith(owner + ":"):
+                return True
+        elif key == "multiplicity":
+            if hypothesis.get("role") != "exploratory":
+                return True
+        else:  # alpha: every decision and interval level
+            return True
+    return False
+
+
+def mark_overrides(results: dict[str, Any], changes: list[dict[str, Any]]) -> None:
+    """Add ``overrides`` and each hypothesis's ``pre_specified`` to a results document."""
+    results["overrides"] = [dict(c) for c in changes]
+    for hyp in results["hypotheses"]:
+        hyp["pre_specified"] = not _affected(hyp, changes)
+
+
+def _show(value: Any) -> str:
+    from .history import show
+
+    return show(value)
+
+
+def _override_departures(changes: list[dict[str, Any]], accept: str | None) -> list[Departure]:
+    if not changes:
+        return []
+    if accept is None:
+        listed = ", ".join(f"{c['key']} {_show(c['locked'])} → {_show(c['used'])}"
+                           for c in changes)
+        raise IntegrityStop(
+            f"the command line changes the locked analysis ({listed}); give "
+            "--accept-deviation \"REASON\" to run it, recorded as override and marked as not "
+            "pre-specified"
+        )
+    return [Departure("override", f"{c['key']}: {_show(c['locked'])} as locked, "
+                      f"{_show(c['used'])} used (set on the command line; not pre-specified)",
+                      _show(c["locked"]), _show(c["used"]), accepted=accept) for c in changes]
+
+
 def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
-        actor: str | None = None, accept_deviation: str | None = None) -> RunOutcome:
-    """Run the locked plan on ``data``; write the report folder and the ``run`` entry."""
+        actor: str | None = None, accept_deviation: str | None = None,
+        overrides: Mapping[str, Any] | None = None) -> RunOutcome:
+    """Run the locked plan on ``data``; write the report folder and the ``run`` entry.
+
+    ``overrides`` (``{"alpha": 0.025, "hypotheses.H1.test": "fisher-exact"}``) change the
+    locked analysis for this run only; each change is an ``override`` departure and needs
+    ``accept_deviation``. The fingerprint recorded stays the locked one.
+    """
     if accept_deviation is not None and not accept_deviation.strip():
         raise BadInput("--accept-deviation needs a reason")
     loaded = load_plan(Path(plan))
@@ -236,7 +364,15 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
     entries = audit.read_log(log)
     audit.check_chain(entries, log.name)
     audit.check_head(entries, head)
+    complete_interrupted(loaded.path, entries)
     model, fp, version, deviations, notes, record = _plan_in_force(loaded, accept_deviation)
+    changes: list[dict[str, Any]] = []
+    if overrides:
+        base = record["plan"] if record is not None else loaded.resolved
+        changed_plan, changes = apply_overrides(base, overrides)
+        deviations.extend(_override_departures(changes, accept_deviation))
+        if changes:
+            model = plan_from_resolved(changed_plan, source="command line")
     env = environment()
     if record is not None:
         diffs = differences(record.get("environment") or {}, env)
@@ -255,26 +391,68 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
     runs = [e for e in entries if e.get("action") == "run"]
     out_path = Path(out) if out is not None else default_folder(loaded.path, "run")
     if out is not None:
-        check_out_folder(out_path)  # before the work; the default location is numbered instead
+        check_out_path(loaded.path, out_path)  # before the work; the default is numbered
     results = compute_results(
         plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
         data_path=data_path, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes,
         previous_data=runs[-1].get("data") if runs else None,
     )
+    mark_overrides(results, changes)
     return publish(loaded.path, out_path, results, numbered=out is None)
+
+
+def check_out_path(plan_path: Path, out: Path) -> None:
+    """``--out`` must be a new or empty plain folder: no link, not a file. Outside the plan's
+    folder it must sit in an existing folder the user can write (no parents are made there)."""
+    check_out_folder(out)
+    if out.is_symlink():
+        raise BadInput(f"{out}: is a symbolic link; give a plain folder")
+    here = plan_path.parent.resolve()
+    target = out.parent.resolve() / out.name
+    inside = here in target.parents
+    parent = out.parent
+    if not inside:
+        if not parent.is_dir() or parent.is_symlink():
+            raise BadInput(f"{out}: outside the plan's folder, the report folder must go into "
+                           "an existing plain folder")
+        if not os.access(parent, os.W_OK | os.X_OK):
+            raise BadInput(f"{out}: cannot write into {parent}")
 
 
 @dataclass
 class VerifyResult:
     passed: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
 
 
-def verify(plan: str | Path, *, expect: str | None = None) -> VerifyResult:
-    """Check the lock, the log and every report the log names, from the files alone."""
+def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,
+           report: str | None = None, key: str | Path | None = None) -> VerifyResult:
+    """Check the lock, the log and every report the log names, from the files alone.
+
+    ``expect``: the fingerprint registered elsewhere at lock time. ``rerun``: a data file;
+    every run report made from it (or only ``report``) is recomputed and must be identical.
+    ``key``: a public key file; every lock and amend entry must carry its valid signature.
+    """
     from .verify import verify_all
 
-    return verify_all(Path(plan), expect=expect)
+    return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
+                      report=report, key=Path(key) if key else None)
+
+
+def history(plan: str | Path, *, from_version: int | None = None,
+            to_version: int | None = None) -> Any:
+    """The locked versions of a plan and the changes in meaning between two of them."""
+    from .history import history as _history
+
+    return _history(plan, from_version=from_version, to_version=to_version)
+
+
+def new_key(name: str | Path) -> Any:
+    """Write an Ed25519 key pair ``NAME.key`` (mode 0600) and ``NAME.pub``."""
+    from .signing import new_key as _new_key
+
+    return _new_key(name)
 
 
 def demo(folder: str | Path = "prespec-demo", *, actor: str | None = None) -> Path:

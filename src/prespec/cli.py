@@ -7,9 +7,10 @@ import json
 import os
 import sys
 from collections.abc import Sequence
+from typing import Any
 
 from . import __version__, api
-from .errors import PrespecError
+from .errors import BadInput, PrespecError
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -31,22 +32,83 @@ def _parser() -> argparse.ArgumentParser:
     add("schema", "print the JSON Schema of the plan format")
     c = add("lock", "resolve defaults and lock the plan before unblinding", writes=True)
     c.add_argument("plan")
+    c.add_argument("--sign", metavar="KEY", help="sign the lock entry with this private key")
     c = add("amend", "lock a changed plan as the next version", writes=True)
     c.add_argument("plan")
     c.add_argument("--reason", required=True, help="why the plan changed")
+    c.add_argument("--sign", metavar="KEY", help="sign the amend entry with this private key")
+    c = add("history", "list the locked versions and what changed in meaning between two")
+    c.add_argument("plan")
+    c.add_argument("--from", dest="from_version", type=int, metavar="N",
+                   help="the earlier version (default: the one before --to)")
+    c.add_argument("--to", dest="to_version", type=int, metavar="N",
+                   help="the later version (default: the latest)")
+    c = add("key", "make a key pair for signing lock and amend entries")
+    c.add_argument("action", choices=["new"])
+    c.add_argument("name", help="writes NAME.key (private, mode 0600) and NAME.pub")
     c = add("run", "run the locked plan on the data and write a report folder", writes=True)
     c.add_argument("plan")
     c.add_argument("data")
     c.add_argument("--out", help="the report folder to create (must not exist or be empty)")
     c.add_argument("--accept-deviation", metavar="REASON",
-                   help="run despite a missing or changed lock, recording REASON")
+                   help="run despite a missing or changed lock or an override, recording REASON")
+    c.add_argument("--alpha", type=_number, metavar="X",
+                   help="override the locked alpha (a departure: needs --accept-deviation)")
+    c.add_argument("--test", action="append", default=[], metavar="ID=NAME",
+                   help="override a hypothesis's locked test (repeatable; a departure)")
+    c.add_argument("--multiplicity", metavar="NAME",
+                   help="override the locked multiplicity method (a departure)")
     c = add("verify", "check the lock, the audit log and every report, from the files alone")
     c.add_argument("plan")
     c.add_argument("--expect", metavar="FINGERPRINT",
                    help="the fingerprint registered elsewhere at lock time")
+    c.add_argument("--rerun", metavar="DATA",
+                   help="recompute every run report made from DATA and compare its results")
+    c.add_argument("--report", metavar="FOLDER",
+                   help="with --rerun: only this report (as the log names it)")
+    c.add_argument("--key", metavar="PUBLIC",
+                   help="require every lock and amend entry to be signed by this public key")
     c = add("demo", "write, lock and run an invented demonstration study", writes=True)
     c.add_argument("dir", nargs="?", default="prespec-demo")
     return p
+
+
+def _number(text: str) -> float:
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a number: {text!r}") from None
+
+
+def _overrides(args: argparse.Namespace) -> dict[str, object]:
+    out: dict[str, object] = {}
+    if args.alpha is not None:
+        out["alpha"] = args.alpha
+    if args.multiplicity is not None:
+        out["multiplicity"] = args.multiplicity
+    for item in args.test:
+        ident, sep, name = item.partition("=")
+        if not sep or not ident.strip() or not name.strip():
+            raise BadInput(f"--test {item}: give ID=NAME, e.g. --test H1=fisher-exact")
+        out[f"hypotheses.{ident.strip()}.test"] = name.strip()
+    return out
+
+
+def _print_history(res: Any) -> None:
+    for v in res.versions:
+        flag = "  [amended after unblinding]" if v.after_unblinding else ""
+        reason = f"  reason: {v.reason}" if v.reason else ""
+        print(f"version {v.version}  {v.at}  {v.actor}  {v.fingerprint}{flag}")
+        if reason:
+            print(f"   {reason.strip()}")
+    if res.from_version is None:
+        print("one version; nothing to compare")
+        return
+    print(f"changes in meaning from version {res.from_version} to {res.to_version}:")
+    if not res.changes:
+        print("  none")
+    for change in res.changes:
+        print(f"  {change}")
 
 
 def _dispatch(args: argparse.Namespace) -> int:
@@ -58,7 +120,7 @@ def _dispatch(args: argparse.Namespace) -> int:
     elif args.command == "schema":
         print(json.dumps(api.schema(), indent=2))
     elif args.command == "lock":
-        res = api.lock(args.plan, actor=args.actor)
+        res = api.lock(args.plan, actor=args.actor, sign=args.sign)
         if res.created:
             print(f"locked {args.plan} as version {res.version}")
             print(f"fingerprint: {res.fingerprint}")
@@ -73,7 +135,7 @@ def _dispatch(args: argparse.Namespace) -> int:
                 print(f"note: {res.note}")
             print(f"fingerprint: {res.fingerprint}")
     elif args.command == "amend":
-        res = api.amend(args.plan, reason=args.reason, actor=args.actor)
+        res = api.amend(args.plan, reason=args.reason, actor=args.actor, sign=args.sign)
         if res.created:
             print(f"amended {args.plan}: locked as version {res.version}")
         else:
@@ -81,7 +143,7 @@ def _dispatch(args: argparse.Namespace) -> int:
         print(f"fingerprint: {res.fingerprint}")
     elif args.command == "run":
         out = api.run(args.plan, args.data, out=args.out, actor=args.actor,
-                      accept_deviation=args.accept_deviation)
+                      accept_deviation=args.accept_deviation, overrides=_overrides(args))
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
         for hyp in out.results["hypotheses"]:
@@ -90,13 +152,27 @@ def _dispatch(args: argparse.Namespace) -> int:
             decision = ("exploratory" if hyp["role"] == "exploratory" else
                         "reject H0" if hyp["reject"] else
                         "do not reject H0" if hyp["reject"] is not None else "no decision")
-            print(f"{hyp['id']}: {hyp['test']}, {shown}, {decision}")
+            flag = "" if hyp.get("pre_specified", True) else " (not pre-specified: override)"
+            print(f"{hyp['id']}: {hyp['test']}, {shown}, {decision}{flag}")
         print(out.folder)
     elif args.command == "verify":
-        res = api.verify(args.plan, expect=args.expect)
+        if args.report is not None and args.rerun is None:
+            raise BadInput("--report goes with --rerun DATA")
+        res = api.verify(args.plan, expect=args.expect, rerun=args.rerun, report=args.report,
+                         key=args.key)
         for line in res.passed:
             print(f"ok    {line}")
+        for line in res.notes:
+            print(f"note  {line}")
         print("verified: the analysis that ran is the one that was locked")
+    elif args.command == "history":
+        _print_history(api.history(args.plan, from_version=args.from_version,
+                                   to_version=args.to_version))
+    elif args.command == "key":
+        made = api.new_key(args.name)
+        print(f"private key: {made.private} (mode 0600; keep it away from the study folder)")
+        print(f"public key:  {made.public} (give it to whoever verifies)")
+        print(f"key id: {made.key_id}")
     elif args.command == "demo":
         html = api.demo(args.dir, actor=args.actor)
         print(html)
@@ -114,6 +190,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     except PrespecError as exc:
         for line in getattr(exc, "passed", []):
             print(f"ok    {line}")
+        for line in getattr(exc, "notes", []):
+            print(f"note  {line}")
         if getattr(exc, "passed", None) is not None and args.command == "verify":
             print(f"FAIL  {exc}")
         print(f"prespec: {exc}", file=sys.stderr)

@@ -79,16 +79,24 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
                 w.writerow([g, e, n - e, n, ee, en])
 
 
-def write_report(folder: Path, results: dict[str, Any], *, render: bool = True) -> str:
-    """Write the whole report into a temporary folder, rename it to ``folder``; the manifest hash.
+PARTIAL = ".partial-"
 
-    Nothing is left behind when any step fails: the temporary folder is removed and
-    ``folder`` is untouched.
+
+def partial_prefix(folder: Path) -> str:
+    """The name prefix of the temporary folders in which the report for ``folder`` is built."""
+    return f".{folder.name}{PARTIAL}"
+
+
+def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
+                 ) -> tuple[Path, str]:
+    """Write the whole report into a temporary folder beside ``folder``: (it, the manifest hash).
+
+    Nothing is left behind when any step fails: the temporary folder is removed.
     """
     from .report import render_notebook, write_figures  # heavy imports, only when reporting
 
     folder.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}.partial-", dir=folder.parent))
+    tmp = Path(tempfile.mkdtemp(prefix=partial_prefix(folder), dir=folder.parent))
     tmp.chmod(0o755)  # mkdtemp makes it private; a report folder is an ordinary folder
     try:
         text = json.dumps(results, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
@@ -98,24 +106,44 @@ def write_report(folder: Path, results: dict[str, Any], *, render: bool = True) 
         if render:
             render_notebook(tmp)
         manifest = write_manifest(tmp)
-        os.replace(tmp, folder)  # over the empty folder reserved for this run
-        audit.files.fsync_dir(folder.parent)
+        audit.files.fsync_dir(tmp)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    return manifest
+    return tmp, manifest
+
+
+def move_into_place(tmp: Path, folder: Path, manifest: str | None = None) -> None:
+    """Rename the complete report over its reserved, empty folder (POSIX rename allows it).
+
+    With ``manifest``, a temporary folder already moved by another process (see
+    :func:`complete_interrupted`) is accepted when the folder holds that manifest.
+    """
+    from .canonical import file_sha256
+
+    try:
+        os.replace(tmp, folder)
+    except FileNotFoundError:
+        done = folder / "manifest.json"
+        if manifest is None or not done.is_file() or file_sha256(done) != manifest:
+            raise
+    audit.files.fsync_dir(folder.parent)
 
 
 def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bool,
             action: str = "run") -> RunOutcome:
-    """Write the report folder atomically, then append its log entry.
+    """Build the report under a temporary name, append its log entry, then move it into place.
 
-    If the entry cannot be appended the folder is removed: a report the log does not name
-    must not survive.
+    The log entry is the moment the run counts. Before it, a failure removes everything
+    (the temporary folder and the reserved name). After it, the only step left is one rename;
+    if a run is stopped there (killed, power cut), the log names a reserved empty folder and
+    the complete report waits beside it under its temporary name: ``verify`` checks it there,
+    and the next run on the plan moves it into place (:func:`complete_interrupted`). So no
+    report folder ever holds files unless it is complete and named by the log.
     """
     folder, created = reserve_folder(out, numbered=numbered)
     try:
-        manifest = write_report(folder, results)
+        tmp, manifest = build_report(folder, results)
     except BaseException:
         if created:
             shutil.rmtree(folder, ignore_errors=True)
@@ -133,8 +161,62 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
             deviations=results["deviations"],
         )
     except BaseException:
-        shutil.rmtree(folder, ignore_errors=True)
-        if not created:
-            folder.mkdir(exist_ok=True)  # leave a user's empty --out folder as it was
+        shutil.rmtree(tmp, ignore_errors=True)
+        if created:
+            shutil.rmtree(folder, ignore_errors=True)
         raise
+    move_into_place(tmp, folder, manifest)
     return RunOutcome(folder, results, entry)
+
+
+@dataclass(frozen=True)
+class Pending:
+    """A report the log names whose complete files still wait under their temporary name."""
+
+    entry: dict[str, Any]
+    folder: Path
+    partial: Path
+
+
+def pending_report(plan_path: Path, entry: dict[str, Any]) -> Pending | None:
+    """The temporary folder holding the report of ``entry`` if the run stopped before its
+    rename: the named folder is empty (or absent) and exactly one temporary sibling has the
+    manifest the log recorded."""
+    from .canonical import file_sha256
+
+    details = entry.get("details")
+    if not isinstance(details, dict) or not isinstance(details.get("report"), str):
+        return None
+    folder = plan_path.parent / details["report"]
+    if folder.is_dir() and any(folder.iterdir()) or folder.is_symlink():
+        return None
+    if folder.exists() and not folder.is_dir():
+        return None
+    parent = folder.parent
+    if not parent.is_dir():
+        return None
+    matches = [p for p in parent.iterdir()
+               if p.name.startswith(partial_prefix(folder)) and p.is_dir()
+               and not p.is_symlink() and (p / "manifest.json").is_file()
+               and file_sha256(p / "manifest.json") == details.get("manifest")]
+    return Pending(entry, folder, matches[0]) if len(matches) == 1 else None
+
+
+def complete_interrupted(plan_path: Path, entries: list[dict[str, Any]]) -> list[Path]:
+    """Move into place every report whose run stopped between its log entry and its rename;
+    the folders completed. Safe to run by several processes at once (one rename wins)."""
+    done = []
+    for entry in entries:
+        if entry.get("action") not in ("run", "rehearse"):
+            continue
+        pending = pending_report(plan_path, entry)
+        if pending is None:
+            continue
+        try:
+            if not pending.folder.exists():
+                pending.folder.mkdir()
+            move_into_place(pending.partial, pending.folder, pending.entry["details"]["manifest"])
+        except OSError:  # another process got there first
+            continue
+        done.append(pending.folder)
+    return done

@@ -1,33 +1,38 @@
 """``prespec verify``: re-derive every hash from the files alone and trust nothing stored.
 
 The order of the checks follows SPEC.md, "What verify checks"; the first failure stops
-with exit status 3 and names what does not match.
+with exit status 3 and names what does not match. Things that are not failures but that a
+monitor should know of (a run stopped before its last rename, temporary folders left by a
+killed run) are returned as notes.
 """
 
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 from typing import Any
 
 from . import audit
-from .api import VerifyResult, version_digest
+from .api import VerifyResult, apply_overrides, mark_overrides, version_digest
 from .canonical import file_sha256
 from .errors import IntegrityStop, PrespecError
 from .manifest import check_manifest
-from .plan import fingerprint, load_plan
+from .plan import fingerprint, load_plan, plan_from_resolved
+from .publish import PARTIAL, pending_report
 
 
 class VerifyFailure(IntegrityStop):
     """A failed check, carrying the checks that passed before it."""
 
-    def __init__(self, message: str, passed: list[str]) -> None:
+    def __init__(self, message: str, passed: list[str], notes: list[str] | None = None) -> None:
         super().__init__(message)
         self.passed = passed
+        self.notes = notes or []
 
 
 def _fail(result: VerifyResult, message: str) -> VerifyFailure:
-    return VerifyFailure(message, list(result.passed))
+    return VerifyFailure(message, list(result.passed), list(result.notes))
 
 
 def _version_of(entry: dict[str, Any]) -> int | None:
@@ -42,14 +47,45 @@ def _check_log(plan: Path, result: VerifyResult) -> list[dict[str, Any]]:
     try:
         entries = audit.read_log(log)
         audit.check_chain(entries, log.name)
-        audit.check_head(entries, head)
+        note = audit.check_head(entries, head)
     except IntegrityStop as exc:
         raise _fail(result, str(exc)) from None
     if log.exists() or head.exists():
         result.passed.append(
             f"audit log: {len(entries)} entries, sequence, links and hashes intact; head matches"
-        )
+            + (" the entry before the last" if note else ""))
+    if note:
+        result.notes.append(f"{head.name}: {note}; the next entry brings it up to date")
     return entries
+
+
+def _check_signatures(entries: list[dict[str, Any]], key: Path | None,
+                      result: VerifyResult) -> None:
+    signed = [e for e in entries if audit.log.SIGNATURE_KEY in e]
+    if key is None and not signed:
+        return
+    from .signing import key_id, load_public, signature_problem
+
+    try:
+        public = load_public(key) if key is not None else None
+    except PrespecError as exc:
+        raise _fail(result, str(exc)) from None
+    for entry in entries:
+        if key is None and audit.log.SIGNATURE_KEY not in entry:
+            continue
+        if entry["action"] not in audit.log.SIGNED_ACTIONS:
+            continue
+        problem = signature_problem(entry, public)
+        if problem:
+            raise _fail(result, f"log entry {entry['seq']} ({entry['action']}, version "
+                        f"{_version_of(entry)}): {problem}")
+    count = sum(1 for e in entries if e["action"] in audit.log.SIGNED_ACTIONS)
+    if public is not None:
+        result.passed.append(f"signatures: all {count} lock/amend entries signed by "
+                             f"{key_id(public)}")
+    else:
+        result.passed.append(f"signatures: {len(signed)} signed entries hold valid signatures "
+                             "(give --key to require the signer)")
 
 
 def _check_lock(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
@@ -81,15 +117,22 @@ def _check_lock(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
                   and _version_of(e) == index]
         if not logged:
             raise _fail(result, f"{where}: the log has no {action} entry for {derived}")
+        if len(logged) > 1:
+            raise _fail(result, f"{where}: the log has {len(logged)} {action} entries for it")
         if logged[0]["details"].get("record") != version_digest(version):
             raise _fail(result, f"{where}: differs from the version its {action} entry recorded "
                         "(the lock was edited)")
         previous = derived
-    extra = [e for e in entries if e["action"] in ("lock", "amend")
-             and (_version_of(e) or 0) > len(doc["versions"])]
-    if extra:
-        raise _fail(result, f"{name}: the log records version {_version_of(extra[0])}, "
-                    "the lock does not (a version was removed)")
+    for entry in entries:
+        if entry["action"] not in ("lock", "amend"):
+            continue
+        number = _version_of(entry)
+        if number is None or number > len(doc["versions"]):
+            raise _fail(result, f"{name}: the log records version {number}, the lock does not "
+                        "(a version was removed)")
+        if (number == 1) != (entry["action"] == "lock"):
+            raise _fail(result, f"log entry {entry['seq']}: a {entry['action']} entry for "
+                        f"version {number}")
     result.passed.append(f"lock: {len(doc['versions'])} version(s), fingerprints and links intact, "
                          "each recorded in the log")
     return doc
@@ -118,27 +161,47 @@ def _check_plan_file(plan: Path, doc: dict[str, Any], entries: list[dict[str, An
     result.passed.append("plan file: differs from its lock, recorded as an accepted departure")
 
 
-def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResult) -> None:
-    count = 0
+def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult) -> tuple[Path, str]:
+    """The folder holding the files of the report ``entry`` names, and its relative path."""
+    where = f"log entry {entry['seq']} ({entry['action']})"
+    details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
+    rel = details.get("report")
+    if not isinstance(rel, str) or not rel or Path(rel).is_absolute():
+        raise _fail(result, f"{where}: no relative report path")
+    folder = plan.parent / rel
+    if folder.is_dir() and not folder.is_symlink() and any(folder.iterdir()):
+        return folder, rel
+    pending = pending_report(plan, entry)
+    if pending is not None:
+        result.notes.append(
+            f"report {rel}: complete, but its run stopped before moving it into place; its "
+            f"files are in {pending.partial.name} beside it (checked there); the next "
+            "prespec run on this plan moves it")
+        return pending.partial, rel
+    if folder.is_dir() and not folder.is_symlink():
+        raise _fail(result, f"{where}: report folder {rel} is empty")
+    raise _fail(result, f"{where}: report folder {rel} is missing")
+
+
+def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
+                   ) -> dict[str, Path]:
+    found: dict[str, Path] = {}
     for entry in entries:
         if entry["action"] not in ("run", "rehearse"):
             continue
-        where = f"log entry {entry['seq']} ({entry['action']})"
-        details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
-        rel = details.get("report")
-        if not isinstance(rel, str) or Path(rel).is_absolute():
-            raise _fail(result, f"{where}: no relative report path")
-        folder = plan.parent / rel
-        if not folder.is_dir():
-            raise _fail(result, f"{where}: report folder {rel} is missing")
+        folder, rel = _report_folder(plan, entry, result)
+        if rel in found:
+            raise _fail(result, f"log entry {entry['seq']}: names report {rel} a second time")
         problem = check_manifest(folder)
         if problem:
             raise _fail(result, f"report {rel}: {problem}")
-        if file_sha256(folder / "manifest.json") != details.get("manifest"):
+        if file_sha256(folder / "manifest.json") != entry["details"].get("manifest"):
             raise _fail(result, f"report {rel}: manifest.json is not the one the log recorded")
         try:
             doc = json.loads((folder / "results.json").read_text("utf-8"))
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+            if not isinstance(doc, dict):
+                raise TypeError
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError, TypeError):
             raise _fail(result, f"report {rel}: results.json is missing or unreadable") from None
         if doc.get("plan") != entry["plan"]:
             raise _fail(result, f"report {rel}: results.json names plan {doc.get('plan')}, "
@@ -146,24 +209,192 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if doc.get("data") != entry["data"]:
             raise _fail(result, f"report {rel}: results.json names data {doc.get('data')}, "
                         f"the log {entry['data']}")
-        count += 1
-    result.passed.append(f"reports: {count} folder(s) match their manifests and log entries")
+        expected_kind = "run" if entry["action"] == "run" else "rehearsal"
+        if doc.get("kind") != expected_kind:
+            raise _fail(result, f"report {rel}: results.json is a {doc.get('kind')!r} report, "
+                        f"the log records a {entry['action']}")
+        if doc.get("deviations") != entry["deviations"]:
+            raise _fail(result, f"report {rel}: its departures differ from those its log entry "
+                        "recorded")
+        found[rel] = folder
+    result.passed.append(f"reports: {len(found)} folder(s) match their manifests and log entries")
+    return found
 
 
-def verify_all(plan: Path, *, expect: str | None = None) -> VerifyResult:
+def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -> None:
+    """Under ``reports/<stem>/``, a folder with files that the log does not name fails; what a
+    stopped run leaves (an empty reserved folder, a temporary one) is a note, there and beside
+    every named report."""
+    own = (plan.parent / "reports" / plan.stem).resolve()
+    named = {(plan.parent / rel).resolve() for rel in found}
+    in_use = {p.resolve() for p in found.values()}
+    prefixes = {f".{p.name}{PARTIAL}" for p in named}
+    places = {own} | {p.parent for p in named}
+    for place in sorted(places):
+        if not place.is_dir():
+            continue
+        for child in sorted(place.iterdir()):
+            resolved = child.resolve()
+            if resolved in named or resolved in in_use or not child.is_dir():
+                continue
+            rel = (child.relative_to(plan.parent) if child.is_relative_to(plan.parent)
+                   else child).as_posix()
+            temporary = child.name.startswith(".") and PARTIAL in child.name
+            if temporary and (place == own or any(child.name.startswith(p) for p in prefixes)):
+                result.notes.append(f"{rel}: a temporary folder left by a run that was stopped "
+                                    "before its log entry; not part of any report, safe to delete")
+            elif place == own and not temporary:
+                if any(child.iterdir()):
+                    raise _fail(result, f"{rel}: a report folder that the log does not name "
+                                "(not produced by a recorded run)")
+                result.notes.append(f"{rel}: an empty folder reserved by a run that was stopped "
+                                    "before its log entry; safe to delete")
+
+
+def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = None,
+               report: str | None = None, key: Path | None = None) -> VerifyResult:
     result = VerifyResult()
     if not audit.lock_path(plan).exists() and not audit.log_path(plan).exists() \
             and not audit.head_path(plan).exists():
         raise VerifyFailure(f"{plan}: nothing to verify (no lock and no audit log)", [])
     entries = _check_log(plan, result)
+    _check_signatures(entries, key, result)
     doc = _check_lock(plan, entries, result)
     if doc is not None:
         _check_plan_file(plan, doc, entries, result)
-    _check_reports(plan, entries, result)
+    found = _check_reports(plan, entries, result)
+    _check_leftovers(plan, found, result)
     if expect is not None:
         first = next((e for e in entries if e["action"] == "lock"), None)
         if first is None or first["plan"] != expect:
             raise _fail(result, f"expected fingerprint: the first lock entry holds "
                         f"{first['plan'] if first else 'nothing'}, not {expect}")
         result.passed.append("expected fingerprint: matches the first lock entry")
+    if rerun is not None:
+        _rerun(plan, entries, doc, found, rerun, report, result)
     return result
+
+
+# --- --rerun: recompute a report's results from the data and compare every field ---
+
+# Fields that differ legitimately between the run and its recomputation.
+MOMENT_FIELDS = frozenset({"created", "actor", "environment", "data_file"})
+# Departures and notes that depend on the moment (the log, the lock, the installation, the
+# command line), not on the plan and the data; the recomputation re-derives the rest.
+MOMENT_CODES = frozenset({"data-changed-since-last-run", "environment-differs-from-lock",
+                          "amended-after-unblinding", "plan-modified-after-lock",
+                          "run-without-lock", "override", "plan-file-reformatted"})
+
+
+def _plan_for(plan: Path, doc: dict[str, Any] | None, results: dict[str, Any], rel: str,
+              result: VerifyResult) -> Any:
+    fp = results.get("plan")
+    held = [v for v in (doc or {}).get("versions", []) if v.get("fingerprint") == fp]
+    if held:
+        resolved, source = held[0]["plan"], audit.lock_path(plan).name
+    else:
+        try:
+            loaded = load_plan(plan)
+        except PrespecError as exc:
+            raise _fail(result, f"rerun {rel}: the plan file does not load: {exc}") from None
+        if loaded.fingerprint != fp:
+            raise _fail(result, f"rerun {rel}: no lock version or plan file holds plan {fp}")
+        resolved, source = loaded.resolved, plan.name
+    overrides = {o["key"]: o["used"] for o in results.get("overrides") or []
+                 if isinstance(o, dict) and "key" in o and "used" in o}
+    try:
+        if overrides:
+            resolved, _ = apply_overrides(resolved, overrides)
+        return plan_from_resolved(resolved, source=source)
+    except PrespecError as exc:
+        raise _fail(result, f"rerun {rel}: the plan cannot be rebuilt: {exc}") from None
+
+
+def _comparable(value: Any, key: str) -> Any:
+    if key in ("deviations", "notes") and isinstance(value, list):
+        return [d for d in value if not (isinstance(d, dict) and d.get("code") in MOMENT_CODES)]
+    return value
+
+
+def first_difference(a: Any, b: Any, path: str = "") -> str | None:
+    """The path of the first place two JSON values differ (``hypotheses[0].p_value``)."""
+    if isinstance(a, dict) and isinstance(b, dict):
+        for k in [*a, *(k for k in b if k not in a)]:
+            where = f"{path}.{k}" if path else str(k)
+            if k not in a or k not in b:
+                return where
+            found = first_difference(a[k], b[k], where)
+            if found:
+                return found
+        return None
+    if isinstance(a, list) and isinstance(b, list):
+        for i, (x, y) in enumerate(zip(a, b, strict=False)):
+            found = first_difference(x, y, f"{path}[{i}]")
+            if found:
+                return found
+        return f"{path}[{min(len(a), len(b))}]" if len(a) != len(b) else None
+    if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
+        return None
+    same = a == b and (type(a) is type(b) or not isinstance(a, bool) and not isinstance(b, bool))
+    return None if same else (path or "(the whole document)")
+
+
+def _lookup(doc: Any, path: str) -> Any:
+    import re
+
+    for part in re.findall(r"[^.\[\]]+|\[\d+\]", path):
+        try:
+            doc = doc[int(part[1:-1])] if part.startswith("[") else doc[part]
+        except (KeyError, IndexError, TypeError, ValueError):
+            return "(absent)"
+    return doc
+
+
+def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None,
+           found: dict[str, Path], data: Path, report: str | None,
+           result: VerifyResult) -> None:
+    from .execute import compute_results
+
+    if not data.is_file():
+        raise _fail(result, f"rerun: {data}: no such data file")
+    data_hash = file_sha256(data)
+    runs = [e for e in entries if e["action"] == "run"]
+    if report is not None:
+        wanted = Path(report).as_posix().rstrip("/")
+        runs = [e for e in runs if e["details"].get("report") == wanted]
+        if not runs:
+            raise _fail(result, f"rerun: the log names no run report {wanted}")
+        if runs[0]["data"] != data_hash:
+            raise _fail(result, f"rerun {wanted}: {data.name} is {data_hash}, the report was made "
+                        f"from {runs[0]['data']}")
+    else:
+        runs = [e for e in runs if e["data"] == data_hash]
+        if not runs:
+            raise _fail(result, f"rerun: no run in the log was made from {data.name} "
+                        f"({data_hash})")
+    for entry in runs:
+        rel = entry["details"]["report"]
+        stored = json.loads((found[rel] / "results.json").read_text("utf-8"))
+        model = _plan_for(plan, doc, stored, rel, result)
+        try:
+            again = compute_results(
+                plan_path=plan, plan=model, fingerprint=stored.get("plan"),
+                version=stored.get("plan_version"), data_path=data,
+                actor=str(stored.get("actor")), environment=stored.get("environment") or {},
+                deviations=[], notes=[], previous_data=None)
+        except PrespecError as exc:
+            raise _fail(result, f"rerun {rel}: the recomputation failed: {exc}") from None
+        if "overrides" in stored:
+            mark_overrides(again, [o for o in stored["overrides"] or [] if isinstance(o, dict)])
+        again = json.loads(json.dumps(again, allow_nan=False))  # as written to results.json
+        keys = [k for k in [*stored, *(k for k in again if k not in stored)]
+                if k not in MOMENT_FIELDS]
+        left = {k: _comparable(stored.get(k, "(absent)"), k) for k in keys}
+        right = {k: _comparable(again.get(k, "(absent)"), k) for k in keys}
+        where = first_difference(left, right)
+        if where:
+            raise _fail(result, f"rerun {rel}: {where} differs: the report has "
+                        f"{json.dumps(_lookup(left, where))}, the recomputation "
+                        f"{json.dumps(_lookup(right, where))}")
+    result.passed.append(f"rerun: {len(runs)} report(s) recomputed from {data.name}, every "
+                         "result identical")

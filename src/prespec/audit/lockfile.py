@@ -17,8 +17,9 @@ def read_lock(path: Path) -> dict[str, Any] | None:
     """The lock document, or None when the plan was never locked."""
     if not path.exists():
         return None
+    raw = path.read_bytes()
     try:
-        doc = json.loads(path.read_text("utf-8"))
+        doc = json.loads(raw.decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise IntegrityStop(f"{path.name}: not a readable lock file ({exc})") from None
     if (
@@ -36,6 +37,9 @@ def read_lock(path: Path) -> dict[str, Any] | None:
         if not isinstance(version["plan"], dict) or not isinstance(version["fingerprint"], str) \
                 or not isinstance(version["version"], int):
             raise IntegrityStop(f"{path.name}: version {index} is malformed")
+    if lock_bytes(doc) != raw:
+        raise IntegrityStop(f"{path.name}: not in the form prespec writes (spacing, key order or "
+                            "escapes differ: the lock was edited)")
     return doc
 
 
@@ -43,6 +47,10 @@ def latest(doc: dict[str, Any]) -> dict[str, Any]:
     return doc["versions"][-1]
 
 
+def lock_bytes(doc: dict[str, Any]) -> bytes:
+    """The exact bytes prespec writes for a lock document."""
+    return (json.dumps(doc, indent=2, ensure_ascii=False) + "\n").encode("utf-8")
+
+
 def write_lock(path: Path, doc: dict[str, Any]) -> None:
-    text = json.dumps(doc, indent=2, ensure_ascii=False) + "\n"
-    replace_atomically(path, text.encode("utf-8"))
+    replace_atomically(path, lock_bytes(doc))

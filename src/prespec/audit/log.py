@@ -12,7 +12,7 @@ from __future__ import annotations
 import fcntl
 import json
 import os
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from datetime import UTC, datetime
 from pathlib import Path
@@ -25,6 +25,15 @@ from .files import fsync_dir, replace_atomically
 GENESIS = "0" * 64
 ACTIONS = frozenset({"lock", "amend", "run", "rehearse", "design", "look"})
 ENTRY_KEYS = ("seq", "at", "actor", "action", "plan", "data", "details", "deviations", "prev")
+# An optional key, only on lock and amend entries: an Ed25519 signature of the entry's content
+# (see ``prespec.signing``). It sits before ``hash``, so the chain hash covers it as well.
+SIGNATURE_KEY = "signature"
+SIGNED_ACTIONS = frozenset({"lock", "amend"})
+
+
+def entry_line(entry: dict[str, Any]) -> bytes:
+    """The exact bytes prespec writes for one entry: its JSON in key order, and a newline."""
+    return json.dumps(entry, ensure_ascii=False, sort_keys=False).encode("utf-8") + b"\n"
 
 
 def utc_now() -> str:
@@ -64,6 +73,9 @@ def parse_log(data: bytes, name: str) -> list[dict[str, Any]]:
             raise IntegrityStop(f"{name}:{number}: not a JSON entry ({exc})") from None
         if not isinstance(entry, dict):
             raise IntegrityStop(f"{name}:{number}: an entry must be a JSON object")
+        if entry_line(entry) != line + b"\n":
+            raise IntegrityStop(f"{name}:{number}: not in the form prespec writes (the line was "
+                                "edited: spacing, key order, escapes or a repeated key)")
         entries.append(entry)
     return entries
 
@@ -73,6 +85,23 @@ def read_log(log: Path) -> list[dict[str, Any]]:
     if not log.exists():
         return []
     return parse_log(log.read_bytes(), log.name)
+
+
+Signer = Callable[[bytes], dict[str, str]]
+SIGNATURE_CONTEXT = b"prespec entry signature v1\n"
+
+
+def signing_message(entry: dict[str, Any]) -> bytes:
+    """What a signature signs: a fixed context line, then the RFC 8785 form of the entry
+    without ``hash`` and ``signature``. The context keeps it distinct from the chain hash's
+    input, which covers the signature too."""
+    body = {k: v for k, v in entry.items() if k not in ("hash", SIGNATURE_KEY)}
+    return SIGNATURE_CONTEXT + canonical_json(body)
+
+
+def head_line(entry: dict[str, Any]) -> bytes:
+    """The exact bytes of the head file naming ``entry``."""
+    return (json.dumps({"seq": entry["seq"], "hash": entry["hash"]}) + "\n").encode("utf-8")
 
 
 def append(
@@ -86,14 +115,21 @@ def append(
     details: dict[str, Any] | None = None,
     deviations: list[dict[str, Any]] | None = None,
     at: str | None = None,
+    sign: Signer | None = None,
 ) -> dict[str, Any]:
     """Append one entry under an exclusive lock, in one write, fsynced; then replace the head.
 
     The existing chain is checked before anything is written: appending to a broken log
-    would hide the break behind a valid-looking new entry.
+    would hide the break behind a valid-looking new entry, and a log whose last line is
+    incomplete is refused (the half entry is reported, never dropped). If the write itself
+    fails, the log is cut back to its size before it, under the same lock. A head that lags
+    one entry behind (an append stopped between the log and the head) is brought up to date.
+    ``sign``, for lock and amend entries, returns the ``signature`` of the entry's content.
     """
     if action not in ACTIONS:
         raise ValueError(f"unknown log action {action!r}")
+    if sign is not None and action not in SIGNED_ACTIONS:
+        raise ValueError(f"only {', '.join(sorted(SIGNED_ACTIONS))} entries are signed")
     with _locked(log) as fd:
         size = os.fstat(fd).st_size
         existing = parse_log(os.pread(fd, size, 0), log.name) if size else []
@@ -111,15 +147,21 @@ def append(
             "deviations": deviations or [],
             "prev": last["hash"] if last else GENESIS,
         }
+        if sign is not None:
+            entry[SIGNATURE_KEY] = sign(signing_message(entry))
         entry["hash"] = entry_hash(entry)
-        line = json.dumps(entry, ensure_ascii=False, sort_keys=False).encode("utf-8") + b"\n"
-        written = os.write(fd, line)
-        if written != len(line):  # pragma: no cover - a short write on a regular file
-            raise OSError(f"{log.name}: short write ({written} of {len(line)} bytes)")
-        os.fsync(fd)
+        line = entry_line(entry)
+        try:
+            written = os.write(fd, line)
+            if written != len(line):
+                raise OSError(f"{log.name}: short write ({written} of {len(line)} bytes)")
+            os.fsync(fd)
+        except Exception:
+            os.ftruncate(fd, size)  # no half entry left behind by a failure we see
+            os.fsync(fd)
+            raise
         fsync_dir(log.parent)
-        head_doc = {"seq": entry["seq"], "hash": entry["hash"]}
-        replace_atomically(head, (json.dumps(head_doc) + "\n").encode("utf-8"))
+        replace_atomically(head, head_line(entry))
     return entry
 
 
@@ -131,9 +173,11 @@ def check_chain(entries: list[dict[str, Any]], name: str) -> None:
         missing = [k for k in (*ENTRY_KEYS, "hash") if k not in entry]
         if missing:
             raise IntegrityStop(f"{where}: missing {', '.join(missing)}")
-        extra = sorted(set(entry) - set(ENTRY_KEYS) - {"hash"})
+        extra = sorted(set(entry) - set(ENTRY_KEYS) - {"hash", SIGNATURE_KEY})
         if extra:
             raise IntegrityStop(f"{where}: unexpected key {', '.join(extra)}")
+        if SIGNATURE_KEY in entry and entry["action"] not in SIGNED_ACTIONS:
+            raise IntegrityStop(f"{where}: a {entry['action']!r} entry carries a signature")
         if entry["seq"] != index or isinstance(entry["seq"], bool):
             raise IntegrityStop(f"{where}: seq is {entry['seq']!r}, expected {index}")
         if entry["prev"] != prev:
@@ -146,29 +190,46 @@ def check_chain(entries: list[dict[str, Any]], name: str) -> None:
 def read_head(head: Path) -> dict[str, Any] | None:
     if not head.exists():
         return None
+    raw = head.read_bytes()
     try:
-        doc = json.loads(head.read_text("utf-8"))
+        doc = json.loads(raw.decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError):
         raise IntegrityStop(f"{head.name}: not a readable head record") from None
     if not isinstance(doc, dict) or set(doc) != {"seq", "hash"}:
         raise IntegrityStop(f"{head.name}: a head record holds exactly seq and hash")
+    if not isinstance(doc["seq"], int) or isinstance(doc["seq"], bool) or head_line(doc) != raw:
+        raise IntegrityStop(f"{head.name}: not in the form prespec writes (edited)")
     return doc
 
 
-def check_head(entries: list[dict[str, Any]], head: Path) -> None:
-    """The head file must name the last entry; a log shorter than its head was truncated."""
+HEAD_LAGS = "the head names the entry before the last (an append stopped before its head update)"
+
+
+def check_head(entries: list[dict[str, Any]], head: Path) -> str | None:
+    """The head file must name the last entry; a log shorter than its head was truncated.
+
+    A head naming the entry before the last (or missing, for a one-entry log) is what an
+    append stopped between its two writes leaves: accepted, and returned as a note. Anyone
+    able to write the folder could rewrite the head anyway, so this weakens nothing.
+    """
     doc = read_head(head)
     if doc is None:
+        if len(entries) == 1:
+            return HEAD_LAGS
         if entries:
             raise IntegrityStop(f"{head.name}: missing, but the log has {len(entries)} entries")
-        return
+        return None
     if not entries:
         raise IntegrityStop(f"{head.name}: names entry {doc['seq']} but the log is empty or gone")
     last = entries[-1]
-    if doc["seq"] != last["seq"] or doc["hash"] != last["hash"]:
-        if isinstance(doc["seq"], int) and doc["seq"] > last["seq"]:
-            raise IntegrityStop(
-                f"{head.name}: names entry {doc['seq']} but the log ends at {last['seq']} "
-                "(entries removed from the end)"
-            )
-        raise IntegrityStop(f"{head.name}: does not match the last entry of the log")
+    if doc["seq"] == last["seq"] and doc["hash"] == last["hash"]:
+        return None
+    if doc["seq"] > last["seq"]:
+        raise IntegrityStop(
+            f"{head.name}: names entry {doc['seq']} but the log ends at {last['seq']} "
+            "(entries removed from the end)"
+        )
+    if len(entries) >= 2 and doc["seq"] == entries[-2]["seq"] \
+            and doc["hash"] == entries[-2]["hash"]:
+        return HEAD_LAGS
+    raise IntegrityStop(f"{head.name}: does not match the last entry of the log")
