@@ -144,6 +144,168 @@ def rehearsal_results() -> dict[str, Any]:
     return res
 
 
+#: Hostile labels: markup, attribute breakers, script URLs, quotes, line breaks, terminal
+#: escape sequences, template and notebook syntax. The report must show them as text.
+HOSTILE_SCRIPT = '<script>alert("t")</script>'
+HOSTILE_ATTR = '"><img src=x onerror=alert(1)>'
+HOSTILE_URL = "javascript:alert(2)"
+HOSTILE_QUOTES = "it's \"quoted\"\nand on 'two' lines"
+HOSTILE_NOTEBOOK = "\x1b[31mred\x1b[0m {{ 7*7 }} ${x} %%bash !ls </div><!-- \\u003c"
+HOSTILE = (HOSTILE_SCRIPT, HOSTILE_ATTR, HOSTILE_URL, HOSTILE_QUOTES, HOSTILE_NOTEBOOK)
+
+
+def full_results() -> dict[str, Any]:
+    """An invented run that carries every field of the full statistical engine and overrides.
+
+    Stratified odds ratio with per-site tables and a homogeneity test (H1); non-inferiority
+    whose interval and test disagree, overridden on the command line (H2); equivalence of a
+    risk ratio against margins [0.8, 1.25] (H3); a single group against a null rate (H4); a
+    k-group test with a Monte Carlo p-value and open follow-ups (H5); a trend with scores (H6);
+    a k-group test not rejected, its follow-up behind a closed gate with a zero-cell note (H7);
+    H8, whose every label is hostile; and an odds ratio that is infinite, with a null upper
+    limit (H9). Multiplicity is the graphical procedure.
+    """
+    res = sample_results()
+    res["title"] = f"Dressing trial {HOSTILE_SCRIPT} {HOSTILE_ATTR}"
+    res["protocol"] = HOSTILE_URL
+    res["actor"] = HOSTILE_QUOTES
+    res["groups"][HOSTILE_ATTR] = [
+        {"group": HOSTILE_SCRIPT, "events": 5, "total": 50, "missing": 0, "proportion": 0.1,
+         "ci": [0.0435, 0.2136], "ci_method": "wilson", "level": 0.95},
+        {"group": "gauze", "events": 9, "total": 52, "missing": 0, "proportion": 0.1731,
+         "ci": [0.0937, 0.2975], "ci_method": "wilson", "level": 0.95},
+    ]
+    base = {"comparison": "superiority", "margin": None, "continuity": False, "rule": None,
+            "expected": None, "role": "primary", "alternative": "two-sided"}
+    trio = ["gauze", "alginate", "negative-pressure"]
+    hyps: list[dict[str, Any]] = [
+        {**base, "id": "H1", "kind": "pair", "title": "Negative-pressure vs gauze, by site",
+         "outcome": "infection", "compare": ["negative-pressure", "gauze"],
+         "planned_test": "cochran-mantel-haenszel", "test": "cochran-mantel-haenszel",
+         "statistic": 6.31, "df": 1, "p_value": 0.012, "p_adjusted": 0.024, "reject": True,
+         "estimate": {"measure": "odds-ratio", "value": 0.4912, "ci": [0.2801, 0.8614],
+                      "ci_method": "robins-breslow-greenland", "level": 0.95},
+         "table": {"groups": ["negative-pressure", "gauze"], "events": [23, 41],
+                   "totals": [198, 196]},
+         "strata": ["site"],
+         "strata_tables": [
+             {"stratum": {"site": "north"}, "events": [11, 22], "totals": [101, 99]},
+             {"stratum": {"site": HOSTILE_SCRIPT}, "events": [12, 19], "totals": [97, 97]},
+         ],
+         "homogeneity": {"test": "breslow-day-tarone", "statistic": 0.412, "df": 1,
+                         "p_value": 0.521}},
+        {**base, "id": "H2", "kind": "pair", "title": "Alginate not worse than gauze",
+         "role": "secondary", "outcome": "infection", "compare": ["alginate", "gauze"],
+         "alternative": "less", "comparison": "non-inferiority", "margin": 0.05,
+         "planned_test": "two-proportion-z", "test": "two-proportion-z", "statistic": -2.03,
+         "df": None, "p_value": 0.0212, "p_adjusted": 0.0424, "reject": True,
+         "estimate": {"measure": "risk-difference", "value": -0.0592,
+                      "ci": [-0.1301, 0.0512], "ci_method": "newcombe", "level": 0.9},
+         "table": {"groups": ["alginate", "gauze"], "events": [30, 41], "totals": [200, 196]},
+         "margin_check": {"interval_excludes_margin": False, "agrees_with_test": False},
+         "pre_specified": False},
+        {**base, "id": "H3", "kind": "pair", "title": "Healing equivalent, alginate vs gauze",
+         "role": "secondary", "outcome": "healing", "compare": ["alginate", "gauze"],
+         "alternative": "two-sided", "comparison": "equivalence", "margin": [0.8, 1.25],
+         "planned_test": "two-proportion-z", "test": "two-proportion-z", "statistic": None,
+         "df": None, "p_value": 0.0391, "p_adjusted": 0.0391, "reject": True,
+         "estimate": {"measure": "risk-ratio", "value": 0.9446, "ci": [0.8602, 1.0373],
+                      "ci_method": "katz", "level": 0.9},
+         "table": {"groups": ["alginate", "gauze"], "events": [160, 166], "totals": [200, 196]},
+         "margin_check": {"interval_excludes_margin": True, "agrees_with_test": True}},
+        {**base, "id": "H4", "kind": "single", "title": "Negative-pressure infection below 30%",
+         "role": "secondary", "outcome": "infection", "compare": ["negative-pressure"],
+         "alternative": "less", "null_rate": 0.3, "planned_test": "binomial-exact",
+         "test": "binomial-exact", "statistic": None, "df": None, "p_value": 0.0000012,
+         "p_adjusted": 0.0000048, "reject": True,
+         "estimate": {"measure": "proportion", "value": 0.1162, "ci": [0.0788, 0.1681],
+                      "ci_method": "wilson", "level": 0.9},
+         "table": {"groups": ["negative-pressure"], "events": [23], "totals": [198]},
+         "expected": [[59.4, 138.6]]},
+        {**base, "id": "H5", "kind": "all", "title": "Any difference among the arms",
+         "outcome": "infection", "compare": "all", "planned_test": "fisher-exact",
+         "test": "fisher-exact", "statistic": None, "df": None, "p_value": 0.0431,
+         "p_adjusted": 0.0431, "reject": True, "estimate": None,
+         "table": {"groups": trio, "events": [41, 30, 23], "totals": [196, 200, 198]},
+         "monte_carlo": {"tables": 100000, "seed": 1, "standard_error": 0.00064}},
+        {**base, "id": "H5:alginate-vs-gauze", "kind": "pair", "parent": "H5",
+         "gate": "open", "family": "H5 pairwise", "title": "Alginate vs gauze",
+         "outcome": "infection", "compare": ["alginate", "gauze"],
+         "planned_test": "fisher-exact", "test": "fisher-exact", "statistic": None, "df": None,
+         "p_value": 0.1712, "p_adjusted": 0.1712, "reject": False,
+         "estimate": {"measure": "risk-difference", "value": -0.0592, "ci": [-0.1341, 0.0153],
+                      "ci_method": "newcombe", "level": 0.95},
+         "table": {"groups": ["alginate", "gauze"], "events": [30, 41], "totals": [200, 196]}},
+        {**base, "id": "H5:negative-pressure-vs-gauze", "kind": "pair", "parent": "H5",
+         "gate": "open", "family": "H5 pairwise", "title": "Negative-pressure vs gauze",
+         "outcome": "infection", "compare": ["negative-pressure", "gauze"],
+         "planned_test": "fisher-exact", "test": "fisher-exact", "statistic": None, "df": None,
+         "p_value": 0.0143, "p_adjusted": 0.0286, "reject": True,
+         "estimate": {"measure": "risk-difference", "value": -0.0930, "ci": [-0.1660, -0.0190],
+                      "ci_method": "newcombe", "level": 0.95},
+         "table": {"groups": ["negative-pressure", "gauze"], "events": [23, 41],
+                   "totals": [198, 196]}},
+        {**base, "id": "H6", "kind": "trend", "title": "Infection falls across the arms",
+         "role": "secondary", "outcome": "infection", "compare": "trend", "scores": [0, 1, 2.5],
+         "planned_test": "cochran-armitage-trend", "test": "cochran-armitage-trend",
+         "statistic": -2.481, "df": None, "p_value": 0.0131, "p_adjusted": 0.0262,
+         "reject": True, "estimate": None,
+         "table": {"groups": trio, "events": [41, 30, 23], "totals": [196, 200, 198]}},
+        {**base, "id": "H7", "kind": "all", "title": "Any difference in reopening",
+         "role": "secondary", "outcome": "reopening", "compare": "all",
+         "planned_test": "pearson-chi-square", "test": "pearson-chi-square", "statistic": 3.02,
+         "df": 2, "p_value": 0.2209, "p_adjusted": 0.2209, "reject": False, "estimate": None,
+         "table": {"groups": trio, "events": [3, 1, 0], "totals": [196, 200, 198]}},
+        {**base, "id": "H7:gauze-vs-negative-pressure", "kind": "pair", "parent": "H7",
+         "gate": "closed", "family": "H7 pairwise", "title": "Reopening, gauze vs negative-pressure",
+         "role": "secondary", "outcome": "reopening", "compare": ["gauze", "negative-pressure"],
+         "planned_test": "fisher-exact", "test": "fisher-exact", "statistic": None, "df": None,
+         "p_value": 0.1224, "p_adjusted": None, "reject": False,
+         "estimate": {"measure": "risk-ratio", "value": 7.0711, "ci": [0.3681, 135.83],
+                      "ci_method": "katz", "level": 0.95,
+                      "note": "0.5 added to every cell because a cell is zero"},
+         "table": {"groups": ["gauze", "negative-pressure"], "events": [3, 0],
+                   "totals": [196, 198]}},
+        {**base, "id": "H8", "kind": "pair", "title": f"{HOSTILE_SCRIPT} {HOSTILE_NOTEBOOK}",
+         "role": "exploratory", "outcome": HOSTILE_ATTR, "compare": [HOSTILE_SCRIPT, "gauze"],
+         "planned_test": "fisher-exact", "test": "fisher-exact", "statistic": None, "df": None,
+         "p_value": 0.4012, "p_adjusted": None, "reject": None,
+         "estimate": {"measure": "risk-difference", "value": -0.0731, "ci": [-0.2210, 0.0732],
+                      "ci_method": "newcombe", "level": 0.95, "note": HOSTILE_URL},
+         "table": {"groups": [HOSTILE_SCRIPT, "gauze"], "events": [5, 9], "totals": [50, 52]},
+         "pre_specified": False},
+        {**base, "id": "H9", "kind": "pair", "title": "Odds of reopening, gauze vs negative-pressure",
+         "role": "exploratory", "outcome": "reopening", "compare": ["gauze", "negative-pressure"],
+         "planned_test": "fisher-exact", "test": "fisher-exact", "statistic": None, "df": None,
+         "p_value": 0.1224, "p_adjusted": None, "reject": None,
+         "estimate": {"measure": "odds-ratio", "value": None, "ci": [0.6179, None],
+                      "ci_method": "exact-conditional", "level": 0.95},
+         "table": {"groups": ["gauze", "negative-pressure"], "events": [3, 0],
+                   "totals": [196, 198]}},
+    ]
+    res["hypotheses"] = hyps
+    res["multiplicity"] = {
+        "method": "graphical",
+        "weights": {"H1": 0.5, "H2": 0.2, "H3": 0.1, "H4": 0.1, "H5": 0.1, "H6": 0.0,
+                    "H7": 0.0},
+        "transitions": {"H1": {"H2": 0.5, "H3": 0.5}, "H2": {"H1": 1}, "H3": {"H4": 1},
+                        "H4": {"H5": 1}, "H5": {"H6": 0.5, "H7": 0.5}, "H6": {"H1": 1},
+                        "H7": {"H1": 1}},
+    }
+    res["overrides"] = [
+        {"key": "hypotheses.H2.test", "locked": "farrington-manning", "used": "two-proportion-z"},
+        {"key": "hypotheses.H8.interval", "locked": "wald", "used": HOSTILE_ATTR},
+    ]
+    res["deviations"] = [
+        {"code": "override", "detail": f"test of H2 replaced on the command line {HOSTILE_URL}",
+         "expected": "farrington-manning", "found": "two-proportion-z"},
+        {"code": "unexpected-group", "detail": f"2 rows with arm {HOSTILE_QUOTES}",
+         "expected": "gauze, alginate, negative-pressure", "found": HOSTILE_NOTEBOOK},
+    ]
+    res["notes"] = [{"code": "zero-cell", "detail": f"H3: 0.5 added {HOSTILE_SCRIPT}"}]
+    return res
+
+
 # --- value formatting -------------------------------------------------------------------------
 
 

@@ -308,7 +308,7 @@ def test_hypothesis_with_sparse_switch_shows_planned_test_and_rule() -> None:
 def test_hypothesis_non_inferiority_shows_margin() -> None:
     page = sections.hypothesis(sample_results()["hypotheses"][2], "hypotheses[2]")
     assert "<tr><th>Type</th><td>non-inferiority</td></tr>" in page
-    assert "<tr><th>Margin</th><td>0.0500</td></tr>" in page
+    assert "<tr><th>Margin</th><td>0.0500 (risk difference)</td></tr>" in page
 
 
 def test_hypothesis_wrong_type_names_the_key() -> None:
@@ -330,8 +330,12 @@ def test_multiplicity_table_and_graphical_settings() -> None:
                  "hypotheses": []}
     page = sections.multiplicity(graphical)
     assert "<tr><th>Method</th><td>graphical</td></tr>" in page
-    assert html.escape('{"weights": {"H1": 0.5, "H2": 0.5}}') in page
+    assert '<tr><td>H1</td><td class="num">0.5</td></tr>' in page  # weights as a table
+    assert "No transitions: the alpha of a rejected hypothesis is not passed on." in page
     assert "No hypotheses were tested." in page
+    # Keys other than the graph's own are still shown, as JSON.
+    graphical["multiplicity"]["extra"] = {"b": 1}
+    assert html.escape('{"extra": {"b": 1}}') in sections.multiplicity(graphical)
 
 
 def test_caution_falls_back_when_missing() -> None:

@@ -6,8 +6,12 @@ Two kinds of figure, both plain dot-and-interval charts:
   interval, for one outcome;
 - ``figures/differences.png``: every estimate of the hypotheses that have one, with its
   interval, one panel per measure; a vertical line at the value of no difference (0 for a risk
-  difference, 1 for a ratio, drawn on a log scale); exploratory hypotheses drawn hollow and
-  labelled as such.
+  difference, 1 for a ratio, drawn on a log scale); margins (one, or low and high for
+  equivalence) as dashed lines; the proportion of a single-group hypothesis in its own panel
+  with a dotted line at its null rate; exploratory hypotheses drawn hollow and labelled as such;
+- ``figures/multiplicity-graph.png``: for the graphical procedure (Bretz et al., Statistics in
+  Medicine 2009), the hypotheses as nodes on a circle with their initial weights, and an
+  arrow with its weight for each transition.
 
 Nothing is computed here: the points and limits are the ones in ``results.json``. The figures
 are built on ``matplotlib.figure.Figure`` with an explicit Agg canvas (no pyplot state, no
@@ -37,6 +41,7 @@ from prespec.report.values import (
     number,
     pair,
     text,
+    visible,
 )
 
 if TYPE_CHECKING:
@@ -45,6 +50,7 @@ if TYPE_CHECKING:
 
 FIGURES = "figures"
 DIFFERENCES = f"{FIGURES}/differences.png"
+MULTIPLICITY_GRAPH = f"{FIGURES}/multiplicity-graph.png"
 
 _SAFE_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,79}")
 _DPI = 100
@@ -53,6 +59,7 @@ _INK = "#222222"
 _LINE = "#555555"
 _GUIDE = "#999999"
 _MARGIN = "#8a5a00"
+_NULL_RATE = "#1f4e79"
 _LABEL_CHARS = 48
 
 # Measure -> (axis label, value of no difference or None, log scale).
@@ -85,11 +92,18 @@ def has_estimates(results: Mapping[str, Any]) -> bool:
     return bool(_estimate_rows(results))
 
 
+def has_graph(results: Mapping[str, Any]) -> bool:
+    """Whether results.json holds a graphical procedure, i.e. whether its graph is drawn."""
+    value = results.get("multiplicity")
+    return isinstance(value, Mapping) and value.get("method") == "graphical"
+
+
 def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     """Write the report's PNG figures into ``folder / "figures"`` and return their paths.
 
     One ``proportions-<outcome>.png`` per outcome in ``results["groups"]`` (in that order), then
-    ``differences.png`` if any hypothesis has an estimate. A malformed ``results`` raises
+    ``differences.png`` if any hypothesis has an estimate, then ``multiplicity-graph.png`` for
+    the graphical procedure. A malformed ``results`` raises
     :class:`prespec.errors.PrespecError` naming the key; files are written under a temporary
     name and renamed into place, so none is left half-written.
     """
@@ -108,6 +122,9 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     rows = _estimate_rows(results)
     if rows:
         jobs.append((DIFFERENCES, _DifferencesJob(rows)))
+    if has_graph(results):
+        jobs.append((MULTIPLICITY_GRAPH, _graph_job(mapping(results["multiplicity"],
+                                                            "multiplicity"))))
 
     written: list[Path] = []
     out_dir = Path(folder) / FIGURES
@@ -155,7 +172,7 @@ def _new_figure(height: float) -> Figure:
 
 
 def _shorten(label: str, limit: int = _LABEL_CHARS) -> str:
-    label = " ".join(label.split())
+    label = " ".join(visible(label).split())
     return label if len(label) <= limit else label[: limit - 1] + "…"
 
 
@@ -251,6 +268,7 @@ class _EstimateRow:
     level: float | None
     exploratory: bool
     margins: tuple[float, ...]
+    null_rate: float | None = None
 
 
 def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
@@ -273,6 +291,8 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
             ) if m is not None
         )
         head = f"{hid} (exploratory)" if role == "exploratory" else hid
+        if hyp.get("gate") == "closed":
+            head = f"{hid} (not tested)"
         rows.append(
             _EstimateRow(
                 label=f"{_shorten(head, 34)}\n{_shorten(title, 34)}" if title else head,
@@ -283,13 +303,43 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
                 level=number(est.get("level"), f"{where}.estimate.level"),
                 exploratory=role == "exploratory",
                 margins=margins,
+                null_rate=number(hyp.get("null_rate"), f"{where}.null_rate"),
             )
         )
     return rows
 
 
+def _log_ticks(lo: float, hi: float, marks: Sequence[float]) -> list[float]:
+    """Tick positions on a log axis from ``lo`` to ``hi``: the marks first, then round values.
+
+    The marks (the value of no difference, then the margins) are placed first; round values
+    (1, 2 and 5 per decade; only 1 over many decades, finer steps over less than one) fill
+    in. A tick closer than 8% of the axis to one already placed is left out, so that no two
+    labels overlap.
+    """
+    decades = math.log10(hi / lo)
+    if decades > 2.5:
+        steps: tuple[float, ...] = (1.0,)
+    elif decades > 1.0:
+        steps = (1.0, 2.0, 5.0)
+    else:
+        steps = (1.0, 1.5, 2.0, 3.0, 5.0, 7.0)
+    rounds = sorted(
+        round(step * 10.0**k, 12)
+        for k in range(math.floor(math.log10(lo)) - 1, math.ceil(math.log10(hi)) + 1)
+        for step in steps
+    )
+    placed: list[float] = []
+    for tick in [*marks, *rounds]:
+        if lo <= tick <= hi and all(
+            abs(math.log10(tick / p)) >= 0.08 * decades for p in placed
+        ):
+            placed.append(tick)
+    return sorted(placed)
+
+
 def _estimate_label(row: _EstimateRow) -> str:
-    if row.value is None:
+    if row.value is None and row.low is None and row.high is None:
         return "not computable"
     limits = fmt_interval(row.low, row.high)
     if row.level is not None:
@@ -311,9 +361,11 @@ class _DifferencesJob:
         heights = [1.4 * len(p) + 1.6 for p in panels]
         fig = _new_figure(0.7 + 0.4 * sum(heights))
         axes = fig.subplots(len(panels), 1, squeeze=False, height_ratios=heights)[:, 0]
-        any_margin = False
+        any_margin = any_rate = False
         for ax, measure, rows in zip(axes, measures, panels, strict=True):
-            any_margin |= self._panel(ax, measure, rows)
+            drew_margin, drew_rate = self._panel(ax, measure, rows)
+            any_margin |= drew_margin
+            any_rate |= drew_rate
         handles = [
             Line2D([], [], marker="s", color=_INK, linestyle="none", label="primary or secondary"),
             Line2D([], [], marker="o", color=_INK, markerfacecolor="white", linestyle="none",
@@ -321,16 +373,20 @@ class _DifferencesJob:
         ]
         if any_margin:
             handles.append(Line2D([], [], color=_MARGIN, linestyle="--", label="margin"))
+        if any_rate:
+            handles.append(Line2D([], [], color=_NULL_RATE, linestyle=":", linewidth=1.6,
+                                  label="null rate (H0)"))
         fig.legend(handles=handles, loc="outside lower center", ncols=len(handles),
                    frameon=False, fontsize=9)
         return fig
 
     @staticmethod
-    def _panel(ax: Axes, measure: str, rows: list[_EstimateRow]) -> bool:
+    def _panel(ax: Axes, measure: str, rows: list[_EstimateRow]) -> tuple[bool, bool]:
+        """Draw one measure's panel; whether it drew a margin, and a null rate."""
         label, null, log = _MEASURES.get(measure, (measure, None, False))
         ys = [1.4 * i for i in range(len(rows))][::-1]
         values: list[float] = []
-        drew_margin = False
+        drew_margin = drew_rate = False
         for y, row in zip(ys, rows, strict=True):
             shown = [v for v in (row.value, row.low, row.high) if v is not None]
             if log and any(v <= 0 for v in shown):
@@ -347,26 +403,34 @@ class _DifferencesJob:
                     ax.vlines(m, y - 0.35, y + 0.35, color=_MARGIN, linestyle="--", linewidth=1.2)
                     values.append(m)
                     drew_margin = True
+            if row.null_rate is not None and (not log or row.null_rate > 0):
+                ax.vlines(row.null_rate, y - 0.4, y + 0.4, color=_NULL_RATE, linestyle=":",
+                          linewidth=1.6)
+                values.append(row.null_rate)
+                drew_rate = True
         if null is not None:
             ax.axvline(null, color=_GUIDE, linewidth=1.0, zorder=0)
             values.append(null)
         if log and values:
-            from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+            from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
 
+            lo, hi = min(values), max(values)
+            factor = max((hi / lo) ** 0.08, 1.25)
+            lo, hi = lo / factor, hi * factor
             ax.set_xscale("log")
-            decades = math.log10(max(values) / min(values))
-            subs = (1.0,) if decades > 2.5 else (1.0, 2.0, 5.0)
-            ax.xaxis.set_major_locator(LogLocator(base=10, subs=subs))
+            marks = [m for r in rows for m in r.margins if m > 0]
+            ticks = _log_ticks(lo, hi, [*([null] if null is not None else []), *marks])
+            ax.xaxis.set_major_locator(FixedLocator(ticks))
             ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
             ax.xaxis.set_minor_formatter(NullFormatter())
-        if values:
+            ax.set_xlim(lo, hi)
+        elif values:
             lo, hi = min(values), max(values)
-            if log:
-                factor = max((hi / lo) ** 0.08, 1.25)
-                ax.set_xlim(lo / factor, hi * factor)
-            else:
-                pad = (hi - lo) * 0.08 or 0.05
-                ax.set_xlim(lo - pad, hi + pad)
+            pad = (hi - lo) * 0.08 or 0.05
+            lo, hi = lo - pad, hi + pad
+            if measure == "proportion":  # a proportion lies in [0, 1]
+                lo, hi = max(lo, 0.0), min(hi, 1.0)
+            ax.set_xlim(lo, hi)
         ax.set_yticks(ys, [r.label for r in rows])
         ax.tick_params(axis="y", length=0)
         ax.set_ylim(-0.8, 1.4 * (len(rows) - 1) + 0.8)
@@ -374,4 +438,94 @@ class _DifferencesJob:
         ax.grid(axis="x", color="#eeeeee", linewidth=0.8)
         ax.set_axisbelow(True)
         ax.set_xlabel(label)
-        return drew_margin
+        return drew_margin, drew_rate
+
+
+def _graph_job(value: Mapping[str, Any]) -> _GraphJob:
+    """The nodes (weights order, then any node only a transition names) and the arrows."""
+    weights = mapping(value.get("weights") or {}, "multiplicity.weights")
+    transitions = mapping(value.get("transitions") or {}, "multiplicity.transitions")
+    nodes: dict[str, float | None] = {
+        str(k): number(w, f"multiplicity.weights.{k}") for k, w in weights.items()
+    }
+    edges: list[tuple[str, str, float]] = []
+    for source, targets in transitions.items():
+        at = f"multiplicity.transitions.{source}"
+        for target, w in mapping(targets, at).items():
+            weight = number(w, f"{at}.{target}")
+            nodes.setdefault(str(source), None)
+            nodes.setdefault(str(target), None)
+            if weight:  # a zero weight is no transition
+                edges.append((str(source), str(target), weight))
+    return _GraphJob(tuple(nodes.items()), tuple(edges))
+
+
+@dataclass(frozen=True)
+class _GraphJob:
+    """The graph of the graphical procedure: nodes on a circle, arrows with their weights."""
+
+    nodes: tuple[tuple[str, float | None], ...]
+    edges: tuple[tuple[str, str, float], ...]
+
+    def positions(self) -> dict[str, tuple[float, float]]:
+        """Node centres on the unit circle, the first at the top, then clockwise."""
+        n = len(self.nodes)
+        if n == 1:
+            return {self.nodes[0][0]: (0.0, 0.0)}
+        return {
+            name: (math.cos(math.pi / 2 - 2 * math.pi * i / n),
+                   math.sin(math.pi / 2 - 2 * math.pi * i / n))
+            for i, (name, _) in enumerate(self.nodes)
+        }
+
+    def draw(self) -> Figure:
+        from matplotlib.patches import Circle, FancyArrowPatch
+
+        from prespec.report.values import fmt_weight
+
+        n = len(self.nodes)
+        fig = _new_figure(6.0)
+        ax = fig.add_subplot()
+        ax.set_aspect("equal")
+        ax.set_xlim(-1.9, 1.9)
+        ax.set_ylim(-1.35, 1.35)
+        ax.axis("off")
+        pos = self.positions()
+        radius = 0.26 if n <= 2 else min(0.26, 0.8 * math.sin(math.pi / n))
+        for name, weight in self.nodes:
+            x, y = pos[name]
+            ax.add_patch(Circle((x, y), radius, facecolor="#f3f3f3", edgecolor=_INK,
+                                linewidth=1.4, zorder=2))
+            ax.text(x, y + radius * 0.22, _shorten(name, 12), ha="center", va="center",
+                    fontsize=10, fontweight="bold", color=_INK, zorder=3)
+            ax.text(x, y - radius * 0.38, f"w = {fmt_weight(weight)}", ha="center",
+                    va="center", fontsize=9, color=_INK, zorder=3)
+        offset = radius * 0.32
+        for source, target, weight in self.edges:
+            (x1, y1), (x2, y2) = pos[source], pos[target]
+            length = math.hypot(x2 - x1, y2 - y1)
+            if length == 0:
+                continue  # a self-transition cannot be drawn (and the plan forbids it)
+            ux, uy = (x2 - x1) / length, (y2 - y1) / length
+            nx, ny = uy, -ux  # to the right of the direction of travel
+            start = (x1 + ux * radius + nx * offset, y1 + uy * radius + ny * offset)
+            end = (x2 - ux * radius + nx * offset, y2 - uy * radius + ny * offset)
+            ax.add_patch(FancyArrowPatch(start, end, arrowstyle="-|>", mutation_scale=16,
+                                         color=_LINE, linewidth=1.4, shrinkA=0, shrinkB=0,
+                                         zorder=1))
+            t = 0.35  # near the source, so that labels of crossing arrows do not meet
+            lx = start[0] + (end[0] - start[0]) * t + nx * 0.09
+            ly = start[1] + (end[1] - start[1]) * t + ny * 0.09
+            ax.text(lx, ly, fmt_weight(weight), ha="center", va="center", fontsize=9,
+                    color=_INK, zorder=4,
+                    bbox={"boxstyle": "round,pad=0.15", "facecolor": "white",
+                          "edgecolor": "none"})
+        ax.set_title("Graphical procedure: initial weights (w) and transition weights (arrows)",
+                     loc="left", color=_INK)
+        fig.supxlabel("After Bretz et al. (Statistics in Medicine 2009). When a hypothesis is "
+                      "rejected, its alpha passes along its arrows.",
+                      x=0.01, ha="left", fontsize=8, color=_LINE)
+        if not self.nodes:
+            ax.text(0.0, 0.0, "no weights in results.json", ha="center", va="center",
+                    color=_LINE)
+        return fig

@@ -41,7 +41,7 @@ _HTML_TEMPLATE = """\
 {% block data_png scoped %}
 <div class="jp-RenderedImage jp-OutputArea-output {{ extra_class }}">
 <img src="data:image/png;base64,{{ output.data['image/png'] | escape_html }}" \
-alt="{{ (output | get_metadata('alt', 'image/png')) or 'figure' | escape_html }}">
+alt="{{ ((output | get_metadata('alt', 'image/png')) or 'figure') | escape_html }}">
 </div>
 {%- endblock data_png %}
 {%- block html_head_css -%}

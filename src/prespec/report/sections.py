@@ -1,8 +1,9 @@
 """The report's sections as HTML, built from ``results.json`` and nothing else.
 
 Each function takes the loaded results (or one part of them) and returns an HTML fragment that
-the report notebook displays. Every string that comes from results.json is escaped with
-:func:`html.escape`: titles, group names and details come from user plans and data.
+the report notebook displays. Every string that comes from results.json passes through
+:func:`esc`: titles, group names and details come from user plans and data, so they are shown
+as text and never become markup. Every fragment starts with a tag, never with user text.
 """
 
 from __future__ import annotations
@@ -12,7 +13,13 @@ import json
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-from prespec.report.figures import DIFFERENCES, has_estimates, proportions_name
+from prespec.report.figures import (
+    DIFFERENCES,
+    MULTIPLICITY_GRAPH,
+    has_estimates,
+    has_graph,
+    proportions_name,
+)
 from prespec.report.values import (
     DEFAULT_CAUTION,
     NULL,
@@ -22,12 +29,17 @@ from prespec.report.values import (
     fmt_interval,
     fmt_level,
     fmt_p,
+    fmt_rate,
     fmt_statistic,
+    fmt_thousands,
+    fmt_weight,
     items,
     mapping,
     number,
     pair,
+    plain,
     text,
+    visible,
 )
 
 KINDS = {"run": "Analysis run", "rehearsal": "Blinded rehearsal"}
@@ -36,11 +48,17 @@ _BOX = "border:2px solid {c};background:{b};padding:0.6em 0.9em;margin:0.8em 0;"
 _CAUTION_STYLE = _BOX.format(c="#7a4b00", b="#fff6e0")
 _DEPARTURE_STYLE = _BOX.format(c="#8b1a1a", b="#fdecec")
 _QUIET_STYLE = _BOX.format(c="#4d6b4d", b="#f0f6f0")
-
+_OVERRIDE_STYLE = _BOX.format(c="#8b1a1a", b="#fff0d6")
+_DISAGREE_STYLE = _BOX.format(c="#5a3d8a", b="#f3effa")
+_BADGE_STYLE = (
+    "display:inline-block;background:#8b1a1a;color:#ffffff;font-size:0.75em;"
+    "font-weight:700;padding:0.05em 0.45em;border-radius:3px;vertical-align:middle;"
+)
+_FOLLOWUP_STYLE = "margin:0.4em 0 1.2em 1.4em;padding-left:1em;border-left:3px solid #bdbdbd;"
 
 def esc(value: object) -> str:
-    """HTML-escape any value shown in the report."""
-    return html.escape(str(value), quote=True)
+    """HTML-escape any value shown in the report, quotes included; control characters visible."""
+    return html.escape(visible(str(value)), quote=True)
 
 
 def table(
@@ -49,8 +67,9 @@ def table(
     *,
     numeric: Iterable[int] = (),
     cls: str = "",
+    caption: str = "",
 ) -> str:
-    """A plain HTML table; cells are escaped here, so pass them as plain text.
+    """A plain HTML table; cells and caption are escaped here, so pass them as plain text.
 
     Columns whose index is in ``numeric`` are right-aligned.
     """
@@ -64,7 +83,11 @@ def table(
         "<tr>" + "".join(cell(j, c) for j, c in enumerate(row)) + "</tr>" for row in rows
     )
     klass = f"prespec {cls}".strip()
-    return f'<table class="{esc(klass)}"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
+    cap = f'<caption style="text-align:left">{esc(caption)}</caption>' if caption else ""
+    return (
+        f'<table class="{esc(klass)}">{cap}<thead><tr>{head}</tr></thead>'
+        f"<tbody>{body}</tbody></table>"
+    )
 
 
 def fields(rows: Iterable[tuple[str, str]]) -> str:
@@ -139,6 +162,7 @@ def departures(results: Mapping[str, Any]) -> str:
             f'<div class="prespec-departures" style="{_QUIET_STYLE}">'
             "No departures from the plan were recorded.</div>"
         )
+    out.append(overrides(results))
     notes = []
     for i, raw in enumerate(items(results.get("notes"), "notes")):
         note = mapping(raw, f"notes[{i}]")
@@ -146,6 +170,40 @@ def departures(results: Mapping[str, Any]) -> str:
     out.append("<h3>Notes</h3>")
     out.append(table(["Code", "Detail"], notes) if notes else "<p>No notes were recorded.</p>")
     return "".join(out)
+
+
+def override_rows(results: Mapping[str, Any], hid: str | None = None) -> list[list[str]]:
+    """The command-line overrides as (setting, locked value, value used) rows.
+
+    With ``hid``, only those that concern that hypothesis: its own keys
+    (``hypotheses.<hid>.…``) and the keys that are not about one hypothesis (``alpha``).
+    """
+    rows = []
+    for i, raw in enumerate(items(results.get("overrides"), "overrides")):
+        over = mapping(raw, f"overrides[{i}]")
+        key = text(over.get("key"), f"overrides[{i}].key", default=NULL)
+        if hid is not None and key.startswith("hypotheses.") and not key.startswith(
+            f"hypotheses.{hid}."
+        ):
+            continue
+        rows.append([key, plain(over.get("locked")), plain(over.get("used"))])
+    return rows
+
+
+def overrides(results: Mapping[str, Any]) -> str:
+    """The command-line overrides of the locked analysis in a highlighted box, or nothing."""
+    rows = override_rows(results)
+    if not rows:
+        return ""
+    count = f"{len(rows)} command-line override{'s' if len(rows) != 1 else ''}"
+    return (
+        f'<div class="prespec-overrides" style="{_OVERRIDE_STYLE}">'
+        f"<strong>{esc(count)} of the locked analysis.</strong> The command line replaced "
+        "what the locked plan fixed in advance. The hypotheses these settings touch are marked "
+        "“not pre-specified”: their results are not those of the pre-specified analysis."
+        + table(["Setting", "Locked value", "Value used"], rows)
+        + "</div>"
+    )
 
 
 def population(results: Mapping[str, Any]) -> str:
@@ -199,24 +257,67 @@ def outcome_table(name: str, rows: object) -> str:
     return f"<h3>Outcome: {esc(name)}</h3>" + table(head, body, numeric=range(1, 6))
 
 
-def _compare_label(compare: object, where: str) -> str:
+#: How a measure is named in the report.
+MEASURES = {
+    "risk-difference": "risk difference",
+    "risk-ratio": "risk ratio",
+    "odds-ratio": "odds ratio",
+    "proportion": "proportion",
+}
+
+#: How a homogeneity test is named in its note line.
+HOMOGENEITY_TESTS = {
+    "breslow-day-tarone": "Breslow–Day test with Tarone's correction",
+    "breslow-day": "Breslow–Day test",
+}
+
+GRAPHICAL_REFERENCE = (
+    "Bretz et al. (Statistics in Medicine 2009), “A graphical approach to sequentially "
+    "rejective multiple test procedures”"
+)
+
+
+def measure_label(measure: str) -> str:
+    """``risk-ratio`` -> ``risk ratio``; an unknown measure is shown as written."""
+    return MEASURES.get(measure, measure)
+
+
+def _compare_label(hyp: Mapping[str, Any], where: str) -> str:
+    compare = hyp.get("compare")
+    kind = text(hyp.get("kind"), f"{where}.kind", default="")
+    if compare is None and kind:
+        compare = kind
     if isinstance(compare, str):
         return {"all": "all groups", "trend": "trend across groups"}.get(compare, compare)
     groups = [text(g, f"{where}.compare") for g in items(compare, f"{where}.compare")]
     if len(groups) == 2:
         return f"{groups[0]} vs {groups[1]}"
     if len(groups) == 1:
+        rate = number(hyp.get("null_rate"), f"{where}.null_rate")
+        if rate is not None:
+            return f"{groups[0]} against the fixed rate {fmt_rate(rate)}"
         return f"{groups[0]} against a fixed rate"
     return ", ".join(groups) or NULL
 
 
-def _margin_label(margin: object, where: str) -> str:
+def _measure_of(hyp: Mapping[str, Any], where: str) -> str:
+    if hyp.get("estimate") is None:
+        return ""
+    est = mapping(hyp["estimate"], f"{where}.estimate")
+    return text(est.get("measure"), f"{where}.estimate.measure", default="")
+
+
+def _margin_label(hyp: Mapping[str, Any], where: str) -> str:
+    margin = hyp.get("margin")
     if margin is None:
         return NULL
     if isinstance(margin, list):
         low, high = pair(margin, f"{where}.margin")
-        return f"{fmt_estimate(low)} to {fmt_estimate(high)}"
-    return fmt_estimate(number(margin, f"{where}.margin"))
+        shown = f"{fmt_estimate(low)} to {fmt_estimate(high)}"
+    else:
+        shown = fmt_estimate(number(margin, f"{where}.margin"))
+    measure = _measure_of(hyp, where)
+    return f"{shown} ({measure_label(measure)})" if measure else shown
 
 
 def _rule_label(rule: object, where: str) -> str:
@@ -240,13 +341,33 @@ def is_exploratory(hyp: Mapping[str, Any]) -> bool:
     return hyp.get("role") == "exploratory"
 
 
+def is_prespecified(hyp: Mapping[str, Any], where: str) -> bool:
+    """False only when results.json says ``pre_specified: false`` (an override)."""
+    value = hyp.get("pre_specified")
+    if value is None:
+        return True
+    if not isinstance(value, bool):
+        raise_type(f"{where}.pre_specified", "true, false or null", value)
+    return bool(value)
+
+
+def gate(hyp: Mapping[str, Any], where: str) -> str:
+    """A follow-up comparison's gate, ``open`` or ``closed``; ``""`` for any other hypothesis."""
+    return text(hyp.get("gate"), f"{where}.gate", default="")
+
+
 def decision(hyp: Mapping[str, Any], where: str) -> str:
-    """``reject H0``, ``do not reject H0``, or ``—`` when results.json gives none."""
+    """``reject H0``, ``do not reject H0``, or ``—`` when results.json gives none.
+
+    A follow-up comparison behind a closed gate was not tested, and says so.
+    """
     reject = hyp.get("reject")
+    if reject is not None and not isinstance(reject, bool):
+        raise_type(f"{where}.reject", "true, false or null", reject)
+    if gate(hyp, where) == "closed":
+        return "not tested (gate closed)"
     if reject is None:
         return NULL
-    if not isinstance(reject, bool):
-        raise_type(f"{where}.reject", "true, false or null", reject)
     return "reject H0" if reject else "do not reject H0"
 
 
@@ -257,12 +378,39 @@ def raise_type(path: str, expected: str, found: object) -> None:
     raise PrespecError(f"results.json: {path}: expected {expected}, found {found!r}")
 
 
+def _ordered(results: Mapping[str, Any]) -> list[tuple[Mapping[str, Any], str, list[Any]]]:
+    """The hypotheses in results.json order, each follow-up comparison moved under its parent.
+
+    Returns (hypothesis, position, follow-ups) for each hypothesis without a parent, and one
+    entry for each group of follow-ups whose parent is not in results.json (as a parent-less
+    group at the end). A follow-up is a (hypothesis, position) pair.
+    """
+    raws = items(results.get("hypotheses"), "hypotheses")
+    hyps = [(mapping(raw, f"hypotheses[{i}]"), f"hypotheses[{i}]") for i, raw in enumerate(raws)]
+    ids = {text(h.get("id"), f"{pos}.id") for h, pos in hyps}
+    children: dict[str, list[Any]] = {}
+    for h, pos in hyps:
+        parent = h.get("parent")
+        if parent is not None:
+            children.setdefault(text(parent, f"{pos}.parent"), []).append((h, pos))
+    out: list[tuple[Mapping[str, Any], str, list[Any]]] = []
+    for h, pos in hyps:
+        if h.get("parent") is None:
+            out.append((h, pos, children.get(text(h.get("id"), f"{pos}.id"), [])))
+    for parent, kids in children.items():
+        if parent not in ids:
+            out.append(({"id": parent, "_missing": True}, "", kids))
+    return out
+
+
 def hypotheses(results: Mapping[str, Any]) -> list[str]:
-    """Each hypothesis as an HTML fragment, in results.json order."""
+    """Each hypothesis as an HTML fragment, its follow-up comparisons grouped after it."""
     out = []
-    for i, raw in enumerate(items(results.get("hypotheses"), "hypotheses")):
-        hyp = mapping(raw, f"hypotheses[{i}]")
-        out.append(hypothesis(hyp, f"hypotheses[{i}]"))
+    for hyp, position, kids in _ordered(results):
+        if not hyp.get("_missing"):
+            out.append(hypothesis(hyp, position, results=results))
+        if kids:
+            out.append(followups(hyp, kids, results))
     return out
 
 
@@ -273,24 +421,75 @@ def hypotheses_heading(results: Mapping[str, Any]) -> str:
     return "<h2>Hypotheses</h2><p>results.json holds no tested hypotheses.</p>"
 
 
-def hypothesis(hyp: Mapping[str, Any], position: str) -> str:
-    """One hypothesis: its definition, its count table, its estimate and its test."""
-    hid = text(hyp.get("id"), f"{position}.id")
-    where = f"hypotheses.{hid}"
-    title = text(hyp.get("title"), f"{where}.title", default="")
-    role = text(hyp.get("role"), f"{where}.role", default=NULL)
+def _families(kids: Sequence[tuple[Mapping[str, Any], str]]) -> str:
+    names = list(dict.fromkeys(
+        text(h.get("family"), f"{pos}.family", default="") for h, pos in kids
+    ))
+    names = [n for n in names if n]
+    if not names:
+        return "their own family"
+    quoted = ", ".join(f"“{n}”" for n in names)
+    return f"the family {quoted}" if len(names) == 1 else f"the families {quoted}"
+
+
+def gate_sentence(parent: str, kids: Sequence[tuple[Mapping[str, Any], str]]) -> str:
+    """The sentence that explains the gatekeeping of one parent's follow-up comparisons."""
+    gates = {gate(h, f"{pos}.gate") for h, pos in kids}
+    rule = (
+        "This is gatekeeping, fixed in the plan: the follow-up comparisons are tested only "
+        f"when the test of {parent} is rejected after its own multiplicity adjustment, so that "
+        "the chance of any false rejection stays within alpha."
+    )
+    if gates == {"open"}:
+        return (
+            f"{parent} was rejected, so its follow-up comparisons below were tested. {rule} "
+            f"Their p-values are adjusted within {_families(kids)}."
+        )
+    if gates == {"closed"}:
+        return (
+            f"{parent} was not rejected, so its follow-up comparisons below were not tested. "
+            f"{rule} Their p-values are shown for information only: nominal, with no adjusted "
+            "p-value, and none of them is rejected."
+        )
+    return f"{rule} Each follow-up comparison below shows its own gate."
+
+
+def followups(
+    parent: Mapping[str, Any],
+    kids: Sequence[tuple[Mapping[str, Any], str]],
+    results: Mapping[str, Any] | None = None,
+) -> str:
+    """One parent's follow-up comparisons, with the sentence that explains their gate."""
+    pid = text(parent.get("id"), "hypotheses.parent", default=NULL)
+    missing = " (not in results.json)" if parent.get("_missing") else ""
+    parts = [
+        (f'<h3 class="prespec-followups-title">Follow-up comparisons of {esc(pid)}'
+         f"{esc(missing)}</h3>"),
+        f'<p class="prespec-gate">{esc(gate_sentence(pid, kids))}</p>',
+    ]
+    parts += [hypothesis(h, pos, results=results, level=4) for h, pos in kids]
+    return f'<div class="prespec-followups" style="{_FOLLOWUP_STYLE}">' + "".join(parts) + "</div>"
+
+
+def _definition_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
     used = text(hyp.get("test"), f"{where}.test", default=NULL)
     planned = text(hyp.get("planned_test"), f"{where}.planned_test", default=used)
     rows = [
-        ("Role", role),
+        ("Role", text(hyp.get("role"), f"{where}.role", default=NULL)),
         ("Outcome", text(hyp.get("outcome"), f"{where}.outcome", default=NULL)),
-        ("Comparison", _compare_label(hyp.get("compare"), where)),
-        ("Alternative", text(hyp.get("alternative"), f"{where}.alternative", default=NULL)),
+        ("Comparison", _compare_label(hyp, where)),
     ]
+    rate = number(hyp.get("null_rate"), f"{where}.null_rate")
+    if rate is not None:
+        rows.append(("Null hypothesis", f"H0: p = {fmt_rate(rate)}"))
+    rows.append(("Alternative", text(hyp.get("alternative"), f"{where}.alternative", default=NULL)))
     kind = text(hyp.get("comparison"), f"{where}.comparison", default="")
     if (kind and kind != "superiority") or hyp.get("margin") is not None:
         rows.append(("Type", kind or NULL))
-        rows.append(("Margin", _margin_label(hyp.get("margin"), where)))
+        rows.append(("Margin", _margin_label(hyp, where)))
+    strata = items(hyp.get("strata"), f"{where}.strata")
+    if strata:
+        rows.append(("Strata", ", ".join(text(s, f"{where}.strata") for s in strata)))
     rows.append(("Test used", used))
     if hyp.get("rule") is not None or planned != used:
         rows.append(("Planned test", planned))
@@ -298,12 +497,54 @@ def hypothesis(hyp: Mapping[str, Any], position: str) -> str:
         rows.append(("Switch", _rule_label(hyp["rule"], where)))
     if hyp.get("continuity") is True:
         rows.append(("Continuity correction", "yes"))
+    if hyp.get("parent") is not None:
+        parent = text(hyp.get("parent"), f"{where}.parent")
+        rows.append(("Follow-up of", parent))
+        shown = {
+            "open": f"open: tested because {parent} was rejected",
+            "closed": f"closed: not tested because {parent} was not rejected",
+        }
+        g = gate(hyp, where)
+        rows.append(("Gate", shown.get(g, g or NULL)))
+    if hyp.get("family") is not None:
+        rows.append(("Multiplicity family", text(hyp.get("family"), f"{where}.family")))
+    if not is_prespecified(hyp, where):
+        rows.append(("Pre-specified", "no: overridden on the command line"))
+    return rows
+
+
+def hypothesis(
+    hyp: Mapping[str, Any],
+    position: str,
+    *,
+    results: Mapping[str, Any] | None = None,
+    level: int = 3,
+) -> str:
+    """One hypothesis: its definition, its count tables, its estimate and its test.
+
+    ``results`` (the whole file) supplies the overrides that concern the hypothesis.
+    """
+    hid = text(hyp.get("id"), f"{position}.id")
+    where = f"hypotheses.{hid}"
+    title = text(hyp.get("title"), f"{where}.title", default="")
     heading = f"{hid} — {title}" if title else hid
-    badge = ' <span class="prespec-exploratory">(exploratory)</span>' if is_exploratory(hyp) else ""
-    parts = [f'<h3 class="prespec-hypothesis">{esc(heading)}{badge}</h3>', fields(rows)]
+    badges = ""
+    if not is_prespecified(hyp, where):
+        badges += f' <span class="prespec-badge-override" style="{_BADGE_STYLE}">not pre-specified</span>'
+    if is_exploratory(hyp):
+        badges += ' <span class="prespec-exploratory">(exploratory)</span>'
+    h = f"h{level}"
+    parts = [f'<{h} class="prespec-hypothesis">{esc(heading)}{badges}</{h}>']
+    if not is_prespecified(hyp, where):
+        parts.append(_not_prespecified_box(hyp, hid, results or {}))
+    parts.append(fields(_definition_rows(hyp, where)))
     if hyp.get("table") is not None:
-        parts.append(count_table(hyp["table"], hyp.get("expected"), where))
+        parts.append(count_table(hyp["table"], hyp.get("expected"), where, hyp.get("scores")))
+    if hyp.get("strata_tables") is not None:
+        parts.append(strata_tables(hyp, where))
     parts.append(fields(result_rows(hyp, where)))
+    parts += [p for p in (_disagreement(hyp, where), monte_carlo_line(hyp, where),
+                          homogeneity_line(hyp, where)) if p]
     if is_exploratory(hyp):
         parts.append(
             "<p><em>Exploratory: the p-value is nominal, not adjusted for multiplicity, and "
@@ -312,8 +553,22 @@ def hypothesis(hyp: Mapping[str, Any], position: str) -> str:
     return '<div class="prespec-hyp">' + "".join(parts) + "</div>"
 
 
-def count_table(raw: object, expected: object, where: str) -> str:
-    """Events, non-events and total per group, with the expected counts beside them."""
+def _not_prespecified_box(hyp: Mapping[str, Any], hid: str, results: Mapping[str, Any]) -> str:
+    rows = override_rows(results, hid)
+    listing = table(["Setting", "Locked value", "Value used"], rows) if rows else ""
+    return (
+        f'<div class="prespec-not-prespecified" style="{_OVERRIDE_STYLE}">'
+        "<strong>Not pre-specified.</strong> The command line overrode the locked analysis "
+        "for this hypothesis, so this result is not the one the plan fixed in advance."
+        f"{listing}</div>"
+    )
+
+
+def count_table(raw: object, expected: object, where: str, scores: object = None) -> str:
+    """Events, non-events and total per group, with the expected counts beside them if given.
+
+    With ``scores`` (a trend test), each group's score stands beside its name.
+    """
     tab = mapping(raw, f"{where}.table")
     groups = items(tab.get("groups"), f"{where}.table.groups")
     events = items(tab.get("events"), f"{where}.table.events")
@@ -323,19 +578,173 @@ def count_table(raw: object, expected: object, where: str) -> str:
     exp = items(expected, f"{where}.expected")
     if exp and len(exp) != len(groups):
         raise_type(f"{where}.expected", f"{len(groups)} rows", expected)
+    score_list = items(scores, f"{where}.scores")
+    if score_list and len(score_list) != len(groups):
+        raise_type(f"{where}.scores", f"{len(groups)} numbers", scores)
     body = []
     for j, group in enumerate(groups):
         ev = number(events[j], f"{where}.table.events[{j}]")
         tot = number(totals[j], f"{where}.table.totals[{j}]")
         non = tot - ev if ev is not None and tot is not None else None
-        e_ev, e_non = pair(exp[j], f"{where}.expected[{j}]") if exp else (None, None)
-        body.append([
-            text(group, f"{where}.table.groups[{j}]"),
-            fmt_count(ev), fmt_count(non), fmt_count(tot),
-            fmt_expected(e_ev), fmt_expected(e_non),
-        ])
-    head = ["Group", "Events", "Non-events", "Total", "Expected events", "Expected non-events"]
-    return table(head, body, numeric=range(1, 6), cls="prespec-counts")
+        row = [text(group, f"{where}.table.groups[{j}]")]
+        if score_list:
+            row.append(fmt_weight(number(score_list[j], f"{where}.scores[{j}]")))
+        row += [fmt_count(ev), fmt_count(non), fmt_count(tot)]
+        if exp:
+            e_ev, e_non = pair(exp[j], f"{where}.expected[{j}]")
+            row += [fmt_expected(e_ev), fmt_expected(e_non)]
+        body.append(row)
+    head = ["Group", "Events", "Non-events", "Total"]
+    if exp:  # expected counts under H0, when results.json gives them
+        head += ["Expected events", "Expected non-events"]
+    if score_list:
+        head.insert(1, "Score")
+    return table(head, body, numeric=range(1, len(head)), cls="prespec-counts")
+
+
+def _stratum_label(raw: object, where: str) -> str:
+    stratum = mapping(raw, where)
+    return ", ".join(f"{k} = {plain(v)}" for k, v in stratum.items()) or NULL
+
+
+def strata_tables(hyp: Mapping[str, Any], where: str) -> str:
+    """One small table of events, non-events and total per group for each stratum."""
+    groups = items(mapping(hyp.get("table") or {}, f"{where}.table").get("groups"),
+                   f"{where}.table.groups")
+    out = ['<div class="prespec-strata"><p>Counts in each stratum:</p>']
+    for i, raw in enumerate(items(hyp.get("strata_tables"), f"{where}.strata_tables")):
+        at = f"{where}.strata_tables[{i}]"
+        entry = mapping(raw, at)
+        events = items(entry.get("events"), f"{at}.events")
+        totals = items(entry.get("totals"), f"{at}.totals")
+        if not (len(groups) == len(events) == len(totals)):
+            raise_type(at, f"events and totals for the {len(groups)} groups of the table",
+                       dict(entry))
+        body = []
+        for j, group in enumerate(groups):
+            ev = number(events[j], f"{at}.events[{j}]")
+            tot = number(totals[j], f"{at}.totals[{j}]")
+            non = tot - ev if ev is not None and tot is not None else None
+            body.append([text(group, f"{where}.table.groups[{j}]"),
+                         fmt_count(ev), fmt_count(non), fmt_count(tot)])
+        label = _stratum_label(entry.get("stratum") or {}, f"{at}.stratum")
+        out.append(table(["Group", "Events", "Non-events", "Total"], body, numeric=(1, 2, 3),
+                         cls="prespec-stratum", caption=f"Stratum: {label}"))
+    out.append("</div>")
+    return "".join(out)
+
+
+def homogeneity_line(hyp: Mapping[str, Any], where: str) -> str:
+    """The note line of a homogeneity test across strata, or ``""``.
+
+    The test itself (Breslow and Day 1980, with the correction of Tarone 1985) is computed by
+    the statistics room; the report shows its statistic, df and p-value.
+    """
+    if hyp.get("homogeneity") is None:
+        return ""
+    at = f"{where}.homogeneity"
+    hom = mapping(hyp["homogeneity"], at)
+    name = text(hom.get("test"), f"{at}.test", default="homogeneity test")
+    statistic = fmt_statistic(number(hom.get("statistic"), f"{at}.statistic"))
+    df = number(hom.get("df"), f"{at}.df")
+    if df is not None:
+        statistic += f" (df {fmt_count(df)})"
+    p = fmt_p(number(hom.get("p_value"), f"{at}.p_value"))
+    line = (
+        f"{HOMOGENEITY_TESTS.get(name, name)}: statistic {statistic}, p-value {p}. "
+        "It asks whether the odds ratio is the same in every stratum; it is a note and does "
+        "not enter the decision."
+    )
+    return f'<p class="prespec-homogeneity">{esc(line)}</p>'
+
+
+def monte_carlo_line(hyp: Mapping[str, Any], where: str) -> str:
+    """``Monte Carlo p-value from 100,000 tables (seed 1), standard error 0.0012.``, or ``""``."""
+    if hyp.get("monte_carlo") is None:
+        return ""
+    at = f"{where}.monte_carlo"
+    mc = mapping(hyp["monte_carlo"], at)
+    tables = fmt_thousands(number(mc.get("tables"), f"{at}.tables"))
+    seed = plain(mc.get("seed"))
+    se = number(mc.get("standard_error"), f"{at}.standard_error")
+    line = (
+        f"Monte Carlo p-value from {tables} tables (seed {seed}), standard error "
+        f"{NULL if se is None else f'{se:.2g}'}."
+    )
+    return f'<p class="prespec-monte-carlo">{esc(line)}</p>'
+
+
+def _margin_check(hyp: Mapping[str, Any], where: str) -> tuple[bool | None, bool | None]:
+    if hyp.get("margin_check") is None:
+        return (None, None)
+    at = f"{where}.margin_check"
+    check = mapping(hyp["margin_check"], at)
+    out: list[bool | None] = []
+    for key in ("interval_excludes_margin", "agrees_with_test"):
+        value = check.get(key)
+        if value is not None and not isinstance(value, bool):
+            raise_type(f"{at}.{key}", "true, false or null", value)
+        out.append(value)
+    return (out[0], out[1])
+
+
+def _interval_words(hyp: Mapping[str, Any], where: str) -> str:
+    if hyp.get("estimate") is None:
+        return "the interval"
+    est = mapping(hyp["estimate"], f"{where}.estimate")
+    level = number(est.get("level"), f"{where}.estimate.level")
+    low, high = pair(est.get("ci"), f"{where}.estimate.ci")
+    lead = f"the {fmt_level(level)} interval" if level is not None else "the interval"
+    return f"{lead} {fmt_interval(low, high)}"
+
+
+def margin_sentence(hyp: Mapping[str, Any], where: str) -> str:
+    """Where the interval lies against the margin, as results.json's margin check says."""
+    excludes, _ = _margin_check(hyp, where)
+    if excludes is None:
+        return NULL
+    interval = _interval_words(hyp, where)
+    margin = _margin_label(hyp, where)
+    if isinstance(hyp.get("margin"), list):
+        side = "lies inside" if excludes else "does not lie inside"
+        return f"{interval} {side} the margins {margin}"
+    side = "excludes" if excludes else "does not exclude"
+    return f"{interval} {side} the margin {margin}"
+
+
+def _disagreement(hyp: Mapping[str, Any], where: str) -> str:
+    excludes, agrees = _margin_check(hyp, where)
+    if agrees is not False:
+        return ""
+    if excludes is None:
+        sides = "the interval and the test point to different conclusions"
+    elif excludes:
+        sides = "the interval excludes the margin, but the test does not reject H0"
+    else:
+        sides = "the interval does not exclude the margin, but the test rejects H0"
+    words = (
+        f"Here the interval and the test disagree: {sides}. This can happen "
+        "because the two are built from different statistics: the interval's method and the "
+        "test's statistic estimate the variance differently (a score test, for one, takes it "
+        "under the margin), and the p-value may be adjusted for multiplicity while the interval "
+        "never is. Close to the margin they can then fall on different sides. The decision "
+        "shown is the test's."
+    )
+    return (
+        f'<div class="prespec-disagree" style="{_DISAGREE_STYLE}">'
+        f"<strong>The test decides.</strong> {esc(words)}</div>"
+    )
+
+
+def _no_estimate(hyp: Mapping[str, Any], where: str) -> str | None:
+    kind = text(hyp.get("kind"), f"{where}.kind", default="")
+    compare = hyp.get("compare")
+    kind = kind or (compare if isinstance(compare, str) else "")
+    if kind == "all":
+        return "none: a test across all groups has no single estimate"
+    if kind == "trend":
+        return "none: a trend test has no single estimate"
+    return None
 
 
 def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
@@ -347,10 +756,19 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
         low, high = pair(est.get("ci"), f"{where}.estimate.ci")
         level = number(est.get("level"), f"{where}.estimate.level")
         method = text(est.get("ci_method"), f"{where}.estimate.ci_method", default="")
-        rows.append((f"Estimate ({measure})",
+        rows.append((f"Estimate ({measure_label(measure)})",
                      fmt_estimate(number(est.get("value"), f"{where}.estimate.value"))))
         label = " ".join(s for s in (fmt_level(level) if level is not None else "", method) if s)
         rows.append((f"Interval ({label})" if label else "Interval", fmt_interval(low, high)))
+        if est.get("note") is not None:
+            rows.append(("Estimate note", text(est.get("note"), f"{where}.estimate.note")))
+    elif (none := _no_estimate(hyp, where)) is not None:
+        rows.append(("Estimate", none))
+    if hyp.get("margin_check") is not None:
+        rows.append(("Interval against the margin", margin_sentence(hyp, where)))
+        _, agrees = _margin_check(hyp, where)
+        if agrees is not None:
+            rows.append(("Interval and test", "agree" if agrees else "disagree: the test decides"))
     statistic = fmt_statistic(number(hyp.get("statistic"), f"{where}.statistic"))
     df = number(hyp.get("df"), f"{where}.df")
     if df is not None:
@@ -359,6 +777,10 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
     p = fmt_p(number(hyp.get("p_value"), f"{where}.p_value"))
     if is_exploratory(hyp):
         rows.append(("Nominal p-value (exploratory)", p))
+    elif gate(hyp, where) == "closed":
+        rows.append(("Nominal p-value (not tested)", p))
+        rows.append(("Adjusted p-value", NULL))
+        rows.append(("Decision", decision(hyp, where)))
     else:
         rows.append(("p-value", p))
         rows.append(("Adjusted p-value", fmt_p(number(hyp.get("p_adjusted"), f"{where}.p_adjusted"))))
@@ -371,6 +793,11 @@ def forest_figure(results: Mapping[str, Any]) -> str | None:
     return DIFFERENCES if has_estimates(results) else None
 
 
+def multiplicity_figure(results: Mapping[str, Any]) -> str | None:
+    """The relative path of the graph of the graphical procedure, or None without one."""
+    return MULTIPLICITY_GRAPH if has_graph(results) else None
+
+
 def multiplicity_name(results: Mapping[str, Any]) -> str:
     """The multiplicity method's name (a mapping for ``graphical`` gives its ``method``)."""
     value = results.get("multiplicity")
@@ -379,35 +806,91 @@ def multiplicity_name(results: Mapping[str, Any]) -> str:
     return text(value, "multiplicity", default=NULL)
 
 
+def _graph_parts(value: Mapping[str, Any]) -> list[str]:
+    weights = mapping(value.get("weights") or {}, "multiplicity.weights")
+    out = [
+        f'<p class="prespec-graphical">{esc(_GRAPH_SENTENCE)}</p>',
+    ]
+    if weights:
+        rows = [[text(k, "multiplicity.weights"),
+                 fmt_weight(number(w, f"multiplicity.weights.{k}"))] for k, w in weights.items()]
+        out.append(table(["Hypothesis", "Initial weight"], rows, numeric=(1,),
+                         cls="prespec-weights", caption="Initial weights"))
+    transitions = mapping(value.get("transitions") or {}, "multiplicity.transitions")
+    rows = []
+    for source, targets in transitions.items():
+        at = f"multiplicity.transitions.{source}"
+        for target, w in mapping(targets, at).items():
+            rows.append([str(source), str(target), fmt_weight(number(w, f"{at}.{target}"))])
+    if rows:
+        out.append(table(["From", "To", "Transition weight"], rows, numeric=(2,),
+                         cls="prespec-transitions", caption="Transitions"))
+    else:
+        out.append("<p>No transitions: the alpha of a rejected hypothesis is not passed on.</p>")
+    return out
+
+
+_GRAPH_SENTENCE = (
+    f"The graphical procedure of {GRAPHICAL_REFERENCE}: each hypothesis starts with its initial "
+    "weight times alpha; when a hypothesis is rejected, its share of alpha passes to the others "
+    "along the arrows, in proportion to the transition weights, and the graph is updated. The "
+    "figure below draws the graph as the plan fixed it."
+)
+
+
+def _family_label(hyp: Mapping[str, Any], where: str, method: str) -> str:
+    if hyp.get("family") is not None:
+        return text(hyp.get("family"), f"{where}.family")
+    if is_exploratory(hyp):
+        return "none (exploratory)"
+    return f"main ({method})"
+
+
 def multiplicity(results: Mapping[str, Any]) -> str:
-    """The multiplicity method and the raw against adjusted p-values."""
+    """The multiplicity method and the raw against adjusted p-values, by family."""
     out = ["<h2>Multiplicity</h2>"]
-    rows = [("Method", multiplicity_name(results)), ("Alpha", _optional(results, "alpha"))]
+    method = multiplicity_name(results)
+    rows = [("Method", method), ("Alpha", _optional(results, "alpha"))]
     value = results.get("multiplicity")
+    graph: list[str] = []
     if isinstance(value, Mapping):
-        rest = {k: v for k, v in value.items() if k != "method"}
+        known = {"method", "weights", "transitions"} if method == "graphical" else {"method"}
+        rest = {k: v for k, v in value.items() if k not in known}
         if rest:
-            rows.append(("Settings", json.dumps(rest, sort_keys=True)))
+            rows.append(("Settings", json.dumps(rest, sort_keys=True, ensure_ascii=False)))
+        if method == "graphical":
+            graph = _graph_parts(value)
     out.append(fields(rows))
+    out += graph
+    flat = [(h, pos) for h, pos, kids in _ordered(results) if not h.get("_missing")
+            for h, pos in [(h, pos), *kids]]
+    flat += [k for h, _, kids in _ordered(results) if h.get("_missing") for k in kids]
+    with_family = any(h.get("family") is not None for h, _ in flat)
     body = []
-    for i, raw in enumerate(items(results.get("hypotheses"), "hypotheses")):
-        hyp = mapping(raw, f"hypotheses[{i}]")
-        hid = text(hyp.get("id"), f"hypotheses[{i}].id")
+    for hyp, pos in flat:
+        hid = text(hyp.get("id"), f"{pos}.id")
         where = f"hypotheses.{hid}"
         p = fmt_p(number(hyp.get("p_value"), f"{where}.p_value"))
+        role = text(hyp.get("role"), f"{where}.role", default=NULL)
+        if not is_prespecified(hyp, where):
+            role += ", not pre-specified"
+        family = [_family_label(hyp, where, method)] if with_family else []
         if is_exploratory(hyp):
-            body.append([hid, "exploratory", p, "not adjusted", "no decision"])
+            body.append([hid, role, *family, p, "not adjusted", "no decision"])
         else:
-            body.append([
-                hid,
-                text(hyp.get("role"), f"{where}.role", default=NULL),
-                p,
-                fmt_p(number(hyp.get("p_adjusted"), f"{where}.p_adjusted")),
-                decision(hyp, where),
-            ])
+            adjusted = NULL if gate(hyp, where) == "closed" else fmt_p(
+                number(hyp.get("p_adjusted"), f"{where}.p_adjusted"))
+            body.append([hid, role, *family, p, adjusted, decision(hyp, where)])
     if body:
-        head = ["Hypothesis", "Role", "p-value", "Adjusted p-value", "Decision"]
-        out.append(table(head, body, numeric=(2, 3)))
+        head = ["Hypothesis", "Role", *(["Family"] if with_family else []), "p-value",
+                "Adjusted p-value", "Decision"]
+        first = 3 if with_family else 2
+        out.append(table(head, body, numeric=(first, first + 1)))
+        if with_family:
+            out.append(
+                "<p>Adjusted p-values are adjusted within their family: the main family by the "
+                "plan's method, each family of follow-up comparisons by its own.</p>"
+            )
     else:
         out.append("<p>No hypotheses were tested.</p>")
     return "".join(out)

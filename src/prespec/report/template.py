@@ -77,6 +77,10 @@ if forest is not None:
 '''),
     ("multiplicity", '''\
 display(HTML(sections.multiplicity(results)))
+graph = sections.multiplicity_figure(results)
+if graph is not None:
+    alt = "Graph of the graphical procedure: initial weights and transitions"
+    display(Image(filename=graph, metadata={"alt": alt}))
 '''),
     ("environment", '''\
 display(HTML(sections.environment(results)))

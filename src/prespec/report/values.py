@@ -12,6 +12,7 @@ and ``—`` for a value that is null (not computable).
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -23,6 +24,21 @@ NULL = "—"
 
 #: Shown if results.json carries no caution; the report never goes out without one.
 DEFAULT_CAUTION = CAUTION
+
+
+# Control characters (terminal escape sequences, NUL, line and paragraph separators) are
+# shown as visible escapes, so that nothing in a label is invisible or acts on the reader.
+_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def _escape_control(match: re.Match[str]) -> str:
+    code = ord(match.group())
+    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}"
+
+
+def visible(value: str) -> str:
+    """``value`` with each control character (other than tab and line breaks) as ``\\xNN``."""
+    return _CONTROL.sub(_escape_control, value)
 
 
 def _where(path: str) -> str:
@@ -124,3 +140,45 @@ def fmt_interval(low: float | None, high: float | None) -> str:
     if low is None and high is None:
         return NULL
     return f"({fmt_estimate(low)}, {fmt_estimate(high)})"
+
+
+def fmt_rate(value: float | None) -> str:
+    """A rate fixed by the plan (a null rate): at least 2 decimals, more when it has them.
+
+    0.3 -> ``0.30``, 0.125 -> ``0.125``.
+    """
+    if value is None:
+        return NULL
+    shown = f"{value:.6f}".rstrip("0")
+    whole, _, decimals = shown.partition(".")
+    return f"{whole}.{decimals.ljust(2, '0')}"
+
+
+def fmt_weight(value: float | None) -> str:
+    """A weight of the graphical procedure: up to 4 significant digits, 0.5 -> ``0.5``."""
+    return NULL if value is None else f"{value:.4g}"
+
+
+def fmt_thousands(value: float | None) -> str:
+    """A whole count with thousands separators: 100000 -> ``100,000``."""
+    if value is None:
+        return NULL
+    return f"{int(value):,}" if value == int(value) else f"{value:,.4g}"
+
+
+def fmt_error(value: float | None) -> str:
+    """A Monte Carlo standard error: 2 significant digits, 0.00123 -> ``0.0012``."""
+    return NULL if value is None else f"{value:.2g}"
+
+
+def plain(value: object) -> str:
+    """Any JSON value as text: strings as they are, numbers as written, the rest as JSON."""
+    if value is None:
+        return NULL
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str | int | float):
+        return str(value)
+    import json
+
+    return json.dumps(value, sort_keys=True, ensure_ascii=False)
