@@ -142,7 +142,8 @@ def difference_constrained_mle(
     c = δ² + δ(2p̂1 + θ + 1) + p̂1 + θp̂2 and d = −p̂1δ(1 + δ), taken by the trigonometric
     solution; p̃2 = p̃1 − δ. The log-likelihood is strictly concave in p2 on the admissible
     interval max(0, −δ) <= p2 <= min(1, 1 − δ), so the root is its unique maximiser; it is
-    clipped into that interval against rounding. delta must lie in [−1, 1].
+    clipped into that interval and refined by Newton steps against rounding (``_polish``).
+    delta must lie in [−1, 1].
 
     References
     ----------
@@ -172,7 +173,44 @@ def difference_constrained_mle(
         cosine = min(1.0, max(-1.0, v / u**3))
         root = 2.0 * u * math.cos((math.pi + math.acos(cosine)) / 3.0) - shift
     root = min(min(1.0, 1.0 + delta), max(max(0.0, delta), root))
-    return root, min(1.0, max(0.0, root - delta))
+    p2 = _polish(x1, n1, x2, n2, delta, min(1.0, max(0.0, root - delta)))
+    return min(1.0, max(0.0, p2 + delta)), p2
+
+
+def _log_likelihood(x1: int, n1: int, x2: int, n2: int, p1: float, p2: float) -> float:
+    """Binomial log-likelihood with 0·log 0 = 0 (−inf where an observed count has p = 0)."""
+    total = 0.0
+    for count, p in ((x1, p1), (n1 - x1, 1.0 - p1), (x2, p2), (n2 - x2, 1.0 - p2)):
+        if count:
+            total += count * math.log(p) if p > 0.0 else -math.inf
+    return total
+
+
+def _polish(x1: int, n1: int, x2: int, n2: int, delta: float, p2: float) -> float:
+    """Refine the closed-form p̃2 by up to four Newton steps on the log-likelihood in p2,
+    clipped to the admissible interval and kept only when the likelihood does not fall.
+
+    Where the admissible root of the cubic is close to a multiple root (e.g. every participant
+    an event, delta near 0) the trigonometric solution loses about half the digits; the
+    likelihood is strictly concave in p2, so Newton steps restore them.
+    """
+    low, high = max(0.0, -delta), min(1.0, 1.0 - delta)
+    best = _log_likelihood(x1, n1, x2, n2, p2 + delta, p2)
+    for _ in range(4):
+        p1 = p2 + delta
+        terms = ((x1, p1, 1.0), (n1 - x1, 1.0 - p1, -1.0), (x2, p2, 1.0), (n2 - x2, 1.0 - p2, -1.0))
+        if any(count and p <= 0.0 for count, p, _ in terms):
+            break
+        gradient = sum(sign * count / p for count, p, sign in terms if count)
+        curvature = -sum(count / (p * p) for count, p, _ in terms if count)
+        if gradient == 0.0 or curvature == 0.0:
+            break
+        step = min(high, max(low, p2 - gradient / curvature))
+        value = _log_likelihood(x1, n1, x2, n2, step + delta, step)
+        if step == p2 or value < best:
+            break
+        p2, best = step, value
+    return p2
 
 
 def _mn_difference_share(x1: int, n1: int, x2: int, n2: int, delta: float) -> float:
