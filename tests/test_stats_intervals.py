@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 
@@ -307,7 +308,7 @@ def test_mn_score_is_decreasing_on_a_grid() -> None:
         grid = [-0.999 + 1.998 * i / 400 for i in range(401)]
         d = args[0] / args[1] - args[2] / args[3]
         zs = [_mn_z(*args, delta) for delta in grid if abs(delta - d) > 1e-9]
-        assert all(a > b for a, b in zip(zs, zs[1:])), args
+        assert all(a > b for a, b in itertools.pairwise(zs)), args
 
 
 def test_mn_at_the_smallest_tables() -> None:
