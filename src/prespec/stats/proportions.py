@@ -162,3 +162,35 @@ def _fisher_two_sided(x1: int, law: stats.rv_discrete, low: int, high: int) -> f
     if above.size:
         p += float(law.sf(support[mode + 1 + above[0]] - 1))
     return p
+
+
+def likelihood_ratio(
+    events: Sequence[int], totals: Sequence[int], *, alternative: str = "two-sided"
+) -> TestResult:
+    """The likelihood-ratio (G²) test of equal proportions in a k×2 table, with k − 1 df.
+
+    G² = 2 Σ O ln(O / E) over the 2k cells of events and non-events, a cell with O = 0
+    contributing 0 (the limit of O ln O). Two-sided only: any other ``alternative`` is a
+    ValueError. As for Pearson's X², a zero expected count (a zero column margin: no events or
+    only events) leaves the test undefined, and statistic and p-value are ``nan``.
+
+    References
+    ----------
+    Wilks SS. The large-sample distribution of the likelihood ratio for testing composite
+    hypotheses. Annals of Mathematical Statistics 1938;9:60–62.
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, chapter 3 (G² for independence).
+    """
+    ev, tot = _checks.table(events, totals)
+    alt = _checks.alternative(alternative)
+    if alt != "two-sided":
+        raise ValueError(f"the likelihood-ratio test is two-sided only, got {alt!r}")
+    df = len(ev) - 1
+    method = "likelihood-ratio"
+    expected = expected_counts(ev, tot)
+    if np.any(expected == 0.0):
+        return TestResult(method, math.nan, df, math.nan, alt)
+    observed = np.column_stack([np.asarray(ev, float), np.asarray(tot, float) - ev])
+    positive = observed > 0.0
+    g2 = 2.0 * float(np.sum(observed[positive] * np.log(observed[positive] / expected[positive])))
+    g2 = max(0.0, g2)  # rounding can leave a tiny negative sum when O = E
+    return TestResult(method, g2, df, float(stats.chi2.sf(g2, df)), alt)
