@@ -7,7 +7,9 @@ nothing, so the tests check that what is drawn and shown is what results.json ho
 from __future__ import annotations
 
 import copy
+import itertools
 import json
+import math
 from pathlib import Path
 from typing import Any
 
@@ -18,7 +20,18 @@ from matplotlib.image import imread
 
 from prespec.errors import PrespecError
 from prespec.report import values
-from prespec.report.figures import DIFFERENCES, has_estimates, proportions_name, write_figures
+from prespec.report.figures import (
+    DIFFERENCES,
+    MULTIPLICITY_GRAPH,
+    _DifferencesJob,
+    _estimate_rows,
+    _graph_job,
+    _log_ticks,
+    has_estimates,
+    has_graph,
+    proportions_name,
+    write_figures,
+)
 
 TITLE = "Dressing <b>regimens</b> & 30-day wound infection"
 CAUTION = (
@@ -341,6 +354,27 @@ def test_number_formats() -> None:
     assert values.fmt_count(41.0) == "41"
 
 
+def test_new_formats() -> None:
+    assert values.fmt_rate(0.3) == "0.30"
+    assert values.fmt_rate(0.125) == "0.125"
+    assert values.fmt_rate(0.05) == "0.05"
+    assert values.fmt_thousands(100000) == "100,000"
+    assert values.fmt_thousands(None) == "—"
+    assert values.fmt_weight(0.5) == "0.5"
+    assert values.fmt_weight(1) == "1"
+    assert values.fmt_weight(1 / 3) == "0.3333"
+    assert values.fmt_error(0.00123) == "0.0012"
+    assert values.plain(0.025) == "0.025"
+    assert values.plain(True) == "true"
+    assert values.plain(["wald", 2]) == '["wald", 2]'
+    assert values.plain(None) == "—"
+
+
+def test_visible_shows_control_characters_as_escapes() -> None:
+    assert values.visible("a\x1b[31mb\x00c\u2028d") == "a\\x1b[31mb\\x00c\\u2028d"
+    assert values.visible("tab\tand\nline") == "tab\tand\nline"  # kept as they are
+
+
 def test_readers_reject_wrong_types_naming_the_key() -> None:
     assert values.number(None, "a") is None
     assert values.number(float("nan"), "a") is None
@@ -472,3 +506,132 @@ def test_proportions_name_unsafe_outcome_stays_in_figures() -> None:
         assert name.startswith("figures/proportions-") and name.endswith(".png")
         assert "/" not in name[len("figures/"):] and ".." not in name
     assert proportions_name("a/b") != proportions_name("a b")
+
+
+# --- the full engine's fields: forest panels, margins, null rate, the graph --------------------
+
+
+def _panels(results: dict[str, Any]) -> dict[str, Any]:
+    """The forest plot's axes by their x label (drawn in memory, not saved)."""
+    with matplotlib.rc_context({"text.parse_math": False}):
+        fig = _DifferencesJob(_estimate_rows(results)).draw()
+    return {ax.get_xlabel(): ax for ax in fig.axes if ax.get_xlabel()}, fig
+
+
+def _vertical_lines(ax: Any) -> dict[float, str]:
+    """x position -> ``solid`` or ``broken`` (dashed, dotted) for each ``vlines`` segment."""
+    found: dict[float, str] = {}
+    for coll in ax.collections:
+        for seg in coll.get_segments():
+            if len(seg) == 2 and seg[0][0] == seg[1][0]:
+                style = coll.get_linestyle()[0]
+                found[round(float(seg[0][0]), 6)] = "solid" if style[1] is None else "broken"
+    return found
+
+
+def test_forest_equivalence_ratio_margins_on_log_scale() -> None:
+    res = full_results()
+    res["hypotheses"] = [h for h in res["hypotheses"] if h["id"] == "H3"]
+    panels, _ = _panels(res)
+    ax = panels["risk ratio (first group over second), log scale"]
+    assert ax.get_xscale() == "log"
+    lines = _vertical_lines(ax)
+    assert lines[0.8] == "broken" and lines[1.25] == "broken"  # both margins of [0.8, 1.25]
+    low, high = ax.get_xlim()
+    assert low < 0.8 and high > 1.25
+    ticks = [round(t, 6) for t in ax.get_xticks()]
+    assert {0.8, 1.0, 1.25} <= set(ticks)
+
+
+def test_forest_proportion_panel_has_null_rate_line_and_stays_in_unit_range() -> None:
+    panels, fig = _panels(full_results())
+    ax = panels["proportion with the event"]
+    lines = _vertical_lines(ax)
+    assert lines[0.3] == "broken"  # dotted
+    low, high = ax.get_xlim()
+    assert 0.0 <= low < 0.0788 and 0.3 < high <= 1.0
+    legend = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
+    assert legend == ["primary or secondary", "exploratory (nominal)", "margin",
+                      "null rate (H0)"]
+
+
+def test_forest_rows_of_the_full_results() -> None:
+    rows = {r.label.split("\n")[0]: r for r in _estimate_rows(full_results())}
+    # k-group and trend hypotheses (estimate null) have no row.
+    assert not any(k.startswith(("H5 ", "H6", "H7 ")) for k in rows)
+    assert "H5" not in rows and "H7" not in rows
+    closed = rows["H7:gauze-vs-negative-pressure"]
+    assert closed.measure == "risk-ratio"
+    assert closed.label.split("\n")[1].startswith("not tested: Reopening")
+    assert rows["H4"].null_rate == 0.3 and rows["H4"].measure == "proportion"
+    assert rows["H3"].margins == (0.8, 1.25)
+    h9 = rows["H9 (exploratory)"]
+    assert (h9.value, h9.low, h9.high) == (None, 0.6179, None)
+
+
+def test_log_ticks_keep_marks_and_never_crowd() -> None:
+    assert _log_ticks(0.64, 1.56, [1.0, 0.8, 1.25]) == [0.7, 0.8, 1.0, 1.25, 1.5]
+    # Over three decades the margins would crowd the 1: the value of no difference wins.
+    ticks = _log_ticks(0.5, 170.0, [1.0, 0.8, 1.25])
+    assert ticks == [1.0, 10.0, 100.0]
+    for lo, hi in [(0.01, 50.0), (0.3, 3.0), (0.9, 1.1)]:
+        ticks = _log_ticks(lo, hi, [1.0])
+        gaps = [math.log10(b / a) for a, b in itertools.pairwise(ticks)]
+        assert ticks and all(g >= 0.08 * math.log10(hi / lo) - 1e-12 for g in gaps)
+
+
+def test_graph_layout_on_a_circle_clockwise_from_the_top() -> None:
+    job = _graph_job(full_results()["multiplicity"])
+    assert [n for n, _ in job.nodes] == ["H1", "H2", "H3", "H4", "H5", "H6", "H7"]
+    assert dict(job.nodes)["H1"] == 0.5
+    pos = job.positions()
+    assert pos["H1"] == pytest.approx((0.0, 1.0))
+    assert all(math.hypot(x, y) == pytest.approx(1.0) for x, y in pos.values())
+    assert pos["H2"][0] > 0  # clockwise: the second node is to the right of the first
+    assert ("H1", "H2", 0.5) in job.edges and ("H2", "H1", 1.0) in job.edges
+    # A node named only by a transition is drawn (without a weight); a zero weight is no arrow.
+    job = _graph_job({"weights": {"H1": 1}, "transitions": {"H1": {"H2": 0}, "H2": {"H3": 1}}})
+    assert job.nodes == (("H1", 1.0), ("H2", None), ("H3", None))
+    assert job.edges == (("H2", "H3", 1.0),)
+
+
+def test_graph_figure_written_decodes_and_is_deterministic(tmp_path: Path) -> None:
+    res = full_results()
+    assert has_graph(res) and not has_graph(sample_results())
+    paths = write_figures(res, tmp_path / "a")
+    names = [p.relative_to(tmp_path / "a").as_posix() for p in paths]
+    assert names[-2:] == [DIFFERENCES, MULTIPLICITY_GRAPH]
+    graph = tmp_path / "a" / MULTIPLICITY_GRAPH
+    img = imread(graph)
+    assert img.shape[:2] == (600, 800)
+    assert np.unique(img[..., :3].reshape(-1, 3), axis=0).shape[0] > 20
+    again = write_figures(full_results(), tmp_path / "b")
+    assert (tmp_path / "b" / MULTIPLICITY_GRAPH).read_bytes() == graph.read_bytes()
+    assert b"tIME" not in graph.read_bytes() and b"Software" not in graph.read_bytes()
+    assert len(again) == len(paths)
+    changed = full_results()
+    changed["multiplicity"]["transitions"]["H1"] = {"H2": 0.25, "H3": 0.75}
+    write_figures(changed, tmp_path / "c")
+    assert (tmp_path / "c" / MULTIPLICITY_GRAPH).read_bytes() != graph.read_bytes()
+
+
+def test_no_graph_figure_without_the_graphical_procedure(tmp_path: Path) -> None:
+    paths = write_figures(sample_results(), tmp_path)
+    assert MULTIPLICITY_GRAPH not in [p.relative_to(tmp_path).as_posix() for p in paths]
+
+
+def test_malformed_graph_names_the_key(tmp_path: Path) -> None:
+    res = full_results()
+    res["multiplicity"]["transitions"]["H2"] = {"H1": "all"}
+    with pytest.raises(PrespecError, match=r"^results.json: multiplicity.transitions.H2.H1: "
+                                           r"expected a number"):
+        write_figures(res, tmp_path)
+    assert not (tmp_path / "figures").exists()  # nothing written when a figure fails
+
+
+def test_hostile_labels_in_figures_are_plain_text(tmp_path: Path) -> None:
+    paths = write_figures(full_results(), tmp_path)
+    hostile = proportions_name(HOSTILE_ATTR)
+    assert hostile in [p.relative_to(tmp_path).as_posix() for p in paths]
+    assert "<" not in hostile and '"' not in hostile
+    assert all(imread(p).shape[1] == 800 for p in paths)

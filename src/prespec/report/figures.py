@@ -291,8 +291,8 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
             ) if m is not None
         )
         head = f"{hid} (exploratory)" if role == "exploratory" else hid
-        if hyp.get("gate") == "closed":
-            head = f"{hid} (not tested)"
+        if hyp.get("gate") == "closed":  # a follow-up behind a closed gate: said on line two
+            title = f"not tested: {title}" if title else "not tested"
         rows.append(
             _EstimateRow(
                 label=f"{_shorten(head, 34)}\n{_shorten(title, 34)}" if title else head,

@@ -834,7 +834,7 @@ _GRAPH_SENTENCE = (
     f"The graphical procedure of {GRAPHICAL_REFERENCE}: each hypothesis starts with its initial "
     "weight times alpha; when a hypothesis is rejected, its share of alpha passes to the others "
     "along the arrows, in proportion to the transition weights, and the graph is updated. The "
-    "figure below draws the graph as the plan fixed it."
+    "figure at the end of this section draws the graph as the plan fixed it."
 )
 
 
