@@ -224,8 +224,8 @@ def mantel_haenszel_risk_ratio(strata: Sequence[Stratum], level: float) -> Estim
     r, s = math.fsum(data.a * data.n2 / n), math.fsum(data.c * data.n1 / n)
     variance = math.nan
     if r > 0.0 and s > 0.0:
-        # n1·n2·m1 − a·c·N = a·n2·(n1 − c) + c·n1·(n2 − a), each term >= 0 as written
-        numerator = data.a * data.n2 * (data.n1 - data.c) + data.c * data.n1 * (data.n2 - data.a)
+        # n1·n2·m1 − a·c·N = a·n1·d + c·n2·b: written so, every term is >= 0
+        numerator = data.a * data.n1 * data.d + data.c * data.n2 * data.b
         variance = math.fsum(numerator / (n * n)) / (r * s)
     return _ratio_estimate("risk-ratio", "greenland-robins", r, s, variance, lvl)
 
@@ -269,6 +269,7 @@ def mantel_haenszel_risk_difference(strata: Sequence[Stratum], level: float) -> 
     p = (n1 * n1 * c - n2 * n2 * a + n1 * n2 * (n2 - n1) / 2.0) / (n * n)
     q = (a * (n2 - c) + c * (n1 - a)) / (2.0 * n)
     w = float(weight)
+    # Sato's estimator is not negative on any table we have tried; max() guards the rounding
     variance = max(0.0, (difference * math.fsum(p) + math.fsum(q)) / (w * w))
     half = _critical(lvl) * math.sqrt(variance)
     return Estimate(
