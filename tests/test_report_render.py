@@ -1,9 +1,11 @@
 """Tests of the report notebook, its execution and its HTML (src/prespec/report/render.py,
 sections.py, template.py).
 
-Executing the notebook starts a kernel and costs seconds, so it runs three times in this module:
-once for an analysis run, once for a blinded rehearsal, once on a results file edited after
-its hash was taken. Everything else is checked on the HTML fragments directly.
+Executing the notebook starts a kernel and costs seconds, so it runs four times in this module
+(and nowhere else among the report's tests): once for an analysis run, once for a blinded
+rehearsal, once on a results file edited after its hash was taken, and once for a run that
+carries every field of the full statistical engine and of overrides, with hostile labels.
+Everything else is checked on the HTML fragments directly.
 """
 
 from __future__ import annotations
@@ -12,6 +14,7 @@ import base64
 import hashlib
 import html
 import json
+from html.parser import HTMLParser
 from pathlib import Path
 from typing import Any
 
@@ -23,9 +26,29 @@ from prespec.report import render, sections, template
 from prespec.report.figures import write_figures
 
 try:
-    from test_report_figures import CAUTION, TITLE, rehearsal_results, sample_results
+    from test_report_figures import (
+        CAUTION,
+        HOSTILE,
+        HOSTILE_ATTR,
+        HOSTILE_NOTEBOOK,
+        HOSTILE_SCRIPT,
+        TITLE,
+        full_results,
+        rehearsal_results,
+        sample_results,
+    )
 except ImportError:  # tests collected as a package
-    from tests.test_report_figures import CAUTION, TITLE, rehearsal_results, sample_results
+    from tests.test_report_figures import (
+        CAUTION,
+        HOSTILE,
+        HOSTILE_ATTR,
+        HOSTILE_NOTEBOOK,
+        HOSTILE_SCRIPT,
+        TITLE,
+        full_results,
+        rehearsal_results,
+        sample_results,
+    )
 
 
 def _prepare(folder: Path, results: dict[str, Any]) -> Path:
@@ -72,6 +95,58 @@ def rehearsal_report(tmp_path_factory: pytest.TempPathFactory) -> Path:
         mp.setenv("JUPYTER_PREFER_ENV_PATH", "0")  # the user's data dir first, as outside a venv
         render.render_notebook(folder, kernel_name="python3")
     return folder
+
+
+@pytest.fixture(scope="module")
+def full_report(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    folder = _prepare(tmp_path_factory.mktemp("full") / "report", full_results())
+    render.render_notebook(folder)
+    return folder
+
+
+@pytest.fixture(scope="module")
+def full_html(full_report: Path) -> str:
+    return (full_report / "report.html").read_text(encoding="utf-8")
+
+
+class _Markup(HTMLParser):
+    """Every element and attribute of a page, as a browser's parser would see them."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, list[tuple[str, str | None]]]] = []
+        self.comments: list[str] = []
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        self.tags.append((tag, attrs))
+
+    def handle_startendtag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        self.tags.append((tag, attrs))
+
+    def handle_comment(self, data: str) -> None:
+        self.comments.append(data)
+
+
+def _markup(page: str) -> _Markup:
+    parser = _Markup()
+    parser.feed(page)
+    parser.close()
+    return parser
+
+
+def _assert_inert(page: str) -> None:
+    """No script element, no event attribute, no script URL, no image from elsewhere."""
+    markup = _markup(page)
+    assert not [t for t, _ in markup.tags if t == "script"]
+    events = [(t, a) for t, attrs in markup.tags for a, _ in attrs if a.lower().startswith("on")]
+    assert not events, events
+    for tag, attrs in markup.tags:
+        for name, value in attrs:
+            if name in ("href", "src", "action", "formaction") and value:
+                assert not value.strip().lower().startswith("javascript:"), (tag, name, value)
+            if tag == "img" and name == "src":
+                assert value is not None and value.startswith("data:image/png;base64,")
+    assert not [c for c in markup.comments if "--" in c or "\\u003c" in c]
 
 
 # --- the template --------------------------------------------------------------------------
@@ -342,3 +417,323 @@ def test_caution_falls_back_when_missing() -> None:
     from prespec.caution import CAUTION as PACKAGE_CAUTION
 
     assert html.escape(PACKAGE_CAUTION) in sections.caution({})
+
+
+# --- every field of the full engine and of overrides, executed once ------------------------
+
+
+def _shown(label: str) -> str:
+    """A label as the page's text shows it: nbconvert re-serialises the page (BeautifulSoup),
+    which escapes ``&``, ``<`` and ``>`` in text and leaves quotes as they are there."""
+    return html.escape(label, quote=False)
+
+
+def _section(page: str, start: str, end: str) -> str:
+    return page[page.index(start):page.index(end, page.index(start))]
+
+
+def _heading(hid: str, title: str, level: int = 3) -> str:
+    return f'<h{level} class="prespec-hypothesis">{_shown(hid)} — {_shown(title)}'
+
+
+def test_full_report_executes_without_errors(full_report: Path) -> None:
+    nb = nbformat.read(full_report / "report.ipynb", as_version=4)
+    outputs = [o for c in nb.cells if c.cell_type == "code" for o in c.get("outputs", [])]
+    assert not [o for o in outputs if o.output_type in ("error", "stream")]
+    assert sorted(p.name for p in (full_report / "figures").iterdir()) == [
+        "differences.png", "multiplicity-graph.png",
+        "proportions-img-src-x-onerror-alert-1-4c79c325.png",
+        "proportions-infection.png", "proportions-reopening.png",
+    ]
+
+
+def test_full_report_single_group_against_null_rate(full_html: str) -> None:
+    h4 = _section(full_html, _heading("H4", "Negative-pressure infection below 30%"),
+                  _heading("H5", "Any difference among the arms"))
+    assert "<tr><th>Null hypothesis</th><td>H0: p = 0.30</td></tr>" in h4
+    assert "negative-pressure against the fixed rate 0.30" in h4
+    counts = h4[h4.index('class="prespec prespec-counts"'):]
+    counts = counts[:counts.index("</table>")]
+    assert counts.count("<tr>") == 2  # the header and one group
+    assert "<td class=\"num\">59.40</td><td class=\"num\">138.60</td>" in counts
+    assert "<tr><th>Estimate (proportion)</th><td>0.1162</td></tr>" in h4
+
+
+def test_full_report_trend_scores_and_k_group_without_estimate(full_html: str) -> None:
+    h6 = _section(full_html, _heading("H6", "Infection falls across the arms"),
+                  _heading("H7", "Any difference in reopening"))
+    assert "<th>Group</th><th>Score</th><th>Events</th>" in h6
+    assert ('<tr><td>negative-pressure</td><td class="num">2.5</td><td class="num">23</td>'
+            in h6)
+    assert "<tr><th>Estimate</th><td>none: a trend test has no single estimate</td></tr>" in h6
+    h5 = _section(full_html, _heading("H5", "Any difference among the arms"),
+                  "Follow-up comparisons of H5")
+    assert h5.count("<tr><td>") == 3  # three groups in the count table
+    assert "none: a test across all groups has no single estimate" in h5
+
+
+def test_full_report_monte_carlo_line(full_html: str) -> None:
+    assert ('<p class="prespec-monte-carlo">Monte Carlo p-value from 100,000 tables (seed 1), '
+            "standard error 0.00064.</p>") in full_html
+
+
+def test_full_report_estimate_note_and_null_limit(full_html: str) -> None:
+    child = _section(full_html, _heading("H7:gauze-vs-negative-pressure",
+                                         "Reopening, gauze vs negative-pressure", 4),
+                     "</div>")
+    assert "<tr><th>Estimate (risk ratio)</th><td>7.0711</td></tr>" in child
+    # The note stands directly under the estimate and its interval.
+    assert ("<tr><th>Interval (95% katz)</th><td>(0.3681, 135.8300)</td></tr>"
+            "<tr><th>Estimate note</th><td>0.5 added to every cell because a cell is zero"
+            "</td></tr>") in child
+    h9 = full_html[full_html.index(_heading("H9", "Odds of reopening, gauze vs negative-pressure")):]
+    assert "<tr><th>Estimate (odds ratio)</th><td>—</td></tr>" in h9
+    assert "<tr><th>Interval (95% exact-conditional)</th><td>(0.6179, —)</td></tr>" in h9
+
+
+def test_full_report_margins_and_disagreement(full_html: str) -> None:
+    h2 = _section(full_html, _heading("H2", "Alginate not worse than gauze"),
+                  _heading("H3", "Healing equivalent, alginate vs gauze"))
+    assert "<tr><th>Margin</th><td>0.0500 (risk difference)</td></tr>" in h2
+    assert ("<tr><th>Interval against the margin</th><td>the 90% interval (-0.1301, 0.0512) "
+            "does not exclude the margin 0.0500 (risk difference)</td></tr>") in h2
+    box = _section(h2, 'class="prespec-disagree"', "</div>")
+    assert "<strong>The test decides.</strong>" in box
+    assert "the interval does not exclude the margin, but the test rejects H0" in box
+    assert "different statistics" in box
+    h3 = _section(full_html, _heading("H3", "Healing equivalent, alginate vs gauze"),
+                  _heading("H4", "Negative-pressure infection below 30%"))
+    assert "<tr><th>Type</th><td>equivalence</td></tr>" in h3
+    assert "<tr><th>Margin</th><td>0.8000 to 1.2500 (risk ratio)</td></tr>" in h3
+    assert "lies inside the margins 0.8000 to 1.2500 (risk ratio)" in h3
+    assert "<tr><th>Interval and test</th><td>agree</td></tr>" in h3
+    assert "prespec-disagree" not in h3
+    assert full_html.count('class="prespec-disagree"') == 1
+
+
+def test_full_report_strata_tables_and_homogeneity(full_html: str) -> None:
+    h1 = _section(full_html, _heading("H1", "Negative-pressure vs gauze, by site"),
+                  _heading("H2", "Alginate not worse than gauze"))
+    assert "<tr><th>Strata</th><td>site</td></tr>" in h1
+    assert '<caption style="text-align:left">Stratum: site = north</caption>' in h1
+    assert ('<tr><td>negative-pressure</td><td class="num">11</td><td class="num">90</td>'
+            '<td class="num">101</td></tr>') in h1
+    assert f"Stratum: site = {_shown(HOSTILE_SCRIPT)}</caption>" in h1
+    assert h1.count('class="prespec prespec-stratum"') == 2
+    assert ("Breslow–Day test with Tarone's correction: statistic 0.412 (df 1), "
+            "p-value 0.5210.") in h1
+
+
+def test_full_report_follow_ups_grouped_under_their_parent(full_html: str) -> None:
+    marks = [_heading("H5", "Any difference among the arms"), "Follow-up comparisons of H5",
+             _heading("H5:alginate-vs-gauze", "Alginate vs gauze", 4),
+             _heading("H5:negative-pressure-vs-gauze", "Negative-pressure vs gauze", 4),
+             _heading("H6", "Infection falls across the arms"),
+             _heading("H7", "Any difference in reopening"), "Follow-up comparisons of H7",
+             _heading("H7:gauze-vs-negative-pressure", "Reopening, gauze vs negative-pressure",
+                      4)]
+    positions = [full_html.index(m) for m in marks]
+    assert positions == sorted(positions)
+    opened = _section(full_html, "Follow-up comparisons of H5", _heading("H6", "Infection"))
+    assert ("H5 was rejected, so its follow-up comparisons below were tested. This is "
+            "gatekeeping") in opened
+    assert "adjusted within the family “H5 pairwise”" in opened
+    assert "<tr><th>Gate</th><td>open: tested because H5 was rejected</td></tr>" in opened
+    closed = full_html[full_html.index("Follow-up comparisons of H7"):]
+    assert "H7 was not rejected, so its follow-up comparisons below were not tested." in closed
+    assert "nominal, with no adjusted p-value, and none of them is rejected" in closed
+    assert "<tr><th>Nominal p-value (not tested)</th><td>0.1224</td></tr>" in closed
+    assert "<tr><th>Decision</th><td>not tested (gate closed)</td></tr>" in closed
+
+
+def test_full_report_not_pre_specified_and_overrides_box(full_html: str) -> None:
+    badge = 'class="prespec-badge-override"'
+    assert full_html.count(badge) == 2  # H2 and H8, nothing else
+    h2 = _section(full_html, _heading("H2", "Alginate not worse than gauze"), "prespec-counts")
+    assert ">not pre-specified</span></h3>" in h2
+    assert "<strong>Not pre-specified.</strong>" in h2
+    assert ("<tr><td>hypotheses.H2.test</td><td>farrington-manning</td>"
+            "<td>two-proportion-z</td></tr>") in h2
+    assert "hypotheses.H8" not in h2  # only the overrides of H2 itself
+    # The overrides box stands with the departures, before the notes.
+    box = _section(full_html, 'class="prespec-overrides"', "<h3>Notes</h3>")
+    assert full_html.index("Departures from the plan") < full_html.index(box)
+    assert "<strong>2 command-line overrides of the locked analysis.</strong>" in box
+    assert (f"<tr><td>hypotheses.H8.interval</td><td>wald</td>"
+            f"<td>{_shown(HOSTILE_ATTR)}</td></tr>") in box
+
+
+def test_full_report_multiplicity_graph_and_families(full_report: Path, full_html: str) -> None:
+    mult = full_html[full_html.index("<h2>Multiplicity</h2>"):full_html.index("<h2>Environment")]
+    assert "Bretz et al. (Statistics in Medicine 2009)" in mult
+    assert '<tr><td>H1</td><td class="num">0.5</td></tr>' in mult
+    assert '<tr><td>H1</td><td>H3</td><td class="num">0.5</td></tr>' in mult
+    graph = (full_report / "figures" / "multiplicity-graph.png").read_bytes()
+    assert f'src="data:image/png;base64,{base64.b64encode(graph).decode("ascii")}"' in mult
+    assert 'alt="Graph of the graphical procedure: initial weights and transitions"' in mult
+    assert "<th>Family</th>" in mult
+    assert ("<tr><td>H5:negative-pressure-vs-gauze</td><td>primary</td><td>H5 pairwise</td>"
+            '<td class="num">0.01430</td><td class="num">0.02860</td><td>reject H0</td></tr>'
+            in mult)
+    assert ('<tr><td>H7:gauze-vs-negative-pressure</td><td>secondary</td><td>H7 pairwise</td>'
+            '<td class="num">0.1224</td><td class="num">—</td><td>not tested (gate closed)</td>'
+            in mult)
+    assert "<tr><td>H2</td><td>secondary, not pre-specified</td><td>main (graphical)</td>" in mult
+
+
+def test_full_report_hostile_labels_stay_text(full_report: Path, full_html: str) -> None:
+    _assert_inert(full_html)
+    for label in (HOSTILE_SCRIPT, HOSTILE_ATTR):
+        assert _shown(label) in full_html, label
+    # The page title, the plan title, an outcome name, a group, a departure, an override.
+    assert f"<title>Dressing trial {html.escape(HOSTILE_SCRIPT, quote=False)}" in full_html
+    assert f"<h3>Outcome: {_shown(HOSTILE_ATTR)}</h3>" in full_html
+    assert f"<tr><td>{_shown(HOSTILE_SCRIPT)}</td><td class=\"num\">5</td>" in full_html
+    assert "javascript:alert(2)" in full_html  # as text, never as a link
+    # Terminal escape sequences are shown, not sent; template and notebook syntax stay literal.
+    shown = _shown(HOSTILE_NOTEBOOK.replace("\x1b", "\\x1b"))
+    assert shown in full_html and "\x1b" not in full_html
+    assert "{{ 7*7 }} ${x} %%bash !ls &lt;/div&gt;&lt;!-- \\u003c" in full_html
+    # The outcome's alt text is escaped inside its attribute, which the parser reads whole.
+    alts = [dict(a).get("alt") for t, a in _markup(full_html).tags if t == "img"]
+    assert f"Proportion with the event in each group, with intervals: {HOSTILE_ATTR}" in alts
+
+
+def test_full_report_no_value_from_results_in_code(full_report: Path) -> None:
+    executed = nbformat.read(full_report / "report.ipynb", as_version=4)
+    tmpl = nbformat.read(template.TEMPLATE, as_version=4)
+    code = {c.id: c.source for c in executed.cells if c.cell_type == "code"}
+    expected = {c.id: c.source for c in tmpl.cells}
+    injected = code.pop("injected-parameters")
+    assert code == expected  # every code cell is the template's, unchanged
+    assert injected.splitlines()[1:] == [
+        'results_file = "results.json"', f'results_sha256 = "{_digest(full_report)}"'
+    ]
+    sources = "\n".join([injected, *code.values()])
+    for label in (*HOSTILE, "Dressing trial", "H5 pairwise", "north"):
+        assert label not in sources, label
+
+
+# --- the new fields on fragments, without a kernel -------------------------------------------
+
+
+def test_old_results_show_none_of_the_new_parts() -> None:
+    res = sample_results()
+    page = "".join([*sections.hypotheses(res), sections.multiplicity(res),
+                    sections.departures(res)])
+    for absent in ("Follow-up", "not pre-specified", "Monte Carlo", "Stratum", "Breslow",
+                   "overrides", "<th>Family</th>", "Bretz", "Null hypothesis", "Score"):
+        assert absent not in page, absent
+    assert sections.multiplicity_figure(res) is None
+
+
+def test_every_fragment_starts_with_a_tag() -> None:
+    # IPython's HTML() treats a string that starts with "http" or names a file as a location.
+    res = full_results()
+    fragments = [sections.header(res), sections.caution(res), sections.departures(res),
+                 sections.population(res), sections.hypotheses_heading(res),
+                 *sections.hypotheses(res), sections.multiplicity(res),
+                 sections.environment(res), *(o[1] for o in sections.outcomes(res))]
+    assert all(f.startswith("<") for f in fragments)
+    for fragment in fragments:
+        _assert_inert(fragment)
+
+
+@pytest.mark.parametrize("label", HOSTILE)
+def test_hostile_label_in_every_text_field_is_escaped(label: str) -> None:
+    res = full_results()
+    res["title"] = label
+    res["protocol"] = label
+    res["groups"] = {label: [dict(res["groups"]["infection"][0], group=label)]}
+    res["deviations"][0].update(detail=label, expected=label, found=label)
+    res["notes"][0]["detail"] = label
+    res["overrides"][0].update(key=f"hypotheses.H2.{label}", locked=label, used=label)
+    for hyp in res["hypotheses"]:
+        hyp["title"] = label
+        hyp["outcome"] = label
+        if hyp.get("family"):
+            hyp["family"] = label
+        if hyp.get("estimate"):
+            hyp["estimate"]["note"] = label
+    res["hypotheses"][0]["strata_tables"][0]["stratum"] = {label: label}
+    res["hypotheses"][0]["table"]["groups"][0] = label
+    pages = [sections.header(res), sections.departures(res), *sections.hypotheses(res),
+             sections.multiplicity(res), *(o[1] for o in sections.outcomes(res))]
+    page = "".join(pages)
+    _assert_inert(page)
+    escaped = sections.esc(label)
+    assert page.count(escaped) >= 10
+    if "<" in label or '"' in label:
+        assert label not in page
+
+
+def test_followups_without_their_parent_and_with_mixed_gates() -> None:
+    res = full_results()
+    res["hypotheses"] = [h for h in res["hypotheses"] if h["id"] != "H5"]
+    pages = sections.hypotheses(res)
+    orphan = [p for p in pages if "Follow-up comparisons of H5" in p]
+    assert len(orphan) == 1 and "(not in results.json)" in orphan[0]
+    assert pages.index(orphan[0]) == len(pages) - 1  # after every other hypothesis
+    kids = [(h, f"hypotheses[{i}]") for i, h in enumerate(full_results()["hypotheses"])
+            if h.get("parent") is not None]
+    sentence = sections.gate_sentence("H5", kids)  # one open, one closed: each says its own
+    assert sentence.endswith("Each follow-up comparison below shows its own gate.")
+
+
+def test_closed_gate_hides_an_adjusted_p_value_even_if_given() -> None:
+    hyp = next(h for h in full_results()["hypotheses"] if h.get("gate") == "closed")
+    hyp["p_adjusted"] = 0.5
+    rows = dict(sections.result_rows(hyp, "hypotheses.x"))
+    assert rows["Adjusted p-value"] == "—" and rows["Decision"] == "not tested (gate closed)"
+
+
+def test_overrides_for_one_hypothesis_include_global_settings() -> None:
+    res = full_results()
+    res["overrides"].append({"key": "alpha", "locked": 0.05, "used": 0.025})
+    assert sections.override_rows(res, "H2") == [
+        ["hypotheses.H2.test", "farrington-manning", "two-proportion-z"],
+        ["alpha", "0.05", "0.025"],
+    ]
+    assert [r[0] for r in sections.override_rows(res, "H1")] == ["alpha"]
+    assert sections.overrides({"overrides": []}) == ""
+
+
+def test_margin_sentences_for_every_case() -> None:
+    hyp = next(h for h in full_results()["hypotheses"] if h["id"] == "H3")
+    hyp["margin_check"] = {"interval_excludes_margin": False, "agrees_with_test": False}
+    assert sections.margin_sentence(hyp, "h").startswith(
+        "the 90% interval (0.8602, 1.0373) does not lie inside the margins 0.8000 to 1.2500")
+    page = sections.hypothesis(hyp, "hypotheses[2]")
+    assert "the interval does not exclude the margin, but the test rejects H0" in page
+    hyp.update(margin=1.25, comparison="non-inferiority", reject=False)
+    hyp["margin_check"] = {"interval_excludes_margin": True, "agrees_with_test": False}
+    assert sections.margin_sentence(hyp, "h").endswith("excludes the margin 1.2500 (risk ratio)")
+    assert "the interval excludes the margin, but the test does not reject H0" in (
+        sections.hypothesis(hyp, "hypotheses[2]"))
+
+
+@pytest.mark.parametrize(
+    ("field", "value", "message"),
+    [
+        ("pre_specified", "no", r"hypotheses.H1.pre_specified: expected true, false or null"),
+        ("margin_check", {"interval_excludes_margin": "yes"},
+         r"hypotheses.H1.margin_check.interval_excludes_margin: expected true, false or null"),
+        ("scores", [0, 1], r"hypotheses.H1.scores: expected 2 numbers"),
+        ("strata_tables", [{"stratum": {"site": "a"}, "events": [1], "totals": [2]}],
+         r"hypotheses.H1.strata_tables\[0\]: expected events and totals for the 2 groups"),
+        ("monte_carlo", {"tables": "many"}, r"hypotheses.H1.monte_carlo.tables: expected a "),
+        ("null_rate", "0.3", r"hypotheses.H1.null_rate: expected a number"),
+        ("homogeneity", [1], r"hypotheses.H1.homogeneity: expected an object"),
+    ],
+)
+def test_malformed_new_fields_name_the_key(field: str, value: object, message: str) -> None:
+    hyp = full_results()["hypotheses"][0]
+    if field == "scores":
+        hyp["table"]["groups"].append("alginate")
+        hyp["table"]["events"].append(1)
+        hyp["table"]["totals"].append(2)
+        value = [0, 1]
+        message = r"hypotheses.H1.scores: expected 3 numbers"
+    hyp[field] = value
+    with pytest.raises(PrespecError, match=f"^results.json: {message}"):
+        sections.hypothesis(hyp, "hypotheses[0]")
