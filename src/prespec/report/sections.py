@@ -530,7 +530,8 @@ def hypothesis(
     heading = f"{hid} — {title}" if title else hid
     badges = ""
     if not is_prespecified(hyp, where):
-        badges += f' <span class="prespec-badge-override" style="{_BADGE_STYLE}">not pre-specified</span>'
+        badges += (f' <span class="prespec-badge-override" style="{_BADGE_STYLE}">'
+                   "not pre-specified</span>")
     if is_exploratory(hyp):
         badges += ' <span class="prespec-exploratory">(exploratory)</span>'
     h = f"h{level}"
