@@ -738,3 +738,15 @@ def test_malformed_new_fields_name_the_key(field: str, value: object, message: s
     hyp[field] = value
     with pytest.raises(PrespecError, match=f"^results.json: {message}"):
         sections.hypothesis(hyp, "hypotheses[0]")
+
+
+def test_main_family_names_the_plans_method() -> None:
+    res = sample_results()  # as the pipeline writes it: family "main", null for exploratory
+    for hyp in res["hypotheses"]:
+        hyp["family"] = None if hyp["role"] == "exploratory" else "main"
+    page = sections.multiplicity(res)
+    assert ('<tr><td>H1</td><td>primary</td><td>main (holm)</td><td class="num">0.01340</td>'
+            in page)
+    assert "<tr><td>H4</td><td>exploratory</td><td>none (exploratory)</td>" in page
+    h1 = sections.hypotheses(res)[0]
+    assert "<tr><th>Multiplicity family</th><td>main (holm)</td></tr>" in h1

@@ -471,7 +471,9 @@ def followups(
     return f'<div class="prespec-followups" style="{_FOLLOWUP_STYLE}">' + "".join(parts) + "</div>"
 
 
-def _definition_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
+def _definition_rows(
+    hyp: Mapping[str, Any], where: str, method: str = NULL
+) -> list[tuple[str, str]]:
     used = text(hyp.get("test"), f"{where}.test", default=NULL)
     planned = text(hyp.get("planned_test"), f"{where}.planned_test", default=used)
     rows = [
@@ -507,7 +509,7 @@ def _definition_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]
         g = gate(hyp, where)
         rows.append(("Gate", shown.get(g, g or NULL)))
     if hyp.get("family") is not None:
-        rows.append(("Multiplicity family", text(hyp.get("family"), f"{where}.family")))
+        rows.append(("Multiplicity family", _family_label(hyp, where, method)))
     if not is_prespecified(hyp, where):
         rows.append(("Pre-specified", "no: overridden on the command line"))
     return rows
@@ -538,7 +540,8 @@ def hypothesis(
     parts = [f'<{h} class="prespec-hypothesis">{esc(heading)}{badges}</{h}>']
     if not is_prespecified(hyp, where):
         parts.append(_not_prespecified_box(hyp, hid, results or {}))
-    parts.append(fields(_definition_rows(hyp, where)))
+    method = multiplicity_name(results) if results is not None else NULL
+    parts.append(fields(_definition_rows(hyp, where, method)))
     if hyp.get("table") is not None:
         parts.append(count_table(hyp["table"], hyp.get("expected"), where, hyp.get("scores")))
     if hyp.get("strata_tables") is not None:
@@ -840,8 +843,10 @@ _GRAPH_SENTENCE = (
 
 
 def _family_label(hyp: Mapping[str, Any], where: str, method: str) -> str:
+    """The family a hypothesis is adjusted within; the main family names the plan's method."""
     if hyp.get("family") is not None:
-        return text(hyp.get("family"), f"{where}.family")
+        family = text(hyp.get("family"), f"{where}.family")
+        return f"main ({method})" if family == "main" else family
     if is_exploratory(hyp):
         return "none (exploratory)"
     return f"main ({method})"
