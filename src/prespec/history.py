@@ -45,7 +45,16 @@ def show(value: Any) -> str:
         return "true" if value else "false"
     if isinstance(value, int | float):
         return repr(value)
-    return json.dumps(value, ensure_ascii=False, separators=(", ", ": "))
+    return json.dumps(_compact(value), ensure_ascii=False, separators=(", ", ": "))
+
+
+def _compact(value: Any) -> Any:
+    """Leave out keys whose value is null (unset options), for reading."""
+    if isinstance(value, dict):
+        return {k: _compact(v) for k, v in value.items() if v is not None}
+    if isinstance(value, list):
+        return [_compact(v) for v in value]
+    return value
 
 
 def _join(prefix: str, key: str) -> str:
@@ -85,6 +94,10 @@ def _diff(path: str, a: Any, b: Any, out: list[Change]) -> None:
         ids_a, ids_b = _ids(a), _ids(b)
         if ids_a is not None and ids_b is not None and (a or b):
             _diff_by_id(path, a, b, ids_a, ids_b, out)
+            return
+        if len(a) == len(b) and all(isinstance(x, dict) for x in [*a, *b]):
+            for i, (x, y) in enumerate(zip(a, b, strict=True), start=1):  # 1-based, as in errors
+                _diff(f"{path}[{i}]", x, y, out)
             return
     if a != b or type(a) is not type(b) and not _same_number(a, b):
         out.append(Change(path, a, b, "changed"))
