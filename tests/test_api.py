@@ -206,3 +206,90 @@ def test_runs_in_the_same_second_get_numbered_folders(study: tuple[Path, Path],
     names = [api.run(plan, data).folder.name for _ in range(3)]
     assert names == ["20270101T000000Z-run", "20270101T000000Z-run-2", "20270101T000000Z-run-3"]
     assert len(api.verify(plan).passed) == 4
+
+
+# --- overrides: command-line changes to the locked analysis ---
+
+def test_an_override_stops_without_a_reason_and_writes_nothing(
+        study: tuple[Path, Path]) -> None:
+    plan, data = study
+    api.lock(plan)
+    before = audit.log_path(plan).read_bytes()
+    with pytest.raises(IntegrityStop, match=r"alpha 0.05 → 0.025.*--accept-deviation"):
+        api.run(plan, data, out=plan.parent / "r", overrides={"alpha": 0.025})
+    assert not (plan.parent / "r").exists() and audit.log_path(plan).read_bytes() == before
+
+
+def test_an_accepted_override_is_recorded_and_marked_not_pre_specified(
+        study: tuple[Path, Path]) -> None:
+    plan, data = study
+    locked = api.lock(plan)
+    out = api.run(plan, data, out=plan.parent / "r", accept_deviation="monitor's request",
+                  overrides={"alpha": 0.05, "hypotheses.H2.test": "two-proportion-z"})
+    res = out.results
+    assert res["plan"] == locked.fingerprint  # the fingerprint stays the locked one
+    assert res["overrides"] == [{"key": "hypotheses.H2.test", "locked": "pearson-chi-square",
+                                 "used": "two-proportion-z"}]  # alpha unchanged: no override
+    assert [(h["id"], h["pre_specified"], h["test"]) for h in res["hypotheses"]] == [
+        ("H1", True, "pearson-chi-square"), ("H2", False, "two-proportion-z"),
+        ("H3", True, "pearson-chi-square")]
+    (dev,) = [d for d in res["deviations"] if d["code"] == "override"]
+    assert dev == {"code": "override", "detail": "hypotheses.H2.test: pearson-chi-square as "
+                   "locked, two-proportion-z used (set on the command line; not pre-specified)",
+                   "expected": "pearson-chi-square", "found": "two-proportion-z",
+                   "accepted": "monitor's request"}
+    assert out.entry["deviations"] == res["deviations"] and out.entry["plan"] == locked.fingerprint
+    api.verify(plan)
+
+
+def test_alpha_and_multiplicity_overrides_reach_the_results(study: tuple[Path, Path]) -> None:
+    plan, data = study
+    api.lock(plan)
+    res = api.run(plan, data, out=plan.parent / "r", accept_deviation="sensitivity",
+                  overrides={"alpha": 0.01, "multiplicity": "bonferroni"}).results
+    assert res["alpha"] == 0.01 and res["multiplicity"] == "bonferroni"
+    assert [c["key"] for c in res["overrides"]] == ["alpha", "multiplicity"]
+    assert all(h["pre_specified"] is False for h in res["hypotheses"])
+    h1 = res["hypotheses"][0]
+    # Bonferroni over the two non-exploratory hypotheses (common practice: min(1, 2p))
+    assert h1["p_adjusted"] == pytest.approx(min(1.0, 2 * h1["p_value"]), rel=1e-12)
+    assert h1["estimate"]["level"] == pytest.approx(0.99)
+
+
+def test_an_override_of_the_test_drops_a_switch_to_that_test(study: tuple[Path, Path]) -> None:
+    plan, data = study
+    api.lock(plan)
+    res = api.run(plan, data, out=plan.parent / "r", accept_deviation="exact test",
+                  overrides={"hypotheses.H1.test": "fisher-exact"}).results
+    assert [c["key"] for c in res["overrides"]] == ["hypotheses.H1.test", "hypotheses.H1.sparse"]
+    assert res["overrides"][1]["used"] is None and res["hypotheses"][0]["test"] == "fisher-exact"
+
+
+def test_bad_overrides_are_bad_input(study: tuple[Path, Path]) -> None:
+    plan, data = study
+    api.lock(plan)
+    with pytest.raises(BadInput, match="the plan has no hypothesis 'H9'"):
+        api.run(plan, data, accept_deviation="x", overrides={"hypotheses.H9.test": "fisher-exact"})
+    with pytest.raises(BadInput, match=r"^command line: hypotheses.H2.test: 'chi' is not a known"):
+        api.run(plan, data, accept_deviation="x", overrides={"hypotheses.H2.test": "chi"})
+    with pytest.raises(BadInput, match="not a key that can be overridden"):
+        api.run(plan, data, accept_deviation="x", overrides={"title": "other"})
+    assert len(log_of(plan)) == 1 and not (plan.parent / "reports").exists()
+
+
+def test_out_outside_the_plan_folder_must_be_a_plain_writable_folder(
+        study: tuple[Path, Path], tmp_path: Path) -> None:
+    plan, data = study
+    api.lock(plan)
+    outside = tmp_path.parent / f"{tmp_path.name}-elsewhere"
+    with pytest.raises(BadInput, match="must go into an existing plain folder"):
+        api.run(plan, data, out=outside / "deep" / "report")
+    assert not outside.exists()
+    outside.mkdir()
+    link = plan.parent / "link"
+    link.symlink_to(outside, target_is_directory=True)
+    with pytest.raises(BadInput, match="is a symbolic link"):
+        api.run(plan, data, out=link)
+    done = api.run(plan, data, out=outside / "report")
+    assert done.entry["details"]["report"] == f"../{outside.name}/report"
+    api.verify(plan)
