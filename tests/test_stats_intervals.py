@@ -348,3 +348,11 @@ def test_difference_intervals_properties(
             assert e.low <= e.value <= e.high
         wider = function(x1, n1, x2, n2, 0.999)
         assert wider.low <= e.low + 1e-12 and wider.high >= e.high - 1e-12
+
+
+def test_constrained_mle_is_validated() -> None:
+    for delta in (1.5, -1.01, math.nan, "0.1", True):
+        with pytest.raises(ValueError, match="delta must be a number in"):
+            difference_constrained_mle(1, 2, 1, 2, delta)  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match="n2 must be >= 1"):
+        difference_constrained_mle(1, 2, 0, 0, 0.1)

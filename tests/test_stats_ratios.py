@@ -267,3 +267,14 @@ def test_exact_interval_excludes_one_as_fisher_one_sided_rejects(
     # the observed effect
     direction = greater if x1 * n2 >= x2 * n1 else less
     assert two_sided >= direction - 1e-12
+
+
+def test_constrained_estimates_are_validated() -> None:
+    with pytest.raises(ValueError, match="ratio must be finite and >= 0, got -1.0"):
+        ratio_constrained_mle(1, 2, 1, 2, -1.0)
+    with pytest.raises(ValueError, match="odds_ratio must be finite and > 0, got 0.0"):
+        odds_ratio_constrained_mle(1, 2, 1, 2, 0.0)
+    with pytest.raises(ValueError, match="odds_ratio must be a number"):
+        odds_ratio_constrained_mle(1, 2, 1, 2, "2")  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match=r"x1 \(3\) must not exceed n1 \(2\)"):
+        ratio_constrained_mle(3, 2, 1, 2, 1.0)

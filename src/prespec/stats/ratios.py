@@ -100,7 +100,45 @@ def woolf_odds_ratio(x1: int, n1: int, x2: int, n2: int, level: float) -> Estima
 # --- score intervals ---------------------------------------------------------------------
 
 
+def _positive(name: str, value: object, allow_zero: bool) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise ValueError(f"{name} must be a number, got {value!r}")  # noqa: TRY004 (the interface raises ValueError)
+    number = float(value)
+    if not (math.isfinite(number) and (number > 0.0 or (allow_zero and number == 0.0))):
+        bound = ">= 0" if allow_zero else "> 0"
+        raise ValueError(f"{name} must be finite and {bound}, got {number!r}")
+    return number
+
+
 def ratio_constrained_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, float]:
+    """Maximum likelihood estimates (p̃1, p̃2) with p1 = ratio·p2, validated; see
+    ``_ratio_mle`` for the closed form.
+
+    References
+    ----------
+    Miettinen O, Nurminen M. Statistics in Medicine 1985;4:213–226.
+    """
+    x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
+    x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
+    return _ratio_mle(x1, n1, x2, n2, _positive("ratio", ratio, allow_zero=True))
+
+
+def odds_ratio_constrained_mle(
+    x1: int, n1: int, x2: int, n2: int, odds_ratio: float
+) -> tuple[float, float]:
+    """Maximum likelihood estimates (p̃1, p̃2) with the given odds ratio, validated; see
+    ``_odds_ratio_mle`` for the closed form.
+
+    References
+    ----------
+    Miettinen O, Nurminen M. Statistics in Medicine 1985;4:213–226.
+    """
+    x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
+    x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
+    return _odds_ratio_mle(x1, n1, x2, n2, _positive("odds_ratio", odds_ratio, allow_zero=False))
+
+
+def _ratio_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) of two proportions with p1 = ratio·p2.
 
     p̃2 is the smaller root of N·φ p² − (n1φ + x1 + n2 + x2φ) p + (x1 + x2) = 0 (Miettinen and
@@ -121,9 +159,7 @@ def ratio_constrained_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> t
     return min(1.0, ratio * p2), p2
 
 
-def odds_ratio_constrained_mle(
-    x1: int, n1: int, x2: int, n2: int, odds_ratio: float
-) -> tuple[float, float]:
+def _odds_ratio_mle(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) of two proportions with odds ratio ψ.
 
     p̃2 is the root in [0, 1] of n2(ψ − 1)p² + (n1ψ + n2 − m(ψ − 1))p − m = 0, m = x1 + x2
@@ -148,7 +184,7 @@ def _koopman_share(x1: int, n1: int, x2: int, n2: int, ratio: float) -> float:
     """Z/sqrt(1 + Z²) for the score statistic Z = (p̂1 − φp̂2)/sqrt(V) at p1/p2 = φ,
     V = p̃1(1 − p̃1)/n1 + φ²p̃2(1 − p̃2)/n2 (no variance correction)."""
     numerator = (x1 * n2 - ratio * x2 * n1) / (n1 * n2)
-    t1, t2 = ratio_constrained_mle(x1, n1, x2, n2, ratio)
+    t1, t2 = _ratio_mle(x1, n1, x2, n2, ratio)
     variance = t1 * (1.0 - t1) / n1 + ratio * ratio * t2 * (1.0 - t2) / n2
     denominator = math.sqrt(numerator * numerator + variance)
     return 0.0 if denominator == 0.0 else numerator / denominator
@@ -163,7 +199,7 @@ def _mn_odds_share(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> flo
     """
     if odds_ratio == 0.0:
         return 1.0
-    t1, t2 = odds_ratio_constrained_mle(x1, n1, x2, n2, odds_ratio)
+    t1, t2 = _odds_ratio_mle(x1, n1, x2, n2, odds_ratio)
     difference = x1 - n1 * t1
     v1, v2 = n1 * t1 * (1.0 - t1), n2 * t2 * (1.0 - t2)
     total = n1 + n2
