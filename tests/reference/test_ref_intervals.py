@@ -253,6 +253,7 @@ def test_miettinen_nurminen_limits_against_a_numerical_score(level: float) -> No
             assert x1 == n1 and x2 == 0
 
 
+@pytest.mark.filterwarnings("ignore::RuntimeWarning")  # statsmodels' ratio of 0/0 beside
 def test_miettinen_nurminen_statistic_at_zero_matches_statsmodels() -> None:
     # statsmodels.stats.proportion.test_proportions_2indep(..., value=0, method="score",
     # compare="diff", correction=True): at delta = 0 it uses the pooled proportion, which is
