@@ -105,3 +105,47 @@ def test_bad_data_exit_2_and_nothing_written(tmp_path: Path,
         assert message in err and err.count("\n") == 1
     assert (tmp_path / "p.audit.jsonl").read_bytes() == log_before
     assert not (tmp_path / "reports").exists()
+
+
+def test_a_run_in_another_environment_is_recorded(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                                  monkeypatch: pytest.MonkeyPatch) -> None:
+    import prespec.report
+    from prespec import api
+    from prespec.demo import demo_data
+
+    monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
+    plan, data = tmp_path / "p.yaml", tmp_path / "d.csv"
+    plan.write_text(PLAN_TEXT)
+    data.write_text(demo_data())
+    assert cli.main(["lock", str(plan)]) == 0
+    real = api.environment()
+    monkeypatch.setattr(api, "environment", lambda: {**real, "python": "3.99.0",
+                                                     "statsmodels": "0.1"})
+    capsys.readouterr()
+    assert cli.main(["run", str(plan), str(data), "--out", str(tmp_path / "r")]) == 0
+    out = capsys.readouterr().out
+    assert (f"departure: environment-differs-from-lock: versions differ from those recorded at "
+            f"lock time: python {real['python']} → 3.99.0, statsmodels {real['statsmodels']} → "
+            "0.1") in out
+    results = json.loads((tmp_path / "r" / "results.json").read_text())
+    (dev,) = [d for d in results["deviations"] if d["code"] == "environment-differs-from-lock"]
+    assert dev["expected"] == f"python {real['python']}; statsmodels {real['statsmodels']}"
+    assert dev["found"] == "python 3.99.0; statsmodels 0.1"
+    entry = json.loads((tmp_path / "p.audit.jsonl").read_text().splitlines()[-1])
+    assert entry["deviations"] == results["deviations"]
+
+
+def test_verify_prints_notes_and_usage_of_report(tmp_path: Path,
+                                                 capsys: pytest.CaptureFixture[str]) -> None:
+    plan = tmp_path / "p.yaml"
+    plan.write_text(PLAN_TEXT)
+    assert cli.main(["lock", str(plan)]) == 0
+    (tmp_path / "p.audit.head").unlink()  # as after a first append stopped before its head
+    capsys.readouterr()
+    assert cli.main(["verify", str(plan)]) == 0
+    out = capsys.readouterr().out
+    assert "note  p.audit.head: the head names the entry before the last" in out
+    assert cli.main(["verify", str(plan), "--report", "r1"]) == 2
+    assert "--report goes with --rerun DATA" in capsys.readouterr().err
+    assert cli.main(["run", str(plan), "d.csv", "--test", "H1"]) == 2
+    assert "give ID=NAME" in capsys.readouterr().err
