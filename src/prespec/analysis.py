@@ -13,7 +13,7 @@ from typing import Any
 from . import methods
 from .data import Prepared
 from .departures import Note
-from .stats import multiplicity, tables
+from .stats import graphical, multiplicity, tables
 from .stats.results import TestResult
 
 MAIN_FAMILY = "main"
@@ -198,7 +198,7 @@ def _adjusted(raw: list[float], method: Any, ids: list[str]) -> list[float]:
         return multiplicity.adjust(raw, method)
     weights = [float(method.weights.get(i, 0.0)) for i in ids]
     transitions = [[float(method.transitions.get(a, {}).get(b, 0.0)) for b in ids] for a in ids]
-    return methods.stats_function("graphical.graphical_adjust")(raw, weights, transitions)
+    return graphical.graphical_adjust(raw, weights, transitions)
 
 
 def adjust_family(entries: list[dict[str, Any]], method: Any, alpha: float,

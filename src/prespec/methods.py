@@ -1,25 +1,28 @@
 """The plan's method names mapped to the pure functions of ``stats``.
 
-One table per question: which test runs for a (compare kind, test name), which interval for a
-(measure, interval name). ``analysis.py`` asks these tables and never names a stats function
-itself, so adding a method is one line here (and its name in ``plan/vocabulary.py``).
+One table per question: which test runs for a test name, which interval for a (measure,
+interval name). ``analysis.py`` asks these tables and never names a stats function itself, so
+adding a method is one line here (and its name in ``plan/vocabulary.py``).
 """
 
 from __future__ import annotations
 
-import importlib
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from .errors import DataError
+from .stats import (
+    exact,
+    intervals,
+    margins,
+    proportions,
+    ratios,
+    single,
+    stratified,
+    trend,
+)
 from .stats.results import Estimate, TestResult
-
-
-def stats_function(path: str) -> Callable[..., Any]:
-    """``"module.function"`` of ``prespec.stats``, imported when first used."""
-    module, name = path.rsplit(".", 1)
-    return getattr(importlib.import_module(f"prespec.stats.{module}"), name)
-
 
 Strata = Sequence[tuple[int, int, int, int]]
 
@@ -43,17 +46,16 @@ class TestOutcome:
     monte_carlo: dict[str, Any] | None = None
 
 
-def _margin_test(path: str) -> Callable[[Table, Any], TestResult]:
+def _margin_test(fn: Callable[..., TestResult]) -> Callable[[Table, Any], TestResult]:
     """A test at a margin: one-sided for non-inferiority, two one-sided tests for equivalence."""
 
     def run(table: Table, hyp: Any) -> TestResult:
-        fn = stats_function(path)
         measure = hyp.measure
         if hyp.comparison == "equivalence":
             low, high = hyp.margin
             lower = fn(*table.pair, margin=low, measure=measure, alternative="greater")
             upper = fn(*table.pair, margin=high, measure=measure, alternative="less")
-            return stats_function("margins.tost")(lower, upper)
+            return margins.tost(lower, upper)
         return fn(*table.pair, margin=hyp.margin, measure=measure, alternative=hyp.alternative)
 
     return run
@@ -61,19 +63,20 @@ def _margin_test(path: str) -> Callable[[Table, Any], TestResult]:
 
 def _two_proportion_z(table: Table, hyp: Any) -> TestResult:
     if hyp.comparison != "superiority":
-        return _margin_test("margins.wald_margin_z")(table, hyp)
-    return stats_function("proportions.two_proportion_z")(*table.pair, alternative=hyp.alternative)
+        return _margin_test(margins.wald_margin_z)(table, hyp)
+    return proportions.two_proportion_z(*table.pair, alternative=hyp.alternative)
 
 
 def _fisher(table: Table, hyp: Any) -> TestOutcome:
     if len(table.events) == 2:
-        return TestOutcome(
-            stats_function("proportions.fisher_exact")(*table.pair, alternative=hyp.alternative)
-        )
+        return TestOutcome(proportions.fisher_exact(*table.pair, alternative=hyp.alternative))
     mc = hyp.monte_carlo
-    out = stats_function("exact.fisher_exact_k")(
-        table.events, table.totals, monte_carlo=(mc.tables, mc.seed) if mc else None
-    )
+    try:
+        out = exact.fisher_exact_k(
+            table.events, table.totals, monte_carlo=(mc.tables, mc.seed) if mc else None
+        )
+    except ValueError as exc:  # the counts are valid here: the table is too large to enumerate
+        raise DataError(f"hypotheses.{hyp.id}: {exc}") from None
     info = None
     if mc is not None:
         info = {"tables": mc.tables, "seed": mc.seed, "standard_error": out.monte_carlo_se}
@@ -86,72 +89,67 @@ def _plain(fn: Callable[[Table, Any], TestResult]) -> Callable[[Table, Any], Tes
 
 TESTS: dict[str, Callable[[Table, Any], TestOutcome]] = {
     "pearson-chi-square": _plain(
-        lambda t, h: stats_function("proportions.pearson_chi_square")(
+        lambda t, h: proportions.pearson_chi_square(
             t.events, t.totals, continuity=bool(h.continuity), alternative=h.alternative
         )
     ),
     "likelihood-ratio": _plain(
-        lambda t, h: stats_function("proportions.likelihood_ratio")(
-            t.events, t.totals, alternative=h.alternative
-        )
+        lambda t, h: proportions.likelihood_ratio(t.events, t.totals, alternative=h.alternative)
     ),
     "two-proportion-z": _plain(_two_proportion_z),
     "fisher-exact": _fisher,
-    "barnard-exact": _plain(
-        lambda t, h: stats_function("exact.barnard_exact")(*t.pair, alternative=h.alternative)
-    ),
-    "boschloo-exact": _plain(
-        lambda t, h: stats_function("exact.boschloo_exact")(*t.pair, alternative=h.alternative)
-    ),
+    "barnard-exact": _plain(lambda t, h: exact.barnard_exact(*t.pair, alternative=h.alternative)),
+    "boschloo-exact": _plain(lambda t, h: exact.boschloo_exact(*t.pair, alternative=h.alternative)),
     "cochran-mantel-haenszel": _plain(
-        lambda t, h: stats_function("stratified.cochran_mantel_haenszel")(
+        lambda t, h: stratified.cochran_mantel_haenszel(
             t.strata or [], continuity=bool(h.continuity), alternative=h.alternative
         )
     ),
-    "farrington-manning": _plain(_margin_test("margins.farrington_manning")),
+    "farrington-manning": _plain(_margin_test(margins.farrington_manning)),
     "cochran-armitage-trend": _plain(
-        lambda t, h: stats_function("trend.cochran_armitage")(
+        lambda t, h: trend.cochran_armitage(
             t.events, t.totals, scores=h.scores, alternative=h.alternative
         )
     ),
     "binomial-exact": _plain(
-        lambda t, h: stats_function("single.binomial_exact")(
+        lambda t, h: single.binomial_exact(
             t.events[0], t.totals[0], h.null_rate, alternative=h.alternative
         )
     ),
     "one-proportion-z": _plain(
-        lambda t, h: stats_function("single.one_proportion_z")(
+        lambda t, h: single.one_proportion_z(
             t.events[0], t.totals[0], h.null_rate, alternative=h.alternative
         )
     ),
 }
 
-# Interval functions by measure and plan name, as "module.function" of prespec.stats.
-PAIR_INTERVALS: dict[str, dict[str, str]] = {
+PairInterval = Callable[[int, int, int, int, float], Estimate]
+
+PAIR_INTERVALS: dict[str, dict[str, PairInterval]] = {
     "risk-difference": {
-        "newcombe": "intervals.newcombe_difference",
-        "wald": "intervals.wald_difference",
-        "agresti-caffo": "intervals.agresti_caffo_difference",
-        "miettinen-nurminen": "intervals.miettinen_nurminen_difference",
+        "newcombe": intervals.newcombe_difference,
+        "wald": intervals.wald_difference,
+        "agresti-caffo": intervals.agresti_caffo_difference,
+        "miettinen-nurminen": intervals.miettinen_nurminen_difference,
     },
-    "risk-ratio": {"katz": "ratios.katz_ratio", "koopman": "ratios.koopman_ratio"},
+    "risk-ratio": {"katz": ratios.katz_ratio, "koopman": ratios.koopman_ratio},
     "odds-ratio": {
-        "woolf": "ratios.woolf_odds_ratio",
-        "miettinen-nurminen": "ratios.miettinen_nurminen_odds_ratio",
-        "exact-conditional": "ratios.exact_conditional_odds_ratio",
+        "woolf": ratios.woolf_odds_ratio,
+        "miettinen-nurminen": ratios.miettinen_nurminen_odds_ratio,
+        "exact-conditional": ratios.exact_conditional_odds_ratio,
     },
 }
 
-SINGLE_INTERVALS: dict[str, str] = {
-    "wilson": "intervals.wilson",
-    "clopper-pearson": "single.clopper_pearson",
-    "jeffreys": "single.jeffreys",
+SINGLE_INTERVALS: dict[str, Callable[[int, int, float], Estimate]] = {
+    "wilson": intervals.wilson,
+    "clopper-pearson": single.clopper_pearson,
+    "jeffreys": single.jeffreys,
 }
 
-STRATIFIED_ESTIMATES: dict[str, str] = {
-    "odds-ratio": "stratified.mantel_haenszel_odds_ratio",
-    "risk-ratio": "stratified.mantel_haenszel_risk_ratio",
-    "risk-difference": "stratified.mantel_haenszel_risk_difference",
+STRATIFIED_ESTIMATES: dict[str, Callable[[Strata, float], Estimate]] = {
+    "odds-ratio": stratified.mantel_haenszel_odds_ratio,
+    "risk-ratio": stratified.mantel_haenszel_risk_ratio,
+    "risk-difference": stratified.mantel_haenszel_risk_difference,
 }
 
 
@@ -160,15 +158,14 @@ def estimate(hyp: Any, table: Table, level: float) -> Estimate | None:
     if hyp.measure is None:
         return None
     if hyp.kind == "single":
-        fn = stats_function(SINGLE_INTERVALS[hyp.interval])
-        return fn(table.events[0], table.totals[0], level)
+        return SINGLE_INTERVALS[hyp.interval](table.events[0], table.totals[0], level)
     if table.strata is not None:
-        return stats_function(STRATIFIED_ESTIMATES[hyp.measure])(table.strata, level)
-    return stats_function(PAIR_INTERVALS[hyp.measure][hyp.interval])(*table.pair, level)
+        return STRATIFIED_ESTIMATES[hyp.measure](table.strata, level)
+    return PAIR_INTERVALS[hyp.measure][hyp.interval](*table.pair, level)
 
 
 def homogeneity(table: Table) -> TestResult | None:
     """Breslow–Day with Tarone's correction, for a stratified comparison of two groups."""
     if table.strata is None or len(table.strata) < 2:
         return None
-    return stats_function("stratified.breslow_day_tarone")(table.strata)
+    return stratified.breslow_day_tarone(table.strata)

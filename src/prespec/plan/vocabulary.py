@@ -42,13 +42,9 @@ KNOWN_TESTS_BY_KIND: dict[str, frozenset[str]] = {
 }
 KNOWN_TESTS: frozenset[str] = frozenset().union(*KNOWN_TESTS_BY_KIND.values())
 
-AVAILABLE_TESTS_BY_KIND: dict[str, frozenset[str]] = {
-    "pair": frozenset({"pearson-chi-square", "two-proportion-z", "fisher-exact"}),
-    "single": frozenset(),
-    "all": frozenset({"pearson-chi-square"}),
-    "trend": frozenset(),
-}
-AVAILABLE_KINDS: frozenset[str] = frozenset({"pair", "all"})
+# Every test of the format runs in this version.
+AVAILABLE_TESTS_BY_KIND: dict[str, frozenset[str]] = dict(KNOWN_TESTS_BY_KIND)
+AVAILABLE_KINDS: frozenset[str] = frozenset(KINDS)
 
 # Tests that only have a two-sided form, per kind; every test on `all` is two-sided only.
 TWO_SIDED_ONLY_BY_KIND: dict[str, frozenset[str]] = {
@@ -78,7 +74,7 @@ MEASURES_BY_KIND: dict[str, tuple[str, ...]] = {
 }
 STRATIFIED_DEFAULT_MEASURE = "odds-ratio"
 KNOWN_MEASURES: frozenset[str] = frozenset().union(*map(frozenset, MEASURES_BY_KIND.values()))
-AVAILABLE_MEASURES: frozenset[str] = frozenset({"risk-difference"})
+AVAILABLE_MEASURES: frozenset[str] = KNOWN_MEASURES
 
 # Intervals, per measure; the first is the default.
 INTERVALS_BY_MEASURE: dict[str, tuple[str, ...]] = {
@@ -96,11 +92,11 @@ STRATIFIED_INTERVALS: dict[str, str] = {
 KNOWN_INTERVALS: frozenset[str] = frozenset().union(
     *map(frozenset, INTERVALS_BY_MEASURE.values()), STRATIFIED_INTERVALS.values()
 )
-AVAILABLE_INTERVALS: frozenset[str] = frozenset({"newcombe", "wald"})
+AVAILABLE_INTERVALS: frozenset[str] = KNOWN_INTERVALS
 
 ALTERNATIVES: tuple[str, ...] = ("two-sided", "greater", "less")
 KNOWN_COMPARISONS: tuple[str, ...] = ("superiority", "non-inferiority", "equivalence")
-AVAILABLE_COMPARISONS: frozenset[str] = frozenset({"superiority"})
+AVAILABLE_COMPARISONS: frozenset[str] = frozenset(KNOWN_COMPARISONS)
 ROLES: tuple[str, ...] = ("primary", "secondary", "exploratory")
 MISSING_RULES: tuple[str, ...] = ("exclude", "event", "no-event", "error")
 PAIRWISE: tuple[str, ...] = ("reference", "all")
@@ -119,8 +115,7 @@ KNOWN_MULTIPLICITY: tuple[str, ...] = (
 )
 # The names written alone; `graphical` is only ever a mapping.
 MULTIPLICITY_NAMES: tuple[str, ...] = tuple(m for m in KNOWN_MULTIPLICITY if m != "graphical")
-# Every name that stats.adjust computes; `graphical` waits for a later release.
-AVAILABLE_MULTIPLICITY: frozenset[str] = frozenset(MULTIPLICITY_NAMES)
+AVAILABLE_MULTIPLICITY: frozenset[str] = frozenset(KNOWN_MULTIPLICITY)
 
 # Optional hypothesis keys that are known; those not available are refused when given.
 KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
@@ -141,12 +136,7 @@ KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
         "monte_carlo",
     }
 )
-AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS - {
-    "then",
-    "strata",
-    "monte_carlo",
-    "scores",
-}
+AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
 
 # Keys of later parts of the format (SPEC.md, "Later parts", "Design and interim looks"):
 # named so that a plan using them is told they are not available yet, not that they are unknown.
