@@ -142,3 +142,79 @@ def test_interval_levels() -> None:
     assert interval_level(0.05, "two-sided", "superiority") == pytest.approx(0.95)
     assert interval_level(0.025, "greater", "superiority") == pytest.approx(0.95)
     assert interval_level(0.05, "two-sided", "equivalence") == pytest.approx(0.90)
+
+
+GATED = """\
+prespec: 1
+title: Invented three-ward hand-hygiene study
+data: {id: pid, group: ward, groups: [a, b, c]}
+outcomes:
+  y: {column: y, event: [1], no_event: [0], missing: exclude}
+alpha: 0.05
+multiplicity: holm
+hypotheses:
+  - {id: K, outcome: y, compare: all, test: pearson-chi-square,
+     then: {pairwise: PAIRS, multiplicity: holm}}
+  - {id: P, outcome: y, compare: [b, a], test: fisher-exact}
+"""
+
+
+def gated_plan(tmp_path: Path, pairs: str = "reference") -> Plan:
+    path = tmp_path / "g.yaml"
+    path.write_text(GATED.replace("PAIRS", pairs))
+    return load_plan(path).model
+
+
+def test_follow_ups_are_tested_only_through_an_open_gate(tmp_path: Path) -> None:
+    entries, notes = analyse(gated_plan(tmp_path), prepared(TABLE))
+    ids = [e["id"] for e in entries]
+    assert ids == ["K", "K:b-vs-a", "K:c-vs-a", "P"]
+    k, ba, ca, p = entries
+    # X2 = 8.69 on 2 df, p = 0.0130 (scipy.stats.chi2_contingency); Holm with P (p = 0.068)
+    assert k["reject"] is True and k["p_adjusted"] == pytest.approx(2 * k["p_value"])
+    assert ba["gate"] == ca["gate"] == "open" and ba["family"] == "K pairwise"
+    # statsmodels.stats.multitest.multipletests(holm) within the follow-up family only
+    reject, adjusted, _, _ = multipletests([ba["p_value"], ca["p_value"]], method="holm")
+    assert [ba["p_adjusted"], ca["p_adjusted"]] == pytest.approx(list(adjusted), rel=1e-12)
+    assert [ba["reject"], ca["reject"]] == list(reject)
+    # the follow-up uses the parent's test on its own 2x2 table (uncorrected X2, scipy)
+    chi = scipy.stats.chi2_contingency([[12, 78], [30, 70]], correction=False)
+    assert ca["p_value"] == pytest.approx(chi.pvalue, rel=1e-9)
+    assert ca["estimate"]["ci_method"] == "newcombe"
+    assert p["family"] == "main" and not any(n.code == "gate-closed" for n in notes)
+
+
+def test_a_closed_gate_tests_nothing(tmp_path: Path) -> None:
+    flat = {"a": (20, 100), "b": (21, 100), "c": (19, 90)}
+    entries, notes = analyse(gated_plan(tmp_path, "all"), prepared(flat))
+    k, *follow, _ = entries
+    assert k["reject"] is False
+    assert [e["id"] for e in follow] == ["K:b-vs-a", "K:c-vs-a", "K:c-vs-b"]
+    for e in follow:
+        assert e["gate"] == "closed" and e["reject"] is False and e["p_adjusted"] is None
+        assert e["p_value"] is not None  # shown, nominal
+    assert [n.code for n in notes] == ["gate-closed"]
+
+
+def test_k_group_fisher_too_large_asks_for_monte_carlo(tmp_path: Path) -> None:
+    from prespec.errors import DataError
+
+    path = tmp_path / "f.yaml"
+    groups = [f"w{i}" for i in range(8)]
+    path.write_text(GATED.replace("groups: [a, b, c]", f"groups: [{', '.join(groups)}]")
+                    .replace("test: pearson-chi-square,\n     then: {pairwise: PAIRS, "
+                             "multiplicity: holm}", "test: fisher-exact")
+                    .replace("compare: [b, a]", "compare: [w1, w0]"))
+    plan = load_plan(path).model
+    events = [30, 40, 60, 55, 45, 52, 48, 70]
+    big = prepared({g: (e, 100) for g, e in zip(groups, events, strict=True)})
+    with pytest.raises(DataError, match=r"hypotheses.K: .*monte_carlo: \{tables: 100000"):
+        analyse(plan, big)
+    path.write_text(path.read_text().replace("test: fisher-exact}",
+                                             "test: fisher-exact,\n     monte_carlo: "
+                                             "{tables: 2000, seed: 7}}", 1))
+    entries, _ = analyse(load_plan(path).model, big)
+    mc = entries[0]["monte_carlo"]
+    assert mc["tables"] == 2000 and mc["seed"] == 7 and 0 < mc["standard_error"] < 0.02
+    again, _ = analyse(load_plan(path).model, big)
+    assert again[0]["p_value"] == entries[0]["p_value"]  # the seed fixes the draw
