@@ -189,3 +189,22 @@ def test_verify_command_names_the_failure(demo: Path, tmp_path: Path) -> None:
     assert "ok    audit log" in done.stdout
     nothing = cli("verify", "none.yaml", cwd=tmp_path)
     assert nothing.returncode == 3 and "nothing to verify" in nothing.stderr
+
+
+def test_the_methods_tour_runs_to_a_report(tmp_path: Path) -> None:
+    """plans/methods-tour.yaml names every kind of comparison; its report renders them all."""
+    from prespec.demo import demo_data
+
+    root = Path(__file__).parents[2]
+    shutil.copy(root / "plans" / "methods-tour.yaml", tmp_path / "tour.yaml")
+    (tmp_path / "data.csv").write_text(demo_data())
+    assert cli("lock", "tour.yaml", cwd=tmp_path).returncode == 0
+    done = cli("run", "tour.yaml", "data.csv", "--out", "report", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    html = (tmp_path / "report" / "report.html").read_text()
+    results = json.loads((tmp_path / "report" / "results.json").read_text())
+    for hyp in results["hypotheses"]:
+        assert f"{hyp['id']} —" in html or f"{hyp['id']} &mdash;" in html, hyp["id"]
+    assert (tmp_path / "report" / "figures" / "multiplicity-graph.png").is_file()
+    assert "Bretz" in html and "Stratum: site = north" in html
+    assert cli("verify", "tour.yaml", cwd=tmp_path).returncode == 0
