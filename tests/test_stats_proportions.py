@@ -14,6 +14,7 @@ from prespec.stats import (
     pearson_chi_square,
     two_proportion_z,
 )
+from prespec.stats.proportions import likelihood_ratio
 
 
 def _both_tails_overlap(x1: int, n1: int, x2: int, n2: int) -> float:
@@ -206,3 +207,52 @@ def test_chi_square_k_groups_equal_proportions_is_zero() -> None:
     assert result.statistic == pytest.approx(0.0, abs=1e-12)
     assert result.p_value == pytest.approx(1.0)
     assert result.df == 2
+
+
+# --- likelihood ratio (G²) -------------------------------------------------------------------
+
+
+def test_likelihood_ratio_result_and_refusals() -> None:
+    result = likelihood_ratio([12, 30, 7], [40, 60, 30])
+    assert (result.method, result.df, result.alternative) == ("likelihood-ratio", 2, "two-sided")
+    assert type(result.statistic) is float and type(result.p_value) is float
+    json.dumps(result.__dict__)
+    for bad in ("greater", "less"):
+        with pytest.raises(
+            ValueError, match=f"likelihood-ratio test is two-sided only, got '{bad}'"
+        ):
+            likelihood_ratio([1, 2], [3, 4], alternative=bad)
+    with pytest.raises(ValueError, match="alternative must be one of"):
+        likelihood_ratio([1, 2], [3, 4], alternative="both")
+    with pytest.raises(ValueError, match="at least 2 groups"):
+        likelihood_ratio([1], [3])
+    with pytest.raises(ValueError, match=r"events\[1\] \(5\) must not exceed totals\[1\] \(4\)"):
+        likelihood_ratio([1, 5], [3, 4])
+
+
+@pytest.mark.parametrize(
+    "events, totals", [([0, 0], [5, 7]), ([5, 7], [5, 7]), ([0, 0, 0], [1, 2, 3])]
+)
+def test_likelihood_ratio_zero_margin_is_nan(events: list[int], totals: list[int]) -> None:
+    # as for Pearson's X^2: a zero column margin leaves the test undefined
+    result = likelihood_ratio(events, totals)
+    assert math.isnan(result.statistic) and math.isnan(result.p_value)  # type: ignore[arg-type]
+    assert result.df == len(events) - 1
+
+
+def test_likelihood_ratio_zero_cells_and_single_participants() -> None:
+    # [[1, 0], [0, 1]]: E = 1/2 in every cell; the two observed ones give 2 * 2 * ln 2 and the
+    # zero cells contribute 0 (0 ln 0 = 0). # by hand
+    result = likelihood_ratio([1, 0], [1, 1])
+    assert result.statistic == pytest.approx(4 * math.log(2), rel=1e-12)
+    assert result.p_value == pytest.approx(scipy.stats.chi2.sf(4 * math.log(2), 1), rel=1e-12)
+    flat = likelihood_ratio([2, 4, 6], [10, 20, 30])
+    assert flat.statistic == 0.0 and flat.p_value == 1.0  # O = E: never a negative G^2
+
+
+def test_likelihood_ratio_ignores_group_order_and_outcome_coding() -> None:
+    base = likelihood_ratio([3, 11, 0, 7], [20, 25, 9, 7])
+    moved = likelihood_ratio([7, 0, 11, 3], [7, 9, 25, 20])
+    flipped = likelihood_ratio([17, 14, 9, 0], [20, 25, 9, 7])
+    assert moved.statistic == pytest.approx(base.statistic, rel=1e-12)
+    assert flipped.statistic == pytest.approx(base.statistic, rel=1e-12)
