@@ -375,3 +375,54 @@ def test_eight_runs_at_once_each_get_their_entry(command_study: Path, tmp_path: 
     assert logged == {Path(f).as_posix() for f in folders}
     res = api.verify(study / "trial.yaml")
     assert "reports: 8 folder(s)" in " ".join(res.passed) and not res.notes
+
+
+@pytest.mark.parametrize("command", ["lock", "amend"])
+def test_a_lock_or_amend_stopped_at_every_step_is_completed_or_undone(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch, command: str) -> None:
+    """The lock document waits beside the lock until its log entry is written: a stop before
+    the entry leaves the old lock; a stop after it is finished by the next command."""
+    base = tmp_path / "base"
+    base.mkdir()
+    (base / "trial.yaml").write_text(PLAN_TEXT)
+    if command == "amend":
+        api.lock(base / "trial.yaml")
+        (base / "trial.yaml").write_text(PLAN_TEXT.replace("alpha: 0.05", "alpha: 0.025"))
+
+    def act(study: Path) -> Any:
+        plan = study / "trial.yaml"
+        return api.lock(plan) if command == "lock" else api.amend(plan, reason="alpha")
+
+    probe = tmp_path / "probe"
+    shutil.copytree(base, probe)
+    with crashing(monkeypatch, Crash(probe, None, None)) as counted:
+        act(probe)
+    outcomes: dict[str, int] = {}
+    for at in range(1, counted.count + 1):
+        for torn in ((False, True) if counted.names[at - 1] == "write" else (False,)):
+            study, snapshot = tmp_path / f"s{at}{torn:d}", tmp_path / f"k{at}{torn:d}"
+            shutil.copytree(base, study)
+            with pytest.raises(Killed), crashing(monkeypatch, Crash(study, at, snapshot, torn)):
+                act(study)
+            plan = snapshot / "trial.yaml"
+            try:
+                res = api.verify(plan)
+                outcome = "passed with notes" if res.notes else "passed"
+            except IntegrityStop as exc:
+                if "nothing to verify" in str(exc) and command == "lock":
+                    outcome = "nothing locked yet"
+                elif "differs in meaning from lock version 1" in str(exc) and command == "amend":
+                    outcome = "as before the amend"  # the edited plan, not yet amended
+                else:
+                    assert "the last line is incomplete" in str(exc), str(exc)
+                    outcome = "half entry named"
+            outcomes[outcome] = outcomes.get(outcome, 0) + 1
+            if outcome != "half entry named":
+                act(snapshot)  # completes the stopped write, or does it again
+                doc = json.loads(audit.lock_path(plan).read_text())
+                assert len(doc["versions"]) == (1 if command == "lock" else 2)
+                assert not api.verify(plan).notes
+            shutil.rmtree(study)
+            shutil.rmtree(snapshot)
+    assert outcomes.get("passed with notes", 0) > 0 and outcomes.get("half entry named") == 1
+    print(f"\n{command}: {counted.count} steps: {outcomes}")

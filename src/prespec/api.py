@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from . import audit
-from .canonical import canonical_json, sha256_tag
+from .audit.lockfile import complete_pending, version_digest, write_pending
 from .departures import Departure, Note
 from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
@@ -88,12 +88,6 @@ class LockResult:
     note: str | None = None
 
 
-def version_digest(record: dict[str, Any]) -> str:
-    """``sha256:`` of the canonical JSON of a whole lock version, kept in its log entry, so
-    that an edit to any field of the lock (reason, actor, time, environment) is detected."""
-    return sha256_tag(canonical_json(record))
-
-
 def _version_record(loaded: LoadedPlan, version: int, previous: str | None, reason: str | None,
                     actor: str) -> dict[str, Any]:
     return {
@@ -113,16 +107,21 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
                    action: str, actor: str, deviations: list[dict[str, Any]],
                    sign: audit.log.Signer | None = None,
                    changes: list[str] | None = None) -> None:
-    """Write the lock, then the log entry; restore the old lock if the log cannot be written."""
+    """Write the next lock document beside the lock, append the log entry (the moment the
+    version counts), then rename the document over the lock. A failure before the entry
+    leaves the lock as it was; a stop after it is completed by the next command
+    (``complete_pending``), and verify checks the waiting document meanwhile."""
     plan_path = loaded.path
     lock_file = audit.lock_path(plan_path)
-    before = lock_file.read_bytes() if lock_file.exists() else None
     new_doc = {"prespec": 1, "versions": [*(doc["versions"] if doc else []), record]}
-    audit.check_chain(audit.read_log(audit.log_path(plan_path)), audit.log_path(plan_path).name)
-    audit.write_lock(lock_file, new_doc)
+    log = audit.log_path(plan_path)
+    entries = audit.read_log(log)
+    audit.check_chain(entries, log.name)
+    audit.check_head(entries, audit.head_path(plan_path))
+    pending = write_pending(lock_file, new_doc)
     try:
         audit.append(
-            audit.log_path(plan_path),
+            log,
             audit.head_path(plan_path),
             actor=actor,
             action=action,
@@ -135,11 +134,22 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
             sign=sign,
         )
     except BaseException:
-        if before is None:
-            lock_file.unlink(missing_ok=True)
-        else:
-            audit.replace_atomically(lock_file, before)
+        pending.unlink(missing_ok=True)
         raise
+    pending.replace(lock_file)
+    audit.files.fsync_dir(lock_file.parent)
+
+
+def _finish_stopped_writes(plan: Path) -> list[dict[str, Any]]:
+    """Check the log, then complete a lock write or a report rename that a stop interrupted."""
+    log = audit.log_path(plan)
+    entries = audit.read_log(log)
+    audit.check_chain(entries, log.name)
+    if audit.check_head(entries, audit.head_path(plan)) is not None:
+        audit.log.repair_head(log, audit.head_path(plan))
+    complete_pending(audit.lock_path(plan), entries)
+    complete_interrupted(plan, entries)
+    return entries
 
 
 def _signer(sign: str | Path | None) -> audit.log.Signer | None:
@@ -158,6 +168,7 @@ def lock(plan: str | Path, *, actor: str | None = None,
     """
     signer = _signer(sign)
     loaded = load_plan(Path(plan))
+    _finish_stopped_writes(loaded.path)
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is not None:
         last = audit.latest(doc)
@@ -190,6 +201,7 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
         raise BadInput("amend: --reason must say why the plan changed")
     signer = _signer(sign)
     loaded = load_plan(Path(plan))
+    _finish_stopped_writes(loaded.path)
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is None:
         raise BadInput(f"{loaded.path}: not locked yet; lock it first: prespec lock {loaded.path}")
@@ -360,11 +372,7 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
     data_path = Path(data)
     if not data_path.is_file():
         raise BadInput(f"{data_path}: no such data file")
-    log, head = audit.log_path(loaded.path), audit.head_path(loaded.path)
-    entries = audit.read_log(log)
-    audit.check_chain(entries, log.name)
-    audit.check_head(entries, head)
-    complete_interrupted(loaded.path, entries)
+    entries = _finish_stopped_writes(loaded.path)
     model, fp, version, deviations, notes, record = _plan_in_force(loaded, accept_deviation)
     changes: list[dict[str, Any]] = []
     if overrides:

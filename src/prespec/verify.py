@@ -14,7 +14,8 @@ from pathlib import Path
 from typing import Any
 
 from . import audit
-from .api import VerifyResult, apply_overrides, mark_overrides, version_digest
+from .api import VerifyResult, apply_overrides, mark_overrides
+from .audit.lockfile import logged_pending, pending_path, version_digest
 from .canonical import file_sha256
 from .errors import IntegrityStop, PrespecError
 from .manifest import check_manifest
@@ -94,6 +95,17 @@ def _check_lock(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
         doc = audit.read_lock(audit.lock_path(plan))
     except IntegrityStop as exc:
         raise _fail(result, str(exc)) from None
+    waiting = logged_pending(audit.lock_path(plan), entries)
+    pending = pending_path(audit.lock_path(plan))
+    if waiting is not None:
+        doc = waiting
+        result.notes.append(
+            f"{audit.lock_path(plan).name}: version {len(doc['versions'])} was logged but its "
+            f"write stopped before replacing the lock; it waits in {pending.name} (checked "
+            "there); the next prespec command completes it")
+    elif pending.exists():
+        result.notes.append(f"{pending.name}: left by a lock or amend stopped before its log "
+                            "entry; not part of the lock, safe to delete")
     if doc is None:
         if any(e["action"] in ("lock", "amend") for e in entries):
             raise _fail(result, f"{audit.lock_path(plan).name}: missing, but the log records a lock")

@@ -6,8 +6,9 @@ import json
 from pathlib import Path
 from typing import Any
 
+from ..canonical import canonical_json, sha256_tag
 from ..errors import IntegrityStop
-from .files import replace_atomically
+from .files import fsync_dir, replace_atomically
 
 VERSION_KEYS = ("version", "fingerprint", "plan", "plan_file_sha256", "previous", "reason", "at",
                 "actor", "environment")
@@ -54,3 +55,65 @@ def lock_bytes(doc: dict[str, Any]) -> bytes:
 
 def write_lock(path: Path, doc: dict[str, Any]) -> None:
     replace_atomically(path, lock_bytes(doc))
+
+
+def version_digest(record: dict[str, Any]) -> str:
+    """``sha256:`` of the canonical JSON of a whole lock version, kept in its log entry, so
+    that an edit to any field of the lock (reason, actor, time, environment) is detected."""
+    return sha256_tag(canonical_json(record))
+
+
+def pending_path(path: Path) -> Path:
+    """Where the next lock document waits while its log entry is written."""
+    return path.with_name(f".{path.name}.pending")
+
+
+def logged_pending(path: Path, entries: list[dict[str, Any]]) -> dict[str, Any] | None:
+    """The waiting lock document if its new version has its log entry (the write stopped
+    between the log and the lock), else None. It must extend the lock by exactly that one
+    version."""
+    pending = pending_path(path)
+    if not pending.is_file():
+        return None
+    try:
+        doc = read_lock(pending)
+        current = read_lock(path)
+    except IntegrityStop:
+        return None
+    if doc is None:
+        return None
+    old = current["versions"] if current else []
+    new = doc["versions"][-1]
+    if doc["versions"][:-1] != old or new.get("version") != len(old) + 1:
+        return None
+    action = "lock" if new["version"] == 1 else "amend"
+    for e in entries:
+        details = e.get("details") if isinstance(e.get("details"), dict) else {}
+        if e.get("action") == action and details.get("version") == new["version"] \
+                and details.get("record") == version_digest(new):
+            return doc
+    return None
+
+
+def complete_pending(path: Path, entries: list[dict[str, Any]]) -> bool:
+    """Finish a lock write stopped after its log entry; drop one stopped before it.
+    True when the lock was completed."""
+    pending = pending_path(path)
+    if not pending.exists():
+        return False
+    if logged_pending(path, entries) is not None:
+        try:
+            pending.replace(path)
+        except FileNotFoundError:  # another process completed it
+            return False
+        fsync_dir(path.parent)
+        return True
+    pending.unlink(missing_ok=True)
+    return False
+
+
+def write_pending(path: Path, doc: dict[str, Any]) -> Path:
+    """Write the next lock document beside the lock; it replaces the lock after its entry."""
+    pending = pending_path(path)
+    replace_atomically(pending, lock_bytes(doc))
+    return pending

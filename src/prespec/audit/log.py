@@ -233,3 +233,17 @@ def check_head(entries: list[dict[str, Any]], head: Path) -> str | None:
             and doc["hash"] == entries[-2]["hash"]:
         return HEAD_LAGS
     raise IntegrityStop(f"{head.name}: does not match the last entry of the log")
+
+
+def repair_head(log: Path, head: Path) -> bool:
+    """Bring a head that lags one entry behind up to date, under the log's lock; True if so."""
+    if not log.exists():
+        return False
+    with _locked(log) as fd:
+        size = os.fstat(fd).st_size
+        entries = parse_log(os.pread(fd, size, 0), log.name) if size else []
+        check_chain(entries, log.name)
+        if check_head(entries, head) is None:
+            return False
+        replace_atomically(head, head_line(entries[-1]))
+    return True
