@@ -293,3 +293,30 @@ def test_out_outside_the_plan_folder_must_be_a_plain_writable_folder(
     done = api.run(plan, data, out=outside / "report")
     assert done.entry["details"]["report"] == f"../{outside.name}/report"
     api.verify(plan)
+
+
+def _amend_in_child(plan: str, n: int) -> None:
+    Path(plan).write_text(PLAN_TEXT.replace("alpha: 0.05", f"alpha: 0.0{n + 1}"))
+    try:
+        api.amend(plan, reason=f"child {n}")
+    except IntegrityStop:
+        pass
+
+
+def test_amends_at_the_same_moment_get_distinct_versions(study: tuple[Path, Path]) -> None:
+    import multiprocessing
+
+    plan, _ = study
+    api.lock(plan)
+    ctx = multiprocessing.get_context("fork")
+    procs = [ctx.Process(target=_amend_in_child, args=(str(plan), n)) for n in range(1, 5)]
+    for p in procs:
+        p.start()
+    for p in procs:
+        p.join(60)
+    doc = json.loads(audit.lock_path(plan).read_text())
+    numbers = [v["version"] for v in doc["versions"]]
+    assert numbers == list(range(1, len(numbers) + 1)) and len(numbers) >= 2
+    last_alpha = doc["versions"][-1]["plan"]["alpha"]
+    plan.write_text(PLAN_TEXT.replace("alpha: 0.05", f"alpha: {last_alpha}"))
+    api.verify(plan)

@@ -7,9 +7,11 @@ Every function takes paths and plain values, returns a small result, and raises 
 from __future__ import annotations
 
 import copy
+import fcntl
+import functools
 import getpass
 import os
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -160,6 +162,28 @@ def _signer(sign: str | Path | None) -> audit.log.Signer | None:
     return signer(sign)
 
 
+def _serialised(fn: Callable[..., LockResult]) -> Callable[..., LockResult]:
+    """Hold an exclusive lock on the plan's folder while a lock or amend reads the lock,
+    numbers the next version and writes it, so that two at once cannot claim one number."""
+
+    @functools.wraps(fn)
+    def wrapper(plan: str | Path, **kwargs: Any) -> LockResult:
+        folder = Path(plan).parent
+        try:
+            fd = os.open(folder, os.O_RDONLY)
+        except OSError:  # no such folder: load_plan reports it
+            return fn(plan, **kwargs)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX)
+            return fn(plan, **kwargs)
+        finally:
+            fcntl.flock(fd, fcntl.LOCK_UN)
+            os.close(fd)
+
+    return wrapper
+
+
+@_serialised
 def lock(plan: str | Path, *, actor: str | None = None,
          sign: str | Path | None = None) -> LockResult:
     """Resolve the plan, write the lock and a ``lock`` entry; a no-op if already locked.
@@ -188,6 +212,7 @@ def lock(plan: str | Path, *, actor: str | None = None,
     return LockResult(loaded.fingerprint, 1, True)
 
 
+@_serialised
 def amend(plan: str | Path, *, reason: str, actor: str | None = None,
           sign: str | Path | None = None) -> LockResult:
     """Lock a changed plan as the next version, chained to the previous one.
