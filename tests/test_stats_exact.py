@@ -304,7 +304,7 @@ def test_boschloo_one_sided_never_exceeds_fishers(
         assert boschloo <= fisher + 1e-9
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=35, deadline=None)
 @given(two_groups())
 def test_swapping_the_groups_mirrors_the_result(table: tuple[int, int, int, int]) -> None:
     x1, n1, x2, n2 = table
@@ -357,3 +357,23 @@ def test_fisher_k_with_two_groups_is_the_2x2_test(table: tuple[int, int, int, in
     x1, n1, x2, n2 = table
     ours = fisher_exact_k([x1, x2], [n1, n2]).result.p_value
     assert ours == pytest.approx(fisher_exact(x1, n1, x2, n2).p_value, rel=1e-12)
+
+
+def test_unconditional_support_is_limited() -> None:
+    # (n1 + 1)(n2 + 1) tables are held in memory; 1000 per group is the largest allowed
+    for test in UNCONDITIONAL:
+        with pytest.raises(ValueError, match=r"\(n1 \+ 1\)\(n2 \+ 1\) = 1004004 tables, more than"):
+            test(10, 1001, 10, 1001, alternative="two-sided")
+
+
+def test_fisher_k_with_large_groups_uses_the_weaker_bound() -> None:
+    # 100000 per group: the smallest-completion bound is not computed (too many steps) and 0 is
+    # used; the walk still finishes. With 2 groups it is the 2x2 test (scipy-checked there).
+    result = fisher_exact_k([1000, 1100], [100_000, 100_000])
+    assert result.tables_enumerated == 2101
+    assert result.result.p_value == pytest.approx(
+        fisher_exact(1000, 100_000, 1100, 100_000).p_value
+    )
+    three = fisher_exact_k([5, 0, 1], [100_000] * 3)
+    assert three.tables_enumerated == 28  # 6 events in 3 groups: C(8, 2) # common practice
+    assert 0.0 < three.result.p_value < 1.0

@@ -31,8 +31,13 @@ TIE_TOLERANCE = 1e-7
 GRID_POINTS = 1024
 #: How many of the best local maxima on the grid are refined by the local optimiser.
 REFINED_MAXIMA = 5
+#: The largest support, (n1 + 1)(n2 + 1) tables, of Barnard's and Boschloo's tests (memory).
+MAX_UNCONDITIONAL_TABLES = 1001 * 1001
 #: Default cap on the number of k×2 tables with the observed margins that are enumerated.
 MAX_TABLES = 10_000_000
+
+#: Absolute margin (log scale) on the completion bounds used for pruning.
+BOUND_MARGIN = 1e-9
 
 _LOG_TIE = math.log1p(TIE_TOLERANCE)
 
@@ -104,9 +109,18 @@ def _maximum_over_rate(log_coef: np.ndarray) -> float:
     return min(1.0, best)
 
 
-def _two_groups(x1: object, n1: object, x2: object, n2: object) -> tuple[int, int, int, int]:
+def _two_groups(
+    method: str, x1: object, n1: object, x2: object, n2: object
+) -> tuple[int, int, int, int]:
+    """Validate the two groups, and the size of the support the unconditional tests hold."""
     a, m = _checks.events_of_total("x1", x1, "n1", n1)
     b, n = _checks.events_of_total("x2", x2, "n2", n2)
+    support = (m + 1) * (n + 1)
+    if support > MAX_UNCONDITIONAL_TABLES:
+        raise ValueError(
+            f"{method}: (n1 + 1)(n2 + 1) = {support} tables, more than the "
+            f"{MAX_UNCONDITIONAL_TABLES} (1000 per group) this test handles"
+        )
     return a, m, b, n
 
 
@@ -164,8 +178,11 @@ def barnard_exact(x1: int, n1: int, x2: int, n2: int, *, alternative: str) -> Te
     The tables are ordered by w = (p1 − p2)/sqrt(p(1 − p)(1/n1 + 1/n2)), p the pooled proportion
     (w = 0 when p1 = p2). The p-value is the largest, over the common rate π in [0, 1], of the
     probability of the tables with w >= w_obs (``greater``), w <= w_obs (``less``) or
-    |w| >= |w_obs| (``two-sided``), each group binomial. ``statistic`` is w_obs, the same value
-    scipy.stats.barnard_exact reports; ``df`` is ``None``.
+    |w| >= |w_obs| (``two-sided``), each group binomial. Ties are decided exactly in integers.
+    The supremum is searched on a grid of max(1024, 4N) rates and refined by a bounded scalar
+    optimiser around the five best local maxima of the grid. ``statistic`` is w_obs, the same
+    value scipy.stats.barnard_exact reports; ``df`` is ``None``. The support is held in memory:
+    more than 1001² tables ((n1 + 1)(n2 + 1), about 1000 per group) is a ValueError.
 
     References
     ----------
@@ -173,9 +190,9 @@ def barnard_exact(x1: int, n1: int, x2: int, n2: int, *, alternative: str) -> Te
     Suissa S, Shuster JJ. Exact unconditional sample sizes for the 2×2 binomial trial. Journal
     of the Royal Statistical Society, Series A 1985;148:317–327 (the pooled z ordering).
     Mehta CR, Senchaudhuri P. Conditional versus unconditional exact tests for comparing two
-    binomials. Cytel Software Corporation, 2003.
+    binomials. Technical report, 2003.
     """
-    a, m, b, n = _two_groups(x1, n1, x2, n2)
+    a, m, b, n = _two_groups("barnard-exact", x1, n1, x2, n2)
     alt = _checks.alternative(alternative)
     w, _, _ = _wald_order(m, n)
     region = _wald_region(m, n, a, b, alt)
@@ -228,6 +245,7 @@ def boschloo_exact(x1: int, n1: int, x2: int, n2: int, *, alternative: str) -> T
     two-sided p-value is twice the smaller one-sided p-value, at most 1, as in
     scipy.stats.boschloo_exact. ``statistic`` is the observed Fisher one-sided p-value (of the
     side with the smaller p-value when two-sided), as scipy reports it; ``df`` is ``None``.
+    The supremum is found as in :func:`barnard_exact`, with the same limit on the support.
 
     References
     ----------
@@ -236,7 +254,7 @@ def boschloo_exact(x1: int, n1: int, x2: int, n2: int, *, alternative: str) -> T
     Lydersen S, Fagerland MW, Laake P. Recommended tests for association in 2×2 tables.
     Statistics in Medicine 2009;28:1159–1175.
     """
-    a, m, b, n = _two_groups(x1, n1, x2, n2)
+    a, m, b, n = _two_groups("boschloo-exact", x1, n1, x2, n2)
     alt = _checks.alternative(alternative)
     if alt != "two-sided":
         p, fisher = _boschloo_one_sided(a, m, b, n, alt)
@@ -254,9 +272,10 @@ def boschloo_exact(x1: int, n1: int, x2: int, n2: int, *, alternative: str) -> T
 class FisherK:
     """The k×2 Fisher test with how its p-value was obtained.
 
-    ``tables_enumerated`` is the number of tables with the observed margins that the exact
-    p-value accounts for (``None`` for a Monte Carlo p-value); ``monte_carlo_se`` is the
-    standard error of a Monte Carlo p-value (``None`` when exact).
+    ``tables_enumerated`` is the number of tables with the observed margins, all of which the
+    exact p-value accounts for, one by one or in pruned blocks (``None`` for a Monte Carlo
+    p-value); ``monte_carlo_se`` is the standard error of a Monte Carlo p-value (``None`` when
+    exact).
     """
 
     result: TestResult
@@ -275,20 +294,45 @@ def _table_count(totals: list[int], events: int) -> int:
     return ways[events]
 
 
+#: Above this many steps (Σ group size × events) the smallest-completion bound is not computed
+#: by dynamic programming and the weaker bound 0 is used instead (still valid, prunes less).
+LOWER_BOUND_STEPS = 20_000_000
+
+
 def _completion_bounds(totals: list[int], events: int) -> tuple[np.ndarray, np.ndarray]:
     """Largest and smallest Σ log C(n_i, a_i) over the groups j..k−1 with Σ a_i = t.
 
-    Arrays of shape (k + 1, events + 1); row k is the empty completion (0 at t = 0).
+    Arrays of shape (k + 1, events + 1); row k is the empty completion (0 at t = 0). Each
+    log C(n, a) is concave in a, so the largest sum for t events takes the t largest of the
+    groups' increments log((n − a)/(a + 1)) (a greedy merge); it is summed from the groups'
+    own log C values so that it rounds as the tables themselves do. The smallest sum is found
+    by dynamic programming when that is cheap enough, else bounded below by 0.
     """
     k = len(totals)
     high = np.full((k + 1, events + 1), -np.inf)
-    low = np.full((k + 1, events + 1), np.inf)
-    high[k, 0] = low[k, 0] = 0.0
+    high[k, 0] = 0.0
+    increments = np.empty(0)
+    owners = np.empty(0, dtype=np.int64)
+    log_c = [_log_binomial(n) for n in totals]
     for j in range(k - 1, -1, -1):
-        log_c = _log_binomial(totals[j])
-        for a in range(min(totals[j], events) + 1):
-            high[j, a:] = np.maximum(high[j, a:], log_c[a] + high[j + 1, : events + 1 - a])
-            low[j, a:] = np.minimum(low[j, a:], log_c[a] + low[j + 1, : events + 1 - a])
+        a = np.arange(totals[j], dtype=float)
+        increments = np.concatenate([increments, np.log(totals[j] - a) - np.log(a + 1.0)])
+        owners = np.concatenate([owners, np.full(totals[j], j, dtype=np.int64)])
+        order = np.argsort(-increments, kind="stable")
+        increments, owners = increments[order], owners[order]
+        upto = min(events, increments.size)
+        total = np.zeros(upto + 1)
+        for i in range(j, k):
+            taken = np.concatenate([[0], np.cumsum(owners[:upto] == i)])
+            total += log_c[i][taken]
+        high[j, : upto + 1] = total
+    low = np.zeros((k + 1, events + 1))
+    if sum(min(n, events) + 1 for n in totals) * (events + 1) <= LOWER_BOUND_STEPS:
+        low[:] = np.inf
+        low[k, 0] = 0.0
+        for j in range(k - 1, -1, -1):
+            for a in range(min(totals[j], events) + 1):
+                low[j, a:] = np.minimum(low[j, a:], log_c[j][a] + low[j + 1, : events + 1 - a])
     return high, low
 
 
@@ -327,11 +371,14 @@ class _PrunedWalk:
 
     def visit(self, j: int, taken: np.ndarray, log_so_far: np.ndarray) -> None:
         t = self.events - taken
-        whole = log_so_far + self.high[j, t] <= self.limit
+        # a margin on the bounds of partial tables: one that close to the limit is extended,
+        # and its tables are compared one by one (exactly, at the last level)
+        margin = 0.0 if j == self.k else BOUND_MARGIN
+        whole = log_so_far + self.high[j, t] <= self.limit - margin
         if np.any(whole):
             mass = log_so_far[whole] + self.log_rest[j][t[whole]] - self.log_all
             self.parts.append(float(np.exp(mass).sum()))
-        open_ = ~whole & (log_so_far + self.low[j, t] <= self.limit)
+        open_ = ~whole & (log_so_far + self.low[j, t] <= self.limit + margin)
         if j == self.k or not np.any(open_):
             return
         taken, log_so_far = taken[open_], log_so_far[open_]
@@ -401,11 +448,15 @@ def fisher_exact_k(
     Conditional on the group totals and the total number of events, the table has the
     multivariate hypergeometric law P = Π C(n_i, a_i) / C(N, m). The p-value is the sum of the
     probabilities of the tables no more probable than the observed one (within a relative 1e-7,
-    for ties). Exact by pruned enumeration unless the margins admit more than ``max_tables``
-    tables, which is a ValueError that suggests a Monte Carlo p-value; with
-    ``monte_carlo=(tables, seed)`` the p-value is (1 + hits)/(tables + 1) over random tables
-    with the observed margins, and its standard error is returned. For k = 2 the exact p-value
-    is the two-sided p-value of Fisher's 2×2 test. Two-sided only; ``statistic`` and ``df`` are
+    for ties). The exact p-value comes from a pruned enumeration: whole blocks of tables are
+    added or skipped at once when bounds on their probabilities decide them. Margins that admit
+    at most ``max_tables`` tables are always enumerated; larger ones as long as the walk visits
+    at most ``max_tables`` partial tables, beyond which a ValueError suggests a Monte Carlo
+    p-value. ``tables_enumerated`` is the number of tables with the observed margins (all of
+    them accounted for, one by one or in blocks). With ``monte_carlo=(tables, seed)`` the
+    p-value is (1 + hits)/(tables + 1) over random tables with the observed margins, and its
+    standard error sqrt(p(1 − p)/tables) is returned. For k = 2 the exact p-value is the
+    two-sided p-value of Fisher's 2×2 test. Two-sided only; ``statistic`` and ``df`` are
     ``None``.
 
     References
