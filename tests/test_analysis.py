@@ -218,3 +218,15 @@ def test_k_group_fisher_too_large_asks_for_monte_carlo(tmp_path: Path) -> None:
     assert mc["tables"] == 2000 and mc["seed"] == 7 and 0 < mc["standard_error"] < 0.02
     again, _ = analyse(load_plan(path).model, big)
     assert again[0]["p_value"] == entries[0]["p_value"]  # the seed fixes the draw
+
+
+def test_unconditional_exact_test_on_groups_too_large_is_bad_input(tmp_path: Path) -> None:
+    from prespec.errors import DataError
+
+    path = tmp_path / "b.yaml"
+    path.write_text(GATED.replace("test: pearson-chi-square,\n     then: {pairwise: PAIRS, "
+                                  "multiplicity: holm}", "test: pearson-chi-square")
+                    .replace("test: fisher-exact}", "test: barnard-exact}"))
+    big = prepared({"a": (10, 1500), "b": (20, 1500), "c": (5, 10)})
+    with pytest.raises(DataError, match=r"hypotheses.P: barnard-exact: .* 1000 per group"):
+        analyse(load_plan(path).model, big)

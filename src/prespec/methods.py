@@ -83,6 +83,18 @@ def _fisher(table: Table, hyp: Any) -> TestOutcome:
     return TestOutcome(out.result, info)
 
 
+def _sized(fn: Callable[..., TestResult]) -> Callable[[Table, Any], TestResult]:
+    """An unconditional exact test, which refuses groups too large to hold every table."""
+
+    def run(table: Table, hyp: Any) -> TestResult:
+        try:
+            return fn(*table.pair, alternative=hyp.alternative)
+        except ValueError as exc:  # the counts are valid here: the groups are too large
+            raise DataError(f"hypotheses.{hyp.id}: {exc}") from None
+
+    return run
+
+
 def _plain(fn: Callable[[Table, Any], TestResult]) -> Callable[[Table, Any], TestOutcome]:
     return lambda table, hyp: TestOutcome(fn(table, hyp))
 
@@ -98,8 +110,8 @@ TESTS: dict[str, Callable[[Table, Any], TestOutcome]] = {
     ),
     "two-proportion-z": _plain(_two_proportion_z),
     "fisher-exact": _fisher,
-    "barnard-exact": _plain(lambda t, h: exact.barnard_exact(*t.pair, alternative=h.alternative)),
-    "boschloo-exact": _plain(lambda t, h: exact.boschloo_exact(*t.pair, alternative=h.alternative)),
+    "barnard-exact": _plain(_sized(exact.barnard_exact)),
+    "boschloo-exact": _plain(_sized(exact.boschloo_exact)),
     "cochran-mantel-haenszel": _plain(
         lambda t, h: stratified.cochran_mantel_haenszel(
             t.strata or [], continuity=bool(h.continuity), alternative=h.alternative
