@@ -9,9 +9,8 @@ from __future__ import annotations
 
 import math
 
-from scipy import stats
-
 from prespec.stats import _checks
+from prespec.stats._normal import normal_p_value
 from prespec.stats.intervals import difference_constrained_mle
 from prespec.stats.ratios import ratio_constrained_mle
 from prespec.stats.results import TestResult
@@ -36,15 +35,6 @@ def _margin(measure: object, margin: object) -> tuple[str, float]:
         raise ValueError(f"a risk-ratio margin must be a finite number above 0, got {value!r}")
     return str(measure), value
 
-
-def _normal_p(z: float, alternative: str) -> float:
-    if math.isnan(z):
-        return math.nan
-    if alternative == "greater":
-        return float(stats.norm.sf(z))
-    if alternative == "less":
-        return float(stats.norm.cdf(z))
-    return float(min(1.0, 2.0 * stats.norm.sf(abs(z))))
 
 
 def _z(numerator: float, variance: float) -> float:
@@ -87,7 +77,7 @@ def farrington_manning(
         numerator = (x1 * n2 - value * x2 * n1) / (n1 * n2)
         variance = t1 * (1.0 - t1) / n1 + value * value * t2 * (1.0 - t2) / n2
     z = _z(numerator, variance)
-    return TestResult("farrington-manning", z, None, _normal_p(z, alt), alt)
+    return TestResult("farrington-manning", z, None, normal_p_value(z, alt), alt)
 
 
 def wald_margin_z(
@@ -122,7 +112,7 @@ def wald_margin_z(
     else:
         log_ratio = math.log(x1) - math.log(n1) - math.log(x2) + math.log(n2)
         z = _z(log_ratio - math.log(value), 1.0 / x1 - 1.0 / n1 + 1.0 / x2 - 1.0 / n2)
-    return TestResult(method, z, None, _normal_p(z, alt), alt)
+    return TestResult(method, z, None, normal_p_value(z, alt), alt)
 
 
 def tost(lower: TestResult, upper: TestResult) -> TestResult:

@@ -14,22 +14,13 @@ import numpy as np
 from scipy import stats
 
 from prespec.stats import _checks
+from prespec.stats._normal import normal_p_value
 from prespec.stats.results import TestResult
 from prespec.stats.tables import expected_counts
 
 #: Relative tolerance for tables as probable as the observed one in the two-sided Fisher test.
 FISHER_TIE_TOLERANCE = 1e-7
 
-
-def _normal_p(z: float, alternative: str) -> float:
-    """P-value of a standard normal statistic ``z`` for the given alternative."""
-    if math.isnan(z):
-        return math.nan
-    if alternative == "greater":
-        return float(stats.norm.sf(z))
-    if alternative == "less":
-        return float(stats.norm.cdf(z))
-    return float(min(1.0, 2.0 * stats.norm.sf(abs(z))))
 
 
 def pearson_chi_square(
@@ -79,7 +70,7 @@ def pearson_chi_square(
     else:
         # sign of p1 - p2, exactly, from the integer cross product
         sign = float(np.sign(ev[0] * tot[1] - ev[1] * tot[0]))
-        p = _normal_p(sign * math.sqrt(x2), alt)
+        p = normal_p_value(sign * math.sqrt(x2), alt)
     return TestResult(method, x2, df, p, alt)
 
 
@@ -107,7 +98,7 @@ def two_proportion_z(
     if variance <= 0.0:
         return TestResult(method, math.nan, None, math.nan, alt)
     z = (x1 / n1 - x2 / n2) / math.sqrt(variance)
-    return TestResult(method, z, None, _normal_p(z, alt), alt)
+    return TestResult(method, z, None, normal_p_value(z, alt), alt)
 
 
 def fisher_exact(

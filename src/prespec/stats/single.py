@@ -15,6 +15,7 @@ import numpy as np
 from scipy import stats
 
 from prespec.stats import _checks
+from prespec.stats._normal import normal_p_value
 from prespec.stats.results import Estimate, TestResult
 
 #: Relative tolerance for outcomes as probable as the observed one in the two-sided test.
@@ -94,12 +95,7 @@ def one_proportion_z(x: int, n: int, null_rate: float, *, alternative: str) -> T
     rate = _null_rate(null_rate)
     alt = _checks.alternative(alternative)
     z = (x / n - rate) / math.sqrt(rate * (1.0 - rate) / n)
-    if alt == "greater":
-        p = float(stats.norm.sf(z))
-    elif alt == "less":
-        p = float(stats.norm.cdf(z))
-    else:
-        p = float(min(1.0, 2.0 * stats.norm.sf(abs(z))))
+    p = normal_p_value(z, alt)
     return TestResult("one-proportion-z", z, None, p, alt)
 
 

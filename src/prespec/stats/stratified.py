@@ -21,6 +21,7 @@ import numpy as np
 from scipy import stats
 
 from prespec.stats import _checks
+from prespec.stats._normal import normal_p_value
 from prespec.stats.results import Estimate, TestResult
 
 Stratum = tuple[int, int, int, int]
@@ -74,14 +75,6 @@ def _critical(level: float) -> float:
     """Two-sided standard normal critical value for a confidence level."""
     return float(stats.norm.isf((1.0 - level) / 2.0))
 
-
-def _normal_p(z: float, alternative: str) -> float:
-    """P-value of a standard normal statistic ``z`` for the given alternative."""
-    if alternative == "greater":
-        return float(stats.norm.sf(z))
-    if alternative == "less":
-        return float(stats.norm.cdf(z))
-    return float(min(1.0, 2.0 * stats.norm.sf(abs(z))))
 
 
 def _ratio_estimate(
@@ -164,7 +157,7 @@ def cochran_mantel_haenszel(
         p = float(stats.chi2.sf(statistic, 1))
     else:
         sign = 1.0 if deviation > 0 else -1.0 if deviation < 0 else 0.0
-        p = _normal_p(sign * math.sqrt(statistic), alt)
+        p = normal_p_value(sign * math.sqrt(statistic), alt)
     return TestResult(method, statistic, 1, p, alt)
 
 

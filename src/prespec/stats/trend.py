@@ -7,9 +7,9 @@ from collections.abc import Sequence
 from numbers import Real
 
 import numpy as np
-from scipy import stats
 
 from prespec.stats import _checks
+from prespec.stats._normal import normal_p_value
 from prespec.stats.results import TestResult
 
 
@@ -73,10 +73,5 @@ def cochran_armitage(
     if variance <= 0.0:
         return TestResult(method, math.nan, None, math.nan, alt)
     z = float(np.sum(s * (x - n * pooled))) / math.sqrt(variance)
-    if alt == "greater":
-        p = float(stats.norm.sf(z))
-    elif alt == "less":
-        p = float(stats.norm.cdf(z))
-    else:
-        p = float(min(1.0, 2.0 * stats.norm.sf(abs(z))))
+    p = normal_p_value(z, alt)
     return TestResult(method, z, None, p, alt)
