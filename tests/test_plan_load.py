@@ -124,8 +124,10 @@ def test_defaults_are_resolved(tmp_path: Path) -> None:
         "test": "two-proportion-z", "alternative": "two-sided", "comparison": "superiority",
         "margin": None, "measure": "risk-difference", "interval": "wald", "continuity": False,
         "sparse": None, "role": "secondary", "null_rate": None, "strata": None, "scores": None,
-        "then": None, "monte_carlo": None,
+        "then": None, "monte_carlo": None, "estimand": None, "sensitivity": None,
     }
+    assert loaded.resolved["design"] is None
+    assert loaded.resolved["outcomes"]["infection"]["favourable"] is None
     assert loaded.resolved["data"]["include"] == [
         {"column": "consented", "in": ["yes"], "not_in": None, "equals": None,
          "between": None, "is_missing": None}
@@ -275,9 +277,9 @@ def test_json_schema_describes_the_plan() -> None:
     schema = json_schema()
     assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"
     top = {"prespec", "title", "protocol", "data", "outcomes", "alpha", "multiplicity",
-           "hypotheses"}
+           "hypotheses", "design"}
     assert set(schema["properties"]) == top
-    assert set(schema["required"]) == top - {"protocol"}
+    assert set(schema["required"]) == top - {"protocol", "design"}
     assert schema["additionalProperties"] is False
     hyp = schema["$defs"]["Hypothesis"]["properties"]
     assert "fisher-exact" in hyp["test"]["enum"]

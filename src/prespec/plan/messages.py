@@ -56,6 +56,9 @@ def _model_at(path: KeyPath) -> type[BaseModel] | None:
         ("hypotheses", "#", "sparse"): m.Sparse,
         ("hypotheses", "#", "then"): m.Then,
         ("hypotheses", "#", "monte_carlo"): m.MonteCarlo,
+        ("hypotheses", "#", "estimand"): m.Estimand,
+        ("hypotheses", "#", "estimand", "intercurrent", "#"): m.Intercurrent,
+        ("design",): m.Design,
     }.get(shape)
 
 

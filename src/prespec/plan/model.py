@@ -200,6 +200,11 @@ class Outcome(_Model):
     event: list[Scalar]
     no_event: list[Scalar]
     missing: MissingRule = Field(description="what a blank outcome counts as")
+    favourable: Literal["event", "no-event"] | None = Field(
+        default=None,
+        description="which value is the good one; needed by worst-case and best-case "
+        "sensitivity analyses",
+    )
 
 
 class Sparse(_Model):
@@ -221,6 +226,49 @@ class MonteCarlo(_Model):
 
     tables: Annotated[int, Field(gt=0)]
     seed: Annotated[int, Field(ge=0)]
+
+
+class Intercurrent(_Model):
+    """An intercurrent event and the strategy that handles it (ICH E9(R1))."""
+
+    event: str = Field(description="what happened, in words")
+    column: str = Field(description="the column that says whether it happened")
+    happened: list[Scalar] = Field(description="the values of the column meaning it happened")
+    strategy: Literal["treatment-policy", "composite", "while-on-treatment"]
+    counts_as: Literal["event", "no-event"] | None = Field(
+        default=None, description="composite: what the intercurrent event counts as"
+    )
+    outcome_column: str | None = Field(
+        default=None,
+        description="while-on-treatment: the column holding the outcome observed before the "
+        "intercurrent event",
+    )
+
+
+class Estimand(_Model):
+    """The estimand in the attributes of ICH E9(R1); the summary measure is the `measure`."""
+
+    population: str | None = Field(default=None, description="in words")
+    variable: str | None = Field(default=None, description="in words")
+    intercurrent: list[Intercurrent] = []
+
+
+SensitivityName = Literal["worst-case", "best-case", "tipping-point"]
+
+
+class Design(_Model):
+    """What the sample size is planned on: assumed rates, power, allocation and dropout."""
+
+    assumed: dict[str, Probability] = Field(description="assumed event rate per group")
+    power: Probability
+    allocation: dict[str, Annotated[float, Field(gt=0), BeforeValidator(_not_bool)]] | None = (
+        Field(default=None, description="relative group sizes; default equal")
+    )
+    dropout: Annotated[float, Field(ge=0, lt=1), BeforeValidator(_not_bool)] = 0.0
+    continuity: bool = False
+    scenarios: dict[str, dict[str, Probability]] = Field(
+        default={}, description="named rate sets for --simulate; global-null is always added"
+    )
 
 
 class GraphicalMultiplicity(_Model):
@@ -293,6 +341,8 @@ class Hypothesis(_Model):
     scores: list[Number] | None = None
     then: Then | None = None
     monte_carlo: MonteCarlo | None = None
+    estimand: Estimand | None = None
+    sensitivity: list[SensitivityName] | None = None
 
     @model_validator(mode="before")
     @classmethod
@@ -330,6 +380,18 @@ class Plan(_Model):
     alpha: Probability
     multiplicity: Multiplicity
     hypotheses: list[Hypothesis]
+    design: Design | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _equal_allocation(cls, data: Any) -> Any:
+        if not isinstance(data, dict):
+            return data
+        design, groups = data.get("design"), (data.get("data") or {}).get("groups")
+        if (isinstance(design, dict) and design.get("allocation") is None
+                and isinstance(groups, list) and all(isinstance(g, str) for g in groups)):
+            return {**data, "design": {**design, "allocation": {g: 1 for g in groups}}}
+        return data
 
     def hypothesis(self, id: str) -> Hypothesis:
         """The hypothesis with this id; KeyError if there is none."""

@@ -38,6 +38,7 @@ def format_issues(plan: Plan) -> Iterator[Issue]:
     yield from _data_issues(plan)
     yield from _outcome_issues(plan)
     yield from _multiplicity_issues(plan)
+    yield from _design_issues(plan)
     if not plan.hypotheses:
         yield Issue(("hypotheses",), "must list at least one hypothesis")
     seen: dict[str, int] = {}
@@ -196,6 +197,92 @@ def _hypothesis_issues(plan: Plan, hyp: Hypothesis, path: KeyPath,
     yield from _comparison_issues(hyp, path)
     yield from _estimate_issues(hyp, path)
     yield from _option_issues(plan, hyp, path)
+    yield from _estimand_issues(hyp, path)
+    yield from _sensitivity_issues(plan, hyp, path)
+
+
+def _estimand_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    if hyp.estimand is None:
+        return
+    for j, ice in enumerate(hyp.estimand.intercurrent):
+        where: KeyPath = (*path, "estimand", "intercurrent", j)
+        for key in ("event", "column"):
+            if _blank(getattr(ice, key)):
+                yield Issue((*where, key), "must not be empty")
+        if not ice.happened:
+            yield Issue((*where, "happened"), "must list the values meaning it happened")
+        if ice.strategy == "composite":
+            if ice.counts_as is None:
+                yield Issue((*where, "counts_as"), "is required for a composite strategy "
+                            "(event or no-event)", line_path=where)
+        elif ice.counts_as is not None:
+            yield Issue((*where, "counts_as"), "is used only with strategy: composite",
+                        at_key=True)
+        if ice.strategy == "while-on-treatment":
+            if ice.outcome_column is None or _blank(ice.outcome_column):
+                yield Issue((*where, "outcome_column"), "is required for while-on-treatment "
+                            "(the column with the outcome before the intercurrent event)",
+                            line_path=where)
+        elif ice.outcome_column is not None:
+            yield Issue((*where, "outcome_column"), "is used only with strategy: "
+                        "while-on-treatment", at_key=True)
+
+
+def _sensitivity_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    if hyp.sensitivity is None:
+        return
+    where: KeyPath = (*path, "sensitivity")
+    if not hyp.sensitivity:
+        yield Issue(where, "must name at least one analysis (worst-case, best-case, "
+                    "tipping-point), or be left out")
+    if hyp.kind != "pair":
+        yield Issue(where, "sensitivity analyses of missing outcomes apply to compare [a, b]",
+                    at_key=True)
+        return
+    seen: set[str] = set()
+    for j, name in enumerate(hyp.sensitivity):
+        if name in seen:
+            yield Issue((*where, j), f"{show(name)} is listed twice")
+        seen.add(name)
+        outcome = plan.outcomes.get(hyp.outcome)
+        if name in ("worst-case", "best-case") and outcome is not None \
+                and outcome.favourable is None:
+            yield Issue((*where, j), f"{name} needs outcomes.{hyp.outcome}.favourable "
+                        "(event or no-event) to know which value is the worse one")
+
+
+def _design_issues(plan: Plan) -> Iterator[Issue]:
+    design = plan.design
+    if design is None:
+        return
+    groups = plan.data.groups
+    base: KeyPath = ("design",)
+
+    def rates(mapping: dict[str, float], path: KeyPath) -> Iterator[Issue]:
+        for name in mapping:
+            if name not in groups:
+                yield Issue((*path, name), _not_in("data.groups", name, groups), at_key=True)
+        absent = [g for g in groups if g not in mapping]
+        if absent:
+            yield Issue(path, f"gives no rate for {', '.join(absent)}; give one for every "
+                        "group")
+
+    yield from rates(design.assumed, (*base, "assumed"))
+    allocation = design.allocation or {}
+    for name in allocation:
+        if name not in groups:
+            yield Issue((*base, "allocation", name), _not_in("data.groups", name, groups),
+                        at_key=True)
+    absent = [g for g in groups if g not in allocation]
+    if absent:
+        yield Issue((*base, "allocation"), f"gives no share for {', '.join(absent)}; give "
+                    "one for every group, or leave allocation out for equal groups")
+    for name, scenario in design.scenarios.items():
+        path: KeyPath = (*base, "scenarios", name)
+        if name == "global-null":
+            yield Issue(path, "'global-null' is added by prespec itself (every group at the "
+                        "pooled assumed rate); choose another name", at_key=True)
+        yield from rates(scenario, path)
 
 
 def _compare_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:

@@ -134,6 +134,8 @@ KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
         "scores",
         "then",
         "monte_carlo",
+        "estimand",
+        "sensitivity",
     }
 )
 AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
@@ -141,7 +143,7 @@ AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
 # Keys of later parts of the format (SPEC.md, "Later parts", "Design and interim looks"):
 # named so that a plan using them is told they are not available yet, not that they are unknown.
 LATER_KEYS: dict[str, frozenset[str]] = {
-    "plan": frozenset({"design"}),
+    "plan": frozenset(),
     "data": frozenset({"source", "table"}),
     "hypothesis": frozenset({"looks", "over", "within"}),
 }
