@@ -237,6 +237,12 @@ CASES = [
         swap(H2_TEST, H2_TEST + "    sensitivity: [tipping-point, worst-case]\n"),
         "sensitivity:", "hypotheses.H2.sensitivity[2]",
         ("worst-case needs outcomes.infection.favourable",)),
+    Bad("sparse switch on a stratified test",
+        swap(H2_TEST, "    test: cochran-mantel-haenszel\n    strata: [site]\n    measure: "
+             "odds-ratio\n    interval: robins-breslow-greenland\n    sparse: {min_expected: 5, "
+             "test: fisher-exact}\n").replace("    interval: wald\n", "", 1),
+        "sparse:", "hypotheses.H2.sparse", ("the switched test would ignore the strata",),
+        occurrence=2),
     Bad("sensitivity on a k-group hypothesis",
         swap(H3_ROLE, H3_ROLE + "    sensitivity: [tipping-point]\n"), "sensitivity:",
         "hypotheses.H3.sensitivity", ("apply to compare [a, b]",)),

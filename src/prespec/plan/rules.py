@@ -429,6 +429,9 @@ def _option_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue
         if hyp.comparison != "superiority":
             yield Issue((*path, "sparse"), "a sparse switch applies to superiority comparisons "
                         "only")
+        if hyp.test in v.STRATIFIED_TESTS:
+            yield Issue((*path, "sparse"), f"a sparse switch does not apply to '{hyp.test}': "
+                        "the switched test would ignore the strata")
     if kind == "single":
         if hyp.null_rate is None:
             yield Issue((*path, "null_rate"), "is required for compare [a] (the rate under the "
