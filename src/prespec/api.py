@@ -36,6 +36,7 @@ __all__ = [
     "history",
     "lock",
     "new_key",
+    "rehearse",
     "resolve_actor",
     "run",
     "schema",
@@ -433,6 +434,56 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
     )
     mark_overrides(results, changes)
     return publish(loaded.path, out_path, results, numbered=out is None)
+
+
+def rehearse(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
+             actor: str | None = None) -> RunOutcome:
+    """A blinded dry run of the plan file on ``data``: the group column is never read.
+
+    The plan may be locked or not (a missing or changed lock is a note, never a stop). The
+    run is computed on a random dummy allocation and its report rendered and discarded; the
+    report folder (default ``reports/<stem>/<time>-rehearsal``) holds pooled figures and the
+    data dictionary only, and the log records a ``rehearse`` entry. The lock is not touched.
+    """
+    from .rehearsal import NOTE_DIFFERS_FROM_LOCK, NOTE_NOT_LOCKED, compute_rehearsal
+
+    loaded = load_plan(Path(plan))
+    data_path = Path(data)
+    if not data_path.is_file():
+        raise BadInput(f"{data_path}: no such data file")
+    _finish_stopped_writes(loaded.path)
+    doc = audit.read_lock(audit.lock_path(loaded.path))
+    deviations: list[Departure] = []
+    notes: list[Note] = []
+    version = None
+    env = environment()
+    if doc is None:
+        notes.append(Note(NOTE_NOT_LOCKED, "the plan is not locked: a rehearsal needs no lock, "
+                          "but lock the plan before the run on unblinded data"))
+    elif audit.latest(doc).get("fingerprint") != loaded.fingerprint:
+        notes.append(Note(NOTE_DIFFERS_FROM_LOCK, "the plan file differs in meaning from its "
+                          f"lock (version {audit.latest(doc).get('version')}); the plan file was "
+                          "rehearsed; amend the lock before the run on unblinded data"))
+    else:
+        last = audit.latest(doc)
+        version = int(last["version"])
+        diffs = differences(last.get("environment") or {}, env)
+        if diffs:
+            deviations.append(Departure(
+                "environment-differs-from-lock",
+                "versions differ from those recorded at lock time: "
+                + ", ".join(f"{n} {a} → {b}" for n, a, b in diffs),
+                "; ".join(f"{n} {a}" for n, a, _ in diffs),
+                "; ".join(f"{n} {b}" for n, _, b in diffs)))
+    out_path = Path(out) if out is not None else default_folder(loaded.path, "rehearsal")
+    if out is not None:
+        check_out_path(loaded.path, out_path)
+    results = compute_rehearsal(
+        plan_path=loaded.path, plan=loaded.model, fingerprint=loaded.fingerprint,
+        version=version, data_path=data_path, actor=resolve_actor(actor), environment=env,
+        deviations=deviations, notes=notes,
+    )
+    return publish(loaded.path, out_path, results, numbered=out is None, action="rehearse")
 
 
 def check_out_path(plan_path: Path, out: Path) -> None:

@@ -58,6 +58,11 @@ def _parser() -> argparse.ArgumentParser:
                    help="override a hypothesis's locked test (repeatable; a departure)")
     c.add_argument("--multiplicity", metavar="NAME",
                    help="override the locked multiplicity method (a departure)")
+    c = add("rehearse", "a blinded dry run: never reads the group column, checks the data "
+            "and every step, and writes pooled figures and a data dictionary only", writes=True)
+    c.add_argument("plan")
+    c.add_argument("data")
+    c.add_argument("--out", help="the report folder to create (must not exist or be empty)")
     c = add("verify", "check the lock, the audit log and every report, from the files alone")
     c.add_argument("plan")
     c.add_argument("--expect", metavar="FINGERPRINT",
@@ -111,6 +116,30 @@ def _print_history(res: Any) -> None:
         print(f"  {change}")
 
 
+def _print_rehearsal(res: dict[str, Any]) -> None:
+    """Pooled figures only: the population, each outcome, the departures, each hypothesis."""
+    print("blinded rehearsal: the group column was not read; all figures are pooled")
+    pop = res["population"]
+    print(f"rows read {pop['rows_read']}, left out by the population filter "
+          f"{pop['excluded_by_filter']}, analysed {pop['analysed']}"
+          + (f" (planned {res['planned_total']})" if res["planned_total"] is not None else ""))
+    for name, p in res["pooled"].items():
+        rate = "not computable" if p["rate"] is None else (
+            f"rate {p['rate']:.4f} ({p['level'] * 100:g}% Wilson {p['ci'][0]:.4f} to "
+            f"{p['ci'][1]:.4f})")
+        print(f"outcome {name}: {p['events']} events of {p['total']} analysed, {rate}, "
+              f"{p['missing']} missing")
+    for dev in res["deviations"]:
+        print(f"departure: {dev['code']}: {dev['detail']}")
+    for note in res["notes"]:
+        print(f"note: {note['code']}: {note['detail']}")
+    for hyp in res["hypotheses"]:
+        state = "executes" if hyp["executed"] else f"FAILS: {hyp['problem']}"
+        print(f"{hyp['id']}: {hyp['test']}, {state}")
+    columns = res["data_dictionary"]["columns"]
+    print(f"data dictionary: {len(columns)} column use(s) in tables/data-dictionary.csv")
+
+
 def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "check":
         res = api.check(args.plan)
@@ -154,6 +183,10 @@ def _dispatch(args: argparse.Namespace) -> int:
                         "do not reject H0" if hyp["reject"] is not None else "no decision")
             flag = "" if hyp.get("pre_specified", True) else " (not pre-specified: override)"
             print(f"{hyp['id']}: {hyp['test']}, {shown}, {decision}{flag}")
+        print(out.folder)
+    elif args.command == "rehearse":
+        out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor)
+        _print_rehearsal(out.results)
         print(out.folder)
     elif args.command == "verify":
         if args.report is not None and args.rerun is None:

@@ -58,6 +58,11 @@ def _safe_name(text: str) -> str:
 def _write_tables(folder: Path, results: dict[str, Any]) -> None:
     tables = folder / "tables"
     tables.mkdir()
+    if results.get("kind") == "rehearsal":  # pooled figures and the data dictionary only
+        from .rehearsal import write_rehearsal_tables
+
+        write_rehearsal_tables(tables, results)
+        return
     for outcome, rows in results["groups"].items():
         with open(tables / f"groups-{_safe_name(outcome)}.csv", "w", newline="") as fh:
             w = csv.writer(fh)

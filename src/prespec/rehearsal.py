@@ -1,0 +1,320 @@
+"""A blinded rehearsal: the whole run on a dummy allocation, reported as pooled figures only.
+
+Before unblinding, a statistician wants to know that the data conform to the plan and that
+every step of the run will execute, without learning anything about the groups. A rehearsal
+therefore never reads the group column: it is dropped as soon as the file is read (it may be
+masked, hold the real labels, or be absent). Each row is given a dummy group by a random
+permutation (in the proportions of ``planned_n`` when it names every group, else equal sizes;
+the generator is seeded from ``os.urandom`` and the seed is kept nowhere), and the whole run is
+computed on that allocation and rendered into a temporary folder that is deleted afterwards.
+What the rehearsal writes is pooled over the groups and so depends on no allocation: the
+overall event rate of each outcome with its Wilson interval, the missingness, the population
+counts, the departures that do not depend on the groups, whether each hypothesis executed,
+and the data dictionary (:mod:`prespec.dictionary`).
+"""
+
+from __future__ import annotations
+
+import csv
+import os
+import shutil
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import audit
+from .analysis import _follow_ups, analyse, compute_hypothesis
+from .caution import CAUTION
+from .data import Prepared, file_sha256, prepare, read_data
+from .departures import Departure, Note
+from .dictionary import data_dictionary, uses, write_dictionary_csv
+from .errors import BadInput
+from .execute import build_results
+from .stats import intervals
+
+#: The name of the rehearsal's pooled table in ``tables/``.
+POOLED_TABLE = "pooled.csv"
+#: The name of the data dictionary in ``tables/``.
+DICTIONARY_TABLE = "data-dictionary.csv"
+
+# The codes of the rehearsal's own notes.
+NOTE_NOT_LOCKED = "rehearsal-without-lock"
+NOTE_DIFFERS_FROM_LOCK = "rehearsal-of-unlocked-change"
+NOTE_STEP_FAILED = "rehearsal-step-failed"
+NOTE_ONE_GROUP = "rehearsal-one-group"
+NOTE_GROUPS_NOT_READ = "rehearsal-groups-not-read"
+
+# Notes of the data preparation that count rows regardless of their group (kept); every other
+# note of the dummy run depends on the dummy allocation and is dropped.
+_POOLED_NOTE_CODES = frozenset({"blank-stratum"})
+# Departures of the data preparation that do not depend on the groups (kept).
+_POOLED_DEPARTURE_CODES = frozenset({"unmapped-outcome-value"})
+
+
+@dataclass(frozen=True)
+class Pooled:
+    """One outcome over all analysed rows: events, total, missing, and the Wilson interval."""
+
+    outcome: str
+    events: int
+    total: int  # analysed, after the missing rule
+    missing: int  # blank or unmapped outcome cells among the analysed rows
+    rate: float | None
+    low: float | None
+    high: float | None
+    level: float
+
+    def to_json(self) -> dict[str, Any]:
+        return {"events": self.events, "total": self.total, "missing": self.missing,
+                "rate": self.rate, "ci": [self.low, self.high], "ci_method": "wilson",
+                "level": self.level}
+
+
+@dataclass(frozen=True)
+class Executed:
+    """Whether one hypothesis's computation ran on the dummy allocation, and what stopped it."""
+
+    id: str
+    executed: bool
+    problem: str | None
+
+
+def blinded_frame(frame: pd.DataFrame, plan: Any, plan_file: str) -> pd.DataFrame:
+    """The rows without the group column; a plan that reads the group column elsewhere is
+    bad input, since a rehearsal must not read it."""
+    group = plan.data.group
+    for use in uses(plan):
+        if use.column == group:
+            raise BadInput(f"{plan_file}: {use.role}: column {group!r} is the group column "
+                           "(data.group), which a rehearsal never reads")
+    return frame.drop(columns=[group]) if group in frame.columns else frame
+
+
+def allocation_sizes(rows: int, groups: list[str], planned_n: dict[str, int] | None
+                     ) -> list[int]:
+    """Group sizes summing to ``rows``: proportional to ``planned_n`` when it names every
+    group, else as equal as possible (largest remainders, ties to the earlier group)."""
+    weights = ([float(planned_n[g]) for g in groups]
+               if planned_n and all(g in planned_n for g in groups) else [1.0] * len(groups))
+    total = sum(weights)
+    exact = [rows * w / total for w in weights]
+    sizes = [int(x) for x in exact]
+    order = sorted(range(len(groups)), key=lambda i: (-(exact[i] - sizes[i]), i))
+    for i in order[: rows - sum(sizes)]:
+        sizes[i] += 1
+    return sizes
+
+
+def dummy_allocation(rows: int, groups: list[str], planned_n: dict[str, int] | None,
+                     rng: np.random.Generator) -> np.ndarray:
+    """A random permutation of the group labels over ``rows`` rows, in the sizes above."""
+    labels = np.repeat(np.array(groups, dtype=object),
+                       allocation_sizes(rows, groups, planned_n))
+    return rng.permutation(labels)
+
+
+def _fresh_generator() -> np.random.Generator:
+    """A generator seeded from the operating system; the seed is not kept."""
+    return np.random.default_rng(int.from_bytes(os.urandom(32), "big"))
+
+
+def _one_line(exc: BaseException) -> str:
+    words = " ".join(str(exc).split())
+    return f"{type(exc).__name__}: {words}" if words else type(exc).__name__
+
+
+def pooled_outcomes(prepared: Prepared, level: float) -> list[Pooled]:
+    """Each outcome summed over every group: it does not depend on how rows were allocated."""
+    out = []
+    for name, counts in prepared.outcomes.items():
+        events = sum(gc.events for gc in counts.groups)
+        total = sum(gc.total for gc in counts.groups)
+        missing = sum(gc.blank + gc.unmapped for gc in counts.groups)
+        if total > 0:
+            est = intervals.wilson(events, total, level)
+            rate, low, high = est.value, est.low, est.high
+        else:
+            rate = low = high = None
+        out.append(Pooled(name, events, total, missing, rate, low, high, level))
+    return out
+
+
+def _missing_notes(plan: Any, pooled: list[Pooled]) -> list[Note]:
+    action = {"exclude": "left out of the analysis", "event": "counted as events",
+              "no-event": "counted as no event", "error": "an error"}
+    notes = []
+    for p in pooled:
+        rule = plan.outcomes[p.outcome].missing
+        if p.missing:
+            notes.append(Note(f"missing-{rule}", f"outcome {p.outcome!r}: {p.missing} missing "
+                              f"outcomes {action[rule]} (missing: {rule}), all groups together"))
+    return notes
+
+
+def _shortfalls(plan: Any, pooled: list[Pooled]) -> tuple[list[Departure], int | None]:
+    planned_n = plan.data.planned_n
+    if not planned_n:
+        return [], None
+    planned = sum(planned_n.values())
+    if not all(g in planned_n for g in plan.data.groups):
+        return [], planned
+    found = [Departure("sample-size-shortfall",
+                       f"outcome {p.outcome!r}, all groups together: {p.total} analysed, "
+                       f"{planned} planned (a rehearsal does not read the groups, so it checks "
+                       "the overall size only)", str(planned), str(p.total))
+             for p in pooled if p.total < planned]
+    return found, planned
+
+
+def _diagnose(plan: Any, prepared: Prepared) -> list[Executed]:
+    """Compute each hypothesis and follow-up on its own, to name the ones that fail."""
+    out = []
+    for hyp in plan.hypotheses:
+        subs = [hyp, *(_follow_ups(hyp, plan) if hyp.then is not None else [])]
+        for sub in subs:
+            try:
+                compute_hypothesis(sub, plan, prepared, [])
+                out.append(Executed(sub.id, True, None))
+            except Exception as exc:  # noqa: BLE001 - any failure is the rehearsal's finding
+                out.append(Executed(sub.id, False, _one_line(exc)))
+    return out
+
+
+def _hypothesis_rows(plan: Any, executed: dict[str, Executed]) -> list[dict[str, Any]]:
+    rows = []
+    for hyp in plan.hypotheses:
+        subs = [hyp, *(_follow_ups(hyp, plan) if hyp.then is not None else [])]
+        for sub in subs:
+            done = executed.get(sub.id, Executed(sub.id, False, "not reached"))
+            rows.append({"id": sub.id, "title": sub.title, "role": sub.role,
+                         "outcome": sub.outcome, "compare": sub.compare, "test": sub.test,
+                         "parent": hyp.id if sub is not hyp else None,
+                         "executed": done.executed, "problem": done.problem})
+    return rows
+
+
+def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any]
+               ) -> tuple[dict[str, Executed], list[Note]]:
+    """The statistics and the whole report on the dummy allocation, in a temporary folder
+    that is deleted afterwards; which hypotheses executed, and notes on failed steps."""
+    from .publish import build_report
+
+    notes: list[Note] = []
+    try:
+        hypotheses, stat_notes = analyse(plan, prepared)
+    except Exception as exc:  # noqa: BLE001 - recorded; name the hypotheses that fail
+        found = _diagnose(plan, prepared)
+        if all(e.executed for e in found):
+            notes.append(Note(NOTE_STEP_FAILED, f"the multiplicity step failed: "
+                              f"{_one_line(exc)}"))
+        notes.append(Note(NOTE_STEP_FAILED, "the report step was not reached"))
+        return {e.id: e for e in found}, notes
+    executed = {h["id"]: Executed(h["id"], True, None) for h in hypotheses}
+    scratch = Path(tempfile.mkdtemp(prefix="prespec-rehearsal-"))
+    try:
+        results = build_results(kind="run", plan=plan, prepared=prepared,
+                                hypotheses=hypotheses, deviations=list(prepared.deviations),
+                                notes=[*prepared.notes, *stat_notes], **common)
+        build_report(scratch / "dummy-run", results)
+    except Exception as exc:  # noqa: BLE001 - a failed step is the rehearsal's finding
+        notes.append(Note(NOTE_STEP_FAILED, f"the report step failed on the dummy allocation: "
+                          f"{_one_line(exc)}"))
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
+    return executed, notes
+
+
+def compute_rehearsal(
+    *,
+    plan_path: Path,
+    plan: Any,
+    fingerprint: str,
+    version: int | None,
+    data_path: Path,
+    actor: str,
+    environment: dict[str, str],
+    deviations: list[Departure],
+    notes: list[Note],
+) -> dict[str, Any]:
+    """Read the data without the group column, rehearse the run, and build the pooled
+    results.json document of a rehearsal (not written)."""
+    source = str(data_path)
+    frame = blinded_frame(read_data(data_path), plan, str(plan_path))
+    data_hash = file_sha256(data_path)
+    dictionary = data_dictionary(frame, plan, source)
+    groups = list(plan.data.groups)
+    frame = frame.assign(**{plan.data.group: dummy_allocation(
+        len(frame.index), groups, plan.data.planned_n, _fresh_generator())})
+    prepared = prepare(frame, plan, source)
+    del frame  # the dummy labels go no further than the dummy run
+
+    level = 1.0 - plan.alpha
+    pooled = pooled_outcomes(prepared, level)
+    shortfalls, planned_total = _shortfalls(plan, pooled)
+    data_file = os.path.relpath(data_path.resolve(), plan_path.parent.resolve())
+    common = {"fingerprint": fingerprint, "version": version, "data_hash": data_hash,
+              "data_file": data_file, "actor": actor, "environment": environment}
+    executed, step_notes = _dummy_run(plan=plan, prepared=prepared, common=common)
+
+    all_deviations = [*deviations,
+                      *(d for d in prepared.deviations if d.code in _POOLED_DEPARTURE_CODES),
+                      *shortfalls]
+    all_notes = [*notes, Note(NOTE_GROUPS_NOT_READ, f"column {plan.data.group!r} (data.group) "
+                              "was not read; every figure here is pooled over the groups")]
+    if len(groups) == 1:
+        all_notes.append(Note(NOTE_ONE_GROUP, f"data.groups has one group ({groups[0]}), so "
+                              "the pooled figures are that group's"))
+    all_notes += _missing_notes(plan, pooled)
+    all_notes += [n for n in prepared.notes if n.code in _POOLED_NOTE_CODES]
+    all_notes += step_notes
+    return {
+        "prespec": 1,
+        "kind": "rehearsal",
+        "blinded": True,
+        "title": plan.title,
+        "protocol": plan.protocol,
+        "plan": fingerprint,
+        "plan_version": version,
+        "data": data_hash,
+        "data_file": data_file,
+        "created": audit.utc_now(),
+        "actor": actor,
+        "alpha": plan.alpha,
+        "multiplicity": (plan.multiplicity if isinstance(plan.multiplicity, str)
+                         else plan.multiplicity.model_dump(mode="json")),
+        "environment": environment,
+        "population": {
+            "rows_read": prepared.rows_read,
+            "excluded_by_filter": prepared.excluded_by_filter,
+            "excluded_group": 0,
+            "analysed": prepared.analysed,
+        },
+        "planned_total": planned_total,
+        "analysed_total": prepared.analysed,
+        "pooled": {p.outcome: p.to_json() for p in pooled},
+        "hypotheses": _hypothesis_rows(plan, executed),
+        "data_dictionary": dictionary,
+        "deviations": [d.to_json() for d in all_deviations],
+        "notes": [n.to_json() for n in all_notes],
+        "caution": CAUTION,
+    }
+
+
+POOLED_HEADER = ["outcome", "events", "no_events", "total", "missing", "rate", "ci_low",
+                 "ci_high", "ci_method", "level"]
+
+
+def write_rehearsal_tables(tables: Path, results: dict[str, Any]) -> None:
+    """The rehearsal's only tables: the pooled figures and the data dictionary."""
+    with open(tables / POOLED_TABLE, "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(POOLED_HEADER)
+        for outcome, p in results["pooled"].items():
+            w.writerow([outcome, p["events"], p["total"] - p["events"], p["total"],
+                        p["missing"], p["rate"], p["ci"][0], p["ci"][1], p["ci_method"],
+                        p["level"]])
+    write_dictionary_csv(tables / DICTIONARY_TABLE, results["data_dictionary"])
