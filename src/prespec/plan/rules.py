@@ -249,6 +249,11 @@ def _sensitivity_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[
                 and outcome.favourable is None:
             yield Issue((*where, j), f"{name} needs outcomes.{hyp.outcome}.favourable "
                         "(event or no-event) to know which value is the worse one")
+        if name == "tipping-point":
+            for test in (hyp.test, hyp.sparse.test if hyp.sparse else None):
+                if test in v.NO_TIPPING_POINT_TESTS:
+                    yield Issue((*where, j), f"tipping-point is not available with "
+                                f"'{test}': {v.NO_TIPPING_POINT_TESTS[test]}")
 
 
 def _design_issues(plan: Plan) -> Iterator[Issue]:

@@ -64,6 +64,16 @@ STRATIFIED_TESTS: frozenset[str] = frozenset({"cochran-mantel-haenszel"})
 # Tests for non-inferiority and equivalence (with a margin), and those used only there.
 MARGIN_TESTS: frozenset[str] = frozenset({"farrington-manning", "two-proportion-z"})
 MARGIN_ONLY_TESTS: frozenset[str] = frozenset({"farrington-manning"})
+# Tests a tipping-point sensitivity analysis refuses, and why (the others are on arrays).
+NO_TIPPING_POINT_TESTS: dict[str, str] = {
+    "barnard-exact": "an unconditional exact test searches a supremum over the nuisance "
+                     "parameter for every table, too slow to repeat over a whole grid",
+    "boschloo-exact": "an unconditional exact test searches a supremum over the nuisance "
+                      "parameter for every table, too slow to repeat over a whole grid",
+    "cochran-mantel-haenszel": "the number of events among a group's missing does not say "
+                               "in which strata they fall, so the stratified grid is not "
+                               "defined",
+}
 
 # Measures, per kind; the first is the default (CMH defaults to the odds ratio).
 MEASURES_BY_KIND: dict[str, tuple[str, ...]] = {
