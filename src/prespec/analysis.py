@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from . import methods
+from . import methods, sensitivity
 from .data import Prepared
 from .departures import Note
 from .stats import graphical, multiplicity, tables
@@ -41,13 +41,17 @@ def _groups_of(hyp: Any, plan: Any) -> list[str]:
     return list(plan.data.groups) if hyp.kind in ("all", "trend") else list(hyp.compare)
 
 
-def _table(hyp: Any, plan: Any, prepared: Prepared) -> tuple[methods.Table, list[dict] | None]:
+def _table(hyp: Any, plan: Any, prepared: Prepared,
+           source: str | None = None) -> tuple[methods.Table, list[dict] | None]:
+    """The hypothesis's count table (its own under an estimand: ``source`` names the
+    hypothesis of the plan whose counts it uses, itself unless it is a follow-up)."""
     groups = _groups_of(hyp, plan)
-    events, totals = prepared.outcomes[hyp.outcome].table(groups)
+    source = source or hyp.id
+    events, totals = prepared.counts_for(source, hyp.outcome).table(groups)
     if not hyp.strata:
         return methods.Table(events, totals), None
     shown, strata = [], []
-    for stratum in prepared.strata[(hyp.outcome, tuple(hyp.strata))]:
+    for stratum in prepared.strata_for(source, hyp.outcome, tuple(hyp.strata)):
         s_events, s_totals = stratum.counts.table(groups)
         shown.append({"stratum": dict(zip(hyp.strata, stratum.values, strict=True)),
                       "events": s_events, "totals": s_totals})
@@ -126,6 +130,8 @@ def _blank_entry(hyp: Any, plan: Any, groups: list[str], table: methods.Table) -
         "parent": None,
         "gate": None,
         "family": None if hyp.role == "exploratory" else MAIN_FAMILY,
+        "estimand": None,
+        "sensitivity": None,
     }
 
 
@@ -136,11 +142,25 @@ def _test_json(result: TestResult, what: str, notes: list[Note]) -> dict[str, An
             "p_value": _finite(result.p_value, f"{what} p-value", notes)}
 
 
-def compute_hypothesis(hyp: Any, plan: Any, prepared: Prepared,
-                       notes: list[Note]) -> dict[str, Any]:
-    """One hypothesis's entry of results.json, before the multiplicity adjustment."""
+def compute_hypothesis(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note], *,
+                       source: str | None = None) -> dict[str, Any]:
+    """One hypothesis's entry of results.json, before the multiplicity adjustment.
+
+    ``source`` is the id of the plan's hypothesis whose counts a follow-up uses (its parent).
+    The estimand in words and the sensitivity analyses are written beside the result.
+    """
+    entry = _primary(hyp, plan, prepared, notes, source or hyp.id)
+    entry["estimand"] = estimand_entry(hyp, plan, prepared, source or hyp.id)
+    if getattr(hyp, "sensitivity", None):
+        entry["sensitivity"] = _sensitivity(hyp, plan, prepared, entry, notes,
+                                            source or hyp.id)
+    return entry
+
+
+def _primary(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note],
+             source: str) -> dict[str, Any]:
     groups = _groups_of(hyp, plan)
-    table, strata_shown = _table(hyp, plan, prepared)
+    table, strata_shown = _table(hyp, plan, prepared, source)
     entry = _blank_entry(hyp, plan, groups, table)
     entry["strata_tables"] = strata_shown
     empty = [g for g, n in zip(groups, table.totals, strict=True) if n == 0]
@@ -177,20 +197,195 @@ def compute_hypothesis(hyp: Any, plan: Any, prepared: Prepared,
                                   f"correction over {len(table.strata)} strata, p = "
                                   f"{entry['homogeneity']['p_value']:.4g}"))
     level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
-    est = methods.estimate(hyp, table, level)
-    if est is not None:
-        entry["estimate"] = {
-            "measure": est.measure,
-            "value": _finite(est.value, f"{hyp.id}: the estimate", notes),
-            "ci": [_finite(est.low, f"{hyp.id}: the lower limit", notes),
-                   _finite(est.high, f"{hyp.id}: the upper limit", notes)],
-            "ci_method": est.method,
-            "level": level,
-            "note": getattr(est, "note", None),
-        }
-        if entry["estimate"]["note"]:
-            notes.append(Note("interval-adjustment", f"{hyp.id}: {entry['estimate']['note']}"))
+    entry["estimate"] = _estimate_json(methods.estimate(hyp, table, level), level, hyp.id,
+                                       notes)
     return entry
+
+
+def _estimate_json(est: Any, level: float, who: str, notes: list[Note]) -> dict[str, Any] | None:
+    """The ``estimate`` of an entry: measure, value, interval, method and level."""
+    if est is None:
+        return None
+    out = {
+        "measure": est.measure,
+        "value": _finite(est.value, f"{who}: the estimate", notes),
+        "ci": [_finite(est.low, f"{who}: the lower limit", notes),
+               _finite(est.high, f"{who}: the upper limit", notes)],
+        "ci_method": est.method,
+        "level": level,
+        "note": getattr(est, "note", None),
+    }
+    if out["note"]:
+        notes.append(Note("interval-adjustment", f"{who}: {out['note']}"))
+    return out
+
+
+# --- the estimand in words (ICH E9(R1)) ---
+
+_SUMMARY_WORDS = {
+    "risk-difference": ("the risk difference", "minus"),
+    "risk-ratio": ("the risk ratio", "over"),
+    "odds-ratio": ("the odds ratio", "over"),
+}
+
+
+def _condition_words(cond: Any) -> str:
+    op, arg = cond.op()
+    if op == "is_missing":
+        return f"{cond.column} {'is' if arg else 'is not'} blank"
+    if op == "between":
+        return f"{cond.column} between {arg[0]:g} and {arg[1]:g}"
+    if op == "equals":
+        return f"{cond.column} equals {arg}"
+    values = ", ".join(str(x) for x in arg)
+    return f"{cond.column} {'in' if op == 'in' else 'not in'} [{values}]"
+
+
+def _population_words(plan: Any, groups: list[str]) -> str:
+    shown = " and ".join(groups) if len(groups) <= 2 else ", ".join(groups)
+    words = f"the analysed participants of {shown}"
+    if plan.data.include:
+        words += " (" + "; ".join(_condition_words(c) for c in plan.data.include) + ")"
+    return words
+
+
+def _strategy_words(ice: Any) -> str:
+    if ice.strategy == "composite":
+        counted = "an event" if ice.counts_as == "event" else "no event"
+        return f"a composite strategy (counted as {counted})"
+    if ice.strategy == "while-on-treatment":
+        return (f"a while-on-treatment strategy (the outcome before it, from column "
+                f"{ice.outcome_column})")
+    return "a treatment-policy strategy (the outcome as observed, whether or not it happened)"
+
+
+def _summary_words(hyp: Any, groups: list[str]) -> str:
+    if hyp.kind == "pair" and hyp.measure in _SUMMARY_WORDS:
+        words, joint = _SUMMARY_WORDS[hyp.measure]
+        return f"{words} ({groups[0]} {joint} {groups[1]})"
+    if hyp.kind == "single":
+        return f"the proportion in {groups[0]}"
+    if hyp.kind == "trend":
+        return "none (a test for a trend in the proportions across the groups)"
+    return "none (a test of equal proportions across the groups)"
+
+
+def estimand_entry(hyp: Any, plan: Any, prepared: Prepared,
+                   source: str | None = None) -> dict[str, Any] | None:
+    """The ``estimand`` of an entry: its attributes, how often each intercurrent event
+    happened (pooled over the compared groups) and one paragraph in words; None when the
+    plan states no estimand.
+
+    References
+    ----------
+    ICH E9(R1). Addendum on estimands and sensitivity analysis in clinical trials to the
+    guideline on statistical principles for clinical trials, 2019 (the five attributes).
+    """
+    estimand = getattr(hyp, "estimand", None)
+    if estimand is None:
+        return None
+    groups = _groups_of(hyp, plan)
+    outcome = plan.outcomes[hyp.outcome]
+    own = prepared.by_hypothesis.get(source or hyp.id)
+    population = estimand.population or _population_words(plan, groups)
+    variable = f"{estimand.variable or hyp.outcome} ({outcome.column})"
+    events, parts = [], [f"Population: {population}", f"variable: {variable}"]
+    for k, ice in enumerate(estimand.intercurrent):
+        affected = sum(own.intercurrent[k].happened.get(g, 0) for g in groups) if own else 0
+        events.append({"event": ice.event, "column": ice.column, "strategy": ice.strategy,
+                       "counts_as": ice.counts_as, "outcome_column": ice.outcome_column,
+                       "affected": affected})
+        parts.append(f"intercurrent event '{ice.event}' (column {ice.column}) handled by "
+                     f"{_strategy_words(ice)}")
+    if not estimand.intercurrent:
+        parts.append("no intercurrent events named")
+    elif len(estimand.intercurrent) > 1:
+        parts.append("where more than one happened, the first listed decides")
+    parts.append(f"population-level summary: {_summary_words(hyp, groups)}")
+    return {"population": population, "variable": variable, "intercurrent": events,
+            "summary": hyp.measure, "text": "; ".join(parts) + "."}
+
+
+# --- sensitivity analyses of missing outcomes ---
+
+def _test_on(hyp: Any, plan: Any, table: methods.Table, notes: list[Note],
+             who: str) -> dict[str, Any]:
+    """The hypothesis's own test (with its sparse switch) and estimate on another table."""
+    out: dict[str, Any] = {"test": hyp.test, "statistic": None, "df": None, "p_value": None,
+                           "estimate": None, "rule": None}
+    empty = [g for g, n in zip(_groups_of(hyp, plan), table.totals, strict=True) if n == 0]
+    if empty:
+        notes.append(Note("not-computable", f"{who}: no participants in {', '.join(empty)}; "
+                          "test and estimate not computable"))
+        return out
+    rule = _rule(hyp, table)
+    run_as = hyp.model_copy(update={"test": rule["to"]}) if rule else hyp
+    out.update(_test_json(methods.TESTS[run_as.test](table, run_as).result, f"{who}: the",
+                          notes))
+    out["test"], out["rule"] = run_as.test, rule
+    level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
+    out["estimate"] = _estimate_json(methods.estimate(hyp, table, level), level, who, notes)
+    return out
+
+
+def _extreme_case(hyp: Any, plan: Any, prepared: Prepared, analysis: str, source: str,
+                  notes: list[Note]) -> dict[str, Any]:
+    """Worst case or best case: every missing outcome of each group imputed one way."""
+    groups = _groups_of(hyp, plan)
+    outcome = plan.outcomes[hyp.outcome]
+    imputed = sensitivity.extreme_imputation(analysis, outcome.favourable, groups)
+
+    def completed(counts: Any) -> tuple[list[int], list[int]]:
+        pairs = [sensitivity.impute(sensitivity.observed(counts.of(g), outcome.missing),
+                                    imputed[g]) for g in groups]
+        return [e for e, _ in pairs], [n for _, n in pairs]
+
+    events, totals = completed(prepared.counts_for(source, hyp.outcome))
+    strata = None
+    if hyp.strata:
+        strata = []
+        for stratum in prepared.strata_for(source, hyp.outcome, tuple(hyp.strata)):
+            s_events, s_totals = completed(stratum.counts)
+            strata.append((s_events[0], s_totals[0], s_events[1], s_totals[1]))
+    result = _test_on(hyp, plan, methods.Table(events, totals, strata), notes,
+                      f"{hyp.id} {analysis}")
+    p = result["p_value"]
+    return {"analysis": analysis, "imputed": imputed,
+            "table": {"groups": groups, "events": events, "totals": totals}, **result,
+            "reject_nominal": None if p is None else bool(p <= plan.alpha)}
+
+
+def _tipping(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any], source: str,
+             notes: list[Note]) -> dict[str, Any]:
+    """The tipping-point grid at the nominal alpha, against the primary nominal decision."""
+    groups = _groups_of(hyp, plan)
+    rule = plan.outcomes[hyp.outcome].missing
+    counts = prepared.counts_for(source, hyp.outcome)
+    a, b = (sensitivity.observed(counts.of(g), rule) for g in groups)
+    grid = sensitivity.tipping_point(a, b, hyp, plan.alpha)
+    primary = entry["p_value"]
+    primary_rejects = None if primary is None else bool(primary <= plan.alpha)
+    if primary_rejects is None:
+        notes.append(Note("not-computable", f"{hyp.id} tipping-point: the primary p-value is "
+                          "not computable; the grid is compared with 'not rejected'"))
+    out = sensitivity.tipping_point_json(grid, primary_rejects)
+    if out["cells_not_computable"]:
+        notes.append(Note("not-computable", f"{hyp.id} tipping-point: "
+                          f"{out['cells_not_computable']} of {out['cells']} cells have no "
+                          "p-value (a zero column margin) and are written as null"))
+    return out
+
+
+def _sensitivity(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any],
+                 notes: list[Note], source: str) -> list[dict[str, Any]]:
+    """The pre-specified sensitivity analyses of missing outcomes, in the plan's order."""
+    out = []
+    for analysis in hyp.sensitivity:
+        if analysis == "tipping-point":
+            out.append(_tipping(hyp, plan, prepared, entry, source, notes))
+        else:
+            out.append(_extreme_case(hyp, plan, prepared, analysis, source, notes))
+    return out
 
 
 def _adjusted(raw: list[float], method: Any, ids: list[str]) -> list[float]:
@@ -272,7 +467,7 @@ def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[N
         family = f"{hyp.id} pairwise"
         follow = []
         for sub in _follow_ups(hyp, plan):
-            e = compute_hypothesis(sub, plan, prepared, notes)
+            e = compute_hypothesis(sub, plan, prepared, notes, source=hyp.id)
             e["parent"] = hyp.id
             e["family"] = None if hyp.role == "exploratory" else family
             follow.append(e)

@@ -2,11 +2,21 @@
 
 from ..canonical import file_sha256
 from ..matching import ValueSet, as_number, as_text, is_blank, value_key
-from .prepare import GroupCounts, OutcomeCounts, Prepared, Stratum, prepare
+from .prepare import (
+    GroupCounts,
+    HypothesisCounts,
+    IntercurrentCount,
+    OutcomeCounts,
+    Prepared,
+    Stratum,
+    prepare,
+)
 from .read import read_data
 
 __all__ = [
     "GroupCounts",
+    "HypothesisCounts",
+    "IntercurrentCount",
     "OutcomeCounts",
     "Prepared",
     "Stratum",

@@ -57,6 +57,31 @@ class Stratum:
 
 
 @dataclass(frozen=True)
+class IntercurrentCount:
+    """How often one intercurrent event of an estimand happened among the analysed rows."""
+
+    event: str
+    column: str
+    strategy: str
+    happened: dict[str, int]  # per group: analysed rows whose column says it happened
+    blank: int  # analysed rows with a blank cell in the column (read as: did not happen)
+
+
+@dataclass(frozen=True)
+class HypothesisCounts:
+    """The counts of a hypothesis whose estimand names intercurrent events.
+
+    The strategies change the outcome of the rows where an intercurrent event happened, so
+    these counts can differ from the plain per-outcome counts of ``Prepared.outcomes``.
+    """
+
+    hypothesis: str
+    counts: OutcomeCounts
+    intercurrent: tuple[IntercurrentCount, ...]
+    strata: tuple[Stratum, ...] | None = None
+
+
+@dataclass(frozen=True)
 class Prepared:
     rows_read: int
     excluded_by_filter: int
@@ -67,6 +92,21 @@ class Prepared:
     notes: tuple[Note, ...]
     # per (outcome, stratification columns) used by a hypothesis: the strata, sorted
     strata: dict[tuple[str, tuple[str, ...]], tuple[Stratum, ...]] = field(default_factory=dict)
+    # per hypothesis id whose estimand names intercurrent events: its own counts
+    by_hypothesis: dict[str, HypothesisCounts] = field(default_factory=dict)
+
+    def counts_for(self, hyp_id: str, outcome: str) -> OutcomeCounts:
+        """The counts a hypothesis is analysed on: its own under an estimand, else the plain."""
+        own = self.by_hypothesis.get(hyp_id)
+        return own.counts if own is not None else self.outcomes[outcome]
+
+    def strata_for(self, hyp_id: str, outcome: str,
+                   columns: tuple[str, ...]) -> tuple[Stratum, ...]:
+        """The strata a stratified hypothesis is analysed on (its own under an estimand)."""
+        own = self.by_hypothesis.get(hyp_id)
+        if own is not None and own.strata is not None:
+            return own.strata
+        return self.strata[(outcome, columns)]
 
 
 def _rows(n: int) -> str:
@@ -156,6 +196,13 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
     for (_, columns), hyp_id in stratified.items():
         for column in columns:
             needed.setdefault(column, f"hypotheses.{hyp_id}.strata")
+    with_events = [h for h in plan.hypotheses if _intercurrent(h)]
+    for hyp in with_events:
+        for j, ice in enumerate(_intercurrent(hyp), start=1):
+            where = f"hypotheses.{hyp.id}.estimand.intercurrent[{j}]"
+            needed.setdefault(ice.column, f"{where}.column")
+            if ice.strategy == "while-on-treatment" and ice.outcome_column:
+                needed.setdefault(ice.outcome_column, f"{where}.outcome_column")
     _check_columns(frame, needed, source)
     _check_ids(frame, spec.id, source, line_offset)
 
@@ -196,7 +243,7 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
     analysed_rows = keep & in_group
     kinds = {
         name: _classify_outcome(frame, name, outcome, analysed_rows, source, line_offset,
-                                deviations)
+                                deviations, blank_error=_blanks_matter(plan, name))
         for name, outcome in plan.outcomes.items()
     }
     outcomes = {
@@ -209,6 +256,11 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
         key: _strata(frame, key, kinds[key[0]], group_col, analysed_rows, groups,
                      plan.outcomes[key[0]].missing, notes)
         for key in stratified
+    }
+    by_hypothesis = {
+        hyp.id: _hypothesis_counts(frame, hyp, plan, kinds[hyp.outcome], group_col,
+                                   analysed_rows, source, line_offset, deviations, notes)
+        for hyp in with_events
     }
     if spec.planned_n:
         for name, counts in outcomes.items():
@@ -233,7 +285,82 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
         deviations=tuple(deviations),
         notes=tuple(notes),
         strata=strata,
+        by_hypothesis=by_hypothesis,
     )
+
+
+def _intercurrent(hyp: Any) -> list[Any]:
+    """The intercurrent events of a hypothesis's estimand (none without an estimand)."""
+    estimand = getattr(hyp, "estimand", None)
+    return list(estimand.intercurrent) if estimand is not None else []
+
+
+def _blanks_matter(plan: Any, name: str) -> bool:
+    """Whether a blank outcome under ``missing: error`` is bad input in the plain counts.
+
+    It is unless every hypothesis on the outcome has an estimand whose strategies may decide
+    the outcome of such a row (composite, while-on-treatment); those hypotheses check their
+    own rows after the strategies.
+    """
+    users = [h for h in plan.hypotheses if h.outcome == name]
+    return not users or any(
+        all(ice.strategy == "treatment-policy" for ice in _intercurrent(h)) for h in users
+    )
+
+
+def _hypothesis_counts(frame: pd.DataFrame, hyp: Any, plan: Any, plain: np.ndarray,
+                       group_col: np.ndarray, rows: np.ndarray, source: str, line_offset: int,
+                       deviations: list[Departure], notes: list[Note]) -> HypothesisCounts:
+    """The hypothesis's counts after its estimand's strategies (ICH E9(R1)).
+
+    Row by row, the first intercurrent event listed that happened decides: treatment-policy
+    keeps the outcome as observed, composite sets it to ``counts_as``, while-on-treatment
+    takes it from ``outcome_column`` (mapped by the outcome's values and missing rule).
+    Rows where none happened keep the outcome as observed.
+    """
+    name = hyp.outcome
+    outcome = plan.outcomes[name]
+    groups = list(plan.data.groups)
+    kind = plain.copy()
+    decided = np.zeros(len(rows), dtype=bool)
+    counts: list[IntercurrentCount] = []
+    for j, ice in enumerate(_intercurrent(hyp), start=1):
+        marks = ValueSet(ice.happened)
+        happened = rows & _per_unique(frame[ice.column], lambda c, m=marks: c in m).astype(bool)
+        blank = rows & _per_unique(frame[ice.column], is_blank).astype(bool)
+        applies = happened & ~decided
+        if ice.strategy == "composite":
+            kind[applies] = ice.counts_as
+        elif ice.strategy == "while-on-treatment":
+            where = f"hypotheses.{hyp.id}.estimand.intercurrent[{j}].outcome_column"
+            before = _classify_outcome(frame, name, outcome, applies, source, line_offset,
+                                       deviations, column=ice.outcome_column, where=where)
+            kind[applies] = before[applies]
+        decided |= happened
+        counts.append(IntercurrentCount(
+            ice.event, ice.column, ice.strategy,
+            {g: int((happened & (group_col == g)).sum()) for g in groups}, int(blank.sum())))
+        if blank.any():
+            notes.append(Note("intercurrent-blank", f"{hyp.id}: column {ice.column!r} "
+                              f"(intercurrent event {ice.event!r}) is blank in "
+                              f"{_rows(int(blank.sum()))}, read as: it did not happen"))
+    still_blank = rows & (kind == "blank")
+    if outcome.missing == "error" and still_blank.any():
+        where = np.flatnonzero(still_blank)[:_SHOW] + line_offset
+        raise DataError(
+            f"{source}: hypotheses.{hyp.id}: outcome {name!r} (column {outcome.column!r}) is "
+            f"blank in {int(still_blank.sum())} analysed rows that no intercurrent event "
+            f"decides (rows {', '.join(map(str, where))}); missing: error"
+        )
+    tally = _tally(name, kind, group_col, rows, groups, outcome.missing)
+    if any(ice.strategy != "treatment-policy" for ice in _intercurrent(hyp)):
+        _missing_note(name, outcome.missing, tally, notes, who=f"{hyp.id} (after its "
+                      "estimand's strategies)")
+    strata = None
+    if getattr(hyp, "strata", None):
+        strata = _strata(frame, (name, tuple(hyp.strata)), kind, group_col, rows, groups,
+                         outcome.missing, [])
+    return HypothesisCounts(hyp.id, tally, tuple(counts), strata)
 
 
 def _classify_outcome(
@@ -244,9 +371,20 @@ def _classify_outcome(
     source: str,
     line_offset: int,
     deviations: list[Departure],
+    *,
+    column: str | None = None,
+    blank_error: bool = True,
+    where: str | None = None,
 ) -> np.ndarray:
-    """Per row: "event", "no-event", "blank" or "unmapped"; departures and errors as SPEC.md."""
+    """Per row: "event", "no-event", "blank" or "unmapped"; departures and errors as SPEC.md.
+
+    ``column`` reads another column by the outcome's values (a while-on-treatment outcome,
+    named by ``where``); ``blank_error=False`` leaves blanks under ``missing: error`` to be
+    checked after the estimands' strategies.
+    """
     events, no_events = ValueSet(outcome.event), ValueSet(outcome.no_event)
+    column_name = outcome.column if column is None else column
+    label = f"column {column_name!r}" + (f", {where}" if where else "")
 
     def classify(cell: Any) -> str:
         if is_blank(cell):
@@ -257,35 +395,35 @@ def _classify_outcome(
             return "no-event"
         return "unmapped"
 
-    column = frame[outcome.column]
-    kind = _per_unique(column, classify)
+    cells = frame[column_name]
+    kind = _per_unique(cells, classify)
     unmapped_rows = rows & (kind == "unmapped")
     blank_rows = rows & (kind == "blank")
     if unmapped_rows.any():
-        found = Counter(as_text(c) for c in column[unmapped_rows])
+        found = Counter(as_text(c) for c in cells[unmapped_rows])
         if outcome.missing == "error":
-            where = np.flatnonzero(unmapped_rows)[:_SHOW] + line_offset
+            lines = np.flatnonzero(unmapped_rows)[:_SHOW] + line_offset
             raise DataError(
-                f"{source}: outcome {name!r} (column {outcome.column!r}) has values that are "
+                f"{source}: outcome {name!r} ({label}) has values that are "
                 f"neither event nor no_event: {_listing(found)} (rows "
-                f"{', '.join(map(str, where))}); missing: error"
+                f"{', '.join(map(str, lines))}); missing: error"
             )
-        deviations.append(
-            Departure(
-                "unmapped-outcome-value",
-                f"outcome {name!r} (column {outcome.column!r}): {_rows(int(unmapped_rows.sum()))} "
-                f"with values that are neither event nor no_event: {_listing(found)}; "
-                f"treated by the missing rule ({outcome.missing})",
-                "event: " + ", ".join(map(as_text, outcome.event))
-                + "; no_event: " + ", ".join(map(as_text, outcome.no_event)),
-                ", ".join(sorted(found)),
-            )
+        departure = Departure(
+            "unmapped-outcome-value",
+            f"outcome {name!r} ({label}): {_rows(int(unmapped_rows.sum()))} "
+            f"with values that are neither event nor no_event: {_listing(found)}; "
+            f"treated by the missing rule ({outcome.missing})",
+            "event: " + ", ".join(map(as_text, outcome.event))
+            + "; no_event: " + ", ".join(map(as_text, outcome.no_event)),
+            ", ".join(sorted(found)),
         )
-    if blank_rows.any() and outcome.missing == "error":
-        where = np.flatnonzero(blank_rows)[:_SHOW] + line_offset
+        if departure not in deviations:
+            deviations.append(departure)
+    if blank_rows.any() and outcome.missing == "error" and blank_error:
+        lines = np.flatnonzero(blank_rows)[:_SHOW] + line_offset
         raise DataError(
-            f"{source}: outcome {name!r} (column {outcome.column!r}) is blank in "
-            f"{int(blank_rows.sum())} analysed rows (rows {', '.join(map(str, where))}); "
+            f"{source}: outcome {name!r} ({label}) is blank in "
+            f"{int(blank_rows.sum())} analysed rows (rows {', '.join(map(str, lines))}); "
             "missing: error"
         )
     return kind
@@ -309,7 +447,8 @@ def _tally(name: str, kind: np.ndarray, group_col: np.ndarray, rows: np.ndarray,
     return OutcomeCounts(name, tuple(counts))
 
 
-def _missing_note(name: str, missing: str, counts: OutcomeCounts, notes: list[Note]) -> None:
+def _missing_note(name: str, missing: str, counts: OutcomeCounts, notes: list[Note],
+                  who: str | None = None) -> None:
     missing_total = sum(c.blank + c.unmapped for c in counts.groups)
     if not missing_total:
         return
@@ -318,11 +457,14 @@ def _missing_note(name: str, missing: str, counts: OutcomeCounts, notes: list[No
         "exclude": "left out of the analysis",
         "event": "counted as events",
         "no-event": "counted as no event",
+        "error": "left out of these counts (each hypothesis on the outcome decides them by "
+                 "its estimand's strategies)",
     }[missing]
     notes.append(
         Note(
             f"missing-{missing}",
-            f"outcome {name!r}: {missing_total} missing outcomes {action} "
+            f"{who + ', ' if who else ''}outcome {name!r}: {missing_total} missing outcomes "
+            f"{action} "
             f"(missing: {missing}); per group: {per_group}",
         )
     )
