@@ -1,0 +1,217 @@
+"""Exact power of Fisher's exact test and the exact binomial test, by enumeration.
+
+The p-values are computed on arrays of tables (the same rules as ``prespec.stats``: the
+two-sided p-value sums the probabilities of every outcome no more probable than the observed
+one, within a relative 1e-7 for ties), so the same code serves the simulation of whole trials.
+The power is the sum, over every outcome, of its probability under the assumed rates times
+whether the test rejects it. Outcomes beyond 1e-12 of each tail of each group's binomial law
+are left out (their total probability, below 4e-12, is a bound on the error).
+
+Exact power is saw-toothed in n: it can fall when n grows by one, because the discrete
+rejection region changes. :func:`fisher_n` and :func:`binomial_n` report the smallest n whose
+power reaches the target, and where the power dips below it again at larger n.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import special, stats
+
+from prespec.stats.proportions import FISHER_TIE_TOLERANCE
+from prespec.stats.single import BINOMIAL_TIE_TOLERANCE
+
+#: Probability left out of each tail of each group's binomial law in an enumeration.
+TAIL = 1e-12
+
+
+def _log_choose(n: np.ndarray | int, k: np.ndarray) -> np.ndarray:
+    return special.gammaln(np.asarray(n, float) + 1) - special.gammaln(k + 1.0) \
+        - special.gammaln(np.asarray(n, float) - k + 1)
+
+
+def _two_sided(prob: np.ndarray, tolerance: float) -> np.ndarray:
+    """For each outcome of one discrete law, the sum of the probabilities of the outcomes no
+    more probable than it (within the relative ``tolerance``)."""
+    order = np.sort(prob)
+    cumulative = np.cumsum(order)
+    at = np.searchsorted(order, prob * (1.0 + tolerance), side="right") - 1
+    return np.minimum(1.0, cumulative[at])
+
+
+def fisher_row(t: int, n1: int, n2: int, alternative: str) -> tuple[int, np.ndarray]:
+    """Fisher's p-values for every table with t events in all, groups of n1 and n2.
+
+    Returns (lowest x1, p-values for x1 = lowest, …, min(t, n1)). Conditional on the margins
+    x1 is hypergeometric; ``greater`` sums the upper tail, ``less`` the lower one.
+
+    References
+    ----------
+    Fisher RA. On the interpretation of chi-square from contingency tables, and the
+    calculation of P. Journal of the Royal Statistical Society 1922;85:87–94.
+    Agresti A. A survey of exact inference for contingency tables. Statistical Science
+    1992;7:131–177 (the two-sided rule by probability ordering).
+    """
+    low, high = max(0, t - n2), min(t, n1)
+    x = np.arange(low, high + 1, dtype=float)
+    log_p = _log_choose(n1, x) + _log_choose(n2, t - x) - _log_choose(n1 + n2, np.float64(t))
+    prob = np.exp(log_p)
+    if alternative == "greater":
+        p = np.cumsum(prob[::-1])[::-1]
+    elif alternative == "less":
+        p = np.cumsum(prob)
+    else:
+        p = _two_sided(prob, FISHER_TIE_TOLERANCE)
+    return low, np.minimum(1.0, p)
+
+
+class FisherTables:
+    """Fisher's p-values for tables of two groups of fixed sizes, computed once per total.
+
+    ``p_values(x1, x2)`` takes arrays of events and returns the p-value of each table; the rows
+    of totals seen so far are kept (at most ``keep`` values) for later calls.
+    """
+
+    def __init__(self, n1: int, n2: int, alternative: str, keep: int = 20_000_000) -> None:
+        self.n1, self.n2, self.alternative = n1, n2, alternative
+        self._rows: dict[int, tuple[int, np.ndarray]] = {}
+        self._kept, self._keep = 0, keep
+
+    def row(self, t: int) -> tuple[int, np.ndarray]:
+        got = self._rows.get(t)
+        if got is None:
+            got = fisher_row(t, self.n1, self.n2, self.alternative)
+            if self._kept + got[1].size > self._keep:
+                self._rows.clear()
+                self._kept = 0
+            self._rows[t] = got
+            self._kept += got[1].size
+        return got
+
+    def p_values(self, x1: np.ndarray, x2: np.ndarray) -> np.ndarray:
+        x1 = np.asarray(x1, dtype=np.int64)
+        t = x1 + np.asarray(x2, dtype=np.int64)
+        out = np.empty(x1.shape, dtype=float)
+        totals, inverse = np.unique(t, return_inverse=True)
+        inverse = inverse.reshape(t.shape)
+        for i, total in enumerate(totals.tolist()):
+            low, p = self.row(int(total))
+            where = inverse == i
+            out[where] = p[x1[where] - low]
+        return out
+
+
+def binomial_p_values(n: int, null_rate: float, alternative: str) -> np.ndarray:
+    """The exact binomial test's p-value for each x = 0, …, n (``stats.single.binomial_exact``
+    rules: the tails for one-sided alternatives, small p-values for two-sided).
+
+    References
+    ----------
+    Clopper CJ, Pearson ES. Biometrika 1934;26:404–413.
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, chapter 1.
+    """
+    x = np.arange(n + 1)
+    if alternative == "greater":
+        p = stats.binom.sf(x - 1, n, null_rate)
+    elif alternative == "less":
+        p = stats.binom.cdf(x, n, null_rate)
+    else:
+        p = _two_sided(stats.binom.pmf(x, n, null_rate), BINOMIAL_TIE_TOLERANCE)
+        p[np.isclose(x, n * null_rate, rtol=0, atol=0)] = 1.0
+    return np.minimum(1.0, p)
+
+
+def _range(n: int, p: float) -> np.ndarray:
+    law = stats.binom(n, p)
+    low = int(max(0, law.ppf(TAIL) - 1))
+    high = int(min(n, law.isf(TAIL) + 1))
+    return np.arange(low, high + 1)
+
+
+def fisher_power(p1: float, p2: float, n1: int, n2: int, level: float, alternative: str,
+                 tables: FisherTables | None = None) -> float:
+    """Exact power of Fisher's exact test at ``level`` (reject when p <= level): the sum over
+    the tables (x1, x2) of Bin(x1; n1, p1)·Bin(x2; n2, p2) where the test rejects."""
+    tables = tables or FisherTables(n1, n2, alternative)
+    x1, x2 = _range(n1, p1), _range(n2, p2)
+    grid1, grid2 = np.meshgrid(x1, x2, indexing="ij")
+    reject = tables.p_values(grid1, grid2) <= level
+    weight = np.outer(stats.binom.pmf(x1, n1, p1), stats.binom.pmf(x2, n2, p2))
+    return float(np.sum(weight[reject]))
+
+
+def binomial_power(p: float, null_rate: float, n: int, level: float, alternative: str) -> float:
+    """Exact power of the exact binomial test of p = null_rate at ``level``: Σ Bin(x; n, p) over
+    the outcomes x it rejects."""
+    reject = binomial_p_values(n, null_rate, alternative) <= level
+    return float(np.sum(stats.binom.pmf(np.arange(n + 1), n, p)[reject]))
+
+
+@dataclass(frozen=True)
+class ExactSize:
+    """The smallest n (per group, in order) whose exact power reaches the target, its power,
+    and the saw-tooth seen above it: the larger sizes checked whose power falls below the
+    target again, and the largest size checked."""
+
+    n: tuple[int, ...]
+    power: float
+    dips: tuple[int, ...]
+    checked_to: int
+    start: int
+
+
+def _scan(power_at: Callable[[int], float], target: float, start: int, check: int,
+          limit: int = 100_000) -> ExactSize:
+    """Scan m upward from ``start`` (where the power is below the target) to the first m
+    reaching it, then ``check`` sizes more for dips below the target."""
+    m = start
+    while True:
+        got = power_at(m)
+        if got >= target:
+            break
+        m += 1
+        if m > limit:
+            raise ValueError(f"no size up to {limit} reaches the power")
+    dips = tuple(k for k in range(m + 1, m + check + 1) if power_at(k) < target)
+    return ExactSize((m,), got, dips, m + check, start)
+
+
+def _start_below(power_at: Callable[[int], float], target: float, guess: int) -> int:
+    """A size at or below ``guess`` whose power is below the target (stepping down by 10%)."""
+    m = max(1, guess)
+    while m > 1 and power_at(m) >= target:
+        m = max(1, int(m * 0.9))
+    return m
+
+
+def fisher_n(p1: float, p2: float, level: float, target: float, alternative: str, *,
+             ratio: float = 1.0, guess: int, check: int = 10) -> ExactSize:
+    """The smallest n1 (n2 = ⌈ratio·n1⌉) reached by scanning upward from a size below the
+    target power, ``guess`` being a first estimate (the continuity-corrected normal
+    approximation is close: Casagrande, Pike and Smith 1978)."""
+
+    def power_at(m: int) -> float:
+        return fisher_power(p1, p2, m, max(1, math.ceil(ratio * m - 1e-9)), level, alternative)
+
+    start = _start_below(power_at, target, int(0.95 * guess))
+    found = _scan(power_at, target, start, check)
+    n2 = max(1, math.ceil(ratio * found.n[0] - 1e-9))
+    return ExactSize((found.n[0], n2), found.power, found.dips, found.checked_to, start)
+
+
+def binomial_n(p: float, null_rate: float, level: float, target: float, alternative: str, *,
+               check: int | None = None) -> ExactSize:
+    """The smallest n whose exact binomial power reaches the target, scanning from n = 1; then
+    ``check`` (default: a fifth of n, at least 10) larger sizes for dips."""
+
+    def power_at(m: int) -> float:
+        return binomial_power(p, null_rate, m, level, alternative)
+
+    found = _scan(power_at, target, 1, 0)
+    more = check if check is not None else max(10, found.n[0] // 5)
+    dips = tuple(k for k in range(found.n[0] + 1, found.n[0] + more + 1)
+                 if power_at(k) < target)
+    return ExactSize(found.n, found.power, dips, found.n[0] + more, 1)

@@ -1,0 +1,455 @@
+"""The design document: per hypothesis the alpha it is sized at, the sample size per group for
+the target power, the power at the planned sizes; and, on request, the operating
+characteristics of the whole decision rule by simulation.
+
+Which alpha each hypothesis gets: alpha / m over the m non-exploratory hypotheses for the
+Bonferroni-type and Holm-type procedures (Holm, Hochberg and Hommel reject whatever the split
+rejects, and can only reject more), 1 − (1 − alpha)^(1/m) for Šidák, alpha / (m·Σ1/i) for
+Benjamini–Yekutieli (its first critical value), the initial weight × alpha for the graphical
+procedure, the full alpha for fixed-sequence (each is tested at alpha, but only if every
+hypothesis before it was rejected) and for `none` and exploratory hypotheses. One-sided
+alternatives are sized at that alpha one-sided, two-sided ones at alpha / 2 per side.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from prespec.caution import CAUTION
+from prespec.design import exactpower, samplesize
+from prespec.design.simulate import Progress, simulate
+from prespec.errors import BadInput
+
+DEFAULT_SEED = 1
+GLOBAL_NULL = "global-null"
+
+FLP = "Fleiss, Levin and Paik 2003, §4.2"
+
+
+@dataclass(frozen=True)
+class AlphaShare:
+    """The alpha a hypothesis is sized at, and the rule that gives it, in words."""
+
+    alpha: float
+    rule: str
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.4g}"
+
+
+def alpha_shares(plan: Any) -> tuple[dict[str, AlphaShare], str]:
+    """The alpha each hypothesis is sized at, by id, and the rule in one sentence."""
+    alpha = float(plan.alpha)
+    family = [h.id for h in plan.hypotheses if h.role != "exploratory"]
+    m = max(1, len(family))
+    method = plan.multiplicity
+    name = method if isinstance(method, str) else "graphical"
+    shares: dict[str, AlphaShare] = {}
+    if name in ("bonferroni", "holm", "hochberg", "hommel", "benjamini-hochberg"):
+        rule = (f"alpha / m = {_fmt(alpha)} / {m}, the Bonferroni split over the {m} "
+                "non-exploratory hypotheses")
+        if name != "bonferroni":
+            kind = "the false discovery rate procedure" if name == "benjamini-hochberg" \
+                else "a Holm-type procedure"
+            rule += (f"; {name} ({kind}) rejects whatever the split rejects, so it can only "
+                     "gain power on these sizes")
+        level = alpha / m
+    elif name == "sidak":
+        level = 1.0 - (1.0 - alpha) ** (1.0 / m)
+        rule = f"1 - (1 - alpha)^(1/m), the Šidák split over the {m} non-exploratory hypotheses"
+    elif name == "benjamini-yekutieli":
+        c = sum(1.0 / i for i in range(1, m + 1))
+        level = alpha / (m * c)
+        rule = (f"alpha / (m·Σ1/i) = {_fmt(alpha)} / ({m}·{c:.4g}), the first critical value "
+                "of benjamini-yekutieli: a hypothesis below it is rejected whatever the others")
+    elif name == "fixed-sequence":
+        level = alpha
+        rule = ("the full alpha for each: fixed-sequence tests each at alpha, but only if every "
+                "hypothesis before it in the plan was rejected, so the power of a later one is "
+                "at most that of the sequence up to it (see --simulate)")
+    elif name == "graphical":
+        level = alpha
+        rule = ("the initial weight × alpha of the graphical procedure; weight passed on after "
+                "a rejection can only add power")
+    else:
+        level = alpha
+        rule = "the full alpha (no multiplicity adjustment)"
+    for hyp in plan.hypotheses:
+        if hyp.role == "exploratory":
+            shares[hyp.id] = AlphaShare(alpha, "the full alpha, nominal (exploratory)")
+        elif name == "graphical":
+            weight = float(method.weights.get(hyp.id, 0.0))
+            shares[hyp.id] = AlphaShare(weight * alpha, f"initial weight {weight:g} × alpha")
+        else:
+            shares[hyp.id] = AlphaShare(level, name)
+    return shares, rule
+
+
+@dataclass(frozen=True)
+class HypothesisDesign:
+    """The design figures of one hypothesis."""
+
+    id: str
+    alpha: float
+    sides: str
+    method: str
+    n_per_group: dict[str, int] | None
+    n_enrol_per_group: dict[str, int] | None
+    power: float | None  # at data.planned_n, under the assumed rates
+    notes: tuple[str, ...]
+
+    def to_json(self) -> dict[str, Any]:
+        return {"id": self.id, "alpha": self.alpha, "sides": self.sides, "method": self.method,
+                "n_per_group": self.n_per_group, "n_enrol_per_group": self.n_enrol_per_group,
+                "power": self.power, "notes": list(self.notes)}
+
+
+@dataclass(frozen=True)
+class _Method:
+    text: str
+    size: Callable[[], tuple[int, ...]]
+    power: Callable[[tuple[int, ...]], float]
+    notes: tuple[str, ...] = ()
+
+
+def _groups(plan: Any, hyp: Any) -> list[str]:
+    return list(plan.data.groups) if hyp.kind in ("all", "trend") else list(hyp.compare)
+
+
+def _direction_ok(hyp: Any, rates: list[float]) -> bool:
+    """Whether the assumed rates lie on the side of a one-sided superiority alternative."""
+    if hyp.alternative == "two-sided" or hyp.comparison != "superiority":
+        return True
+    if hyp.kind == "single":
+        diff = rates[0] - float(hyp.null_rate)
+    elif hyp.kind == "trend":
+        scores = hyp.scores if hyp.scores is not None else list(range(len(rates)))
+        mean_s = sum(scores) / len(scores)
+        diff = sum((s - mean_s) * p for s, p in zip(scores, rates, strict=True))
+    else:
+        diff = rates[0] - rates[1]
+    return diff > 0 if hyp.alternative == "greater" else diff < 0
+
+
+def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: float
+                 ) -> _Method:
+    design = plan.design
+    p1, p2 = rates
+    side = alpha / 2.0 if hyp.alternative == "two-sided" else alpha
+    if hyp.comparison != "superiority":
+        score = hyp.test == "farrington-manning"
+        name = ("Farrington–Manning score test (Farrington and Manning 1990)" if score else
+                "Wald z with the unpooled variance (Blackwelder 1982)")
+        if hyp.comparison == "equivalence":
+            low, high = hyp.margin
+            return _Method(
+                f"two one-sided tests, {name}, each at alpha (Schuirmann 1987)",
+                lambda: samplesize.equivalence_n(p1, p2, alpha, design.power, low=low,
+                                                 high=high, measure=hyp.measure, ratio=ratio,
+                                                 score=score).n,
+                lambda n: samplesize.equivalence_power(p1, p2, n[0], n[1], alpha, low=low,
+                                                       high=high, measure=hyp.measure,
+                                                       score=score))
+        return _Method(
+            f"{name}, margin {hyp.margin:g} on the {hyp.measure} scale",
+            lambda: samplesize.margin_n(p1, p2, alpha, design.power, margin=hyp.margin,
+                                        measure=hyp.measure, alternative=hyp.alternative,
+                                        ratio=ratio, score=score).n,
+            lambda n: samplesize.margin_power(p1, p2, n[0], n[1], alpha, margin=hyp.margin,
+                                              measure=hyp.measure, alternative=hyp.alternative,
+                                              score=score))
+    if hyp.test == "fisher-exact":
+        def fisher_size() -> tuple[int, ...]:
+            guess = samplesize.two_proportion_n(p1, p2, side, design.power, ratio=ratio,
+                                                continuity=True).n[0]
+            return exactpower.fisher_n(p1, p2, alpha, design.power, hyp.alternative,
+                                       ratio=ratio, guess=guess).n
+
+        return _Method(
+            "exact power of Fisher's exact test by enumeration; the smallest n whose power "
+            "reaches the target (exact power is saw-toothed in n)",
+            fisher_size,
+            lambda n: exactpower.fisher_power(p1, p2, n[0], n[1], alpha, hyp.alternative))
+    cc = bool(design.continuity)
+    notes = []
+    if hyp.test in ("barnard-exact", "boschloo-exact"):
+        notes.append(f"{hyp.test}: sized by the normal approximation without continuity "
+                     "correction (its exact power is not enumerated); unconditional exact "
+                     "tests come close to it")
+        cc = False
+    elif hyp.test == "cochran-mantel-haenszel":
+        notes.append("cochran-mantel-haenszel: sized as an unstratified comparison, assuming "
+                     "the same rates in every stratum")
+    elif hyp.test == "likelihood-ratio":
+        notes.append("likelihood-ratio: sized by the normal approximation of the equivalent "
+                     "score test (asymptotically the same power)")
+    if hyp.continuity != cc and hyp.test == "pearson-chi-square":
+        notes.append(f"design.continuity is {str(cc).lower()} while the test is "
+                     f"{'' if hyp.continuity else 'not '}continuity-corrected")
+    text = (f"normal approximation with the pooled null variance ({FLP})"
+            + (", continuity-corrected (Casagrande, Pike and Smith 1978)" if cc else ""))
+    return _Method(
+        text,
+        lambda: samplesize.two_proportion_n(p1, p2, side, design.power, ratio=ratio,
+                                            continuity=cc).n,
+        lambda n: samplesize.two_proportion_power(p1, p2, n[0], n[1], side, continuity=cc),
+        tuple(notes))
+
+
+def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
+            shares: list[float]) -> _Method:
+    design = plan.design
+    side = alpha / 2.0 if hyp.alternative == "two-sided" else alpha
+    if hyp.kind == "pair":
+        return _pair_method(plan, hyp, alpha, rates, shares[1] / shares[0])
+    if hyp.kind == "single":
+        p, p0 = rates[0], float(hyp.null_rate)
+        if hyp.test == "binomial-exact":
+            return _Method(
+                "exact power of the binomial test by enumeration; the smallest n whose power "
+                "reaches the target (exact power is saw-toothed in n)",
+                lambda: exactpower.binomial_n(p, p0, alpha, design.power, hyp.alternative).n,
+                lambda n: exactpower.binomial_power(p, p0, n[0], alpha, hyp.alternative))
+        return _Method(
+            "normal approximation of the score z test (Fleiss, Levin and Paik 2003, §2.5)",
+            lambda: samplesize.one_proportion_n(p, p0, side, design.power).n,
+            lambda n: samplesize.one_proportion_power(p, p0, n[0], side))
+    if hyp.kind == "trend":
+        scores = hyp.scores if hyp.scores is not None else list(range(len(rates)))
+        return _Method(
+            "normal approximation of the Cochran–Armitage test (Nam 1987)",
+            lambda: samplesize.trend_n(rates, scores, side, design.power, shares).n,
+            lambda n: samplesize.trend_power(rates, n, scores, side))
+    notes = ()
+    if hyp.test == "fisher-exact":
+        notes = ("fisher-exact on k groups: sized by the chi-square approximation",)
+    return _Method(
+        f"noncentral chi-square with {len(rates) - 1} df (Lachin 1977)",
+        lambda: samplesize.k_group_n(rates, alpha, design.power, shares).n,
+        lambda n: samplesize.k_group_power(rates, n, alpha), notes)
+
+
+def _sides(hyp: Any, alpha: float) -> str:
+    if hyp.kind == "all":
+        return "k-group chi-square"
+    if hyp.comparison == "equivalence":
+        return f"two one-sided tests at {_fmt(alpha)} each"
+    if hyp.alternative == "two-sided":
+        return f"two-sided ({_fmt(alpha / 2)} per side)"
+    return f"one-sided ({hyp.alternative})"
+
+
+def size_hypothesis(plan: Any, hyp: Any, share: AlphaShare) -> HypothesisDesign:
+    """The sample size per group and the power at data.planned_n of one hypothesis."""
+    design = plan.design
+    groups = _groups(plan, hyp)
+    rates = [float(design.assumed[g]) for g in groups]
+    shares = [float(design.allocation[g]) for g in groups]
+    sides = _sides(hyp, share.alpha)
+    notes: list[str] = []
+    if share.alpha <= 0.0:
+        return HypothesisDesign(hyp.id, share.alpha, sides, "not sized", None, None, None,
+                                (("its initial weight is 0: it is tested only after weight "
+                                 "passes to it, so it has no alpha of its own to be sized at"),))
+    method = _method(plan, hyp, share.alpha, rates, shares)
+    notes.extend(method.notes)
+    if hyp.sparse is not None and hyp.kind != "single":
+        notes.append(f"sized for {hyp.test}; the sparse switch to {hyp.sparse.test} (expected "
+                     f"count below {hyp.sparse.min_expected:g}) is in --simulate")
+    n_per_group = enrol = power = None
+    if not _direction_ok(hyp, rates):
+        notes.append(f"the assumed rates do not lie on the side of the alternative "
+                     f"({hyp.alternative}): no sample size reaches the power")
+    else:
+        try:
+            sizes = method.size()
+        except ValueError as exc:
+            notes.append(f"not sized: {exc}")
+        else:
+            n_per_group = dict(zip(groups, sizes, strict=True))
+            enrol = {g: math.ceil(n / (1.0 - design.dropout) - samplesize.ROUND_SLACK)
+                     for g, n in n_per_group.items()}
+        planned = plan.data.planned_n or {}
+        if all(g in planned for g in groups):
+            power = method.power(tuple(int(planned[g]) for g in groups))
+    return HypothesisDesign(hyp.id, share.alpha, sides, method.text, n_per_group, enrol, power,
+                            tuple(notes))
+
+
+def scenarios_of(plan: Any) -> dict[str, dict[str, float]]:
+    """The assumed rates, the design's scenarios, and the global null: every group at the
+    allocation-weighted mean of the assumed rates."""
+    design = plan.design
+    groups = list(plan.data.groups)
+    weights = [float(design.allocation[g]) for g in groups]
+    pooled = sum(w * float(design.assumed[g]) for w, g in zip(weights, groups, strict=True))
+    pooled /= sum(weights)
+    first = "assumed" if "assumed" not in design.scenarios else "design-assumed"
+    out = {first: {g: float(design.assumed[g]) for g in groups}}
+    for name, rates in design.scenarios.items():
+        out[name] = {g: float(rates[g]) for g in groups}
+    out[GLOBAL_NULL] = {g: pooled for g in groups}
+    return out
+
+
+def simulation_sizes(plan: Any, sized: list[HypothesisDesign]) -> tuple[dict[str, int], str]:
+    """The analysed group sizes to simulate: data.planned_n, else the largest size any
+    hypothesis needs per group."""
+    groups = list(plan.data.groups)
+    planned = plan.data.planned_n or {}
+    if all(g in planned for g in groups):
+        return {g: int(planned[g]) for g in groups}, "data.planned_n"
+    need: dict[str, int] = {}
+    for h in sized:
+        for g, n in (h.n_per_group or {}).items():
+            need[g] = max(need.get(g, 0), n)
+    if not need:
+        raise BadInput("design: no hypothesis could be sized; give data.planned_n to simulate")
+    fallback = max(need.values())
+    return {g: need.get(g, fallback) for g in groups}, \
+        "the largest design size per group over the hypotheses"
+
+
+def _require(plan: Any, where: str) -> Any:
+    if plan.design is None:
+        raise BadInput(f"{where}: the plan has no design section; add design: {{assumed: "
+                       "{group: rate, ...}, power: 0.8}")
+    return plan.design
+
+
+def size_plan(plan: Any) -> tuple[list[HypothesisDesign], str]:
+    """Every hypothesis of the plan sized, and the alpha rule in words."""
+    shares, rule = alpha_shares(plan)
+    return [size_hypothesis(plan, h, shares[h.id]) for h in plan.hypotheses], rule
+
+
+def design_document(plan: Any, *, where: str = "plan", fingerprint: str | None = None,
+                    simulate_trials: int | None = None, seed: int | None = None,
+                    progress: Progress | None = None) -> dict[str, Any]:
+    """The design document of a validated plan (SPEC.md, "Design and interim looks")."""
+    design = _require(plan, where)
+    sized, rule = size_plan(plan)
+    doc: dict[str, Any] = {
+        "title": plan.title,
+        "plan": fingerprint,
+        "power_target": design.power,
+        "assumed": {g: float(design.assumed[g]) for g in plan.data.groups},
+        "allocation": {g: float(design.allocation[g]) for g in plan.data.groups},
+        "dropout": design.dropout,
+        "continuity": design.continuity,
+        "alpha": plan.alpha,
+        "multiplicity": plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical",
+        "alpha_rule": rule,
+        "hypotheses": [h.to_json() for h in sized],
+        "scenarios": [],
+        "simulation": None,
+        "notes": [],
+        "caution": CAUTION,
+    }
+    if any(h.then is not None for h in plan.hypotheses):
+        doc["notes"].append("pairwise follow-ups (then) are gated by their k-group hypothesis "
+                            "and not sized here; --simulate gives their power")
+    if simulate_trials is None:
+        return doc
+    seed = DEFAULT_SEED if seed is None else seed
+    if seed < 0:
+        raise BadInput(f"--seed must be 0 or more, got {seed}")
+    sizes, source = simulation_sizes(plan, sized)
+    results, decider = simulate(plan, scenarios=scenarios_of(plan), sizes=sizes,
+                                trials=simulate_trials, seed=seed, progress=progress)
+    doc["scenarios"] = [r.to_json() for r in results]
+    doc["simulation"] = {"trials": simulate_trials, "seed": seed, "n_per_group": sizes,
+                         "sizes_from": source,
+                         "per_table": list(decider.per_table),
+                         "fdr": isinstance(plan.multiplicity, str) and plan.multiplicity in
+                         ("benjamini-hochberg", "benjamini-yekutieli")}
+    if decider.per_table:
+        doc["notes"].append("not on arrays, so run by the pipeline's own function once per "
+                            "distinct table: " + "; ".join(decider.per_table))
+    doc["notes"].append("simulated trials have the analysed sizes fixed (dropout already "
+                        "allowed for); outcomes are simulated independently of each other")
+    return doc
+
+
+def _rates(rates: dict[str, float]) -> str:
+    return ", ".join(f"{g} {_fmt(p)}" for g, p in rates.items())
+
+
+def _pm(value: float | None, se: float | None) -> str:
+    if value is None:
+        return "n/a"
+    return f"{value:.4f} ± {se:.4f}" if se is not None else f"{value:.4f}"
+
+
+def design_text(doc: dict[str, Any]) -> str:
+    """The design document as text, for the terminal."""
+    ratio = ":".join(f"{a:g}" for a in doc["allocation"].values())
+    lines = [f"Design: {doc['title']}",
+             (f"Target power {doc['power_target']:g} at the assumed rates "
+             f"{_rates(doc['assumed'])}; allocation {ratio}; dropout {doc['dropout']:g}"),
+             (f"Alpha {doc['alpha']:g}, multiplicity {doc['multiplicity']}; each hypothesis is "
+             f"sized at {doc['alpha_rule']}."), "Hypotheses:"]
+    for h in doc["hypotheses"]:
+        lines.append(f"  {h['id']}: alpha {_fmt(h['alpha'])}, {h['sides']}; {h['method']}")
+        if h["n_per_group"] is not None:
+            n = ", ".join(f"{g} {v}" for g, v in h["n_per_group"].items())
+            e = ", ".join(f"{g} {v}" for g, v in h["n_enrol_per_group"].items())
+            lines.append(f"      analysed n per group: {n}; to enrol: {e}")
+        else:
+            lines.append("      analysed n per group: not computable")
+        shown = "no data.planned_n" if h["power"] is None else f"{h['power']:.4f}"
+        lines.append(f"      power at data.planned_n: {shown}")
+        lines.extend(f"      note: {note}" for note in h["notes"])
+    sim = doc.get("simulation")
+    if sim:
+        sizes = ", ".join(f"{g} {n}" for g, n in sim["n_per_group"].items())
+        lines.append(f"Simulation: {sim['trials']} trials per scenario, seed {sim['seed']}, "
+                     f"analysed sizes {sizes} ({sim['sizes_from']}); ± is one Monte Carlo "
+                     "standard error")
+        for s in doc["scenarios"]:
+            se = s["mc_se"]
+            lines.append(f"  {s['name']} ({_rates(s['rates'])}):")
+            rate = f"      family-wise error rate {_pm(s['fwer'], se['fwer'])}"
+            if s["fwer"] is None:
+                rate = "      family-wise error rate: n/a (no null hypothesis holds)"
+            if s["fdr"] is not None:
+                rate += f"; false discovery rate {_pm(s['fdr'], se['fdr'])}"
+            lines.append(rate)
+            lines.append(f"      P(reject at least one) {_pm(s['any'], se['any'])}; "
+                         f"P(reject all) {_pm(s['all'], se['all'])}")
+            for ident, p in s["power"].items():
+                lines.append(f"      reject {ident}: {_pm(p, se['power'][ident])}")
+    lines.extend(f"Note: {n}" for n in doc["notes"])
+    lines.append(f"Caution: {doc['caution']}")
+    return "\n".join(lines)
+
+
+def planned_vs_achieved(plan: Any, achieved: dict[str, int] | None) -> dict[str, Any] | None:
+    """For results.json: per hypothesis the design's analysed n per group, the n to enrol,
+    the achieved analysed n (``achieved``, per group; None in a rehearsal) and the power at the
+    achieved sizes under the assumed rates (no simulation)."""
+    if plan.design is None:
+        return None
+    sized, rule = size_plan(plan)
+    shares, _ = alpha_shares(plan)
+    out = []
+    for hyp, h in zip(plan.hypotheses, sized, strict=True):
+        groups = _groups(plan, hyp)
+        got = None if achieved is None else {g: int(achieved[g]) for g in groups}
+        power = None
+        if got is not None and all(n > 0 for n in got.values()) and h.n_per_group is not None:
+            rates = [float(plan.design.assumed[g]) for g in groups]
+            shares_g = [float(plan.design.allocation[g]) for g in groups]
+            method = _method(plan, hyp, shares[hyp.id].alpha, rates, shares_g)
+            power = method.power(tuple(got[g] for g in groups))
+        out.append({"id": h.id, "alpha": h.alpha, "method": h.method,
+                    "planned_n_per_group": h.n_per_group,
+                    "n_enrol_per_group": h.n_enrol_per_group,
+                    "achieved_n_per_group": got,
+                    "power_at_achieved": power})
+    return {"power_target": plan.design.power, "assumed": dict(plan.design.assumed),
+            "alpha_rule": rule, "hypotheses": out}
