@@ -33,6 +33,7 @@ __all__ = [
     "apply_overrides",
     "check",
     "demo",
+    "design",
     "history",
     "lock",
     "new_key",
@@ -484,6 +485,43 @@ def rehearse(plan: str | Path, data: str | Path, *, out: str | Path | None = Non
         deviations=deviations, notes=notes,
     )
     return publish(loaded.path, out_path, results, numbered=out is None, action="rehearse")
+
+
+def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = None,
+           actor: str | None = None,
+           progress: Callable[[str, int, int], None] | None = None) -> dict[str, Any]:
+    """Sample size and power per hypothesis of the plan file as written; with ``simulate``,
+    the operating characteristics of the plan's whole decision rule over that many trials per
+    scenario (``seed``: default 1). Appends a ``design`` entry to the log; returns the design
+    document (SPEC.md, "Design and interim looks"). ``progress(scenario, done, total)`` is
+    called after each chunk of simulated trials.
+    """
+    from .canonical import canonical_json, sha256_tag
+    from .design import design_document
+
+    if simulate is not None and simulate < 1:
+        raise BadInput(f"--simulate: the number of trials must be at least 1, got {simulate}")
+    if seed is not None and seed < 0:
+        raise BadInput(f"--seed must be 0 or more, got {seed}")
+    loaded = load_plan(Path(plan))
+    doc = design_document(loaded.model, where=str(loaded.path), fingerprint=loaded.fingerprint,
+                          simulate_trials=simulate, seed=seed, progress=progress)
+    _finish_stopped_writes(loaded.path)
+    sim = doc["simulation"]
+    details = {
+        "plan_file_sha256": loaded.file_sha256,
+        "simulate": None if sim is None else sim["trials"],
+        "seed": None if sim is None else sim["seed"],
+        "hypotheses": [{k: h[k] for k in ("id", "alpha", "n_per_group", "n_enrol_per_group",
+                                          "power")} for h in doc["hypotheses"]],
+        "scenarios": [{k: s[k] for k in ("name", "trials", "fwer", "fdr", "any", "all")}
+                      for s in doc["scenarios"]],
+        "document": sha256_tag(canonical_json(doc)),
+    }
+    audit.append(audit.log_path(loaded.path), audit.head_path(loaded.path),
+                 actor=resolve_actor(actor), action="design", plan=loaded.fingerprint,
+                 data=None, details=details)
+    return doc
 
 
 def check_out_path(plan_path: Path, out: Path) -> None:

@@ -73,6 +73,13 @@ def _parser() -> argparse.ArgumentParser:
                    help="with --rerun: only this report (as the log names it)")
     c.add_argument("--key", metavar="PUBLIC",
                    help="require every lock and amend entry to be signed by this public key")
+    c = add("design", "sample size and power per hypothesis; with --simulate, the operating "
+            "characteristics of the whole plan", writes=True)
+    c.add_argument("plan")
+    c.add_argument("--simulate", type=int, metavar="N",
+                   help="simulate N whole trials per scenario and decide each by the plan")
+    c.add_argument("--seed", type=int, metavar="S", help="the seed of the simulation (default 1)")
+    c.add_argument("--json", action="store_true", help="print the design document as JSON")
     c = add("demo", "write, lock and run an invented demonstration study", writes=True)
     c.add_argument("dir", nargs="?", default="prespec-demo")
     return p
@@ -138,6 +145,23 @@ def _print_rehearsal(res: dict[str, Any]) -> None:
         print(f"{hyp['id']}: {hyp['test']}, {state}")
     columns = res["data_dictionary"]["columns"]
     print(f"data dictionary: {len(columns)} column use(s) in tables/data-dictionary.csv")
+
+
+def _progress_bar() -> Any:
+    """A progress bar on stderr for a terminal; None (quiet) when stderr is not one."""
+    if not sys.stderr.isatty():
+        return None
+
+    def show(name: str, done: int, total: int) -> None:
+        width = 30
+        filled = width * done // total
+        sys.stderr.write(f"\rsimulating {name[:24]:<24} [{'#' * filled}{'.' * (width - filled)}]"
+                         f" {100 * done // total:3d}%")
+        if done >= total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+    return show
 
 
 def _dispatch(args: argparse.Namespace) -> int:
@@ -206,6 +230,12 @@ def _dispatch(args: argparse.Namespace) -> int:
         print(f"private key: {made.private} (mode 0600; keep it away from the study folder)")
         print(f"public key:  {made.public} (give it to whoever verifies)")
         print(f"key id: {made.key_id}")
+    elif args.command == "design":
+        from .design import design_text
+
+        doc = api.design(args.plan, simulate=args.simulate, seed=args.seed, actor=args.actor,
+                         progress=_progress_bar())
+        print(json.dumps(doc, indent=2, ensure_ascii=False) if args.json else design_text(doc))
     elif args.command == "demo":
         html = api.demo(args.dir, actor=args.actor)
         print(html)

@@ -45,7 +45,7 @@ def build_results(
     deviations: list[Departure],
     notes: list[Note],
 ) -> dict[str, Any]:
-    return {
+    results: dict[str, Any] = {
         "prespec": 1,
         "kind": kind,
         "title": plan.title,
@@ -72,6 +72,21 @@ def build_results(
         "notes": [n.to_json() for n in notes],
         "caution": CAUTION,
     }
+    if plan.design is not None:
+        results["design"] = design_entry(plan, kind, hypotheses)
+    return results
+
+
+def design_entry(plan: Any, kind: str, hypotheses: list[dict[str, Any]]) -> dict[str, Any] | None:
+    """Planned versus achieved: the design's n per group for each hypothesis and, in a run,
+    the analysed n of its table (a rehearsal shows no group's size)."""
+    from .design import planned_vs_achieved
+
+    achieved = None
+    if kind == "run":
+        achieved = {h["id"]: dict(zip(h["table"]["groups"], h["table"]["totals"], strict=True))
+                    for h in hypotheses if h.get("parent") is None}
+    return planned_vs_achieved(plan, achieved)
 
 
 def compute_results(

@@ -428,10 +428,13 @@ def design_text(doc: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
-def planned_vs_achieved(plan: Any, achieved: dict[str, int] | None) -> dict[str, Any] | None:
-    """For results.json: per hypothesis the design's analysed n per group, the n to enrol,
-    the achieved analysed n (``achieved``, per group; None in a rehearsal) and the power at the
-    achieved sizes under the assumed rates (no simulation)."""
+def planned_vs_achieved(plan: Any, achieved: dict[str, dict[str, int]] | None
+                        ) -> dict[str, Any] | None:
+    """For results.json: per hypothesis the alpha it was sized at, the design's analysed n per
+    group (``n_per_group``, before dropout) and n to enrol (after it), the achieved analysed n
+    (``achieved_per_group``, from ``achieved``: per hypothesis id its table's totals; None in
+    a rehearsal) and the power at the achieved sizes under the
+    assumed rates (closed forms or exact enumeration; no simulation). None without a design."""
     if plan.design is None:
         return None
     sized, rule = size_plan(plan)
@@ -439,17 +442,20 @@ def planned_vs_achieved(plan: Any, achieved: dict[str, int] | None) -> dict[str,
     out = []
     for hyp, h in zip(plan.hypotheses, sized, strict=True):
         groups = _groups(plan, hyp)
-        got = None if achieved is None else {g: int(achieved[g]) for g in groups}
+        table = None if achieved is None else achieved.get(hyp.id)
+        got = None if table is None else {g: int(table[g]) for g in groups}
         power = None
-        if got is not None and all(n > 0 for n in got.values()) and h.n_per_group is not None:
+        if (got is not None and all(n > 0 for n in got.values()) and h.n_per_group is not None
+                and _direction_ok(hyp, [float(plan.design.assumed[g]) for g in groups])):
             rates = [float(plan.design.assumed[g]) for g in groups]
-            shares_g = [float(plan.design.allocation[g]) for g in groups]
-            method = _method(plan, hyp, shares[hyp.id].alpha, rates, shares_g)
+            weights = [float(plan.design.allocation[g]) for g in groups]
+            method = _method(plan, hyp, shares[hyp.id].alpha, rates, weights)
             power = method.power(tuple(got[g] for g in groups))
         out.append({"id": h.id, "alpha": h.alpha, "method": h.method,
-                    "planned_n_per_group": h.n_per_group,
+                    "n_per_group": h.n_per_group,
                     "n_enrol_per_group": h.n_enrol_per_group,
-                    "achieved_n_per_group": got,
+                    "achieved_per_group": got,
                     "power_at_achieved": power})
-    return {"power_target": plan.design.power, "assumed": dict(plan.design.assumed),
-            "alpha_rule": rule, "hypotheses": out}
+    return {"rule": rule, "power": plan.design.power, "dropout": plan.design.dropout,
+            "assumed": {g: float(plan.design.assumed[g]) for g in plan.data.groups},
+            "hypotheses": out}

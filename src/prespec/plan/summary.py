@@ -81,4 +81,34 @@ def summary(plan: Plan) -> str:
     lines.append(f"Alpha:         {_num(plan.alpha)}, multiplicity: {mult}")
     lines.append(f"Hypotheses ({len(plan.hypotheses)}):")
     lines.extend(_hypothesis(plan, hyp) for hyp in plan.hypotheses)
+    if plan.design is not None:
+        lines.extend(_design(plan))
     return "\n".join(lines)
+
+
+def _design(plan: Plan) -> list[str]:
+    """The design section and the sample sizes it gives (``prespec design`` has the detail)."""
+    from prespec.design import size_plan
+
+    design = plan.design
+    assert design is not None
+    rates = ", ".join(f"{g} {_num(p)}" for g, p in design.assumed.items())
+    allocation = ":".join(_num(design.allocation[g]) for g in plan.data.groups) \
+        if design.allocation else "equal"
+    lines = [f"Design:        power {_num(design.power)} at assumed rates {rates}; allocation "
+             f"{allocation}; dropout {_num(design.dropout)}"
+             + ("; continuity-corrected 2×2 formula" if design.continuity else "")]
+    for name, scenario in design.scenarios.items():
+        shown = ", ".join(f"{g} {_num(p)}" for g, p in scenario.items())
+        lines.append(f"  scenario {name}: {shown}")
+    lines.append("  scenario global-null: every group at the pooled assumed rate (added)")
+    sized, rule = size_plan(plan)
+    lines.append(f"  sample size per hypothesis, at {rule}:")
+    for h in sized:
+        if h.n_per_group is None:
+            lines.append(f"    {h.id}: not computable ({'; '.join(h.notes) or 'no size'})")
+            continue
+        n = ", ".join(f"{g} {v}" for g, v in h.n_per_group.items())
+        enrol = ", ".join(str(v) for v in (h.n_enrol_per_group or {}).values())
+        lines.append(f"    {h.id} (alpha {h.alpha:.4g}): analysed {n}; to enrol {enrol}")
+    return lines
