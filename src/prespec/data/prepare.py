@@ -324,7 +324,7 @@ def _hypothesis_counts(frame: pd.DataFrame, hyp: Any, plan: Any, plain: np.ndarr
     kind = plain.copy()
     decided = np.zeros(len(rows), dtype=bool)
     counts: list[IntercurrentCount] = []
-    for j, ice in enumerate(_intercurrent(hyp), start=1):
+    for ice in _intercurrent(hyp):
         marks = ValueSet(ice.happened)
         happened = rows & _per_unique(frame[ice.column], lambda c, m=marks: c in m).astype(bool)
         blank = rows & _per_unique(frame[ice.column], is_blank).astype(bool)
@@ -332,9 +332,9 @@ def _hypothesis_counts(frame: pd.DataFrame, hyp: Any, plan: Any, plain: np.ndarr
         if ice.strategy == "composite":
             kind[applies] = ice.counts_as
         elif ice.strategy == "while-on-treatment":
-            where = f"hypotheses.{hyp.id}.estimand.intercurrent[{j}].outcome_column"
             before = _classify_outcome(frame, name, outcome, applies, source, line_offset,
-                                       deviations, column=ice.outcome_column, where=where)
+                                       deviations, column=ice.outcome_column,
+                                       where="the outcome before an intercurrent event")
             kind[applies] = before[applies]
         decided |= happened
         counts.append(IntercurrentCount(
