@@ -1,6 +1,6 @@
 """The report's figures, drawn from ``results.json`` with matplotlib's Agg canvas.
 
-Two kinds of figure, both plain dot-and-interval charts:
+The report's figures:
 
 - ``figures/proportions-<outcome>.png``: the proportion with the event in each group, with its
   interval, for one outcome;
@@ -9,6 +9,8 @@ Two kinds of figure, both plain dot-and-interval charts:
   difference, 1 for a ratio, drawn on a log scale); margins (one, or low and high for
   equivalence) as dashed lines; the proportion of a single-group hypothesis in its own panel
   with a dotted line at its null rate; exploratory hypotheses drawn hollow and labelled as such;
+- ``figures/tipping-<id>.png``: the decision map of a tipping-point analysis (drawn by
+  :mod:`prespec.report.tipping`);
 - ``figures/multiplicity-graph.png``: for the graphical procedure (Bretz et al., Statistics in
   Medicine 2009), the hypotheses as nodes on a circle with their initial weights, and an
   arrow with its weight for each transition.
@@ -21,16 +23,31 @@ results give the same bytes.
 
 from __future__ import annotations
 
-import hashlib
 import math
-import os
-import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from prespec.errors import PrespecError
+from prespec.report.canvas import (
+    FIGURES,
+    GUIDE,
+    INK,
+    LINE,
+    RC,
+    new_figure,
+    safe_stem,
+    save_png,
+    shorten,
+)
+from prespec.report.tipping import (
+    TippingJob,
+    drawn,
+    is_rehearsal,
+    tipping_grids,
+    tipping_name,
+)
 from prespec.report.values import (
     fmt_count,
     fmt_estimate,
@@ -41,26 +58,17 @@ from prespec.report.values import (
     number,
     pair,
     text,
-    visible,
 )
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
-FIGURES = "figures"
 DIFFERENCES = f"{FIGURES}/differences.png"
 MULTIPLICITY_GRAPH = f"{FIGURES}/multiplicity-graph.png"
 
-_SAFE_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,79}")
-_DPI = 100
-_WIDTH = 8.0  # inches
-_INK = "#222222"
-_LINE = "#555555"
-_GUIDE = "#999999"
 _MARGIN = "#8a5a00"
 _NULL_RATE = "#1f4e79"
-_LABEL_CHARS = 48
 
 # Measure -> (axis label, value of no difference or None, log scale).
 _MEASURES: dict[str, tuple[str, float | None, bool]] = {
@@ -78,13 +86,7 @@ def proportions_name(outcome: str) -> str:
     name is reduced to those characters and followed by 8 hex digits of its SHA-256, so that two
     names never share a file.
     """
-    if _SAFE_NAME.fullmatch(outcome) and ".." not in outcome and not outcome.endswith("."):
-        stem = outcome
-    else:
-        cleaned = re.sub(r"[^A-Za-z0-9_-]+", "-", outcome).strip("-")[:60] or "outcome"
-        digest = hashlib.sha256(outcome.encode("utf-8")).hexdigest()[:8]
-        stem = f"{cleaned}-{digest}"
-    return f"{FIGURES}/proportions-{stem}.png"
+    return f"{FIGURES}/proportions-{safe_stem(outcome, 'outcome')}.png"
 
 
 def has_estimates(results: Mapping[str, Any]) -> bool:
@@ -102,8 +104,9 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     """Write the report's PNG figures into ``folder / "figures"`` and return their paths.
 
     One ``proportions-<outcome>.png`` per outcome in ``results["groups"]`` (in that order), then
-    ``differences.png`` if any hypothesis has an estimate, then ``multiplicity-graph.png`` for
-    the graphical procedure. A malformed ``results`` raises
+    ``differences.png`` if any hypothesis has an estimate, one ``tipping-<id>.png`` per
+    tipping-point analysis with a missing outcome, then ``multiplicity-graph.png`` for the
+    graphical procedure. A blinded rehearsal gets none of the group-level figures. A malformed ``results`` raises
     :class:`prespec.errors.PrespecError` naming the key; files are written under a temporary
     name and renamed into place, so none is left half-written.
     """
@@ -111,7 +114,8 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     import matplotlib.style
 
     results = dict(mapping(results, ""))
-    groups = mapping(results.get("groups") or {}, "groups")
+    blinded = is_rehearsal(results)  # a rehearsal draws no group-level figure
+    groups = {} if blinded else mapping(results.get("groups") or {}, "groups")
     jobs: list[tuple[str, Any]] = [
         (proportions_name(text(name, "groups")), _ProportionsJob(str(name), rows))
         for name, rows in groups.items()
@@ -119,61 +123,29 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     names = [name for name, _ in jobs]
     if len(set(names)) != len(names):
         raise PrespecError("results.json: groups: two outcomes map to the same figure name")
-    rows = _estimate_rows(results)
+    rows = [] if blinded else _estimate_rows(results)
     if rows:
         jobs.append((DIFFERENCES, _DifferencesJob(rows)))
+    tipping = [(tipping_name(g.hid), TippingJob(g)) for g in tipping_grids(results) if drawn(g)]
+    if len({name for name, _ in tipping}) != len(tipping):
+        raise PrespecError("results.json: hypotheses: two tipping-point analyses of one "
+                           "hypothesis, or two ids that map to the same figure name")
+    jobs += tipping
     if has_graph(results):
         jobs.append((MULTIPLICITY_GRAPH, _graph_job(mapping(results["multiplicity"],
                                                             "multiplicity"))))
 
     written: list[Path] = []
     out_dir = Path(folder) / FIGURES
-    with matplotlib.style.context("default"), matplotlib.rc_context(_RC):
+    with matplotlib.style.context("default"), matplotlib.rc_context(RC):
         figures = [(name, job.draw()) for name, job in jobs]
         if figures:
             out_dir.mkdir(parents=True, exist_ok=True)
         for name, fig in figures:
             path = Path(folder) / name
-            _save(fig, path)
+            save_png(fig, path)
             written.append(path)
     return written
-
-
-_RC: dict[str, Any] = {
-    "text.parse_math": False,  # titles come from user plans: a "$" is a dollar sign
-    "font.family": "DejaVu Sans",
-    "font.size": 10,
-    "axes.edgecolor": _LINE,
-    "axes.labelcolor": _INK,
-    "xtick.color": _INK,
-    "ytick.color": _INK,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-}
-
-
-def _save(fig: Figure, path: Path) -> None:
-    tmp = path.with_name(f".{path.name}.partial")
-    try:
-        fig.savefig(tmp, format="png", dpi=_DPI, metadata={"Software": None})
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
-
-
-def _new_figure(height: float) -> Figure:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(_WIDTH, height), dpi=_DPI, layout="constrained", facecolor="white")
-    FigureCanvasAgg(fig)
-    return fig
-
-
-def _shorten(label: str, limit: int = _LABEL_CHARS) -> str:
-    label = " ".join(visible(label).split())
-    return label if len(label) <= limit else label[: limit - 1] + "…"
 
 
 def _right_labels(ax: Axes, ticks: Sequence[float], labels: Sequence[str]) -> None:
@@ -191,10 +163,10 @@ def _interval_line(
     lo = low if low is not None else value
     hi = high if high is not None else value
     if lo is not None and hi is not None:
-        ax.hlines(y, lo, hi, color=_LINE, linewidth=1.6)
+        ax.hlines(y, lo, hi, color=LINE, linewidth=1.6)
         for end in (low, high):
             if end is not None:
-                ax.vlines(end, y - 0.12, y + 0.12, color=_LINE, linewidth=1.2)
+                ax.vlines(end, y - 0.12, y + 0.12, color=LINE, linewidth=1.2)
 
 
 @dataclass(frozen=True)
@@ -223,7 +195,7 @@ class _ProportionsJob:
                     text(row.get("ci_method"), f"{where}.ci_method", default=""),
                 )
             )
-        fig = _new_figure(1.4 + 0.42 * max(len(entries), 1))
+        fig = new_figure(1.4 + 0.42 * max(len(entries), 1))
         ax = fig.add_subplot()
         ys = list(range(len(entries)))[::-1]
         right: list[str] = []
@@ -231,7 +203,7 @@ class _ProportionsJob:
         for y, (_, events, total, prop, low, high, level, method) in zip(ys, entries, strict=True):
             _interval_line(ax, y, low, high, prop)
             if prop is not None:
-                ax.plot([prop], [y], marker="o", markersize=7, color=_INK, linestyle="none",
+                ax.plot([prop], [y], marker="o", markersize=7, color=INK, linestyle="none",
                         clip_on=False, zorder=3)
             right.append(
                 f"{fmt_count(events)}/{fmt_count(total)}   {fmt_estimate(prop)} "
@@ -239,7 +211,7 @@ class _ProportionsJob:
             )
             if method or level is not None:
                 methods.add(f"{fmt_level(level)} {method}".strip())
-        ax.set_yticks(ys, [_shorten(e[0]) for e in entries])
+        ax.set_yticks(ys, [shorten(e[0]) for e in entries])
         ax.tick_params(axis="y", length=0)
         _right_labels(ax, ys, right)
         upper = max([v for e in entries for v in (e[3], e[5]) if v is not None], default=1.0)
@@ -248,13 +220,13 @@ class _ProportionsJob:
         ax.grid(axis="x", color="#dddddd", linewidth=0.8)
         ax.set_axisbelow(True)
         ax.set_xlabel("proportion with the event")
-        ax.set_title(_shorten(f"Outcome: {self.outcome}", 70), loc="left", color=_INK)
+        ax.set_title(shorten(f"Outcome: {self.outcome}", 70), loc="left", color=INK)
         intervals = ", ".join(sorted(methods)) or "interval method not given"
         fig.supxlabel(f"Intervals: {intervals}. Right: events/total, proportion (limits).",
-                      x=0.01, ha="left", fontsize=8, color=_LINE)
+                      x=0.01, ha="left", fontsize=8, color=LINE)
         if not entries:
             ax.text(0.5, 0.5, "no groups in results.json", transform=ax.transAxes,
-                    ha="center", va="center", color=_LINE)
+                    ha="center", va="center", color=LINE)
         return fig
 
 
@@ -295,7 +267,7 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
             title = f"not tested: {title}" if title else "not tested"
         rows.append(
             _EstimateRow(
-                label=f"{_shorten(head, 34)}\n{_shorten(title, 34)}" if title else head,
+                label=f"{shorten(head, 34)}\n{shorten(title, 34)}" if title else head,
                 measure=text(est.get("measure"), f"{where}.estimate.measure", default="estimate"),
                 value=number(est.get("value"), f"{where}.estimate.value"),
                 low=low,
@@ -359,7 +331,7 @@ class _DifferencesJob:
         measures = list(dict.fromkeys(r.measure for r in self.rows))
         panels = [[r for r in self.rows if r.measure == m] for m in measures]
         heights = [1.4 * len(p) + 1.6 for p in panels]
-        fig = _new_figure(0.7 + 0.4 * sum(heights))
+        fig = new_figure(0.7 + 0.4 * sum(heights))
         axes = fig.subplots(len(panels), 1, squeeze=False, height_ratios=heights)[:, 0]
         any_margin = any_rate = False
         for ax, measure, rows in zip(axes, measures, panels, strict=True):
@@ -367,8 +339,8 @@ class _DifferencesJob:
             any_margin |= drew_margin
             any_rate |= drew_rate
         handles = [
-            Line2D([], [], marker="s", color=_INK, linestyle="none", label="primary or secondary"),
-            Line2D([], [], marker="o", color=_INK, markerfacecolor="white", linestyle="none",
+            Line2D([], [], marker="s", color=INK, linestyle="none", label="primary or secondary"),
+            Line2D([], [], marker="o", color=INK, markerfacecolor="white", linestyle="none",
                    label="exploratory (nominal)"),
         ]
         if any_margin:
@@ -394,9 +366,9 @@ class _DifferencesJob:
             values.extend(shown)
             _interval_line(ax, y, row.low, row.high, row.value)
             if row.value is not None:
-                face = "white" if row.exploratory else _INK
+                face = "white" if row.exploratory else INK
                 marker = "o" if row.exploratory else "s"
-                ax.plot([row.value], [y], marker=marker, markersize=7, color=_INK,
+                ax.plot([row.value], [y], marker=marker, markersize=7, color=INK,
                         markerfacecolor=face, linestyle="none")
             for m in row.margins:
                 if not log or m > 0:
@@ -409,7 +381,7 @@ class _DifferencesJob:
                 values.append(row.null_rate)
                 drew_rate = True
         if null is not None:
-            ax.axvline(null, color=_GUIDE, linewidth=1.0, zorder=0)
+            ax.axvline(null, color=GUIDE, linewidth=1.0, zorder=0)
             values.append(null)
         if log and values:
             from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
@@ -484,7 +456,7 @@ class _GraphJob:
         from prespec.report.values import fmt_weight
 
         n = len(self.nodes)
-        fig = _new_figure(6.0)
+        fig = new_figure(6.0)
         ax = fig.add_subplot()
         ax.set_aspect("equal")
         ax.set_xlim(-1.9, 1.9)
@@ -494,12 +466,12 @@ class _GraphJob:
         radius = 0.26 if n <= 2 else min(0.26, 0.8 * math.sin(math.pi / n))
         for name, weight in self.nodes:
             x, y = pos[name]
-            ax.add_patch(Circle((x, y), radius, facecolor="#f3f3f3", edgecolor=_INK,
+            ax.add_patch(Circle((x, y), radius, facecolor="#f3f3f3", edgecolor=INK,
                                 linewidth=1.4, zorder=2))
-            ax.text(x, y + radius * 0.22, _shorten(name, 12), ha="center", va="center",
-                    fontsize=10, fontweight="bold", color=_INK, zorder=3)
+            ax.text(x, y + radius * 0.22, shorten(name, 12), ha="center", va="center",
+                    fontsize=10, fontweight="bold", color=INK, zorder=3)
             ax.text(x, y - radius * 0.38, f"w = {fmt_weight(weight)}", ha="center",
-                    va="center", fontsize=9, color=_INK, zorder=3)
+                    va="center", fontsize=9, color=INK, zorder=3)
         offset = radius * 0.32
         for source, target, weight in self.edges:
             (x1, y1), (x2, y2) = pos[source], pos[target]
@@ -511,21 +483,21 @@ class _GraphJob:
             start = (x1 + ux * radius + nx * offset, y1 + uy * radius + ny * offset)
             end = (x2 - ux * radius + nx * offset, y2 - uy * radius + ny * offset)
             ax.add_patch(FancyArrowPatch(start, end, arrowstyle="-|>", mutation_scale=16,
-                                         color=_LINE, linewidth=1.4, shrinkA=0, shrinkB=0,
+                                         color=LINE, linewidth=1.4, shrinkA=0, shrinkB=0,
                                          zorder=1))
             t = 0.35  # near the source, so that labels of crossing arrows do not meet
             lx = start[0] + (end[0] - start[0]) * t + nx * 0.09
             ly = start[1] + (end[1] - start[1]) * t + ny * 0.09
             ax.text(lx, ly, fmt_weight(weight), ha="center", va="center", fontsize=9,
-                    color=_INK, zorder=4,
+                    color=INK, zorder=4,
                     bbox={"boxstyle": "round,pad=0.15", "facecolor": "white",
                           "edgecolor": "none"})
         ax.set_title("Graphical procedure: initial weights (w) and transition weights (arrows)",
-                     loc="left", color=_INK)
+                     loc="left", color=INK)
         fig.supxlabel("After Bretz et al. (Statistics in Medicine 2009). When a hypothesis is "
                       "rejected, its alpha passes along its arrows.",
-                      x=0.01, ha="left", fontsize=8, color=_LINE)
+                      x=0.01, ha="left", fontsize=8, color=LINE)
         if not self.nodes:
             ax.text(0.0, 0.0, "no weights in results.json", ha="center", va="center",
-                    color=_LINE)
+                    color=LINE)
         return fig

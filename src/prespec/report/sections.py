@@ -8,11 +8,12 @@ as text and never become markup. Every fragment starts with a tag, never with us
 
 from __future__ import annotations
 
-import html
 import json
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
+from prespec.report import blinded, design
+from prespec.report.estimand import estimand_block
 from prespec.report.figures import (
     DIFFERENCES,
     MULTIPLICITY_GRAPH,
@@ -20,6 +21,21 @@ from prespec.report.figures import (
     has_graph,
     proportions_name,
 )
+from prespec.report.markup import (
+    BADGE_STYLE,
+    CAUTION_STYLE,
+    DEPARTURE_STYLE,
+    DISAGREE_STYLE,
+    FLAG_ROW_STYLE,
+    FOLLOWUP_STYLE,
+    OVERRIDE_STYLE,
+    QUIET_STYLE,
+    esc,
+    fields,
+    plural,
+    table,
+)
+from prespec.report.sensitivity import Figure, sensitivity_block
 from prespec.report.values import (
     DEFAULT_CAUTION,
     NULL,
@@ -35,65 +51,15 @@ from prespec.report.values import (
     fmt_weight,
     items,
     mapping,
+    measure_label,
     number,
     pair,
     plain,
     text,
-    visible,
 )
 
 KINDS = {"run": "Analysis run", "rehearsal": "Blinded rehearsal"}
 ENVIRONMENT_ORDER = ("python", "numpy", "scipy", "statsmodels", "pandas", "prespec")
-_BOX = "border:2px solid {c};background:{b};padding:0.6em 0.9em;margin:0.8em 0;"
-_CAUTION_STYLE = _BOX.format(c="#7a4b00", b="#fff6e0")
-_DEPARTURE_STYLE = _BOX.format(c="#8b1a1a", b="#fdecec")
-_QUIET_STYLE = _BOX.format(c="#4d6b4d", b="#f0f6f0")
-_OVERRIDE_STYLE = _BOX.format(c="#8b1a1a", b="#fff0d6")
-_DISAGREE_STYLE = _BOX.format(c="#5a3d8a", b="#f3effa")
-_BADGE_STYLE = (
-    "display:inline-block;background:#8b1a1a;color:#ffffff;font-size:0.75em;"
-    "font-weight:700;padding:0.05em 0.45em;border-radius:3px;vertical-align:middle;"
-)
-_FOLLOWUP_STYLE = "margin:0.4em 0 1.2em 1.4em;padding-left:1em;border-left:3px solid #bdbdbd;"
-
-def esc(value: object) -> str:
-    """HTML-escape any value shown in the report, quotes included; control characters visible."""
-    return html.escape(visible(str(value)), quote=True)
-
-
-def table(
-    header: Sequence[str],
-    rows: Iterable[Sequence[str]],
-    *,
-    numeric: Iterable[int] = (),
-    cls: str = "",
-    caption: str = "",
-) -> str:
-    """A plain HTML table; cells and caption are escaped here, so pass them as plain text.
-
-    Columns whose index is in ``numeric`` are right-aligned.
-    """
-    nums = set(numeric)
-    head = "".join(f"<th>{esc(h)}</th>" for h in header)
-
-    def cell(j: int, value: str) -> str:
-        return f'<td class="num">{esc(value)}</td>' if j in nums else f"<td>{esc(value)}</td>"
-
-    body = "".join(
-        "<tr>" + "".join(cell(j, c) for j, c in enumerate(row)) + "</tr>" for row in rows
-    )
-    klass = f"prespec {cls}".strip()
-    cap = f'<caption style="text-align:left">{esc(caption)}</caption>' if caption else ""
-    return (
-        f'<table class="{esc(klass)}">{cap}<thead><tr>{head}</tr></thead>'
-        f"<tbody>{body}</tbody></table>"
-    )
-
-
-def fields(rows: Iterable[tuple[str, str]]) -> str:
-    """A two-column table of labelled values."""
-    body = "".join(f"<tr><th>{esc(k)}</th><td>{esc(v)}</td></tr>" for k, v in rows)
-    return f'<table class="prespec prespec-fields"><tbody>{body}</tbody></table>'
 
 
 def _optional(results: Mapping[str, Any], key: str) -> str:
@@ -134,7 +100,7 @@ def caution(results: Mapping[str, Any]) -> str:
     """The caution from results.json, in a box (a default one if results.json has none)."""
     words = text(results.get("caution"), "caution", default=DEFAULT_CAUTION).strip()
     return (
-        f'<div class="prespec-caution" style="{_CAUTION_STYLE}">'
+        f'<div class="prespec-caution" style="{CAUTION_STYLE}">'
         f"<strong>Caution.</strong> {esc(words or DEFAULT_CAUTION)}</div>"
     )
 
@@ -152,14 +118,14 @@ def departures(results: Mapping[str, Any]) -> str:
     if rows:
         count = f"{len(rows)} departure{'s' if len(rows) != 1 else ''} from the plan recorded"
         out.append(
-            f'<div class="prespec-departures" style="{_DEPARTURE_STYLE}">'
+            f'<div class="prespec-departures" style="{DEPARTURE_STYLE}">'
             f"<strong>{esc(count)}.</strong>"
             + table(["Code", "Detail", "Expected", "Found"], rows)
             + "</div>"
         )
     else:
         out.append(
-            f'<div class="prespec-departures" style="{_QUIET_STYLE}">'
+            f'<div class="prespec-departures" style="{QUIET_STYLE}">'
             "No departures from the plan were recorded.</div>"
         )
     out.append(overrides(results))
@@ -197,7 +163,7 @@ def overrides(results: Mapping[str, Any]) -> str:
         return ""
     count = f"{len(rows)} command-line override{'s' if len(rows) != 1 else ''}"
     return (
-        f'<div class="prespec-overrides" style="{_OVERRIDE_STYLE}">'
+        f'<div class="prespec-overrides" style="{OVERRIDE_STYLE}">'
         f"<strong>{esc(count)} of the locked analysis.</strong> The command line replaced "
         "what the locked plan fixed in advance. The hypotheses these settings touch are marked "
         "“not pre-specified”: their results are not those of the pre-specified analysis."
@@ -212,21 +178,32 @@ def population(results: Mapping[str, Any]) -> str:
     if results.get("population") is None:
         return out + "<p>results.json gives no population counts.</p>"
     pop = mapping(results["population"], "population")
+    rehearsal = blinded.is_rehearsal(results)
+    group_label = ("Left out for the group (the group column is not read in a rehearsal)"
+                   if rehearsal else "Left out for a blank or unknown group")
     labels = [
         ("rows_read", "Rows read"),
         ("excluded_by_filter", "Left out by the population filter"),
-        ("excluded_group", "Left out for a blank or unknown group"),
+        ("excluded_group", group_label),
         ("analysed", "Analysed"),
     ]
-    return out + fields(
-        (label, fmt_count(number(pop.get(key), f"population.{key}"))) for key, label in labels
-    )
+    rows = [(label, fmt_count(number(pop.get(key), f"population.{key}")))
+            for key, label in labels]
+    if rehearsal or results.get("planned_total") is not None:
+        planned = number(results.get("planned_total"), "planned_total")
+        rows.append(("Planned in total (sum of planned_n)",
+                     "not planned" if planned is None else fmt_thousands(planned)))
+        analysed = results.get("analysed_total")
+        if analysed is not None:
+            rows.append(("Analysed in total",
+                         fmt_thousands(number(analysed, "analysed_total"))))
+    return out + fields(rows)
 
 
 def outcomes(results: Mapping[str, Any]) -> list[tuple[str, str, str]]:
     """Per outcome: (name, HTML of its counts per group, relative path of its figure)."""
     groups = results.get("groups")
-    if groups is None:
+    if groups is None or blinded.is_rehearsal(results):  # a rehearsal shows no group
         return []
     out = []
     for name, rows in mapping(groups, "groups").items():
@@ -257,14 +234,6 @@ def outcome_table(name: str, rows: object) -> str:
     return f"<h3>Outcome: {esc(name)}</h3>" + table(head, body, numeric=range(1, 6))
 
 
-#: How a measure is named in the report.
-MEASURES = {
-    "risk-difference": "risk difference",
-    "risk-ratio": "risk ratio",
-    "odds-ratio": "odds ratio",
-    "proportion": "proportion",
-}
-
 #: How a homogeneity test is named in its note line.
 HOMOGENEITY_TESTS = {
     "breslow-day-tarone": "Breslow–Day test with Tarone's correction",
@@ -275,11 +244,6 @@ GRAPHICAL_REFERENCE = (
     "Bretz et al. (Statistics in Medicine 2009), “A graphical approach to sequentially "
     "rejective multiple test procedures”"
 )
-
-
-def measure_label(measure: str) -> str:
-    """``risk-ratio`` -> ``risk ratio``; an unknown measure is shown as written."""
-    return MEASURES.get(measure, measure)
 
 
 def _compare_label(hyp: Mapping[str, Any], where: str) -> str:
@@ -405,20 +369,85 @@ def _ordered(results: Mapping[str, Any]) -> list[tuple[Mapping[str, Any], str, l
 
 def hypotheses(results: Mapping[str, Any]) -> list[str]:
     """Each hypothesis as an HTML fragment, its follow-up comparisons grouped after it."""
-    out = []
+    return [html for html, _ in hypothesis_blocks(results)]
+
+
+def hypothesis_blocks(results: Mapping[str, Any]) -> list[tuple[str, list[Figure]]]:
+    """Each hypothesis (or group of follow-ups) as HTML, with the figures to show after it.
+
+    A blinded rehearsal gives one block: the table of the hypotheses it rehearsed.
+    """
+    if blinded.is_rehearsal(results):
+        rehearsed = rehearsal_hypotheses(results)
+        return [(rehearsed, [])] if rehearsed else []
+    out: list[tuple[str, list[Figure]]] = []
     for hyp, position, kids in _ordered(results):
         if not hyp.get("_missing"):
-            out.append(hypothesis(hyp, position, results=results))
+            out.append(hypothesis_parts(hyp, position, results=results))
         if kids:
-            out.append(followups(hyp, kids, results))
+            out.append(followup_parts(hyp, kids, results))
     return out
 
 
 def hypotheses_heading(results: Mapping[str, Any]) -> str:
     """The heading of the hypotheses section, or a line saying there are none."""
+    if blinded.is_rehearsal(results):
+        if items(results.get("hypotheses"), "hypotheses"):
+            return "<h2>Hypotheses rehearsed</h2>"
+        return "<h2>Hypotheses rehearsed</h2><p>results.json holds no tested hypotheses.</p>"
     if items(results.get("hypotheses"), "hypotheses"):
         return "<h2>Hypotheses</h2>"
     return "<h2>Hypotheses</h2><p>results.json holds no tested hypotheses.</p>"
+
+
+def _executed(hyp: Mapping[str, Any], where: str) -> bool | None:
+    value = hyp.get("executed")
+    if value is not None and not isinstance(value, bool):
+        raise_type(f"{where}.executed", "true, false or null", value)
+    return value
+
+
+def rehearsal_hypotheses(results: Mapping[str, Any]) -> str:
+    """A rehearsal's hypotheses: what each compares and whether its steps executed.
+
+    No statistic, p-value or estimate is shown, whatever results.json holds.
+    """
+    body: list[list[str]] = []
+    marks: dict[int, str] = {}
+    failed: list[str] = []
+    for n, raw in enumerate(items(results.get("hypotheses"), "hypotheses")):
+        hyp = mapping(raw, f"hypotheses[{n}]")
+        hid = text(hyp.get("id"), f"hypotheses[{n}].id")
+        where = f"hypotheses.{hid}"
+        executed = _executed(hyp, where)
+        problem = text(hyp.get("problem"), f"{where}.problem", default="")
+        if executed is False:
+            marks[len(body)] = FLAG_ROW_STYLE
+            failed.append(hid)
+        body.append([
+            hid,
+            text(hyp.get("title"), f"{where}.title", default=NULL),
+            text(hyp.get("role"), f"{where}.role", default=NULL),
+            text(hyp.get("outcome"), f"{where}.outcome", default=NULL),
+            _compare_label(hyp, where),
+            text(hyp.get("test"), f"{where}.test", default=NULL),
+            NULL if executed is None else ("yes" if executed else "no"),
+            problem or NULL,
+        ])
+    if not body:
+        return ""
+    done = len(body) - len(failed)
+    summary = (f"{done} of {plural(len(body), 'hypothesis', 'hypotheses')} executed every step "
+               "on the pooled data. A rehearsal computes no statistic, p-value or estimate.")
+    out = [f"<p>{esc(summary)}</p>"]
+    if failed:
+        words = (f"Did not execute: {', '.join(failed)}. Each problem is named in the table; "
+                 "it would stop or change the run in the same way.")
+        out.append(f'<div class="prespec-not-executed" style="{DEPARTURE_STYLE}">'
+                   f"{esc(words)}</div>")
+    out.append(table(["Hypothesis", "Title", "Role", "Outcome", "Comparison", "Test",
+                      "Executed", "Problem"], body, cls="prespec-rehearsed", row_styles=marks))
+    return "".join(out)
 
 
 def _families(kids: Sequence[tuple[Mapping[str, Any], str]]) -> str:
@@ -460,6 +489,15 @@ def followups(
     results: Mapping[str, Any] | None = None,
 ) -> str:
     """One parent's follow-up comparisons, with the sentence that explains their gate."""
+    return followup_parts(parent, kids, results)[0]
+
+
+def followup_parts(
+    parent: Mapping[str, Any],
+    kids: Sequence[tuple[Mapping[str, Any], str]],
+    results: Mapping[str, Any] | None = None,
+) -> tuple[str, list[Figure]]:
+    """:func:`followups`, with the figures of the follow-ups' sensitivity analyses."""
     pid = text(parent.get("id"), "hypotheses.parent", default=NULL)
     missing = " (not in results.json)" if parent.get("_missing") else ""
     parts = [
@@ -467,8 +505,13 @@ def followups(
          f"{esc(missing)}</h3>"),
         f'<p class="prespec-gate">{esc(gate_sentence(pid, kids))}</p>',
     ]
-    parts += [hypothesis(h, pos, results=results, level=4) for h, pos in kids]
-    return f'<div class="prespec-followups" style="{_FOLLOWUP_STYLE}">' + "".join(parts) + "</div>"
+    figures: list[Figure] = []
+    for h, pos in kids:
+        html, drawn = hypothesis_parts(h, pos, results=results, level=4)
+        parts.append(html)
+        figures += drawn
+    html = f'<div class="prespec-followups" style="{FOLLOWUP_STYLE}">' + "".join(parts) + "</div>"
+    return html, figures
 
 
 def _definition_rows(
@@ -522,17 +565,29 @@ def hypothesis(
     results: Mapping[str, Any] | None = None,
     level: int = 3,
 ) -> str:
-    """One hypothesis: its definition, its count tables, its estimate and its test.
+    """One hypothesis: its definition, its estimand, its count tables, its estimate and its
+    test, then its sensitivity analyses.
 
     ``results`` (the whole file) supplies the overrides that concern the hypothesis.
     """
+    return hypothesis_parts(hyp, position, results=results, level=level)[0]
+
+
+def hypothesis_parts(
+    hyp: Mapping[str, Any],
+    position: str,
+    *,
+    results: Mapping[str, Any] | None = None,
+    level: int = 3,
+) -> tuple[str, list[Figure]]:
+    """:func:`hypothesis`, with the figures its sensitivity analyses show after it."""
     hid = text(hyp.get("id"), f"{position}.id")
     where = f"hypotheses.{hid}"
     title = text(hyp.get("title"), f"{where}.title", default="")
     heading = f"{hid} — {title}" if title else hid
     badges = ""
     if not is_prespecified(hyp, where):
-        badges += (f' <span class="prespec-badge-override" style="{_BADGE_STYLE}">'
+        badges += (f' <span class="prespec-badge-override" style="{BADGE_STYLE}">'
                    "not pre-specified</span>")
     if is_exploratory(hyp):
         badges += ' <span class="prespec-exploratory">(exploratory)</span>'
@@ -542,6 +597,7 @@ def hypothesis(
         parts.append(_not_prespecified_box(hyp, hid, results or {}))
     method = multiplicity_name(results) if results is not None else NULL
     parts.append(fields(_definition_rows(hyp, where, method)))
+    parts.append(estimand_block(hyp, where))  # the estimand in words, before the result
     if hyp.get("table") is not None:
         parts.append(count_table(hyp["table"], hyp.get("expected"), where, hyp.get("scores")))
     if hyp.get("strata_tables") is not None:
@@ -554,14 +610,16 @@ def hypothesis(
             "<p><em>Exploratory: the p-value is nominal, not adjusted for multiplicity, and "
             "no decision is drawn from it.</em></p>"
         )
-    return '<div class="prespec-hyp">' + "".join(parts) + "</div>"
+    extra, figures = sensitivity_block(hyp, where)  # beside the primary result, after it
+    parts.append(extra)
+    return '<div class="prespec-hyp">' + "".join(parts) + "</div>", figures
 
 
 def _not_prespecified_box(hyp: Mapping[str, Any], hid: str, results: Mapping[str, Any]) -> str:
     rows = override_rows(results, hid)
     listing = table(["Setting", "Locked value", "Value used"], rows) if rows else ""
     return (
-        f'<div class="prespec-not-prespecified" style="{_OVERRIDE_STYLE}">'
+        f'<div class="prespec-not-prespecified" style="{OVERRIDE_STYLE}">'
         "<strong>Not pre-specified.</strong> The command line overrode the locked analysis "
         "for this hypothesis, so this result is not the one the plan fixed in advance."
         f"{listing}</div>"
@@ -735,7 +793,7 @@ def _disagreement(hyp: Mapping[str, Any], where: str) -> str:
         "shown is the test's."
     )
     return (
-        f'<div class="prespec-disagree" style="{_DISAGREE_STYLE}">'
+        f'<div class="prespec-disagree" style="{DISAGREE_STYLE}">'
         f"<strong>The test decides.</strong> {esc(words)}</div>"
     )
 
@@ -794,6 +852,8 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
 
 def forest_figure(results: Mapping[str, Any]) -> str | None:
     """The relative path of the forest plot, or None when no hypothesis has an estimate."""
+    if blinded.is_rehearsal(results):
+        return None
     return DIFFERENCES if has_estimates(results) else None
 
 
@@ -868,6 +928,10 @@ def multiplicity(results: Mapping[str, Any]) -> str:
             graph = _graph_parts(value)
     out.append(fields(rows))
     out += graph
+    if blinded.is_rehearsal(results):
+        out.append("<p>A rehearsal tests nothing: the procedure is applied to the p-values of "
+                   "the run.</p>")
+        return "".join(out)
     flat = [(h, pos) for h, pos, kids in _ordered(results) if not h.get("_missing")
             for h, pos in [(h, pos), *kids]]
     flat += [k for h, _, kids in _ordered(results) if h.get("_missing") for k in kids]
@@ -912,3 +976,23 @@ def environment(results: Mapping[str, Any]) -> str:
         k for k in env if k not in ENVIRONMENT_ORDER
     )
     return out + fields((k, text(env[k], f"environment.{k}", default=NULL)) for k in keys)
+
+
+def blinded_banner(results: Mapping[str, Any]) -> str:
+    """The label of a blinded rehearsal (and any group-level field it must not carry), or ``""``."""
+    return blinded.banner(results)
+
+
+def pooled(results: Mapping[str, Any]) -> str:
+    """The pooled figures per outcome of a rehearsal, or ``""``."""
+    return blinded.pooled(results)
+
+
+def data_dictionary(results: Mapping[str, Any]) -> str:
+    """The data dictionary section, or ``""`` when results.json has none."""
+    return blinded.data_dictionary(results)
+
+
+def planned_versus_achieved(results: Mapping[str, Any]) -> str:
+    """The "Planned versus achieved" section of a run with a design, or ``""``."""
+    return design.planned_versus_achieved(results)

@@ -48,6 +48,9 @@ from IPython.display import HTML, Image, display
 from prespec.report import sections
 
 display(HTML(sections.header(results)))
+banner = sections.blinded_banner(results)
+if banner:
+    display(HTML(banner))
 display(HTML(sections.caution(results)))
 '''),
     ("departures", '''\
@@ -55,6 +58,21 @@ display(HTML(sections.departures(results)))
 '''),
     ("population", '''\
 display(HTML(sections.population(results)))
+'''),
+    ("design", '''\
+planned = sections.planned_versus_achieved(results)
+if planned:
+    display(HTML(planned))
+'''),
+    ("pooled", '''\
+pooled = sections.pooled(results)
+if pooled:
+    display(HTML(pooled))
+'''),
+    ("dictionary", '''\
+dictionary = sections.data_dictionary(results)
+if dictionary:
+    display(HTML(dictionary))
 '''),
     ("outcomes", '''\
 outcome_parts = sections.outcomes(results)
@@ -67,8 +85,10 @@ for name, outcome_html, figure in outcome_parts:
 '''),
     ("hypotheses", '''\
 display(HTML(sections.hypotheses_heading(results)))
-for hypothesis_html in sections.hypotheses(results):
+for hypothesis_html, figures in sections.hypothesis_blocks(results):
     display(HTML(hypothesis_html))
+    for figure, alt in figures:
+        display(Image(filename=figure, metadata={"alt": alt}))
 forest = sections.forest_figure(results)
 if forest is not None:
     display(HTML("<h3>Estimates and intervals</h3>"))

@@ -25,6 +25,19 @@ NULL = "—"
 #: Shown if results.json carries no caution; the report never goes out without one.
 DEFAULT_CAUTION = CAUTION
 
+#: How a measure is named in the report.
+MEASURES = {
+    "risk-difference": "risk difference",
+    "risk-ratio": "risk ratio",
+    "odds-ratio": "odds ratio",
+    "proportion": "proportion",
+}
+
+
+def measure_label(measure: str) -> str:
+    """``risk-ratio`` -> ``risk ratio``; an unknown measure is shown as written."""
+    return MEASURES.get(measure, measure)
+
 
 # Control characters (terminal escape sequences, NUL, line and paragraph separators) are
 # shown as visible escapes, so that nothing in a label is invisible or acts on the reader.

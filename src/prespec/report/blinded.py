@@ -1,0 +1,273 @@
+"""The parts of a blinded rehearsal report, and the data dictionary.
+
+A rehearsal (``kind: "rehearsal"``) runs the plan without reading the group column: it checks
+that the data conform to the plan and that every step executes, and its results.json holds
+pooled figures only. Its report says so at the top, shows the pooled figures per outcome and
+the data dictionary (the columns the plan reads, with their role and the values found), and
+shows no number per group: group-level fields, should results.json carry any, are named in a
+warning and never shown.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Mapping
+from typing import Any
+
+from prespec.report.markup import (
+    BLINDED_STYLE,
+    DEPARTURE_STYLE,
+    FLAG_ROW_STYLE,
+    SOFT_ROW_STYLE,
+    esc,
+    fields,
+    plural,
+    table,
+)
+from prespec.report.values import (
+    NULL,
+    fmt_estimate,
+    fmt_interval,
+    fmt_level,
+    fmt_thousands,
+    items,
+    mapping,
+    number,
+    pair,
+    text,
+)
+
+#: What a rehearsal's hypotheses must not carry: any of these not null is group-level.
+HYPOTHESIS_LEAKS = ("statistic", "p_value", "p_adjusted", "reject", "estimate", "table",
+                    "expected", "strata_tables", "sensitivity", "homogeneity")
+#: Top-level fields a rehearsal must not carry.
+TOP_LEAKS = ("groups", "design")
+
+BANNER_TITLE = "Blinded rehearsal — no group-level results"
+BANNER_TEXT = (
+    "This report was made without reading the group column. It checks that the data conform "
+    "to the plan and that every step of the analysis executes, and shows pooled figures only: "
+    "no count, rate, test, p-value or estimate for any group. The results of the plan come "
+    "from the run on the unblinded data."
+)
+
+#: How the meaning of a value is shown in the data dictionary.
+MEANINGS = {
+    "event": "event",
+    "no-event": "no event",
+    "blank": "blank",
+    "unmapped": "UNMAPPED: neither event nor no event",
+    "passes filter": "passes the population filter",
+    "fails filter": "fails the population filter",
+    "intercurrent event": "the intercurrent event happened",
+}
+
+
+def is_rehearsal(results: Mapping[str, Any]) -> bool:
+    """Whether results.json is a blinded rehearsal."""
+    return results.get("kind") == "rehearsal"
+
+
+def leaks(results: Mapping[str, Any]) -> list[str]:
+    """The key paths of group-level fields in a rehearsal's results.json (none should exist)."""
+    if not is_rehearsal(results):
+        return []
+    found = [key for key in TOP_LEAKS if results.get(key) is not None]
+    for n, raw in enumerate(items(results.get("hypotheses"), "hypotheses")):
+        hyp = mapping(raw, f"hypotheses[{n}]")
+        hid = text(hyp.get("id"), f"hypotheses[{n}].id", default=f"[{n}]")
+        found += [f"hypotheses.{hid}.{key}" for key in HYPOTHESIS_LEAKS
+                  if hyp.get(key) is not None and hyp.get(key) != []]
+    return found
+
+
+def banner(results: Mapping[str, Any]) -> str:
+    """The rehearsal's label at the top of the report, or ``""`` for a run."""
+    if not is_rehearsal(results):
+        return ""
+    out = [
+        (f'<div class="prespec-blinded" style="{BLINDED_STYLE}">'
+        '<p style="font-size:1.4em;font-weight:700;margin:0.1em 0 0.3em">'
+        f'{esc(BANNER_TITLE)}</p><p style="margin:0">{esc(BANNER_TEXT)}</p></div>')
+    ]
+    found = leaks(results)
+    if found:
+        listed = ", ".join(found[:12]) + (f" and {len(found) - 12} more" if len(found) > 12 else "")
+        words = (f"results.json carries group-level fields that a rehearsal must not have: "
+                 f"{listed}. They are not shown.")
+        out.append(f'<div class="prespec-leak" style="{DEPARTURE_STYLE}">'
+                   f"<strong>Not blinded.</strong> {esc(words)}</div>")
+    return "".join(out)
+
+
+def pooled(results: Mapping[str, Any]) -> str:
+    """The pooled events, total, missing, rate and interval per outcome (all groups together)."""
+    if not is_rehearsal(results) and results.get("pooled") is None:
+        return ""
+    out = ["<h2>Pooled outcomes, all groups together</h2>"]
+    if results.get("pooled") is None:
+        return out[0] + "<p>results.json gives no pooled figures.</p>"
+    body = []
+    for name, raw in mapping(results["pooled"], "pooled").items():
+        at = f"pooled.{name}"
+        row = mapping(raw, at)
+        low, high = pair(row.get("ci"), f"{at}.ci")
+        level = number(row.get("level"), f"{at}.level")
+        method = text(row.get("ci_method"), f"{at}.ci_method", default="")
+        body.append([
+            str(name),
+            fmt_thousands(number(row.get("events"), f"{at}.events")),
+            fmt_thousands(number(row.get("total"), f"{at}.total")),
+            fmt_thousands(number(row.get("missing"), f"{at}.missing")),
+            fmt_estimate(number(row.get("rate"), f"{at}.rate")),
+            fmt_interval(low, high),
+            f"{fmt_level(level)} {method}".strip() if level is not None or method else NULL,
+        ])
+    out.append(table(["Outcome", "Events", "Total", "Missing", "Pooled rate", "Interval",
+                      "Level, method"], body, numeric=range(1, 5), cls="prespec-pooled"))
+    out.append("<p>Every figure here pools all groups: a rehearsal reads no group column.</p>")
+    return "".join(out)
+
+
+# --- the data dictionary -------------------------------------------------------------------
+
+_ROLE_PATTERNS: list[tuple[re.Pattern[str], str]] = [
+    (re.compile(r"data\.id"), "unit id"),
+    (re.compile(r"data\.group"), "group"),
+    (re.compile(r"data\.include\[(\d+)\]"), "population filter {0}"),
+    (re.compile(r"outcomes\.(.+)\.column"), "outcome “{0}”"),
+    (re.compile(r"hypotheses\.(.+)\.strata"), "strata of {0}"),
+    (re.compile(r"hypotheses\.(.+)\.estimand\.intercurrent\[(\d+)\]\.column"),
+     "intercurrent event {1} of {0}"),
+    (re.compile(r"hypotheses\.(.+)\.estimand\.intercurrent\[(\d+)\]\.outcome_column"),
+     "outcome while on treatment, event {1} of {0}"),
+]
+
+
+def role_label(role: str) -> str:
+    """A role path in words, then the path: ``outcome “infection” (outcomes.infection.column)``."""
+    for pattern, words in _ROLE_PATTERNS:
+        match = pattern.fullmatch(role)
+        if match:
+            return f"{words.format(*match.groups())} ({role})"
+    return role
+
+
+def _roles(column: Mapping[str, Any], where: str) -> str:
+    raw = column.get("role")
+    if isinstance(raw, list):
+        roles = [text(r, f"{where}.role[{k}]") for k, r in enumerate(raw)]
+    else:
+        roles = [text(raw, f"{where}.role", default=NULL)]
+    return "; ".join(role_label(r) for r in roles)
+
+
+def shown_value(value: object, where: str) -> str:
+    """A data value as the dictionary shows it: ``(blank)`` for an empty one, padding quoted."""
+    if value is None:
+        return "(blank)"
+    shown = text(value, where)
+    if shown == "":
+        return "(blank)"
+    if shown != shown.strip():
+        return f"“{shown}”"
+    return shown
+
+
+def _value_rows(
+    column: Mapping[str, Any], where: str
+) -> tuple[list[list[str]], dict[int, str], int]:
+    rows: list[list[str]] = []
+    marks: dict[int, str] = {}
+    unmapped = 0
+    for k, raw in enumerate(items(column.get("values"), f"{where}.values")):
+        at = f"{where}.values[{k}]"
+        entry = mapping(raw, at)
+        meaning = text(entry.get("meaning"), f"{at}.meaning", default="")
+        count = number(entry.get("count"), f"{at}.count")
+        if meaning == "unmapped":
+            marks[k] = FLAG_ROW_STYLE
+            unmapped += int(count or 0)
+        elif meaning == "blank":
+            marks[k] = SOFT_ROW_STYLE
+        rows.append([shown_value(entry.get("value"), f"{at}.value"), fmt_thousands(count),
+                     MEANINGS.get(meaning, meaning or NULL)])
+    return rows, marks, unmapped
+
+
+def _column_name(column: Mapping[str, Any], where: str) -> str:
+    return text(column.get("column"), f"{where}.column")
+
+
+def data_dictionary(results: Mapping[str, Any]) -> str:
+    """The data dictionary as its own section, or ``""`` when results.json has none.
+
+    An overview (column, role, distinct values, blanks, rows with unmapped values, flagged),
+    then each column's values with their counts and meaning, then lines to sign.
+    """
+    if results.get("data_dictionary") is None:
+        return ""
+    dictionary = mapping(results["data_dictionary"], "data_dictionary")
+    columns = [(mapping(raw, f"data_dictionary.columns[{k}]"), f"data_dictionary.columns[{k}]")
+               for k, raw in enumerate(items(dictionary.get("columns"),
+                                             "data_dictionary.columns"))]
+    out = [
+        "<h2>Data dictionary</h2>",
+        ("<p>The columns the plan reads, what the plan uses each for, and the values found in "
+        "them, for the data manager to check against the data specification and sign off. "
+        "Values the plan does not map are flagged in red; blanks are shaded.</p>"),
+    ]
+    if not columns:
+        return "".join(out) + "<p>results.json lists no columns.</p>"
+    overview: list[list[str]] = []
+    overview_marks: dict[int, str] = {}
+    details: list[str] = []
+    for column, where in columns:
+        name = _column_name(column, where)
+        at = f"data_dictionary.{name}"
+        roles = _roles(column, at)
+        distinct = number(column.get("distinct"), f"{at}.distinct")
+        blank = number(column.get("blank"), f"{at}.blank")
+        rows, marks, unmapped = _value_rows(column, at)
+        if unmapped:
+            overview_marks[len(overview)] = FLAG_ROW_STYLE
+        overview.append([name, roles, fmt_thousands(distinct), fmt_thousands(blank),
+                         fmt_thousands(unmapped) if rows else NULL])
+        details.append(_column_detail(column, at, name, roles, rows, marks))
+    out.append(table(["Column", "Used for", "Distinct values", "Blank", "Unmapped (rows)"],
+                     overview, numeric=(2, 3, 4), cls="prespec-dictionary",
+                     row_styles=overview_marks))
+    flagged = sum(1 for m in overview_marks.values() if m == FLAG_ROW_STYLE)
+    if flagged:
+        out.append(f'<div class="prespec-unmapped" style="{DEPARTURE_STYLE}">'
+                   f"{esc(plural(flagged, 'column'))} hold values that the plan does not "
+                   "map; they are listed in red below.</div>")
+    out += details
+    out.append("<h3>Checked against the data specification</h3>")
+    out.append(fields([("Name", ""), ("Role", ""), ("Date", ""), ("Signature", "")]))
+    return "".join(out)
+
+
+def _column_detail(column: Mapping[str, Any], at: str, name: str, roles: str,
+                   rows: list[list[str]], marks: dict[int, str]) -> str:
+    distinct = number(column.get("distinct"), f"{at}.distinct")
+    blank = number(column.get("blank"), f"{at}.blank")
+    facts = [f"used for {roles}", f"{fmt_thousands(distinct)} distinct values",
+             f"{fmt_thousands(blank)} blank"]
+    if column.get("duplicates") is not None:
+        facts.append(f"{fmt_thousands(number(column.get('duplicates'), f'{at}.duplicates'))} "
+                     "duplicated")
+    parts = [f'<h3 class="prespec-column">Column {esc(name)}</h3>',
+             f"<p>{esc('; '.join(facts))}.</p>"]
+    if rows:
+        parts.append(table(["Value", "Rows", "Meaning"], rows, numeric=(1,),
+                           cls="prespec-values", row_styles=marks))
+        more = number(column.get("more"), f"{at}.more")
+        if more:
+            words = f"… and {fmt_thousands(more)} more values, not listed (a list stops at 50)."
+            parts.append(f"<p>{esc(words)}</p>")
+    elif column.get("duplicates") is not None or "(data.id)" in roles:
+        parts.append("<p>The values of an id column are not listed.</p>")
+    else:
+        parts.append("<p>No values are listed.</p>")
+    return "".join(parts)
