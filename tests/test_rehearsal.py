@@ -302,6 +302,25 @@ def test_follow_ups_are_listed_under_their_parent(tmp_path: Path,
     assert "sample-size-shortfall" not in [d["code"] for d in res["deviations"]]
 
 
+def test_no_analysed_outcome_is_not_computable_and_still_executes(
+        tmp_path: Path, renders: list[dict[str, Any]],
+        capsys: pytest.CaptureFixture[str]) -> None:
+    plan = tmp_path / "trial.yaml"
+    plan.write_text(PLAN)
+    rows = trial_rows()[:4]
+    rows[0]["consented"], rows[1]["consented"] = "no", "no"
+    rows[2]["infected"], rows[3]["infected"] = "", " "
+    data = tmp_path / "data.csv"
+    data.write_text(rows_text(rows))
+    assert cli.main(["rehearse", str(plan), str(data), "--out", str(tmp_path / "r")]) == 0
+    res = json.loads((tmp_path / "r" / "results.json").read_text())
+    assert res["pooled"]["infection"] == {"events": 0, "total": 0, "missing": 2, "rate": None,
+                                          "ci": [None, None], "ci_method": "wilson",
+                                          "level": 0.95}
+    assert all(h["executed"] for h in res["hypotheses"])
+    assert "0 events of 0 analysed, not computable, 2 missing" in capsys.readouterr().out
+
+
 # --- bad input ---------------------------------------------------------------------------
 
 

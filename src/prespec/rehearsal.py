@@ -150,8 +150,9 @@ def _missing_notes(plan: Any, pooled: list[Pooled]) -> list[Note]:
     for p in pooled:
         rule = plan.outcomes[p.outcome].missing
         if p.missing:
-            notes.append(Note(f"missing-{rule}", f"outcome {p.outcome!r}: {p.missing} missing "
-                              f"outcomes {action[rule]} (missing: {rule}), all groups together"))
+            what = "missing outcome" if p.missing == 1 else "missing outcomes"
+            notes.append(Note(f"missing-{rule}", f"outcome {p.outcome!r}: {p.missing} {what} "
+                              f"{action[rule]} (missing: {rule}), all groups together"))
     return notes
 
 
