@@ -145,17 +145,21 @@ def extended_results() -> dict[str, Any]:
     h2_grid["p_values"][0][0] = None
     h2["sensitivity"] = [h2_grid]
     res["design"] = {
-        "rule": "bonferroni split", "power": 0.8, "dropout": 0.1,
+        "rule": "alpha / m = 0.05 / 2, the Bonferroni split", "power": 0.8, "dropout": 0.1,
+        "assumed": {"gauze": 0.2, "alginate": 0.14, "negative-pressure": 0.1},
         "hypotheses": [
-            {"id": "H1", "alpha": 0.025,
+            {"id": "H1", "alpha": 0.025, "method": "normal approximation, pooled variance",
              "n_per_group": {"negative-pressure": 270, "gauze": 270},
              "n_enrol_per_group": {"negative-pressure": 300, "gauze": 300},
              "achieved_per_group": {"negative-pressure": 198, "gauze": 196},
              "power_at_achieved": 0.6612},
-            {"id": "H3", "alpha": 0.025,
+            {"id": "H3", "alpha": 0.025, "method": "Farrington-Manning score test",
              "n_per_group": {"negative-pressure": 180, "alginate": 180},
              "n_enrol_per_group": {"negative-pressure": 200, "alginate": 200},
              "achieved_per_group": {"negative-pressure": 198, "alginate": 200},
+             "power_at_achieved": None},
+            {"id": "H4", "alpha": 0.025, "method": "the assumed rates lie on the wrong side",
+             "n_per_group": None, "n_enrol_per_group": None, "achieved_per_group": None,
              "power_at_achieved": None},
         ],
     }
@@ -423,18 +427,26 @@ def test_malformed_tipping_grid_names_the_key(change: Any, message: str,
 def test_planned_versus_achieved_rows() -> None:
     page = planned_versus_achieved(extended_results())
     assert page.startswith("<h2>Planned versus achieved</h2>")
-    for label, value in [("Alpha shared out by", "bonferroni split"), ("Target power", "80%"),
-                         ("Dropout allowed for", "10%")]:
+    for label, value in [
+        ("How alpha is shared out", "alpha / m = 0.05 / 2, the Bonferroni split"),
+        ("Target power", "80%"), ("Dropout allowed for", "10%"),
+    ]:
         assert f"<tr><th>{label}</th><td>{value}</td></tr>" in page
     shaded = 'style="background:#f1f1f1;font-style:italic;"'
     assert (f'<tr {shaded}><td>H1</td><td class="num">0.025</td><td>negative-pressure</td>'
-            '<td class="num">270</td><td class="num">300</td><td class="num">198</td>'
-            '<td>72 short</td><td class="num">0.661</td></tr>') in page
-    assert (f'<tr {shaded}><td></td><td class="num"></td><td>gauze</td><td class="num">270</td>'
-            '<td class="num">300</td><td class="num">196</td><td>74 short</td>') in page
+            '<td class="num">0.10</td><td class="num">270</td><td class="num">300</td>'
+            '<td class="num">198</td><td>72 short</td><td class="num">0.661</td></tr>') in page
+    assert (f'<tr {shaded}><td></td><td class="num"></td><td>gauze</td><td class="num">0.20</td>'
+            '<td class="num">270</td><td class="num">300</td><td class="num">196</td>'
+            "<td>74 short</td>") in page
     assert ('<tr><td>H3</td><td class="num">0.025</td><td>negative-pressure</td>'
-            '<td class="num">180</td><td class="num">200</td><td class="num">198</td>'
-            '<td>met</td><td class="num">—</td></tr>') in page
+            '<td class="num">0.10</td><td class="num">180</td><td class="num">200</td>'
+            '<td class="num">198</td><td>met</td><td class="num">—</td></tr>') in page
+    assert ('<tr><td>H4</td><td class="num">0.025</td><td>not sized</td><td class="num">—</td>'
+            '<td class="num">—</td><td class="num">—</td><td class="num">—</td><td>—</td>') in page
+    assert "<tr><td>H1</td><td>normal approximation, pooled variance</td></tr>" in page
+    assert ("<tr><td>H4</td><td>not sized: the assumed rates lie on the wrong side</td></tr>"
+            in page)
     assert "Shaded rows: a group analysed with fewer than the planned n" in page
 
 

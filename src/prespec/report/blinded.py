@@ -20,7 +20,6 @@ from prespec.report.markup import (
     FLAG_ROW_STYLE,
     SOFT_ROW_STYLE,
     esc,
-    fields,
     plural,
     table,
 )
@@ -41,7 +40,9 @@ from prespec.report.values import (
 HYPOTHESIS_LEAKS = ("statistic", "p_value", "p_adjusted", "reject", "estimate", "table",
                     "expected", "strata_tables", "sensitivity", "homogeneity")
 #: Top-level fields a rehearsal must not carry.
-TOP_LEAKS = ("groups", "design")
+TOP_LEAKS = ("groups",)
+#: What a rehearsal's design entries must not carry (their planned sizes are the plan's).
+DESIGN_LEAKS = ("achieved_per_group", "power_at_achieved")
 
 BANNER_TITLE = "Blinded rehearsal — no group-level results"
 BANNER_TEXT = (
@@ -73,6 +74,13 @@ def leaks(results: Mapping[str, Any]) -> list[str]:
     if not is_rehearsal(results):
         return []
     found = [key for key in TOP_LEAKS if results.get(key) is not None]
+    if results.get("design") is not None:
+        design = mapping(results["design"], "design")
+        for n, raw in enumerate(items(design.get("hypotheses"), "design.hypotheses")):
+            entry = mapping(raw, f"design.hypotheses[{n}]")
+            hid = text(entry.get("id"), f"design.hypotheses[{n}].id", default=f"[{n}]")
+            found += [f"design.hypotheses.{hid}.{key}" for key in DESIGN_LEAKS
+                      if entry.get(key) is not None]
     for n, raw in enumerate(items(results.get("hypotheses"), "hypotheses")):
         hyp = mapping(raw, f"hypotheses[{n}]")
         hid = text(hyp.get("id"), f"hypotheses[{n}].id", default=f"[{n}]")
@@ -217,6 +225,7 @@ def data_dictionary(results: Mapping[str, Any]) -> str:
         "them, for the data manager to check against the data specification and sign off. "
         "Values the plan does not map are flagged in red; blanks are shaded.</p>"),
     ]
+    out.append(_scope(dictionary))
     if not columns:
         return "".join(out) + "<p>results.json lists no columns.</p>"
     overview: list[list[str]] = []
@@ -240,12 +249,40 @@ def data_dictionary(results: Mapping[str, Any]) -> str:
     flagged = sum(1 for m in overview_marks.values() if m == FLAG_ROW_STYLE)
     if flagged:
         out.append(f'<div class="prespec-unmapped" style="{DEPARTURE_STYLE}">'
-                   f"{esc(plural(flagged, 'column'))} hold values that the plan does not "
-                   "map; they are listed in red below.</div>")
-    out += details
+                   f"{esc(plural(flagged, 'column'))} {'holds' if flagged == 1 else 'hold'} "
+                   "values that the plan does not map; they are listed in red below.</div>")
+    out.append('<div class="prespec-columns">' + "".join(details) + "</div>")
     out.append("<h3>Checked against the data specification</h3>")
-    out.append(fields([("Name", ""), ("Role", ""), ("Date", ""), ("Signature", "")]))
+    out.append(_SIGN_OFF)
     return "".join(out)
+
+
+_CARD_STYLE = "display:inline-block;vertical-align:top;margin:0 2.2em 0.8em 0;max-width:30em;"
+_SIGN_OFF = (
+    '<table class="prespec prespec-fields prespec-sign-off"><tbody>'
+    + "".join(f'<tr><th>{label}</th><td style="min-width:24em;height:1.8em"></td></tr>'
+              for label in ("Name", "Role", "Date", "Signature"))
+    + "</tbody></table>"
+)
+
+
+def _scope(dictionary: Mapping[str, Any]) -> str:
+    """What the counts are over, and the group column that a rehearsal does not read."""
+    words = []
+    rows = number(dictionary.get("rows"), "data_dictionary.rows")
+    over = text(dictionary.get("counted_over"), "data_dictionary.counted_over", default="")
+    if over or rows is not None:
+        shown = f" ({fmt_thousands(rows)} rows)" if rows is not None else ""
+        words.append(f"Counted over {over or 'the rows read'}{shown}.")
+    if dictionary.get("group_column") is not None:
+        group = mapping(dictionary["group_column"], "data_dictionary.group_column")
+        name = text(group.get("column"), "data_dictionary.group_column.column", default=NULL)
+        read = group.get("read")
+        if read is False:
+            words.append(f"The group column {name} is not read, so it is not counted.")
+        else:
+            words.append(f"The group column is {name}.")
+    return f"<p>{esc(' '.join(words))}</p>" if words else ""
 
 
 def _column_detail(column: Mapping[str, Any], at: str, name: str, roles: str,
@@ -257,17 +294,23 @@ def _column_detail(column: Mapping[str, Any], at: str, name: str, roles: str,
     if column.get("duplicates") is not None:
         facts.append(f"{fmt_thousands(number(column.get('duplicates'), f'{at}.duplicates'))} "
                      "duplicated")
-    parts = [f'<h3 class="prespec-column">Column {esc(name)}</h3>',
-             f"<p>{esc('; '.join(facts))}.</p>"]
+    line = "; ".join(facts)
+    parts = [f'<div class="prespec-column-card" style="{_CARD_STYLE}">',
+             f'<h4 class="prespec-column">Column {esc(name)}</h4>',
+             f'<p style="margin:0.2em 0 0.4em">{esc(line[:1].upper() + line[1:])}.</p>']
     if rows:
         parts.append(table(["Value", "Rows", "Meaning"], rows, numeric=(1,),
                            cls="prespec-values", row_styles=marks))
         more = number(column.get("more"), f"{at}.more")
         if more:
-            words = f"… and {fmt_thousands(more)} more values, not listed (a list stops at 50)."
+            rows_more = number(column.get("more_count"), f"{at}.more_count")
+            held = f" in {fmt_thousands(rows_more)} rows" if rows_more is not None else ""
+            words = (f"… and {fmt_thousands(more)} more values{held}, not listed "
+                     "(a list stops at 50).")
             parts.append(f"<p>{esc(words)}</p>")
     elif column.get("duplicates") is not None or "(data.id)" in roles:
-        parts.append("<p>The values of an id column are not listed.</p>")
+        parts.append("<p>The ids themselves are not listed.</p>")
     else:
         parts.append("<p>No values are listed.</p>")
+    parts.append("</div>")
     return "".join(parts)

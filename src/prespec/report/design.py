@@ -16,6 +16,7 @@ from typing import Any
 from prespec.report.markup import SOFT_ROW_STYLE, esc, fields, table
 from prespec.report.values import (
     NULL,
+    fmt_rate,
     fmt_thousands,
     fmt_weight,
     items,
@@ -50,6 +51,8 @@ def design_rows(design: Mapping[str, Any]) -> tuple[list[list[str]], dict[int, s
     """One row per hypothesis and group, and the rows to mark (achieved below planned)."""
     rows: list[list[str]] = []
     marks: dict[int, str] = {}
+    assumed = {str(g): number(r, f"design.assumed.{g}")
+               for g, r in mapping(design.get("assumed") or {}, "design.assumed").items()}
     for k, raw in enumerate(items(design.get("hypotheses"), "design.hypotheses")):
         at = f"design.hypotheses[{k}]"
         entry = mapping(raw, at)
@@ -61,7 +64,7 @@ def design_rows(design: Mapping[str, Any]) -> tuple[list[list[str]], dict[int, s
         enrol = _sizes(entry, "n_enrol_per_group", at)
         achieved = _sizes(entry, "achieved_per_group", at)
         groups = list(dict.fromkeys([*planned, *enrol, *achieved]))
-        for n, group in enumerate(groups or [NULL]):
+        for n, group in enumerate(groups or ["not sized"]):
             against, short = _against(planned.get(group), achieved.get(group))
             if short:
                 marks[len(rows)] = SOFT_ROW_STYLE
@@ -69,6 +72,7 @@ def design_rows(design: Mapping[str, Any]) -> tuple[list[list[str]], dict[int, s
                 hid if n == 0 else "",
                 alpha if n == 0 else "",
                 group,
+                fmt_rate(assumed.get(group)),
                 fmt_thousands(planned.get(group)),
                 fmt_thousands(enrol.get(group)),
                 fmt_thousands(achieved.get(group)),
@@ -93,11 +97,12 @@ def planned_versus_achieved(results: Mapping[str, Any]) -> str:
         return ""
     design = mapping(results["design"], "design")
     settings = [
-        ("Alpha shared out by", text(design.get("rule"), "design.rule", default=NULL)),
+        ("How alpha is shared out", text(design.get("rule"), "design.rule", default=NULL)),
         ("Target power", _percent(number(design.get("power"), "design.power"))),
         ("Dropout allowed for", _percent(number(design.get("dropout"), "design.dropout"))),
     ]
     rows, marks = design_rows(design)
+    methods = method_rows(design)
     out = [
         "<h2>Planned versus achieved</h2>",
         f"<p>{esc(_INTRO)}</p>",
@@ -105,13 +110,29 @@ def planned_versus_achieved(results: Mapping[str, Any]) -> str:
     ]
     if rows:
         out.append(table(
-            ["Hypothesis", "Alpha sized at", "Group", "Planned n (before dropout)",
-             "To enrol (after dropout)", "Achieved (analysed)", "Against the plan",
-             "Power at the achieved n"],
-            rows, numeric=(1, 3, 4, 5, 7), cls="prespec-design", row_styles=marks,
+            ["Hypothesis", "Alpha sized at", "Group", "Assumed rate",
+             "Planned n (before dropout)", "To enrol (after dropout)", "Achieved (analysed)",
+             "Against the plan", "Power at the achieved n"],
+            rows, numeric=(1, 3, 4, 5, 6, 8), cls="prespec-design", row_styles=marks,
         ))
         if marks:
             out.append(f"<p>{esc(_SHADED)}</p>")
     else:
         out.append("<p>results.json gives no sizes for the hypotheses.</p>")
+    if methods:
+        out.append(table(["Hypothesis", "Sized by"], methods, cls="prespec-sized-by"))
     return "".join(out)
+
+
+def method_rows(design: Mapping[str, Any]) -> list[list[str]]:
+    """(hypothesis, the sizing method in words) for each hypothesis that names one."""
+    rows = []
+    for k, raw in enumerate(items(design.get("hypotheses"), "design.hypotheses")):
+        entry = mapping(raw, f"design.hypotheses[{k}]")
+        hid = text(entry.get("id"), f"design.hypotheses[{k}].id")
+        method = text(entry.get("method"), f"design.hypotheses.{hid}.method", default="")
+        if entry.get("n_per_group") is None:
+            method = f"not sized{': ' + method if method else ''}"
+        if method:
+            rows.append([hid, method])
+    return rows

@@ -424,9 +424,12 @@ def rehearsal_hypotheses(results: Mapping[str, Any]) -> str:
         if executed is False:
             marks[len(body)] = FLAG_ROW_STYLE
             failed.append(hid)
+        title = text(hyp.get("title"), f"{where}.title", default=NULL)
+        if hyp.get("parent") is not None:
+            title += f" (follow-up of {text(hyp['parent'], f'{where}.parent')})"
         body.append([
             hid,
-            text(hyp.get("title"), f"{where}.title", default=NULL),
+            title,
             text(hyp.get("role"), f"{where}.role", default=NULL),
             text(hyp.get("outcome"), f"{where}.outcome", default=NULL),
             _compare_label(hyp, where),

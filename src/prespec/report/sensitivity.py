@@ -171,13 +171,26 @@ def boundary_sentence(grid: TippingGrid) -> str:
     return "Where the decision first changes along each row: " + "; ".join(shown) + "."
 
 
+def _cell_notes(grid: TippingGrid) -> str:
+    """How many cells had no p-value, or were tested by the sparse-data switch, or ``""``."""
+    words = []
+    if grid.cells_not_computable:
+        words.append(f"{plural(grid.cells_not_computable, 'combination')} had no computable "
+                     "p-value and decide nothing (white in the figure).")
+    if grid.cells_switched:
+        words.append(f"In {plural(grid.cells_switched, 'combination')} the pre-specified "
+                     "sparse-data rule switched to its other test.")
+    return " ".join(words)
+
+
 def tipping_block(grid: TippingGrid) -> tuple[str, list[Figure]]:
     """The tipping-point sentences and, when any outcome is missing, its figure."""
     if not drawn(grid):
         line = (f"Tipping point: no outcome of {grid.groups[0]} or {grid.groups[1]} is "
                 "missing, so there is nothing to complete and the conclusion cannot change.")
         return f'<p class="prespec-tipping">{esc(line)}</p>', []
-    words = [tipping_sentence(grid), observed_sentence(grid), boundary_sentence(grid)]
+    words = [tipping_sentence(grid), observed_sentence(grid), boundary_sentence(grid),
+             _cell_notes(grid)]
     shown = " ".join(w for w in words if w)
     alt = (f"Tipping-point grid of {grid.hid}: the decision for each number of events among "
            f"the missing outcomes of {grid.groups[0]} and {grid.groups[1]}; primary decision: "

@@ -63,6 +63,8 @@ class TippingGrid:
     primary_rejects: bool | None
     cells_changing: int | None
     boundary: tuple[tuple[int, int | None], ...]
+    cells_not_computable: int | None = None
+    cells_switched: int | None = None
 
     @property
     def cells(self) -> int:
@@ -157,7 +159,14 @@ def read_grid(entry: Mapping[str, Any], where: str, hid: str) -> TippingGrid:
         primary_rejects=_flag(entry.get("primary_rejects"), f"{where}.primary_rejects"),
         cells_changing=None if changing is None else _whole(changing, f"{where}.cells_changing"),
         boundary=tuple(boundary),
+        cells_not_computable=_count(entry, "cells_not_computable", where),
+        cells_switched=_count(entry, "cells_switched", where),
     )
+
+
+def _count(entry: Mapping[str, Any], key: str, where: str) -> int | None:
+    value = entry.get(key)
+    return None if value is None else _whole(value, f"{where}.{key}")
 
 
 def is_rehearsal(results: Mapping[str, Any]) -> bool:
