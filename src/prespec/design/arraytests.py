@@ -22,13 +22,25 @@ from prespec.design.exactpower import FisherTables, binomial_p_values
 ArrayTest = Callable[[np.ndarray], np.ndarray]
 
 
+def by_value(fn: Callable[[np.ndarray], np.ndarray], values: np.ndarray) -> np.ndarray:
+    """``fn`` computed once per distinct value: count tables of fixed totals take few distinct
+    statistics, and a distribution function is the costly step."""
+    unique, inverse = np.unique(values, return_inverse=True)
+    return np.asarray(fn(unique), dtype=float)[inverse.reshape(np.shape(values))]
+
+
+def chi2_p(x2: np.ndarray, df: int) -> np.ndarray:
+    """The upper tail of chi-square with ``df`` df (scipy.stats.chi2.sf), per distinct value."""
+    return by_value(lambda u: stats.chi2.sf(u, df), x2)
+
+
 def normal_p(z: np.ndarray, alternative: str) -> np.ndarray:
     """``stats._normal.normal_p_value`` on an array (nan stays nan)."""
     if alternative == "greater":
-        return stats.norm.sf(z)
+        return by_value(stats.norm.sf, z)
     if alternative == "less":
-        return stats.norm.cdf(z)
-    return np.minimum(1.0, 2.0 * stats.norm.sf(np.abs(z)))
+        return by_value(stats.norm.cdf, z)
+    return np.minimum(1.0, 2.0 * by_value(stats.norm.sf, np.abs(z)))
 
 
 def expected_events(events: np.ndarray, totals: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -66,7 +78,7 @@ def pearson(events: np.ndarray, totals: np.ndarray, *, continuity: bool,
     x2 = terms.reshape(terms.shape[0], -1).sum(axis=1)
     k = totals.size
     if alternative == "two-sided":
-        p = stats.chi2.sf(x2, k - 1)
+        p = chi2_p(x2, k - 1)
     else:
         sign = np.sign(events[:, 0] * totals[1] - events[:, 1] * totals[0]).astype(float)
         p = normal_p(sign * np.sqrt(x2), alternative)
@@ -82,7 +94,7 @@ def likelihood_ratio(events: np.ndarray, totals: np.ndarray) -> np.ndarray:
         t_ev = np.where(o_ev > 0, o_ev * np.log(o_ev / e_ev), 0.0)
         t_non = np.where(o_non > 0, o_non * np.log(o_non / e_non), 0.0)
     g2 = np.maximum(0.0, 2.0 * np.stack([t_ev, t_non], axis=2).reshape(len(events), -1).sum(1))
-    return np.where(undefined, np.nan, stats.chi2.sf(g2, totals.size - 1))
+    return np.where(undefined, np.nan, chi2_p(g2, totals.size - 1))
 
 
 def two_proportion_z(events: np.ndarray, totals: np.ndarray, alternative: str) -> np.ndarray:
