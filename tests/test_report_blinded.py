@@ -83,7 +83,9 @@ def blinded_results() -> dict[str, Any]:
                             {"value": "2", "count": 9, "meaning": "unmapped"},
                             {"value": None, "count": 20, "meaning": "blank"}],
                  "more": 0, "more_count": 0},
-                {"column": "ward", "role": "hypotheses.H1.strata", "distinct": 62, "blank": 0,
+                {"column": "ward", "distinct": 62, "blank": 0,
+                 "role": ("hypotheses.H1.strata, "
+                          "hypotheses.H2:a-vs-b.estimand.intercurrent[1].column"),
                  "values": values, "more": 12, "more_count": 12},
                 {"column": "died", "role": "hypotheses.H1.estimand.intercurrent[1].column",
                  "distinct": 2, "blank": 0,
@@ -247,14 +249,14 @@ def test_data_dictionary_overview_and_columns() -> None:
     assert "Counted over all rows read (612 rows)." in page
     assert "The group column arm is not read, so it is not counted." in page
     flagged = 'style="background:#fde2e2;font-weight:600;"'
-    assert (f'<tr {flagged}><td>infected_30d</td><td>outcome “infection” '
-            '(outcomes.infection.column)</td><td class="num">3</td><td class="num">20</td>'
+    assert (f'<tr {flagged}><td>infected_30d</td><td>outcome “infection”</td>'
+            '<td class="num">3</td><td class="num">20</td>'
             '<td class="num">9</td></tr>') in page
     assert (f'<tr {flagged}><td>2</td><td class="num">9</td>'
             "<td>UNMAPPED: neither event nor no event</td></tr>") in page
     assert ('<tr style="background:#f1f1f1;font-style:italic;"><td>(blank)</td>'
             '<td class="num">20</td><td>blank</td></tr>') in page
-    assert ('<tr><td>participant</td><td>unit id (data.id)</td><td class="num">612</td>'
+    assert ('<tr><td>participant</td><td>unit id</td><td class="num">612</td>'
             '<td class="num">0</td><td class="num">—</td></tr>') in page
     assert "Used for unit id (data.id); 612 distinct values; 0 blank; 0 duplicated." in page
     assert "The ids themselves are not listed." in page
@@ -262,7 +264,9 @@ def test_data_dictionary_overview_and_columns() -> None:
     assert page.count("<td>ward-") == 50
     assert "<td>“ no”</td>" in page  # a value with padding is quoted
     assert "<td>the intercurrent event happened</td>" in page
-    assert "<td>strata of H1 (hypotheses.H1.strata)</td>" in page
+    assert "<td>strata of H1; intercurrent event 1 of H2:a-vs-b</td>" in page  # overview
+    assert ("Used for strata of H1 (hypotheses.H1.strata); intercurrent event 1 of H2:a-vs-b "
+            "(hypotheses.H2:a-vs-b.estimand.intercurrent[1].column); 62 distinct") in page
     assert "Checked against the data specification" in page and "<th>Signature</th>" in page
 
 

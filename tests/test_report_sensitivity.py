@@ -190,10 +190,7 @@ def test_estimand_block_states_it_in_words_with_its_intercurrent_events() -> Non
     block = estimand_block(_h(extended_results(), "H1"), "hypotheses.H1")
     assert block.startswith('<div class="prespec-estimand"')
     assert f"<strong>Estimand.</strong> {html.escape(H1_TEXT)}</p>" in block
-    for label, value in [("Population", "adults with a surgical wound who consented"),
-                         ("Variable", "wound infection within 30 days"),
-                         ("Summary measure", "risk difference")]:
-        assert f"<tr><th>{label}</th><td>{value}</td></tr>" in block
+    assert "<th>Population</th>" not in block  # the statement names the attributes
     assert ("<tr><td>dressing changed early</td><td>changed_early</td><td>treatment policy</td>"
             "<td>the outcome is used as observed, whether or not the event happened</td>"
             '<td class="num">17</td></tr>') in block
@@ -219,6 +216,8 @@ def test_estimand_without_text_or_events_says_so() -> None:
                                     "intercurrent": [], "summary": None, "text": None}}
     block = estimand_block(hyp, "hypotheses.H1")
     assert "results.json gives no statement of the estimand." in block
+    assert "<tr><th>Population</th><td>—</td></tr>" in block
+    assert "<tr><th>Variable</th><td>infection</td></tr>" in block
     assert "<tr><th>Summary measure</th><td>—</td></tr>" in block
     assert "No intercurrent events are named." in block
 
@@ -432,7 +431,7 @@ def test_planned_versus_achieved_rows() -> None:
         ("Target power", "80%"), ("Dropout allowed for", "10%"),
     ]:
         assert f"<tr><th>{label}</th><td>{value}</td></tr>" in page
-    shaded = 'style="background:#f1f1f1;font-style:italic;"'
+    shaded = 'style="background:#fff1d6;"'
     assert (f'<tr {shaded}><td>H1</td><td class="num">0.025</td><td>negative-pressure</td>'
             '<td class="num">0.10</td><td class="num">270</td><td class="num">300</td>'
             '<td class="num">198</td><td>72 short</td><td class="num">0.661</td></tr>') in page

@@ -144,30 +144,39 @@ _ROLE_PATTERNS: list[tuple[re.Pattern[str], str]] = [
     (re.compile(r"data\.group"), "group"),
     (re.compile(r"data\.include\[(\d+)\]"), "population filter {0}"),
     (re.compile(r"outcomes\.(.+)\.column"), "outcome “{0}”"),
-    (re.compile(r"hypotheses\.(.+)\.strata"), "strata of {0}"),
-    (re.compile(r"hypotheses\.(.+)\.estimand\.intercurrent\[(\d+)\]\.column"),
+    (re.compile(r"hypotheses\.(.+?)\.strata"), "strata of {0}"),
+    (re.compile(r"hypotheses\.(.+?)\.estimand\.intercurrent\[(\d+)\]\.column"),
      "intercurrent event {1} of {0}"),
-    (re.compile(r"hypotheses\.(.+)\.estimand\.intercurrent\[(\d+)\]\.outcome_column"),
+    (re.compile(r"hypotheses\.(.+?)\.estimand\.intercurrent\[(\d+)\]\.outcome_column"),
      "outcome while on treatment, event {1} of {0}"),
 ]
 
 
-def role_label(role: str) -> str:
-    """A role path in words, then the path: ``outcome “infection” (outcomes.infection.column)``."""
+def role_words(role: str) -> str:
+    """A role path in words: ``outcomes.infection.column`` -> ``outcome “infection”``."""
     for pattern, words in _ROLE_PATTERNS:
         match = pattern.fullmatch(role)
         if match:
-            return f"{words.format(*match.groups())} ({role})"
+            return words.format(*match.groups())
     return role
 
 
-def _roles(column: Mapping[str, Any], where: str) -> str:
+def role_label(role: str) -> str:
+    """A role path in words, then the path: ``outcome “infection” (outcomes.infection.column)``."""
+    words = role_words(role)
+    return role if words == role else f"{words} ({role})"
+
+
+def _role_list(column: Mapping[str, Any], where: str) -> list[str]:
+    """The roles of a column: a list, or one text of roles joined by ``, ``."""
     raw = column.get("role")
     if isinstance(raw, list):
-        roles = [text(r, f"{where}.role[{k}]") for k, r in enumerate(raw)]
-    else:
-        roles = [text(raw, f"{where}.role", default=NULL)]
-    return "; ".join(role_label(r) for r in roles)
+        return [text(r, f"{where}.role[{k}]") for k, r in enumerate(raw)]
+    return [r.strip() for r in text(raw, f"{where}.role", default=NULL).split(", ") if r.strip()]
+
+
+def _roles(column: Mapping[str, Any], where: str) -> str:
+    return "; ".join(role_label(r) for r in _role_list(column, where))
 
 
 def shown_value(value: object, where: str) -> str:
@@ -240,7 +249,8 @@ def data_dictionary(results: Mapping[str, Any]) -> str:
         rows, marks, unmapped = _value_rows(column, at)
         if unmapped:
             overview_marks[len(overview)] = FLAG_ROW_STYLE
-        overview.append([name, roles, fmt_thousands(distinct), fmt_thousands(blank),
+        overview.append([name, "; ".join(role_words(r) for r in _role_list(column, at)),
+                         fmt_thousands(distinct), fmt_thousands(blank),
                          fmt_thousands(unmapped) if rows else NULL])
         details.append(_column_detail(column, at, name, roles, rows, marks))
     out.append(table(["Column", "Used for", "Distinct values", "Blank", "Unmapped (rows)"],

@@ -13,7 +13,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from prespec.report.markup import SOFT_ROW_STYLE, esc, fields, table
+from prespec.report.markup import SHORT_ROW_STYLE, esc, fields, table
 from prespec.report.values import (
     NULL,
     fmt_rate,
@@ -67,7 +67,7 @@ def design_rows(design: Mapping[str, Any]) -> tuple[list[list[str]], dict[int, s
         for n, group in enumerate(groups or ["not sized"]):
             against, short = _against(planned.get(group), achieved.get(group))
             if short:
-                marks[len(rows)] = SOFT_ROW_STYLE
+                marks[len(rows)] = SHORT_ROW_STYLE
             rows.append([
                 hid if n == 0 else "",
                 alpha if n == 0 else "",

@@ -84,8 +84,9 @@ def estimand_block(hyp: Mapping[str, Any], where: str) -> str:
         "<p><strong>Estimand.</strong> "
         + (esc(words) if words else "results.json gives no statement of the estimand.")
         + "</p>",
-        fields(attributes),
     ]
+    if not words:  # the statement names the attributes; without it, list them
+        parts.append(fields(attributes))
     rows = intercurrent_rows(est, at)
     if rows:
         parts.append(table(

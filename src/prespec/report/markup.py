@@ -31,6 +31,8 @@ FOLLOWUP_STYLE = "margin:0.4em 0 1.2em 1.4em;padding-left:1em;border-left:3px so
 FLAG_ROW_STYLE = "background:#fde2e2;font-weight:600;"
 #: A table row worth a glance (a blank value).
 SOFT_ROW_STYLE = "background:#f1f1f1;font-style:italic;"
+#: A table row that falls short of the plan (a group analysed with fewer than planned).
+SHORT_ROW_STYLE = "background:#fff1d6;"
 
 
 def esc(value: object) -> str:

@@ -52,7 +52,7 @@ body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
   border: 1px solid #c8c8c8; padding: 0.25em 0.7em; text-align: left; vertical-align: top;
 }
 .jp-RenderedHTMLCommon table.prespec td.num {
-  text-align: right; font-variant-numeric: tabular-nums;
+  text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap;
 }
 .jp-RenderedHTMLCommon table.prespec thead th { background: #ececec; }
 .jp-RenderedHTMLCommon table.prespec tbody tr:nth-child(odd) { background: #fafafa; }

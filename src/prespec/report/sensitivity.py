@@ -155,7 +155,8 @@ def observed_sentence(grid: TippingGrid) -> str:
 
 def boundary_sentence(grid: TippingGrid) -> str:
     """For a small grid, where along each row the decision first changes, or ``""``."""
-    if not grid.boundary or grid.missing[0] + 1 > _LISTED_ROWS:
+    if (not grid.boundary or grid.missing[0] + 1 > _LISTED_ROWS
+            or all(j is None for _, j in grid.boundary)):
         return ""
     runs: list[tuple[int, int, int | None]] = []  # (first i, last i, j), rows run together
     for i, j in grid.boundary:

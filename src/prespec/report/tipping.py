@@ -223,7 +223,7 @@ class TippingJob:
             dtype=float,
         )
         rows, cols = m1 + 1, m2 + 1
-        fig = new_figure(3.4 + min(3.8, 3.8 * rows / cols))
+        fig = new_figure(3.0 + min(3.4, 3.4 * rows / cols))
         ax = fig.add_subplot()
         cmap = ListedColormap([KEEP_COLOUR, REJECT_COLOUR, NONE_COLOUR])
         ax.imshow(codes, cmap=cmap, vmin=0, vmax=2, origin="lower", aspect="auto",
