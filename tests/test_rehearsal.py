@@ -67,6 +67,15 @@ def trial_rows() -> list[dict[str, str]]:
              "infected": outcome[i]} for i in range(50)]
 
 
+WRITE_FIGURES = prespec.report.write_figures
+
+
+@pytest.fixture(autouse=True)
+def no_figures(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Figures take a second a report; the tests that need them put them back."""
+    monkeypatch.setattr(prespec.report, "write_figures", lambda results, folder: [])
+
+
 @pytest.fixture
 def renders(monkeypatch: pytest.MonkeyPatch) -> list[dict[str, Any]]:
     """Replace the notebook with a no-op that records the results.json of each folder."""
@@ -211,7 +220,9 @@ def test_the_group_column_is_never_read(tmp_path: Path, renders: list[dict[str, 
 
 
 def test_rehearsal_tables_are_the_pooled_table_and_the_dictionary(
-        study: tuple[Path, Path], renders: list[dict[str, Any]]) -> None:
+        study: tuple[Path, Path], renders: list[dict[str, Any]],
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(prespec.report, "write_figures", WRITE_FIGURES)
     plan, data = study
     folder = api.rehearse(plan, data, out=plan.parent / "r").folder
     assert sorted(p.name for p in (folder / "tables").iterdir()) == ["data-dictionary.csv",

@@ -205,7 +205,8 @@ def pooled_numbers(blocks: list[Block], plan_text: str) -> set[int]:
             values[value] += b.count
         shown |= set(values.values())
     shown |= {int(n) for n in re.findall(r"\b\d{3,}\b", plan_text)}
-    return shown
+    # a pooled 1,137 holds 137 as written with a thousands separator
+    return shown | {int(part) for n in shown for part in f"{n:,}".split(",")}
 
 
 def style_numbers(html: str) -> set[int]:
@@ -221,9 +222,13 @@ def forms_of_rate(rate: float) -> set[str]:
 
 
 def found_number(number: int, text: str) -> bool:
-    """The integer standing alone: not inside a longer number, a decimal, a word or a hash."""
-    pattern = rf"(?<![0-9A-Za-z])(?<![0-9]\.){number}(?![0-9A-Za-z])(?!\.[0-9])"
-    return re.search(pattern, text) is not None
+    """The integer standing alone (not inside a longer number, a decimal, a word or a hash),
+    as written or with thousands separators (``1,025``)."""
+    for shown in {str(number), f"{number:,}"}:
+        pattern = rf"(?<![0-9A-Za-z])(?<![0-9]\.){shown}(?![0-9A-Za-z])(?!\.[0-9])"
+        if re.search(pattern, text) is not None:
+            return True
+    return False
 
 
 def found_form(form: str, text: str) -> bool:
@@ -362,6 +367,7 @@ def test_no_group_level_figure_is_written_printed_or_logged(
     assert found_number(analysed, places["report.html"])
     assert done.results["kind"] == "rehearsal" and done.results["blinded"] is True
     assert "groups" not in done.results
+    assert not (done.folder / "figures").exists()  # no proportions per group, no estimates
     assert done.entry["action"] == "rehearse"
     assert done.entry["details"]["report"] == done.folder.relative_to(done.study).as_posix()
     assert "Blinded rehearsal" in places["report.html"]
@@ -418,3 +424,4 @@ def test_the_search_finds_the_figures_of_a_run(tmp_path: Path,
                for r in (137 / 412, 106 / 397))
     assert not found_number(137, "sha256:9f137ab 2027-01-15T10:13:37Z 0.137 1137 137.5")
     assert found_number(137, "events: 137.") and found_form("0.3325", "(0.3325, 0.4)")
+    assert found_number(1025, "analysed 1,025") and found_number(1025, "1025,7")
