@@ -2,7 +2,9 @@
 
 This module knows the plan's vocabulary and the order of the decisions (sparse switch, test,
 estimate, multiplicity, gatekeeping); ``methods.py`` maps names to the pure functions of
-``stats``. It neither reads files nor writes anything.
+``stats``. Beside each result it writes the estimand in words and the pre-specified
+sensitivity analyses of missing outcomes (``sensitivity.py``), which never replace it. It
+neither reads files nor writes anything.
 """
 
 from __future__ import annotations
