@@ -200,8 +200,8 @@ def test_trend_with_two_groups_is_the_two_proportion_formula() -> None:
 
 def test_trend_power_is_close_to_the_exact_power_of_the_test() -> None:
     # the real Cochran–Armitage test's rejection region over all 3-group tables, weighted by
-    # scipy.stats.binom probabilities (an approximation: agreement to 0.02 at 60 per group)
-    n, rates = 60, [0.10, 0.18, 0.30]
+    # scipy.stats.binom probabilities (an approximation: agreement to 0.02 at 40 per group)
+    n, rates = 40, [0.10, 0.20, 0.35]
     approx = samplesize.trend_power(rates, [n] * 3, [0, 1, 2], 0.025)
     pmf = [stats.binom.pmf(np.arange(n + 1), n, p) for p in rates]
     grid = np.stack(np.meshgrid(*[np.arange(n + 1)] * 3, indexing="ij"), axis=-1).reshape(-1, 3)
@@ -246,13 +246,13 @@ def test_fisher_size_is_the_smallest_n_by_a_scan_with_scipy() -> None:
     # the first n from 2 up whose exact power (scipy.stats.fisher_exact enumerated) reaches
     # 0.8; the search starts near the corrected normal size and must land on the same n
     def power(n: int) -> float:
-        return sum(stats.binom.pmf(a, n, 0.7) * stats.binom.pmf(b, n, 0.2)
+        return sum(stats.binom.pmf(a, n, 0.8) * stats.binom.pmf(b, n, 0.2)
                    for a in range(n + 1) for b in range(n + 1)
                    if stats.fisher_exact([[a, n - a], [b, n - b]]).pvalue <= 0.05)
 
     first = next(n for n in range(2, 60) if power(n) >= 0.8)
-    guess = samplesize.two_proportion_n(0.7, 0.2, 0.025, 0.8, continuity=True).n[0]
-    got = exactpower.fisher_n(0.7, 0.2, 0.05, 0.8, "two-sided", guess=guess)
+    guess = samplesize.two_proportion_n(0.8, 0.2, 0.025, 0.8, continuity=True).n[0]
+    got = exactpower.fisher_n(0.8, 0.2, 0.05, 0.8, "two-sided", guess=guess)
     assert got.n == (first, first)
     assert got.power == pytest.approx(power(first), abs=1e-11)
 
