@@ -241,3 +241,36 @@ def test_the_binomial_mean_outcome_has_p_one() -> None:
     # scipy.stats.binomtest: an outcome at the mean n·p0 has two-sided p = 1
     assert exactpower.binomial_p_values(20, 0.5, "two-sided")[10] == 1.0
     assert stats.binomtest(10, 20, 0.5).pvalue == 1.0
+
+
+def test_the_saw_tooth_is_said_in_the_notes(tmp_path: Path) -> None:
+    body = """\
+hypotheses:
+  - {id: B, outcome: infection, compare: [foam], test: binomial-exact, null_rate: 0.2,
+     alternative: less}
+"""
+    design = DESIGN.replace("foam: 0.05", "foam: 0.10")
+    plan = plan_of(tmp_path, "multiplicity: none\n", design=design, body=body)
+    (b,), _ = size_plan(plan)
+    found = exactpower.binomial_n(0.10, 0.20, 0.05, 0.8, "less")
+    assert b.n_per_group == {"foam": found.n[0]}
+    assert found.dips  # this case is saw-toothed (scipy.stats.binomtest agrees: see reference)
+    below = [exactpower.binomial_power(0.10, 0.20, k, 0.05, "less") < 0.8
+             for k in range(found.n[0] + 1, found.checked_to + 1)]
+    assert tuple(k for k, low in zip(range(found.n[0] + 1, found.checked_to + 1), below,
+                                     strict=True) if low) == found.dips
+    assert b.notes[-1] == (
+        f"exact power searched from n = 1; n = {found.n[0]} is the first to reach the target; "
+        f"it falls below the target again at n = {', '.join(map(str, found.dips[:8]))}"
+        f"{' …' if len(found.dips) > 8 else ''} and stays at or above it from n = "
+        f"{found.dips[-1] + 1} to {found.checked_to}, the largest checked (exact power is "
+        "saw-toothed in n)")
+
+
+def test_a_large_binomial_search_starting_near_half_the_normal_size_finds_the_same_n() -> None:
+    guess = samplesize.one_proportion_n(0.35, 0.30, 0.025, 0.8).n[0]
+    assert guess > 400
+    near = exactpower.binomial_n(0.35, 0.30, 0.05, 0.8, "two-sided", guess=guess, check=0)
+    scanned = exactpower.binomial_n(0.35, 0.30, 0.05, 0.8, "two-sided", check=0)
+    assert near.start > 1 and scanned.start == 1
+    assert near.n == scanned.n

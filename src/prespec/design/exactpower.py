@@ -75,7 +75,7 @@ class FisherTables:
     of totals seen so far are kept (at most ``keep`` values) for later calls.
     """
 
-    def __init__(self, n1: int, n2: int, alternative: str, keep: int = 20_000_000) -> None:
+    def __init__(self, n1: int, n2: int, alternative: str, keep: int = 2_000_000) -> None:
         self.n1, self.n2, self.alternative = n1, n2, alternative
         self._rows: dict[int, tuple[int, np.ndarray]] = {}
         self._kept, self._keep = 0, keep
@@ -203,15 +203,30 @@ def fisher_n(p1: float, p2: float, level: float, target: float, alternative: str
 
 
 def binomial_n(p: float, null_rate: float, level: float, target: float, alternative: str, *,
-               check: int | None = None) -> ExactSize:
-    """The smallest n whose exact binomial power reaches the target, scanning from n = 1; then
-    ``check`` (default: a fifth of n, at least 10) larger sizes for dips."""
+               check: int | None = None, guess: int | None = None) -> ExactSize:
+    """The smallest n whose exact binomial power reaches the target, scanning from n = 1 (from
+    a size below the target near half of ``guess``, the normal approximation, when that is
+    above 400); then ``check`` (default: a fifth of n, at least 10) larger sizes for dips."""
 
     def power_at(m: int) -> float:
         return binomial_power(p, null_rate, m, level, alternative)
 
-    found = _scan(power_at, target, 1, 0)
+    start = 1 if guess is None or guess <= 400 else _start_below(power_at, target, guess // 2)
+    found = _scan(power_at, target, start, 0)
     more = check if check is not None else max(10, found.n[0] // 5)
     dips = tuple(k for k in range(found.n[0] + 1, found.n[0] + more + 1)
                  if power_at(k) < target)
-    return ExactSize(found.n, found.power, dips, found.n[0] + more, 1)
+    return ExactSize(found.n, found.power, dips, found.n[0] + more, start)
+
+
+def saw_tooth(found: ExactSize) -> str:
+    """The exact search in words: where it started, and the dips above the size found."""
+    where = "from n = 1" if found.start == 1 else \
+        f"upward from n = {found.start}, where the power is below the target"
+    text = f"exact power searched {where}; n = {found.n[0]} is the first to reach the target"
+    if found.dips:
+        shown = ", ".join(map(str, found.dips[:8])) + (" …" if len(found.dips) > 8 else "")
+        return (text + f"; it falls below the target again at n = {shown} and stays at or "
+                f"above it from n = {found.dips[-1] + 1} to {found.checked_to}, the largest "
+                "checked (exact power is saw-toothed in n)")
+    return text + f"; no larger n up to {found.checked_to} falls below it"

@@ -111,7 +111,7 @@ class HypothesisDesign:
 @dataclass(frozen=True)
 class _Method:
     text: str
-    size: Callable[[], tuple[int, ...]]
+    size: Callable[[], tuple[int, ...] | exactpower.ExactSize]
     power: Callable[[tuple[int, ...]], float]
     notes: tuple[str, ...] = ()
 
@@ -163,11 +163,11 @@ def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: f
                                               measure=hyp.measure, alternative=hyp.alternative,
                                               score=score))
     if hyp.test == "fisher-exact":
-        def fisher_size() -> tuple[int, ...]:
+        def fisher_size() -> exactpower.ExactSize:
             guess = samplesize.two_proportion_n(p1, p2, side, design.power, ratio=ratio,
                                                 continuity=True).n[0]
             return exactpower.fisher_n(p1, p2, alpha, design.power, hyp.alternative,
-                                       ratio=ratio, guess=guess).n
+                                       ratio=ratio, guess=guess)
 
         return _Method(
             "exact power of Fisher's exact test by enumeration; the smallest n whose power "
@@ -212,7 +212,9 @@ def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
             return _Method(
                 "exact power of the binomial test by enumeration; the smallest n whose power "
                 "reaches the target (exact power is saw-toothed in n)",
-                lambda: exactpower.binomial_n(p, p0, alpha, design.power, hyp.alternative).n,
+                lambda: exactpower.binomial_n(
+                    p, p0, alpha, design.power, hyp.alternative,
+                    guess=samplesize.one_proportion_n(p, p0, side, design.power).n[0]),
                 lambda n: exactpower.binomial_power(p, p0, n[0], alpha, hyp.alternative))
         return _Method(
             "normal approximation of the score z test (Fleiss, Levin and Paik 2003, §2.5)",
@@ -266,11 +268,14 @@ def size_hypothesis(plan: Any, hyp: Any, share: AlphaShare) -> HypothesisDesign:
                      f"({hyp.alternative}): no sample size reaches the power")
     else:
         try:
-            sizes = method.size()
+            found = method.size()
         except ValueError as exc:
             notes.append(f"not sized: {exc}")
         else:
-            n_per_group = dict(zip(groups, sizes, strict=True))
+            if isinstance(found, exactpower.ExactSize):
+                notes.append(exactpower.saw_tooth(found))
+                found = found.n
+            n_per_group = dict(zip(groups, found, strict=True))
             enrol = {g: math.ceil(n / (1.0 - design.dropout) - samplesize.ROUND_SLACK)
                      for g, n in n_per_group.items()}
         planned = plan.data.planned_n or {}
