@@ -496,6 +496,7 @@ def extended_report(tmp_path_factory: pytest.TempPathFactory) -> Path:
     folder.mkdir()
     res = extended_results()
     _h(res, "H1")["estimand"]["intercurrent"][0]["event"] = HOSTILE_ATTR
+    _h(res, "H2")["sensitivity"][0]["groups"][0] = HOSTILE_ATTR  # in a figure's alt text
     (folder / "results.json").write_text(json.dumps(res, indent=2) + "\n", encoding="utf-8")
     write_figures(res, folder)
     render.render_notebook(folder)
@@ -527,12 +528,13 @@ def test_extended_report_embeds_the_tipping_figures_after_their_hypothesis(
     parser.feed(page)
     alts = [img.get("alt") or "" for img in parser.images]
     assert len(alts) == 5
+    assert all(set(img) == {"src", "alt"} for img in parser.images)  # the alt stayed whole
     tipping = [a for a in alts if a.startswith("Tipping-point grid of")]
     assert tipping == [
         ("Tipping-point grid of H1: the decision for each number of events among the missing "
         "outcomes of negative-pressure and gauze; primary decision: reject H0"),
         ("Tipping-point grid of H2: the decision for each number of events among the missing "
-        "outcomes of alginate and gauze; primary decision: do not reject H0"),
+        f"outcomes of {HOSTILE_ATTR} and gauze; primary decision: do not reject H0"),
     ]
     for name, before, after in [("tipping-H1.png", "holds in all 15", "H2 — "),
                                 ("tipping-H2.png", "changes in", "H3 — ")]:
