@@ -267,10 +267,32 @@ hypotheses:
         "saw-toothed in n)")
 
 
-def test_a_large_binomial_search_starting_near_half_the_normal_size_finds_the_same_n() -> None:
+def test_a_large_binomial_search_started_below_the_normal_size_finds_the_same_n() -> None:
     guess = samplesize.one_proportion_n(0.35, 0.30, 0.025, 0.8).n[0]
     assert guess > 400
     near = exactpower.binomial_n(0.35, 0.30, 0.05, 0.8, "two-sided", guess=guess, check=0)
     scanned = exactpower.binomial_n(0.35, 0.30, 0.05, 0.8, "two-sided", check=0)
     assert near.start > 1 and scanned.start == 1
     assert near.n == scanned.n
+
+
+def test_past_the_enumeration_limit_fisher_is_sized_by_the_corrected_normal_formula(
+        tmp_path: Path) -> None:
+    body = """\
+hypotheses:
+  - {id: F, outcome: infection, compare: [foam, gauze], test: fisher-exact}
+"""
+    design = DESIGN.replace("foam: 0.05", "foam: 0.185")
+    planned = "  planned_n: {gauze: 9000, alginate: 10, foam: 9000}\n"
+    plan = plan_of(tmp_path, "multiplicity: none\n", design=design, body=body, planned=planned)
+    (f,), _ = size_plan(plan)
+    normal = samplesize.two_proportion_n(0.185, 0.20, 0.025, 0.8, continuity=True)
+    assert normal.n[0] > 5000
+    assert tuple(f.n_per_group.values()) == normal.n
+    assert f.power == pytest.approx(samplesize.two_proportion_power(0.185, 0.20, 9000, 9000,
+                                                                    0.025, continuity=True))
+    assert f.notes[-2:] == (
+        ("sized by the normal approximation: above 5000 per group the exact enumeration gives "
+        "way to the continuity-corrected normal approximation (Casagrande, Pike and Smith 1978)"),
+        ("power by the normal approximation: above 5000 per group the exact enumeration gives "
+        "way to the continuity-corrected normal approximation (Casagrande, Pike and Smith 1978)"))

@@ -205,13 +205,15 @@ def fisher_n(p1: float, p2: float, level: float, target: float, alternative: str
 def binomial_n(p: float, null_rate: float, level: float, target: float, alternative: str, *,
                check: int | None = None, guess: int | None = None) -> ExactSize:
     """The smallest n whose exact binomial power reaches the target, scanning from n = 1 (from
-    a size below the target near half of ``guess``, the normal approximation, when that is
-    above 400); then ``check`` (default: a fifth of n, at least 10) larger sizes for dips."""
+    a size below the target at or under 90% of ``guess``, the normal approximation, when that
+    is above 400); then ``check`` (default: a fifth of n, at least 10) larger sizes for
+    dips."""
 
     def power_at(m: int) -> float:
         return binomial_power(p, null_rate, m, level, alternative)
 
-    start = 1 if guess is None or guess <= 400 else _start_below(power_at, target, guess // 2)
+    start = 1 if guess is None or guess <= 400 else \
+        _start_below(power_at, target, int(0.9 * guess))
     found = _scan(power_at, target, start, 0)
     more = check if check is not None else max(10, found.n[0] // 5)
     dips = tuple(k for k in range(found.n[0] + 1, found.n[0] + more + 1)

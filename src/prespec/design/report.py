@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 from prespec.caution import CAUTION
@@ -108,12 +108,19 @@ class HypothesisDesign:
                 "power": self.power, "notes": list(self.notes)}
 
 
+#: The largest group an exact enumeration takes; above it the normal approximation is used
+#: (and said): Fisher's test enumerates about (n + 1) × a few hundred tables per size.
+FISHER_LIMIT = 5_000
+BINOMIAL_LIMIT = 100_000
+
+
 @dataclass(frozen=True)
 class _Method:
     text: str
     size: Callable[[], tuple[int, ...] | exactpower.ExactSize]
     power: Callable[[tuple[int, ...]], float]
     notes: tuple[str, ...] = ()
+    late: list[str] = field(default_factory=list)  # notes that computing a size or power adds
 
 
 def _groups(plan: Any, hyp: Any) -> list[str]:
@@ -163,17 +170,30 @@ def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: f
                                               measure=hyp.measure, alternative=hyp.alternative,
                                               score=score))
     if hyp.test == "fisher-exact":
-        def fisher_size() -> exactpower.ExactSize:
-            guess = samplesize.two_proportion_n(p1, p2, side, design.power, ratio=ratio,
-                                                continuity=True).n[0]
+        late: list[str] = []
+        above = (f"above {FISHER_LIMIT} per group the exact enumeration gives way to the "
+                 "continuity-corrected normal approximation (Casagrande, Pike and Smith 1978)")
+
+        def fisher_size() -> tuple[int, ...] | exactpower.ExactSize:
+            normal = samplesize.two_proportion_n(p1, p2, side, design.power, ratio=ratio,
+                                                 continuity=True).n
+            if max(normal) > FISHER_LIMIT:
+                late.append(f"sized by the normal approximation: {above}")
+                return normal
             return exactpower.fisher_n(p1, p2, alpha, design.power, hyp.alternative,
-                                       ratio=ratio, guess=guess)
+                                       ratio=ratio, guess=normal[0])
+
+        def fisher_power(n: tuple[int, ...]) -> float:
+            if max(n) > FISHER_LIMIT:
+                late.append(f"power by the normal approximation: {above}")
+                return samplesize.two_proportion_power(p1, p2, n[0], n[1], side,
+                                                       continuity=True)
+            return exactpower.fisher_power(p1, p2, n[0], n[1], alpha, hyp.alternative)
 
         return _Method(
             "exact power of Fisher's exact test by enumeration; the smallest n whose power "
             "reaches the target (exact power is saw-toothed in n)",
-            fisher_size,
-            lambda n: exactpower.fisher_power(p1, p2, n[0], n[1], alpha, hyp.alternative))
+            fisher_size, fisher_power, late=late)
     cc = bool(design.continuity)
     notes = []
     if hyp.test in ("barnard-exact", "boschloo-exact"):
@@ -209,13 +229,28 @@ def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
     if hyp.kind == "single":
         p, p0 = rates[0], float(hyp.null_rate)
         if hyp.test == "binomial-exact":
+            late: list[str] = []
+            above = (f"above {BINOMIAL_LIMIT} the exact enumeration gives way to the normal "
+                     "approximation of the score test")
+
+            def binomial_size() -> tuple[int, ...] | exactpower.ExactSize:
+                normal = samplesize.one_proportion_n(p, p0, side, design.power).n
+                if normal[0] > BINOMIAL_LIMIT:
+                    late.append(f"sized by the normal approximation: {above}")
+                    return normal
+                return exactpower.binomial_n(p, p0, alpha, design.power, hyp.alternative,
+                                             guess=normal[0])
+
+            def binomial_power(n: tuple[int, ...]) -> float:
+                if n[0] > BINOMIAL_LIMIT:
+                    late.append(f"power by the normal approximation: {above}")
+                    return samplesize.one_proportion_power(p, p0, n[0], side)
+                return exactpower.binomial_power(p, p0, n[0], alpha, hyp.alternative)
+
             return _Method(
                 "exact power of the binomial test by enumeration; the smallest n whose power "
                 "reaches the target (exact power is saw-toothed in n)",
-                lambda: exactpower.binomial_n(
-                    p, p0, alpha, design.power, hyp.alternative,
-                    guess=samplesize.one_proportion_n(p, p0, side, design.power).n[0]),
-                lambda n: exactpower.binomial_power(p, p0, n[0], alpha, hyp.alternative))
+                binomial_size, binomial_power, late=late)
         return _Method(
             "normal approximation of the score z test (Fleiss, Levin and Paik 2003, §2.5)",
             lambda: samplesize.one_proportion_n(p, p0, side, design.power).n,
@@ -281,6 +316,7 @@ def size_hypothesis(plan: Any, hyp: Any, share: AlphaShare) -> HypothesisDesign:
         planned = plan.data.planned_n or {}
         if all(g in planned for g in groups):
             power = method.power(tuple(int(planned[g]) for g in groups))
+    notes.extend(method.late)
     return HypothesisDesign(hyp.id, share.alpha, sides, method.text, n_per_group, enrol, power,
                             tuple(notes))
 
@@ -377,6 +413,10 @@ def design_document(plan: Any, *, where: str = "plan", fingerprint: str | None =
                             "distinct table: " + "; ".join(decider.per_table))
     doc["notes"].append("simulated trials have the analysed sizes fixed (dropout already "
                         "allowed for); outcomes are simulated independently of each other")
+    doc["notes"].append("fwer: the probability of rejecting at least one true null among the "
+                        "non-exploratory hypotheses, follow-ups included (true_nulls lists "
+                        "them); any and all: over the plan's non-exploratory hypotheses; power "
+                        "of an exploratory hypothesis: at its nominal level")
     return doc
 
 
