@@ -362,8 +362,12 @@ def test_no_group_level_figure_is_written_printed_or_logged(
     rate = f"{pooled['events'] / pooled['total']:.4f}"
     assert f"{pooled['events']} events of {pooled['total']} analysed, rate {rate}" in done.stdout
     assert done.results["population"]["excluded_by_filter"] == pooled["excluded"]
-    for where in ("results.json", "tables/pooled.csv", "stdout"):
+    for where in ("results.json", "tables/pooled.csv", "stdout", "report.html"):
         assert found_number(pooled["total"], places[where]), where
+        assert found_number(pooled["events"], places[where]), where
+        shown_rate = rate if where in ("stdout", "report.html") else repr(
+            pooled["events"] / pooled["total"])
+        assert found_form(shown_rate, places[where]), where
     assert found_number(analysed, places["report.html"])
     assert done.results["kind"] == "rehearsal" and done.results["blinded"] is True
     assert "groups" not in done.results
