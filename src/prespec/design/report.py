@@ -53,9 +53,9 @@ def alpha_shares(plan: Any) -> tuple[dict[str, AlphaShare], str]:
         rule = (f"alpha / m = {_fmt(alpha)} / {m}, the Bonferroni split over the {m} "
                 "non-exploratory hypotheses")
         if name != "bonferroni":
-            kind = "the false discovery rate procedure" if name == "benjamini-hochberg" \
+            kind = "a false discovery rate procedure" if name == "benjamini-hochberg" \
                 else "a Holm-type procedure"
-            rule += (f"; {name} ({kind}) rejects whatever the split rejects, so it can only "
+            rule += (f"; {name}, {kind}, rejects whatever the split rejects, so it can only "
                      "gain power on these sizes")
         level = alpha / m
     elif name == "sidak":
