@@ -14,7 +14,7 @@ A sample size is the real-valued solution of the formula rounded up in each grou
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 from scipy import optimize, stats
@@ -237,9 +237,8 @@ def equivalence_n(p1: float, p2: float, alpha: float, power: float, *, low: floa
     return Size((m, _up(ratio * m)), reach(m), None)
 
 
-def _search_up(reach: object, power: float, limit: int = 10**9) -> int:
+def _search_up(reach: Callable[[int], float], power: float, limit: int = 10**9) -> int:
     """The smallest integer m >= 1 with reach(m) >= power, for a reach that rises with m."""
-    assert callable(reach)
     high = 1
     while reach(high) < power:
         high *= 2
