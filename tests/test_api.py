@@ -320,3 +320,9 @@ def test_amends_at_the_same_moment_get_distinct_versions(study: tuple[Path, Path
     last_alpha = doc["versions"][-1]["plan"]["alpha"]
     plan.write_text(PLAN_TEXT.replace("alpha: 0.05", f"alpha: {last_alpha}"))
     api.verify(plan)
+
+
+def test_the_example_plan_is_the_demo_plan() -> None:
+    # plans/wound-dressing.yaml is the plan `prespec demo` writes; they must not drift apart
+    example = Path(__file__).parent.parent / "plans" / "wound-dressing.yaml"
+    assert example.read_text(encoding="utf-8") == PLAN_TEXT

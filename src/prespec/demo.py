@@ -38,6 +38,10 @@ outcomes:
     missing: exclude
 alpha: 0.05
 multiplicity: holm
+design:
+  assumed: {gauze: 0.20, alginate: 0.14, negative-pressure: 0.10}
+  power: 0.80
+  dropout: 0.05
 hypotheses:
   - id: H1
     title: Negative-pressure vs gauze, 30-day infection
