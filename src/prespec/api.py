@@ -384,6 +384,19 @@ def _override_departures(changes: list[dict[str, Any]], accept: str | None) -> l
                       _show(c["locked"]), _show(c["used"]), accepted=accept) for c in changes]
 
 
+def _environment_departures(record: dict[str, Any], env: dict[str, str]) -> list[Departure]:
+    """``environment-differs-from-lock`` when a version differs from the lock version's."""
+    diffs = differences(record.get("environment") or {}, env)
+    if not diffs:
+        return []
+    return [Departure(
+        "environment-differs-from-lock",
+        "versions differ from those recorded at lock time: "
+        + ", ".join(f"{n} {a} → {b}" for n, a, b in diffs),
+        "; ".join(f"{n} {a}" for n, a, _ in diffs),
+        "; ".join(f"{n} {b}" for n, _, b in diffs))]
+
+
 def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         actor: str | None = None, accept_deviation: str | None = None,
         overrides: Mapping[str, Any] | None = None) -> RunOutcome:
@@ -410,14 +423,7 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
             model = plan_from_resolved(changed_plan, source="command line")
     env = environment()
     if record is not None:
-        diffs = differences(record.get("environment") or {}, env)
-        if diffs:
-            deviations.append(Departure(
-                "environment-differs-from-lock",
-                "versions differ from those recorded at lock time: "
-                + ", ".join(f"{n} {a} → {b}" for n, a, b in diffs),
-                "; ".join(f"{n} {a}" for n, a, _ in diffs),
-                "; ".join(f"{n} {b}" for n, _, b in diffs)))
+        deviations.extend(_environment_departures(record, env))
     for e in entries:
         for d in e.get("deviations", []):
             if e.get("action") == "amend" and d.get("code") == "amended-after-unblinding":
@@ -468,14 +474,7 @@ def rehearse(plan: str | Path, data: str | Path, *, out: str | Path | None = Non
     else:
         last = audit.latest(doc)
         version = int(last["version"])
-        diffs = differences(last.get("environment") or {}, env)
-        if diffs:
-            deviations.append(Departure(
-                "environment-differs-from-lock",
-                "versions differ from those recorded at lock time: "
-                + ", ".join(f"{n} {a} → {b}" for n, a, b in diffs),
-                "; ".join(f"{n} {a}" for n, a, _ in diffs),
-                "; ".join(f"{n} {b}" for n, _, b in diffs)))
+        deviations.extend(_environment_departures(last, env))
     out_path = Path(out) if out is not None else default_folder(loaded.path, "rehearsal")
     if out is not None:
         check_out_path(loaded.path, out_path)
