@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import io
 import json
+import re
 from pathlib import Path
 
 import pytest
@@ -15,10 +16,14 @@ import pytest
 import prespec.report
 from prespec import api, audit, cli
 from prespec.canonical import canonical_json, sha256_tag
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo import PLAN_TEXT as DEMO_PLAN
+from prespec.demo import demo_data
 from prespec.design import samplesize
 from prespec.errors import BadInput
 from prespec.plan import load_plan
+
+# The demo plan without its own design section; these tests add the design they need.
+PLAN_TEXT = re.sub(r"^design:\n(?:  .*\n)+", "", DEMO_PLAN, flags=re.MULTILINE)
 
 DESIGN = """\
 design:

@@ -4,13 +4,18 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import subprocess
 import sys
 from pathlib import Path
 
 import pytest
 
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo import PLAN_TEXT as DEMO_PLAN
+from prespec.demo import demo_data
+
+# The demo plan without its own design section; these tests add the design they need.
+PLAN_TEXT = re.sub(r"^design:\n(?:  .*\n)+", "", DEMO_PLAN, flags=re.MULTILINE)
 
 PRESPEC = [sys.executable, "-m", "prespec"]
 
