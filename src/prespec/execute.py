@@ -30,6 +30,28 @@ def check_out_folder(out: Path) -> None:
         raise BadInput(f"{out}: the report folder must not exist yet or be empty")
 
 
+def provenance(*, kind: str, plan: Any, fingerprint: str, version: int | None,
+               data_hash: str, data_file: str, actor: str,
+               environment: dict[str, str]) -> dict[str, Any]:
+    """The fields that open every results document: what ran, on what, by whom, with what."""
+    return {
+        "prespec": 1,
+        "kind": kind,
+        "title": plan.title,
+        "protocol": plan.protocol,
+        "plan": fingerprint,
+        "plan_version": version,
+        "data": data_hash,
+        "data_file": data_file,
+        "created": audit.utc_now(),
+        "actor": actor,
+        "alpha": plan.alpha,
+        "multiplicity": (plan.multiplicity if isinstance(plan.multiplicity, str)
+                         else plan.multiplicity.model_dump(mode="json")),
+        "environment": environment,
+    }
+
+
 def build_results(
     *,
     kind: str,
@@ -46,20 +68,9 @@ def build_results(
     notes: list[Note],
 ) -> dict[str, Any]:
     results: dict[str, Any] = {
-        "prespec": 1,
-        "kind": kind,
-        "title": plan.title,
-        "protocol": plan.protocol,
-        "plan": fingerprint,
-        "plan_version": version,
-        "data": data_hash,
-        "data_file": data_file,
-        "created": audit.utc_now(),
-        "actor": actor,
-        "alpha": plan.alpha,
-        "multiplicity": (plan.multiplicity if isinstance(plan.multiplicity, str)
-                         else plan.multiplicity.model_dump(mode="json")),
-        "environment": environment,
+        **provenance(kind=kind, plan=plan, fingerprint=fingerprint, version=version,
+                     data_hash=data_hash, data_file=data_file, actor=actor,
+                     environment=environment),
         "population": {
             "rows_read": prepared.rows_read,
             "excluded_by_filter": prepared.excluded_by_filter,

@@ -26,14 +26,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import audit
 from .analysis import _follow_ups, analyse, compute_hypothesis
 from .caution import CAUTION
 from .data import Prepared, file_sha256, prepare, read_data
 from .departures import Departure, Note
 from .dictionary import data_dictionary, uses, write_dictionary_csv
 from .errors import BadInput
-from .execute import build_results
+from .execute import build_results, provenance
 from .stats import intervals
 
 #: The name of the rehearsal's pooled table in ``tables/``.
@@ -273,21 +272,10 @@ def compute_rehearsal(
     all_notes += [n for n in prepared.notes if n.code in _POOLED_NOTE_CODES]
     all_notes += step_notes
     return {
-        "prespec": 1,
-        "kind": "rehearsal",
+        **provenance(kind="rehearsal", plan=plan, fingerprint=fingerprint, version=version,
+                     data_hash=data_hash, data_file=data_file, actor=actor,
+                     environment=environment),
         "blinded": True,
-        "title": plan.title,
-        "protocol": plan.protocol,
-        "plan": fingerprint,
-        "plan_version": version,
-        "data": data_hash,
-        "data_file": data_file,
-        "created": audit.utc_now(),
-        "actor": actor,
-        "alpha": plan.alpha,
-        "multiplicity": (plan.multiplicity if isinstance(plan.multiplicity, str)
-                         else plan.multiplicity.model_dump(mode="json")),
-        "environment": environment,
         "population": {
             "rows_read": prepared.rows_read,
             "excluded_by_filter": prepared.excluded_by_filter,
