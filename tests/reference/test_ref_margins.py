@@ -8,11 +8,11 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 import pytest
 import scipy.stats
 from scipy import optimize, special
 from statsmodels.stats import proportion as sm_proportion
+from test_ref_intervals import _random_pairs  # the same grid of tables as the intervals
 
 from prespec.stats.margins import farrington_manning, wald_margin_z
 
@@ -20,21 +20,6 @@ from prespec.stats.margins import farrington_manning, wald_margin_z
 pytestmark = pytest.mark.filterwarnings("ignore::RuntimeWarning")
 
 SM_ALTERNATIVE = {"greater": "larger", "less": "smaller", "two-sided": "two-sided"}
-
-
-def _random_pairs(seed: int, count: int) -> list[tuple[int, int, int, int]]:
-    """(x1, n1, x2, n2) with small and large n, a quarter with 0 or n events in a group."""
-    rng = np.random.default_rng(seed)
-    pairs = []
-    for i in range(count):
-        n1 = int(rng.integers(1, 30 if i % 2 else 500))
-        n2 = int(rng.integers(1, 30 if i % 3 else 500))
-        x1 = int(rng.integers(0, n1 + 1))
-        x2 = int(rng.integers(0, n2 + 1))
-        if i % 4 == 0:
-            x1 = (0, n1)[i % 8 == 0]
-        pairs.append((x1, n1, x2, n2))
-    return pairs
 
 
 def _statsmodels(counts: tuple[int, int, int, int], **kwargs: object) -> tuple[float, float]:
