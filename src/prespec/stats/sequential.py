@@ -1,0 +1,551 @@
+"""Group-sequential boundaries for interim looks at one hypothesis.
+
+The z statistic at look k is modelled as ``Z_k ~ N(θ·sqrt(I_k), 1)`` with independent
+increments of the score ``Z_k·sqrt(I_k)`` (the canonical joint distribution, Jennison &
+Turnbull 2000, ch. 3). Fractions ``t_k = I_k / I_max``; the drift ``δ = θ·sqrt(I_max)``.
+Probabilities of crossing are computed by the recursive numerical integration of Armitage,
+McPherson & Rowe (1969) on the grid of Jennison & Turnbull (2000, ch. 19).
+
+References
+----------
+Armitage P, McPherson CK, Rowe BC. Repeated significance tests on accumulating data. Journal
+of the Royal Statistical Society A 1969; 132: 235-244.
+Jennison C, Turnbull BW. Group Sequential Methods with Applications to Clinical Trials.
+Chapman & Hall/CRC, 2000.
+Lan KKG, DeMets DL. Discrete sequential boundaries for clinical trials. Biometrika 1983; 70:
+659-663.
+Hwang IK, Shih WJ, DeCani JS. Group sequential designs using a family of type I error
+probability spending functions. Statistics in Medicine 1990; 9: 1439-1445.
+Pocock SJ. Group sequential methods in the design and analysis of clinical trials.
+Biometrika 1977; 64: 191-199.
+O'Brien PC, Fleming TR. A multiple testing procedure for clinical trials. Biometrics 1979;
+35: 549-556.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from numbers import Real
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy import optimize, special, stats
+
+EFFICACY: tuple[str, ...] = (
+    "lan-demets-obrien-fleming",
+    "lan-demets-pocock",
+    "hwang-shih-decani",
+    "obrien-fleming",
+    "pocock",
+)
+FUTILITY: tuple[str, ...] = ("lan-demets-obrien-fleming", "lan-demets-pocock", "hwang-shih-decani")
+CLASSICAL: tuple[str, ...] = ("obrien-fleming", "pocock")
+
+#: Grid density of the numerical integration (Jennison & Turnbull 2000, ch. 19 use r = 16;
+#: r = 32 brings exit probabilities to about 1e-10 of the multivariate normal route).
+GRID_R = 32
+#: How far fractions may stray from k/K·t_K and still count as equally spaced.
+SPACING_TOLERANCE = 1e-6
+#: The root finders' tolerance on the z scale and on the drift.
+_XTOL = 1e-11
+#: A boundary far enough out to stand for "never crossed" in the root searches.
+_FAR = 40.0
+
+
+@dataclass(frozen=True)
+class Boundaries:
+    """Efficacy (and optional futility) boundaries on the z scale at each look."""
+
+    fractions: tuple[float, ...]
+    z: tuple[float, ...]
+    nominal_p: tuple[float, ...]
+    alpha_spent: tuple[float, ...]
+    futility_z: tuple[float, ...] | None
+    beta_spent: tuple[float, ...] | None
+    alpha: float
+    sides: int
+    efficacy: str
+    gamma: float | None
+    drift: float | None
+    futility: str | None = None
+    futility_gamma: float | None = None
+    power: float | None = None
+
+
+@dataclass(frozen=True)
+class SequentialDesign:
+    """A planned group-sequential design: boundaries, inflation and expected sample size."""
+
+    boundaries: Boundaries
+    inflation: float
+    expected_fraction_null: float
+    expected_fraction_alternative: float
+    power: float
+    drift: float
+    #: True when the expected sample sizes assume the futility boundary is followed.
+    expected_with_futility: bool
+    #: P(stop at look k) under θ = 0 and under the design drift.
+    stop_null: tuple[float, ...]
+    stop_alternative: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class Adjusted:
+    """Inference adjusted for the stopping rule, after stopping at ``look``."""
+
+    p_value: float
+    estimate: float
+    ci: tuple[float, float]
+    look: int
+    level: float = 0.95
+    sides: int = 2
+
+
+# --------------------------------------------------------------------------- validation
+
+
+def _real(name: str, value: object) -> float:
+    if isinstance(value, bool) or not isinstance(value, Real):
+        raise ValueError(f"{name} must be a number, got {value!r}")  # noqa: TRY004 (the interface raises ValueError)
+    number = float(value)
+    if not math.isfinite(number):
+        raise ValueError(f"{name} must be finite, got {value!r}")
+    return number
+
+
+def _fractions(fractions: Sequence[float]) -> np.ndarray:
+    if isinstance(fractions, (str, bytes)) or not isinstance(fractions, Sequence | np.ndarray):
+        raise ValueError("fractions must be a sequence of numbers")  # noqa: TRY004 (the interface raises ValueError)
+    t = [_real(f"fractions[{i}]", v) for i, v in enumerate(fractions)]
+    if not t:
+        raise ValueError("fractions must name at least one look")
+    for i, v in enumerate(t):
+        if not 0.0 < v <= 1.0:
+            raise ValueError(f"fractions[{i}] must be in (0, 1], got {v!r}")
+        if i and v <= t[i - 1]:
+            raise ValueError(f"fractions must increase: fractions[{i}] = {v!r} after {t[i - 1]!r}")
+    return np.asarray(t, dtype=float)
+
+
+def _probability(name: str, value: object) -> float:
+    number = _real(name, value)
+    if not 0.0 < number < 1.0:
+        raise ValueError(f"{name} must be in (0, 1), got {value!r}")
+    return number
+
+
+def _sides(sides: object) -> int:
+    if sides not in (1, 2) or isinstance(sides, bool):
+        raise ValueError(f"sides must be 1 or 2, got {sides!r}")
+    return int(sides)  # type: ignore[call-overload]
+
+
+def _spending_name(what: str, name: object, allowed: tuple[str, ...]) -> str:
+    if name not in allowed:
+        raise ValueError(f"unknown {what} {name!r}; expected one of {', '.join(allowed)}")
+    return str(name)
+
+
+def _gamma(what: str, name: str, gamma: object) -> float | None:
+    if name == "hwang-shih-decani":
+        if gamma is None:
+            raise ValueError(f"{what} hwang-shih-decani needs gamma")
+        return _real(f"{what} gamma", gamma)
+    if gamma is not None:
+        raise ValueError(f"{what} gamma applies to hwang-shih-decani only, not {name}")
+    return None
+
+
+def equally_spaced(fractions: Sequence[float], tol: float = SPACING_TOLERANCE) -> bool:
+    """True when ``t_k = k·t_K / K`` for every look, within ``tol``."""
+    t = np.asarray(fractions, dtype=float)
+    k = len(t)
+    if k == 0:
+        return False
+    planned = t[-1] * np.arange(1, k + 1) / k
+    return bool(np.all(np.abs(t - planned) <= tol))
+
+
+# --------------------------------------------------------------------------- spending
+
+
+def spent(name: str, t: ArrayLike, total: float, gamma: float | None = None) -> np.ndarray:
+    """Cumulative error spent at information fractions ``t`` (``t >= 1`` spends all of total).
+
+    ``lan-demets-obrien-fleming``: 2 − 2Φ(z_{total/2}/√t); ``lan-demets-pocock``:
+    total·log(1 + (e − 1)t) (Lan & DeMets 1983); ``hwang-shih-decani``:
+    total·(1 − e^{−γt})/(1 − e^{−γ}), total·t at γ = 0 (Hwang, Shih & DeCani 1990).
+    """
+    name = _spending_name("spending function", name, FUTILITY)
+    g = _gamma("spending", name, gamma)
+    total = _probability("total", total)
+    x = np.clip(np.asarray(t, dtype=float), 0.0, 1.0)
+    if np.any(np.isnan(x)):
+        raise ValueError("information fractions must not be nan")
+    with np.errstate(divide="ignore"):
+        if name == "lan-demets-obrien-fleming":
+            c = stats.norm.isf(total / 2.0)
+            out = 2.0 * special.ndtr(-c / np.sqrt(x))
+        elif name == "lan-demets-pocock":
+            out = total * np.log1p((math.e - 1.0) * x)
+        elif g == 0.0:
+            out = total * x
+        else:
+            assert g is not None
+            out = total * np.expm1(-g * x) / math.expm1(-g)
+    out = np.where(x >= 1.0, total, np.where(x <= 0.0, 0.0, out))
+    return np.minimum(out, total)
+
+
+# --------------------------------------------------------------------------- integration
+
+
+def _grid(mean: float, lo: float, hi: float, r: int = GRID_R) -> tuple[np.ndarray, np.ndarray]:
+    """Grid points and Simpson weights on (lo, hi) for a density centred near ``mean``.
+
+    Jennison & Turnbull (2000), section 19.2: 6r − 1 points, uniform on mean ± 3, spreading
+    logarithmically to mean ± (3 + 4·log r); trimmed to the interval with its ends added, then
+    the midpoints inserted so that Simpson's rule applies.
+    """
+    i = np.arange(1, 6 * r)
+    x = (
+        np.where(
+            i < r,
+            -3.0 - 4.0 * np.log(r / np.maximum(i, 1)),
+            np.where(
+                i <= 5 * r,
+                -3.0 + 3.0 * (i - r) / (2.0 * r),
+                3.0 + 4.0 * np.log(r / np.maximum(6 * r - i, 1)),
+            ),
+        )
+        + mean
+    )
+    inner = x[(x > lo) & (x < hi)]
+    first = max(lo, x[0])
+    last = min(hi, x[-1])
+    if last <= first:
+        return np.empty(0), np.empty(0)
+    odd = np.concatenate(([first], inner[(inner > first) & (inner < last)], [last]))
+    n = len(odd)
+    z = np.empty(2 * n - 1)
+    z[0::2] = odd
+    z[1::2] = 0.5 * (odd[:-1] + odd[1:])
+    d = np.diff(odd)
+    w = np.zeros(2 * n - 1)
+    w[1::2] = 4.0 * d / 6.0
+    w[0:-1:2] += d / 6.0
+    w[2::2] += d / 6.0
+    return z, w
+
+
+@dataclass(frozen=True)
+class _State:
+    """The sub-density of Z at the last look on the continuation region, times the weights."""
+
+    z: np.ndarray
+    c: np.ndarray
+    t: float
+
+
+_START = _State(np.zeros(1), np.ones(1), 0.0)
+
+
+def _moments(state: _State, t: float, drift: float) -> tuple[np.ndarray, float]:
+    """Mean of the next score given each grid point, and the increment's standard deviation."""
+    step = t - state.t
+    return state.z * math.sqrt(state.t) + drift * step, math.sqrt(step)
+
+
+def _exit_above(state: _State, t: float, drift: float, b: float) -> float:
+    if b == math.inf or state.c.size == 0:
+        return 0.0
+    m, s = _moments(state, t, drift)
+    return float(np.dot(state.c, special.ndtr((m - b * math.sqrt(t)) / s)))
+
+
+def _exit_below(state: _State, t: float, drift: float, a: float) -> float:
+    if a == -math.inf or state.c.size == 0:
+        return 0.0
+    m, s = _moments(state, t, drift)
+    return float(np.dot(state.c, special.ndtr((a * math.sqrt(t) - m) / s)))
+
+
+def _advance(state: _State, t: float, drift: float, lo: float, hi: float, r: int) -> _State:
+    """Propagate the sub-density to look ``t`` and keep the part on (lo, hi) (AMR 1969)."""
+    if state.c.size == 0 or lo >= hi:
+        return _State(np.empty(0), np.empty(0), t)
+    z, w = _grid(drift * math.sqrt(t), lo, hi, r)
+    if z.size == 0:
+        return _State(z, w, t)
+    m, s = _moments(state, t, drift)
+    u = (z[:, None] * math.sqrt(t) - m[None, :]) / s
+    density = (np.exp(-0.5 * u * u) @ state.c) * math.sqrt(t) / (s * math.sqrt(2.0 * math.pi))
+    return _State(z, w * density, t)
+
+
+def crossing_probabilities(
+    b_upper: ArrayLike,
+    b_lower: ArrayLike,
+    fractions: ArrayLike,
+    drift: float,
+    *,
+    r: int = GRID_R,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Per look: P(first exit above) and P(first exit below) at the given drift (AMR recursion).
+
+    ``b_lower`` may hold −inf (no lower boundary) and ``b_upper`` +inf; the process continues
+    while ``b_lower[k] < Z_k < b_upper[k]``. Armitage, McPherson & Rowe (1969); Jennison &
+    Turnbull (2000), ch. 19.
+    """
+    up_b = np.asarray(b_upper, dtype=float)
+    lo_b = np.asarray(b_lower, dtype=float)
+    t = np.asarray(fractions, dtype=float)
+    if not (up_b.shape == lo_b.shape == t.shape) or t.ndim != 1:
+        raise ValueError("b_upper, b_lower and fractions must be lists of the same length")
+    if np.any(np.diff(t) <= 0) or np.any(t <= 0):
+        raise ValueError("fractions must be positive and increasing")
+    up = np.zeros(len(t))
+    low = np.zeros(len(t))
+    state = _START
+    for k, tk in enumerate(t):
+        up[k] = _exit_above(state, float(tk), drift, float(up_b[k]))
+        low[k] = _exit_below(state, float(tk), drift, min(float(lo_b[k]), float(up_b[k])))
+        if k < len(t) - 1:
+            state = _advance(state, float(tk), drift, float(lo_b[k]), float(up_b[k]), r)
+    return up, low
+
+
+# --------------------------------------------------------------------------- boundaries
+
+
+def _solve_upper(state: _State, t: float, target: float, sides: int) -> float:
+    """The efficacy boundary b at look t with P_0(exit beyond ±b, or above b) = target."""
+    if target <= 0.0:
+        return math.inf
+
+    def excess(b: float) -> float:
+        out = _exit_above(state, t, 0.0, b)
+        if sides == 2:
+            out += _exit_below(state, t, 0.0, -b)
+        return out - target
+
+    low = 0.0 if sides == 2 else -_FAR
+    if excess(low) <= 0.0:
+        return low
+    return float(optimize.brentq(excess, low, _FAR, xtol=_XTOL, rtol=4 * np.finfo(float).eps))
+
+
+def _efficacy(
+    t: np.ndarray, alpha: float, sides: int, name: str, gamma: float | None, final: bool, r: int
+) -> np.ndarray:
+    """Efficacy boundaries under θ = 0, futility ignored (non-binding)."""
+    if name in CLASSICAL:
+        return _classical(t, alpha, sides, name, r)
+    side_alpha = alpha / sides
+    cum = spent(name, t, side_alpha, gamma) * sides
+    if final:
+        cum[-1] = alpha
+    b = np.empty(len(t))
+    state = _START
+    so_far = 0.0
+    for k, tk in enumerate(t):
+        b[k] = _solve_upper(state, float(tk), float(cum[k]) - so_far, sides)
+        up = _exit_above(state, float(tk), 0.0, b[k])
+        low = _exit_below(state, float(tk), 0.0, -b[k]) if sides == 2 else 0.0
+        so_far += up + low
+        if k < len(t) - 1:
+            state = _advance(state, float(tk), 0.0, -b[k] if sides == 2 else -math.inf, b[k], r)
+    return b
+
+
+def _classical_shape(t: np.ndarray, name: str) -> np.ndarray:
+    k = np.arange(1, len(t) + 1)
+    return np.sqrt(len(t) / k) if name == "obrien-fleming" else np.ones(len(t))
+
+
+def _classical(t: np.ndarray, alpha: float, sides: int, name: str, r: int) -> np.ndarray:
+    """b_k = c·shape_k with c such that the total P_0(crossing) is alpha (Pocock 1977;
+    O'Brien & Fleming 1979; the constant found by the AMR recursion as in Jennison &
+    Turnbull 2000, ch. 2)."""
+    if not equally_spaced(t):
+        raise ValueError(
+            f"{name} boundaries hold only for equally spaced looks; fractions "
+            f"{', '.join(f'{v:g}' for v in t)} are not (use a spending function)"
+        )
+    shape = _classical_shape(t, name)
+
+    def excess(c: float) -> float:
+        b = c * shape
+        lower = -b if sides == 2 else np.full(len(t), -np.inf)
+        up, low = crossing_probabilities(b, lower, t, 0.0, r=r)
+        return float(up.sum() + low.sum()) - alpha
+
+    c0 = stats.norm.isf(alpha / sides)
+    c = optimize.brentq(excess, c0 * 0.5, c0 + 3.0, xtol=_XTOL)
+    return c * shape
+
+
+def _nominal(b: np.ndarray, sides: int) -> tuple[float, ...]:
+    return tuple(float(min(1.0, sides * special.ndtr(-v))) for v in b)
+
+
+def _futility_at(
+    t: np.ndarray,
+    b: np.ndarray,
+    drift: float,
+    sides: int,
+    beta: float,
+    name: str,
+    gamma: float | None,
+    r: int,
+    last_free: bool,
+) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Beta-spending futility boundaries a_k at the drift, given the efficacy boundaries.
+
+    At each look a_k solves P_δ(exit below a_k at look k) = β(t_k) − β(t_{k−1}) on the
+    continuation region (max(a_j, −b_j), b_j) of the earlier looks (Pampallona & Tsiatis
+    1994; Jennison & Turnbull 2000, ch. 7). With ``last_free`` the last a_K spends what is
+    left of β without being capped at b_K. Returns (a, cumulative lower exits, met early).
+    """
+    cum = spent(name, t, beta, gamma)
+    a = np.empty(len(t))
+    state = _START
+    so_far = 0.0
+    exits = np.empty(len(t))
+    met = False
+    for k, tk in enumerate(t):
+        tk_f = float(tk)
+        floor = -b[k] if sides == 2 else -_FAR
+        last = k == len(t) - 1
+        target = (beta if (last and last_free) else float(cum[k])) - so_far
+        cap = _FAR if (last and last_free) else b[k]
+
+        def excess(
+            x: float, state: _State = state, tk_f: float = tk_f, target: float = target
+        ) -> float:
+            return _exit_below(state, tk_f, drift, x) - target
+
+        if state.c.size == 0:
+            a[k] = b[k]
+        elif excess(floor) >= 0.0:
+            a[k] = floor
+        elif excess(cap) <= 0.0:
+            a[k] = cap
+            met = met or not last
+        else:
+            a[k] = optimize.brentq(excess, floor, cap, xtol=_XTOL)
+        so_far += _exit_below(state, tk_f, drift, min(a[k], b[k]))
+        exits[k] = so_far
+        if not last:
+            state = _advance(state, tk_f, drift, a[k], b[k], r)
+    return a, exits, met
+
+
+def _futility_drift(
+    t: np.ndarray, b: np.ndarray, sides: int, beta: float, name: str, gamma: float | None, r: int
+) -> float:
+    """The drift at which the last futility boundary meets the last efficacy boundary."""
+
+    def gap(drift: float) -> float:
+        a, _, met = _futility_at(t, b, drift, sides, beta, name, gamma, r, last_free=True)
+        return 1.0 if met else float(a[-1] - b[-1])
+
+    low, high = 1e-6, 2.0 * (float(b[-1]) + stats.norm.isf(beta)) + 2.0
+    if gap(low) >= 0.0:
+        raise ValueError(
+            "the futility boundary meets the efficacy boundary at zero drift; check alpha and power"
+        )
+    return float(optimize.brentq(gap, low, high, xtol=_XTOL))
+
+
+def boundaries(
+    fractions: Sequence[float],
+    *,
+    alpha: float,
+    sides: int,
+    efficacy: str,
+    gamma: float | None = None,
+    final: bool | None = None,
+    futility: str | None = None,
+    futility_gamma: float | None = None,
+    power: float | None = None,
+    drift: float | None = None,
+    r: int = GRID_R,
+) -> Boundaries:
+    """Boundaries at the given (observed or planned) fractions.
+
+    Spending functions (Lan & DeMets 1983): look k spends spent(t_k) − spent(t_{k−1}); with
+    ``final`` (default: the last fraction is 1) the last look spends all of alpha. Classical
+    ``obrien-fleming`` / ``pocock`` (O'Brien & Fleming 1979; Pocock 1977): b_k = c·sqrt(K/k)
+    and b_k = c for K equally spaced looks, ValueError otherwise. Two-sided: symmetric, each
+    side spending alpha / 2 with continuation region (−b_k, b_k). Futility (beta spending,
+    non-binding: the efficacy boundaries ignore it) needs ``power``; the drift is found so
+    that the last futility boundary meets the last efficacy boundary (Jennison & Turnbull
+    2000, ch. 7), or taken from ``drift`` (the planned design's) when given, as at looks
+    whose observed fractions differ from the plan.
+    """
+    t = _fractions(fractions)
+    alpha = _probability("alpha", alpha)
+    sides = _sides(sides)
+    efficacy = _spending_name("efficacy boundary", efficacy, EFFICACY)
+    gamma = (
+        _gamma("efficacy", efficacy, gamma)
+        if efficacy not in CLASSICAL
+        else _no_gamma(efficacy, gamma)
+    )
+    if final is None:
+        final = bool(t[-1] >= 1.0)
+    if not isinstance(r, int) or r < 4:
+        raise ValueError(f"r must be an integer >= 4, got {r!r}")
+    b = _efficacy(t, alpha, sides, efficacy, gamma, bool(final), r)
+    lower = -b if sides == 2 else np.full(len(t), -np.inf)
+    up, low = crossing_probabilities(b, lower, t, 0.0, r=r)
+    alpha_spent = tuple(float(v) for v in np.cumsum(up + low))
+    fut_z = beta_spent = None
+    fut_gamma = None
+    if futility is not None:
+        futility = _spending_name("futility spending", futility, FUTILITY)
+        fut_gamma = _gamma("futility", futility, futility_gamma)
+        if power is None:
+            raise ValueError("a futility boundary needs the power it is planned at")
+        power = _probability("power", power)
+        beta = 1.0 - power
+        if drift is None:
+            drift = _futility_drift(t, b, sides, beta, futility, fut_gamma, r)
+        else:
+            drift = _real("drift", drift)
+        a, _, _ = _futility_at(t, b, drift, sides, beta, futility, fut_gamma, r, last_free=False)
+        if final:
+            a[-1] = b[-1]
+        a = np.minimum(a, b)
+        fut_lower = np.maximum(a, -b) if sides == 2 else a
+        _, low_d = crossing_probabilities(b, fut_lower, t, drift, r=r)
+        fut_z = tuple(float(v) for v in a)
+        beta_spent = tuple(float(v) for v in np.cumsum(low_d))
+    elif futility_gamma is not None:
+        raise ValueError("futility_gamma given without a futility spending function")
+    elif power is not None:
+        power = _probability("power", power)
+    return Boundaries(
+        fractions=tuple(float(v) for v in t),
+        z=tuple(float(v) for v in b),
+        nominal_p=_nominal(b, sides),
+        alpha_spent=alpha_spent,
+        futility_z=fut_z,
+        beta_spent=beta_spent,
+        alpha=alpha,
+        sides=sides,
+        efficacy=efficacy,
+        gamma=gamma,
+        drift=None if drift is None else float(drift),
+        futility=futility,
+        futility_gamma=fut_gamma,
+        power=power,
+    )
+
+
+def _no_gamma(name: str, gamma: object) -> None:
+    if gamma is not None:
+        raise ValueError(f"efficacy gamma applies to hwang-shih-decani only, not {name}")
