@@ -25,7 +25,7 @@ O'Brien PC, Fleming TR. A multiple testing procedure for clinical trials. Biomet
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from numbers import Real
 
@@ -549,3 +549,200 @@ def boundaries(
 def _no_gamma(name: str, gamma: object) -> None:
     if gamma is not None:
         raise ValueError(f"efficacy gamma applies to hwang-shih-decani only, not {name}")
+
+
+# --------------------------------------------------------------------------- design
+
+
+def _lower_limits(bounds: Boundaries, with_futility: bool) -> np.ndarray:
+    """The lower edge of the continuation region at each look."""
+    b = np.asarray(bounds.z)
+    lower = -b if bounds.sides == 2 else np.full(len(b), -np.inf)
+    if with_futility and bounds.futility_z is not None:
+        lower = np.maximum(lower, np.asarray(bounds.futility_z))
+    return lower
+
+
+def _stopping(bounds: Boundaries, drift: float, with_futility: bool, r: int) -> np.ndarray:
+    """P(stop at look k); the last look takes all that is left."""
+    t = np.asarray(bounds.fractions)
+    up, low = crossing_probabilities(bounds.z, _lower_limits(bounds, with_futility), t, drift, r=r)
+    stop = up + low
+    stop[-1] = max(0.0, 1.0 - float(stop[:-1].sum()))
+    return stop
+
+
+def _power_drift(bounds: Boundaries, power: float, r: int) -> float:
+    """The drift at which P(cross the upper efficacy boundary) is ``power``."""
+    t = np.asarray(bounds.fractions)
+    lower = _lower_limits(bounds, with_futility=False)
+
+    def shortfall(drift: float) -> float:
+        up, _ = crossing_probabilities(bounds.z, lower, t, drift, r=r)
+        return float(up.sum()) - power
+
+    fixed = stats.norm.isf(bounds.alpha / bounds.sides) + stats.norm.isf(1.0 - power)
+    return float(optimize.brentq(shortfall, 0.0, 2.0 * fixed + 2.0, xtol=_XTOL))
+
+
+def design(
+    fractions: Sequence[float],
+    *,
+    alpha: float,
+    sides: int,
+    efficacy: str,
+    gamma: float | None = None,
+    futility: str | None = None,
+    futility_gamma: float | None = None,
+    power: float,
+    r: int = GRID_R,
+) -> SequentialDesign:
+    """The planned design at ``fractions`` (ending at 1) for the given alpha and power.
+
+    The drift δ = θ·sqrt(I_max) gives the power (with a futility boundary, the drift at which
+    it meets the efficacy boundary, so the power is 1 − β exactly); the inflation factor is
+    I_max / I_fixed = (δ / (z_{α/sides} + z_β))² and the expected information is reported as
+    a fraction of the fixed-sample information, under θ = 0 and under the design drift,
+    with the futility boundary followed when there is one (Jennison & Turnbull 2000, ch. 2
+    and 7).
+    """
+    t = _fractions(fractions)
+    if t[-1] != 1.0:
+        raise ValueError(f"planned fractions must end at 1, got {t[-1]!r}")
+    power = _probability("power", power)
+    bounds = boundaries(
+        list(t),
+        alpha=alpha,
+        sides=sides,
+        efficacy=efficacy,
+        gamma=gamma,
+        futility=futility,
+        futility_gamma=futility_gamma,
+        power=power,
+        r=r,
+    )
+    if bounds.alpha / bounds.sides >= power:
+        raise ValueError(f"power ({power!r}) must exceed the one-sided alpha")
+    drift = bounds.drift if bounds.drift is not None else _power_drift(bounds, power, r)
+    fixed = stats.norm.isf(bounds.alpha / bounds.sides) + stats.norm.isf(1.0 - power)
+    inflation = (drift / fixed) ** 2
+    with_futility = bounds.futility_z is not None
+    stop_null = _stopping(bounds, 0.0, with_futility, r)
+    stop_alt = _stopping(bounds, drift, with_futility, r)
+    up, _ = crossing_probabilities(bounds.z, _lower_limits(bounds, with_futility), t, drift, r=r)
+    return SequentialDesign(
+        boundaries=bounds,
+        inflation=float(inflation),
+        expected_fraction_null=float(inflation * np.dot(t, stop_null)),
+        expected_fraction_alternative=float(inflation * np.dot(t, stop_alt)),
+        power=float(up.sum()),
+        drift=float(drift),
+        expected_with_futility=with_futility,
+        stop_null=tuple(float(v) for v in stop_null),
+        stop_alternative=tuple(float(v) for v in stop_alt),
+    )
+
+
+# --------------------------------------------------------------------------- inference
+
+
+def _observed(
+    z: Sequence[float], information: Sequence[float], bounds: Boundaries
+) -> tuple[np.ndarray, np.ndarray]:
+    if isinstance(z, (str, bytes)) or not isinstance(z, Sequence | np.ndarray):
+        raise ValueError("z must be a sequence of numbers, one per look")  # noqa: TRY004 (the interface raises ValueError)
+    if isinstance(information, (str, bytes)) or not isinstance(information, Sequence | np.ndarray):
+        raise ValueError("information must be a sequence of numbers, one per look")  # noqa: TRY004 (the interface raises ValueError)
+    zs = np.array([_real(f"z[{i}]", v) for i, v in enumerate(z)])
+    info = np.array([_real(f"information[{i}]", v) for i, v in enumerate(information)])
+    if len(zs) == 0 or len(zs) != len(info):
+        raise ValueError(
+            f"z has {len(zs)} entries and information {len(info)}; give one of each per look"
+        )
+    if len(zs) > len(bounds.z):
+        raise ValueError(f"{len(zs)} looks observed but the boundaries have {len(bounds.z)}")
+    if info[0] <= 0 or np.any(np.diff(info) <= 0):
+        raise ValueError("information must be positive and increase from look to look")
+    for j in range(len(zs) - 1):
+        edge = abs(zs[j]) if bounds.sides == 2 else zs[j]
+        if edge >= bounds.z[j]:
+            raise ValueError(
+                f"z at look {j + 1} ({zs[j]:.4g}) crossed its boundary ({bounds.z[j]:.4g}); "
+                "the trial stopped there"
+            )
+    return zs, info
+
+
+def _ordering_tail(
+    zs: np.ndarray, info: np.ndarray, bounds: Boundaries, r: int
+) -> Callable[[float], float]:
+    """δ ↦ P_δ(an outcome at least as high as the observed one, stage-wise ordering)."""
+    k = len(zs)
+    t = info / info[-1]
+    b = np.asarray(bounds.z[:k], dtype=float)
+    upper = np.r_[b[:-1], zs[-1]]
+    lower = np.r_[-b[:-1] if bounds.sides == 2 else np.full(k - 1, -np.inf), -np.inf]
+
+    def tail(drift: float) -> float:
+        up, _ = crossing_probabilities(upper, lower, t, drift, r=r)
+        return float(min(1.0, max(0.0, up.sum())))
+
+    return tail
+
+
+def _invert(tail: Callable[[float], float], target: float, centre: float) -> float:
+    """The drift at which the (increasing) tail probability equals ``target``."""
+    lo, hi = centre - 8.0, centre + 8.0
+    while tail(lo) > target:
+        lo -= 8.0
+    while tail(hi) < target:
+        hi += 8.0
+    return float(optimize.brentq(lambda d: tail(d) - target, lo, hi, xtol=1e-10))
+
+
+def stagewise_inference(
+    z: Sequence[float],
+    information: Sequence[float],
+    bounds: Boundaries,
+    *,
+    level: float,
+    r: int = GRID_R,
+) -> Adjusted:
+    """Adjusted inference after stopping at look len(z), by the stage-wise ordering.
+
+    Outcomes are ordered by the look at which the upper boundary is crossed (earlier is more
+    extreme), then by z (Armitage 1957; Fairbanks & Madsen 1982; Tsiatis, Rosner & Mehta 1984;
+    Jennison & Turnbull 2000, ch. 8). θ is the effect on the scale where Z_k ~ N(θ·sqrt(I_k), 1),
+    ``information`` the absolute I_k (1/variance). The efficacy boundaries alone define the
+    ordering (futility is non-binding); a look that did not cross (the final look, or a stop
+    for futility) is treated as the last. The p-value is P_0(outcome at least as extreme),
+    twice the smaller tail when sides = 2; the estimate is median-unbiased and the interval
+    has equal tails of (1 − level) / 2.
+    """
+    level = _probability("level", level)
+    zs, info = _observed(z, information, bounds)
+    tail = _ordering_tail(zs, info, bounds, r)
+    p_up = tail(0.0)
+    p = min(1.0, 2.0 * min(p_up, 1.0 - p_up)) if bounds.sides == 2 else p_up
+    scale = math.sqrt(float(info[-1]))
+    centre = float(zs[-1])
+    half = (1.0 - level) / 2.0
+    estimate = _invert(tail, 0.5, centre) / scale
+    ci = (_invert(tail, half, centre) / scale, _invert(tail, 1.0 - half, centre) / scale)
+    return Adjusted(
+        p_value=float(p), estimate=estimate, ci=ci, look=len(zs), level=level, sides=bounds.sides
+    )
+
+
+def repeated_ci(estimate: float, information: float, bound_z: float) -> tuple[float, float]:
+    """Repeated confidence interval at one look: θ̂ ± b_k / sqrt(I_k) (Jennison & Turnbull
+    1989, Journal of the Royal Statistical Society B 51: 305-361); the intervals at all looks
+    cover θ together with the probability the boundaries were built for."""
+    est = _real("estimate", estimate)
+    info = _real("information", information)
+    if info <= 0:
+        raise ValueError(f"information must be positive, got {information!r}")
+    if isinstance(bound_z, bool) or not isinstance(bound_z, Real) or not float(bound_z) > 0:
+        raise ValueError(f"bound_z must be a positive number, got {bound_z!r}")
+    half = float(bound_z) / math.sqrt(info)
+    return (est - half, est + half)
