@@ -239,7 +239,8 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
     actor = resolve_actor(actor)
     version = int(last["version"]) + 1
     record = _version_record(loaded, version, last["fingerprint"], reason.strip(), actor)
-    runs = [e for e in audit.read_log(audit.log_path(loaded.path)) if e.get("action") == "run"]
+    runs = [e for e in audit.read_log(audit.log_path(loaded.path))
+            if e.get("action") in ("run", "look")]
     deviations = []
     if runs:
         deviations.append(Departure(
@@ -399,12 +400,14 @@ def _environment_departures(record: dict[str, Any], env: dict[str, str]) -> list
 
 def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         actor: str | None = None, accept_deviation: str | None = None,
-        overrides: Mapping[str, Any] | None = None) -> RunOutcome:
+        overrides: Mapping[str, Any] | None = None, look: int | None = None) -> RunOutcome:
     """Run the locked plan on ``data``; write the report folder and the ``run`` entry.
 
     ``overrides`` (``{"alpha": 0.025, "hypotheses.H1.test": "fisher-exact"}``) change the
     locked analysis for this run only; each change is an ``override`` departure and needs
     ``accept_deviation``. The fingerprint recorded stays the locked one.
+    ``look``: run interim look K of a plan with looks (a ``look`` entry); a plain run of such a
+    plan is its final analysis (see ``looks.py``).
     """
     if accept_deviation is not None and not accept_deviation.strip():
         raise BadInput("--accept-deviation needs a reason")
@@ -430,6 +433,9 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
                 deviations.append(Departure("amended-after-unblinding", d.get("detail", ""),
                                             d.get("expected"), d.get("found")))
     runs = [e for e in entries if e.get("action") == "run"]
+    from .looks import look_details, look_run
+
+    looks = look_run(model, entries, fp, look)
     out_path = Path(out) if out is not None else default_folder(loaded.path, "run")
     if out is not None:
         check_out_path(loaded.path, out_path)  # before the work; the default is numbered
@@ -437,10 +443,13 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
         data_path=data_path, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes,
-        previous_data=runs[-1].get("data") if runs else None,
+        previous_data=runs[-1].get("data") if runs and looks is None else None,
+        looks=looks,
     )
     mark_overrides(results, changes)
-    return publish(loaded.path, out_path, results, numbered=out is None)
+    action = "look" if look is not None else "run"
+    return publish(loaded.path, out_path, results, numbered=out is None, action=action,
+                   details=look_details(results))
 
 
 def rehearse(plan: str | Path, data: str | Path, *, out: str | Path | None = None,

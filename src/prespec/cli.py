@@ -58,6 +58,9 @@ def _parser() -> argparse.ArgumentParser:
                    help="override a hypothesis's locked test (repeatable; a departure)")
     c.add_argument("--multiplicity", metavar="NAME",
                    help="override the locked multiplicity method (a departure)")
+    c.add_argument("--look", type=int, metavar="K",
+                   help="run interim look K of a plan with looks (a plain run is the final "
+                   "analysis)")
     c = add("rehearse", "a blinded dry run: never reads the group column, checks the data "
             "and every step, and writes pooled figures and a data dictionary only", writes=True)
     c.add_argument("plan")
@@ -195,8 +198,11 @@ def _dispatch(args: argparse.Namespace) -> int:
             print(f"{args.plan}: {res.note}")
         print(f"fingerprint: {res.fingerprint}")
     elif args.command == "run":
+        from .report.looks import look_line
+
         out = api.run(args.plan, args.data, out=args.out, actor=args.actor,
-                      accept_deviation=args.accept_deviation, overrides=_overrides(args))
+                      accept_deviation=args.accept_deviation, overrides=_overrides(args),
+                      look=args.look)
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
         for hyp in out.results["hypotheses"]:
@@ -207,6 +213,8 @@ def _dispatch(args: argparse.Namespace) -> int:
                         "do not reject H0" if hyp["reject"] is not None else "no decision")
             flag = "" if hyp.get("pre_specified", True) else " (not pre-specified: override)"
             print(f"{hyp['id']}: {hyp['test']}, {shown}, {decision}{flag}")
+            if hyp.get("looks"):
+                print(f"  {look_line(hyp)}")
         print(out.folder)
     elif args.command == "rehearse":
         out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor)

@@ -21,6 +21,11 @@ DEPARTURE_CODES: dict[str, str] = {
     "sample-size-shortfall": "a group's analysed total is below its planned_n",
     "amended-after-unblinding": "the plan was amended after a run on the data",
     "environment-differs-from-lock": "a version of Python or a dependency differs from the lock's",
+    "look-out-of-order": "an interim look run before an earlier one, or after a later one",
+    "look-repeated": "an interim look (or the final analysis) run a second time",
+    "final-without-looks": "the final analysis run without every interim look the plan names",
+    "look-off-plan": "a look with classical boundaries away from its planned information "
+                     "fraction, where those boundaries do not hold",
 }
 
 # Departures that stop a run (exit 3) unless the user accepts them with a reason.

@@ -112,8 +112,12 @@ def compute_results(
     deviations: list[Departure],
     notes: list[Note],
     previous_data: str | None,
+    looks: Any = None,
 ) -> dict[str, Any]:
-    """Read the data, reduce it, run the statistics: the results.json document (not written)."""
+    """Read the data, reduce it, run the statistics: the results.json document (not written).
+
+    ``looks`` (a :class:`prespec.looks.LookRun`) makes it the run of an interim look or of the
+    final analysis of a plan with looks (``looks.py``)."""
     frame = read_data(data_path)
     data_hash = file_sha256(data_path)
     prepared = prepare(frame, plan, data_path)
@@ -127,10 +131,19 @@ def compute_results(
                 data_hash,
             )
         )
-    deviations.extend(prepared.deviations)
+    found = list(prepared.deviations)
     notes = [*notes, *prepared.notes]
+    if looks is not None and not looks.final:  # an interim look is short of planned_n by design
+        notes += [Note("interim-below-planned-n", d.detail) for d in found
+                  if d.code == "sample-size-shortfall"]
+        found = [d for d in found if d.code != "sample-size-shortfall"]
+    deviations.extend(found)
     hypotheses, stat_notes = analyse(plan, prepared)
     notes.extend(stat_notes)
+    if looks is not None:
+        from .looks import apply_looks
+
+        deviations.extend(apply_looks(plan, hypotheses, looks, notes))
     return build_results(
         kind="run",
         plan=plan,

@@ -136,7 +136,7 @@ def move_into_place(tmp: Path, folder: Path, manifest: str | None = None) -> Non
 
 
 def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bool,
-            action: str = "run") -> RunOutcome:
+            action: str = "run", details: dict[str, Any] | None = None) -> RunOutcome:
     """Build the report under a temporary name, append its log entry, then move it into place.
 
     The log entry is the moment the run counts. Before it, a failure removes everything
@@ -162,7 +162,7 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
             action=action,
             plan=results["plan"],
             data=results["data"],
-            details={"report": report_rel, "manifest": manifest},
+            details={"report": report_rel, "manifest": manifest, **(details or {})},
             deviations=results["deviations"],
         )
     except BaseException:
@@ -212,7 +212,7 @@ def complete_interrupted(plan_path: Path, entries: list[dict[str, Any]]) -> list
     the folders completed. Safe to run by several processes at once (one rename wins)."""
     done = []
     for entry in entries:
-        if entry.get("action") not in ("run", "rehearse"):
+        if entry.get("action") not in ("run", "rehearse", "look"):
             continue
         pending = pending_report(plan_path, entry)
         if pending is None:

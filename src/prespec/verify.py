@@ -18,6 +18,7 @@ from .api import VerifyResult, apply_overrides, mark_overrides
 from .audit.lockfile import logged_pending, pending_path, version_digest
 from .canonical import file_sha256
 from .errors import IntegrityStop, PrespecError
+from .looks import look_problem, look_run
 from .manifest import check_manifest
 from .plan import fingerprint, load_plan, plan_from_resolved
 from .publish import PARTIAL, pending_report
@@ -199,7 +200,7 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
                    ) -> dict[str, Path]:
     found: dict[str, Path] = {}
     for entry in entries:
-        if entry["action"] not in ("run", "rehearse"):
+        if entry["action"] not in ("run", "rehearse", "look"):
             continue
         folder, rel = _report_folder(plan, entry, result)
         if rel in found:
@@ -221,15 +222,22 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if doc.get("data") != entry["data"]:
             raise _fail(result, f"report {rel}: results.json names data {doc.get('data')}, "
                         f"the log {entry['data']}")
-        expected_kind = "run" if entry["action"] == "run" else "rehearsal"
+        expected_kind = "rehearsal" if entry["action"] == "rehearse" else "run"
         if doc.get("kind") != expected_kind:
             raise _fail(result, f"report {rel}: results.json is a {doc.get('kind')!r} report, "
                         f"the log records a {entry['action']}")
         if doc.get("deviations") != entry["deviations"]:
             raise _fail(result, f"report {rel}: its departures differ from those its log entry "
                         "recorded")
+        problem = look_problem(entries, entry, doc)
+        if problem:
+            raise _fail(result, f"report {rel}: {problem}")
         found[rel] = folder
     result.passed.append(f"reports: {len(found)} folder(s) match their manifests and log entries")
+    looked = [e for e in entries if isinstance(e["details"], dict) and "look" in e["details"]]
+    if looked:
+        result.passed.append(f"interim looks: {len(looked)} look(s) in the log, each report's "
+                             "look, observed fractions, z statistics and history match the log")
     return found
 
 
@@ -362,6 +370,13 @@ def _lookup(doc: Any, path: str) -> Any:
     return doc
 
 
+def _look_of(entries: list[dict[str, Any]], entry: dict[str, Any], model: Any) -> Any:
+    """The look a run or look entry ran, from the log entries before it."""
+    before = [e for e in entries if e["seq"] < entry["seq"]]
+    number = entry["details"].get("look") if entry["action"] == "look" else None
+    return look_run(model, before, entry["plan"], number)
+
+
 def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None,
            found: dict[str, Path], data: Path, report: str | None,
            result: VerifyResult) -> None:
@@ -370,7 +385,7 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
     if not data.is_file():
         raise _fail(result, f"rerun: {data}: no such data file")
     data_hash = file_sha256(data)
-    runs = [e for e in entries if e["action"] == "run"]
+    runs = [e for e in entries if e["action"] in ("run", "look")]
     if report is not None:
         wanted = Path(report).as_posix().rstrip("/")
         runs = [e for e in runs if e["details"].get("report") == wanted]
@@ -393,7 +408,8 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
                 plan_path=plan, plan=model, fingerprint=stored.get("plan"),
                 version=stored.get("plan_version"), data_path=data,
                 actor=str(stored.get("actor")), environment=stored.get("environment") or {},
-                deviations=[], notes=[], previous_data=None)
+                deviations=[], notes=[], previous_data=None,
+                looks=_look_of(entries, entry, model))
         except PrespecError as exc:
             raise _fail(result, f"rerun {rel}: the recomputation failed: {exc}") from None
         if "overrides" in stored:

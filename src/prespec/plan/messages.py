@@ -9,6 +9,7 @@ from pydantic import BaseModel
 from prespec.plan import model as m
 from prespec.plan import vocabulary as v
 from prespec.plan.locate import Issue
+from prespec.plan.looks import Futility, Looks
 from prespec.plan.model import suggest
 from prespec.plan.yamlread import KeyPath, describe, show
 
@@ -59,6 +60,8 @@ def _model_at(path: KeyPath) -> type[BaseModel] | None:
         ("hypotheses", "#", "estimand"): m.Estimand,
         ("hypotheses", "#", "estimand", "intercurrent", "#"): m.Intercurrent,
         ("design",): m.Design,
+        ("hypotheses", "#", "looks"): Looks,
+        ("hypotheses", "#", "looks", "futility"): Futility,
     }.get(shape)
 
 

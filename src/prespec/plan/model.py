@@ -23,6 +23,7 @@ from pydantic import (
 from pydantic_core import PydanticCustomError
 
 from prespec.plan import vocabulary as v
+from prespec.plan.looks import Looks
 from prespec.plan.yamlread import describe, show
 
 TestName = Literal[tuple(sorted(v.KNOWN_TESTS))]  # type: ignore[valid-type]
@@ -343,6 +344,7 @@ class Hypothesis(_Model):
     monte_carlo: MonteCarlo | None = None
     estimand: Estimand | None = None
     sensitivity: list[SensitivityName] | None = None
+    looks: Looks | None = Field(default=None, description="interim analyses of this hypothesis")
 
     @model_validator(mode="before")
     @classmethod

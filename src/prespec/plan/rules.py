@@ -15,6 +15,7 @@ from typing import Any
 from prespec.matching import value_key
 from prespec.plan import vocabulary as v
 from prespec.plan.locate import Issue
+from prespec.plan.looks import all_looks_issues
 from prespec.plan.model import Hypothesis, Plan, suggest
 from prespec.plan.yamlread import KeyPath, show
 
@@ -44,6 +45,7 @@ def format_issues(plan: Plan) -> Iterator[Issue]:
     seen: dict[str, int] = {}
     for i, hyp in enumerate(plan.hypotheses):
         yield from _hypothesis_issues(plan, hyp, ("hypotheses", i), seen)
+    yield from all_looks_issues(plan)
 
 
 def _data_issues(plan: Plan) -> Iterator[Issue]:

@@ -146,6 +146,7 @@ KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
         "monte_carlo",
         "estimand",
         "sensitivity",
+        "looks",
     }
 )
 AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
@@ -155,7 +156,7 @@ AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
 LATER_KEYS: dict[str, frozenset[str]] = {
     "plan": frozenset(),
     "data": frozenset({"source", "table"}),
-    "hypothesis": frozenset({"looks", "over", "within"}),
+    "hypothesis": frozenset({"over", "within"}),
 }
 
 

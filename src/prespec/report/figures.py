@@ -131,6 +131,9 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
         raise PrespecError("results.json: hypotheses: two tipping-point analyses of one "
                            "hypothesis, or two ids that map to the same figure name")
     jobs += tipping
+    from prespec.report.looks import looks_jobs
+
+    jobs += looks_jobs(results)
     if has_graph(results):
         jobs.append((MULTIPLICITY_GRAPH, _graph_job(mapping(results["multiplicity"],
                                                             "multiplicity"))))

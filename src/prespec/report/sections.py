@@ -21,6 +21,7 @@ from prespec.report.figures import (
     has_graph,
     proportions_name,
 )
+from prespec.report.looks import looks_block
 from prespec.report.markup import (
     BADGE_STYLE,
     CAUTION_STYLE,
@@ -615,6 +616,9 @@ def hypothesis_parts(
         )
     extra, figures = sensitivity_block(hyp, where)  # beside the primary result, after it
     parts.append(extra)
+    looks_html, looks_figures = looks_block(hyp, where)
+    parts.append(looks_html)
+    figures = [*looks_figures, *figures]
     return '<div class="prespec-hyp">' + "".join(parts) + "</div>", figures
 
 
