@@ -197,6 +197,16 @@ def _hypothesis_rows(plan: Any, executed: dict[str, Executed]) -> list[dict[str,
     return rows
 
 
+def _dummy_looks(plan: Any, hypotheses: list[dict[str, Any]], notes: list[Note]) -> None:
+    """The step of interim looks on the dummy allocation, as the final analysis with no
+    earlier looks (the rehearsal has no log of looks); its departures are discarded."""
+    from .looks import LookRun, apply_looks, number_of_looks
+
+    count = number_of_looks(plan)
+    if count is not None:
+        apply_looks(plan, hypotheses, LookRun(count, count, (), (), ()), notes)
+
+
 def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any]
                ) -> tuple[dict[str, Executed], list[Note]]:
     """The statistics and the whole report on the dummy allocation, in a temporary folder
@@ -206,6 +216,7 @@ def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any]
     notes: list[Note] = []
     try:
         hypotheses, stat_notes = analyse(plan, prepared)
+        _dummy_looks(plan, hypotheses, stat_notes)
     except Exception as exc:  # noqa: BLE001 - recorded; name the hypotheses that fail
         found = _diagnose(plan, prepared)
         if all(e.executed for e in found):

@@ -391,6 +391,9 @@ def design_document(plan: Any, *, where: str = "plan", fingerprint: str | None =
         "notes": [],
         "caution": CAUTION,
     }
+    from prespec.design.looks import add_looks
+
+    add_looks(plan, doc)
     if any(h.then is not None for h in plan.hypotheses):
         doc["notes"].append("pairwise follow-ups (then) are gated by their k-group hypothesis "
                             "and not sized here; --simulate gives their power")
@@ -432,6 +435,8 @@ def _pm(value: float | None, se: float | None) -> str:
 
 def design_text(doc: dict[str, Any]) -> str:
     """The design document as text, for the terminal."""
+    from prespec.design.looks import looks_lines
+
     ratio = ":".join(f"{a:g}" for a in doc["allocation"].values())
     lines = [f"Design: {doc['title']}",
              (f"Target power {doc['power_target']:g} at the assumed rates "
@@ -448,6 +453,7 @@ def design_text(doc: dict[str, Any]) -> str:
             lines.append("      analysed n per group: not computable")
         shown = "no data.planned_n" if h["power"] is None else f"{h['power']:.4f}"
         lines.append(f"      power at data.planned_n: {shown}")
+        lines.extend(looks_lines(h))
         lines.extend(f"      note: {note}" for note in h["notes"])
     sim = doc.get("simulation")
     if sim:
