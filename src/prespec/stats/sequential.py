@@ -24,6 +24,7 @@ O'Brien PC, Fleming TR. A multiple testing procedure for clinical trials. Biomet
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -202,6 +203,19 @@ def spent(name: str, t: ArrayLike, total: float, gamma: float | None = None) -> 
 # --------------------------------------------------------------------------- integration
 
 
+@functools.lru_cache(maxsize=16)
+def _offsets(r: int) -> np.ndarray:
+    """The 6r − 1 grid offsets from the mean (Jennison & Turnbull 2000, section 19.2)."""
+    i = np.arange(1, 6 * r)
+    x = np.empty(len(i))
+    left, mid, right = i < r, (i >= r) & (i <= 5 * r), i > 5 * r
+    x[left] = -3.0 - 4.0 * np.log(r / i[left])
+    x[mid] = -3.0 + 3.0 * (i[mid] - r) / (2.0 * r)
+    x[right] = 3.0 + 4.0 * np.log(r / (6 * r - i[right]))
+    x.flags.writeable = False
+    return x
+
+
 def _grid(mean: float, lo: float, hi: float, r: int = GRID_R) -> tuple[np.ndarray, np.ndarray]:
     """Grid points and Simpson weights on (lo, hi) for a density centred near ``mean``.
 
@@ -209,19 +223,7 @@ def _grid(mean: float, lo: float, hi: float, r: int = GRID_R) -> tuple[np.ndarra
     logarithmically to mean ± (3 + 4·log r); trimmed to the interval with its ends added, then
     the midpoints inserted so that Simpson's rule applies.
     """
-    i = np.arange(1, 6 * r)
-    x = (
-        np.where(
-            i < r,
-            -3.0 - 4.0 * np.log(r / np.maximum(i, 1)),
-            np.where(
-                i <= 5 * r,
-                -3.0 + 3.0 * (i - r) / (2.0 * r),
-                3.0 + 4.0 * np.log(r / np.maximum(6 * r - i, 1)),
-            ),
-        )
-        + mean
-    )
+    x = _offsets(r) + mean
     inner = x[(x > lo) & (x < hi)]
     first = max(lo, x[0])
     last = min(hi, x[-1])
