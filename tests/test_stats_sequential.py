@@ -77,7 +77,7 @@ def test_lan_demets_pocock_five_looks() -> None:
     t = np.array(_equal(5))
     corr = np.sqrt(np.minimum.outer(t, t) / np.maximum.outer(t, t))
     z = np.array(b.z)
-    mvn = stats.multivariate_normal(np.zeros(5), corr, abseps=1e-10, releps=1e-10, maxpts=10**7)
+    mvn = stats.multivariate_normal(np.zeros(5), corr, abseps=1e-9, releps=1e-9, maxpts=10**7)
     upper = mvn.cdf(np.r_[z[:4], np.inf], lower_limit=np.r_[-z[:4], z[4]])
     increment = 0.05 * (1.0 - math.log1p((math.e - 1.0) * 0.8))
     assert 2.0 * upper == pytest.approx(increment, abs=1e-8)
