@@ -104,30 +104,30 @@ def test_schema_lists_looks() -> None:
 BAD = [
     ("not increasing", "    looks:\n      fractions: [0.6, 0.4, 1]\n      efficacy: pocock\n",
      "fractions: [", "hypotheses.H1.looks.fractions", "must increase from look to look"),
-    ("not ending at 1", "    looks:\n      fractions: [0.3, 0.6]\n      efficacy: "
-     "lan-demets-pocock\n", "fractions: [", "hypotheses.H1.looks.fractions", "must end at 1"),
+    ("not ending at 1", ("    looks:\n      fractions: [0.3, 0.6]\n      efficacy: "
+     "lan-demets-pocock\n"), "fractions: [", "hypotheses.H1.looks.fractions", "must end at 1"),
     ("one look", "    looks:\n      fractions: [1]\n      efficacy: lan-demets-pocock\n",
      "fractions: [", "hypotheses.H1.looks.fractions", "at least two looks"),
     ("above 1", "    looks:\n      fractions: [0.5, 1.5]\n      efficacy: lan-demets-pocock\n",
      "fractions: [", "hypotheses.H1.looks.fractions[2]", "must be at most 1, found 1.5"),
-    ("both fractions and sizes", "    looks:\n      fractions: [0.5, 1]\n      sizes: [300, 600]\n"
-     "      efficacy: pocock\n", "looks:", "hypotheses.H1.looks", "either fractions"),
+    ("both fractions and sizes", ("    looks:\n      fractions: [0.5, 1]\n      sizes: [300, 600]\n"
+     "      efficacy: pocock\n"), "looks:", "hypotheses.H1.looks", "either fractions"),
     ("gamma missing", "    looks:\n      fractions: [0.5, 1]\n      efficacy: hwang-shih-decani\n",
      "efficacy: hwang", "hypotheses.H1.looks.gamma", "is required for hwang-shih-decani"),
-    ("gamma on another function", "    looks:\n      fractions: [0.5, 1]\n      efficacy: pocock\n"
-     "      gamma: -2\n", "gamma:", "hypotheses.H1.looks.gamma", "only with hwang-shih-decani"),
-    ("futility gamma missing", "    looks:\n      fractions: [0.5, 1]\n      efficacy: pocock\n"
-     "      futility: {spending: hwang-shih-decani}\n", "futility:",
+    ("gamma on another function", ("    looks:\n      fractions: [0.5, 1]\n      efficacy: pocock\n"
+     "      gamma: -2\n"), "gamma:", "hypotheses.H1.looks.gamma", "only with hwang-shih-decani"),
+    ("futility gamma missing", ("    looks:\n      fractions: [0.5, 1]\n      efficacy: pocock\n"
+     "      futility: {spending: hwang-shih-decani}\n"), "futility:",
      "hypotheses.H1.looks.futility.gamma", "is required for hwang-shih-decani"),
-    ("binding futility", "    looks:\n      fractions: [0.5, 1]\n      efficacy: pocock\n"
-     "      futility: {spending: lan-demets-pocock, binding: true}\n", "futility:",
+    ("binding futility", ("    looks:\n      fractions: [0.5, 1]\n      efficacy: pocock\n"
+     "      futility: {spending: lan-demets-pocock, binding: true}\n"), "futility:",
      "hypotheses.H1.looks.futility.binding", "binding futility boundaries are not supported"),
     ("unknown spending", "    looks:\n      fractions: [0.5, 1]\n      efficacy: obrien\n",
      "efficacy: obrien", "hypotheses.H1.looks.efficacy", "obrien"),
     ("misspelt key", "    looks:\n      fraction: [0.5, 1]\n      efficacy: pocock\n",
      "fraction:", "hypotheses.H1.looks", "'fraction' is not a known key"),
-    ("classical on unequal looks", "    looks:\n      fractions: [0.3, 1]\n      efficacy: "
-     "obrien-fleming\n", "fractions: [", "hypotheses.H1.looks.fractions",
+    ("classical on unequal looks", ("    looks:\n      fractions: [0.3, 1]\n      efficacy: "
+     "obrien-fleming\n"), "fractions: [", "hypotheses.H1.looks.fractions",
      "equally spaced looks only"),
     ("exact test", "    looks:\n      fractions: [0.5, 1]\n      efficacy: pocock\n",
      "looks:", "hypotheses.H1.looks", "'fisher-exact' has none"),
