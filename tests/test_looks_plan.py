@@ -229,3 +229,4 @@ def test_check_prints_the_plan_with_looks(tmp_path: Path) -> None:
     res = api.check(write(tmp_path, PLAN))
     assert res.loaded.model.hypotheses[0].looks is not None
     assert res.lock_status == "not locked"
+    assert "; 2 looks at information 0.5, 1; lan-demets-obrien-fleming\n" in res.summary + "\n"

@@ -87,6 +87,19 @@ class Looks(_Model):
         return [s / sizes[-1] for s in sizes] if sizes else []
 
 
+def looks_words(looks: Looks) -> str:
+    """The looks in one phrase, for ``prespec check``."""
+    when = ", ".join(f"{t:.3g}" for t in looks.planned_fractions())
+    words = f"{len(looks.planned_fractions())} looks at information {when}; {looks.efficacy}"
+    if looks.gamma is not None:
+        words += f" (gamma {looks.gamma:g})"
+    if looks.futility is not None:
+        words += f"; non-binding futility {looks.futility.spending}"
+        if looks.futility.gamma is not None:
+            words += f" (gamma {looks.futility.gamma:g})"
+    return words
+
+
 def planned_total(plan: Any, hyp: Any) -> int | None:
     """The planned total size of a hypothesis's two groups: the last of ``looks.sizes``, else
     the sum of their ``data.planned_n``; None when neither is given."""

@@ -53,6 +53,10 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
                      f"{_num(hyp.sparse.min_expected)}")
     if hyp.strata:
         parts.append(f"strata {', '.join(hyp.strata)}")
+    if hyp.looks is not None:
+        from prespec.plan.looks import looks_words
+
+        parts.append(looks_words(hyp.looks))
     title = f" - {hyp.title}" if hyp.title else ""
     return (f"  {hyp.id} [{hyp.role}] {hyp.outcome}: {_compare(plan, hyp)}{title}\n"
             f"      {'; '.join(parts)}")
