@@ -198,20 +198,32 @@ SECOND = """\
 """
 
 
-def test_looks_in_a_multiplicity_family_are_refused(tmp_path: Path) -> None:
-    text = (PLAN + SECOND).replace("multiplicity: none", "multiplicity: holm")
+def test_looks_in_a_multiplicity_family(tmp_path: Path) -> None:
+    # weighted Bonferroni procedures run over the looks as graphs: accepted
+    for method in ("holm", "bonferroni", "fixed-sequence"):
+        load_plan(write(tmp_path, (PLAN + SECOND).replace("multiplicity: none",
+                                                          f"multiplicity: {method}")))
+    graph = ("multiplicity: {method: graphical, weights: {H1: 0.8, H3: 0.2}, transitions: "
+             "{H1: {H3: 1}, H3: {H1: 1}}}")
+    load_plan(write(tmp_path, (PLAN + SECOND).replace("multiplicity: none", graph)))
+    # others are refused, with the reason
+    text = (PLAN + SECOND).replace("multiplicity: none", "multiplicity: hochberg")
     found = error(tmp_path, text)
     assert found.startswith(f"{tmp_path / 'trial.yaml'}:{line_of(text, 'looks:')}: "
                             "hypotheses.H1.looks: interim looks inside a multiplicity family of 2 "
-                            "hypotheses (holm) are not supported")
-    assert "Maurer and Bretz 2013" in found
-    # one hypothesis with looks beside a plain one in a family: refused too
+                            "hypotheses are supported with the graphical procedure over the looks "
+                            "(Maurer and Bretz 2013)")
+    assert "hochberg is not a weighted Bonferroni procedure" in found
+    # one hypothesis with looks beside a plain one: the plain one is tested at the final look
     plain = SECOND.replace("    looks:\n      fractions: [0.5, 1]\n      efficacy: "
                            "lan-demets-pocock\n", "")
-    assert "not supported" in error(tmp_path, (PLAN + plain).replace("multiplicity: none",
-                                                                     "multiplicity: bonferroni"))
-    # under multiplicity: none each hypothesis with looks is tested at the full alpha
-    load_plan(write(tmp_path, PLAN + SECOND))
+    load_plan(write(tmp_path, (PLAN + plain).replace("multiplicity: none", "multiplicity: holm")))
+    # gated follow-ups are refused in such a family
+    gated = (PLAN + plain).replace("multiplicity: none", "multiplicity: holm").replace(
+        "    role: exploratory\n", "    role: secondary\n    then: {pairwise: reference, "
+        "multiplicity: holm}\n")
+    assert ": hypotheses.H2.then: gated follow-up comparisons are not supported" in error(
+        tmp_path, gated)
 
 
 def test_every_hypothesis_plans_the_same_number_of_looks(tmp_path: Path) -> None:

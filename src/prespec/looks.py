@@ -41,8 +41,15 @@ from .errors import BadInput
 from .plan.looks import CLASSICAL, CLASSICAL_TOLERANCE, planned_total, sides
 
 #: The decisions of a look.
-DECISIONS: tuple[str, ...] = ("continue", "stop-for-efficacy", "futility-may-be-considered",
-                              "reject-at-final", "not-rejected-at-final", "not-computable")
+DECISIONS: tuple[str, ...] = (
+    "continue",
+    "stop-for-efficacy",
+    "futility-may-be-considered",
+    "reject-at-final",
+    "not-rejected-at-final",
+    "rejected-earlier",
+    "not-computable",
+)
 #: The per-hypothesis keys a look's log entry records.
 HISTORY_KEYS: tuple[str, ...] = ("id", "analysed", "fraction", "z", "information", "estimate",
                                   "crossed")
@@ -189,15 +196,21 @@ def _fmt(x: float) -> str:
     return f"{x:.4g}"
 
 
-def _bounds_for(plan: Any, hyp: Any, fractions: list[float], final: bool) -> Any:
-    """The boundaries at ``fractions``; futility with the drift of the planned design."""
+def _bounds_for(
+    plan: Any, hyp: Any, fractions: list[float], final: bool, alpha: float | None = None
+) -> Any:
+    """The planned boundaries and those at ``fractions``, at ``alpha`` (default the plan's);
+    futility with the drift of the planned design."""
     from .stats.sequential import boundaries
 
     looks = hyp.looks
     fut = looks.futility
     common: dict[str, Any] = {
-        "alpha": float(plan.alpha), "sides": sides(hyp), "efficacy": looks.efficacy,
-        "gamma": looks.gamma, "futility": fut.spending if fut else None,
+        "alpha": float(plan.alpha if alpha is None else alpha),
+        "sides": sides(hyp),
+        "efficacy": looks.efficacy,
+        "gamma": looks.gamma,
+        "futility": fut.spending if fut else None,
         "futility_gamma": fut.gamma if fut else None,
         "power": plan.design.power if fut is not None else None,
     }
@@ -207,10 +220,22 @@ def _bounds_for(plan: Any, hyp: Any, fractions: list[float], final: bool) -> Any
     return planned, boundaries(fractions, final=final, drift=planned.drift, **common)
 
 
-def hypothesis_look(plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun,
-                    notes: list[Note]) -> tuple[dict[str, Any], list[Departure]]:
+def hypothesis_look(
+    plan: Any,
+    hyp: Any,
+    entry: dict[str, Any],
+    run: LookRun,
+    notes: list[Note],
+    graph: dict[str, Any] | None = None,
+) -> tuple[dict[str, Any], list[Departure]]:
     """The ``looks`` block of one hypothesis at this look, and its ``look-off-plan``
-    departures; the entry's ``p_adjusted`` and ``reject`` become the sequential ones."""
+    departures; the entry's ``p_adjusted`` and ``reject`` become the sequential ones.
+
+    ``graph`` (from :func:`graph_decisions`): the hypothesis's level in the graphical
+    procedure and the look it was rejected at; its boundaries are then at that level, the
+    decision is the procedure's, and ``p_adjusted`` is null. The repeated confidence
+    intervals and the adjusted inference stay at the plan's alpha (intervals are never
+    adjusted for multiplicity)."""
     from .analysis import interval_level
     from .stats.sequential import repeated_ci
 
@@ -229,6 +254,13 @@ def hypothesis_look(plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun,
     if not classical:
         _check_fractions(hyp.id, numbers, used, run)
     planned, bounds = _bounds_for(plan, hyp, used, run.final)
+    decide = bounds  # the boundaries that decide: at the graph level under a procedure
+    if graph is not None:
+        decide = (
+            _bounds_for(plan, hyp, used, run.final, graph["level"])[1]
+            if graph["level"] > 0
+            else None
+        )
     departures: list[Departure] = []
     if classical:
         target = planned_t[run.look - 1]
@@ -244,34 +276,51 @@ def hypothesis_look(plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun,
         index = list(range(len(numbers)))
     rows = []
     for j, (k, i) in enumerate(zip(numbers, index, strict=True)):
-        rows.append({
-            "look": k,
-            "fraction": bounds.fractions[i],
-            "observed_fraction": observed[j],
-            "z": bounds.z[i],
-            "nominal_p": bounds.nominal_p[i],
-            "alpha_spent": bounds.alpha_spent[i],
-            "futility_z": None if bounds.futility_z is None else bounds.futility_z[i],
-            "beta_spent": None if bounds.beta_spent is None else bounds.beta_spent[i],
-        })
+        d = decide
+        rows.append(
+            {
+                "look": k,
+                "fraction": bounds.fractions[i],
+                "observed_fraction": observed[j],
+                "z": None if d is None else d.z[i],
+                "nominal_p": 0.0 if d is None else d.nominal_p[i],
+                "alpha_spent": 0.0 if d is None else d.alpha_spent[i],
+                "futility_z": None if d is None or d.futility_z is None else d.futility_z[i],
+                "beta_spent": None if d is None or d.beta_spent is None else d.beta_spent[i],
+            }
+        )
     direction = _direction(plan, hyp)
     z = now["z"]
-    b = bounds.z[index[-1]]
+    b = None if decide is None else decide.z[index[-1]]
     level = interval_level(float(plan.alpha), hyp.alternative, hyp.comparison)
     crossed: bool | None = None
     futile = False
-    if z is None:
+    earlier = (
+        graph is not None and graph["rejected_at"] is not None and graph["rejected_at"] < run.look
+    )
+    if earlier:
+        crossed, decision = True, "rejected-earlier"
+    elif z is None:
         decision = "not-computable"
         notes.append(Note("not-computable", f"{hyp.id}: the z statistic of look {run.look} is "
                           "not defined (no events, or all events, in both groups); no decision"))
     else:
-        crossed = abs(z) >= b if sides(hyp) == 2 else direction * z >= b
-        if not run.final and not crossed and bounds.futility_z is not None:
-            futile = direction * z <= bounds.futility_z[index[-1]]
-        decision = ("reject-at-final" if crossed else "not-rejected-at-final") if run.final \
-            else "stop-for-efficacy" if crossed else \
-            "futility-may-be-considered" if futile else "continue"
-    stopped_before = [k for k, h in past if h.get("crossed")]
+        if graph is not None:
+            crossed = graph["rejected_at"] == run.look
+        else:
+            crossed = abs(z) >= b if sides(hyp) == 2 else direction * z >= b
+        if not run.final and not crossed and decide is not None and decide.futility_z is not None:
+            futile = direction * z <= decide.futility_z[index[-1]]
+        decision = (
+            ("reject-at-final" if crossed else "not-rejected-at-final")
+            if run.final
+            else "stop-for-efficacy"
+            if crossed
+            else "futility-may-be-considered"
+            if futile
+            else "continue"
+        )
+    stopped_before = [k for k, h in past if h.get("crossed")] if graph is None else []
     if stopped_before:
         notes.append(Note("look-after-stop", f"{hyp.id}: look(s) {', '.join(map(str, stopped_before))} "
                           f"crossed the efficacy boundary; the trial continued to look {run.look}"))
@@ -280,7 +329,7 @@ def hypothesis_look(plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun,
                for k, h in past]
     values = [*(h for _, h in past), {**now, "analysed": analysed}]
     adjusted = None
-    if z is not None and (crossed or run.final):
+    if z is not None and not earlier and (crossed or run.final):
         zs = [h.get("z") for h in values]
         infos = [h.get("information") for h in values]
         if not complete or None in zs or None in infos:
@@ -294,7 +343,7 @@ def hypothesis_look(plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun,
         if est is None or info is None:
             repeated.append({"look": numbers[j], "estimate": est, "ci": [None, None]})
             continue
-        low, high = repeated_ci(float(est), float(info), rows[j]["z"])
+        low, high = repeated_ci(float(est), float(info), bounds.z[index[j]])
         repeated.append({"look": numbers[j], "estimate": est, "ci": [_finite(low), _finite(high)]})
     block = {
         "look": run.look,
@@ -312,8 +361,9 @@ def hypothesis_look(plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun,
         "information": now["information"],
         "estimate": now["estimate"],
         "boundary": b,
-        "futility_boundary": None if bounds.futility_z is None or run.final
-        else bounds.futility_z[index[-1]],
+        "futility_boundary": None
+        if decide is None or decide.futility_z is None or run.final
+        else decide.futility_z[index[-1]],
         "crossed": crossed,
         "decision": decision,
         "boundaries": rows,
@@ -325,8 +375,9 @@ def hypothesis_look(plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun,
         "adjusted": adjusted,
         "repeated_ci": [{**r, "level": level} for r in repeated],
         "scale": "risk difference (first group minus second); z is the pooled two-proportion z",
+        "graph": graph,
     }
-    entry["p_adjusted"] = None if adjusted is None else adjusted["p_value"]
+    entry["p_adjusted"] = None if adjusted is None or graph is not None else adjusted["p_value"]
     entry["reject"] = crossed
     return block, departures
 
@@ -366,19 +417,137 @@ def _check_fractions(hid: str, numbers: list[int], used: list[float], run: LookR
                        f"final analysis (--look {run.of})")
 
 
-def apply_looks(plan: Any, hypotheses: list[dict[str, Any]], run: LookRun,
-                notes: list[Note]) -> list[Departure]:
+def family(plan: Any) -> list[Any] | None:
+    """The hypotheses of the multiplicity family when the procedure must run over the looks
+    (a method other than ``none``, more than one member, some with looks); else None."""
+    method = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
+    members = [h for h in plan.hypotheses if h.role != "exploratory"]
+    if method == "none" or len(members) < 2 or all(h.looks is None for h in members):
+        return None
+    return members
+
+
+def _graph_of(plan: Any, members: list[Any]) -> tuple[str, list[float], list[list[float]]]:
+    from .stats.graphlooks import family_graph
+
+    mult = plan.multiplicity
+    if isinstance(mult, str):
+        return (mult, *family_graph(mult, len(members)))
+    ids = [h.id for h in members]
+    weights = [float(mult.weights.get(i, 0.0)) for i in ids]
+    transitions = [[float(mult.transitions.get(a, {}).get(b, 0.0)) for b in ids] for a in ids]
+    return "graphical", weights, transitions
+
+
+def _series(
+    plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun
+) -> tuple[list[int], list[float], list[float | None]]:
+    """The look numbers observed, the fractions the boundaries use, and the z statistics."""
+    total = planned_total(plan, hyp)
+    table = entry["table"]
+    fraction = int(sum(table["totals"])) / total if total else math.nan
+    past = [(p.look, p.hypotheses[hyp.id]) for p in run.history if hyp.id in p.hypotheses]
+    numbers = [k for k, _ in past] + [run.look]
+    used = [float(h.get("fraction")) for _, h in past] + [1.0 if run.final else fraction]
+    zs = [h.get("z") for _, h in past] + [
+        observe(list(table["events"]), list(table["totals"]))["z"]
+    ]
+    if hyp.looks.efficacy not in CLASSICAL:
+        _check_fractions(hyp.id, numbers, used, run)
+    return numbers, used, zs
+
+
+def graph_decisions(
+    plan: Any, members: list[Any], entries: dict[str, dict[str, Any]], run: LookRun
+) -> dict[str, dict[str, Any]]:
+    """The graphical procedure over the looks so far (Maurer & Bretz 2013): per member, its
+    level at the end of this look (at rejection, for a rejected one) and the look of its
+    rejection. A member without looks is tested once, at the final analysis, by its p-value."""
+    from .stats.graphlooks import graph_over_looks
+    from .stats.sequential import boundaries
+
+    method, weights, transitions = _graph_of(plan, members)
+    series = {h.id: _series(plan, h, entries[h.id], run) for h in members if h.looks is not None}
+    cache: dict[tuple[int, float, int], bool] = {}
+
+    def crosses(i: int, level: float, k: int) -> bool:
+        key = (i, level, k)
+        if key not in cache:
+            cache[key] = _crosses(members[i], level, k)
+        return cache[key]
+
+    def _crosses(hyp: Any, level: float, k: int) -> bool:
+        if hyp.looks is None:
+            p = entries[hyp.id].get("p_value")
+            return run.final and k == run.look and p is not None and p <= level
+        numbers, used, zs = series[hyp.id]
+        upto = len([n for n in numbers if n <= k])
+        if upto == 0:
+            return False
+        looks = hyp.looks
+        common = {"alpha": level, "sides": sides(hyp), "efficacy": looks.efficacy}
+        if looks.efficacy in CLASSICAL:
+            planned = boundaries(looks.planned_fractions(), **common)
+            bz = [planned.z[n - 1] for n in numbers[:upto]]
+        else:
+            final = run.final and numbers[upto - 1] == run.look
+            bz = list(boundaries(used[:upto], gamma=looks.gamma, final=final, **common).z)
+        direction = _direction(plan, hyp)
+        return any(
+            z is not None and (abs(z) >= b if sides(hyp) == 2 else direction * z >= b)
+            for z, b in zip(zs[:upto], bz, strict=True)
+        )
+
+    result = graph_over_looks(weights, transitions, float(plan.alpha), run.look, crosses)
+    initial = dict(zip([h.id for h in members], weights, strict=True))
+    return {
+        h.id: {
+            "method": method,
+            "initial_level": initial[h.id] * float(plan.alpha),
+            "level": result.levels[i],
+            "rejected_at": result.rejected_at(i),
+            "order": next(
+                (n + 1 for n, r in enumerate(result.rejections) if r.hypothesis == i), None
+            ),
+        }
+        for i, h in enumerate(members)
+    }
+
+
+def apply_looks(
+    plan: Any, hypotheses: list[dict[str, Any]], run: LookRun, notes: list[Note]
+) -> list[Departure]:
     """Add the ``looks`` block to every hypothesis with looks; at an interim look, the
-    hypotheses without looks are shown but not tested. Returns the departures of this look."""
+    hypotheses without looks are shown but not tested. With a multiplicity family, the
+    graphical procedure runs over the looks (:func:`graph_decisions`). Returns the
+    departures of this look."""
     departures = order_departures(run)
     by_id = {h.id: h for h in plan.hypotheses}
+    members = family(plan)
+    graph: dict[str, dict[str, Any]] = {}
+    if members is not None:
+        main = {e["id"]: e for e in hypotheses if e.get("parent") is None}
+        graph = graph_decisions(plan, members, main, run)
+        notes.append(
+            Note(
+                "graph-over-looks",
+                f"{graph[members[0].id]['method']} over the "
+                "interim looks (Maurer and Bretz 2013): each hypothesis is tested "
+                "with its boundaries at its current level in the graph; decisions "
+                "come from the boundaries, so p_adjusted is null",
+            )
+        )
     untested = []
     for entry in hypotheses:
         hyp = by_id.get(entry["id"]) if entry.get("parent") is None else None
         if hyp is not None and hyp.looks is not None:
-            block, found = hypothesis_look(plan, hyp, entry, run, notes)
+            block, found = hypothesis_look(plan, hyp, entry, run, notes, graph.get(hyp.id))
             entry["looks"] = block
             departures.extend(found)
+        elif hyp is not None and hyp.id in graph and run.final:
+            entry["p_adjusted"] = None
+            entry["reject"] = graph[hyp.id]["rejected_at"] is not None
+            entry["graph"] = graph[hyp.id]
         elif not run.final and entry.get("role") != "exploratory":
             entry["p_adjusted"] = None
             entry["reject"] = None

@@ -11,9 +11,11 @@ of two groups whose test gives a signed z on the risk-difference scale: ``two-pr
 or ``pearson-chi-square`` without continuity correction (the signed root of X² is that pooled
 z). Exact tests have no z; the corrected chi-square, the likelihood ratio and the stratified
 tests are not on the scale Z_k ~ N(θ·sqrt(I_k), 1) that the boundaries assume; a sparse switch
-would change the test between looks. Binding futility boundaries are not supported, nor are
-looks inside a multiplicity family of more than one hypothesis (the group-sequential graphical
-procedure of Maurer and Bretz 2013 is not implemented): :func:`plan_looks_issues`.
+would change the test between looks. Binding futility boundaries are not supported. In a
+multiplicity family of more than one hypothesis, looks need a weighted Bonferroni procedure
+(``graphical``, ``bonferroni``, ``holm``, ``fixed-sequence``), run over the looks as the
+graphical procedure of Maurer and Bretz (2013), and no gated follow-ups:
+:func:`plan_looks_issues`.
 """
 
 from __future__ import annotations
@@ -38,6 +40,8 @@ FUTILITY: tuple[str, ...] = ("lan-demets-obrien-fleming", "lan-demets-pocock",
 CLASSICAL: frozenset[str] = frozenset({"obrien-fleming", "pocock"})
 #: The tests whose statistic is a signed z on the risk-difference scale.
 Z_TESTS: frozenset[str] = frozenset({"two-proportion-z", "pearson-chi-square"})
+#: The multiplicity procedures that run over interim looks, as graphs (Maurer & Bretz 2013).
+GRAPH_METHODS: tuple[str, ...] = ("graphical", "bonferroni", "holm", "fixed-sequence")
 #: How far (absolute) an observed information fraction may lie from a classical boundary's
 #: planned fraction before the look is off its plan. # common practice: a few per cent
 CLASSICAL_TOLERANCE = 0.05
@@ -222,30 +226,49 @@ def _spending_issues(name: str, gamma: float | None, where: KeyPath,
 
 
 def plan_looks_issues(plan: Any) -> Iterator[Issue]:
-    """Rules across hypotheses: one number of looks, and no looks inside a multiplicity family
-    of more than one hypothesis (not supported), then the boundaries of each planned schedule.
-    """
-    with_looks = [(i, h) for i, h in enumerate(plan.hypotheses) if h.looks is not None
-                  and h.role != "exploratory"]
+    """Rules across hypotheses: one number of looks, and in a multiplicity family of more than
+    one hypothesis a procedure that runs over the looks, without gated follow-ups."""
+    with_looks = [
+        (i, h)
+        for i, h in enumerate(plan.hypotheses)
+        if h.looks is not None and h.role != "exploratory"
+    ]
     if not with_looks:
         return
     counts = {h.id: len(h.looks.planned_fractions()) for _, h in with_looks}
     first_id, first_count = next(iter(counts.items()))
     for i, h in with_looks:
         if counts[h.id] != first_count and counts[h.id] >= 2:
-            yield Issue(("hypotheses", i, "looks"), f"plans {counts[h.id]} looks and "
-                        f"{show(first_id)} plans {first_count}; every hypothesis with looks "
-                        "must plan the same number (--look K runs look K of each)", at_key=True)
-    family = [h.id for h in plan.hypotheses if h.role != "exploratory"]
+            yield Issue(
+                ("hypotheses", i, "looks"),
+                f"plans {counts[h.id]} looks and "
+                f"{show(first_id)} plans {first_count}; every hypothesis with looks "
+                "must plan the same number (--look K runs look K of each)",
+                at_key=True,
+            )
+    family = [h for h in plan.hypotheses if h.role != "exploratory"]
     method = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
-    if method != "none" and len(family) > 1:
-        i, h = with_looks[0]
-        yield Issue(("hypotheses", i, "looks"), f"interim looks inside a multiplicity family "
-                    f"of {len(family)} hypotheses ({method}) are not supported: the boundaries "
-                    "would have to follow the procedure across looks (the group-sequential "
-                    "graphical procedure of Maurer and Bretz 2013), which this version does "
-                    "not do; use multiplicity: none, or make this the only non-exploratory "
-                    "hypothesis", at_key=True)
+    if method == "none" or len(family) < 2:
+        return
+    i, h = with_looks[0]
+    if method not in GRAPH_METHODS:
+        yield Issue(
+            ("hypotheses", i, "looks"),
+            f"interim looks inside a multiplicity family "
+            f"of {len(family)} hypotheses are supported with the graphical procedure "
+            f"over the looks (Maurer and Bretz 2013), that is with multiplicity "
+            f"{', '.join(GRAPH_METHODS)} or none; {method} is not a weighted Bonferroni "
+            "procedure and is not supported with looks",
+            at_key=True,
+        )
+    for j, other in enumerate(plan.hypotheses):
+        if other.then is not None and other.role != "exploratory":
+            yield Issue(
+                ("hypotheses", j, "then"),
+                "gated follow-up comparisons are not "
+                "supported in a plan whose multiplicity family runs over interim looks",
+                at_key=True,
+            )
 
 
 def all_looks_issues(plan: Any) -> Iterator[Issue]:

@@ -40,7 +40,8 @@ DECISION_WORDS: dict[str, str] = {
                                   "non-binding futility boundary",
     "reject-at-final": "final analysis: the efficacy boundary is crossed (H0 rejected)",
     "not-rejected-at-final": "final analysis: the efficacy boundary is not crossed (H0 not "
-                             "rejected)",
+    "rejected)",
+    "rejected-earlier": "rejected at an earlier look (the graph passed its level on)",
     "not-computable": "no decision: the z statistic is not defined",
 }
 LOOKS_STYLE = ASIDE_STYLE.format(c="#1f4e79")
@@ -67,9 +68,18 @@ def look_line(hyp: Mapping[str, Any]) -> str:
     shown = "z not defined" if z is None else f"z = {z:.3f}"
     side = "±" if lk.get("sides") == 2 else ""
     words = decision_words(text(lk.get("decision"), "looks.decision"))
-    line = (f"look {lk.get('look')} of {lk.get('of')} (information fraction "
-            f"{number(lk.get('observed_fraction'), 'looks.observed_fraction'):.3f}): {shown}, "
-            f"efficacy boundary {side}{bound:.3f}: {words}")
+    edge = "none (level 0)" if bound is None else f"{side}{bound:.3f}"
+    graph = lk.get("graph")
+    at = (
+        f" at level {number(graph.get('level'), 'looks.graph.level'):.4g}"
+        if isinstance(graph, Mapping)
+        else ""
+    )
+    line = (
+        f"look {lk.get('look')} of {lk.get('of')} (information fraction "
+        f"{number(lk.get('observed_fraction'), 'looks.observed_fraction'):.3f}): {shown}, "
+        f"efficacy boundary{at} {edge}: {words}"
+    )
     adj = lk.get("adjusted")
     if isinstance(adj, Mapping):
         line += (f"; adjusted p = {fmt_p(number(adj.get('p_value'), 'adjusted.p_value'))}, "
@@ -111,8 +121,24 @@ def looks_block(hyp: Mapping[str, Any], where: str) -> tuple[str, list[Figure]]:
          side + fmt_statistic(number(lk.get("boundary"), f"{at}.boundary"))),
     ]
     if lk.get("futility_boundary") is not None:
-        rows.append(("Futility boundary (non-binding)",
-                     fmt_statistic(number(lk.get("futility_boundary"), at))))
+        rows.append(
+            (
+                "Futility boundary (non-binding)",
+                fmt_statistic(number(lk.get("futility_boundary"), at)),
+            )
+        )
+    graph = lk.get("graph")
+    if isinstance(graph, Mapping):
+        rejected = graph.get("rejected_at")
+        rows.append(
+            (
+                "Multiplicity over the looks",
+                f"{text(graph.get('method'), at)} as a graph (Maurer and Bretz 2013): "
+                f"initial level {number(graph.get('initial_level'), at):.4g}, level now "
+                f"{number(graph.get('level'), at):.4g}"
+                + (f"; rejected at look {rejected}" if rejected is not None else ""),
+            )
+        )
     rows.append(("Decision", decision_words(text(lk.get("decision"), f"{at}.decision"))))
     adj = lk.get("adjusted")
     if isinstance(adj, Mapping):
@@ -150,18 +176,33 @@ def looks_block(hyp: Mapping[str, Any], where: str) -> tuple[str, list[Figure]]:
             fmt_interval(number(ci[0], at), number(ci[1], at)),
         ])
     level = next(iter(rci.values()), {}).get("level")
-    caption = (f"Boundaries at the information observed (the final look spends all that is "
-               f"left); repeated confidence intervals at {fmt_level(number(level, at))}, risk "
-               "difference (first group minus second)")
-    parts = [f'<div class="prespec-looks" style="{LOOKS_STYLE}">',
-             f"<h4>Interim looks of {esc(hid)}</h4>", fields(rows),
-             table(head, body, numeric=range(1, 10), cls="prespec-boundaries", caption=caption),
-             ("<p><em>The efficacy boundaries control the type I error over all looks; the "
-             "naive p-value above is not adjusted for the looks. The futility boundary is "
-             "non-binding: ignoring it does not inflate the error rate.</em></p>"), "</div>"]
-    alt = f"Efficacy and futility boundaries of {hid} against the information fraction, " \
-          "with the observed z statistics"
-    return "".join(parts), [(looks_name(hid), alt)]
+    caption = (
+        f"Boundaries at the information observed (the final look spends all that is "
+        f"left); repeated confidence intervals at {fmt_level(number(level, at))}, risk "
+        "difference (first group minus second)"
+    )
+    if isinstance(graph, Mapping):
+        caption += ("; the efficacy z are at the hypothesis's level in the graph, the repeated "
+                    "intervals and the adjusted inference at the plan's alpha (intervals are "
+                    "not adjusted for multiplicity)")
+    parts = [
+        f'<div class="prespec-looks" style="{LOOKS_STYLE}">',
+        f"<h4>Interim looks of {esc(hid)}</h4>",
+        fields(rows),
+        table(head, body, numeric=range(1, 10), cls="prespec-boundaries", caption=caption),
+        (
+            "<p><em>The efficacy boundaries control the type I error over all looks; the "
+            "naive p-value above is not adjusted for the looks. The futility boundary is "
+            "non-binding: ignoring it does not inflate the error rate.</em></p>"
+        ),
+        "</div>",
+    ]
+    alt = (
+        f"Efficacy and futility boundaries of {hid} against the information fraction, "
+        "with the observed z statistics"
+    )
+    drawn = any(b.get("z") is not None for b in items(lk.get("boundaries"), at))
+    return "".join(parts), [(looks_name(hid), alt)] if drawn else []
 
 
 @dataclass(frozen=True)
@@ -214,13 +255,32 @@ def looks_jobs(results: Mapping[str, Any]) -> list[tuple[str, LooksJob]]:
         hid = text(hyp.get("id"), f"hypotheses[{n}].id")
         at = f"hypotheses.{hid}.looks"
         lk = mapping(hyp["looks"], at)
-        rows = [mapping(b, f"{at}.boundaries") for b in items(lk.get("boundaries"), at)]
+        rows = [
+            mapping(b, f"{at}.boundaries")
+            for b in items(lk.get("boundaries"), at)
+            if b.get("z") is not None
+        ]
         zs = {int(h["look"]): h.get("z") for h in items(lk.get("history"), at)}
         zs[int(lk["look"])] = lk.get("z")
-        observed = [(float(b["fraction"]), float(zs[int(b["look"])])) for b in rows
-                    if zs.get(int(b["look"])) is not None]
-        out.append((looks_name(hid), LooksJob(
-            hid, [float(b["fraction"]) for b in rows], [float(b["z"]) for b in rows],
-            [None if b.get("futility_z") is None else float(b["futility_z"]) for b in rows],
-            lk.get("sides") == 2, observed, int(lk.get("direction") or 1))))
+        observed = [
+            (float(b["fraction"]), float(zs[int(b["look"])]))
+            for b in rows
+            if zs.get(int(b["look"])) is not None
+        ]
+        if not rows:
+            continue
+        out.append(
+            (
+                looks_name(hid),
+                LooksJob(
+                    hid,
+                    [float(b["fraction"]) for b in rows],
+                    [float(b["z"]) for b in rows],
+                    [None if b.get("futility_z") is None else float(b["futility_z"]) for b in rows],
+                    lk.get("sides") == 2,
+                    observed,
+                    int(lk.get("direction") or 1),
+                ),
+            )
+        )
     return out
