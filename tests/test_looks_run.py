@@ -229,12 +229,14 @@ def test_look_out_of_order_repeated_and_final_without_looks(tmp_path: Path) -> N
     second = api.run(plan, data[1], out=tmp_path / "r2", look=2)
     dev = second.results["deviations"][0]
     assert dev["code"] == "look-out-of-order"
-    assert (dev["expected"], dev["found"]) == ("looks 1 to 1 run before, none after", "looks run: none")
+    assert (dev["expected"], dev["found"]) == ("looks 1 to 1 run before look 2, none after",
+                                              "looks run: none")
     assert second.entry["deviations"] == second.results["deviations"]
     # its boundaries are those of a single look at the fraction observed
     assert [b["look"] for b in h(second)["looks"]["boundaries"]] == [2]
     first = api.run(plan, data[0], out=tmp_path / "r1", look=1)
     assert codes(first) == ["look-out-of-order"]
+    assert first.results["deviations"][0]["expected"] == "no later look run before look 1"
     assert "look(s) 2 already run" in first.results["deviations"][0]["detail"]
     again = api.run(plan, data[0], out=tmp_path / "r1b", look=1)
     assert codes(again) == ["look-repeated", "look-out-of-order"]

@@ -153,9 +153,11 @@ def order_departures(run: LookRun) -> list[Departure]:
             what.append(f"look(s) {', '.join(map(str, missing))} not yet run")
         if run.later:
             what.append(f"look(s) {', '.join(map(str, run.later))} already run")
+        expected = (f"looks 1 to {run.look - 1} run before look {run.look}, none after"
+                    if run.look > 1 else "no later look run before look 1")
+        found = ", ".join(str(k) for k in sorted({*ran, *run.later})) or "none"
         out.append(Departure("look-out-of-order", f"look {run.look} of {run.of} is run with "
-                             + " and ".join(what), f"looks 1 to {run.look - 1} run before, none "
-                             "after", f"looks run: {', '.join(str(k) for k in sorted({*ran, *run.later})) or 'none'}"))
+                             + " and ".join(what), expected, f"looks run: {found}"))
     return out
 
 
