@@ -176,7 +176,7 @@ def _mvn_exits(
     ups, lows = [], []
     for k in range(1, len(t) + 1):
         mvn = stats.multivariate_normal(
-            mean[:k], corr[:k, :k], abseps=1e-10, releps=1e-10, maxpts=10**7
+            mean[:k], corr[:k, :k], abseps=1e-9, releps=1e-9, maxpts=10**7
         )
         lo, hi = b_lower[: k - 1], b_upper[: k - 1]
         if k == 1:
@@ -203,9 +203,27 @@ def test_recursion_against_multivariate_normal(
 ) -> None:
     up, low = crossing_probabilities(upper, lower, t, drift)
     ref_up, ref_low = _mvn_exits(np.array(upper), np.array(lower), np.array(t), drift)
-    # scipy.stats.multivariate_normal.cdf with abseps = releps = 1e-10
+    # scipy.stats.multivariate_normal.cdf with abseps = releps = 1e-9
     assert up == pytest.approx(ref_up, abs=1e-8)
     assert low == pytest.approx(ref_low, abs=1e-8)
+
+
+@pytest.mark.parametrize("gap", [0.001, 0.0001])
+def test_close_looks_against_multivariate_normal(gap: float) -> None:
+    # A look just after another: the grid is refined to the width of the short step.
+    t = [0.5, 0.5 + gap, 1.0]
+    upper = [2.2, 2.25, 2.0]
+    lower = [-2.2, -2.25, -2.0]
+    up, low = crossing_probabilities(upper, lower, t, 0.4)
+    ref_up, ref_low = _mvn_exits(np.array(upper), np.array(lower), np.array(t), 0.4)
+    # scipy.stats.multivariate_normal.cdf with abseps = releps = 1e-9
+    assert up == pytest.approx(ref_up, abs=1e-8)
+    assert low == pytest.approx(ref_low, abs=1e-8)
+
+
+def test_looks_too_close_are_refused() -> None:
+    with pytest.raises(ValueError, match="0.5 and 0.500001 are too close"):
+        boundaries([0.5, 0.500001, 1.0], alpha=0.05, sides=2, efficacy="lan-demets-pocock")
 
 
 def test_boundaries_reached_by_multivariate_normal_spending() -> None:

@@ -47,6 +47,14 @@ CLASSICAL: tuple[str, ...] = ("obrien-fleming", "pocock")
 #: Grid density of the numerical integration (Jennison & Turnbull 2000, ch. 19 use r = 16;
 #: r = 32 brings exit probabilities to about 1e-10 of the multivariate normal route).
 GRID_R = 32
+#: The finest grid density used for looks close together (about 12·r points per grid); looks
+#: closer than (GRID_R / (2·MAX_GRID_R))² of the information lose some accuracy, and beyond
+#: (GRID_R / (8·MAX_GRID_R))² they are refused.
+MAX_GRID_R = 500
+#: Kernel widths (on the Z scale) below which the grid is refined.
+_REFINE_BELOW = 0.5
+#: Rows of the kernel matrix computed at once (bounds the memory of fine grids).
+_BLOCK = 1 << 21
 #: How far fractions may stray from k/K·t_K and still count as equally spaced.
 SPACING_TOLERANCE = 1e-6
 #: The root finders' tolerance on the z scale and on the drift.
@@ -203,7 +211,7 @@ def spent(name: str, t: ArrayLike, total: float, gamma: float | None = None) -> 
 # --------------------------------------------------------------------------- integration
 
 
-@functools.lru_cache(maxsize=16)
+@functools.lru_cache(maxsize=64)
 def _offsets(r: int) -> np.ndarray:
     """The 6r − 1 grid offsets from the mean (Jennison & Turnbull 2000, section 19.2)."""
     i = np.arange(1, 6 * r)
@@ -274,16 +282,45 @@ def _exit_below(state: _State, t: float, drift: float, a: float) -> float:
     return float(np.dot(state.c, special.ndtr((a * math.sqrt(t) - m) / s)))
 
 
-def _advance(state: _State, t: float, drift: float, lo: float, hi: float, r: int) -> _State:
-    """Propagate the sub-density to look ``t`` and keep the part on (lo, hi) (AMR 1969)."""
+def _grid_r(r: int, t_prev: float, t: float, t_next: float) -> int:
+    """The grid density at look t that resolves the kernels into and out of it.
+
+    On the Z_k scale the step from look k − 1 smooths the density over sqrt(Δ_k / t_k) (so
+    the density has shoulders of that width at the earlier boundaries) and the step to look
+    k + 1 has a kernel of width sqrt(Δ_{k+1} / t_k); the ch. 19 grid (spacing about 1.5/r
+    for widths near 1) is refined in proportion when either is small, so that close looks
+    keep their accuracy. Widths down to _REFINE_BELOW keep r (errors near 1e-9 at r = 32).
+    """
+    width = math.sqrt(min(t - t_prev, t_next - t) / t) / _REFINE_BELOW
+    if width >= 1.0:
+        return r
+    if MAX_GRID_R * width < r / 4.0:
+        pair = (t_prev, t) if t - t_prev < t_next - t else (t, t_next)
+        raise ValueError(
+            f"looks at fractions {pair[0]:.6g} and {pair[1]:.6g} are too close together for the "
+            f"numerical integration (the increment must be at least "
+            f"{(_REFINE_BELOW * r / (4.0 * MAX_GRID_R)) ** 2:.2g} of the fraction)"
+        )
+    return min(math.ceil(r / width), MAX_GRID_R)
+
+
+def _advance(
+    state: _State, t: float, drift: float, lo: float, hi: float, r: int, t_next: float
+) -> _State:
+    """Propagate the sub-density to look ``t`` and keep the part on (lo, hi) (AMR 1969);
+    the grid is fine enough for the step to ``t_next``."""
     if state.c.size == 0 or lo >= hi:
         return _State(np.empty(0), np.empty(0), t)
-    z, w = _grid(drift * math.sqrt(t), lo, hi, r)
+    z, w = _grid(drift * math.sqrt(t), lo, hi, _grid_r(r, state.t, t, t_next))
     if z.size == 0:
         return _State(z, w, t)
     m, s = _moments(state, t, drift)
-    u = (z[:, None] * math.sqrt(t) - m[None, :]) / s
-    density = (np.exp(-0.5 * u * u) @ state.c) * math.sqrt(t) / (s * math.sqrt(2.0 * math.pi))
+    density = np.empty(len(z))
+    rows = max(1, _BLOCK // len(m))
+    for start in range(0, len(z), rows):
+        u = (z[start : start + rows, None] * math.sqrt(t) - m[None, :]) / s
+        density[start : start + rows] = np.exp(-0.5 * u * u) @ state.c
+    density *= math.sqrt(t) / (s * math.sqrt(2.0 * math.pi))
     return _State(z, w * density, t)
 
 
@@ -315,7 +352,9 @@ def crossing_probabilities(
         up[k] = _exit_above(state, float(tk), drift, float(up_b[k]))
         low[k] = _exit_below(state, float(tk), drift, min(float(lo_b[k]), float(up_b[k])))
         if k < len(t) - 1:
-            state = _advance(state, float(tk), drift, float(lo_b[k]), float(up_b[k]), r)
+            state = _advance(
+                state, float(tk), drift, float(lo_b[k]), float(up_b[k]), r, float(t[k + 1])
+            )
     return up, low
 
 
@@ -358,7 +397,8 @@ def _efficacy(
         low = _exit_below(state, float(tk), 0.0, -b[k]) if sides == 2 else 0.0
         so_far += up + low
         if k < len(t) - 1:
-            state = _advance(state, float(tk), 0.0, -b[k] if sides == 2 else -math.inf, b[k], r)
+            lo = -b[k] if sides == 2 else -math.inf
+            state = _advance(state, float(tk), 0.0, lo, b[k], r, float(t[k + 1]))
     return b
 
 
@@ -441,7 +481,7 @@ def _futility_at(
         so_far += _exit_below(state, tk_f, drift, min(a[k], b[k]))
         exits[k] = so_far
         if not last:
-            state = _advance(state, tk_f, drift, a[k], b[k], r)
+            state = _advance(state, tk_f, drift, a[k], b[k], r, float(t[k + 1]))
     return a, exits, met
 
 
@@ -734,6 +774,26 @@ def stagewise_inference(
     return Adjusted(
         p_value=float(p), estimate=estimate, ci=ci, look=len(zs), level=level, sides=bounds.sides
     )
+
+
+def stagewise_tail(
+    z: Sequence[float],
+    information: Sequence[float],
+    bounds: Boundaries,
+    theta: float = 0.0,
+    *,
+    r: int = GRID_R,
+) -> float:
+    """P_θ(an outcome at least as high as the observed one in the stage-wise ordering).
+
+    The one-sided stage-wise p-value of H0: θ = ``theta`` (against larger θ); increasing in θ,
+    so that {θ : (1 − level)/2 < tail < (1 + level)/2} is the interval of
+    :func:`stagewise_inference` (Jennison & Turnbull 2000, section 8.4). Also the p-value of a
+    shifted null such as a non-inferiority margin on the θ scale.
+    """
+    zs, info = _observed(z, information, bounds)
+    theta = _real("theta", theta)
+    return _ordering_tail(zs, info, bounds, r)(theta * math.sqrt(float(info[-1])))
 
 
 def repeated_ci(estimate: float, information: float, bound_z: float) -> tuple[float, float]:
