@@ -122,11 +122,11 @@ def main() -> None:
 
     print(f"Lan-DeMets O'Brien-Fleming type, two-sided alpha = {ALPHA}, equally spaced looks")
     print(f"{'route':<44}{'seconds':>10}{'max |dz|':>12}")
-    print(f"{'10 looks: recursion (ch. 19 grid, r = 32)':<44}{ours10_s:>10.4f}{err_ours10:>12.1e}")
+    print(f"{'10 looks: recursion (ch. 19 grid, r >= 32)':<44}{ours10_s:>10.4f}{err_ours10:>12.1e}")
     print(
         f"{f'10 looks: naive uniform grid, step {args.step:g}':<44}{naive_s:>10.4f}{err_naive:>12.1e}"
     )
-    print(f"{'4 looks: recursion (ch. 19 grid, r = 32)':<44}{ours4_s:>10.4f}{err_ours4:>12.1e}")
+    print(f"{'4 looks: recursion (ch. 19 grid, r >= 32)':<44}{ours4_s:>10.4f}{err_ours4:>12.1e}")
     print(f"{'4 looks: multivariate normal + brentq':<44}{mvn_s:>10.4f}{err_mvn:>12.1e}")
     print(f"ratio, 10 looks, naive grid / recursion: {naive_s / ours10_s:.1f}x")
     print(f"ratio, 4 looks, multivariate normal / recursion: {mvn_s / ours4_s:.1f}x")

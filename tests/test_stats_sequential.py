@@ -97,6 +97,13 @@ def test_one_sided_lan_demets_obrien_fleming_three_looks() -> None:
     assert two.nominal_p == pytest.approx([2 * stats.norm.sf(v) for v in two.z], rel=1e-12)
 
 
+def test_one_sided_lan_demets_obrien_fleming_published_values() -> None:
+    # Lan-DeMets O'Brien-Fleming type, one-sided α = 0.025, K = 3 equally spaced: 3.710,
+    # 2.511, 1.993 (the usual worked example of the literature). # from memory
+    b = boundaries(_equal(3), alpha=0.025, sides=1, efficacy="lan-demets-obrien-fleming")
+    assert b.z == pytest.approx([3.710, 2.511, 1.993], abs=5e-4)
+
+
 @pytest.mark.parametrize(
     "efficacy", ["lan-demets-obrien-fleming", "lan-demets-pocock", "hwang-shih-decani"]
 )

@@ -65,7 +65,16 @@ _FAR = 40.0
 
 @dataclass(frozen=True)
 class Boundaries:
-    """Efficacy (and optional futility) boundaries on the z scale at each look."""
+    """Efficacy (and optional futility) boundaries on the z scale at each look.
+
+    ``z`` is the upper efficacy boundary (two-sided: reject when |Z_k| >= z_k);
+    ``nominal_p`` its nominal p-value (two-sided 2·(1 − Φ(z)), one-sided 1 − Φ(z));
+    ``alpha_spent`` the cumulative P_0(crossing by look k), both sides together, computed
+    without futility (non-binding). ``futility_z`` the lower boundary on the same scale: the
+    trial may stop for futility when Z_k <= futility_z[k] (two-sided: the continuation
+    region is then (max(futility_z, −z), z)); ``beta_spent`` the cumulative probability of
+    that exit at ``drift``, the drift θ·sqrt(I_max) of the planned design.
+    """
 
     fractions: tuple[float, ...]
     z: tuple[float, ...]
