@@ -14,6 +14,7 @@ from scipy import stats
 from prespec.stats.sequential import (
     Boundaries,
     boundaries,
+    crossing_probabilities,
     design,
     repeated_ci,
     stagewise_inference,
@@ -341,3 +342,19 @@ def test_repeated_ci_value_and_simultaneous_coverage() -> None:
         repeated_ci(0.1, 0.0, 2.0)
     with pytest.raises(ValueError, match="bound_z"):
         repeated_ci(0.1, 10.0, -2.0)
+
+
+def test_design_bad_input() -> None:
+    with pytest.raises(ValueError, match="end at 1"):
+        design([0.3, 0.8], alpha=0.05, sides=2, efficacy="lan-demets-pocock", power=0.8)
+    with pytest.raises(ValueError, match="power"):
+        design([0.5, 1.0], alpha=0.05, sides=2, efficacy="lan-demets-pocock", power=1.2)
+    with pytest.raises(ValueError, match="exceed the one-sided alpha"):
+        design([0.5, 1.0], alpha=0.05, sides=1, efficacy="lan-demets-pocock", power=0.04)
+
+
+def test_crossing_probabilities_bad_input() -> None:
+    with pytest.raises(ValueError, match="same length"):
+        crossing_probabilities([2.0, 2.0], [-2.0], [0.5, 1.0], 0.0)
+    with pytest.raises(ValueError, match="increasing"):
+        crossing_probabilities([2.0, 2.0], [-2.0, -2.0], [0.5, 0.5], 0.0)
