@@ -208,3 +208,21 @@ def test_a_plain_member_is_tested_at_the_final_look(tmp_path: Path) -> None:
     h3 = hyp(final, "H3")
     assert 0.025 < h3["p_value"] <= 0.05  # rejected only because H1 passed its level on
     assert h3["graph"]["level"] == 0.05 and h3["reject"] is True and h3["p_adjusted"] is None
+
+
+def test_a_member_at_level_zero_has_no_boundary_yet(tmp_path: Path) -> None:
+    from prespec.report.looks import look_line, looks_block, looks_jobs
+
+    looks = [{"negative-pressure": (15, 100), "alginate": (12, 100), "gauze": (25, 100)}]
+    plan = tmp_path / "trial.yaml"
+    plan.write_text(PLAN.replace("multiplicity: holm", "multiplicity: fixed-sequence"))
+    api.lock(plan, actor="ana")
+    out = api.run(plan, write_looks(tmp_path, looks)[0], out=tmp_path / "r1", look=1)
+    h3 = hyp(out, "H3")
+    assert h3["looks"]["graph"]["level"] == 0.0 and h3["looks"]["boundary"] is None
+    assert h3["looks"]["decision"] == "continue" and h3["reject"] is False
+    assert "efficacy boundary at level 0 none (level 0)" in look_line(h3)
+    html, figures = looks_block(h3, "hypotheses.H3")
+    assert figures == [] and "level now 0" in html
+    assert [name for name, _ in looks_jobs(out.results)] == ["figures/looks-H1.png"]
+    assert not (out.folder / "figures" / "looks-H3.png").exists()

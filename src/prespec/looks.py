@@ -285,7 +285,7 @@ def hypothesis_look(
                 "fraction": bounds.fractions[i],
                 "observed_fraction": observed[j],
                 "z": None if d is None else d.z[i],
-                "nominal_p": 0.0 if d is None else d.nominal_p[i],
+                "nominal_p": None if d is None else d.nominal_p[i],
                 "alpha_spent": 0.0 if d is None else d.alpha_spent[i],
                 "futility_z": None if d is None or d.futility_z is None else d.futility_z[i],
                 "beta_spent": None if d is None or d.beta_spent is None else d.beta_spent[i],
