@@ -239,7 +239,6 @@ def hypothesis_look(
     intervals and the adjusted inference stay at the plan's alpha (intervals are never
     adjusted for multiplicity)."""
     from .analysis import interval_level
-    from .stats.sequential import repeated_ci
 
     looks = hyp.looks
     table = entry["table"]
@@ -276,52 +275,15 @@ def hypothesis_look(
         index = [k - 1 for k in numbers]
     else:
         index = list(range(len(numbers)))
-    rows = []
-    for j, (k, i) in enumerate(zip(numbers, index, strict=True)):
-        d = decide
-        rows.append(
-            {
-                "look": k,
-                "fraction": bounds.fractions[i],
-                "observed_fraction": observed[j],
-                "z": None if d is None else d.z[i],
-                "nominal_p": None if d is None else d.nominal_p[i],
-                "alpha_spent": 0.0 if d is None else d.alpha_spent[i],
-                "futility_z": None if d is None or d.futility_z is None else d.futility_z[i],
-                "beta_spent": None if d is None or d.beta_spent is None else d.beta_spent[i],
-            }
-        )
+    rows = _boundary_rows(numbers, index, observed, bounds, decide)
     direction = _direction(plan, hyp)
     z = now["z"]
     b = None if decide is None else decide.z[index[-1]]
     level = interval_level(float(plan.alpha), hyp.alternative, hyp.comparison)
-    crossed: bool | None = None
-    futile = False
     earlier = (
         graph is not None and graph["rejected_at"] is not None and graph["rejected_at"] < run.look
     )
-    if earlier:
-        crossed, decision = True, "rejected-earlier"
-    elif z is None:
-        decision = "not-computable"
-        notes.append(Note("not-computable", f"{hyp.id}: the z statistic of look {run.look} is "
-                          "not defined (no events, or all events, in both groups); no decision"))
-    else:
-        if graph is not None:
-            crossed = graph["rejected_at"] == run.look
-        else:
-            crossed = abs(z) >= b if sides(hyp) == 2 else direction * z >= b
-        if not run.final and not crossed and decide is not None and decide.futility_z is not None:
-            futile = direction * z <= decide.futility_z[index[-1]]
-        decision = (
-            ("reject-at-final" if crossed else "not-rejected-at-final")
-            if run.final
-            else "stop-for-efficacy"
-            if crossed
-            else "futility-may-be-considered"
-            if futile
-            else "continue"
-        )
+    crossed, decision = _decide(hyp, z, b, direction, run, graph, decide, index[-1], notes)
     stopped_before = [k for k, h in past if h.get("crossed")] if graph is None else []
     if stopped_before:
         notes.append(Note("look-after-stop", f"{hyp.id}: look(s) {', '.join(map(str, stopped_before))} "
@@ -339,14 +301,7 @@ def hypothesis_look(
                               "the z statistic of every look up to this one; some are missing"))
         else:
             adjusted = _adjusted(hyp, zs, infos, bounds, direction, level, run, notes)
-    repeated = []
-    for j, h in enumerate(values):
-        est, info = h.get("estimate"), h.get("information")
-        if est is None or info is None:
-            repeated.append({"look": numbers[j], "estimate": est, "ci": [None, None]})
-            continue
-        low, high = repeated_ci(float(est), float(info), bounds.z[index[j]])
-        repeated.append({"look": numbers[j], "estimate": est, "ci": [_finite(low), _finite(high)]})
+    repeated = _repeated(values, numbers, [bounds.z[i] for i in index])
     block = {
         "look": run.look,
         "of": run.of,
@@ -382,6 +337,67 @@ def hypothesis_look(
     entry["p_adjusted"] = None if adjusted is None or graph is not None else adjusted["p_value"]
     entry["reject"] = crossed
     return block, departures
+
+
+def _boundary_rows(numbers: list[int], index: list[int], observed: list[float], bounds: Any,
+                   decide: Any) -> list[dict[str, Any]]:
+    """One row per look: the fraction the boundaries use, the one observed, and the deciding
+    boundaries (none at level 0 in a graph)."""
+    rows = []
+    for j, (k, i) in enumerate(zip(numbers, index, strict=True)):
+        d = decide
+        rows.append({
+            "look": k,
+            "fraction": bounds.fractions[i],
+            "observed_fraction": observed[j],
+            "z": None if d is None else d.z[i],
+            "nominal_p": None if d is None else d.nominal_p[i],
+            "alpha_spent": 0.0 if d is None else d.alpha_spent[i],
+            "futility_z": None if d is None or d.futility_z is None else d.futility_z[i],
+            "beta_spent": None if d is None or d.beta_spent is None else d.beta_spent[i],
+        })
+    return rows
+
+
+def _decide(hyp: Any, z: float | None, b: float | None, direction: int, run: LookRun,
+            graph: dict[str, Any] | None, decide: Any, last: int,
+            notes: list[Note]) -> tuple[bool | None, str]:
+    """Whether the efficacy boundary is crossed (the graph's rejection under a procedure), and
+    the decision of this look."""
+    if graph is not None and graph["rejected_at"] is not None and graph["rejected_at"] < run.look:
+        return True, "rejected-earlier"
+    if z is None:
+        notes.append(Note("not-computable", f"{hyp.id}: the z statistic of look {run.look} is "
+                          "not defined (no events, or all events, in both groups); no decision"))
+        return None, "not-computable"
+    if graph is not None:
+        crossed = graph["rejected_at"] == run.look
+    else:
+        crossed = abs(z) >= b if sides(hyp) == 2 else direction * z >= b
+    if run.final:
+        return crossed, "reject-at-final" if crossed else "not-rejected-at-final"
+    if crossed:
+        return True, "stop-for-efficacy"
+    if decide is not None and decide.futility_z is not None \
+            and direction * z <= decide.futility_z[last]:
+        return False, "futility-may-be-considered"
+    return False, "continue"
+
+
+def _repeated(values: list[dict[str, Any]], numbers: list[int],
+              bound_z: list[float]) -> list[dict[str, Any]]:
+    """The repeated confidence interval of every look (Jennison & Turnbull 1989)."""
+    from .stats.sequential import repeated_ci
+
+    out = []
+    for j, h in enumerate(values):
+        est, info = h.get("estimate"), h.get("information")
+        if est is None or info is None:
+            out.append({"look": numbers[j], "estimate": est, "ci": [None, None]})
+            continue
+        low, high = repeated_ci(float(est), float(info), bound_z[j])
+        out.append({"look": numbers[j], "estimate": est, "ci": [_finite(low), _finite(high)]})
+    return out
 
 
 def _adjusted(hyp: Any, zs: list[Any], infos: list[Any], bounds: Any, direction: int,
