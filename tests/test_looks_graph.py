@@ -224,5 +224,6 @@ def test_a_member_at_level_zero_has_no_boundary_yet(tmp_path: Path) -> None:
     assert "efficacy boundary at level 0 none (level 0)" in look_line(h3)
     html, figures = looks_block(h3, "hypotheses.H3")
     assert figures == [] and "level now 0" in html
+    assert "±—" not in html and "<td>—</td>" in html
     assert [name for name, _ in looks_jobs(out.results)] == ["figures/looks-H1.png"]
     assert not (out.folder / "figures" / "looks-H3.png").exists()

@@ -88,6 +88,11 @@ def look_line(hyp: Mapping[str, Any]) -> str:
     return line
 
 
+def _edge(side: str, value: float | None) -> str:
+    """A boundary with its sign (``±`` two-sided), or ``—`` when there is none (level 0)."""
+    return NULL if value is None else side + fmt_statistic(value)
+
+
 def _spending_words(lk: Mapping[str, Any], where: str) -> str:
     eff = text(lk.get("efficacy"), f"{where}.efficacy")
     gamma = number(lk.get("gamma"), f"{where}.gamma")
@@ -118,7 +123,7 @@ def looks_block(hyp: Mapping[str, Any], where: str) -> tuple[str, list[Figure]]:
          f"{lk.get('planned_total')} planned)")),
         ("z statistic (pooled)", fmt_statistic(number(lk.get("z"), f"{at}.z"))),
         ("Efficacy boundary at this look",
-         side + fmt_statistic(number(lk.get("boundary"), f"{at}.boundary"))),
+         _edge(side, number(lk.get("boundary"), f"{at}.boundary"))),
     ]
     if lk.get("futility_boundary") is not None:
         rows.append(
@@ -168,7 +173,7 @@ def looks_block(hyp: Mapping[str, Any], where: str) -> tuple[str, list[Figure]]:
             str(k), f"{planned[k - 1]:.4f}" if 0 < k <= len(planned) else NULL,
             f"{number(b.get('fraction'), at):.4f}",
             f"{number(b.get('observed_fraction'), at):.4f}",
-            side + fmt_statistic(number(b.get("z"), at)),
+            _edge(side, number(b.get("z"), at)),
             fmt_p(number(b.get("nominal_p"), at)),
             f"{number(b.get('alpha_spent'), at):.5f}",
             fmt_statistic(number(b.get("futility_z"), at)),
