@@ -21,6 +21,7 @@ DEPARTURE_CODES: dict[str, str] = {
     "sample-size-shortfall": "a group's analysed total is below its planned_n",
     "amended-after-unblinding": "the plan was amended after a run on the data",
     "environment-differs-from-lock": "a version of Python or a dependency differs from the lock's",
+    "undeclared-level": "rows of a family whose level is not one of its declared levels",
 }
 
 # Departures that stop a run (exit 3) unless the user accepts them with a reason.

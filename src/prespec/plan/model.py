@@ -23,6 +23,7 @@ from pydantic import (
 from pydantic_core import PydanticCustomError
 
 from prespec.plan import vocabulary as v
+from prespec.plan.families import FAMILY_DOC, family_defaults
 from prespec.plan.yamlread import describe, show
 
 TestName = Literal[tuple(sorted(v.KNOWN_TESTS))]  # type: ignore[valid-type]
@@ -34,6 +35,7 @@ ComparisonName = Literal[v.KNOWN_COMPARISONS]  # type: ignore[valid-type]
 Role = Literal[v.ROLES]  # type: ignore[valid-type]
 MissingRule = Literal[v.MISSING_RULES]  # type: ignore[valid-type]
 Pairwise = Literal[v.PAIRWISE]  # type: ignore[valid-type]
+FlagMethod = Literal[v.FLAG_METHODS]  # type: ignore[valid-type]
 
 
 def problem(message: str) -> PydanticCustomError:
@@ -343,6 +345,15 @@ class Hypothesis(_Model):
     monte_carlo: MonteCarlo | None = None
     estimand: Estimand | None = None
     sensitivity: list[SensitivityName] | None = None
+    # A family (a template expanded over the levels of a column): prespec.plan.families.
+    over: str | None = Field(default=None, description=FAMILY_DOC["over"])
+    within: str | None = Field(default=None, description=FAMILY_DOC["within"])
+    levels: list[str] | dict[str, list[str]] | None = Field(
+        default=None, description=FAMILY_DOC["levels"])
+    flag_method: FlagMethod | None = Field(default=None, description=FAMILY_DOC["flag_method"])
+    flag_level: Probability | None = Field(default=None, description=FAMILY_DOC["flag_level"])
+    group_level: Probability | None = Field(default=None, description=FAMILY_DOC["group_level"])
+    members: list[str] | None = Field(default=None, description=FAMILY_DOC["members"])
 
     @model_validator(mode="before")
     @classmethod
@@ -381,6 +392,11 @@ class Plan(_Model):
     multiplicity: Multiplicity
     hypotheses: list[Hypothesis]
     design: Design | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _family_defaults(cls, data: Any) -> Any:
+        return family_defaults(data)
 
     @model_validator(mode="before")
     @classmethod
