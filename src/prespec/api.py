@@ -22,6 +22,7 @@ from .departures import Departure, Note
 from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
 from .execute import check_out_folder, compute_results, default_folder
+from .families import declared_members
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
 from .publish import RunOutcome, complete_interrupted, publish
 
@@ -133,7 +134,8 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
             data=None,
             details={"version": record["version"], "plan_file_sha256": record["plan_file_sha256"],
                      "reason": record["reason"], "record": version_digest(record),
-                     **({"changes": changes} if changes is not None else {})},
+                     **({"changes": changes} if changes is not None else {}),
+                     **declared_members(record["plan"])},
             deviations=deviations,
             sign=sign,
         )
@@ -399,8 +401,11 @@ def _environment_departures(record: dict[str, Any], env: dict[str, str]) -> list
 
 def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         actor: str | None = None, accept_deviation: str | None = None,
-        overrides: Mapping[str, Any] | None = None) -> RunOutcome:
+        overrides: Mapping[str, Any] | None = None,
+        progress: Callable[[str, int, int], None] | None = None) -> RunOutcome:
     """Run the locked plan on ``data``; write the report folder and the ``run`` entry.
+
+    ``progress(what, done, total)`` is called as the levels of a long family are prepared.
 
     ``overrides`` (``{"alpha": 0.025, "hypotheses.H1.test": "fisher-exact"}``) change the
     locked analysis for this run only; each change is an ``override`` departure and needs
@@ -437,7 +442,7 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
         data_path=data_path, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes,
-        previous_data=runs[-1].get("data") if runs else None,
+        previous_data=runs[-1].get("data") if runs else None, progress=progress,
     )
     mark_overrides(results, changes)
     return publish(loaded.path, out_path, results, numbered=out is None)

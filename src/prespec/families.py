@@ -73,10 +73,19 @@ def prepare_run(frame: pd.DataFrame, plan: Any, source: str | Path,
     ), data
 
 
+#: A family with at least this many levels reports its progress.
+LONG_FAMILY = 50
+
+
 def _tick(progress: Progress | None, hyp_id: str) -> Callable[[int, int], None] | None:
     if progress is None:
         return None
-    return lambda done, total: progress(f"{hyp_id} levels", done, total)
+
+    def tick(done: int, total: int) -> None:
+        if total >= LONG_FAMILY:
+            progress(f"{hyp_id} levels", done, total)
+
+    return tick
 
 
 def _member(hyp: Any, level: Level) -> Any:
@@ -290,3 +299,18 @@ def neg_log10(p: float | None) -> float | None:
     if p is None:
         return None
     return 300.0 if p <= 0 else -math.log10(p)
+
+
+def family_details(results: dict[str, Any]) -> dict[str, Any]:
+    """What a run's log entry adds for families: ``{"families": {id: [member ids]}}``, or
+    nothing for a plan without families (its entry stays as before)."""
+    ids = member_ids(results)
+    return {"families": ids} if ids else {}
+
+
+def declared_members(resolved: dict[str, Any]) -> dict[str, Any]:
+    """What a lock or amend entry adds for families with declared levels: ``{"families":
+    {id: [member ids]}}`` from the resolved plan, or nothing (the entry stays as before)."""
+    ids = {str(h["id"]): list(h["members"]) for h in resolved.get("hypotheses") or []
+           if isinstance(h, dict) and h.get("over") is not None and h.get("members")}
+    return {"families": ids} if ids else {}

@@ -124,6 +124,8 @@ def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
                               f"level {value!r} has no rows in the data; reported with no "
                               "data"))
             levels.append(Level(value, groups_of.get(value), rows, None))
+            if progress is not None:
+                progress(k + 1, len(order))
             continue
         sub = frame.iloc[rows].reset_index(drop=True)
         where = f"hypotheses.{hyp.id}, the rows where {hyp.over} is {value!r}"

@@ -131,6 +131,10 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
         raise PrespecError("results.json: hypotheses: two tipping-point analyses of one "
                            "hypothesis, or two ids that map to the same figure name")
     jobs += tipping
+    if not blinded:
+        from prespec.report.families import family_jobs
+
+        jobs += family_jobs(results)
     if has_graph(results):
         jobs.append((MULTIPLICITY_GRAPH, _graph_job(mapping(results["multiplicity"],
                                                             "multiplicity"))))
