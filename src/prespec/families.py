@@ -314,3 +314,30 @@ def declared_members(resolved: dict[str, Any]) -> dict[str, Any]:
     ids = {str(h["id"]): list(h["members"]) for h in resolved.get("hypotheses") or []
            if isinstance(h, dict) and h.get("over") is not None and h.get("members")}
     return {"families": ids} if ids else {}
+
+
+def rehearsal_families(plan: Any, data: list[FamilyData], executed: dict[str, Any]
+                       ) -> list[dict[str, Any]]:
+    """A rehearsal's families: per member its pooled counts (all groups together, so they do
+    not depend on the dummy allocation) and whether the family's steps executed."""
+    by_id = {h.id: h for h in templates(plan)}
+    out = []
+    for fam in data:
+        hyp = by_id[fam.hypothesis]
+        done = executed.get(hyp.id)
+        rows = []
+        for level in fam.levels:
+            counts = None if level.prepared is None else level.prepared.outcomes[hyp.outcome]
+            rows.append({
+                "id": member_id(hyp.id, level.value), "level": level.value,
+                "group": level.group,
+                "events": 0 if counts is None else sum(g.events for g in counts.groups),
+                "total": 0 if counts is None else sum(g.total for g in counts.groups),
+                "missing": 0 if counts is None else sum(g.blank + g.unmapped
+                                                        for g in counts.groups)})
+        out.append({"id": hyp.id, "title": hyp.title, "over": hyp.over, "within": hyp.within,
+                    "declared": hyp.levels is not None, "method": hyp.flag_method,
+                    "level": hyp.flag_level, "members": rows,
+                    "executed": bool(done and done.executed),
+                    "problem": None if done is None else done.problem})
+    return out

@@ -201,9 +201,10 @@ def member_table(fam: Mapping[str, Any], table_id: str) -> str:
     """Every member as a row of a table that sorts by a clicked header."""
     g = list(fam.get("compare") or ["first", "second"])
     double = fam.get("method") == "double-fdr"
-    head = ["level", "group", f"{g[0]} events / n", f"{g[1]} events / n",
+    head = [str(fam.get("over") or "level"), str(fam.get("within") or "within"),
+            f"{g[0]} events / n", f"{g[1]} events / n",
             "risk difference", "interval", "p-value", "p adjusted", *(
-                ["group p adjusted"] if double else []), "flagged"]
+                ["adjusted p of the group"] if double else []), "flagged"]
     rows = []
     for i, raw in enumerate(items(fam.get("members"), "families.members")):
         m = mapping(raw, f"families.members[{i}]")
@@ -265,8 +266,9 @@ def _groups_table(fam: Mapping[str, Any]) -> str:
     rows = [[str(g.get("group")), str(g.get("members")), fmt_p(number(g.get("p_group"), "p")),
              "flagged" if g.get("flagged") else "", str(g.get("members_flagged"))]
             for g in groups if isinstance(g, Mapping)]
-    return table(["group", "members", "group p adjusted", "flagged", "members flagged"], rows,
-                 numeric=(1, 2, 4), caption="The step across groups of the double FDR")
+    return table([str(fam.get("within")), "members", "adjusted p of the group", "flagged",
+                  "members flagged"], rows, numeric=(1, 2, 4),
+                 caption="The step across groups of the double FDR")
 
 
 def section(fam: Mapping[str, Any]) -> str:
@@ -307,10 +309,35 @@ def family_blocks(results: Mapping[str, Any]) -> list[tuple[str, str, str, str]]
     return out
 
 
+def rehearsed(results: Mapping[str, Any]) -> str:
+    """A rehearsal's families: per member its pooled counts (all groups together) and
+    whether the family's steps executed on the dummy allocation; empty outside a rehearsal."""
+    if results.get("kind") != "rehearsal" or not results.get("families"):
+        return ""
+    from prespec.report.markup import table
+
+    out = ["<h2>Families rehearsed</h2>"]
+    for i, raw in enumerate(items(results.get("families"), "families")):
+        fam = mapping(raw, f"families[{i}]")
+        fid = text(fam.get("id"), "families.id")
+        state = ("every step executed on the dummy allocation" if fam.get("executed") is True
+                 else f"a step failed: {fam.get('problem')}")
+        rows = [[text(m.get("level"), "level"), str(m.get("group") or "—"),
+                 str(m.get("events")), str(m.get("total")), str(m.get("missing"))]
+                for m in (mapping(x, "members") for x in items(fam.get("members"), "members"))]
+        out.append(f"<h3>Family {esc(fid)}</h3><p>{esc(state)}; "
+                   f"{esc(plural(len(rows), 'member'))}.</p>"
+                   + table([str(fam.get("over") or "level"), str(fam.get("within") or "within"),
+                            "events, all groups", "analysed, all groups",
+                            "missing"], rows, numeric=(2, 3, 4),
+                           caption="Pooled over the groups: no group is shown"))
+    return "".join(out)
+
+
 def families_heading(results: Mapping[str, Any]) -> str:
     """The heading of the families section, or an empty string without families."""
     fams = families(results)
     if not fams:
-        return ""
+        return rehearsed(results)
     return (f"<h2>Families</h2><p>{esc(plural(len(fams), 'family', 'families'))}: each member "
             "is the family's comparison run on the rows of one level.</p>")
