@@ -202,7 +202,10 @@ def _p_values(s: _Supports, rows: np.ndarray, at: np.ndarray, alternative: str,
         return np.minimum(1.0, (s.below[rows, at] / total).astype(float))
     if alternative == "greater":
         return np.minimum(1.0, (s.above[rows, at] / total).astype(float))
-    limit = s.w[rows, at] * (_ld(1) + _ld(tolerance))
+    # the running products carry a relative error of about (support length)·eps: a tolerance
+    # below that could not tell ties (it only binds where longdouble is a plain double)
+    floor = 8.0 * s.w.shape[1] * float(np.finfo(_ld).eps)
+    limit = s.w[rows, at] * (_ld(1) + _ld(max(tolerance, floor)))
     mode, length = s.mode[rows], s.length[rows]
     left = _last_at_most(s.w, rows, np.zeros_like(mode), mode, limit)
     right = _first_at_most(s.w, rows, mode + 1, length - 1, limit)
