@@ -71,7 +71,7 @@ def _hypothesis_defaults(hyp: dict[str, Any], alpha: Any) -> dict[str, Any]:
     if out.get("flag_level") is None and _is_number(alpha):
         out["flag_level"] = alpha
     if out.get("flag_method") == "double-fdr" and out.get("group_level") is None \
-            and _is_number(out.get("flag_level")):
+            and _is_number(out.get("flag_level")) and 0 < out["flag_level"] < 1:
         out["group_level"] = out["flag_level"]
     levels = out.get("levels")
     if out.get("members") is None and levels is not None and isinstance(out.get("id"), str):
@@ -158,11 +158,15 @@ def _shape_issues(hyp: Any, path: KeyPath) -> Iterator[Issue]:
     if hyp.kind != "pair":
         yield Issue((*path, "compare"), "a family compares two groups: compare: [a, b]")
         return
+    refused = False
     for key, test in (("test", hyp.test), ("sparse", hyp.sparse.test if hyp.sparse else None)):
         if test is not None and test not in v.FAMILY_TESTS:
+            refused = True
             where = (*path, "test") if key == "test" else (*path, "sparse", "test")
             yield Issue(where, f"'{test}' is not a test for a family (tests: "
                         f"{', '.join(sorted(v.FAMILY_TESTS))})")
+    if refused:  # the measure's default follows the test: say only what to change
+        return
     if hyp.comparison != "superiority":
         yield Issue((*path, "comparison"), "a family tests superiority (each member against "
                     "no difference)")
