@@ -80,6 +80,7 @@ def test_levels_found_in_the_data_sorted_by_group_then_level(tmp_path: Path) -> 
 def test_ids_are_unique_within_each_level_not_across(tmp_path: Path) -> None:
     plan, frame, data = setup(tmp_path, BASE)  # P1..P6 in every level
     prepared, fams = prepare_run(frame, plan, data)
+    assert [len(lv.rows) for lv in fams[0].levels] == [6, 6, 6]
     assert prepared.rows_read == 18 and prepared.analysed == 18 and prepared.outcomes == {}
     twice = [*BASE, *rows("dryness", "skin", [0], gels=["new"], start=2)]
     plan, frame, data = setup(tmp_path, twice)
