@@ -131,18 +131,17 @@ def _supports(n1: np.ndarray, n2: np.ndarray, m: np.ndarray) -> _Supports:
     mode = np.clip((m + 1) * (n1 + 1) // (n1 + n2 + 2), lo, hi) - lo
     width = int(length.max())
     j = np.arange(width)
-    x = (lo[:, None] + j[None, :]).astype(_ld)
-    n1l, n2l, ml = (v.astype(_ld)[:, None] for v in (n1, n2, m))
-    # r_j = P(x_j + 1)/P(x_j), defined for j < length − 1; 1 elsewhere (never used there)
+    x = lo[:, None] + j[None, :]
+    # r_j = P(x_j + 1)/P(x_j) = up/down, exact integers (below 2^63, and exact in longdouble);
+    # defined for j < length − 1, and 1/1 elsewhere (never used there)
     step = j[None, :] < (length - 1)[:, None]
-    numerator = np.where(step, (n1l - x) * (ml - x), _ld(1))
-    denominator = np.where(step, (x + 1) * (n2l - ml + x + 1), _ld(1))
-    ratio = numerator / denominator
-    above_mode = j[None, :] > mode[:, None]
-    below_mode = j[None, :] < mode[:, None]
-    rising = np.ones_like(ratio)
-    rising[:, 1:] = np.where(above_mode[:, 1:], ratio[:, :-1], _ld(1))
-    falling = np.where(below_mode, _ld(1) / ratio, _ld(1))
+    up = np.where(step, (n1[:, None] - x) * (m[:, None] - x), 1).astype(_ld)
+    down = np.where(step, (x + 1) * (n2[:, None] - m[:, None] + x + 1), 1).astype(_ld)
+    # w_j = Π r_i over mode <= i < j above the mode, Π 1/r_i over j <= i < mode below it
+    rising = np.ones((lo.size, width), dtype=_ld)
+    np.divide(up[:, :-1], down[:, :-1], out=rising[:, 1:], where=(j > mode[:, None])[:, 1:])
+    falling = np.ones((lo.size, width), dtype=_ld)
+    np.divide(down, up, out=falling, where=j < mode[:, None])
     w = np.cumprod(rising, axis=1) * np.cumprod(falling[:, ::-1], axis=1)[:, ::-1]
     w = np.where(j[None, :] < length[:, None], w, _ld(0))
     below = np.cumsum(w, axis=1)
