@@ -58,7 +58,7 @@ def _scipy_p(tables: tuple[np.ndarray, ...], alternative: str) -> np.ndarray:
 
 @pytest.mark.parametrize("alternative", ALTERNATIVES)
 @pytest.mark.parametrize(
-    ("seed", "size", "largest"), [(1, 1500, 40), (2, 600, 400), (3, 150, 3000)]
+    ("seed", "size", "largest"), [(1, 800, 40), (2, 400, 400), (3, 150, 3000)]
 )
 def test_p_values_equal_scipy(alternative: str, seed: int, size: int, largest: int) -> None:
     tables = _random_tables(seed, size, largest)
@@ -73,7 +73,7 @@ def test_p_values_equal_scipy(alternative: str, seed: int, size: int, largest: i
 
 @pytest.mark.parametrize("alternative", ALTERNATIVES)
 def test_p_values_equal_scipy_on_a_safety_table(alternative: str) -> None:
-    tables = _safety_tables(4, 2000)
+    tables = _safety_tables(4, 800)
     ours = fisher_many(*tables, alternative=alternative).p_value
     # scipy.stats.fisher_exact; equal arms make every table tie with its mirror image
     np.testing.assert_allclose(ours, _scipy_p(tables, alternative), rtol=1e-12, atol=0.0)
@@ -159,6 +159,17 @@ def test_conditional_mle_equals_scipy(seed: int, size: int, largest: int) -> Non
     inner = ~same_edge
     # scipy's brentq stops at an absolute 1e-13 on the odds ratio, coarse below about 1e-4
     np.testing.assert_allclose(ours[inner], ref[inner], rtol=1e-8, atol=1e-12)
+
+
+def test_conditional_mle_solved_by_hand() -> None:
+    # [[999, 1], [2, 1]]: given the margins x is 998, 999 or 1000 with central weights
+    # C(1000, x)·C(3, 1001 − x) = 499500, 3000, 3. E[X; ψ] = 999 reads
+    # 499500·(998 − 999) + 3000·0·ψ + 3·(1000 − 999)·ψ² = 0, so ψ = sqrt(166500) (common
+    # practice: the conditional likelihood equation); scipy.stats.contingency.odds_ratio gives
+    # 408.044115262161, within its root search's tolerance.
+    estimate = fisher_many([999], [1], [2], [1]).odds_ratio[0]
+    assert estimate == pytest.approx(math.sqrt(166500), rel=1e-13)
+    assert estimate == pytest.approx(odds_ratio([[999, 1], [2, 1]]).statistic, rel=1e-8)
 
 
 # --- the exact conditional interval ------------------------------------------------------
@@ -317,6 +328,8 @@ def test_float_counts_that_are_whole_numbers() -> None:
         ((["3"], [2], [4], [6]), {}, "a must be an array of integer counts"),
         (([1], [2], [4], [6]), {"alternative": "two"}, "alternative must be one of"),
         (([1], [2], [4], [6]), {"tie_tolerance": -1.0}, "tie_tolerance must be in"),
+        (([2**62], [2**62], [1], [1]), {}, "a holds 4611686018427387904, more than"),
+        (([1_500_000], [600_000], [1], [1]), {}, "a table of 2100002 is larger than"),
     ],
 )
 def test_bad_input_fisher(cells: tuple[list[object], ...], keywords: dict[str, object],

@@ -32,6 +32,8 @@ SCIPY_TIE_TOLERANCE = 1e-14
 CHUNK_POINTS = 1 << 18
 #: The root searches stop when the step on the log odds ratio is below this.
 LOG_TOLERANCE = 1e-12
+#: The largest table total handled (its support, up to half of it, is held in memory).
+MAX_TOTAL = 2_000_000
 #: Iterations of the safeguarded Newton search before giving up (a bug if ever reached).
 MAX_ITERATIONS = 200
 
@@ -80,9 +82,11 @@ def _cells(a: object, b: object, c: object, d: object) -> tuple[np.ndarray, ...]
     for name, array in zip("abcd", cells):
         if array.size and int(array.min()) < 0:
             raise ValueError(f"{name} must hold counts >= 0, got {int(array.min())}")
+        if array.size and int(array.max()) > MAX_TOTAL:
+            raise ValueError(f"{name} holds {int(array.max())}, more than the {MAX_TOTAL} handled")
     n = cells[0] + cells[1] + cells[2] + cells[3]
-    if n.size and int(n.max()) > 10**7:
-        raise ValueError(f"a table of {int(n.max())} is larger than the 10,000,000 handled")
+    if n.size and int(n.max()) > MAX_TOTAL:
+        raise ValueError(f"a table of {int(n.max())} is larger than the {MAX_TOTAL} handled")
     return tuple(cells)
 
 
