@@ -11,6 +11,7 @@ tea-tasting table.
 from __future__ import annotations
 
 import math
+from decimal import Decimal, localcontext
 from fractions import Fraction
 
 import numpy as np
@@ -99,6 +100,39 @@ def test_exact_ties_are_counted(a: int, n1: int, c: int, n2: int) -> None:
     assert p == pytest.approx(float(_exact_p(a, n1, c, n2)), rel=1e-14)
     ref = fisher_exact([[a, n1 - a], [c, n2 - c]]).pvalue  # scipy.stats.fisher_exact
     assert p == pytest.approx(ref, rel=1e-12)
+
+
+def _decimal_p(a: int, n1: int, c: int, n2: int, alternative: str) -> float:
+    """Fisher's p-value from the probability ratios summed in 50-digit decimal arithmetic."""
+    with localcontext() as context:
+        context.prec = 50
+        m = a + c
+        low, high = max(0, m - n2), min(n1, m)
+        w = [Decimal(1)]
+        for x in range(low, high):
+            w.append(w[-1] * Decimal((n1 - x) * (m - x)) / Decimal((x + 1) * (n2 - m + x + 1)))
+        at = w[a - low]
+        if alternative == "less":
+            part = sum(w[: a - low + 1])
+        elif alternative == "greater":
+            part = sum(w[a - low :])
+        else:
+            part = sum(v for v in w if v <= at * (1 + Decimal(fisherarray.SCIPY_TIE_TOLERANCE)))
+        return float(part / sum(w))
+
+
+@pytest.mark.parametrize("alternative", ALTERNATIVES)
+def test_large_tables_equal_a_decimal_sum(alternative: str) -> None:
+    # arms of 50,000–100,000: scipy.stats.fisher_exact's tails drift there (about 1e-11
+    # relative), so the reference is the definition summed in 50-digit decimals (common
+    # practice: the hypergeometric law given both margins)
+    rng = np.random.default_rng(13)
+    n1, n2 = rng.integers(50_000, 100_001, 6), rng.integers(50_000, 100_001, 6)
+    a, c = rng.integers(1000, 2500, 6), rng.integers(1000, 2500, 6)
+    ours = fisher_many(a, n1 - a, c, n2 - c, alternative=alternative).p_value
+    for i in range(6):
+        ref = _decimal_p(int(a[i]), int(n1[i]), int(c[i]), int(n2[i]), alternative)
+        assert ours[i] == pytest.approx(ref, rel=1e-13)
 
 
 def test_tea_tasting() -> None:
