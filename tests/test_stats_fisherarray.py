@@ -206,6 +206,47 @@ def test_conditional_mle_solved_by_hand() -> None:
     assert estimate == pytest.approx(odds_ratio([[999, 1], [2, 1]]).statistic, rel=1e-8)
 
 
+def _decimal_mle(a: int, n1: int, c: int, n2: int) -> float:
+    """The conditional MLE by bisection on ψ in 40-digit decimals, for a near the bottom of
+    its support (the terms are summed upwards until they no longer count)."""
+    m = a + c
+    low, high = max(0, m - n2), min(n1, m)
+
+    def mean(psi: Decimal) -> Decimal:
+        term, total, first, x = Decimal(1), Decimal(0), Decimal(0), low
+        while True:
+            total += term
+            first += term * x
+            if x == high or (x > a + 5 and term < total * Decimal("1e-45")):
+                return first / total
+            term = term * psi * (n1 - x) * (m - x) / ((x + 1) * (n2 - m + x + 1))
+            x += 1
+
+    with localcontext() as context:
+        context.prec = 40
+        below, above = Decimal("1e-12"), Decimal(1)
+        for _ in range(140):
+            middle = (below * above).sqrt()
+            below, above = (middle, above) if mean(middle) < a else (below, middle)
+        return float(below)
+
+
+def test_far_tails_of_very_large_tables() -> None:
+    # [[1, 99999], [40000, 60000]]: P(0)/P(mode) is far below even the extended-precision
+    # range (about 1e-4900), so the log weights are summed from the ratios instead
+    s = fisherarray._supports(np.array([100_000]), np.array([100_000]), np.array([40_001]))
+    assert s.w[0, 0] == 0 and np.isfinite(s.log_w[0, 0])
+    result = fisher_many([1, 2], [99_999, 199_998], [40_000, 30_000], [60_000, 170_000])
+    assert list(result.p_value) == [0.0, 0.0]  # as scipy.stats.fisher_exact: below 1e-308
+    for i, table in enumerate([(1, 100_000, 40_000, 100_000), (2, 200_000, 30_000, 200_000)]):
+        assert result.odds_ratio[i] == pytest.approx(_decimal_mle(*table), rel=1e-10)
+    low, high = conditional_or_ci_many([1], [99_999], [40_000], [60_000])
+    one = exact_conditional_odds_ratio(1, 100_000, 40_000, 100_000, 0.95)
+    # the single-table method's gammaln weights lose about 1e-10 at this size
+    assert low[0] == pytest.approx(one.low, rel=1e-9)
+    assert high[0] == pytest.approx(one.high, rel=1e-9)
+
+
 # --- the exact conditional interval ------------------------------------------------------
 
 
