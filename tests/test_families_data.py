@@ -197,10 +197,10 @@ def test_every_column_is_carried_to_the_levels(tmp_path: Path,
     seen: list[list[str]] = []
     real = data_families.prepare
 
-    def spy(sub: pd.DataFrame, plan: object, source: object) -> object:
+    def spy(sub: pd.DataFrame, plan: object, source: object, **kwargs: object) -> object:
         seen.append(list(sub.columns))
         assert list(sub["row_weight"]) == ["2"] * len(sub)
-        return real(sub, plan, source)
+        return real(sub, plan, source, **kwargs)
 
     monkeypatch.setattr(data_families, "prepare", spy)
     family_data(frame, plan, plan.hypotheses[0], data)

@@ -111,14 +111,19 @@ def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
         notes.append(Note("family-blank-level", f"{hyp.id}: {_rows(int(blank.sum()))} with a "
                           f"blank {hyp.over!r} left out of the family"))
     order, groups_of, keep = _levels(frame, labels, blank, hyp, source, offset, deviations)
-    positions: dict[str, list[int]] = {}
-    for i in np.flatnonzero(keep):
-        positions.setdefault(str(labels[i]), []).append(int(i))
+    # one take of the frame, sorted by level (stable), then a contiguous slice per level
+    kept = np.flatnonzero(keep)
+    rank = {value: k for k, value in enumerate(order)}
+    codes = pd.Series(labels[kept], dtype=object).map(rank).to_numpy(dtype=np.int64)
+    by_level = kept[np.argsort(codes, kind="stable")]
+    bounds = np.searchsorted(np.sort(codes, kind="stable"), np.arange(len(order) + 1))
+    grouped = frame.take(by_level)
+    _check_ids_within(frame, plan.data.id, by_level, bounds, order, hyp, source, offset)
     member_plan = _member_plan(plan, hyp)
     levels: list[Level] = []
     per_level: list[tuple[str, Prepared]] = []
     for k, value in enumerate(order):
-        rows = np.asarray(positions.get(value, []), dtype=np.int64)
+        rows = by_level[bounds[k]:bounds[k + 1]]
         if not len(rows):
             notes.append(Note("family-level-absent", f"{member_id(hyp.id, value)}: declared "
                               f"level {value!r} has no rows in the data; reported with no "
@@ -127,10 +132,10 @@ def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
             if progress is not None:
                 progress(k + 1, len(order))
             continue
-        sub = frame.iloc[rows].reset_index(drop=True)
+        sub = grouped.iloc[bounds[k]:bounds[k + 1]].reset_index(drop=True)
         where = f"hypotheses.{hyp.id}, the rows where {hyp.over} is {value!r}"
         try:
-            prepared = prepare(sub, member_plan, source)
+            prepared = prepare(sub, member_plan, source, check_ids=False)
         except DataError as exc:
             raise _remap(exc, rows, offset, where) from None
         levels.append(Level(value, groups_of.get(value), rows, prepared))
@@ -141,6 +146,40 @@ def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
     notes.extend(_merged_notes(hyp.id, per_level))
     return FamilyData(hyp.id, tuple(levels), int((~keep).sum()), tuple(deviations),
                       tuple(notes))
+
+
+def _check_ids_within(frame: pd.DataFrame, id_column: str, by_level: np.ndarray,
+                      bounds: np.ndarray, order: list[str], hyp: Any, source: str,
+                      offset: int) -> None:
+    """Unit ids: none blank, none repeated within a level (the rows of each level are one
+    analysis set); checked for every level at once, the first level at fault named."""
+    if id_column not in frame.columns:
+        return  # prepare names the missing column
+    ids = _labels(frame[id_column])[by_level]
+    codes, _ = pd.factorize(pd.Series(ids, dtype=object), use_na_sentinel=True)
+    level_of = np.repeat(np.arange(len(order)), np.diff(bounds))
+    blank = codes < 0
+    paired = level_of * (int(codes.max(initial=0)) + 1) + np.where(blank, 0, codes)
+    _, inverse, counts = np.unique(paired, return_inverse=True, return_counts=True)
+    repeated = ~blank & (counts[inverse] > 1)
+    bad = blank | repeated
+    if not bad.any():
+        return
+    k = int(level_of[np.flatnonzero(bad)[0]])
+    where = f"hypotheses.{hyp.id}, the rows where {hyp.over} is {order[k]!r}"
+    span = slice(bounds[k], bounds[k + 1])
+    rows, in_level = by_level[span], np.arange(bounds[k], bounds[k + 1])
+    if blank[span].any():
+        raise DataError(f"{source}: {where}: blank id in column {id_column!r} (rows "
+                        f"{_lines(np.sort(rows[blank[span]]), offset)})")
+    shown = []
+    dup_ids = list(dict.fromkeys(str(ids[i]) for i in in_level[repeated[span]]))
+    for value in dup_ids[:_SHOW]:
+        at = np.sort(rows[ids[span] == value])
+        shown.append(f"{value!r} (rows {', '.join(str(int(r) + offset) for r in at)})")
+    more = len(dup_ids) - len(shown)
+    raise DataError(f"{source}: {where}: duplicate ids in column {id_column!r}: "
+                    f"{'; '.join(shown)}" + (f"; and {more} more" if more > 0 else ""))
 
 
 def _levels(frame: pd.DataFrame, labels: np.ndarray, blank: np.ndarray, hyp: Any,
@@ -175,43 +214,54 @@ def _levels(frame: pd.DataFrame, labels: np.ndarray, blank: np.ndarray, hyp: Any
     return values, groups_of, keep
 
 
+def _term_group_pairs(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray, hyp: Any
+                      ) -> tuple[np.ndarray, np.ndarray, dict[str, set[str | None]]]:
+    """Per kept row its level and group text (None when blank); per level the groups seen."""
+    within = _labels(frame[hyp.within])
+    idx = np.flatnonzero(keep)
+    terms = pd.Series(labels[idx], dtype=object)
+    groups = pd.Series(within[idx], dtype=object)
+    t_codes, t_uniques = pd.factorize(terms)
+    g_codes, g_uniques = pd.factorize(groups, use_na_sentinel=True)
+    seen: dict[str, set[str | None]] = {}
+    for t, g in np.unique(np.stack([t_codes, g_codes]), axis=1).T:
+        seen.setdefault(str(t_uniques[t]), set()).add(None if g < 0 else str(g_uniques[g]))
+    return labels, within, seen
+
+
 def _check_declared_groups(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray,
                            groups_of: dict[str, str | None], hyp: Any, source: str,
                            offset: int) -> None:
-    within = _labels(frame[hyp.within])
-    for i in np.flatnonzero(keep):
-        group = within[i]
-        if group is not None and group != groups_of[str(labels[i])]:
-            term = str(labels[i])
-            bad = np.flatnonzero(keep & (labels == term) & (within == group))
-            raise DataError(
-                f"{source}: level {term!r} of {hyp.over!r} is declared under "
-                f"{groups_of[term]!r} (hypotheses.{hyp.id}.levels), but column "
-                f"{hyp.within!r} puts it under {group!r} (rows {_lines(bad, offset)})")
+    labels, within, seen = _term_group_pairs(frame, labels, keep, hyp)
+    for term in (t for t, _ in declared(hyp.levels)):
+        for group in sorted(g for g in seen.get(term, set()) if g is not None):
+            if group != groups_of[term]:
+                bad = np.flatnonzero(keep & (labels == term) & (within == group))
+                raise DataError(
+                    f"{source}: level {term!r} of {hyp.over!r} is declared under "
+                    f"{groups_of[term]!r} (hypotheses.{hyp.id}.levels), but column "
+                    f"{hyp.within!r} puts it under {group!r} (rows {_lines(bad, offset)})")
 
 
 def _groups_from_data(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray, hyp: Any,
                       source: str, offset: int) -> dict[str, str | None]:
-    within = _labels(frame[hyp.within])
-    seen: dict[str, dict[str, list[int]]] = {}
-    for i in np.flatnonzero(keep):
-        seen.setdefault(str(labels[i]), {}).setdefault(
-            "" if within[i] is None else str(within[i]), []).append(int(i))
+    labels, within, seen = _term_group_pairs(frame, labels, keep, hyp)
     out: dict[str, str | None] = {}
     for term in sorted(seen):
-        by_group = seen[term]
-        if "" in by_group:
-            rows = np.asarray(by_group[""])
+        groups = seen[term]
+        at = keep & (labels == term)
+        if None in groups:
+            rows = np.flatnonzero(at & np.array([g is None for g in within], dtype=bool))
             raise DataError(f"{source}: level {term!r} of {hyp.over!r} has a blank "
                             f"{hyp.within!r} (hypotheses.{hyp.id}.within) in rows "
                             f"{_lines(rows, offset)}; each level needs its group")
-        if len(by_group) > 1:
-            shown = "; ".join(f"{g!r} (rows {_lines(np.asarray(r), offset)})"
-                              for g, r in sorted(by_group.items()))
+        if len(groups) > 1:
+            shown = "; ".join(f"{g!r} (rows {_lines(np.flatnonzero(at & (within == g)), offset)})"
+                              for g in sorted(str(x) for x in groups))
             raise DataError(f"{source}: level {term!r} of {hyp.over!r} sits in more than one "
                             f"{hyp.within!r} (hypotheses.{hyp.id}.within): {shown}; a level "
                             "belongs to one group")
-        out[term] = next(iter(by_group))
+        out[term] = next(iter(groups))
     return out
 
 
