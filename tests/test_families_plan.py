@@ -162,3 +162,15 @@ def test_a_family_cannot_carry_graphical_weight(tmp_path: Path) -> None:
     text = swap("multiplicity: holm", "multiplicity: {method: graphical, weights: {AE: 1}}")
     with pytest.raises(PlanError, match="exploratory"):
         load_plan(write(tmp_path, text))
+
+
+def test_plans_without_families_keep_their_fingerprints() -> None:
+    # the fingerprints prespec gave these plans before families existed (commit 76f746c)
+    plans = Path(__file__).parents[1] / "plans"
+    loaded = load_plan(plans / "wound-dressing.yaml")
+    assert loaded.fingerprint == (
+        "sha256:7f1707a66696d7cb2301f395720e7f624fce4f13b8bd0d9a6c13f8c8f4a615ac")
+    assert load_plan(plans / "methods-tour.yaml").fingerprint == (
+        "sha256:2c6b68cc3c720ef6b89c2435dedbe18764406850ef132c2149bcb7ab30ed389d")
+    for hyp in loaded.resolved["hypotheses"]:
+        assert not set(v.FAMILY_KEYS) & set(hyp)

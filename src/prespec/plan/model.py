@@ -18,12 +18,13 @@ from pydantic import (
     Discriminator,
     Field,
     Tag,
+    model_serializer,
     model_validator,
 )
 from pydantic_core import PydanticCustomError
 
 from prespec.plan import vocabulary as v
-from prespec.plan.families import FAMILY_DOC, family_defaults
+from prespec.plan.families import FAMILY_DOC, family_defaults, without_family_keys
 from prespec.plan.yamlread import describe, show
 
 TestName = Literal[tuple(sorted(v.KNOWN_TESTS))]  # type: ignore[valid-type]
@@ -367,6 +368,11 @@ class Hypothesis(_Model):
         if out.get("interval") is None:
             out["interval"] = default_interval(kind, test, out["measure"])
         return out
+
+    @model_serializer(mode="wrap")
+    def _family_keys_on_families_only(self, handler: Any) -> Any:
+        # an ordinary hypothesis dumps (and so fingerprints) as it did before families
+        return without_family_keys(handler(self), self.over is None)
 
     @property
     def kind(self) -> Literal["pair", "single", "all", "trend"]:
