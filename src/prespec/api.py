@@ -362,6 +362,8 @@ def mark_overrides(results: dict[str, Any], changes: list[dict[str, Any]]) -> No
     results["overrides"] = [dict(c) for c in changes]
     for hyp in results["hypotheses"]:
         hyp["pre_specified"] = not _affected(hyp, changes)
+    for fam in results.get("families") or []:  # outside the plan's multiplicity
+        fam["pre_specified"] = not _affected({"id": fam["id"], "role": "exploratory"}, changes)
 
 
 def _show(value: Any) -> str:
