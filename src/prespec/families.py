@@ -69,7 +69,10 @@ def prepare_run(frame: pd.DataFrame, plan: Any, source: str | Path,
         excluded_by_filter=sum(p.excluded_by_filter for p in levels),
         excluded_group=sum(p.excluded_group for p in levels),
         analysed=sum(p.analysed for p in levels),
-        outcomes={}, deviations=(), notes=(),
+        outcomes={}, deviations=(), notes=(Note(
+            "family-population", "every hypothesis is a family over "
+            f"{family_column(plan)!r}: the population counts are rows (one per unit and "
+            "level) summed over the levels, and each member's table counts units"),),
     ), data
 
 
