@@ -5,7 +5,11 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import pytest
+
 from prespec import api
+from prespec.audit import log as audit_log
+from prespec.errors import IntegrityStop
 from prespec.safety_demo import write_safety_demo
 
 
@@ -26,3 +30,19 @@ def test_an_override_marks_the_family_and_a_rerun_reproduces_it(tmp_path: Path) 
     assert any(line.startswith("rerun: 2 report(s) recomputed") for line in done.passed)
     stored = json.loads((tmp_path / "plain" / "results.json").read_text())
     assert stored["families"][0]["members"] == plain.results["families"][0]["members"]
+
+
+def test_verify_checks_the_lock_entry_members_against_the_locked_plan(tmp_path: Path) -> None:
+    plan, _ = write_safety_demo(tmp_path, per_group=20)
+    api.lock(plan, actor="reviewer")
+    log = tmp_path / "safety-review.audit.jsonl"
+    (entry,) = [json.loads(x) for x in log.read_text().splitlines()]
+    assert len(entry["details"]["families"]["AE"]) == 30
+    assert api.verify(plan).passed
+    # a consistent chain whose lock entry names one member fewer than the locked plan
+    entry["details"]["families"]["AE"].pop()
+    entry["hash"] = audit_log.entry_hash(entry)
+    log.write_bytes(audit_log.entry_line(entry))
+    (tmp_path / "safety-review.audit.head").write_bytes(audit_log.head_line(entry))
+    with pytest.raises(IntegrityStop, match="family members differ from those its lock entry"):
+        api.verify(plan)
