@@ -88,7 +88,7 @@ def check_intervals(t: Tables) -> None:
     print(f"  checked: all {t[0].size} intervals equal scipy's")
 
 
-def fisher_part(label: str, t: Tables) -> None:
+def fisher_part(label: str, t: Tables, *, goal: bool) -> None:
     distinct = np.unique(np.stack(t, axis=1), axis=0).shape[0]
     margins = np.unique(np.stack([t[0] + t[1], t[2] + t[3], t[0] + t[2]], axis=1), axis=0)
     print(f"{label}: {t[0].size} tables, {distinct} distinct, {margins.shape[0]} distinct "
@@ -97,11 +97,12 @@ def fisher_part(label: str, t: Tables) -> None:
     baseline = once(lambda: scipy_p_values(t))
     ours = best_of(5, lambda: fisher_many(*t))
     ratio = baseline / ours
-    goal = "meets" if ratio >= 30 else "MISSES"
+    verdict = ("meets" if ratio >= 30 else "MISSES") + " the 30x goal" if goal else \
+        "for information: the goal is set on the arms of 500"
     print(f"  loop of scipy.stats.fisher_exact: {baseline:.3f} s "
           f"({baseline / t[0].size * 1e6:.0f} us a table)")
     print(f"  fisher_many (p-values and conditional MLE odds ratios): {ours * 1e3:.1f} ms")
-    print(f"  ratio: {ratio:.1f}x ({goal} the 30x goal)")
+    print(f"  ratio: {ratio:.1f}x ({verdict})")
 
 
 def interval_part(t: Tables, subset: int) -> None:
@@ -125,8 +126,9 @@ def main() -> None:
     parser.add_argument("--ci-tables", type=int, default=1_000)
     args = parser.parse_args()
     tables = safety_tables(args.tables, seed=2027)
-    fisher_part("arms of 500, events 0-60", tables)
-    fisher_part("arms of 400-600, events 0-60", safety_tables(args.tables, 2028, (400, 600)))
+    fisher_part("arms of 500, events 0-60", tables, goal=True)
+    fisher_part("arms of 400-600, events 0-60", safety_tables(args.tables, 2028, (400, 600)),
+                goal=False)
     interval_part(tables, min(args.ci_tables, args.tables))
 
 
