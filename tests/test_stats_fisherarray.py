@@ -339,6 +339,20 @@ def test_interval_covers_the_estimate_and_narrows_with_level() -> None:
     assert np.all(low95 <= low80) and np.all(high80 <= high95)
 
 
+def test_the_root_search_widens_then_bisects() -> None:
+    # tanh(u − r) is flat far from its root: Newton alone would leap away, so the bracket is
+    # widened by doubling steps and then closed by bisection and Newton (common practice:
+    # a safeguarded Newton method)
+    roots = np.array([-60.0, -7.3, 0.0, 1e-3, 2.5, 33.3, 300.0])
+
+    def function(u: np.ndarray, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        t = np.tanh(u - roots[idx])
+        return t, 1.0 - t * t
+
+    found = fisherarray._increasing_root(function, np.zeros(roots.size))
+    np.testing.assert_allclose(found, roots, rtol=0.0, atol=1e-11)
+
+
 # --- shapes, duplicates, chunks ----------------------------------------------------------
 
 

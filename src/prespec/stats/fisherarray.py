@@ -298,11 +298,12 @@ def _increasing_root(function: Callable[[np.ndarray, np.ndarray],
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             f, slope = function(here, active)
             newton = here - f / slope
-            middle = 0.5 * (low[active] + high[active])
         negative, positive = f < 0, f > 0
         low[active] = np.where(negative, here, low[active])
         high[active] = np.where(positive, here, high[active])
         lo, hi = low[active], high[active]
+        with np.errstate(invalid="ignore"):
+            middle = 0.5 * (lo + hi)  # nan or ±inf while a bracket end is still open
         bracketed = np.isfinite(lo) & np.isfinite(hi)
         ok = np.isfinite(newton) & (slope > 0) & (newton >= lo) & (newton <= hi)
         # without a finite bracket, a Newton step may not leap further than the widening
