@@ -78,6 +78,8 @@ def double_fdr(
 
     References
     ----------
+    Cited from memory, as is the description of the method above.
+
     Mehrotra DV, Heyse JF. Use of the false discovery rate for evaluating clinical safety data.
     Statistical Methods in Medical Research 2004;13:227–238.
     Benjamini Y, Hochberg Y. Controlling the false discovery rate. JRSS B 1995;57:289–300.
