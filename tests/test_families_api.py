@@ -5,11 +5,13 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 
 from prespec import api
 from prespec.audit import log as audit_log
-from prespec.errors import IntegrityStop
+from prespec.errors import BadInput, IntegrityStop
 from prespec.safety_demo import write_safety_demo
 
 
@@ -46,3 +48,68 @@ def test_verify_checks_the_lock_entry_members_against_the_locked_plan(tmp_path: 
     (tmp_path / "safety-review.audit.head").write_bytes(audit_log.head_line(entry))
     with pytest.raises(IntegrityStop, match="family members differ from those its lock entry"):
         api.verify(plan)
+
+
+MIXED = """\
+prespec: 1
+title: One row per participant, an ordinary hypothesis beside a family (invented)
+data:
+  id: participant
+  group: gel
+  groups: [new, standard]
+outcomes:
+  reported:
+    column: had_event
+    event: [1]
+    no_event: [0]
+    missing: exclude
+alpha: 0.05
+multiplicity: holm
+design:
+  assumed: {new: 0.3, standard: 0.15}
+  power: 0.8
+hypotheses:
+  - id: H1
+    outcome: reported
+    compare: [new, standard]
+    test: pearson-chi-square
+  - id: AE
+    outcome: reported
+    compare: [new, standard]
+    test: fisher-exact
+    over: worst_term
+    flag_method: benjamini-hochberg
+"""
+
+
+def test_a_mixed_plan_runs_both_and_design_sizes_only_the_ordinary(tmp_path: Path) -> None:
+    rng = np.random.default_rng(4)
+    n = 240
+    gel = np.array(["new", "standard"] * (n // 2))
+    frame = pd.DataFrame({"participant": [f"U{i}" for i in range(n)], "gel": gel,
+                          "worst_term": rng.choice(["dryness", "redness", "itching"], n),
+                          "had_event": (rng.random(n) < np.where(gel == "new", 0.3, 0.15))
+                          .astype(int).astype(str)})
+    plan, data = tmp_path / "mixed.yaml", tmp_path / "mixed.csv"
+    plan.write_text(MIXED)
+    frame.to_csv(data, index=False)
+    doc = api.design(plan, actor="reviewer")
+    assert [h["id"] for h in doc["hypotheses"]] == ["H1"]
+    api.lock(plan, actor="reviewer")
+    out = api.run(plan, data, out=tmp_path / "report", actor="reviewer")
+    (h1,) = out.results["hypotheses"]
+    assert h1["id"] == "H1" and h1["p_adjusted"] == h1["p_value"]  # Holm over H1 alone
+    assert h1["table"]["totals"] == [120, 120]
+    fam = out.results["families"][0]
+    assert [m["level"] for m in fam["members"]] == ["dryness", "itching", "redness"]
+    assert sum(sum(m["table"]["totals"]) for m in fam["members"]) == n
+    assert out.results["groups"]["reported"][0]["total"] == 120  # the per-unit summary stays
+
+
+def test_design_refuses_a_plan_of_families_only(tmp_path: Path) -> None:
+    plan, _ = write_safety_demo(tmp_path, per_group=20)
+    text = plan.read_text().replace("hypotheses:", "design:\n  assumed: {new: 0.2, standard: "
+                                    "0.1}\n  power: 0.8\nhypotheses:")
+    plan.write_text(text)
+    with pytest.raises(BadInput, match="this plan has only families"):
+        api.design(plan, actor="reviewer")

@@ -22,7 +22,7 @@ from .departures import Departure, Note
 from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
 from .execute import check_out_folder, compute_results, default_folder
-from .families import declared_members
+from .families import declared_members, ordinary_plan
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
 from .publish import RunOutcome, complete_interrupted, publish
 
@@ -510,7 +510,12 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
     if seed is not None and seed < 0:
         raise BadInput(f"--seed must be 0 or more, got {seed}")
     loaded = load_plan(Path(plan))
-    doc = design_document(loaded.model, where=str(loaded.path), fingerprint=loaded.fingerprint,
+    sized = ordinary_plan(loaded.model)  # families are flagged, not sized
+    if not sized.hypotheses:
+        raise BadInput(f"{loaded.path}: design sizes the plan's ordinary hypotheses, and this "
+                       "plan has only families (over), which are not sized")
+    doc = design_document(sized, where=str(loaded.path),
+                          fingerprint=loaded.fingerprint,
                           simulate_trials=simulate, seed=seed, progress=progress)
     _finish_stopped_writes(loaded.path)
     sim = doc["simulation"]
