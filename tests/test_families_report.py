@@ -104,3 +104,34 @@ def test_the_csv_lists_every_member(tmp_path: Path) -> None:
     assert float(first["p_value"]) == member["p_value"]
     assert float(first["p_group"]) == member["p_group"]
     assert [r["flagged"] == "True" for r in rows] == [m["flagged"] for m in fam["members"]]
+
+
+def test_every_fragment_closes_what_it_opens(tmp_path: Path) -> None:
+    """An unclosed element would swallow the figure and the table that follow it in the
+    exported page (they were there but not drawn, in headless Chromium)."""
+    from html.parser import HTMLParser
+
+    class Balance(HTMLParser):
+        def __init__(self) -> None:
+            super().__init__()
+            self.open: list[str] = []
+
+        def handle_starttag(self, tag: str, attrs: object) -> None:
+            if tag not in ("br", "img", "meta"):
+                self.open.append(tag)
+
+        def handle_endtag(self, tag: str) -> None:
+            assert self.open and self.open.pop() == tag, tag
+
+    fam = family(tmp_path)
+    rehearsal = {"kind": "rehearsal", "families": [{
+        "id": "AE", "over": "event_term", "within": "body_system", "executed": True,
+        "problem": None, "members": [{"level": "dryness", "group": "skin", "events": 3,
+                                      "total": 10, "missing": 0}]}]}
+    for fragment in (report.section(fam), report.member_table(fam, "t"),
+                     report.families_heading({"kind": "run", "families": [fam]}),
+                     report.families_heading(rehearsal)):
+        checker = Balance()
+        checker.feed(fragment)
+        checker.close()
+        assert checker.open == [], fragment[:80]

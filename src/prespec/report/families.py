@@ -293,7 +293,7 @@ def section(fam: Mapping[str, Any]) -> str:
         + _groups_table(fam)
         + f"<p>The figure plots each member's risk difference against −log10 of its nominal "
         f"p-value; flagged members are filled and labelled; {esc(line)}. Click a column "
-        "heading of the table to sort by it.</p>"
+        "heading of the table to sort by it.</p></div>"
     )
 
 
