@@ -89,7 +89,7 @@ def test_a_plan_with_looks_loads_with_its_defaults(tmp_path: Path) -> None:
                      "gamma": -4.0, "futility": {"spending": "lan-demets-pocock", "gamma": None,
                                                  "binding": False}}
     assert loaded.model.hypotheses[0].looks.planned_fractions() == [1 / 3, 2 / 3, 1.0]
-    assert loaded.resolved["hypotheses"][1]["looks"] is None
+    assert "looks" not in loaded.resolved["hypotheses"][1]  # no looks: not in the resolved plan
 
 
 def test_schema_lists_looks() -> None:

@@ -125,7 +125,6 @@ def test_defaults_are_resolved(tmp_path: Path) -> None:
         "margin": None, "measure": "risk-difference", "interval": "wald", "continuity": False,
         "sparse": None, "role": "secondary", "null_rate": None, "strata": None, "scores": None,
         "then": None, "monte_carlo": None, "estimand": None, "sensitivity": None,
-        "looks": None,
     }
     assert loaded.resolved["design"] is None
     assert loaded.resolved["outcomes"]["infection"]["favourable"] is None

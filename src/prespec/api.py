@@ -22,6 +22,7 @@ from .departures import Departure, Note
 from .environment import differences, environment
 from .errors import BadInput, IntegrityStop
 from .execute import check_out_folder, compute_results, default_folder
+from .families import declared_members, ordinary_plan
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
 from .publish import RunOutcome, complete_interrupted, publish
 
@@ -133,7 +134,8 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
             data=None,
             details={"version": record["version"], "plan_file_sha256": record["plan_file_sha256"],
                      "reason": record["reason"], "record": version_digest(record),
-                     **({"changes": changes} if changes is not None else {})},
+                     **({"changes": changes} if changes is not None else {}),
+                     **declared_members(record["plan"])},
             deviations=deviations,
             sign=sign,
         )
@@ -361,6 +363,8 @@ def mark_overrides(results: dict[str, Any], changes: list[dict[str, Any]]) -> No
     results["overrides"] = [dict(c) for c in changes]
     for hyp in results["hypotheses"]:
         hyp["pre_specified"] = not _affected(hyp, changes)
+    for fam in results.get("families") or []:  # outside the plan's multiplicity
+        fam["pre_specified"] = not _affected({"id": fam["id"], "role": "exploratory"}, changes)
 
 
 def _show(value: Any) -> str:
@@ -400,8 +404,11 @@ def _environment_departures(record: dict[str, Any], env: dict[str, str]) -> list
 
 def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         actor: str | None = None, accept_deviation: str | None = None,
-        overrides: Mapping[str, Any] | None = None, look: int | None = None) -> RunOutcome:
+        overrides: Mapping[str, Any] | None = None, look: int | None = None,
+        progress: Callable[[str, int, int], None] | None = None) -> RunOutcome:
     """Run the locked plan on ``data``; write the report folder and the ``run`` entry.
+
+    ``progress(what, done, total)`` is called as the levels of a long family are prepared.
 
     ``overrides`` (``{"alpha": 0.025, "hypotheses.H1.test": "fisher-exact"}``) change the
     locked analysis for this run only; each change is an ``override`` departure and needs
@@ -444,7 +451,7 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         data_path=data_path, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes,
         previous_data=runs[-1].get("data") if runs and looks is None else None,
-        looks=looks,
+        looks=looks, progress=progress,
     )
     mark_overrides(results, changes)
     action = "look" if look is not None else "run"
@@ -512,7 +519,12 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
     if seed is not None and seed < 0:
         raise BadInput(f"--seed must be 0 or more, got {seed}")
     loaded = load_plan(Path(plan))
-    doc = design_document(loaded.model, where=str(loaded.path), fingerprint=loaded.fingerprint,
+    sized = ordinary_plan(loaded.model)  # families are flagged, not sized
+    if not sized.hypotheses:
+        raise BadInput(f"{loaded.path}: design sizes the plan's ordinary hypotheses, and this "
+                       "plan has only families (over), which are not sized")
+    doc = design_document(sized, where=str(loaded.path),
+                          fingerprint=loaded.fingerprint,
                           simulate_trials=simulate, seed=seed, progress=progress)
     _finish_stopped_writes(loaded.path)
     sim = doc["simulation"]

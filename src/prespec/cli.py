@@ -150,7 +150,7 @@ def _print_rehearsal(res: dict[str, Any]) -> None:
     print(f"data dictionary: {len(columns)} column use(s) in tables/data-dictionary.csv")
 
 
-def _progress_bar() -> Any:
+def _progress_bar(verb: str = "simulating") -> Any:
     """A progress bar on stderr for a terminal; None (quiet) when stderr is not one."""
     if not sys.stderr.isatty():
         return None
@@ -158,7 +158,7 @@ def _progress_bar() -> Any:
     def show(name: str, done: int, total: int) -> None:
         width = 30
         filled = width * done // total
-        sys.stderr.write(f"\rsimulating {name[:24]:<24} [{'#' * filled}{'.' * (width - filled)}]"
+        sys.stderr.write(f"\r{verb} {name[:24]:<24} [{'#' * filled}{'.' * (width - filled)}]"
                          f" {100 * done // total:3d}%")
         if done >= total:
             sys.stderr.write("\n")
@@ -202,7 +202,7 @@ def _dispatch(args: argparse.Namespace) -> int:
 
         out = api.run(args.plan, args.data, out=args.out, actor=args.actor,
                       accept_deviation=args.accept_deviation, overrides=_overrides(args),
-                      look=args.look)
+                      look=args.look, progress=_progress_bar("preparing"))
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
         for hyp in out.results["hypotheses"]:
@@ -215,6 +215,9 @@ def _dispatch(args: argparse.Namespace) -> int:
             print(f"{hyp['id']}: {hyp['test']}, {shown}, {decision}{flag}")
             if hyp.get("looks"):
                 print(f"  {look_line(hyp)}")
+        for fam in out.results.get("families") or []:
+            print(f"{fam['id']}: family over {fam['over']}, {fam['members_flagged']} of "
+                  f"{fam['members_total']} members flagged ({fam['method']} at {fam['level']:g})")
         print(out.folder)
     elif args.command == "rehearse":
         out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor)

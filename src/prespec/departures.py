@@ -26,6 +26,7 @@ DEPARTURE_CODES: dict[str, str] = {
     "final-without-looks": "the final analysis run without every interim look the plan names",
     "look-off-plan": "a look with classical boundaries away from its planned information "
                      "fraction, where those boundaries do not hold",
+    "undeclared-level": "rows of a family whose level is not one of its declared levels",
 }
 
 # Departures that stop a run (exit 3) unless the user accepts them with a reason.

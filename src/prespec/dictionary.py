@@ -139,6 +139,10 @@ def uses(plan: Any) -> list[_Use]:
     for hyp in plan.hypotheses:
         for column in hyp.strata or []:
             out.append(_Use(column, f"hypotheses.{hyp.id}.strata", ("strata",), _plain_meaning))
+        for key in ("over", "within"):  # a family's level and group columns
+            if getattr(hyp, key, None):
+                out.append(_Use(getattr(hyp, key), f"hypotheses.{hyp.id}.{key}", ("strata",),
+                                _plain_meaning))
         estimand = getattr(hyp, "estimand", None)
         for j, ice in enumerate(estimand.intercurrent if estimand else [], start=1):
             where = f"hypotheses.{hyp.id}.estimand.intercurrent[{j}]"

@@ -7,6 +7,7 @@ that order.
 from __future__ import annotations
 
 import os
+from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -14,9 +15,10 @@ from typing import Any
 from . import audit
 from .analysis import analyse, group_summaries
 from .caution import CAUTION
-from .data import Prepared, file_sha256, prepare, read_data
+from .data import Prepared, file_sha256, read_data
 from .departures import Departure, Note
 from .errors import BadInput
+from .families import analyse_families, ordinary_plan, prepare_run
 
 
 def default_folder(plan_path: Path, kind: str) -> Path:
@@ -113,14 +115,18 @@ def compute_results(
     notes: list[Note],
     previous_data: str | None,
     looks: Any = None,
+    progress: Callable[[str, int, int], None] | None = None,
 ) -> dict[str, Any]:
     """Read the data, reduce it, run the statistics: the results.json document (not written).
 
     ``looks`` (a :class:`prespec.looks.LookRun`) makes it the run of an interim look or of the
-    final analysis of a plan with looks (``looks.py``)."""
+    final analysis of a plan with looks (``looks.py``). Family templates (``over``) are run per
+    level (:mod:`prespec.families`) and listed under ``families``; the ordinary hypotheses are
+    computed as before. ``progress(what, done, total)`` is called as a family's levels are
+    prepared."""
     frame = read_data(data_path)
     data_hash = file_sha256(data_path)
-    prepared = prepare(frame, plan, data_path)
+    prepared, family_data = prepare_run(frame, plan, data_path, progress)
     deviations = list(deviations)
     if previous_data is not None and previous_data != data_hash:
         deviations.append(
@@ -138,15 +144,19 @@ def compute_results(
                   if d.code == "sample-size-shortfall"]
         found = [d for d in found if d.code != "sample-size-shortfall"]
     deviations.extend(found)
-    hypotheses, stat_notes = analyse(plan, prepared)
+    for fam in family_data:
+        deviations.extend(fam.deviations)
+        notes.extend(fam.notes)
+    hypotheses, stat_notes = analyse(ordinary_plan(plan), prepared)
     notes.extend(stat_notes)
     if looks is not None:
         from .looks import apply_looks
 
         deviations.extend(apply_looks(plan, hypotheses, looks, notes))
-    return build_results(
+    families = analyse_families(plan, family_data, notes)
+    results = build_results(
         kind="run",
-        plan=plan,
+        plan=ordinary_plan(plan),
         fingerprint=fingerprint,
         version=version,
         data_hash=data_hash,
@@ -158,5 +168,6 @@ def compute_results(
         deviations=deviations,
         notes=notes,
     )
-
-
+    if family_data:
+        results["families"] = families
+    return results

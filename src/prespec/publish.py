@@ -19,6 +19,7 @@ from typing import Any
 
 from . import audit
 from .execute import check_out_folder
+from .families import family_details
 from .manifest import write_manifest
 
 
@@ -72,6 +73,10 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
                 w.writerow([r["group"], r["events"], r["total"] - r["events"], r["total"],
                             r["missing"], r["proportion"], r["ci"][0], r["ci"][1],
                             r["ci_method"], r["level"]])
+    if results.get("families"):
+        from .report.families import write_family_tables
+
+        write_family_tables(folder, results)
     for h in results["hypotheses"]:
         t = h["table"]
         expected = h["expected"] or [[None, None]] * len(t["groups"])
@@ -162,7 +167,8 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
             action=action,
             plan=results["plan"],
             data=results["data"],
-            details={"report": report_rel, "manifest": manifest, **(details or {})},
+            details={"report": report_rel, "manifest": manifest, **(details or {}),
+                     **family_details(results)},
             deviations=results["deviations"],
         )
     except BaseException:

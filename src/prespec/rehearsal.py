@@ -28,11 +28,13 @@ import pandas as pd
 
 from .analysis import _follow_ups, analyse, compute_hypothesis
 from .caution import CAUTION
-from .data import Prepared, file_sha256, prepare, read_data
+from .data import Prepared, file_sha256, read_data
+from .data.families import FamilyData
 from .departures import Departure, Note
 from .dictionary import data_dictionary, uses, write_dictionary_csv
 from .errors import BadInput
 from .execute import build_results, provenance
+from .families import analyse_families, ordinary_plan, prepare_run, rehearsal_families
 from .stats import intervals
 
 #: The name of the rehearsal's pooled table in ``tables/``.
@@ -207,13 +209,25 @@ def _dummy_looks(plan: Any, hypotheses: list[dict[str, Any]], notes: list[Note])
         apply_looks(plan, hypotheses, LookRun(count, count, (), (), ()), notes)
 
 
-def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any]
+def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any], full: Any = None,
+               family_data: list[FamilyData] | None = None
                ) -> tuple[dict[str, Executed], list[Note]]:
     """The statistics and the whole report on the dummy allocation, in a temporary folder
-    that is deleted afterwards; which hypotheses executed, and notes on failed steps."""
+    that is deleted afterwards; which hypotheses executed, and notes on failed steps.
+
+    ``plan`` holds the ordinary hypotheses; the families of ``full`` run on ``family_data``
+    (each family's id is marked as executed or not)."""
     from .publish import build_report
 
     notes: list[Note] = []
+    families: list[dict[str, Any]] = []
+    family_executed: dict[str, Executed] = {}
+    for data in family_data or []:
+        try:
+            families += analyse_families(full, [data], [])
+            family_executed[data.hypothesis] = Executed(data.hypothesis, True, None)
+        except Exception as exc:  # noqa: BLE001 - a failed step is the rehearsal's finding
+            family_executed[data.hypothesis] = Executed(data.hypothesis, False, _one_line(exc))
     try:
         hypotheses, stat_notes = analyse(plan, prepared)
         _dummy_looks(plan, hypotheses, stat_notes)
@@ -223,13 +237,16 @@ def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any]
             notes.append(Note(NOTE_STEP_FAILED, f"the multiplicity step failed: "
                               f"{_one_line(exc)}"))
         notes.append(Note(NOTE_STEP_FAILED, "the report step was not reached"))
-        return {e.id: e for e in found}, notes
+        return {**{e.id: e for e in found}, **family_executed}, notes
     executed = {h["id"]: Executed(h["id"], True, None) for h in hypotheses}
+    executed.update(family_executed)
     scratch = Path(tempfile.mkdtemp(prefix="prespec-rehearsal-"))
     try:
         results = build_results(kind="run", plan=plan, prepared=prepared,
                                 hypotheses=hypotheses, deviations=list(prepared.deviations),
                                 notes=[*prepared.notes, *stat_notes], **common)
+        if families:
+            results["families"] = families
         build_report(scratch / "dummy-run", results)
     except Exception as exc:  # noqa: BLE001 - a failed step is the rehearsal's finding
         notes.append(Note(NOTE_STEP_FAILED, f"the report step failed on the dummy allocation: "
@@ -260,7 +277,7 @@ def compute_rehearsal(
     groups = list(plan.data.groups)
     frame = frame.assign(**{plan.data.group: dummy_allocation(
         len(frame.index), groups, plan.data.planned_n, _fresh_generator())})
-    prepared = prepare(frame, plan, source)
+    prepared, family_data = prepare_run(frame, plan, source)
     del frame  # the dummy labels go no further than the dummy run
 
     level = 1.0 - plan.alpha
@@ -269,10 +286,13 @@ def compute_rehearsal(
     data_file = os.path.relpath(data_path.resolve(), plan_path.parent.resolve())
     common = {"fingerprint": fingerprint, "version": version, "data_hash": data_hash,
               "data_file": data_file, "actor": actor, "environment": environment}
-    executed, step_notes = _dummy_run(plan=plan, prepared=prepared, common=common)
+    executed, step_notes = _dummy_run(plan=ordinary_plan(plan), prepared=prepared,
+                                      common=common, full=plan, family_data=family_data)
 
     all_deviations = [*deviations,
                       *(d for d in prepared.deviations if d.code in _POOLED_DEPARTURE_CODES),
+                      *(d for f in family_data for d in f.deviations
+                        if d.code in _POOLED_DEPARTURE_CODES),
                       *shortfalls]
     all_notes = [*notes, Note(NOTE_GROUPS_NOT_READ, f"column {plan.data.group!r} (data.group) "
                               "was not read; every figure here is pooled over the groups")]
@@ -296,7 +316,9 @@ def compute_rehearsal(
         "planned_total": planned_total,
         "analysed_total": prepared.analysed,
         "pooled": {p.outcome: p.to_json() for p in pooled},
-        "hypotheses": _hypothesis_rows(plan, executed),
+        "hypotheses": _hypothesis_rows(ordinary_plan(plan), executed),
+        **({"families": rehearsal_families(plan, family_data, executed)}
+           if family_data else {}),
         "data_dictionary": dictionary,
         "deviations": [d.to_json() for d in all_deviations],
         "notes": [n.to_json() for n in all_notes],

@@ -18,6 +18,7 @@ from .api import VerifyResult, apply_overrides, mark_overrides
 from .audit.lockfile import logged_pending, pending_path, version_digest
 from .canonical import file_sha256
 from .errors import IntegrityStop, PrespecError
+from .families import declared_members, member_ids
 from .looks import look_problem, look_run
 from .manifest import check_manifest
 from .plan import fingerprint, load_plan, plan_from_resolved
@@ -135,6 +136,10 @@ def _check_lock(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
         if logged[0]["details"].get("record") != version_digest(version):
             raise _fail(result, f"{where}: differs from the version its {action} entry recorded "
                         "(the lock was edited)")
+        if logged[0]["details"].get("families", {}) != declared_members(version["plan"]).get(
+                "families", {}):
+            raise _fail(result, f"{where}: its family members differ from those its {action} "
+                        "entry recorded")
         previous = derived
     for entry in entries:
         if entry["action"] not in ("lock", "amend"):
@@ -226,6 +231,9 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if doc.get("kind") != expected_kind:
             raise _fail(result, f"report {rel}: results.json is a {doc.get('kind')!r} report, "
                         f"the log records a {entry['action']}")
+        if member_ids(doc) != entry["details"].get("families", {}):
+            raise _fail(result, f"report {rel}: its family members differ from those its log "
+                        "entry recorded")
         if doc.get("deviations") != entry["deviations"]:
             raise _fail(result, f"report {rel}: its departures differ from those its log entry "
                         "recorded")

@@ -182,8 +182,12 @@ def _check_ids(frame: pd.DataFrame, id_column: str, source: str, line_offset: in
         )
 
 
-def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
-    """Reduce ``frame`` to count tables as ``plan`` (a validated plan model) prescribes."""
+def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
+            check_ids: bool = True) -> Prepared:
+    """Reduce ``frame`` to count tables as ``plan`` (a validated plan model) prescribes.
+
+    ``check_ids=False`` when the caller has checked the ids already (a family checks them
+    within each level, at once for all levels)."""
     source = str(source)
     spec = plan.data
     line_offset = 2 if source.lower().endswith((".csv", ".txt")) else 1
@@ -204,7 +208,8 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path) -> Prepared:
             if ice.strategy == "while-on-treatment" and ice.outcome_column:
                 needed.setdefault(ice.outcome_column, f"{where}.outcome_column")
     _check_columns(frame, needed, source)
-    _check_ids(frame, spec.id, source, line_offset)
+    if check_ids:
+        _check_ids(frame, spec.id, source, line_offset)
 
     rows_read = len(frame.index)
     keep = np.ones(rows_read, dtype=bool)

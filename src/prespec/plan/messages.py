@@ -25,6 +25,7 @@ _LITERALS: dict[str, tuple[str, tuple[str, ...]]] = {
     "pairwise": ("pairwise choice", v.PAIRWISE),
     "multiplicity": ("multiplicity", v.MULTIPLICITY_NAMES),
     "method": ("multiplicity method for a mapping", ("graphical",)),
+    "flag_method": ("flag method", v.FLAG_METHODS),
 }
 
 _EXPECTED: dict[str, str] = {

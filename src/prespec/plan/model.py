@@ -18,12 +18,14 @@ from pydantic import (
     Discriminator,
     Field,
     Tag,
+    model_serializer,
     model_validator,
 )
 from pydantic_core import PydanticCustomError
 
 from prespec.plan import vocabulary as v
 from prespec.plan.looks import Looks
+from prespec.plan.families import FAMILY_DOC, family_defaults, without_family_keys
 from prespec.plan.yamlread import describe, show
 
 TestName = Literal[tuple(sorted(v.KNOWN_TESTS))]  # type: ignore[valid-type]
@@ -35,6 +37,7 @@ ComparisonName = Literal[v.KNOWN_COMPARISONS]  # type: ignore[valid-type]
 Role = Literal[v.ROLES]  # type: ignore[valid-type]
 MissingRule = Literal[v.MISSING_RULES]  # type: ignore[valid-type]
 Pairwise = Literal[v.PAIRWISE]  # type: ignore[valid-type]
+FlagMethod = Literal[v.FLAG_METHODS]  # type: ignore[valid-type]
 
 
 def problem(message: str) -> PydanticCustomError:
@@ -345,6 +348,15 @@ class Hypothesis(_Model):
     estimand: Estimand | None = None
     sensitivity: list[SensitivityName] | None = None
     looks: Looks | None = Field(default=None, description="interim analyses of this hypothesis")
+    # A family (a template expanded over the levels of a column): prespec.plan.families.
+    over: str | None = Field(default=None, description=FAMILY_DOC["over"])
+    within: str | None = Field(default=None, description=FAMILY_DOC["within"])
+    levels: list[str] | dict[str, list[str]] | None = Field(
+        default=None, description=FAMILY_DOC["levels"])
+    flag_method: FlagMethod | None = Field(default=None, description=FAMILY_DOC["flag_method"])
+    flag_level: Probability | None = Field(default=None, description=FAMILY_DOC["flag_level"])
+    group_level: Probability | None = Field(default=None, description=FAMILY_DOC["group_level"])
+    members: list[str] | None = Field(default=None, description=FAMILY_DOC["members"])
 
     @model_validator(mode="before")
     @classmethod
@@ -358,6 +370,15 @@ class Hypothesis(_Model):
         if out.get("interval") is None:
             out["interval"] = default_interval(kind, test, out["measure"])
         return out
+
+    @model_serializer(mode="wrap")
+    def _family_keys_on_families_only(self, handler: Any) -> Any:
+        # an ordinary hypothesis dumps (and so fingerprints) as it did before families
+        # and without `looks` when it has none (plans without looks fingerprint as before)
+        dumped = without_family_keys(handler(self), self.over is None)
+        if isinstance(dumped, dict) and dumped.get("looks", 0) is None:
+            del dumped["looks"]
+        return dumped
 
     @property
     def kind(self) -> Literal["pair", "single", "all", "trend"]:
@@ -383,6 +404,11 @@ class Plan(_Model):
     multiplicity: Multiplicity
     hypotheses: list[Hypothesis]
     design: Design | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _family_defaults(cls, data: Any) -> Any:
+        return family_defaults(data)
 
     @model_validator(mode="before")
     @classmethod

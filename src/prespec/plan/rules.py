@@ -14,6 +14,7 @@ from typing import Any
 
 from prespec.matching import value_key
 from prespec.plan import vocabulary as v
+from prespec.plan.families import family_issues
 from prespec.plan.locate import Issue
 from prespec.plan.looks import all_looks_issues
 from prespec.plan.model import Hypothesis, Plan, suggest
@@ -201,6 +202,7 @@ def _hypothesis_issues(plan: Plan, hyp: Hypothesis, path: KeyPath,
     yield from _option_issues(plan, hyp, path)
     yield from _estimand_issues(hyp, path)
     yield from _sensitivity_issues(plan, hyp, path)
+    yield from family_issues(plan, hyp, path)
 
 
 def _estimand_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:

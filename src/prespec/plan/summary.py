@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from prespec.plan.families import family_words
 from prespec.plan.model import Condition, Hypothesis, Plan
 from prespec.plan.yamlread import show
 
@@ -57,6 +58,8 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
         from prespec.plan.looks import looks_words
 
         parts.append(looks_words(hyp.looks))
+    if hyp.over is not None:
+        parts.append(family_words(hyp))
     title = f" - {hyp.title}" if hyp.title else ""
     return (f"  {hyp.id} [{hyp.role}] {hyp.outcome}: {_compare(plan, hyp)}{title}\n"
             f"      {'; '.join(parts)}")

@@ -156,8 +156,16 @@ AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
 LATER_KEYS: dict[str, frozenset[str]] = {
     "plan": frozenset(),
     "data": frozenset({"source", "table"}),
-    "hypothesis": frozenset({"over", "within"}),
+    "hypothesis": frozenset(),
 }
+
+# Families (a hypothesis template with `over`): how the members are flagged, and the tests a
+# family member may use (two groups; no strata, no margin).
+FLAG_METHODS: tuple[str, ...] = ("benjamini-hochberg", "double-fdr")
+FAMILY_TESTS: frozenset[str] = KNOWN_TESTS_BY_KIND["pair"] - {"cochran-mantel-haenszel",
+                                                              "farrington-manning"}
+FAMILY_KEYS: tuple[str, ...] = ("over", "within", "levels", "flag_method", "flag_level",
+                                "group_level", "members")
 
 
 def unavailable(name: str, available: frozenset[str], where: str = "", shown: str = "") -> str:

@@ -134,6 +134,10 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     from prespec.report.looks import looks_jobs
 
     jobs += looks_jobs(results)
+    if not blinded:
+        from prespec.report.families import family_jobs
+
+        jobs += family_jobs(results)
     if has_graph(results):
         jobs.append((MULTIPLICITY_GRAPH, _graph_job(mapping(results["multiplicity"],
                                                             "multiplicity"))))

@@ -398,6 +398,9 @@ def hypotheses_heading(results: Mapping[str, Any]) -> str:
         return "<h2>Hypotheses rehearsed</h2><p>results.json holds no tested hypotheses.</p>"
     if items(results.get("hypotheses"), "hypotheses"):
         return "<h2>Hypotheses</h2>"
+    if results.get("families"):
+        return ("<h2>Hypotheses</h2><p>The plan has no hypotheses besides its families "
+                "(reported in their own section).</p>")
     return "<h2>Hypotheses</h2><p>results.json holds no tested hypotheses.</p>"
 
 

@@ -102,6 +102,17 @@ if graph is not None:
     alt = "Graph of the graphical procedure: initial weights and transitions"
     display(Image(filename=graph, metadata={"alt": alt}))
 '''),
+    ("families", '''\
+from prespec.report import families as family_report
+
+family_heading = family_report.families_heading(results)
+if family_heading:
+    display(HTML(family_heading))
+for family_html, figure, alt, table_html in family_report.family_blocks(results):
+    display(HTML(family_html))
+    display(Image(filename=figure, metadata={"alt": alt}))
+    display(HTML(table_html))
+'''),
     ("environment", '''\
 display(HTML(sections.environment(results)))
 '''),
