@@ -34,6 +34,7 @@ from .departures import Note
 from .plan.families import family_column, is_family, member_id
 from .stats import multiplicity
 from .stats.doublefdr import double_fdr
+from .stats.exact import TIE_TOLERANCE
 
 Progress = Callable[[str, int, int], None]
 
@@ -180,7 +181,9 @@ def _members_array(plan: Any, hyp: Any, data: FamilyData, notes: list[Note],
         out.append(row)
     if cells:
         a, b, c, d = (np.array(col, dtype=np.int64) for col in zip(*cells, strict=True))
-        result = fisher_many(a, b, c, d, alternative=hyp.alternative)
+        # the tie rule of the single-table test, so a member equals the ordinary machinery
+        result = fisher_many(a, b, c, d, alternative=hyp.alternative,
+                             tie_tolerance=TIE_TOLERANCE)
         for slot, p in zip(slots, np.asarray(result.p_value, dtype=float), strict=True):
             out[slot]["p_value"] = _finite(float(p), f"{out[slot]['id']}: the p-value", notes)
     return out

@@ -24,8 +24,8 @@ from pydantic import (
 from pydantic_core import PydanticCustomError
 
 from prespec.plan import vocabulary as v
-from prespec.plan.looks import Looks
 from prespec.plan.families import FAMILY_DOC, family_defaults, without_family_keys
+from prespec.plan.looks import Looks
 from prespec.plan.yamlread import describe, show
 
 TestName = Literal[tuple(sorted(v.KNOWN_TESTS))]  # type: ignore[valid-type]
