@@ -21,6 +21,10 @@ from ..errors import DataError
 from ..matching import ValueSet, as_number, as_text, is_blank
 
 _SHOW = 5  # how many offending values an error message lists
+# A frame with this column is weighted: each row stands for that many source rows (an engine's
+# aggregate); with KEEP_COLUMN it also says whether those rows pass the population filter.
+WEIGHT_COLUMN = "__prespec_rows__"
+KEEP_COLUMN = "__prespec_keep__"
 
 
 @dataclass(frozen=True)
