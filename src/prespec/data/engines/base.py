@@ -146,6 +146,11 @@ class Engine(abc.ABC):
         """The frame ``prepare`` counts, after checking that the needed columns exist and
         (for the aggregating engines) that ids are present and unique."""
 
+    @abc.abstractmethod
+    def rows(self, request: CountRequest) -> pd.DataFrame:
+        """The raw cells of the columns ``request.read``, every row, nothing else (a
+        rehearsal's data dictionary counts them; the group column is never among them)."""
+
     def close(self) -> None:
         """Release connections or sessions."""
 
