@@ -82,7 +82,33 @@ class PostgresServer:
         import sqlalchemy as sa
 
         url = sa.engine.make_url(self.url()).set(password=self.password)
-        return sa.create_engine(url)
+        return sa.create_engine(url, poolclass=sa.pool.NullPool)
+
+    def load(self, table: str, rows: list[dict[str, Any]] | Any,
+             types: dict[str, str] | None = None) -> None:
+        """(Re)create ``table`` (``schema.table`` allowed) holding ``rows``: a list of
+        mappings or a DataFrame; columns are ``text`` unless ``types`` names an SQL type.
+        Cells go in as bound values (None is NULL), in the order given."""
+        import sqlalchemy as sa
+
+        records = rows.to_dict(orient="records") if hasattr(rows, "to_dict") else list(rows)
+        columns = list(records[0]) if records else list(types or {})
+        types = types or {}
+
+        def q(name: str) -> str:
+            return '"' + name.replace('"', '""') + '"'
+
+        qualified = ".".join(q(part) for part in table.split("."))
+        spec = ", ".join(f"{q(c)} {types.get(c, 'text')}" for c in columns)
+        marks = ", ".join(f":c{i}" for i in range(len(columns)))
+        with self.engine().begin() as conn:
+            if "." in table:
+                conn.execute(sa.text(f"CREATE SCHEMA IF NOT EXISTS {q(table.split('.')[0])}"))
+            conn.execute(sa.text(f"DROP TABLE IF EXISTS {qualified}"))
+            conn.execute(sa.text(f"CREATE TABLE {qualified} ({spec})"))
+            if records:
+                conn.execute(sa.text(f"INSERT INTO {qualified} VALUES ({marks})"),
+                             [{f"c{i}": r[c] for i, c in enumerate(columns)} for r in records])
 
 
 class _Runner:
