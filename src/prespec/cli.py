@@ -48,7 +48,8 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("name", help="writes NAME.key (private, mode 0600) and NAME.pub")
     c = add("run", "run the locked plan on the data and write a report folder", writes=True)
     c.add_argument("plan")
-    c.add_argument("data")
+    c.add_argument("data", nargs="?", help="a data file or glob (default: the plan's data.source)")
+    _engine_option(c)
     c.add_argument("--out", help="the report folder to create (must not exist or be empty)")
     c.add_argument("--accept-deviation", metavar="REASON",
                    help="run despite a missing or changed lock or an override, recording REASON")
@@ -61,8 +62,9 @@ def _parser() -> argparse.ArgumentParser:
     c = add("rehearse", "a blinded dry run: never reads the group column, checks the data "
             "and every step, and writes pooled figures and a data dictionary only", writes=True)
     c.add_argument("plan")
-    c.add_argument("data")
+    c.add_argument("data", nargs="?", help="a data file or glob (default: the plan's data.source)")
     c.add_argument("--out", help="the report folder to create (must not exist or be empty)")
+    _engine_option(c)
     c = add("verify", "check the lock, the audit log and every report, from the files alone")
     c.add_argument("plan")
     c.add_argument("--expect", metavar="FINGERPRINT",
@@ -83,6 +85,14 @@ def _parser() -> argparse.ArgumentParser:
     c = add("demo", "write, lock and run an invented demonstration study", writes=True)
     c.add_argument("dir", nargs="?", default="prespec-demo")
     return p
+
+
+def _engine_option(cmd: argparse.ArgumentParser) -> None:
+    from .data.engines.base import ENGINE_NAMES
+
+    cmd.add_argument("--engine", choices=ENGINE_NAMES, default="auto",
+                     help="what reduces the data to count tables (default auto: pandas for a "
+                     "small file, duckdb for a large file or a glob, sql for a database)")
 
 
 def _number(text: str) -> float:
@@ -147,7 +157,7 @@ def _print_rehearsal(res: dict[str, Any]) -> None:
     print(f"data dictionary: {len(columns)} column use(s) in tables/data-dictionary.csv")
 
 
-def _progress_bar() -> Any:
+def _progress_bar(what: str = "simulating") -> Any:
     """A progress bar on stderr for a terminal; None (quiet) when stderr is not one."""
     if not sys.stderr.isatty():
         return None
@@ -155,13 +165,21 @@ def _progress_bar() -> Any:
     def show(name: str, done: int, total: int) -> None:
         width = 30
         filled = width * done // total
-        sys.stderr.write(f"\rsimulating {name[:24]:<24} [{'#' * filled}{'.' * (width - filled)}]"
+        sys.stderr.write(f"\r{what} {name[:24]:<24} [{'#' * filled}{'.' * (width - filled)}]"
                          f" {100 * done // total:3d}%")
         if done >= total:
             sys.stderr.write("\n")
         sys.stderr.flush()
 
     return show
+
+
+def _reduction_bar() -> Any:
+    """The progress of a long reduction (percent done), on a terminal only."""
+    bar = _progress_bar("counting")
+    if bar is None:
+        return None
+    return lambda percent: bar("the data", int(percent), 100)
 
 
 def _dispatch(args: argparse.Namespace) -> int:
@@ -196,7 +214,8 @@ def _dispatch(args: argparse.Namespace) -> int:
         print(f"fingerprint: {res.fingerprint}")
     elif args.command == "run":
         out = api.run(args.plan, args.data, out=args.out, actor=args.actor,
-                      accept_deviation=args.accept_deviation, overrides=_overrides(args))
+                      accept_deviation=args.accept_deviation, overrides=_overrides(args),
+                      engine=args.engine, progress=_reduction_bar())
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
         for hyp in out.results["hypotheses"]:
@@ -209,7 +228,8 @@ def _dispatch(args: argparse.Namespace) -> int:
             print(f"{hyp['id']}: {hyp['test']}, {shown}, {decision}{flag}")
         print(out.folder)
     elif args.command == "rehearse":
-        out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor)
+        out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor,
+                           engine=args.engine)
         _print_rehearsal(out.results)
         print(out.folder)
     elif args.command == "verify":

@@ -6,7 +6,7 @@ that order.
 
 from __future__ import annotations
 
-import os
+from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -14,7 +14,8 @@ from typing import Any
 from . import audit
 from .analysis import analyse, group_summaries
 from .caution import CAUTION
-from .data import Prepared, file_sha256, prepare, read_data
+from .data import Prepared
+from .data.engines.base import DataSource
 from .departures import Departure, Note
 from .errors import BadInput
 
@@ -106,17 +107,28 @@ def compute_results(
     plan: Any,
     fingerprint: str,
     version: int | None,
-    data_path: Path,
+    data_path: Path | None,
     actor: str,
     environment: dict[str, str],
     deviations: list[Departure],
     notes: list[Note],
     previous_data: str | None,
+    source: DataSource | None = None,
+    engine: str = "auto",
+    progress: Callable[[float], None] | None = None,
 ) -> dict[str, Any]:
-    """Read the data, reduce it, run the statistics: the results.json document (not written)."""
-    frame = read_data(data_path)
-    data_hash = file_sha256(data_path)
-    prepared = prepare(frame, plan, data_path)
+    """Read the data, reduce it, run the statistics: the results.json document (not written).
+
+    ``source`` (default: the file ``data_path``) is reduced by ``engine`` (``auto``: by the
+    source's kind and size); the engine and its query are recorded in the document.
+    """
+    from .data.engines.pipeline import count_source
+    from .data.engines.sources import data_file_field
+
+    if source is None:
+        source = DataSource("file", str(data_path), str(data_path))
+    counted = count_source(plan, source, engine=engine, progress=progress)
+    data_hash, prepared = counted.data_hash, counted.prepared
     deviations = list(deviations)
     if previous_data is not None and previous_data != data_hash:
         deviations.append(
@@ -131,13 +143,13 @@ def compute_results(
     notes = [*notes, *prepared.notes]
     hypotheses, stat_notes = analyse(plan, prepared)
     notes.extend(stat_notes)
-    return build_results(
+    results = build_results(
         kind="run",
         plan=plan,
         fingerprint=fingerprint,
         version=version,
         data_hash=data_hash,
-        data_file=os.path.relpath(data_path.resolve(), plan_path.parent.resolve()),
+        data_file=data_file_field(plan_path, source),
         actor=actor,
         environment=environment,
         prepared=prepared,
@@ -145,5 +157,17 @@ def compute_results(
         deviations=deviations,
         notes=notes,
     )
+    return with_engine(results, counted.engine, counted.query)
+
+
+def with_engine(results: dict[str, Any], engine: str, query: str | None) -> dict[str, Any]:
+    """``engine`` beside the provenance fields, and the ``query`` it sent (None for pandas)."""
+    out: dict[str, Any] = {}
+    for key, value in results.items():
+        out[key] = value
+        if key == "data_file":
+            out["engine"] = engine
+            out["query"] = query
+    return out
 
 

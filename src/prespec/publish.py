@@ -162,7 +162,9 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
             action=action,
             plan=results["plan"],
             data=results["data"],
-            details={"report": report_rel, "manifest": manifest},
+            details={"report": report_rel, "manifest": manifest,
+                     **({"engine": results["engine"], "query": results.get("query")}
+                        if "engine" in results else {})},
             deviations=results["deviations"],
         )
     except BaseException:

@@ -318,8 +318,9 @@ def compile_locate(request: CountRequest, relation: str, dialect: str,
                 terms.append(f"({expr}) = {sql.bind(_plain(value))}")
         alternatives.append("(" + " AND ".join(terms) + ")")
     where = " OR ".join(alternatives) or "FALSE"
-    text = (f"SELECT {sql.text(request.id)} AS id FROM {relation} WHERE {where} "
-            f"ORDER BY 1{sql.collate} LIMIT {int(show)}")
+    # a subquery: PostgreSQL's ORDER BY takes a collated expression of input columns only
+    text = (f"SELECT id FROM (SELECT {sql.text(request.id)} AS id FROM {relation} "
+            f"WHERE {where}) AS prespec_found ORDER BY id{sql.collate} LIMIT {int(show)}")
     return Query(text, sql.params, dialect)
 
 
@@ -335,7 +336,8 @@ def compile_row_lines(request: CountRequest, relation: str, dialect: str,
     sep = sql.bind(FIELD_SEPARATOR)
     fields = [sql.field(c) for c in request.read]
     line = f" || {sep} || ".join(fields)
-    text = (f"SELECT {line} AS line, {sql.field(request.id)} AS prespec_id FROM {relation} "
+    text = (f"SELECT line, prespec_id FROM (SELECT {line} AS line, {sql.field(request.id)} "
+            f"AS prespec_id FROM {relation}) AS prespec_lines "
             f"ORDER BY prespec_id{sql.collate}, line{sql.collate}")
     return Query(text, sql.params, dialect)
 
