@@ -1,6 +1,7 @@
 """Servers the engine tests need: a throw-away PostgreSQL cluster and one local Spark session.
 
-Fixtures, imported by the test modules that use them (``from services import postgres``):
+Fixtures, imported by the test modules that use them (``from services import
+postgres_server``; the fixtures' names are ``postgres`` and ``spark``):
 
 - ``postgres`` (session scope): initdb into a temporary folder, a server on a free loopback
   port with its socket in that folder, a password-authenticated role, stopped and removed at
@@ -143,8 +144,8 @@ def _fail_with(step: str, done: subprocess.CompletedProcess[str], log: Path | No
     pytest.fail(f"PostgreSQL {step} failed: {' | '.join(tail)}", pytrace=False)
 
 
-@pytest.fixture(scope="session")
-def postgres() -> Iterator[PostgresServer]:
+@pytest.fixture(scope="session", name="postgres")
+def postgres_server() -> Iterator[PostgresServer]:
     """A fresh PostgreSQL cluster for the test session (see the module docstring)."""
     try:
         import psycopg  # noqa: F401
@@ -208,8 +209,8 @@ def _wait_ready(server: PostgresServer) -> None:
     pytest.fail("PostgreSQL started but refuses connections", pytrace=False)
 
 
-@pytest.fixture(scope="session")
-def spark() -> Any:
+@pytest.fixture(scope="session", name="spark")
+def spark_fixture() -> Any:
     """The Spark engine's session (one per process, ``local[2]``), or a skip with the reason."""
     try:
         import pyspark  # noqa: F401
@@ -220,3 +221,13 @@ def spark() -> Any:
     from prespec.data.engines.spark import spark_session
 
     return spark_session()
+
+
+def spark_view(session: Any, name: str, frame: Any) -> None:
+    """A temporary view of the session holding ``frame``'s cells as text (None is NULL)."""
+    from pyspark.sql.types import StringType, StructField, StructType
+
+    schema = StructType([StructField(str(c), StringType(), True) for c in frame.columns])
+    rows = [[None if v is None else str(v) for v in row]
+            for row in frame.astype(object).itertuples(index=False)]
+    session.createDataFrame(rows, schema=schema).createOrReplaceTempView(name)

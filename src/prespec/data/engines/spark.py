@@ -36,7 +36,7 @@ STREAM_BATCH = 20_000  # fingerprint lines per batch
 _CONFIG = {
     "spark.ui.enabled": "false",
     "spark.ui.showConsoleProgress": "false",
-    "spark.sql.shuffle.partitions": "4",
+    "spark.sql.shuffle.partitions": "2",
     "spark.sql.caseSensitive": "true",  # column names exactly as written, as elsewhere
     "spark.sql.session.timeZone": "UTC",
     "spark.driver.host": "127.0.0.1",
@@ -120,6 +120,12 @@ def _spark_errors() -> tuple[type[BaseException], ...]:
     return (PySparkException, Py4JError)
 
 
+def _storage_level() -> Any:
+    from pyspark import StorageLevel
+
+    return StorageLevel.MEMORY_AND_DISK
+
+
 def _kind(data_type: Any) -> str:
     return _KINDS.get(type(data_type).__name__, "other")
 
@@ -134,15 +140,19 @@ class SparkEngine(AggregatingEngine):
         super().__init__(source)
         self.spark = spark_session()
         self._view: str | None = None
+        self._persisted: Any = None
         self._kinds: dict[str, str] | None = None
 
     def close(self) -> None:
         if self._view is not None:
             try:
                 self.spark.catalog.dropTempView(self._view)
+                if self._persisted is not None:
+                    self._persisted.unpersist()
             except _spark_errors():
                 pass
             self._view = None
+            self._persisted = None
 
     # -- the source ---------------------------------------------------------------------------
     def _files(self) -> list[str]:
@@ -190,7 +200,11 @@ class SparkEngine(AggregatingEngine):
             try:
                 frame = self._frame()
                 view = f"prespec_source_{os.getpid()}_{next(_views)}"
+                # the reduction reads the source four or five times (ids, counts, lines):
+                # parsed once, kept in memory or spilled to Spark's local folder
+                frame = frame.persist(_storage_level())
                 frame.createOrReplaceTempView(view)
+                self._persisted = frame
             except _spark_errors() as exc:
                 raise DataError(f"{self.source.shown}: cannot read the data "
                                 f"({spark_message(exc)})") from None
