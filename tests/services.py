@@ -92,7 +92,11 @@ class PostgresServer:
         Cells go in as bound values (None is NULL), in the order given."""
         import sqlalchemy as sa
 
-        records = rows.to_dict(orient="records") if hasattr(rows, "to_dict") else list(rows)
+        if hasattr(rows, "to_dict"):  # a frame: NaN as NULL, cells as Python values
+            rows = rows.astype(object).where(rows.notna(), None)
+            records = rows.to_dict(orient="records")
+        else:
+            records = list(rows)
         columns = list(records[0]) if records else list(types or {})
         types = types or {}
 
