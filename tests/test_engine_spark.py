@@ -168,3 +168,19 @@ def test_without_java_the_command_says_so(demo: dict[str, Any], tmp_path: Path) 
     lines = done.stderr.strip().splitlines()
     assert len(lines) == 1 and "needs Java" in lines[0]
     assert not (tmp_path / "dry").exists()
+
+
+def test_a_rehearsal_through_spark_never_names_the_group(spark: Any, demo: dict[str, Any],
+                                                         tmp_path: Path) -> None:
+    """The blinded rehearsal's one query reads the id and the columns the plan reads, not
+    the group column; the recorded query names the same view on every run."""
+    from prespec import api
+    from prespec.audit import log_path, read_log
+
+    plan = tmp_path / "plan.yaml"
+    plan.write_text(PLAN_TEXT, encoding="utf-8")
+    api.rehearse(plan, demo["csv"], engine="spark", out=tmp_path / "dry", actor="tester")
+    entry = read_log(log_path(plan))[-1]
+    assert entry["details"]["engine"] == "spark"
+    assert entry["details"]["query"] == (
+        "SELECT `participant`, `consented`, `infected_30d` FROM `prespec_source`")

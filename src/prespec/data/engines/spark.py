@@ -62,7 +62,7 @@ _KINDS = {"StringType": "text", "VarcharType": "text", "CharType": "text",
 _lock = threading.Lock()
 _session: Any = None
 _folder: tempfile.TemporaryDirectory[str] | None = None
-_views = itertools.count(1)
+_views_in_use: set[str] = set()
 
 
 def spark_session() -> Any:
@@ -120,6 +120,18 @@ def _spark_errors() -> tuple[type[BaseException], ...]:
     return (PySparkException, Py4JError)
 
 
+def _take_view_name() -> str:
+    """``prespec_source`` (so the query recorded in the log reads the same on every run), or
+    ``prespec_source_2`` … while another engine of this process holds that name."""
+    with _lock:
+        for n in itertools.count(1):
+            name = "prespec_source" if n == 1 else f"prespec_source_{n}"
+            if name not in _views_in_use:
+                _views_in_use.add(name)
+                return name
+    raise AssertionError("unreachable")
+
+
 def _storage_level() -> Any:
     from pyspark import StorageLevel
 
@@ -144,15 +156,18 @@ class SparkEngine(AggregatingEngine):
         self._kinds: dict[str, str] | None = None
 
     def close(self) -> None:
-        if self._view is not None:
-            try:
+        try:
+            if self._view is not None:
                 self.spark.catalog.dropTempView(self._view)
-                if self._persisted is not None:
-                    self._persisted.unpersist()
-            except _spark_errors():
-                pass
-            self._view = None
-            self._persisted = None
+            if self._persisted is not None:
+                self._persisted.unpersist()
+        except _spark_errors():
+            pass
+        if self._view is not None:
+            with _lock:
+                _views_in_use.discard(self._view)
+        self._view = None
+        self._persisted = None
 
     # -- the source ---------------------------------------------------------------------------
     def _files(self) -> list[str]:
@@ -199,17 +214,17 @@ class SparkEngine(AggregatingEngine):
         if self._view is None:
             try:
                 frame = self._frame()
-                view = f"prespec_source_{os.getpid()}_{next(_views)}"
+                kinds = {f.name: _kind(f.dataType) for f in frame.schema.fields}
                 # the reduction reads the source four or five times (ids, counts, lines):
                 # parsed once, kept in memory or spilled to Spark's local folder
                 frame = frame.persist(_storage_level())
-                frame.createOrReplaceTempView(view)
                 self._persisted = frame
+                self._view = _take_view_name()  # released by close()
+                frame.createOrReplaceTempView(self._view)
             except _spark_errors() as exc:
                 raise DataError(f"{self.source.shown}: cannot read the data "
                                 f"({spark_message(exc)})") from None
-            self._view = view
-            self._kinds = {f.name: _kind(f.dataType) for f in frame.schema.fields}
+            self._kinds = kinds
         return quote_identifier(self._view, self.dialect)
 
     def column_kinds(self) -> dict[str, str]:
