@@ -264,6 +264,27 @@ def test_the_injection_shaped_value_matches_as_data_and_the_table_survives(
     assert kept == "P08"
 
 
+def test_the_sql_engine_cannot_write(study: dict[str, Any], postgres: PostgresServer) -> None:
+    """Its session is read-only: even a statement that would drop the table is refused."""
+    from prespec.data.engines.compiler import Query
+    from prespec.data.engines.sql import SqlEngine
+    from prespec.errors import DataError
+
+    postgres.load("t", study["hostile"]["frame"])
+    source = DataSource("url", postgres.url(), "t", table="t", password_from=PASSWORD_VARIABLE)
+    with SqlEngine(source) as eng, pytest.raises(DataError) as err:
+        eng.fetch(Query('DROP TABLE "t"', {}, "postgresql"))
+    assert "read-only transaction" in str(err.value)
+    with postgres.engine().connect() as conn:
+        assert conn.execute(sa_text('SELECT COUNT(*) FROM "t"')).scalar() == 28
+
+
+def sa_text(sql: str) -> Any:
+    import sqlalchemy as sa
+
+    return sa.text(sql)
+
+
 def _shuffled(frame: pd.DataFrame) -> pd.DataFrame:
     return frame.sample(frac=1.0, random_state=7).reset_index(drop=True)
 

@@ -9,7 +9,7 @@ cursor into the hash and never kept.
 
 The URL holds no password: the plan names the environment variable that holds it
 (``data.password_from``). Values are bound through ``sqlalchemy.text`` parameters and names
-are quoted as identifiers by the compiler. Tested for real on PostgreSQL through psycopg 3;
+are quoted as identifiers by the compiler; the session is read-only. Tested for real on PostgreSQL through psycopg 3;
 other servers that SQLAlchemy reaches with its ``postgresql`` dialect (another driver, or a
 server that speaks PostgreSQL's SQL) go the same way. Other dialects are refused with a
 message, since the compiled SQL uses PostgreSQL's functions (``btrim``, ``~``).
@@ -33,6 +33,7 @@ SUPPORTED_DIALECTS = {"postgresql": "postgresql"}
 # a plain ``postgresql://`` URL is read with psycopg 3 (SQLAlchemy's own default is psycopg2)
 DEFAULT_DRIVERS = {"postgresql": "postgresql+psycopg"}
 STREAM_BATCH = 20_000  # fingerprint lines per round trip
+READ_ONLY = "SET SESSION CHARACTERISTICS AS TRANSACTION READ ONLY"
 
 
 def _first_line(exc: BaseException) -> str:
@@ -120,6 +121,10 @@ class SqlEngine(AggregatingEngine):
         try:
             self._engine = sa.create_engine(url, poolclass=sa.pool.NullPool)
             self._connection = self._engine.connect()
+            # the engine only reads: every transaction of this session is read-only, so no
+            # statement sent here can change the database, whatever it holds
+            self._connection.execute(sa.text(READ_ONLY))
+            self._connection.commit()
         except ImportError as exc:
             raise BadInput(f"{source.shown}: the database driver is not installed "
                            f"({exc.name}): pip install 'prespec[sql]'") from None
