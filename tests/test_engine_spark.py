@@ -184,3 +184,19 @@ def test_a_rehearsal_through_spark_never_names_the_group(spark: Any, demo: dict[
     assert entry["details"]["engine"] == "spark"
     assert entry["details"]["query"] == (
         "SELECT `participant`, `consented`, `infected_30d` FROM `prespec_source`")
+
+
+def test_a_malformed_csv_through_the_command_is_one_quiet_line(demo: dict[str, Any],
+                                                               tmp_path: Path) -> None:
+    """A row with a field too many: exit status 2 and one line on stderr; Spark's own log
+    (a failed task's Java stack) stays quiet."""
+    csv = tmp_path / "extra.csv"
+    csv.write_text(demo_data() + "WD-9999,north,gauze,yes,0,surplus\n", encoding="utf-8")
+    done = subprocess.run([sys.executable, "-m", "prespec", "rehearse", str(demo["plan_path"]),
+                           str(csv), "--engine", "spark", "--out", str(tmp_path / "dry")],
+                          check=False, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 2, done.stderr
+    lines = done.stderr.strip().splitlines()
+    assert len(lines) == 1, done.stderr
+    assert "cannot read the data" in lines[0] and "Malformed records" in lines[0]
+    assert not (tmp_path / "dry").exists()

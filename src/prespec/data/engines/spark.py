@@ -42,9 +42,10 @@ _CONFIG = {
     "spark.driver.host": "127.0.0.1",
     "spark.driver.bindAddress": "127.0.0.1",
 }
-# Spark's own logging: errors only, and no "default log level" banner at start-up
+# Spark's own logging: fatal errors only (a failed task's Java stack would otherwise follow
+# the one-line message that says what is wrong), and no "default log level" banner
 _LOG_CONFIG = """\
-rootLogger.level = error
+rootLogger.level = fatal
 rootLogger.appenderRef.stderr.ref = console
 appender.console.type = Console
 appender.console.name = console
@@ -52,7 +53,7 @@ appender.console.target = SYSTEM_ERR
 appender.console.layout.type = PatternLayout
 appender.console.layout.pattern = %d{HH:mm:ss} %p %c{1}: %m%n
 logger.gateway.name = org.apache.spark.api.python.PythonGatewayServer
-logger.gateway.level = error
+logger.gateway.level = fatal
 """
 _KINDS = {"StringType": "text", "VarcharType": "text", "CharType": "text",
           "ByteType": "integer", "ShortType": "integer", "IntegerType": "integer",
@@ -99,7 +100,7 @@ def spark_session() -> Any:
         except Exception as exc:  # noqa: BLE001 - the JVM did not start: say why, one line
             raise BadInput(f"the spark engine cannot start Spark ({spark_message(exc)})"
                            ) from None
-        _session.sparkContext.setLogLevel("ERROR")
+        _session.sparkContext.setLogLevel("FATAL")
         return _session
 
 
@@ -109,7 +110,7 @@ def spark_message(exc: BaseException) -> str:
     lines = [line.strip() for line in text.splitlines() if line.strip()]
     for line in lines:
         if "Exception:" in line and not line.startswith("at "):
-            return line.split("Exception:", 1)[1].strip() or line
+            return line.rsplit("Exception:", 1)[1].strip() or line
     return lines[0] if lines else type(exc).__name__
 
 

@@ -41,8 +41,6 @@ def _first_line(exc: BaseException) -> str:
     return text.splitlines()[0].strip() if text else type(exc).__name__
 
 
-# -- the sql engine ---------------------------------------------------------------------------
-
 def database_url(source: DataSource) -> Any:
     """The SQLAlchemy URL of ``source`` with the password from its environment variable.
 
