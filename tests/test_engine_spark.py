@@ -200,3 +200,27 @@ def test_a_malformed_csv_through_the_command_is_one_quiet_line(demo: dict[str, A
     assert len(lines) == 1, done.stderr
     assert "cannot read the data" in lines[0] and "Malformed records" in lines[0]
     assert not (tmp_path / "dry").exists()
+
+
+def test_a_table_of_the_session_named_by_the_plan(spark: Any, demo: dict[str, Any],
+                                                  tmp_path: Path) -> None:
+    """data.source "spark://" with data.table: a table (here a view) of the Spark session."""
+    from services import spark_view
+
+    from prespec.data.engines.sources import resolve_source
+    from prespec.errors import BadInput
+
+    spark_view(spark, "wound_view", demo["frame"])
+    plan_path = tmp_path / "plan.yaml"
+    plan_path.write_text(PLAN_TEXT.replace(
+        "  id: participant\n", "  id: participant\n  source: \"spark://\"\n  table: wound_view\n"),
+        encoding="utf-8")
+    plan = load_plan(plan_path).model
+    source, _ = resolve_source(plan_path, plan, None)
+    counted = count_source(plan, source, engine="spark")
+    assert counted.prepared == prepare(demo["frame"], plan, "rows")
+    assert counted.data_hash == frame_row_hash(demo["frame"], count_request(plan, "rows"))
+    database = DataSource("url", "postgresql://someone@localhost/trial", "db", table="t")
+    with pytest.raises(BadInput) as err:
+        count_source(plan, database, engine="spark")
+    assert "use --engine sql" in str(err.value) and "\n" not in str(err.value)

@@ -318,7 +318,7 @@ def test_fingerprints_of_database_and_spark_sources(study: dict[str, Any], spark
             password_from=PASSWORD_VARIABLE)))
         spark_view(spark, "fingerprint_rows", rows)
         hashes[("spark", label)] = row_hash(SparkEngine(DataSource(
-            "url", "spark", "fingerprint_rows", table="fingerprint_rows")))
+            "url", "spark://", "fingerprint_rows", table="fingerprint_rows")))
     for engine in ("sql", "spark"):
         assert hashes[(engine, "same")] == expected, engine
         assert hashes[(engine, "reordered")] == expected, engine

@@ -4,7 +4,8 @@ PySpark in local mode (``local[2]``): one session per process, started on first 
 quiet logs and bound to the loopback address. CSV is read with every column as text (header,
 UTF-8, RFC 4180 quotes, fields may span lines); Parquet keeps its types; a glob reads every
 matching file, columns matched by name (a column missing from a file is NULL there, as DuckDB's
-``union_by_name`` does). A table is one of the session's catalog (``data.table``).
+``union_by_name`` does). A table is one of the session's catalog: ``data.source: "spark://"``
+with ``data.table`` (``--engine spark``), or a ``DataSource`` of kind ``url`` in Python.
 
 The reduction is the compiler's SQL in the ``spark`` dialect (``aggregate.py``), run by
 ``spark.sql(text, args=...)`` with named parameters (PySpark 3.4 or later): no value of the
@@ -32,6 +33,7 @@ from .base import CountRequest, DataSource
 from .compiler import Query, quote_identifier, quote_table
 
 MASTER = "local[2]"
+TABLE_SCHEME = "spark:"  # data.source "spark://" with data.table: a table of the session
 STREAM_BATCH = 20_000  # fingerprint lines per batch
 _CONFIG = {
     "spark.ui.enabled": "false",
@@ -151,6 +153,13 @@ class SparkEngine(AggregatingEngine):
 
     def __init__(self, source: DataSource) -> None:
         super().__init__(source)
+        if source.kind == "url":
+            if not source.location.lower().startswith(TABLE_SCHEME):
+                raise BadInput(f"{source.shown}: the spark engine reads files, or a table of "
+                               f"the Spark session (data.source: \"{TABLE_SCHEME}//\"), not a "
+                               "database URL: use --engine sql")
+            if not source.table:
+                raise BadInput(f"{source.shown}: a Spark table source needs data.table")
         self.spark = spark_session()
         self._view: str | None = None
         self._persisted: Any = None
