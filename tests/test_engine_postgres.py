@@ -131,6 +131,9 @@ def test_another_dialect_is_refused(postgres: PostgresServer, tmp_path: Path) ->
     with pytest.raises(BadInput) as err:
         database_url(DataSource("url", f"sqlite:///{tmp_path / 'x.db'}", "x.db", table="t"))
     assert "'sqlite' dialect" in str(err.value) and "postgresql" in str(err.value)
+    with pytest.raises(BadInput) as err:
+        database_url(DataSource("url", "spark://", "spark://", table="t"))
+    assert "--engine spark" in str(err.value)
 
 
 # -- tables, columns, types, ids --------------------------------------------------------------

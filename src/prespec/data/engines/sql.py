@@ -59,6 +59,8 @@ def database_url(source: DataSource) -> Any:
         raise BadInput(f"{shown}: the database URL holds a password; remove it and name the "
                        "environment variable that holds it in data.password_from")
     backend = url.get_backend_name()
+    if backend == "spark":
+        raise BadInput(f"{shown}: a table of the Spark session is read by --engine spark")
     if backend not in SUPPORTED_DIALECTS:
         raise BadInput(f"{shown}: the sql engine does not speak the {backend!r} dialect "
                        f"(supported: {', '.join(SUPPORTED_DIALECTS)})")
