@@ -209,7 +209,7 @@ def test_typed_columns_count_as_their_text(postgres: PostgresServer, password: s
 
 
 def test_column_kinds_of_sqlalchemy_types() -> None:
-    import sqlalchemy as sa
+    sa = pytest.importorskip("sqlalchemy")
 
     assert [column_kind(t) for t in (sa.Text(), sa.String(20), sa.Integer(), sa.BigInteger(),
                                      sa.Float(), sa.Double(), sa.Numeric(6, 2), sa.Boolean(),

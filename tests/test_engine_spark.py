@@ -158,6 +158,7 @@ def test_spark_message_keeps_the_cause_not_the_stack() -> None:
 
 def test_without_java_the_command_says_so(demo: dict[str, Any], tmp_path: Path) -> None:
     """A fresh process with no java on PATH and no JAVA_HOME: one line, exit status 2."""
+    pytest.importorskip("pyspark")
     env = {k: v for k, v in os.environ.items() if k != "JAVA_HOME"}
     env["PATH"] = str(tmp_path)  # nothing there
     done = subprocess.run([sys.executable, "-m", "prespec", "rehearse", str(demo["plan_path"]),
