@@ -19,11 +19,14 @@ from ...canonical import file_sha256
 from ...errors import DataError
 from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, Engine, Reduction
 from .compiler import (
+    BLANK_COLUMN,
+    SET_COLUMN,
     Query,
     compile_blank_ids,
     compile_counts,
     compile_duplicate_ids,
     compile_locate,
+    compile_reduction,
     compile_row_lines,
     quote_identifier,
 )
@@ -76,12 +79,22 @@ class AggregatingEngine(Engine):
         return kinds
 
     def check_ids(self, request: CountRequest, relation: str, kinds: dict[str, str]) -> None:
-        """Blank or duplicate ids are bad input, named by count and by id (as prepare does)."""
+        """Blank or duplicate ids are bad input, named by count and by id (as prepare does).
+
+        (``reduce`` finds both in its one pass and calls ``duplicate_ids`` only when two rows
+        share an id hash; this method is the plain two-query form of the same check.)"""
         blank = self.fetch(compile_blank_ids(request, relation, self.dialect, kinds))
-        n_blank = int(blank.iloc[0, 0]) if len(blank.index) else 0
+        self.blank_ids(request, int(blank.iloc[0, 0]) if len(blank.index) else 0)
+        self.duplicate_ids(request, relation, kinds)
+
+    @staticmethod
+    def blank_ids(request: CountRequest, n_blank: int) -> None:
         if n_blank:
             raise DataError(f"{request.source}: blank id in column {request.id!r} "
                             f"({_rows(n_blank)})")
+
+    def duplicate_ids(self, request: CountRequest, relation: str,
+                      kinds: dict[str, str]) -> None:
         dups = self.fetch(compile_duplicate_ids(request, relation, self.dialect, kinds, _SHOW))
         if len(dups.index):
             shown = []
@@ -96,13 +109,30 @@ class AggregatingEngine(Engine):
 
     def counts(self, request: CountRequest, relation: str, kinds: dict[str, str]
                ) -> tuple[pd.DataFrame, Query]:
+        """The weighted frame by the plain aggregate (``compile_counts``; no id checks)."""
         query = compile_counts(request, relation, self.dialect, kinds)
-        frame = self.fetch(query)
+        return self._weighted(self.fetch(query), request), query
+
+    def reduction(self, request: CountRequest, relation: str, kinds: dict[str, str]
+                  ) -> tuple[pd.DataFrame, Query]:
+        """The weighted frame and the id checks in one pass (``compile_reduction``)."""
+        query = compile_reduction(request, relation, self.dialect, kinds)
+        result = self.fetch(query)
+        is_counts = result[SET_COLUMN].astype(int) == 1
+        counts = result.loc[is_counts]
+        self.blank_ids(request, int(pd.to_numeric(counts[BLANK_COLUMN]).fillna(0).sum()))
+        if not is_counts.all():  # an id hash on several rows: name the duplicates, if any
+            self.duplicate_ids(request, relation, kinds)
+        frame = counts[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]]
+        return self._weighted(frame.copy(), request), query
+
+    @staticmethod
+    def _weighted(frame: pd.DataFrame, request: CountRequest) -> pd.DataFrame:
         frame[KEEP_COLUMN] = frame[KEEP_COLUMN].astype(bool)
         frame[WEIGHT_COLUMN] = frame[WEIGHT_COLUMN].astype(np.int64)
         for column in request.grouped:  # NULL as None, never NaN (is_blank reads both alike)
             frame[column] = frame[column].astype(object).where(frame[column].notna(), None)
-        return frame.reset_index(drop=True), query
+        return frame.reset_index(drop=True)
 
     def row_hash(self, request: CountRequest, relation: str, kinds: dict[str, str]) -> str:
         hasher = LineHasher()
@@ -132,8 +162,7 @@ class AggregatingEngine(Engine):
     def reduce(self, request: CountRequest) -> Reduction:
         kinds = self.check_columns(request)
         relation = self.relation(request)
-        self.check_ids(request, relation, kinds)
-        frame, query = self.counts(request, relation, kinds)
+        frame, query = self.reduction(request, relation, kinds)
         self._not_empty(int(frame[WEIGHT_COLUMN].sum()), request)
         data_hash = self.file_hash() or self.row_hash(request, relation, kinds)
 

@@ -32,6 +32,8 @@ COLUMN_KINDS: tuple[str, ...] = ("text", "integer", "float", "bool", "other")
 WHITESPACE = "".join(chr(c) for c in range(sys.maxunicode + 1) if chr(c).isspace())
 # matching._NUMBER, anchored; the same syntax in RE2 (DuckDB), ARE (PostgreSQL) and Java (Spark)
 NUMBER_PATTERN = r"^[+-]?([0-9]+(\.[0-9]*)?|\.[0-9]+)([eE][+-]?[0-9]+)?$"
+# a text that starts or ends with whitespace: only such texts need the (slow) trim
+EDGE_PATTERN = f"^[{WHITESPACE}]|[{WHITESPACE}]$"
 FIELD_SEPARATOR = "\x1f"  # between the fields of a row's fingerprint line
 LOCATE_COMBINATIONS = 200  # at most this many weighted rows are looked up for an error's ids
 
@@ -108,15 +110,27 @@ class _Sql:
         return ' COLLATE "C"' if self.dialect == "postgresql" else ""
 
     def _trim(self, expr: str) -> str:
+        """``expr`` stripped as ``str.strip()`` does; the trim runs only where an edge is
+        whitespace (a trim by a set of 29 characters is slow on every row)."""
         ws = self.bind(WHITESPACE)
         if self.dialect == "duckdb":
-            return f"trim({expr}, {ws})"
-        if self.dialect == "postgresql":
-            return f"btrim({expr}, {ws})"
-        return f"trim(BOTH {ws} FROM {expr})"
+            trimmed = f"trim({expr}, {ws})"
+        elif self.dialect == "postgresql":
+            trimmed = f"btrim({expr}, {ws})"
+        else:
+            trimmed = f"trim(BOTH {ws} FROM {expr})"
+        return f"(CASE WHEN {self._regex(expr, EDGE_PATTERN)} THEN {trimmed} ELSE {expr} END)"
 
-    def _regex(self, expr: str) -> str:
-        pattern = self.bind(NUMBER_PATTERN)
+    def hash(self, expr: str) -> str:
+        """A 64-bit hash of a text (equal texts, equal hashes)."""
+        if self.dialect == "duckdb":
+            return f"hash({expr})"
+        if self.dialect == "postgresql":
+            return f"hashtextextended({expr}, 0)"
+        return f"xxhash64({expr})"
+
+    def _regex(self, expr: str, regex: str = NUMBER_PATTERN) -> str:
+        pattern = self.bind(regex)
         if self.dialect == "duckdb":
             return f"regexp_matches({expr}, {pattern})"
         if self.dialect == "postgresql":
@@ -268,6 +282,59 @@ def compile_counts(request: CountRequest, relation: str, dialect: str,
     positions = ", ".join(str(i) for i in range(1, len(outer_cols) + 1))
     text = (f"SELECT {', '.join(outer_cols)}, COUNT(*) AS {sql.ident(WEIGHT_COLUMN)} "
             f"FROM (SELECT {inner} FROM {relation}) AS prespec_rows GROUP BY {positions}")
+    return Query(text, sql.params, dialect)
+
+
+SET_COLUMN = "prespec_set"  # 1: a row of counts; 0: an id hash seen more than once
+HASH_COLUMN = "prespec_id_hash"
+BLANK_COLUMN = "prespec_blank_ids"
+
+
+def compile_reduction(request: CountRequest, relation: str, dialect: str,
+                      types: Mapping[str, str]) -> Query:
+    """The whole reduction in one statement and one pass over the rows.
+
+    The rows are grouped twice at once (GROUPING SETS): by the raw cells of every column the
+    counts need, and by a 64-bit hash of the id's trimmed text (with the ``unique_within``
+    columns). Only then are the population filter and the mappings applied, once per
+    distinct combination of raw cells, and the combinations regrouped by their mapped values.
+    Rows with ``SET_COLUMN`` = 1 are the weighted frame (``KEEP_COLUMN``, the grouped
+    columns, ``WEIGHT_COLUMN``, and ``BLANK_COLUMN``: rows with a blank id); rows with 0 hold
+    a hash shared by several rows (a duplicate id, or a collision: confirm with
+    ``compile_duplicate_ids``).
+    """
+    sql = _Sql(dialect, types)
+    inputs = list(dict.fromkeys([f.column for f in request.include] + list(request.grouped)))
+    h, b, n = sql.ident(HASH_COLUMN), sql.ident(BLANK_COLUMN), sql.ident(SET_COLUMN)
+    k, w = sql.ident(KEEP_COLUMN), sql.ident(WEIGHT_COLUMN)
+    t = sql.ident("prespec_id_text")
+    raw = ", ".join(sql.ident(c) for c in inputs)
+    one, zero, empty = sql.bind(1), sql.bind(0), sql.bind("")
+    key = t
+    if request.unique_within:
+        sep = sql.bind(FIELD_SEPARATOR)
+        key = f" || {sep} || ".join([t] + [sql.field(c) for c in request.unique_within])
+    within = "".join(f", {sql.ident(c)}" for c in request.unique_within if c not in inputs)
+    # the id's text once per row (NULL when blank), then its hash
+    texts = (f"SELECT CASE WHEN {sql.blank(request.id)} THEN NULL ELSE {sql.text(request.id)} "
+             f"END AS {t}" + (f", {raw}" if raw else "") + within + f" FROM {relation}")
+    blank_id = f"({t} IS NULL OR {t} = {empty})"
+    cells = (f"SELECT CASE WHEN {blank_id} THEN NULL ELSE {sql.hash(key)} END AS {h}, "
+             f"CASE WHEN {blank_id} THEN {one} ELSE {zero} END AS {b}"
+             + (f", {raw}" if raw else "") + f" FROM ({texts}) AS prespec_texts")
+    grouped = (f"SELECT GROUPING({h}) AS {n}, {h}" + (f", {raw}" if raw else "")
+               + f", COUNT(*) AS prespec_rows, SUM({b}) AS {b} FROM ({cells}) AS prespec_cells "
+               f"GROUP BY GROUPING SETS (({raw}), ({h}))")
+    exprs = _grouped_exprs(sql, request)
+    mapped = (f"SELECT {n}, {h}, {sql.keep(request.include)} AS {k}"
+              + "".join(f", {e} AS {sql.ident(c)}" for c, e in exprs)
+              + f", prespec_rows, {b} FROM ({grouped}) AS prespec_groups "
+              f"WHERE {n} = {one} OR ({h} IS NOT NULL AND prespec_rows > {one})")
+    outer = [n, h, k] + [f"CASE WHEN {k} THEN {sql.ident(c)} END AS {sql.ident(c)}"
+                         for c, _ in exprs]
+    positions = ", ".join(str(i) for i in range(1, len(outer) + 1))
+    text = (f"SELECT {', '.join(outer)}, SUM(prespec_rows) AS {w}, SUM({b}) AS {b} "
+            f"FROM ({mapped}) AS prespec_mapped GROUP BY {positions}")
     return Query(text, sql.params, dialect)
 
 
