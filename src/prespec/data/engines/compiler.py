@@ -32,8 +32,6 @@ COLUMN_KINDS: tuple[str, ...] = ("text", "integer", "float", "bool", "other")
 WHITESPACE = "".join(chr(c) for c in range(sys.maxunicode + 1) if chr(c).isspace())
 # matching._NUMBER, anchored; the same syntax in RE2 (DuckDB), ARE (PostgreSQL) and Java (Spark)
 NUMBER_PATTERN = r"^[+-]?([0-9]+(\.[0-9]*)?|\.[0-9]+)([eE][+-]?[0-9]+)?$"
-# a text that starts or ends with whitespace: only such texts need the (slow) trim
-EDGE_PATTERN = f"^[{WHITESPACE}]|[{WHITESPACE}]$"
 FIELD_SEPARATOR = "\x1f"  # between the fields of a row's fingerprint line
 LOCATE_COMBINATIONS = 200  # at most this many weighted rows are looked up for an error's ids
 
@@ -110,8 +108,9 @@ class _Sql:
         return ' COLLATE "C"' if self.dialect == "postgresql" else ""
 
     def _trim(self, expr: str) -> str:
-        """``expr`` stripped as ``str.strip()`` does; the trim runs only where an edge is
-        whitespace (a trim by a set of 29 characters is slow on every row)."""
+        """``expr`` stripped as ``str.strip()`` does. The trim by the 29 characters is slow, so
+        it runs only where the first or the last character is not a printable ASCII one (an
+        empty text included): whitespace is never printable ASCII."""
         ws = self.bind(WHITESPACE)
         if self.dialect == "duckdb":
             trimmed = f"trim({expr}, {ws})"
@@ -119,7 +118,15 @@ class _Sql:
             trimmed = f"btrim({expr}, {ws})"
         else:
             trimmed = f"trim(BOTH {ws} FROM {expr})"
-        return f"(CASE WHEN {self._regex(expr, EDGE_PATTERN)} THEN {trimmed} ELSE {expr} END)"
+        if self.dialect == "duckdb":
+            first, last = f"ord({expr}[1])", f"ord({expr}[-1])"
+        elif self.dialect == "postgresql":
+            first, last = f"ascii({expr})", f"ascii(right({expr}, 1))"
+        else:
+            first, last = f"ascii({expr})", f"ascii(substring({expr}, -1, 1))"
+        low, high = self.bind(33), self.bind(126)
+        plain = (f"{first} BETWEEN {low} AND {high} AND {last} BETWEEN {low} AND {high}")
+        return f"(CASE WHEN {plain} THEN {expr} ELSE {trimmed} END)"
 
     def hash(self, expr: str) -> str:
         """A 64-bit hash of a text (equal texts, equal hashes)."""
@@ -304,38 +311,78 @@ def compile_reduction(request: CountRequest, relation: str, dialect: str,
     ``compile_duplicate_ids``).
     """
     sql = _Sql(dialect, types)
-    inputs = list(dict.fromkeys([f.column for f in request.include] + list(request.grouped)))
     h, b, n = sql.ident(HASH_COLUMN), sql.ident(BLANK_COLUMN), sql.ident(SET_COLUMN)
-    k, w = sql.ident(KEEP_COLUMN), sql.ident(WEIGHT_COLUMN)
+    raw = ", ".join(sql.ident(c) for c in count_inputs(request))
+    cells = _cells(sql, request, relation)
+    grouped = (f"SELECT GROUPING({h}) AS {n}, {h}" + (f", {raw}" if raw else "")
+               + f", COUNT(*) AS {sql.ident(ROWS_COLUMN)}, SUM({b}) AS {b} FROM ({cells}) AS "
+               f"prespec_cells GROUP BY GROUPING SETS (({raw}), ({h}))")
+    return Query(_mapping(sql, request, f"({grouped}) AS prespec_groups"), sql.params, dialect)
+
+
+ROWS_COLUMN = "prespec_rows"
+
+
+def count_inputs(request: CountRequest) -> list[str]:
+    """The columns whose raw cells the reduction groups by: the filters' and the counted."""
+    return list(dict.fromkeys([f.column for f in request.include] + list(request.grouped)))
+
+
+def _cells(sql: _Sql, request: CountRequest, relation: str) -> str:
+    """Per row: the hash of the id's trimmed text (NULL when blank), 1 for a blank id, and the
+    raw cells of ``count_inputs``."""
+    h, b = sql.ident(HASH_COLUMN), sql.ident(BLANK_COLUMN)
     t = sql.ident("prespec_id_text")
-    raw = ", ".join(sql.ident(c) for c in inputs)
+    raw = ", ".join(sql.ident(c) for c in count_inputs(request))
     one, zero, empty = sql.bind(1), sql.bind(0), sql.bind("")
     key = t
     if request.unique_within:
         sep = sql.bind(FIELD_SEPARATOR)
         key = f" || {sep} || ".join([t] + [sql.field(c) for c in request.unique_within])
+    inputs = count_inputs(request)
     within = "".join(f", {sql.ident(c)}" for c in request.unique_within if c not in inputs)
     # the id's text once per row (NULL when blank), then its hash
     texts = (f"SELECT CASE WHEN {sql.blank(request.id)} THEN NULL ELSE {sql.text(request.id)} "
              f"END AS {t}" + (f", {raw}" if raw else "") + within + f" FROM {relation}")
     blank_id = f"({t} IS NULL OR {t} = {empty})"
-    cells = (f"SELECT CASE WHEN {blank_id} THEN NULL ELSE {sql.hash(key)} END AS {h}, "
-             f"CASE WHEN {blank_id} THEN {one} ELSE {zero} END AS {b}"
-             + (f", {raw}" if raw else "") + f" FROM ({texts}) AS prespec_texts")
-    grouped = (f"SELECT GROUPING({h}) AS {n}, {h}" + (f", {raw}" if raw else "")
-               + f", COUNT(*) AS prespec_rows, SUM({b}) AS {b} FROM ({cells}) AS prespec_cells "
-               f"GROUP BY GROUPING SETS (({raw}), ({h}))")
+    return (f"SELECT CASE WHEN {blank_id} THEN NULL ELSE {sql.hash(key)} END AS {h}, "
+            f"CASE WHEN {blank_id} THEN {one} ELSE {zero} END AS {b}"
+            + (f", {raw}" if raw else "") + f" FROM ({texts}) AS prespec_texts")
+
+
+def _mapping(sql: _Sql, request: CountRequest, groups: str) -> str:
+    """The filter and the mappings over grouped raw cells (``groups``: a FROM item with
+    SET_COLUMN, HASH_COLUMN, the inputs, ROWS_COLUMN and BLANK_COLUMN), regrouped."""
+    h, b, n = sql.ident(HASH_COLUMN), sql.ident(BLANK_COLUMN), sql.ident(SET_COLUMN)
+    k, w, r = sql.ident(KEEP_COLUMN), sql.ident(WEIGHT_COLUMN), sql.ident(ROWS_COLUMN)
+    one = sql.bind(1)
     exprs = _grouped_exprs(sql, request)
     mapped = (f"SELECT {n}, {h}, {sql.keep(request.include)} AS {k}"
               + "".join(f", {e} AS {sql.ident(c)}" for c, e in exprs)
-              + f", prespec_rows, {b} FROM ({grouped}) AS prespec_groups "
-              f"WHERE {n} = {one} OR ({h} IS NOT NULL AND prespec_rows > {one})")
+              + f", {r}, {b} FROM {groups} "
+              f"WHERE {n} = {one} OR ({h} IS NOT NULL AND {r} > {one})")
     outer = [n, h, k] + [f"CASE WHEN {k} THEN {sql.ident(c)} END AS {sql.ident(c)}"
                          for c, _ in exprs]
     positions = ", ".join(str(i) for i in range(1, len(outer) + 1))
-    text = (f"SELECT {', '.join(outer)}, SUM(prespec_rows) AS {w}, SUM({b}) AS {b} "
+    return (f"SELECT {', '.join(outer)}, SUM({r}) AS {w}, SUM({b}) AS {b} "
             f"FROM ({mapped}) AS prespec_mapped GROUP BY {positions}")
-    return Query(text, sql.params, dialect)
+
+
+def compile_cells(request: CountRequest, relation: str, dialect: str,
+                  types: Mapping[str, str]) -> Query:
+    """One row per source row: HASH_COLUMN, BLANK_COLUMN and the raw cells of
+    ``count_inputs`` (for an engine that groups them itself, e.g. batch by batch)."""
+    sql = _Sql(dialect, types)
+    return Query(_cells(sql, request, relation), sql.params, dialect)
+
+
+def compile_mapping(request: CountRequest, relation: str, dialect: str,
+                    types: Mapping[str, str]) -> Query:
+    """The weighted frame from a relation of grouped raw cells (the columns of
+    ``compile_cells`` grouped, with SET_COLUMN = 1 and ROWS_COLUMN), as ``compile_reduction``
+    ends."""
+    sql = _Sql(dialect, types)
+    return Query(_mapping(sql, request, f"{relation} AS prespec_groups"), sql.params, dialect)
 
 
 def compile_blank_ids(request: CountRequest, relation: str, dialect: str,

@@ -16,10 +16,20 @@ import pandas as pd
 
 from ...errors import DataError
 from .aggregate import AggregatingEngine
-from .base import CountRequest, DataSource
-from .compiler import Query
+from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, DataSource
+from .compiler import (
+    BLANK_COLUMN,
+    HASH_COLUMN,
+    ROWS_COLUMN,
+    SET_COLUMN,
+    Query,
+    compile_cells,
+    compile_mapping,
+    count_inputs,
+)
 
-MEMORY_LIMIT = "1GB"  # DuckDB's own limit; beyond it, it spills to disk
+MEMORY_LIMIT = "768MB"  # DuckDB's own limit; beyond it, it spills to disk
+BATCH_ROWS = 1_000_000  # rows per Arrow batch of the pass over the rows
 _KINDS = {"VARCHAR": "text", "BOOLEAN": "bool", "DOUBLE": "float", "FLOAT": "float",
           "REAL": "float"}
 _INTEGERS = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT",
@@ -92,13 +102,18 @@ class DuckDBEngine(AggregatingEngine):
 
     def relation(self, request: CountRequest | None = None) -> str:
         self._check_files()
+        # union_by_name (columns matched by name across files) only for a glob: it slows
+        # the reading of a single file
+        union = ", union_by_name = true" if self.source.kind == "glob" else ""
         if self.source.is_parquet:
-            return "read_parquet($source, union_by_name = true)"
-        return ("read_csv($source, header = true, all_varchar = true, union_by_name = true, "
+            return f"read_parquet($source{union})"
+        return (f"read_csv($source, header = true, all_varchar = true{union}, "
                 "strict_mode = true, encoding = 'utf-8', delim = ',', quote = '\"', "
-                "escape = '\"', auto_detect = false)")
+                "escape = '\"')")
 
     def _params(self, query: Query) -> dict[str, Any]:
+        if "$source" not in query.text:
+            return dict(query.params)
         return {**query.params, "source": self.source.location}
 
     def column_kinds(self) -> dict[str, str]:
@@ -114,20 +129,14 @@ class DuckDBEngine(AggregatingEngine):
     def _run(self, text: str, params: dict[str, Any]) -> pd.DataFrame:
         import duckdb
 
-        stop = threading.Event()
-        watcher = None
-        if self.progress is not None:
-            watcher = threading.Thread(target=self._watch, args=(stop,), daemon=True)
-            watcher.start()
+        stop, watcher = self._start_watch()
         try:
             return self.con.execute(text, params).df()
         except (duckdb.Error, UnicodeDecodeError) as exc:
             raise DataError(f"{self.source.shown}: cannot read the data "
                             f"({_one_line(exc)})") from None
         finally:
-            stop.set()
-            if watcher is not None:
-                watcher.join()
+            self._stop_watch(stop, watcher)
 
     def _watch(self, stop: threading.Event) -> None:
         shown = -1.0
@@ -139,6 +148,76 @@ class DuckDBEngine(AggregatingEngine):
             if done >= 0 and done != shown and self.progress is not None:
                 shown = done
                 self.progress(min(done, 100.0))
+
+    def reduction(self, request: CountRequest, relation: str, kinds: dict[str, str]
+                  ) -> tuple[pd.DataFrame, Query]:
+        """One pass over the rows, batch by batch: each batch's raw cells are grouped (Arrow)
+        and its id hashes kept; duplicates are found by sorting the hashes (numpy), which is
+        far quicker than a hash table of millions of ids. Then the filter and the mappings
+        run once per distinct combination (``compile_mapping``), in DuckDB."""
+        import duckdb
+        import numpy as np
+        import pyarrow as pa
+
+        cells = compile_cells(request, relation, self.dialect, kinds)
+        inputs = count_inputs(request)
+        partial: list[pa.Table] = []
+        hashes: list[np.ndarray] = []
+        blank = 0
+        stop, watcher = self._start_watch()
+        try:
+            reader = self.con.sql(cells.text, params=self._params(cells)).to_arrow_reader(
+                BATCH_ROWS)
+            for batch in reader:
+                table = pa.Table.from_batches([batch])
+                h = table.column(HASH_COLUMN)
+                blank += int(pa.compute.sum(table.column(BLANK_COLUMN)).as_py() or 0)
+                if h.null_count:
+                    h = h.drop_null()
+                hashes.append(h.to_numpy())
+                if inputs:
+                    partial.append(table.group_by(inputs, use_threads=True).aggregate(
+                        [([], "count_all")]))
+                else:
+                    partial.append(pa.table({"count_all": [table.num_rows]}))
+        except (duckdb.Error, UnicodeDecodeError, pa.ArrowException) as exc:
+            raise DataError(f"{self.source.shown}: cannot read the data "
+                            f"({_one_line(exc)})") from None
+        finally:
+            self._stop_watch(stop, watcher)
+        self.blank_ids(request, blank)
+        every = np.concatenate(hashes) if hashes else np.empty(0, dtype=np.uint64)
+        hashes.clear()
+        every.sort()  # in place: 8 bytes a row
+        if len(every) > 1 and bool((every[1:] == every[:-1]).any()):
+            self.duplicate_ids(request, relation, kinds)  # names them (or finds a collision)
+        del every
+        combos = _combine(partial, inputs)
+        self.con.register("prespec_groups_table", combos)
+        try:
+            query = compile_mapping(request, '"prespec_groups_table"', self.dialect, kinds)
+            frame = self.fetch(query)
+        finally:
+            self.con.unregister("prespec_groups_table")
+        frame = frame[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]].copy()
+        # the query recorded: the pass over the rows, then the mapping of its groups
+        shown = Query(f"{cells.text};\n{query.text}", {**cells.params, **query.params},
+                      self.dialect)
+        return self._weighted(frame, request), shown
+
+    def _start_watch(self) -> tuple[threading.Event, threading.Thread | None]:
+        stop = threading.Event()
+        watcher = None
+        if self.progress is not None:
+            watcher = threading.Thread(target=self._watch, args=(stop,), daemon=True)
+            watcher.start()
+        return stop, watcher
+
+    @staticmethod
+    def _stop_watch(stop: threading.Event, watcher: threading.Thread | None) -> None:
+        stop.set()
+        if watcher is not None:
+            watcher.join()
 
     def fetch(self, query: Query) -> pd.DataFrame:
         frame = self._run(query.text, self._params(query))
@@ -154,3 +233,30 @@ class DuckDBEngine(AggregatingEngine):
         except (duckdb.Error, UnicodeDecodeError) as exc:
             raise DataError(f"{self.source.shown}: cannot read the data "
                             f"({_one_line(exc)})") from None
+
+
+def _combine(partial: list[Any], inputs: list[str]) -> Any:
+    """The batches' groups summed into one table of groups, with the columns that
+    ``compile_mapping`` reads (SET_COLUMN = 1, HASH_COLUMN NULL, no blank ids counted here)."""
+    import pyarrow as pa
+
+    if not partial:
+        return pa.table({SET_COLUMN: pa.array([], pa.int64()),
+                         HASH_COLUMN: pa.array([], pa.uint64()),
+                         ROWS_COLUMN: pa.array([], pa.int64()),
+                         BLANK_COLUMN: pa.array([], pa.int64())})
+    table = pa.concat_tables(partial)
+    if inputs:
+        table = table.group_by(inputs).aggregate([("count_all", "sum")])
+        rows = table.column("count_all_sum")
+    else:
+        rows = pa.array([pa.compute.sum(table.column("count_all")).as_py()], pa.int64())
+        table = pa.table({"x": [0]})
+    n = table.num_rows
+    columns = {SET_COLUMN: pa.array([1] * n, pa.int64()),
+               HASH_COLUMN: pa.nulls(n, pa.uint64())}
+    for name in inputs:
+        columns[name] = table.column(name)
+    columns[ROWS_COLUMN] = rows
+    columns[BLANK_COLUMN] = pa.array([0] * n, pa.int64())
+    return pa.table(columns)
