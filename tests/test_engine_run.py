@@ -165,3 +165,37 @@ def test_auto_choice_by_size_and_kind(tmp_path: Path) -> None:
     assert auto_engine(DataSource("file", str(big), "big.csv")) == "duckdb"
     assert auto_engine(DataSource("glob", str(tmp_path / "*.csv"), "*.csv")) == "duckdb"
     assert auto_engine(DataSource("url", "postgresql://h/db", "db", table="t")) == "sql"
+
+
+def test_rerun_recomputes_a_duckdb_report_with_pandas(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """verify --rerun (auto: pandas for a small file) finds the duckdb run's results equal."""
+    plan = tmp_path / "wound.yaml"
+    plan.write_text(PLAN_TEXT, encoding="utf-8")
+    data = tmp_path / "all.csv"
+    data.write_text(demo_data(), encoding="utf-8")
+    assert cli.main(["lock", str(plan)]) == 0
+    assert cli.main(["run", str(plan), str(data), "--engine", "duckdb"]) == 0
+    capsys.readouterr()
+    assert cli.main(["verify", str(plan), "--rerun", str(data)]) == 0
+    assert "every result identical" in capsys.readouterr().out
+
+
+def test_progress_is_quiet_off_a_terminal(monkeypatch: pytest.MonkeyPatch,
+                                          capsys: pytest.CaptureFixture[str]) -> None:
+    assert cli._reduction_bar() is None  # pytest's stderr is not a terminal
+    monkeypatch.setattr("sys.stderr.isatty", lambda: True)
+    bar = cli._reduction_bar()
+    assert bar is not None
+    bar(50.0)
+    err = capsys.readouterr().err
+    assert "counting the data" in err and " 50%" in err
+
+
+def test_pandas_engine_refuses_a_glob(tmp_path: Path) -> None:
+    from prespec.data.engines.choose import open_engine
+    from prespec.errors import DataError
+
+    with pytest.raises(DataError, match="the pandas engine reads one data file; use "
+                                        "--engine duckdb for a glob"):
+        open_engine("pandas", DataSource("glob", str(tmp_path / "*.csv"), "*.csv"))
