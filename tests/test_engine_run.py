@@ -199,3 +199,19 @@ def test_pandas_engine_refuses_a_glob(tmp_path: Path) -> None:
     with pytest.raises(DataError, match="the pandas engine reads one data file; use "
                                         "--engine duckdb for a glob"):
         open_engine("pandas", DataSource("glob", str(tmp_path / "*.csv"), "*.csv"))
+
+
+def test_rehearsal_by_duckdb_equals_rehearsal_by_pandas(tmp_path: Path) -> None:
+    from prespec import api
+
+    plan = tmp_path / "wound.yaml"
+    plan.write_text(PLAN_TEXT, encoding="utf-8")
+    data = tmp_path / "all.csv"
+    data.write_text(demo_data(), encoding="utf-8")
+    by_pandas = api.rehearse(plan, data, out=tmp_path / "a", engine="pandas").results
+    by_duckdb = api.rehearse(plan, data, out=tmp_path / "b", engine="duckdb").results
+    moment = {"created", "engine", "query"}
+    assert {k: v for k, v in by_duckdb.items() if k not in moment} == {
+        k: v for k, v in by_pandas.items() if k not in moment}
+    assert by_duckdb["data_dictionary"]["rows"] == 601  # every row, before the filter
+    assert '"arm"' not in by_duckdb["query"]
