@@ -26,10 +26,10 @@ from .compiler import (
     compile_cells,
     compile_mapping,
     count_inputs,
+    quote_identifier,
 )
 
 MEMORY_LIMIT = "768MB"  # DuckDB's own limit; beyond it, it spills to disk
-BATCH_ROWS = 1_000_000  # rows per Arrow batch of the pass over the rows
 _KINDS = {"VARCHAR": "text", "BOOLEAN": "bool", "DOUBLE": "float", "FLOAT": "float",
           "REAL": "float"}
 _INTEGERS = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT",
@@ -151,49 +151,44 @@ class DuckDBEngine(AggregatingEngine):
 
     def reduction(self, request: CountRequest, relation: str, kinds: dict[str, str]
                   ) -> tuple[pd.DataFrame, Query]:
-        """One pass over the rows, batch by batch: each batch's raw cells are grouped (Arrow)
-        and its id hashes kept; duplicates are found by sorting the hashes (numpy), which is
-        far quicker than a hash table of millions of ids. Then the filter and the mappings
-        run once per distinct combination (``compile_mapping``), in DuckDB."""
+        """One pass over the rows: DuckDB groups the raw cells and lists each group's id
+        hashes; duplicates are found by sorting the hashes (numpy), far quicker and smaller
+        than a hash table of millions of ids. Then the filter and the mappings run once per
+        distinct combination of cells (``compile_mapping``)."""
         import duckdb
-        import numpy as np
         import pyarrow as pa
+        import pyarrow.compute as pc
 
         cells = compile_cells(request, relation, self.dialect, kinds)
         inputs = count_inputs(request)
-        partial: list[pa.Table] = []
-        hashes: list[np.ndarray] = []
-        blank = 0
+        q = [quote_identifier(c, self.dialect) for c in inputs]
+        hashed = Query(
+            f"SELECT {''.join(c + ', ' for c in q)}1 AS {SET_COLUMN}, "
+            f"CAST(NULL AS UBIGINT) AS {HASH_COLUMN}, COUNT(*) AS {ROWS_COLUMN}, "
+            f"SUM({BLANK_COLUMN}) AS {BLANK_COLUMN}, list({HASH_COLUMN}) AS prespec_hashes "
+            f"FROM ({cells.text}) AS prespec_cells"
+            + (f" GROUP BY {', '.join(q)}" if q else ""), cells.params, self.dialect)
         stop, watcher = self._start_watch()
         try:
-            reader = self.con.sql(cells.text, params=self._params(cells)).to_arrow_reader(
-                BATCH_ROWS)
-            for batch in reader:
-                table = pa.Table.from_batches([batch])
-                h = table.column(HASH_COLUMN)
-                blank += int(pa.compute.sum(table.column(BLANK_COLUMN)).as_py() or 0)
-                if h.null_count:
-                    h = h.drop_null()
-                hashes.append(h.to_numpy())
-                if inputs:
-                    partial.append(table.group_by(inputs, use_threads=True).aggregate(
-                        [([], "count_all")]))
-                else:
-                    partial.append(pa.table({"count_all": [table.num_rows]}))
-        except (duckdb.Error, UnicodeDecodeError, pa.ArrowException) as exc:
+            table = self.con.sql(hashed.text, params=self._params(hashed)).arrow()
+            if isinstance(table, pa.RecordBatchReader):
+                table = table.read_all()
+        except (duckdb.Error, UnicodeDecodeError) as exc:
             raise DataError(f"{self.source.shown}: cannot read the data "
                             f"({_one_line(exc)})") from None
         finally:
             self._stop_watch(stop, watcher)
-        self.blank_ids(request, blank)
-        every = np.concatenate(hashes) if hashes else np.empty(0, dtype=np.uint64)
-        hashes.clear()
+        self.blank_ids(request, int(pc.sum(table.column(BLANK_COLUMN)).as_py() or 0))
+        every = pc.list_flatten(table.column("prespec_hashes")).drop_null().to_numpy(
+            zero_copy_only=False)
+        table = table.drop_columns(["prespec_hashes"])
+        if not every.flags.writeable:  # a view of Arrow's buffer: sort a copy
+            every = every.copy()
         every.sort()  # in place: 8 bytes a row
         if len(every) > 1 and bool((every[1:] == every[:-1]).any()):
             self.duplicate_ids(request, relation, kinds)  # names them (or finds a collision)
         del every
-        combos = _combine(partial, inputs)
-        self.con.register("prespec_groups_table", combos)
+        self.con.register("prespec_groups_table", table)
         try:
             query = compile_mapping(request, '"prespec_groups_table"', self.dialect, kinds)
             frame = self.fetch(query)
@@ -201,7 +196,7 @@ class DuckDBEngine(AggregatingEngine):
             self.con.unregister("prespec_groups_table")
         frame = frame[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]].copy()
         # the query recorded: the pass over the rows, then the mapping of its groups
-        shown = Query(f"{cells.text};\n{query.text}", {**cells.params, **query.params},
+        shown = Query(f"{hashed.text};\n{query.text}", {**cells.params, **query.params},
                       self.dialect)
         return self._weighted(frame, request), shown
 
@@ -234,29 +229,3 @@ class DuckDBEngine(AggregatingEngine):
             raise DataError(f"{self.source.shown}: cannot read the data "
                             f"({_one_line(exc)})") from None
 
-
-def _combine(partial: list[Any], inputs: list[str]) -> Any:
-    """The batches' groups summed into one table of groups, with the columns that
-    ``compile_mapping`` reads (SET_COLUMN = 1, HASH_COLUMN NULL, no blank ids counted here)."""
-    import pyarrow as pa
-
-    if not partial:
-        return pa.table({SET_COLUMN: pa.array([], pa.int64()),
-                         HASH_COLUMN: pa.array([], pa.uint64()),
-                         ROWS_COLUMN: pa.array([], pa.int64()),
-                         BLANK_COLUMN: pa.array([], pa.int64())})
-    table = pa.concat_tables(partial)
-    if inputs:
-        table = table.group_by(inputs).aggregate([("count_all", "sum")])
-        rows = table.column("count_all_sum")
-    else:
-        rows = pa.array([pa.compute.sum(table.column("count_all")).as_py()], pa.int64())
-        table = pa.table({"x": [0]})
-    n = table.num_rows
-    columns = {SET_COLUMN: pa.array([1] * n, pa.int64()),
-               HASH_COLUMN: pa.nulls(n, pa.uint64())}
-    for name in inputs:
-        columns[name] = table.column(name)
-    columns[ROWS_COLUMN] = rows
-    columns[BLANK_COLUMN] = pa.array([0] * n, pa.int64())
-    return pa.table(columns)
