@@ -1,9 +1,9 @@
 """The reduction as aggregate SQL queries: what every SQL-speaking engine shares.
 
 A subclass says how to reach its rows (``relation``), what columns they have (``column_kinds``)
-and how to run a query (``fetch``, ``stream_lines``); this class checks the columns and the
-ids, sends the one aggregate query of ``compiler.compile_counts``, computes the data
-fingerprint, and looks up the ids an error names.
+and how to run a query (``fetch``, ``stream_lines``); this class checks the columns, sends the
+one statement of ``compiler.compile_reduction`` (counts and id checks in one pass), names
+blank or duplicate ids, computes the data fingerprint, and looks up the ids an error names.
 """
 
 from __future__ import annotations

@@ -66,6 +66,7 @@ class DuckDBEngine(AggregatingEngine):
                                           "preserve_insertion_order": False})
         self._kinds: dict[str, str] | None = None
         self._checked = False
+        self._shown = False
 
     def close(self) -> None:
         self.con.close()
@@ -147,6 +148,7 @@ class DuckDBEngine(AggregatingEngine):
                 return
             if done >= 0 and done != shown and self.progress is not None:
                 shown = done
+                self._shown = True
                 self.progress(min(done, 100.0))
 
     def reduction(self, request: CountRequest, relation: str, kinds: dict[str, str]
@@ -208,11 +210,13 @@ class DuckDBEngine(AggregatingEngine):
             watcher.start()
         return stop, watcher
 
-    @staticmethod
-    def _stop_watch(stop: threading.Event, watcher: threading.Thread | None) -> None:
+    def _stop_watch(self, stop: threading.Event, watcher: threading.Thread | None) -> None:
         stop.set()
         if watcher is not None:
             watcher.join()
+        if self._shown and self.progress is not None:  # a bar once shown ends at 100%
+            self._shown = False
+            self.progress(100.0)
 
     def fetch(self, query: Query) -> pd.DataFrame:
         frame = self._run(query.text, self._params(query))
