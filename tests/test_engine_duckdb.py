@@ -237,14 +237,26 @@ def test_duplicate_and_blank_ids(tmp_path: Path) -> None:
 
 
 def test_unique_within_accepts_ids_repeated_across_levels(tmp_path: Path) -> None:
+    plan = load_plan(_write_plan(tmp_path, {
+        **HOSTILE_PLAN, "data": {"id": "pid", "group": "arm", "groups": ["a", "b"]},
+        "outcomes": {"ae": {"column": "y", "event": [1], "no_event": [0],
+                            "missing": "exclude"}},
+        "hypotheses": [{"id": "H1", "outcome": "ae", "compare": ["a", "b"],
+                        "test": "fisher-exact"}]})).model
     csv = tmp_path / "ae.csv"
-    csv.write_text("pid,term,arm\n1,rash,a\n1,nausea,a\n2,rash,b\n2,rash,b\n", encoding="utf-8")
-    plan = load_plan(_write_plan(tmp_path, HOSTILE_PLAN)).model
+    csv.write_text("pid,term,arm,y\n1,rash,a,1\n1,nausea,a,0\n2,rash,b,1\n3,rash,b,0\n",
+                   encoding="utf-8")
     request = count_request(plan, "ae.csv", unique_within=("term",))
-    engine = DuckDBEngine(_source(csv))
-    kinds = engine.column_kinds()
-    with pytest.raises(DataError, match=r"'2' \(2 rows, term 'rash'\)$"):
-        engine.check_ids(request, engine.relation(request), kinds)
+    with DuckDBEngine(_source(csv)) as engine:
+        reduction = engine.reduce(request)  # pid 1 twice, in two terms: accepted
+    assert int(reduction.frame["__prespec_rows__"].sum()) == 4
+    csv.write_text(csv.read_text() + "2,rash,b,0\n", encoding="utf-8")
+    with DuckDBEngine(_source(csv)) as engine, pytest.raises(
+            DataError, match=r"'2' \(2 rows, term 'rash'\)$"):
+        engine.reduce(request)
+    with DuckDBEngine(_source(csv)) as engine, pytest.raises(
+            DataError, match=r"duplicate ids in column 'pid': '1' \(2 rows\); '2' \(2 rows\)$"):
+        engine.reduce(count_request(plan, "ae.csv"))  # without: pid 1 is a duplicate too
 
 
 def test_blinded_request_never_names_the_group_column(tmp_path: Path) -> None:
