@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import abc
 from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any, ClassVar
 
 import numpy as np
@@ -162,9 +163,12 @@ class AggregatingEngine(Engine):
     def reduce(self, request: CountRequest) -> Reduction:
         kinds = self.check_columns(request)
         relation = self.relation(request)
-        frame, query = self.reduction(request, relation, kinds)
-        self._not_empty(int(frame[WEIGHT_COLUMN].sum()), request)
-        data_hash = self.file_hash() or self.row_hash(request, relation, kinds)
+        # a single file's SHA-256 is read beside the reduction (hashlib releases the GIL)
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            file_hash = pool.submit(self.file_hash)
+            frame, query = self.reduction(request, relation, kinds)
+            self._not_empty(int(frame[WEIGHT_COLUMN].sum()), request)
+            data_hash = file_hash.result() or self.row_hash(request, relation, kinds)
 
         def locate(mask: Any) -> list[str]:
             chosen = frame.loc[np.asarray(mask, dtype=bool), list(request.grouped)]
