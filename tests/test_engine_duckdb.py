@@ -285,3 +285,12 @@ def test_quoted_names_and_a_nul(tmp_path: Path) -> None:
     csv.write_text(HOSTILE_CSV.replace(",arm,", ',"the ""arm""",'), encoding="utf-8")
     by_pandas, by_duckdb = _both(plan, csv)
     assert by_duckdb == by_pandas and by_duckdb.analysed == 10
+
+
+def test_whitespace_is_what_str_strip_removes() -> None:
+    import sys
+
+    from prespec.data.engines.compiler import WHITESPACE
+
+    assert WHITESPACE == "".join(chr(c) for c in range(sys.maxunicode + 1) if chr(c).isspace())
+    assert ("\u3000\t x \x1f\xa0").strip() == "x"  # Python's rule, which the SQL trim follows

@@ -18,7 +18,6 @@ parameters by name. Column kinds (``types``): ``text``, ``integer``, ``float``, 
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -28,8 +27,10 @@ from .base import KEEP_COLUMN, WEIGHT_COLUMN, ColumnMap, CountRequest, Filter
 
 DIALECTS: tuple[str, ...] = ("duckdb", "postgresql", "spark")
 COLUMN_KINDS: tuple[str, ...] = ("text", "integer", "float", "bool", "other")
-# what str.strip() removes: every character for which str.isspace() holds
-WHITESPACE = "".join(chr(c) for c in range(sys.maxunicode + 1) if chr(c).isspace())
+# what str.strip() removes: every character for which str.isspace() holds (a test checks the
+# list against Python's own, which takes a second to compute at import)
+WHITESPACE = ("\t\n\x0b\x0c\r\x1c\x1d\x1e\x1f \x85\xa0\u1680\u2000\u2001\u2002\u2003\u2004"
+              "\u2005\u2006\u2007\u2008\u2009\u200a\u2028\u2029\u202f\u205f\u3000")
 # matching._NUMBER, anchored; the same syntax in RE2 (DuckDB), ARE (PostgreSQL) and Java (Spark)
 NUMBER_PATTERN = r"^[+-]?([0-9]+(\.[0-9]*)?|\.[0-9]+)([eE][+-]?[0-9]+)?$"
 FIELD_SEPARATOR = "\x1f"  # between the fields of a row's fingerprint line
