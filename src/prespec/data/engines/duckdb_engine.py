@@ -153,43 +153,44 @@ class DuckDBEngine(AggregatingEngine):
 
     def reduction(self, request: CountRequest, relation: str, kinds: dict[str, str]
                   ) -> tuple[pd.DataFrame, Query]:
-        """One pass over the rows: DuckDB groups the raw cells and lists each group's id
-        hashes; duplicates are found by sorting the hashes (numpy), far quicker and smaller
-        than a hash table of millions of ids. Then the filter and the mappings run once per
-        distinct combination of cells (``compile_mapping``)."""
+        """Two quick queries instead of one slow one. The ids: a 64-bit hash of each id's
+        trimmed text, sorted by numpy to find repeats (far quicker and smaller than a hash
+        table of millions of ids; a repeat is then named, or found a collision, by
+        ``duplicate_ids``). The counts: the raw cells grouped, then the filter and the
+        mappings applied once per distinct combination (``compile_mapping``)."""
         import duckdb
-        import pyarrow as pa
-        import pyarrow.compute as pc
+        import numpy as np
 
         cells = compile_cells(request, relation, self.dialect, kinds)
-        inputs = count_inputs(request)
-        q = [quote_identifier(c, self.dialect) for c in inputs]
-        hashed = Query(
+        ids = Query(f"SELECT {HASH_COLUMN}, {BLANK_COLUMN} FROM ({cells.text}) AS prespec_cells",
+                    cells.params, self.dialect)
+        q = [quote_identifier(c, self.dialect) for c in count_inputs(request)]
+        groups = Query(
             f"SELECT {''.join(c + ', ' for c in q)}1 AS {SET_COLUMN}, "
             f"CAST(NULL AS UBIGINT) AS {HASH_COLUMN}, COUNT(*) AS {ROWS_COLUMN}, "
-            f"SUM({BLANK_COLUMN}) AS {BLANK_COLUMN}, list({HASH_COLUMN}) AS prespec_hashes "
-            f"FROM ({cells.text}) AS prespec_cells"
-            + (f" GROUP BY {', '.join(q)}" if q else ""), cells.params, self.dialect)
+            f"0 AS {BLANK_COLUMN} FROM {relation}" + (f" GROUP BY {', '.join(q)}" if q else ""),
+            {}, self.dialect)
         stop, watcher = self._start_watch()
         try:
-            table = self.con.sql(hashed.text, params=self._params(hashed)).arrow()
-            if isinstance(table, pa.RecordBatchReader):
-                table = table.read_all()
+            found = self.con.execute(ids.text, self._params(ids)).fetchnumpy()
+            self.blank_ids(request, int(np.asarray(found[BLANK_COLUMN]).sum()))
+            hashes = np.ma.getdata(found[HASH_COLUMN]) if np.ma.isMaskedArray(
+                found[HASH_COLUMN]) else np.asarray(found[HASH_COLUMN])
+            del found
+            hashes = np.array(hashes, dtype=np.uint64)  # a writable copy
+            hashes.sort()  # in place: 8 bytes a row
+            repeated = len(hashes) > 1 and bool((hashes[1:] == hashes[:-1]).any())
+            del hashes
+            if repeated:  # names the duplicates (or finds a collision: then nothing)
+                self.duplicate_ids(request, relation, kinds)
+            table = self.con.sql(groups.text, params=self._params(groups)).arrow()
         except (duckdb.Error, UnicodeDecodeError) as exc:
             raise DataError(f"{self.source.shown}: cannot read the data "
                             f"({_one_line(exc)})") from None
         finally:
             self._stop_watch(stop, watcher)
-        self.blank_ids(request, int(pc.sum(table.column(BLANK_COLUMN)).as_py() or 0))
-        every = pc.list_flatten(table.column("prespec_hashes")).drop_null().to_numpy(
-            zero_copy_only=False)
-        table = table.drop_columns(["prespec_hashes"])
-        if not every.flags.writeable:  # a view of Arrow's buffer: sort a copy
-            every = every.copy()
-        every.sort()  # in place: 8 bytes a row
-        if len(every) > 1 and bool((every[1:] == every[:-1]).any()):
-            self.duplicate_ids(request, relation, kinds)  # names them (or finds a collision)
-        del every
+        if not hasattr(table, "num_rows"):  # a reader in some versions of DuckDB
+            table = table.read_all()
         self.con.register("prespec_groups_table", table)
         try:
             query = compile_mapping(request, '"prespec_groups_table"', self.dialect, kinds)
@@ -197,9 +198,8 @@ class DuckDBEngine(AggregatingEngine):
         finally:
             self.con.unregister("prespec_groups_table")
         frame = frame[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]].copy()
-        # the query recorded: the pass over the rows, then the mapping of its groups
-        shown = Query(f"{hashed.text};\n{query.text}", {**cells.params, **query.params},
-                      self.dialect)
+        shown = Query(f"{ids.text};\n{groups.text};\n{query.text}",
+                      {**cells.params, **query.params}, self.dialect)
         return self._weighted(frame, request), shown
 
     def _start_watch(self) -> tuple[threading.Event, threading.Thread | None]:
