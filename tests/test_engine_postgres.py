@@ -23,7 +23,9 @@ from services import PASSWORD_VARIABLE, PostgresServer, postgres_server  # noqa:
 from prespec.audit import log_path, read_log
 from prespec.data import prepare, read_data
 from prespec.data.engines.base import DataSource
+from prespec.data.engines.fingerprint import frame_row_hash
 from prespec.data.engines.pipeline import count_source
+from prespec.data.engines.request import count_request
 from prespec.data.engines.sql import SqlEngine, column_kind, database_url
 from prespec.demo import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, DataError
@@ -176,6 +178,22 @@ def test_a_schema_qualified_table(postgres: PostgresServer, password: str, demo_
     counted = count_source(plan, source(postgres, table="trial.wound rows"), engine="sql")
     assert counted.prepared == prepare(demo_frame, plan, "demo.csv")
     assert '"trial"."wound rows"' in (counted.query or "")
+
+
+def test_a_view_counts_and_hashes_as_its_table(postgres: PostgresServer, password: str,
+                                               demo_frame: Any, tmp_path: Path) -> None:
+    """A view has no size on disk: its fingerprint is streamed, and equals the table's
+    (hashed by the server)."""
+    import sqlalchemy as sa
+
+    with postgres.engine().begin() as conn:
+        conn.execute(sa.text(f'CREATE OR REPLACE VIEW "wound view" AS SELECT * FROM {TABLE}'))
+    plan = plan_model(tmp_path)
+    table = count_source(plan, source(postgres), engine="sql")
+    view = count_source(plan, source(postgres, table="wound view"), engine="sql")
+    assert view.prepared == table.prepared
+    assert view.data_hash == table.data_hash == frame_row_hash(
+        demo_frame, count_request(plan, "rows"))
 
 
 def test_typed_columns_count_as_their_text(postgres: PostgresServer, password: str,

@@ -294,6 +294,7 @@ def test_fingerprints_of_database_and_spark_sources(study: dict[str, Any], spark
                                                     tmp_path: Path) -> None:
     """One definition (fingerprint.frame_row_hash on the same rows) in PostgreSQL and Spark;
     reordering the rows keeps it, changing one cell the analysis reads changes it."""
+    from prespec.data.engines import sql as sql_engine
     from prespec.data.engines.spark import SparkEngine
     from prespec.data.engines.sql import SqlEngine
 
@@ -313,13 +314,16 @@ def test_fingerprints_of_database_and_spark_sources(study: dict[str, Any], spark
 
     for label, rows in variants.items():
         postgres.load("fingerprint_rows", rows)
-        hashes[("sql", label)] = row_hash(SqlEngine(DataSource(
-            "url", postgres.url(), "fingerprint_rows", table="fingerprint_rows",
-            password_from=PASSWORD_VARIABLE)))
+        database = DataSource("url", postgres.url(), "fingerprint_rows",
+                              table="fingerprint_rows", password_from=PASSWORD_VARIABLE)
+        hashes[("sql", label)] = row_hash(SqlEngine(database))  # hashed by the server
+        with pytest.MonkeyPatch.context() as patch:  # as for a large table: streamed here
+            patch.setattr(sql_engine, "SERVER_HASH_LIMIT", 1)
+            hashes[("sql-streamed", label)] = row_hash(SqlEngine(database))
         spark_view(spark, "fingerprint_rows", rows)
         hashes[("spark", label)] = row_hash(SparkEngine(DataSource(
             "url", "spark://", "fingerprint_rows", table="fingerprint_rows")))
-    for engine in ("sql", "spark"):
+    for engine in ("sql", "sql-streamed", "spark"):
         assert hashes[(engine, "same")] == expected, engine
         assert hashes[(engine, "reordered")] == expected, engine
         assert hashes[(engine, "changed")] == frame_row_hash(changed, request) != expected

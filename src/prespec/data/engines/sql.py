@@ -3,9 +3,10 @@
 The reduction runs on the server as the compiler's aggregate queries (``aggregate.py``,
 ``compiler.py``): the population filter, the group and outcome mapping and the ``GROUP BY``
 all happen there, and only the small weighted result comes back; the id checks are two more
-aggregate queries. No raw row is fetched for the analysis: only the few ids an error message
-names, and the rows' fingerprint lines (``fingerprint.py``), streamed through a server-side
-cursor into the hash and never kept.
+aggregate queries. No raw row is fetched: only the few ids an error message names. The data
+fingerprint (``fingerprint.py``) is computed by the server too, for a table under
+``SERVER_HASH_LIMIT`` on disk; for a larger table or a view the rows' fingerprint lines are
+streamed through a server-side cursor into the hash, and never kept.
 
 The URL holds no password: the plan names the environment variable that holds it
 (``data.password_from``). Values are bound through ``sqlalchemy.text`` parameters and names
@@ -26,7 +27,7 @@ import pandas as pd
 from ...errors import BadInput, DataError
 from .aggregate import AggregatingEngine
 from .base import CountRequest, DataSource
-from .compiler import Query, quote_table
+from .compiler import Query, compile_row_lines, quote_table
 
 # SQLAlchemy dialect name -> the compiler's dialect
 SUPPORTED_DIALECTS = {"postgresql": "postgresql"}
@@ -34,6 +35,10 @@ SUPPORTED_DIALECTS = {"postgresql": "postgresql"}
 DEFAULT_DRIVERS = {"postgresql": "postgresql+psycopg"}
 STREAM_BATCH = 20_000  # fingerprint lines per round trip
 READ_ONLY = "SET SESSION CHARACTERISTICS AS TRANSACTION READ ONLY"
+# the fingerprint is hashed by the server for a table below this size on disk (the lines of
+# its rows, fewer bytes, then fit in a text value, at most 1 GB); above it, they are
+# streamed into the hash here
+SERVER_HASH_LIMIT = 256 * 1024 * 1024
 
 
 def _first_line(exc: BaseException) -> str:
@@ -187,6 +192,19 @@ class SqlEngine(AggregatingEngine):
         return pd.DataFrame({n: pd.Series([_plain(v) for v in values], dtype=object)
                              for n, values in zip(names, columns, strict=True)}, columns=names)
 
+    def row_hash(self, request: CountRequest, relation: str, kinds: dict[str, str]) -> str:
+        """The data fingerprint, computed by the server when the table is small enough for
+        its rows' lines to fit in one text value (its size on disk under
+        ``SERVER_HASH_LIMIT``); else, and for a view, streamed into the hash here, batch by
+        batch, and never kept. Both give the same hash (``fingerprint.py``)."""
+        size = self.fetch(Query("SELECT pg_total_relation_size(to_regclass(:fp_table)) AS size",
+                                {"fp_table": relation}, self.dialect))["size"].iloc[0]
+        if size is not None and 0 < int(size) < SERVER_HASH_LIMIT:
+            lines = compile_row_lines(request, relation, self.dialect, kinds)
+            digest = self.fetch(server_hash_query(lines))["digest"].iloc[0]
+            return f"sha256:{digest}"
+        return super().row_hash(request, relation, kinds)
+
     def stream_lines(self, query: Query) -> Iterator[list[str]]:
         import sqlalchemy as sa
 
@@ -201,6 +219,16 @@ class SqlEngine(AggregatingEngine):
                             f"({_first_line(exc)})") from None
         finally:
             self._connection.rollback()
+
+
+def server_hash_query(lines: Query) -> Query:
+    """The fingerprint of ``compile_row_lines``' rows computed by PostgreSQL itself: SHA-256
+    of the lines in their order, each followed by a newline, in UTF-8 (``fingerprint.py``)."""
+    order = 'prespec_id COLLATE "C", line COLLATE "C"'
+    text = (f"SELECT encode(sha256(convert_to(COALESCE(string_agg(line || :fp_newline, "
+            f":fp_empty ORDER BY {order}), :fp_empty), 'UTF8')), 'hex') AS digest "
+            f"FROM ({lines.text}) AS prespec_fingerprint")
+    return Query(text, {**lines.params, "fp_newline": "\n", "fp_empty": ""}, lines.dialect)
 
 
 def _plain(value: Any) -> Any:
