@@ -37,8 +37,10 @@ TABLE = "wound_rows"
 
 def cli(*args: str, cwd: Path, env: dict[str, str] | None = None
         ) -> subprocess.CompletedProcess[str]:
-    environment = {**os.environ, "PRESPEC_ACTOR": "test-monitor", **(env or {})}
-    environment.pop(PASSWORD_VARIABLE, None) if env is None else None
+    """The command in a fresh process; the password variable only as ``env`` gives it."""
+    environment = {**os.environ, "PRESPEC_ACTOR": "test-monitor"}
+    environment.pop(PASSWORD_VARIABLE, None)
+    environment.update(env or {})
     return subprocess.run([*PRESPEC, *args], check=False, cwd=cwd, env=environment,
                           capture_output=True, text=True, timeout=300)
 
