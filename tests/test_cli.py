@@ -66,8 +66,10 @@ def test_lock_prints_how_to_check_the_fingerprint(tmp_path: Path,
 
 
 def test_usage_errors_exit_2(capsys: pytest.CaptureFixture[str]) -> None:
+    # DATA is optional (the plan's data.source may name the data): the missing plan is named
+    assert cli.main(["run", "only-a-plan.yaml"]) == 2
     with pytest.raises(SystemExit) as caught:
-        cli.main(["run", "only-a-plan.yaml"])
+        cli.main(["run", "p.yaml", "d.csv", "--engine", "abacus"])
     assert caught.value.code == 2
     with pytest.raises(SystemExit) as caught:
         cli.main(["amend", "p.yaml"])  # --reason is required

@@ -402,10 +402,11 @@ def _environment_departures(record: dict[str, Any], env: dict[str, str]) -> list
         "; ".join(f"{n} {b}" for n, _, b in diffs))]
 
 
-def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
+def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | None = None,
         actor: str | None = None, accept_deviation: str | None = None,
         overrides: Mapping[str, Any] | None = None, look: int | None = None,
-        progress: Callable[[str, int, int], None] | None = None) -> RunOutcome:
+        engine: str = "auto", progress: Callable[[str, int, int], None] | None = None,
+        counting: Callable[[float], None] | None = None) -> RunOutcome:
     """Run the locked plan on ``data``; write the report folder and the ``run`` entry.
 
     ``progress(what, done, total)`` is called as the levels of a long family are prepared.
@@ -414,16 +415,20 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
     locked analysis for this run only; each change is an ``override`` departure and needs
     ``accept_deviation``. The fingerprint recorded stays the locked one.
     ``look``: run interim look K of a plan with looks (a ``look`` entry); a plain run of such a
-    plan is its final analysis (see ``looks.py``).
+    plan is its final analysis (see ``looks.py``). ``data``: a file or a glob; without it, the
+    plan's ``data.source``. ``engine``: ``auto`` (by the source), ``pandas``, ``duckdb``,
+    ``sql`` or ``spark``; ``counting(percent)`` reports a long reduction.
     """
+    from .data.engines.sources import check_source, resolve_source
+
     if accept_deviation is not None and not accept_deviation.strip():
         raise BadInput("--accept-deviation needs a reason")
     loaded = load_plan(Path(plan))
-    data_path = Path(data)
-    if not data_path.is_file():
-        raise BadInput(f"{data_path}: no such data file")
     entries = _finish_stopped_writes(loaded.path)
     model, fp, version, deviations, notes, record = _plan_in_force(loaded, accept_deviation)
+    source, source_notes = resolve_source(loaded.path, model, data)
+    check_source(source)
+    notes.extend(source_notes)
     changes: list[dict[str, Any]] = []
     if overrides:
         base = record["plan"] if record is not None else loaded.resolved
@@ -448,10 +453,10 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
         check_out_path(loaded.path, out_path)  # before the work; the default is numbered
     results = compute_results(
         plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
-        data_path=data_path, actor=resolve_actor(actor), environment=env,
+        data_path=None, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes,
         previous_data=runs[-1].get("data") if runs and looks is None else None,
-        looks=looks, progress=progress,
+        looks=looks, progress=progress, source=source, engine=engine, counting=counting,
     )
     mark_overrides(results, changes)
     action = "look" if look is not None else "run"
@@ -459,27 +464,30 @@ def run(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
                    details=look_details(results))
 
 
-def rehearse(plan: str | Path, data: str | Path, *, out: str | Path | None = None,
-             actor: str | None = None) -> RunOutcome:
+def rehearse(plan: str | Path, data: str | Path | None = None, *,
+             out: str | Path | None = None, actor: str | None = None,
+             engine: str = "auto") -> RunOutcome:
     """A blinded dry run of the plan file on ``data``: the group column is never read.
 
     The plan may be locked or not (a missing or changed lock is a note, never a stop). The
     run is computed on a random dummy allocation and its report rendered and discarded; the
     report folder (default ``reports/<stem>/<time>-rehearsal``) holds pooled figures and the
     data dictionary only, and the log records a ``rehearse`` entry. The lock is not touched.
+    ``data`` and ``engine`` as in ``run``; no engine's query names the group column.
     """
+    from .data.engines.sources import check_source, resolve_source
     from .rehearsal import NOTE_DIFFERS_FROM_LOCK, NOTE_NOT_LOCKED, compute_rehearsal
 
     loaded = load_plan(Path(plan))
-    data_path = Path(data)
-    if not data_path.is_file():
-        raise BadInput(f"{data_path}: no such data file")
+    source, source_notes = resolve_source(loaded.path, loaded.model, data)
+    check_source(source)
     _finish_stopped_writes(loaded.path)
     doc = audit.read_lock(audit.lock_path(loaded.path))
     deviations: list[Departure] = []
     notes: list[Note] = []
     version = None
     env = environment()
+    notes.extend(source_notes)
     if doc is None:
         notes.append(Note(NOTE_NOT_LOCKED, "the plan is not locked: a rehearsal needs no lock, "
                           "but lock the plan before the run on unblinded data"))
@@ -496,8 +504,8 @@ def rehearse(plan: str | Path, data: str | Path, *, out: str | Path | None = Non
         check_out_path(loaded.path, out_path)
     results = compute_rehearsal(
         plan_path=loaded.path, plan=loaded.model, fingerprint=loaded.fingerprint,
-        version=version, data_path=data_path, actor=resolve_actor(actor), environment=env,
-        deviations=deviations, notes=notes,
+        version=version, data_path=None, actor=resolve_actor(actor), environment=env,
+        deviations=deviations, notes=notes, source=source, engine=engine,
     )
     return publish(loaded.path, out_path, results, numbered=out is None, action="rehearse")
 

@@ -48,7 +48,8 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("name", help="writes NAME.key (private, mode 0600) and NAME.pub")
     c = add("run", "run the locked plan on the data and write a report folder", writes=True)
     c.add_argument("plan")
-    c.add_argument("data")
+    c.add_argument("data", nargs="?", help="a data file or glob (default: the plan's data.source)")
+    _engine_option(c)
     c.add_argument("--out", help="the report folder to create (must not exist or be empty)")
     c.add_argument("--accept-deviation", metavar="REASON",
                    help="run despite a missing or changed lock or an override, recording REASON")
@@ -64,8 +65,9 @@ def _parser() -> argparse.ArgumentParser:
     c = add("rehearse", "a blinded dry run: never reads the group column, checks the data "
             "and every step, and writes pooled figures and a data dictionary only", writes=True)
     c.add_argument("plan")
-    c.add_argument("data")
+    c.add_argument("data", nargs="?", help="a data file or glob (default: the plan's data.source)")
     c.add_argument("--out", help="the report folder to create (must not exist or be empty)")
+    _engine_option(c)
     c = add("verify", "check the lock, the audit log and every report, from the files alone")
     c.add_argument("plan")
     c.add_argument("--expect", metavar="FINGERPRINT",
@@ -86,6 +88,14 @@ def _parser() -> argparse.ArgumentParser:
     c = add("demo", "write, lock and run an invented demonstration study", writes=True)
     c.add_argument("dir", nargs="?", default="prespec-demo")
     return p
+
+
+def _engine_option(cmd: argparse.ArgumentParser) -> None:
+    from .data.engines.base import ENGINE_NAMES
+
+    cmd.add_argument("--engine", choices=ENGINE_NAMES, default="auto",
+                     help="what reduces the data to count tables (default auto: pandas for a "
+                     "small file, duckdb for a large file or a glob, sql for a database)")
 
 
 def _number(text: str) -> float:
@@ -167,6 +177,14 @@ def _progress_bar(verb: str = "simulating") -> Any:
     return show
 
 
+def _reduction_bar() -> Any:
+    """The progress of a long reduction (percent done), on a terminal only."""
+    bar = _progress_bar("counting")
+    if bar is None:
+        return None
+    return lambda percent: bar("the data", int(percent), 100)
+
+
 def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "check":
         res = api.check(args.plan)
@@ -202,7 +220,8 @@ def _dispatch(args: argparse.Namespace) -> int:
 
         out = api.run(args.plan, args.data, out=args.out, actor=args.actor,
                       accept_deviation=args.accept_deviation, overrides=_overrides(args),
-                      look=args.look, progress=_progress_bar("preparing"))
+                      look=args.look, engine=args.engine, progress=_progress_bar("preparing"),
+                      counting=_reduction_bar())
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
         for hyp in out.results["hypotheses"]:
@@ -220,7 +239,8 @@ def _dispatch(args: argparse.Namespace) -> int:
                   f"{fam['members_total']} members flagged ({fam['method']} at {fam['level']:g})")
         print(out.folder)
     elif args.command == "rehearse":
-        out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor)
+        out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor,
+                           engine=args.engine)
         _print_rehearsal(out.results)
         print(out.folder)
     elif args.command == "verify":

@@ -6,7 +6,6 @@ that order.
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
@@ -16,9 +15,10 @@ from . import audit
 from .analysis import analyse, group_summaries
 from .caution import CAUTION
 from .data import Prepared, file_sha256, read_data
+from .data.engines.base import DataSource
 from .departures import Departure, Note
 from .errors import BadInput
-from .families import analyse_families, ordinary_plan, prepare_run
+from .families import analyse_families, ordinary_plan, prepare_run, templates
 
 
 def default_folder(plan_path: Path, kind: str) -> Path:
@@ -108,7 +108,7 @@ def compute_results(
     plan: Any,
     fingerprint: str,
     version: int | None,
-    data_path: Path,
+    data_path: Path | None,
     actor: str,
     environment: dict[str, str],
     deviations: list[Departure],
@@ -116,17 +116,35 @@ def compute_results(
     previous_data: str | None,
     looks: Any = None,
     progress: Callable[[str, int, int], None] | None = None,
+    source: DataSource | None = None,
+    engine: str = "auto",
+    counting: Callable[[float], None] | None = None,
 ) -> dict[str, Any]:
     """Read the data, reduce it, run the statistics: the results.json document (not written).
 
-    ``looks`` (a :class:`prespec.looks.LookRun`) makes it the run of an interim look or of the
-    final analysis of a plan with looks (``looks.py``). Family templates (``over``) are run per
-    level (:mod:`prespec.families`) and listed under ``families``; the ordinary hypotheses are
-    computed as before. ``progress(what, done, total)`` is called as a family's levels are
-    prepared."""
-    frame = read_data(data_path)
-    data_hash = file_sha256(data_path)
-    prepared, family_data = prepare_run(frame, plan, data_path, progress)
+    ``source`` (default: the file ``data_path``) is reduced by ``engine`` (``auto``: by the
+    source's kind and size); the engine and its query are recorded in the document;
+    ``counting(percent)`` reports a long reduction. ``looks`` (a
+    :class:`prespec.looks.LookRun`) makes it the run of an interim look or of the final
+    analysis of a plan with looks (``looks.py``). Family templates (``over``) are run per level
+    (:mod:`prespec.families`) and listed under ``families``; ``progress(what, done, total)`` is
+    called as a family's levels are prepared."""
+    from .data.engines.pipeline import count_source
+    from .data.engines.sources import data_file_field
+
+    if source is None:
+        source = DataSource("file", str(data_path), str(data_path))
+    family_data: list[Any] = []
+    if templates(plan):
+        path = family_file(source, engine)
+        frame = read_data(path)
+        data_hash = file_sha256(path)
+        prepared, family_data = prepare_run(frame, plan, path, progress)
+        used_engine, query = "pandas", None
+    else:
+        counted = count_source(plan, source, engine=engine, progress=counting)
+        data_hash, prepared = counted.data_hash, counted.prepared
+        used_engine, query = counted.engine, counted.query
     deviations = list(deviations)
     if previous_data is not None and previous_data != data_hash:
         deviations.append(
@@ -160,7 +178,7 @@ def compute_results(
         fingerprint=fingerprint,
         version=version,
         data_hash=data_hash,
-        data_file=os.path.relpath(data_path.resolve(), plan_path.parent.resolve()),
+        data_file=data_file_field(plan_path, source),
         actor=actor,
         environment=environment,
         prepared=prepared,
@@ -170,4 +188,26 @@ def compute_results(
     )
     if family_data:
         results["families"] = families
-    return results
+    return with_engine(results, used_engine, query)
+
+
+def family_file(source: DataSource, engine: str) -> Path:
+    """The single data file a plan with families is read from (the pandas engine)."""
+    if source.kind != "file" or engine not in ("auto", "pandas"):
+        raise BadInput(f"{source.shown}: a plan with families (over:) is counted by the pandas "
+                       "engine from one data file in this version; give one file and "
+                       "--engine pandas (or auto)")
+    return Path(source.location)
+
+
+def with_engine(results: dict[str, Any], engine: str, query: str | None) -> dict[str, Any]:
+    """``engine`` beside the provenance fields, and the ``query`` it sent (None for pandas)."""
+    out: dict[str, Any] = {}
+    for key, value in results.items():
+        out[key] = value
+        if key == "data_file":
+            out["engine"] = engine
+            out["query"] = query
+    return out
+
+

@@ -28,13 +28,14 @@ import pandas as pd
 
 from .analysis import _follow_ups, analyse, compute_hypothesis
 from .caution import CAUTION
-from .data import Prepared, file_sha256, read_data
+from .data import Prepared
+from .data.engines.base import DataSource
 from .data.families import FamilyData
 from .departures import Departure, Note
 from .dictionary import data_dictionary, uses, write_dictionary_csv
 from .errors import BadInput
-from .execute import build_results, provenance
-from .families import analyse_families, ordinary_plan, prepare_run, rehearsal_families
+from .execute import build_results, family_file, provenance, with_engine
+from .families import analyse_families, ordinary_plan, prepare_run, rehearsal_families, templates
 from .stats import intervals
 
 #: The name of the rehearsal's pooled table in ``tables/``.
@@ -262,28 +263,40 @@ def compute_rehearsal(
     plan: Any,
     fingerprint: str,
     version: int | None,
-    data_path: Path,
+    data_path: Path | None,
     actor: str,
     environment: dict[str, str],
     deviations: list[Departure],
     notes: list[Note],
+    source: DataSource | None = None,
+    engine: str = "auto",
 ) -> dict[str, Any]:
     """Read the data without the group column, rehearse the run, and build the pooled
-    results.json document of a rehearsal (not written)."""
-    source = str(data_path)
-    frame = blinded_frame(read_data(data_path), plan, str(plan_path))
-    data_hash = file_sha256(data_path)
-    dictionary = data_dictionary(frame, plan, source)
+    results.json document of a rehearsal (not written). ``source`` (default: the file
+    ``data_path``) is read by ``engine``; no engine is asked for the group column."""
+    from .data.engines.pipeline import blinded_rows
+    from .data.engines.sources import data_file_field
+
+    if source is None:
+        source = DataSource("file", str(data_path), str(data_path))
+    blinded_frame(pd.DataFrame(), plan, str(plan_path))  # refuses a plan that reads the group
+    if templates(plan):
+        family_file(source, engine)  # families: one file, the pandas engine
+    read = blinded_rows(plan, source, engine=engine)
+    frame = blinded_frame(read.frame, plan, str(plan_path))
+    data_hash = read.data_hash
+    source_name = source.shown
+    dictionary = data_dictionary(frame, plan, source_name)
     groups = list(plan.data.groups)
     frame = frame.assign(**{plan.data.group: dummy_allocation(
         len(frame.index), groups, plan.data.planned_n, _fresh_generator())})
-    prepared, family_data = prepare_run(frame, plan, source)
+    prepared, family_data = prepare_run(frame, plan, source_name)
     del frame  # the dummy labels go no further than the dummy run
 
     level = 1.0 - plan.alpha
     pooled = pooled_outcomes(prepared, level)
     shortfalls, planned_total = _shortfalls(plan, pooled)
-    data_file = os.path.relpath(data_path.resolve(), plan_path.parent.resolve())
+    data_file = data_file_field(plan_path, source)
     common = {"fingerprint": fingerprint, "version": version, "data_hash": data_hash,
               "data_file": data_file, "actor": actor, "environment": environment}
     executed, step_notes = _dummy_run(plan=ordinary_plan(plan), prepared=prepared,
@@ -303,9 +316,9 @@ def compute_rehearsal(
     all_notes += [n for n in prepared.notes if n.code in _POOLED_NOTE_CODES]
     all_notes += step_notes
     return {
-        **provenance(kind="rehearsal", plan=plan, fingerprint=fingerprint, version=version,
-                     data_hash=data_hash, data_file=data_file, actor=actor,
-                     environment=environment),
+        **with_engine(provenance(kind="rehearsal", plan=plan, fingerprint=fingerprint,
+                                 version=version, data_hash=data_hash, data_file=data_file,
+                                 actor=actor, environment=environment), read.engine, read.query),
         "blinded": True,
         "population": {
             "rows_read": prepared.rows_read,

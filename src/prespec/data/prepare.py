@@ -9,6 +9,7 @@ sample-size shortfalls).
 from __future__ import annotations
 
 from collections import Counter
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -21,6 +22,10 @@ from ..errors import DataError
 from ..matching import ValueSet, as_number, as_text, is_blank
 
 _SHOW = 5  # how many offending values an error message lists
+# A frame with this column is weighted: each row stands for that many source rows (an engine's
+# aggregate); with KEEP_COLUMN it also says whether those rows pass the population filter.
+WEIGHT_COLUMN = "__prespec_rows__"
+KEEP_COLUMN = "__prespec_keep__"
 
 
 @dataclass(frozen=True)
@@ -119,6 +124,37 @@ def _listing(values: Counter[str]) -> str:
     return shown + (f" and {len(items) - _SHOW} more" if len(items) > _SHOW else "")
 
 
+@dataclass(frozen=True)
+class _Rows:
+    """How rows are counted and named: one each (a full frame: errors name file lines) or by
+    ``WEIGHT_COLUMN`` (an engine's aggregate: errors name up to five ids via ``locate``)."""
+
+    weights: np.ndarray | None
+    line_offset: int
+    locate: Callable[[np.ndarray], list[str]] | None = None
+
+    def count(self, mask: np.ndarray) -> int:
+        return int(mask.sum()) if self.weights is None else int(self.weights[mask].sum())
+
+    def where(self, mask: np.ndarray) -> str:
+        """"rows 2, 5" (file lines), or "ids 'P1', 'P7'" in an aggregate."""
+        if self.weights is None:
+            return "rows " + ", ".join(map(str, np.flatnonzero(mask)[:_SHOW] + self.line_offset))
+        ids = self.locate(mask) if self.locate is not None else []
+        return ("ids " + ", ".join(repr(i) for i in ids[:_SHOW])) if ids else _rows(
+            self.count(mask))
+
+    def found(self, cells: pd.Series, mask: np.ndarray, label: Any = None) -> Counter[str]:
+        """The text of the cells under ``mask`` (``label`` maps a cell), counted by row."""
+        label = label or as_text
+        if self.weights is None:
+            return Counter(label(c) for c in cells[mask])
+        found: Counter[str] = Counter()
+        for cell, weight in zip(cells[mask], self.weights[mask], strict=True):
+            found[label(cell)] += int(weight)
+        return found
+
+
 def _per_unique(column: pd.Series, fn: Any) -> np.ndarray:
     """Apply ``fn`` once per distinct cell and spread the answers back over the rows."""
     codes, uniques = pd.factorize(column, use_na_sentinel=True)
@@ -182,15 +218,9 @@ def _check_ids(frame: pd.DataFrame, id_column: str, source: str, line_offset: in
         )
 
 
-def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
-            check_ids: bool = True) -> Prepared:
-    """Reduce ``frame`` to count tables as ``plan`` (a validated plan model) prescribes.
-
-    ``check_ids=False`` when the caller has checked the ids already (a family checks them
-    within each level, at once for all levels)."""
-    source = str(source)
+def needed_columns(plan: Any) -> dict[str, str]:
+    """Every column the reduction reads, in first-use order, with the plan key that names it."""
     spec = plan.data
-    line_offset = 2 if source.lower().endswith((".csv", ".txt")) else 1
     needed = {spec.id: "data.id", spec.group: "data.group"}
     for index, cond in enumerate(spec.include, start=1):
         needed.setdefault(cond.column, f"data.include[{index}]")
@@ -200,23 +230,50 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
     for (_, columns), hyp_id in stratified.items():
         for column in columns:
             needed.setdefault(column, f"hypotheses.{hyp_id}.strata")
-    with_events = [h for h in plan.hypotheses if _intercurrent(h)]
-    for hyp in with_events:
+    for hyp in plan.hypotheses:
         for j, ice in enumerate(_intercurrent(hyp), start=1):
             where = f"hypotheses.{hyp.id}.estimand.intercurrent[{j}]"
             needed.setdefault(ice.column, f"{where}.column")
             if ice.strategy == "while-on-treatment" and ice.outcome_column:
                 needed.setdefault(ice.outcome_column, f"{where}.outcome_column")
-    _check_columns(frame, needed, source)
-    if check_ids:
-        _check_ids(frame, spec.id, source, line_offset)
+    return needed
 
-    rows_read = len(frame.index)
-    keep = np.ones(rows_read, dtype=bool)
-    for cond in spec.include:
-        op, arg = cond.op()
-        keep &= _per_unique(frame[cond.column], _condition(op, arg)).astype(bool)
-    excluded_by_filter = int((~keep).sum())
+
+def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
+            locate: Callable[[np.ndarray], list[str]] | None = None,
+            check_ids: bool = True) -> Prepared:
+    """Reduce ``frame`` to count tables as ``plan`` (a validated plan model) prescribes.
+
+    ``check_ids=False`` when the caller has checked the ids already (a family checks them
+    within each level, at once for all levels).
+
+    A frame with ``WEIGHT_COLUMN`` is an engine's aggregate (``engines/base.py``): its rows
+    are counted by weight, its ``KEEP_COLUMN`` is the population filter, and the columns and
+    ids were checked by the engine; ``locate`` names the ids behind its rows in errors.
+    """
+    source = str(source)
+    spec = plan.data
+    line_offset = 2 if source.lower().endswith((".csv", ".txt")) else 1
+    weighted = WEIGHT_COLUMN in frame.columns
+    at = _Rows(frame[WEIGHT_COLUMN].to_numpy(dtype=np.int64) if weighted else None,
+               line_offset, locate)
+    needed = needed_columns(plan)
+    stratified = {(h.outcome, tuple(h.strata)): h.id for h in plan.hypotheses if h.strata}
+    with_events = [h for h in plan.hypotheses if _intercurrent(h)]
+    if not weighted:
+        _check_columns(frame, needed, source)
+        if check_ids:
+            _check_ids(frame, spec.id, source, line_offset)
+
+    rows_read = at.count(np.ones(len(frame.index), dtype=bool))
+    keep = np.ones(len(frame.index), dtype=bool)
+    if KEEP_COLUMN in frame.columns:
+        keep = frame[KEEP_COLUMN].to_numpy(dtype=bool)
+    else:
+        for cond in spec.include:
+            op, arg = cond.op()
+            keep &= _per_unique(frame[cond.column], _condition(op, arg)).astype(bool)
+    excluded_by_filter = at.count(~keep)
 
     groups = list(spec.groups)
     group_of = {as_text(g): g for g in groups}
@@ -233,13 +290,12 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
     deviations: list[Departure] = []
     notes: list[Note] = []
     if stray.any():
-        found = Counter(
-            "(blank)" if is_blank(c) else as_text(c) for c in frame[spec.group][stray]
-        )
+        found = at.found(frame[spec.group], stray,
+                         lambda c: "(blank)" if is_blank(c) else as_text(c))
         deviations.append(
             Departure(
                 "unexpected-group",
-                f"{_rows(int(stray.sum()))} left out: column {spec.group!r} holds values "
+                f"{_rows(at.count(stray))} left out: column {spec.group!r} holds values "
                 f"outside data.groups: {_listing(found)}",
                 ", ".join(groups),
                 ", ".join(sorted(found)),
@@ -247,24 +303,24 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
         )
     analysed_rows = keep & in_group
     kinds = {
-        name: _classify_outcome(frame, name, outcome, analysed_rows, source, line_offset,
+        name: _classify_outcome(frame, name, outcome, analysed_rows, source, at,
                                 deviations, blank_error=_blanks_matter(plan, name))
         for name, outcome in plan.outcomes.items()
     }
     outcomes = {
-        name: _tally(name, kinds[name], group_col, analysed_rows, groups, outcome.missing)
+        name: _tally(name, kinds[name], group_col, analysed_rows, groups, outcome.missing, at)
         for name, outcome in plan.outcomes.items()
     }
     for name, counts in outcomes.items():
         _missing_note(name, plan.outcomes[name].missing, counts, notes)
     strata = {
         key: _strata(frame, key, kinds[key[0]], group_col, analysed_rows, groups,
-                     plan.outcomes[key[0]].missing, notes)
+                     plan.outcomes[key[0]].missing, notes, at)
         for key in stratified
     }
     by_hypothesis = {
         hyp.id: _hypothesis_counts(frame, hyp, plan, kinds[hyp.outcome], group_col,
-                                   analysed_rows, source, line_offset, deviations, notes)
+                                   analysed_rows, source, at, deviations, notes)
         for hyp in with_events
     }
     if spec.planned_n:
@@ -284,8 +340,8 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
     return Prepared(
         rows_read=rows_read,
         excluded_by_filter=excluded_by_filter,
-        excluded_group=int(stray.sum()),
-        analysed=int(analysed_rows.sum()),
+        excluded_group=at.count(stray),
+        analysed=at.count(analysed_rows),
         outcomes=outcomes,
         deviations=tuple(deviations),
         notes=tuple(notes),
@@ -314,7 +370,7 @@ def _blanks_matter(plan: Any, name: str) -> bool:
 
 
 def _hypothesis_counts(frame: pd.DataFrame, hyp: Any, plan: Any, plain: np.ndarray,
-                       group_col: np.ndarray, rows: np.ndarray, source: str, line_offset: int,
+                       group_col: np.ndarray, rows: np.ndarray, source: str, at: _Rows,
                        deviations: list[Departure], notes: list[Note]) -> HypothesisCounts:
     """The hypothesis's counts after its estimand's strategies (ICH E9(R1)).
 
@@ -337,34 +393,33 @@ def _hypothesis_counts(frame: pd.DataFrame, hyp: Any, plan: Any, plain: np.ndarr
         if ice.strategy == "composite":
             kind[applies] = ice.counts_as
         elif ice.strategy == "while-on-treatment":
-            before = _classify_outcome(frame, name, outcome, applies, source, line_offset,
+            before = _classify_outcome(frame, name, outcome, applies, source, at,
                                        deviations, column=ice.outcome_column,
                                        where="the outcome before an intercurrent event")
             kind[applies] = before[applies]
         decided |= happened
         counts.append(IntercurrentCount(
             ice.event, ice.column, ice.strategy,
-            {g: int((happened & (group_col == g)).sum()) for g in groups}, int(blank.sum())))
+            {g: at.count(happened & (group_col == g)) for g in groups}, at.count(blank)))
         if blank.any():
             notes.append(Note("intercurrent-blank", f"{hyp.id}: column {ice.column!r} "
                               f"(intercurrent event {ice.event!r}) is blank in "
-                              f"{_rows(int(blank.sum()))}, read as: it did not happen"))
+                              f"{_rows(at.count(blank))}, read as: it did not happen"))
     still_blank = rows & (kind == "blank")
     if outcome.missing == "error" and still_blank.any():
-        where = np.flatnonzero(still_blank)[:_SHOW] + line_offset
         raise DataError(
             f"{source}: hypotheses.{hyp.id}: outcome {name!r} (column {outcome.column!r}) is "
-            f"blank in {int(still_blank.sum())} analysed rows that no intercurrent event "
-            f"decides (rows {', '.join(map(str, where))}); missing: error"
+            f"blank in {at.count(still_blank)} analysed rows that no intercurrent event "
+            f"decides ({at.where(still_blank)}); missing: error"
         )
-    tally = _tally(name, kind, group_col, rows, groups, outcome.missing)
+    tally = _tally(name, kind, group_col, rows, groups, outcome.missing, at)
     if any(ice.strategy != "treatment-policy" for ice in _intercurrent(hyp)):
         _missing_note(name, outcome.missing, tally, notes, who=f"{hyp.id} (after its "
                       "estimand's strategies)")
     strata = None
     if getattr(hyp, "strata", None):
         strata = _strata(frame, (name, tuple(hyp.strata)), kind, group_col, rows, groups,
-                         outcome.missing, [])
+                         outcome.missing, [], at)
     return HypothesisCounts(hyp.id, tally, tuple(counts), strata)
 
 
@@ -374,7 +429,7 @@ def _classify_outcome(
     outcome: Any,
     rows: np.ndarray,
     source: str,
-    line_offset: int,
+    at: _Rows,
     deviations: list[Departure],
     *,
     column: str | None = None,
@@ -405,17 +460,16 @@ def _classify_outcome(
     unmapped_rows = rows & (kind == "unmapped")
     blank_rows = rows & (kind == "blank")
     if unmapped_rows.any():
-        found = Counter(as_text(c) for c in cells[unmapped_rows])
+        found = at.found(cells, unmapped_rows)
         if outcome.missing == "error":
-            lines = np.flatnonzero(unmapped_rows)[:_SHOW] + line_offset
             raise DataError(
                 f"{source}: outcome {name!r} ({label}) has values that are "
-                f"neither event nor no_event: {_listing(found)} (rows "
-                f"{', '.join(map(str, lines))}); missing: error"
+                f"neither event nor no_event: {_listing(found)} "
+                f"({at.where(unmapped_rows)}); missing: error"
             )
         departure = Departure(
             "unmapped-outcome-value",
-            f"outcome {name!r} ({label}): {_rows(int(unmapped_rows.sum()))} "
+            f"outcome {name!r} ({label}): {_rows(at.count(unmapped_rows))} "
             f"with values that are neither event nor no_event: {_listing(found)}; "
             f"treated by the missing rule ({outcome.missing})",
             "event: " + ", ".join(map(as_text, outcome.event))
@@ -425,25 +479,24 @@ def _classify_outcome(
         if departure not in deviations:
             deviations.append(departure)
     if blank_rows.any() and outcome.missing == "error" and blank_error:
-        lines = np.flatnonzero(blank_rows)[:_SHOW] + line_offset
         raise DataError(
             f"{source}: outcome {name!r} ({label}) is blank in "
-            f"{int(blank_rows.sum())} analysed rows (rows {', '.join(map(str, lines))}); "
+            f"{at.count(blank_rows)} analysed rows ({at.where(blank_rows)}); "
             "missing: error"
         )
     return kind
 
 
 def _tally(name: str, kind: np.ndarray, group_col: np.ndarray, rows: np.ndarray,
-           groups: list[str], missing: str) -> OutcomeCounts:
+           groups: list[str], missing: str, at: _Rows) -> OutcomeCounts:
     """Events and totals per group over ``rows``, blanks and unmapped values by the rule."""
     counts = []
     for group in groups:
         in_group = rows & (group_col == group)
-        n_event = int((in_group & (kind == "event")).sum())
-        n_no = int((in_group & (kind == "no-event")).sum())
-        n_blank = int((in_group & (kind == "blank")).sum())
-        n_unmapped = int((in_group & (kind == "unmapped")).sum())
+        n_event = at.count(in_group & (kind == "event"))
+        n_no = at.count(in_group & (kind == "no-event"))
+        n_blank = at.count(in_group & (kind == "blank"))
+        n_unmapped = at.count(in_group & (kind == "unmapped"))
         if missing == "event":
             n_event += n_blank + n_unmapped
         elif missing == "no-event":
@@ -477,7 +530,7 @@ def _missing_note(name: str, missing: str, counts: OutcomeCounts, notes: list[No
 
 def _strata(frame: pd.DataFrame, key: tuple[str, tuple[str, ...]], kind: np.ndarray,
             group_col: np.ndarray, rows: np.ndarray, groups: list[str], missing: str,
-            notes: list[Note]) -> tuple[Stratum, ...]:
+            notes: list[Note], at: _Rows) -> tuple[Stratum, ...]:
     """The count tables of each stratum (the distinct values of the columns), sorted.
 
     Rows with a blank stratification value belong to no stratum and are left out of the
@@ -491,7 +544,7 @@ def _strata(frame: pd.DataFrame, key: tuple[str, tuple[str, ...]], kind: np.ndar
         blank |= np.array([x is None for x in lab])
     if (rows & blank).any():
         notes.append(Note("blank-stratum", f"outcome {name!r}, strata {', '.join(columns)}: "
-                          f"{_rows(int((rows & blank).sum()))} with a blank stratum value left "
+                          f"{_rows(at.count(rows & blank))} with a blank stratum value left "
                           "out of the stratified analysis"))
     rows = rows & ~blank
     combined = np.array(["\x1f".join(parts) if rows[i] else "" for i, parts in
@@ -499,6 +552,6 @@ def _strata(frame: pd.DataFrame, key: tuple[str, tuple[str, ...]], kind: np.ndar
     values = sorted({combined[i] for i in np.flatnonzero(rows)})
     return tuple(
         Stratum(tuple(v.split("\x1f")),
-                _tally(name, kind, group_col, rows & (combined == v), groups, missing))
+                _tally(name, kind, group_col, rows & (combined == v), groups, missing, at))
         for v in values
     )

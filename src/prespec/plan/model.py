@@ -177,6 +177,28 @@ class Condition(_Model):
         raise ValueError(f"condition on {self.column!r} has no operator")
 
 
+def _data_source(value: Any) -> Any:
+    """A URL in ``data.source`` must not hold a password (``password_from`` names it)."""
+    if not isinstance(value, str) or "://" not in value:
+        return value
+    from urllib.parse import parse_qs, urlsplit
+
+    parts = urlsplit(value)
+    query = {k.lower() for k in parse_qs(parts.query, keep_blank_values=True)}
+    if parts.password is not None or "password" in query:
+        raise problem("the URL holds a password; keep it out of the plan and name the "
+                      "environment variable that holds it in data.password_from")
+    return value
+
+
+def _env_name(value: Any) -> Any:
+    import re
+
+    if isinstance(value, str) and not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", value):
+        raise problem(f"{show(value)} is not an environment variable name")
+    return value
+
+
 class DataSpec(_Model):
     """Which columns hold the unit id and the group, the groups, and the population."""
 
@@ -186,6 +208,33 @@ class DataSpec(_Model):
     reference: str | None = Field(default=None, description="default comparator; first group")
     include: list[Condition] = Field(default=[], description="every condition must hold")
     planned_n: dict[str, Annotated[int, Field(gt=0)]] | None = None
+    source: Annotated[str | None, BeforeValidator(_data_source)] = Field(
+        default=None, description="the data: a file path or glob relative to the plan's folder, "
+        "or an SQLAlchemy URL without a password")
+    table: str | None = Field(default=None, description="the table of a database source")
+    password_from: Annotated[str | None, BeforeValidator(_env_name)] = Field(
+        default=None, description="the environment variable that holds the database password")
+
+    @model_serializer(mode="wrap")
+    def _without_unused_source(self, handler: Any) -> Any:
+        """A plan without a data source resolves as before these keys existed (its
+        fingerprint unchanged)."""
+        out = handler(self)
+        for key in ("source", "table", "password_from"):
+            if isinstance(out, dict) and out.get(key) is None:
+                out.pop(key, None)
+        return out
+
+    @model_validator(mode="after")
+    def _source_keys(self) -> DataSpec:
+        is_url = self.source is not None and "://" in self.source
+        if self.table is not None and not is_url:
+            raise problem("data.table goes with a database URL in data.source")
+        if self.password_from is not None and not is_url:
+            raise problem("data.password_from goes with a database URL in data.source")
+        if is_url and not self.table:
+            raise problem("data.source is a database URL: name the table in data.table")
+        return self
 
     @model_validator(mode="before")
     @classmethod

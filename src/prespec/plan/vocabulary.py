@@ -155,7 +155,7 @@ AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
 # named so that a plan using them is told they are not available yet, not that they are unknown.
 LATER_KEYS: dict[str, frozenset[str]] = {
     "plan": frozenset(),
-    "data": frozenset({"source", "table"}),
+    "data": frozenset(),
     "hypothesis": frozenset(),
 }
 

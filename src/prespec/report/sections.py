@@ -89,6 +89,7 @@ def header(results: Mapping[str, Any]) -> str:
         ("Plan version", _optional(results, "plan_version")),
         ("Data hash", _optional(results, "data")),
         ("Data file", _optional(results, "data_file")),
+        *([("Engine", _optional(results, "engine"))] if "engine" in results else []),
         ("Time (UTC)", _optional(results, "created")),
         ("Actor", _optional(results, "actor")),
         ("Alpha", _optional(results, "alpha")),

@@ -1,0 +1,235 @@
+"""The ``duckdb`` engine: files (CSV, Parquet, a glob of either) counted by embedded DuckDB.
+
+CSV is read with every column as text (header, UTF-8, strict); Parquet keeps its types. A glob
+reads every matching file as one table, columns matched by name. The reduction runs out of
+core: DuckDB spills to a temporary folder beyond its memory limit.
+"""
+
+from __future__ import annotations
+
+import tempfile
+import threading
+from collections.abc import Callable, Iterator
+from typing import Any
+
+import pandas as pd
+
+from ...errors import DataError
+from .aggregate import AggregatingEngine
+from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, DataSource
+from .compiler import (
+    BLANK_COLUMN,
+    HASH_COLUMN,
+    ROWS_COLUMN,
+    SET_COLUMN,
+    Query,
+    compile_cells,
+    compile_mapping,
+    count_inputs,
+    quote_identifier,
+)
+
+MEMORY_LIMIT = "768MB"  # DuckDB's own limit; beyond it, it spills to disk
+_KINDS = {"VARCHAR": "text", "BOOLEAN": "bool", "DOUBLE": "float", "FLOAT": "float",
+          "REAL": "float"}
+_INTEGERS = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT",
+             "UINTEGER", "UBIGINT", "UHUGEINT")
+
+
+def _kind(duck_type: str) -> str:
+    name = duck_type.upper()
+    if name in _INTEGERS:
+        return "integer"
+    return _KINDS.get(name, "other")
+
+
+def _one_line(exc: BaseException) -> str:
+    text = str(exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
+class DuckDBEngine(AggregatingEngine):
+    """One in-memory DuckDB connection over the files of ``source``."""
+
+    name = "duckdb"
+    dialect = "duckdb"
+
+    def __init__(self, source: DataSource,
+                 progress: Callable[[float], None] | None = None) -> None:
+        import duckdb
+
+        super().__init__(source)
+        self.progress = progress
+        self._temp = tempfile.TemporaryDirectory(prefix="prespec-duckdb-")
+        self.con = duckdb.connect(config={"memory_limit": MEMORY_LIMIT,
+                                          "temp_directory": self._temp.name,
+                                          "preserve_insertion_order": False})
+        self._kinds: dict[str, str] | None = None
+        self._checked = False
+        self._shown = False
+
+    def close(self) -> None:
+        self.con.close()
+        self._temp.cleanup()
+
+    # -- the source ---------------------------------------------------------------------------
+    def _check_files(self) -> None:
+        if self._checked:
+            return
+        path = self.source.path
+        if self.source.kind == "file":
+            if not path.exists():
+                raise DataError(f"{self.source.shown}: no such data file")
+            if path.is_dir():
+                raise DataError(f"{self.source.shown}: is a folder, not a data file")
+            if path.stat().st_size == 0:
+                raise DataError(f"{self.source.shown}: the data file is empty")
+        else:
+            import glob
+
+            files = sorted(glob.glob(self.source.location))
+            if not files:
+                raise DataError(f"{self.source.shown}: no data file matches")
+            for name in files:
+                suffix = name.lower().rsplit(".", 1)[-1]
+                if suffix != ("parquet" if self.source.is_parquet else "csv") and not (
+                        suffix == "pq" and self.source.is_parquet):
+                    raise DataError(f"{name}: a glob must match files of one format")
+        suffix = path.suffix.lower()
+        if suffix not in (".csv", ".txt", ".parquet", ".pq", ""):
+            raise DataError(f"{self.source.shown}: unknown data format {suffix!r} "
+                            "(use .csv or .parquet)")
+        self._checked = True
+
+    def relation(self, request: CountRequest | None = None) -> str:
+        self._check_files()
+        # union_by_name (columns matched by name across files) only for a glob: it slows
+        # the reading of a single file
+        union = ", union_by_name = true" if self.source.kind == "glob" else ""
+        if self.source.is_parquet:
+            return f"read_parquet($source{union})"
+        return (f"read_csv($source, header = true, all_varchar = true{union}, "
+                "strict_mode = true, encoding = 'utf-8', delim = ',', quote = '\"', "
+                "escape = '\"')")
+
+    def _params(self, query: Query) -> dict[str, Any]:
+        if "$source" not in query.text:
+            return dict(query.params)
+        return {**query.params, "source": self.source.location}
+
+    def column_kinds(self) -> dict[str, str]:
+        if self._kinds is None:
+            rel = self.relation()
+            described = self._run(f"DESCRIBE SELECT * FROM {rel}", {"source":
+                                                                   self.source.location})
+            self._kinds = {str(name).strip(): _kind(str(t)) for name, t in
+                           described[["column_name", "column_type"]].itertuples(index=False)}
+        return self._kinds
+
+    # -- running queries ----------------------------------------------------------------------
+    def _run(self, text: str, params: dict[str, Any]) -> pd.DataFrame:
+        import duckdb
+
+        stop, watcher = self._start_watch()
+        try:
+            return self.con.execute(text, params).df()
+        except (duckdb.Error, UnicodeDecodeError) as exc:
+            raise DataError(f"{self.source.shown}: cannot read the data "
+                            f"({_one_line(exc)})") from None
+        finally:
+            self._stop_watch(stop, watcher)
+
+    def _watch(self, stop: threading.Event) -> None:
+        shown = -1.0
+        while not stop.wait(0.25):
+            try:
+                done = float(self.con.query_progress())
+            except Exception:  # noqa: BLE001 - progress is best effort
+                return
+            if done >= 0 and done != shown and self.progress is not None:
+                shown = done
+                self._shown = True
+                self.progress(min(done, 100.0))
+
+    def reduction(self, request: CountRequest, relation: str, kinds: dict[str, str]
+                  ) -> tuple[pd.DataFrame, Query]:
+        """Two quick queries instead of one slow one. The ids: a 64-bit hash of each id's
+        trimmed text, sorted by numpy to find repeats (far quicker and smaller than a hash
+        table of millions of ids; a repeat is then named, or found a collision, by
+        ``duplicate_ids``). The counts: the raw cells grouped, then the filter and the
+        mappings applied once per distinct combination (``compile_mapping``)."""
+        import duckdb
+        import numpy as np
+
+        cells = compile_cells(request, relation, self.dialect, kinds)
+        ids = Query(f"SELECT {HASH_COLUMN}, {BLANK_COLUMN} FROM ({cells.text}) AS prespec_cells",
+                    cells.params, self.dialect)
+        q = [quote_identifier(c, self.dialect) for c in count_inputs(request)]
+        groups = Query(
+            f"SELECT {''.join(c + ', ' for c in q)}1 AS {SET_COLUMN}, "
+            f"CAST(NULL AS UBIGINT) AS {HASH_COLUMN}, COUNT(*) AS {ROWS_COLUMN}, "
+            f"0 AS {BLANK_COLUMN} FROM {relation}" + (f" GROUP BY {', '.join(q)}" if q else ""),
+            {}, self.dialect)
+        stop, watcher = self._start_watch()
+        try:
+            found = self.con.execute(ids.text, self._params(ids)).fetchnumpy()
+            self.blank_ids(request, int(np.asarray(found[BLANK_COLUMN]).sum()))
+            hashes = np.ma.getdata(found[HASH_COLUMN]) if np.ma.isMaskedArray(
+                found[HASH_COLUMN]) else np.asarray(found[HASH_COLUMN])
+            del found
+            hashes = np.array(hashes, dtype=np.uint64)  # a writable copy
+            hashes.sort()  # in place: 8 bytes a row
+            repeated = len(hashes) > 1 and bool((hashes[1:] == hashes[:-1]).any())
+            del hashes
+            if repeated:  # names the duplicates (or finds a collision: then nothing)
+                self.duplicate_ids(request, relation, kinds)
+            table = self.con.sql(groups.text, params=self._params(groups)).arrow()
+        except (duckdb.Error, UnicodeDecodeError) as exc:
+            raise DataError(f"{self.source.shown}: cannot read the data "
+                            f"({_one_line(exc)})") from None
+        finally:
+            self._stop_watch(stop, watcher)
+        if not hasattr(table, "num_rows"):  # a reader in some versions of DuckDB
+            table = table.read_all()
+        self.con.register("prespec_groups_table", table)
+        try:
+            query = compile_mapping(request, '"prespec_groups_table"', self.dialect, kinds)
+            frame = self.fetch(query)
+        finally:
+            self.con.unregister("prespec_groups_table")
+        frame = frame[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]].copy()
+        shown = Query(f"{ids.text};\n{groups.text};\n{query.text}",
+                      {**cells.params, **query.params}, self.dialect)
+        return self._weighted(frame, request), shown
+
+    def _start_watch(self) -> tuple[threading.Event, threading.Thread | None]:
+        stop = threading.Event()
+        watcher = None
+        if self.progress is not None:
+            watcher = threading.Thread(target=self._watch, args=(stop,), daemon=True)
+            watcher.start()
+        return stop, watcher
+
+    def _stop_watch(self, stop: threading.Event, watcher: threading.Thread | None) -> None:
+        stop.set()
+        if watcher is not None:
+            watcher.join()
+        if self._shown and self.progress is not None:  # a bar once shown ends at 100%
+            self._shown = False
+            self.progress(100.0)
+
+    def fetch(self, query: Query) -> pd.DataFrame:
+        frame = self._run(query.text, self._params(query))
+        return frame.astype(object).where(frame.notna(), None)
+
+    def stream_lines(self, query: Query) -> Iterator[list[str]]:
+        import duckdb
+
+        try:
+            result = self.con.execute(query.text, self._params(query))
+            while batch := result.fetchmany(100_000):
+                yield [row[0] for row in batch]
+        except (duckdb.Error, UnicodeDecodeError) as exc:
+            raise DataError(f"{self.source.shown}: cannot read the data "
+                            f"({_one_line(exc)})") from None
+
