@@ -84,9 +84,14 @@ class AggregatingEngine(Engine):
 
         (``reduce`` finds both in its one pass and calls ``duplicate_ids`` only when two rows
         share an id hash; this method is the plain two-query form of the same check.)"""
+        self.check_blank_ids(request, relation, kinds)
+        self.duplicate_ids(request, relation, kinds)
+
+    def check_blank_ids(self, request: CountRequest, relation: str,
+                        kinds: dict[str, str]) -> None:
+        """Counts the blank ids exactly (``compile_blank_ids``); an error if there are any."""
         blank = self.fetch(compile_blank_ids(request, relation, self.dialect, kinds))
         self.blank_ids(request, int(blank.iloc[0, 0]) if len(blank.index) else 0)
-        self.duplicate_ids(request, relation, kinds)
 
     @staticmethod
     def blank_ids(request: CountRequest, n_blank: int) -> None:

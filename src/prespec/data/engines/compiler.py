@@ -377,6 +377,33 @@ def compile_cells(request: CountRequest, relation: str, dialect: str,
     return Query(_cells(sql, request, relation), sql.params, dialect)
 
 
+def compile_id_hashes(request: CountRequest, relation: str, dialect: str,
+                      types: Mapping[str, str]) -> Query:
+    """One row per source row, one column HASH_COLUMN: the 64-bit hash of the id's trimmed
+    text (with the ``unique_within`` fields, as ``compile_cells``), and for every blank id
+    the hash of NULL (``compile_blank_hash``): nothing else is computed per row."""
+    sql = _Sql(dialect, types)
+    t = sql.ident("prespec_id_text")
+    text = sql.text(request.id)
+    if sql.kind(request.id) == "float":  # NaN is blank too
+        text = f"CASE WHEN {sql.blank(request.id)} THEN NULL ELSE {text} END"
+    key = f"NULLIF({t}, {sql.bind('')})"  # blank: NULL, or empty once trimmed
+    if request.unique_within:  # NULL || ... is NULL: a blank id still hashes as NULL
+        sep = sql.bind(FIELD_SEPARATOR)
+        key = f" || {sep} || ".join([key] + [sql.field(c) for c in request.unique_within])
+    within = "".join(f", {sql.ident(c)}" for c in dict.fromkeys(request.unique_within))
+    text = (f"SELECT {sql.hash(key)} AS {sql.ident(HASH_COLUMN)} FROM (SELECT "
+            f"{text} AS {t}{within} FROM {relation}) AS prespec_texts")
+    return Query(text, sql.params, dialect)
+
+
+def compile_blank_hash(dialect: str) -> Query:
+    """The hash ``compile_id_hashes`` gives a blank id (one row, column HASH_COLUMN)."""
+    sql = _Sql(dialect, {})
+    return Query(f"SELECT {sql.hash(f'CAST(NULL AS {sql.text_type})')} AS "
+                 f"{sql.ident(HASH_COLUMN)}", {}, dialect)
+
+
 def compile_mapping(request: CountRequest, relation: str, dialect: str,
                     types: Mapping[str, str]) -> Query:
     """The weighted frame from a relation of grouped raw cells (the columns of

@@ -23,7 +23,8 @@ from .compiler import (
     ROWS_COLUMN,
     SET_COLUMN,
     Query,
-    compile_cells,
+    compile_blank_hash,
+    compile_id_hashes,
     compile_mapping,
     count_inputs,
     quote_identifier,
@@ -46,6 +47,38 @@ def _kind(duck_type: str) -> str:
 def _one_line(exc: BaseException) -> str:
     text = str(exc).strip()
     return text.splitlines()[0] if text else type(exc).__name__
+
+
+_TOP_BIT = 1 << 63
+
+
+def _split_hashes(found: Any) -> list[Any]:
+    """The id hashes (a numpy array, maybe masked) as two writable uint64 arrays: below
+    2**63 and from it (disjoint ranges, so a repeat lies within one of them)."""
+    import numpy as np
+
+    hashes = np.asarray(np.ma.getdata(found), dtype=np.uint64)
+    high = hashes >= np.uint64(_TOP_BIT)
+    return [hashes[~high], hashes[high]]  # copies: sorted in place
+
+
+def _sort_check(hashes: Any, blank_hash: int) -> tuple[bool, bool]:
+    """Sorts ``hashes`` in place (numpy releases the GIL); (blank hash seen, any repeat)."""
+    import numpy as np
+
+    hashes.sort()
+    at = int(np.searchsorted(hashes, np.uint64(blank_hash)))
+    blank = at < len(hashes) and int(hashes[at]) == blank_hash
+    return blank, len(hashes) > 1 and bool((hashes[1:] == hashes[:-1]).any())
+
+
+def _check_hashes(halves: list[Any], blank_hash: int) -> tuple[bool, bool]:
+    """(the blank hash seen, a hash repeated) over ``halves``, sorted in two threads."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=len(halves)) as pool:
+        results = list(pool.map(lambda h: _sort_check(h, blank_hash), halves))
+    return any(b for b, _ in results), any(r for _, r in results)
 
 
 class DuckDBEngine(AggregatingEngine):
@@ -153,17 +186,16 @@ class DuckDBEngine(AggregatingEngine):
 
     def reduction(self, request: CountRequest, relation: str, kinds: dict[str, str]
                   ) -> tuple[pd.DataFrame, Query]:
-        """Two quick queries instead of one slow one. The ids: a 64-bit hash of each id's
-        trimmed text, sorted by numpy to find repeats (far quicker and smaller than a hash
-        table of millions of ids; a repeat is then named, or found a collision, by
-        ``duplicate_ids``). The counts: the raw cells grouped, then the filter and the
-        mappings applied once per distinct combination (``compile_mapping``)."""
+        """Two lean queries (measured quicker than one scan doing both: issue 7). The ids:
+        a 64-bit hash of each id's trimmed text and nothing else per row (a blank id hashes
+        as NULL does), split by the top bit and sorted by numpy in two threads to find
+        repeats; a repeat is then named, or found a collision, by ``duplicate_ids``, and the
+        blank hash, if seen, is confirmed by the exact count of blank ids. The counts: the
+        raw cells grouped, then the filter and the mappings applied once per distinct
+        combination (``compile_mapping``)."""
         import duckdb
-        import numpy as np
 
-        cells = compile_cells(request, relation, self.dialect, kinds)
-        ids = Query(f"SELECT {HASH_COLUMN}, {BLANK_COLUMN} FROM ({cells.text}) AS prespec_cells",
-                    cells.params, self.dialect)
+        ids = compile_id_hashes(request, relation, self.dialect, kinds)
         q = [quote_identifier(c, self.dialect) for c in count_inputs(request)]
         groups = Query(
             f"SELECT {''.join(c + ', ' for c in q)}1 AS {SET_COLUMN}, "
@@ -172,25 +204,23 @@ class DuckDBEngine(AggregatingEngine):
             {}, self.dialect)
         stop, watcher = self._start_watch()
         try:
-            found = self.con.execute(ids.text, self._params(ids)).fetchnumpy()
-            self.blank_ids(request, int(np.asarray(found[BLANK_COLUMN]).sum()))
-            hashes = np.ma.getdata(found[HASH_COLUMN]) if np.ma.isMaskedArray(
-                found[HASH_COLUMN]) else np.asarray(found[HASH_COLUMN])
+            blank_hash = int(self.con.execute(compile_blank_hash(self.dialect).text)
+                             .fetchone()[0])
+            found = self.con.execute(ids.text, self._params(ids)).fetchnumpy()[HASH_COLUMN]
+            halves = _split_hashes(found)
             del found
-            hashes = np.array(hashes, dtype=np.uint64)  # a writable copy
-            hashes.sort()  # in place: 8 bytes a row
-            repeated = len(hashes) > 1 and bool((hashes[1:] == hashes[:-1]).any())
-            del hashes
+            blanks, repeated = _check_hashes(halves, blank_hash)
+            del halves
+            if blanks:  # the exact count (0 when a non-blank id shares the blank hash)
+                self.check_blank_ids(request, relation, kinds)
             if repeated:  # names the duplicates (or finds a collision: then nothing)
                 self.duplicate_ids(request, relation, kinds)
-            table = self.con.sql(groups.text, params=self._params(groups)).arrow()
+            table = self.con.sql(groups.text, params=self._params(groups)).to_arrow_table()
         except (duckdb.Error, UnicodeDecodeError) as exc:
             raise DataError(f"{self.source.shown}: cannot read the data "
                             f"({_one_line(exc)})") from None
         finally:
             self._stop_watch(stop, watcher)
-        if not hasattr(table, "num_rows"):  # a reader in some versions of DuckDB
-            table = table.read_all()
         self.con.register("prespec_groups_table", table)
         try:
             query = compile_mapping(request, '"prespec_groups_table"', self.dialect, kinds)
@@ -199,7 +229,7 @@ class DuckDBEngine(AggregatingEngine):
             self.con.unregister("prespec_groups_table")
         frame = frame[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]].copy()
         shown = Query(f"{ids.text};\n{groups.text};\n{query.text}",
-                      {**cells.params, **query.params}, self.dialect)
+                      {**ids.params, **query.params}, self.dialect)
         return self._weighted(frame, request), shown
 
     def _start_watch(self) -> tuple[threading.Event, threading.Thread | None]:
