@@ -294,3 +294,90 @@ def test_whitespace_is_what_str_strip_removes() -> None:
 
     assert WHITESPACE == "".join(chr(c) for c in range(sys.maxunicode + 1) if chr(c).isspace())
     assert ("\u3000\t x \x1f\xa0").strip() == "x"  # Python's rule, which the SQL trim follows
+
+
+def _weights(reduction: object) -> dict:
+    frame = reduction.frame  # type: ignore[attr-defined]
+    return {tuple(r[:-1]): r[-1] for r in frame.astype(object).itertuples(index=False)}
+
+
+def test_an_id_repeated_in_other_cells_is_found(tmp_path: Path) -> None:
+    """The id scan sees every row, whatever its cells: pid 4 once in arm a with y 1, once in
+    arm b with y 0 (two different groups of the counts)."""
+    plan = load_plan(_write_plan(tmp_path, {
+        **HOSTILE_PLAN, "data": {"id": "pid", "group": "arm", "groups": ["a", "b"]},
+        "outcomes": {"ae": {"column": "y", "event": [1], "no_event": [0],
+                            "missing": "exclude"}},
+        "hypotheses": [{"id": "H1", "outcome": "ae", "compare": ["a", "b"],
+                        "test": "fisher-exact"}]})).model
+    csv = tmp_path / "ae.csv"
+    rows = [f"{i},{'ab'[i % 2]},{i % 3 == 0:d}" for i in range(1, 40)] + ["\t4 ,b,0"]
+    csv.write_text("pid,arm,y\n" + "\n".join(rows) + "\n", encoding="utf-8")
+    with pytest.raises(DataError, match=r"duplicate ids in column 'pid': '4' \(2 rows\)$"):
+        count_source(plan, _source(csv), engine="duckdb")
+    # a blank id with unique_within: its key hashes as a blank one still (NULL || ...)
+    csv.write_text("pid,term,arm,y\n1,rash,a,1\n \t,rash,b,0\n", encoding="utf-8")
+    request = count_request(plan, "ae.csv", unique_within=("term",))
+    with DuckDBEngine(_source(csv)) as engine, pytest.raises(
+            DataError, match=r"blank id in column 'pid' \(1 row\)"):
+        engine.reduce(request)
+
+
+def test_hash_collisions_are_confirmed_by_the_exact_queries(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Every id made to hash alike, and the blank hash made that of a real id: the exact
+    follow-up queries find no duplicate and no blank id, and the counts stay those of the
+    plain reduction."""
+    import prespec.data.engines.duckdb_engine as engine_module
+    from prespec.data.engines.compiler import Query
+
+    plan = load_plan(_write_plan(tmp_path, HOSTILE_PLAN)).model
+    csv = tmp_path / "hostile.csv"
+    csv.write_text(HOSTILE_CSV, encoding="utf-8")
+    request = count_request(plan, "hostile.csv")
+    with DuckDBEngine(_source(csv)) as engine:
+        expected = _weights(engine.reduce(request))
+    calls: list[str] = []
+
+    def colliding(request: object, relation: str, dialect: str, kinds: object) -> Query:
+        return Query(f"SELECT CAST(7 AS UBIGINT) AS prespec_id_hash FROM {relation}", {},
+                     dialect)
+
+    def blank_is_seven(dialect: str) -> Query:
+        return Query("SELECT CAST(7 AS UBIGINT) AS prespec_id_hash", {}, dialect)
+
+    monkeypatch.setattr(engine_module, "compile_id_hashes", colliding)
+    monkeypatch.setattr(engine_module, "compile_blank_hash", blank_is_seven)
+    with DuckDBEngine(_source(csv)) as engine:
+        for name in ("duplicate_ids", "check_blank_ids"):
+            method = getattr(engine, name)
+            monkeypatch.setattr(engine, name, lambda *a, _m=method, _n=name: (
+                calls.append(_n), _m(*a))[1])
+        assert _weights(engine.reduce(request)) == expected
+    assert sorted(calls) == ["check_blank_ids", "duplicate_ids"]
+
+
+def test_the_id_hash_query_hashes_trimmed_text_and_blanks_as_null(tmp_path: Path) -> None:
+    """compile_id_hashes: ' 12\\t' hashes as '12' does; '', ' ' and a missing cell as NULL."""
+    import duckdb
+
+    from prespec.data.engines.compiler import compile_blank_hash, compile_id_hashes
+
+    csv = tmp_path / "ids.csv"
+    csv.write_text('pid,arm,y\n12,a,1\n" 12\t",b,0\n"",a,1\n" ",b,0\n,a,1\n',
+                   encoding="utf-8")
+    plan = load_plan(_write_plan(tmp_path, {
+        **HOSTILE_PLAN, "data": {"id": "pid", "group": "arm", "groups": ["a", "b"]},
+        "outcomes": {"ae": {"column": "y", "event": [1], "no_event": [0],
+                            "missing": "exclude"}},
+        "hypotheses": [{"id": "H1", "outcome": "ae", "compare": ["a", "b"],
+                        "test": "fisher-exact"}]})).model
+    request = count_request(plan, "ids.csv")
+    with DuckDBEngine(_source(csv)) as engine:
+        kinds = engine.column_kinds()
+        query = compile_id_hashes(request, engine.relation(request), "duckdb", kinds)
+        got = [int(v) for v in engine.fetch(query)["prespec_id_hash"]]
+    con = duckdb.connect()
+    twelve = con.execute("SELECT hash('12')").fetchone()[0]
+    blank = con.execute(compile_blank_hash("duckdb").text).fetchone()[0]
+    assert got == [twelve, twelve, blank, blank, blank]

@@ -49,37 +49,17 @@ def _one_line(exc: BaseException) -> str:
     return text.splitlines()[0] if text else type(exc).__name__
 
 
-_TOP_BIT = 1 << 63
-
-
-def _split_hashes(found: Any) -> list[Any]:
-    """The id hashes (a numpy array, maybe masked) as two writable uint64 arrays: below
-    2**63 and from it (disjoint ranges, so a repeat lies within one of them)."""
+def _check_hashes(found: Any, blank_hash: int) -> tuple[bool, bool]:
+    """(the blank hash seen, a hash repeated) among the id hashes (a numpy array, maybe
+    masked), by one sort of a uint64 copy (numpy releases the GIL while it sorts; two
+    threads sorting halves measured slower on two busy cores)."""
     import numpy as np
 
-    hashes = np.asarray(np.ma.getdata(found), dtype=np.uint64)
-    high = hashes >= np.uint64(_TOP_BIT)
-    return [hashes[~high], hashes[high]]  # copies: sorted in place
-
-
-def _sort_check(hashes: Any, blank_hash: int) -> tuple[bool, bool]:
-    """Sorts ``hashes`` in place (numpy releases the GIL); (blank hash seen, any repeat)."""
-    import numpy as np
-
+    hashes = np.array(np.ma.getdata(found), dtype=np.uint64)  # a writable copy
     hashes.sort()
     at = int(np.searchsorted(hashes, np.uint64(blank_hash)))
     blank = at < len(hashes) and int(hashes[at]) == blank_hash
     return blank, len(hashes) > 1 and bool((hashes[1:] == hashes[:-1]).any())
-
-
-def _check_hashes(halves: list[Any], blank_hash: int) -> tuple[bool, bool]:
-    """(the blank hash seen, a hash repeated) over ``halves``, sorted in two threads."""
-    from concurrent.futures import ThreadPoolExecutor
-
-    with ThreadPoolExecutor(max_workers=len(halves)) as pool:
-        results = list(pool.map(lambda h: _sort_check(h, blank_hash), halves))
-    return any(b for b, _ in results), any(r for _, r in results)
-
 
 class DuckDBEngine(AggregatingEngine):
     """One in-memory DuckDB connection over the files of ``source``."""
@@ -188,11 +168,10 @@ class DuckDBEngine(AggregatingEngine):
                   ) -> tuple[pd.DataFrame, Query]:
         """Two lean queries (measured quicker than one scan doing both: issue 7). The ids:
         a 64-bit hash of each id's trimmed text and nothing else per row (a blank id hashes
-        as NULL does), split by the top bit and sorted by numpy in two threads to find
-        repeats; a repeat is then named, or found a collision, by ``duplicate_ids``, and the
-        blank hash, if seen, is confirmed by the exact count of blank ids. The counts: the
-        raw cells grouped, then the filter and the mappings applied once per distinct
-        combination (``compile_mapping``)."""
+        as NULL does), sorted by numpy to find repeats; a repeat is then named, or found a
+        collision, by ``duplicate_ids``, and the blank hash, if seen, is confirmed by the
+        exact count of blank ids. The counts: the raw cells grouped, then the filter and the
+        mappings applied once per distinct combination (``compile_mapping``)."""
         import duckdb
 
         ids = compile_id_hashes(request, relation, self.dialect, kinds)
@@ -207,10 +186,8 @@ class DuckDBEngine(AggregatingEngine):
             blank_hash = int(self.con.execute(compile_blank_hash(self.dialect).text)
                              .fetchone()[0])
             found = self.con.execute(ids.text, self._params(ids)).fetchnumpy()[HASH_COLUMN]
-            halves = _split_hashes(found)
+            blanks, repeated = _check_hashes(found, blank_hash)
             del found
-            blanks, repeated = _check_hashes(halves, blank_hash)
-            del halves
             if blanks:  # the exact count (0 when a non-blank id shares the blank hash)
                 self.check_blank_ids(request, relation, kinds)
             if repeated:  # names the duplicates (or finds a collision: then nothing)
