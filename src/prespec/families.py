@@ -3,8 +3,8 @@
 Each member of a family is the family's template run on one level's rows with the ordinary
 machinery (:func:`prespec.analysis.compute_hypothesis`: sparse switch, test, risk difference
 with its interval). For ``fisher-exact`` without a sparse switch the p-values of all members
-are computed at once by :func:`prespec.stats.fisherarray.fisher_many` when it is installed,
-giving the same numbers. The members are then flagged by Benjamini–Hochberg over the whole
+are computed at once by :func:`prespec.stats.fisherarray.fisher_many`, giving the same
+numbers. The members are then flagged by Benjamini–Hochberg over the whole
 family, or by the double false discovery rate of Mehrotra and Heyse (2004) over the groups
 named by ``within`` and within each. Members are outside the plan's confirmatory
 multiplicity: they are reported as flagged, never as rejected.
@@ -35,6 +35,7 @@ from .plan.families import family_column, is_family, member_id
 from .stats import multiplicity
 from .stats.doublefdr import double_fdr
 from .stats.exact import TIE_TOLERANCE
+from .stats.fisherarray import fisher_many
 
 Progress = Callable[[str, int, int], None]
 
@@ -100,15 +101,6 @@ def _member(hyp: Any, level: Level) -> Any:
                                   "group_level": None})
 
 
-def _array_fisher() -> Any:
-    """``fisher_many`` when the array Fisher module is installed, else None."""
-    try:
-        from .stats.fisherarray import fisher_many
-    except ImportError:
-        return None
-    return fisher_many
-
-
 def _empty_member(hyp: Any, plan: Any, level: Level) -> dict[str, Any]:
     return {"id": member_id(hyp.id, level.value), "level": level.value, "group": level.group,
             "table": {"groups": list(hyp.compare), "events": [0, 0], "totals": [0, 0]},
@@ -135,9 +127,8 @@ def members(plan: Any, hyp: Any, data: FamilyData, notes: list[Note], *,
     ``use_array=False`` computes every member with the ordinary machinery even where the
     array Fisher test could be used (the tests compare the two).
     """
-    fisher_many = _array_fisher() if use_array else None
-    if fisher_many is not None and hyp.test == "fisher-exact" and hyp.sparse is None:
-        return _members_array(plan, hyp, data, notes, fisher_many)
+    if use_array and hyp.test == "fisher-exact" and hyp.sparse is None:
+        return _members_array(plan, hyp, data, notes)
     out = []
     for level in data.levels:
         if level.prepared is None:
@@ -148,8 +139,8 @@ def members(plan: Any, hyp: Any, data: FamilyData, notes: list[Note], *,
     return out
 
 
-def _members_array(plan: Any, hyp: Any, data: FamilyData, notes: list[Note],
-                   fisher_many: Any) -> list[dict[str, Any]]:
+def _members_array(plan: Any, hyp: Any, data: FamilyData,
+                   notes: list[Note]) -> list[dict[str, Any]]:
     """Fisher's exact test for every member at once, the estimate member by member."""
     import numpy as np
 
