@@ -161,3 +161,23 @@ def test_strata_tables(tmp_path: Path) -> None:
     assert [n.code for n in prep.notes] == ["missing-exclude", "blank-stratum"]
     with pytest.raises(DataError, match=r"column 'centre' \(hypotheses.H1.strata\)"):
         prepare(read_data(path), make_plan(strata=["centre"]), path)
+
+
+
+@pytest.mark.parametrize("cell, number", [
+    ("1", 1.0), (" +2.5 ", 2.5), (".5", 0.5), ("1e1", 10.0), ("-0", 0.0),
+    # digits of other scripts are text: Python's float() takes them, SQL casts do not
+    ("\u0661", None), ("\u0664\u0665", None), ("\uff11", None), ("1\u0660", None),
+    ("1_000", None), ("inf", None), ("nan", None),
+])
+def test_only_ascii_digits_make_a_number(cell: str, number: float | None) -> None:
+    import re
+
+    from prespec.data import as_number
+    from prespec.data.engines.compiler import NUMBER_PATTERN
+
+    assert as_number(cell) == number
+    # the pattern the SQL engines apply to the trimmed text says the same
+    assert (re.fullmatch(NUMBER_PATTERN, cell.strip()) is not None) == (number is not None)
+    if cell.strip().isdecimal() and number is None:  # another script's digits
+        assert cell not in ValueSet([float(cell)])  # float() reads them; the rule does not

@@ -12,7 +12,9 @@ import re
 from collections.abc import Iterable
 from typing import Any
 
-_NUMBER = re.compile(r"[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?")
+# ASCII digits only: Python's \d (and float()) also take other scripts' digits such as "١",
+# which SQL engines read as text; the engines' NUMBER_PATTERN is the same expression
+_NUMBER = re.compile(r"[+-]?([0-9]+(\.[0-9]*)?|\.[0-9]+)([eE][+-]?[0-9]+)?")
 
 
 def is_blank(cell: Any) -> bool:
