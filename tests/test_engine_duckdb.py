@@ -381,3 +381,38 @@ def test_the_id_hash_query_hashes_trimmed_text_and_blanks_as_null(tmp_path: Path
     twelve = con.execute("SELECT hash('12')").fetchone()[0]
     blank = con.execute(compile_blank_hash("duckdb").text).fetchone()[0]
     assert got == [twelve, twelve, blank, blank, blank]
+
+
+def test_a_long_reduction_reports_its_progress_and_duckdb_draws_nothing(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+        capfd: pytest.CaptureFixture[str]) -> None:
+    """The callback gets DuckDB's own progress figures, rising, ending at 100; DuckDB's bar is
+    never printed (it would be for ``python -c``, which it takes for an interactive session)."""
+    import duckdb
+
+    import prespec.data.engines.duckdb_engine as duckdb_engine
+
+    csv = tmp_path / "many.csv"
+    duckdb.connect().execute(
+        "COPY (SELECT printf('P%07d', i) AS id, CASE WHEN i % 2 = 0 THEN 'gauze' ELSE "
+        "'foam' END AS arm, CAST(hash(i) % 2 AS VARCHAR) AS healed FROM range(1500000) t(i)) "
+        "TO $p (HEADER, FORMAT csv)", {"p": str(csv)})
+    plan = load_plan(_write_plan(tmp_path, {
+        **HOSTILE_PLAN, "data": {"id": "id", "group": "arm", "groups": ["gauze", "foam"]},
+        "outcomes": {"healed": {"column": "healed", "event": [1], "no_event": [0],
+                                "missing": "exclude"}},
+        "hypotheses": [{"id": "H1", "outcome": "healed", "compare": ["foam", "gauze"],
+                        "test": "pearson-chi-square"}]})).model
+    monkeypatch.setattr(duckdb_engine, "POLL_SECONDS", 0.005)
+    seen: list[float] = []
+    counted = count_source(plan, _source(csv), engine="duckdb", progress=seen.append)
+    assert counted.prepared.analysed == 1_500_000
+    assert seen and seen[-1] == 100.0
+    assert any(0 < v < 100 for v in seen), seen  # a figure from within a query
+    assert all(0 <= v <= 100 for v in seen)
+    with DuckDBEngine(_source(csv)) as engine:  # no bar asked for: none tracked, none drawn
+        assert engine.con.execute("SELECT current_setting('enable_progress_bar'), "
+                                  "current_setting('enable_progress_bar_print')").fetchone() \
+            == (False, False)
+    captured = capfd.readouterr()
+    assert "%" not in captured.err and "▕" not in captured.err

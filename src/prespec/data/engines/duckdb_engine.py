@@ -31,6 +31,7 @@ from .compiler import (
 )
 
 MEMORY_LIMIT = "768MB"  # DuckDB's own limit; beyond it, it spills to disk
+POLL_SECONDS = 0.25  # how often a long query's progress is asked for
 _KINDS = {"VARCHAR": "text", "BOOLEAN": "bool", "DOUBLE": "float", "FLOAT": "float",
           "REAL": "float"}
 _INTEGERS = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT",
@@ -77,6 +78,12 @@ class DuckDBEngine(AggregatingEngine):
         self.con = duckdb.connect(config={"memory_limit": MEMORY_LIMIT,
                                           "temp_directory": self._temp.name,
                                           "preserve_insertion_order": False})
+        # DuckDB never draws its own bar (it does for ``python -c``, taking that for an
+        # interactive session); it tracks progress, for our bar, only when one is asked for
+        # (``query_progress`` is -1 otherwise)
+        self.con.execute("SET enable_progress_bar_print = false")
+        if progress is not None:
+            self.con.execute("SET enable_progress_bar = true")
         self._kinds: dict[str, str] | None = None
         self._checked = False
         self._shown = False
@@ -154,7 +161,7 @@ class DuckDBEngine(AggregatingEngine):
 
     def _watch(self, stop: threading.Event) -> None:
         shown = -1.0
-        while not stop.wait(0.25):
+        while not stop.wait(POLL_SECONDS):
             try:
                 done = float(self.con.query_progress())
             except Exception:  # noqa: BLE001 - progress is best effort
