@@ -4,6 +4,7 @@ data.source, the log entry's engine and query, the row fingerprint and the auto 
 from __future__ import annotations
 
 import json
+from importlib import metadata
 from pathlib import Path
 
 import pandas as pd
@@ -51,14 +52,19 @@ def test_glob_through_the_command_equals_the_single_file(
     two = json.loads((tmp_path / "two" / "results.json").read_text("utf-8"))
     assert (one["engine"], one["query"]) == ("pandas", None)
     assert two["engine"] == "duckdb" and two["query"].startswith("SELECT")
+    # the versions counted with, as the installed distributions name themselves
+    assert one["engine_library"] == f"pandas {metadata.version('pandas')}"
+    assert two["engine_library"] == f"duckdb {metadata.version('duckdb')}"
     assert two["data_file"] == "parts/*.csv" and two["data"] != one["data"]
     for key in ("population", "groups", "hypotheses"):
         assert two[key] == one[key]
     entry = _last_entry(plan)
     assert entry["details"]["engine"] == "duckdb"
     assert entry["details"]["query"] == two["query"]
+    assert entry["details"]["engine_library"] == two["engine_library"]
     assert "gauze" not in two["query"] and "$p" in two["query"]
-    assert "Engine" in (tmp_path / "two" / "report.html").read_text("utf-8")
+    assert f"duckdb ({two['engine_library']})" in (
+        tmp_path / "two" / "report.html").read_text("utf-8")
     capsys.readouterr()
     assert cli.main(["verify", str(plan)]) == 0
     # the second run read other data (the rows' fingerprint, not the file's)
@@ -210,8 +216,23 @@ def test_rehearsal_by_duckdb_equals_rehearsal_by_pandas(tmp_path: Path) -> None:
     data.write_text(demo_data(), encoding="utf-8")
     by_pandas = api.rehearse(plan, data, out=tmp_path / "a", engine="pandas").results
     by_duckdb = api.rehearse(plan, data, out=tmp_path / "b", engine="duckdb").results
-    moment = {"created", "engine", "query"}
+    moment = {"created", "engine", "engine_library", "query"}
     assert {k: v for k, v in by_duckdb.items() if k not in moment} == {
         k: v for k, v in by_pandas.items() if k not in moment}
     assert by_duckdb["data_dictionary"]["rows"] == 601  # every row, before the filter
     assert '"arm"' not in by_duckdb["query"]
+
+
+def test_engine_library_names_every_distribution_an_engine_counts_with(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    from prespec.data.engines.choose import engine_library
+
+    assert engine_library("sql") == (f"SQLAlchemy {metadata.version('SQLAlchemy')}, "
+                                     f"psycopg {metadata.version('psycopg')}")
+    assert engine_library("spark") == f"pyspark {metadata.version('pyspark')}"
+
+    def missing(name: str) -> str:
+        raise metadata.PackageNotFoundError(name)
+
+    monkeypatch.setattr(metadata, "version", missing)
+    assert engine_library("duckdb") == "duckdb not installed"

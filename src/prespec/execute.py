@@ -201,12 +201,16 @@ def family_file(source: DataSource, engine: str) -> Path:
 
 
 def with_engine(results: dict[str, Any], engine: str, query: str | None) -> dict[str, Any]:
-    """``engine`` beside the provenance fields, and the ``query`` it sent (None for pandas)."""
+    """``engine`` beside the provenance fields, the versions it counted with
+    (``engine_library``), and the ``query`` it sent (None for pandas)."""
+    from .data.engines.choose import engine_library
+
     out: dict[str, Any] = {}
     for key, value in results.items():
         out[key] = value
         if key == "data_file":
             out["engine"] = engine
+            out["engine_library"] = engine_library(engine)
             out["query"] = query
     return out
 

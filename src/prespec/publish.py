@@ -169,8 +169,9 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
             data=results["data"],
             details={"report": report_rel, "manifest": manifest, **(details or {}),
                      **family_details(results),
-                     **({"engine": results["engine"], "query": results.get("query")}
-                        if "engine" in results else {})},
+                     **({"engine": results["engine"],
+                         "engine_library": results.get("engine_library"),
+                         "query": results.get("query")} if "engine" in results else {})},
             deviations=results["deviations"],
         )
     except BaseException:

@@ -63,6 +63,13 @@ KINDS = {"run": "Analysis run", "rehearsal": "Blinded rehearsal"}
 ENVIRONMENT_ORDER = ("python", "numpy", "scipy", "statsmodels", "pandas", "prespec")
 
 
+def _engine(results: dict[str, Any]) -> str:
+    """The engine's name, with the versions it counted with when the results name them."""
+    name = _optional(results, "engine")
+    library = results.get("engine_library")
+    return f"{name} ({library})" if library else name
+
+
 def _optional(results: Mapping[str, Any], key: str) -> str:
     value = results.get(key)
     if value is None:
@@ -89,7 +96,7 @@ def header(results: Mapping[str, Any]) -> str:
         ("Plan version", _optional(results, "plan_version")),
         ("Data hash", _optional(results, "data")),
         ("Data file", _optional(results, "data_file")),
-        *([("Engine", _optional(results, "engine"))] if "engine" in results else []),
+        *([("Engine", _engine(results))] if "engine" in results else []),
         ("Time (UTC)", _optional(results, "created")),
         ("Actor", _optional(results, "actor")),
         ("Alpha", _optional(results, "alpha")),

@@ -20,6 +20,23 @@ _CLASSES = {
     "spark": ("prespec.data.engines.spark", "SparkEngine"),
 }
 _EXTRAS = {"sql": "sql", "spark": "spark"}
+# the installed distributions an engine counts with, recorded beside its name in a run
+_LIBRARIES = {"pandas": ("pandas",), "duckdb": ("duckdb",), "sql": ("SQLAlchemy", "psycopg"),
+              "spark": ("pyspark",)}
+
+
+def engine_library(name: str) -> str:
+    """The versions of what ``name`` counts with, e.g. ``"duckdb 2.0.1"`` or
+    ``"SQLAlchemy 2.0.36, psycopg 3.2.3"`` (``not installed`` for one that is absent)."""
+    from importlib import metadata
+
+    shown = []
+    for dist in _LIBRARIES[name]:
+        try:
+            shown.append(f"{dist} {metadata.version(dist)}")
+        except metadata.PackageNotFoundError:
+            shown.append(f"{dist} not installed")
+    return ", ".join(shown)
 
 
 def auto_engine(source: DataSource) -> str:
