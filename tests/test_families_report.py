@@ -135,3 +135,51 @@ def test_every_fragment_closes_what_it_opens(tmp_path: Path) -> None:
         checker.feed(fragment)
         checker.close()
         assert checker.open == [], fragment[:80]
+
+
+def _crowded(n: int) -> dict[str, Any]:
+    """An invented family of ``n`` flagged members bunched in one corner of the figure, and
+    a few hollow ones spread out."""
+    members = [{"level": f"term {i:02d}", "flagged": True, "p_value": 1e-6 * (1 + i % 4),
+                "estimate": {"value": 0.10 + 0.002 * (i % 5)}} for i in range(n)]
+    members += [{"level": f"quiet {i}", "flagged": False, "p_value": 0.1 + 0.1 * i,
+                 "estimate": {"value": -0.05 + 0.02 * i}} for i in range(5)]
+    return {"id": "AE", "over": "term", "compare": ["new", "old"], "threshold": 1e-4,
+            "members": members}
+
+
+@pytest.mark.parametrize("n", [12, 40])
+def test_labels_of_a_crowded_volcano_do_not_overlap(n: int) -> None:
+    fig = report.VolcanoJob(_crowded(n)).draw()
+    fig.canvas.draw()  # the annotations' places are worked out as they are drawn
+    (ax,) = fig.axes
+    renderer = fig.canvas.get_renderer()
+    labels = [t for t in ax.texts if t.get_text().startswith("term")]
+    assert len(labels) == min(n, report.LABEL_LIMIT)
+    from matplotlib.text import Text
+
+    boxes = [Text.get_window_extent(t, renderer) for t in labels]  # without the leader
+    frame = ax.get_window_extent(renderer)
+    legend = ax.get_legend().get_window_extent(renderer)
+    from matplotlib.transforms import Bbox
+
+    fam = _crowded(n)
+    at = ax.transData.transform([(m["estimate"]["value"], -math.log10(m["p_value"]))
+                                 for m in fam["members"]])
+    radius = 2.5 * fig.dpi / 72  # a marker of s=30 square points is about 5.5 points wide
+    markers = [Bbox.from_extents(x - radius, y - radius, x + radius, y + radius) for x, y in at]
+    for i, box in enumerate(boxes):
+        assert not box.overlaps(legend), labels[i].get_text()
+        assert not any(box.overlaps(m) for m in markers), labels[i].get_text()
+        assert frame.x0 <= box.x0 and box.x1 <= frame.x1, labels[i].get_text()
+        for other in boxes[i + 1:]:
+            assert not box.overlaps(other), labels[i].get_text()
+    # the smallest p-values are labelled first: with 40, the 10 of p = 1e-6 and the next
+    # 15 by p, then by the larger difference
+    notes = [t.get_text() for t in ax.texts if not t.get_text().startswith("term")]
+    if n > report.LABEL_LIMIT:
+        assert notes == [f"{n - report.LABEL_LIMIT} more flagged, not labelled (see the table)"]
+        shown = {t.get_text() for t in labels}
+        assert {f"term {i:02d}" for i in range(0, n, 4)} <= shown  # every p = 1e-6 member
+    else:
+        assert notes == []

@@ -2,7 +2,9 @@
 
 - ``figures/family-<id>-volcano.png``: each member with a p-value as a point, its risk
   difference (first group minus second) on x and −log10 of its nominal p-value on y; flagged
-  members filled and labelled with their level, the others hollow; a vertical line at no
+  members filled and labelled with their level (labels kept off each other, the points and
+  the legend; at most ``LABEL_LIMIT``, the rest counted in a corner), the others hollow; a
+  vertical line at no
   difference. Under Benjamini–Hochberg a dashed horizontal line is drawn at −log10 of the
   step-up cut-off k·q/m (``threshold`` in results.json): the members on or above it are
   exactly the flagged ones. The double FDR has no single cut-off (it differs by group), so no
@@ -110,9 +112,6 @@ class VolcanoJob:
                    edgecolors=LINE, linewidths=0.9, label="not flagged")
         ax.scatter([p.x for p in marked], [p.y for p in marked], s=30, color=FLAGGED,
                    label="flagged")
-        for p in marked:
-            ax.annotate(shorten(p.level, 28), (p.x, p.y), xytext=(4, 3),
-                        textcoords="offset points", fontsize=8, color=INK)
         ax.axvline(0.0, color=GUIDE, linewidth=0.8)
         threshold = number(fam.get("threshold"), "families.threshold")
         if threshold is not None and threshold > 0:
@@ -125,7 +124,72 @@ class VolcanoJob:
                      loc="left", fontsize=10)
         if pts:
             ax.legend(loc="upper left", fontsize=8, frameon=False)
+        _label(fig, ax, marked, pts)
         return fig
+
+
+def _label(fig: Figure, ax: Any, marked: Sequence[Point], pts: Sequence[Point]) -> None:
+    """Labels for the flagged points that overlap neither each other, nor any point, nor the
+    legend, and stay inside the axes. Each label takes the free place nearest its point
+    among ``_PLACES`` (a thin leader line when it is not beside the point). The strongest
+    signals (the smallest p, then the largest difference) are placed first; beyond
+    ``LABEL_LIMIT`` the rest are left to the table, and a line in the corner says how many.
+    Sizes are measured once per label and the places tried by array arithmetic in display
+    units."""
+    import numpy as np
+
+    if not marked:
+        return
+    fig.canvas.draw()  # the layout and the limits, fixed before measuring the labels
+    fig.set_layout_engine("none")
+    renderer = fig.canvas.get_renderer()
+    frame = ax.get_window_extent(renderer)
+    per_point = fig.dpi / 72.0
+    centres = ax.transData.transform([(p.x, p.y) for p in pts])
+    r = _MARKER_RADIUS * per_point
+    taken = [np.column_stack([centres - r, centres + r])]  # every point's marker
+    if ax.get_legend() is not None:
+        taken.append(np.array([ax.get_legend().get_window_extent(renderer).extents]))
+    places = np.array(_PLACES, dtype=float) * per_point
+    order = sorted(marked, key=lambda p: (-p.y, -abs(p.x), p.level))
+    for p in order[:LABEL_LIMIT]:
+        shown = shorten(p.level, 28)
+        probe = ax.text(0, 0, shown, fontsize=8)
+        size = probe.get_window_extent(renderer)
+        probe.remove()
+        px, py = ax.transData.transform((p.x, p.y))
+        x0 = px + places[:, 0] - np.where(places[:, 0] < 0, size.width, 0.0)
+        y0 = py + places[:, 1] - np.where(places[:, 1] < 0, size.height, 0.0)
+        boxes = np.column_stack([x0, y0, x0 + size.width, y0 + size.height])
+        inside = ((boxes[:, 0] >= frame.x0) & (boxes[:, 2] <= frame.x1)
+                  & (boxes[:, 1] >= frame.y0) & (boxes[:, 3] <= frame.y1))
+        others = np.concatenate(taken)
+        hits = ((boxes[:, None, 0] < others[None, :, 2]) & (others[None, :, 0] < boxes[:, None, 2])
+                & (boxes[:, None, 1] < others[None, :, 3])
+                & (others[None, :, 1] < boxes[:, None, 3])).any(axis=1)
+        free = np.flatnonzero(inside & ~hits)
+        at = int(free[0]) if len(free) else 0  # nowhere free: beside the point
+        taken.append(boxes[at:at + 1])
+        dx, dy = _PLACES[at]
+        ax.annotate(shown, (p.x, p.y), xytext=(dx, dy), textcoords="offset points",
+                    fontsize=8, color=INK, ha="left" if dx > 0 else "right",
+                    va="bottom" if dy > 0 else "top",
+                    arrowprops=None if at < 4 else {"arrowstyle": "-", "color": GUIDE,
+                                                    "linewidth": 0.6, "shrinkA": 0,
+                                                    "shrinkB": 3})
+    if len(order) > LABEL_LIMIT:
+        ax.text(0.99, 0.01, f"{len(order) - LABEL_LIMIT} more flagged, not labelled "
+                "(see the table)", transform=ax.transAxes, ha="right", va="bottom",
+                fontsize=7, color=INK)
+
+
+_MARKER_RADIUS = 3.5  # points: a marker's half width, kept clear of labels
+LABEL_LIMIT = 25  # flagged points labelled at most; the table lists them all
+# where a label may go, in points from its point (its corner nearest the point: right or
+# left, above or below), nearest first
+_PLACES = sorted({(sx * dx, sy * dy) for dx in (5, 12, 24, 40, 60, 85, 115, 150)
+                  for dy in (4, *range(12, 260, 9)) for sx in (1, -1) for sy in (1, -1)},
+                 key=lambda d: (d[0] ** 2 + d[1] ** 2, d))
 
 
 def family_jobs(results: Mapping[str, Any]) -> list[tuple[str, VolcanoJob]]:
