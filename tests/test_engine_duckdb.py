@@ -390,7 +390,7 @@ def test_a_long_reduction_reports_its_progress_and_duckdb_draws_nothing(
     never printed (it would be for ``python -c``, which it takes for an interactive session)."""
     import duckdb
 
-    import prespec.data.engines.duckdb_engine as duckdb_engine
+    from prespec.data.engines import duckdb_engine
 
     csv = tmp_path / "many.csv"
     duckdb.connect().execute(

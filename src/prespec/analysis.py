@@ -21,7 +21,7 @@ from .stats.results import TestResult
 MAIN_FAMILY = "main"
 
 
-def _finite(value: float | None, what: str, notes: list[Note]) -> float | None:
+def finite_or_note(value: float | None, what: str, notes: list[Note]) -> float | None:
     """A finite float, or None with a note (JSON has no NaN or infinity)."""
     if value is None:
         return None
@@ -139,9 +139,9 @@ def _blank_entry(hyp: Any, plan: Any, groups: list[str], table: methods.Table) -
 
 def _test_json(result: TestResult, what: str, notes: list[Note]) -> dict[str, Any]:
     return {"test": result.method,
-            "statistic": _finite(result.statistic, f"{what} statistic", notes),
+            "statistic": finite_or_note(result.statistic, f"{what} statistic", notes),
             "df": result.df,
-            "p_value": _finite(result.p_value, f"{what} p-value", notes)}
+            "p_value": finite_or_note(result.p_value, f"{what} p-value", notes)}
 
 
 def compute_hypothesis(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note], *,
@@ -186,7 +186,7 @@ def _primary(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note],
     entry["monte_carlo"] = outcome.monte_carlo
     if outcome.monte_carlo is not None:
         mc = outcome.monte_carlo
-        mc["standard_error"] = _finite(mc["standard_error"], f"{hyp.id}: the Monte Carlo "
+        mc["standard_error"] = finite_or_note(mc["standard_error"], f"{hyp.id}: the Monte Carlo "
                                        "standard error", notes)
     if table.strata is not None:
         het = methods.homogeneity(table)
@@ -199,20 +199,20 @@ def _primary(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note],
                                   f"correction over {len(table.strata)} strata, p = "
                                   f"{entry['homogeneity']['p_value']:.4g}"))
     level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
-    entry["estimate"] = _estimate_json(methods.estimate(hyp, table, level), level, hyp.id,
+    entry["estimate"] = estimate_json(methods.estimate(hyp, table, level), level, hyp.id,
                                        notes)
     return entry
 
 
-def _estimate_json(est: Any, level: float, who: str, notes: list[Note]) -> dict[str, Any] | None:
+def estimate_json(est: Any, level: float, who: str, notes: list[Note]) -> dict[str, Any] | None:
     """The ``estimate`` of an entry: measure, value, interval, method and level."""
     if est is None:
         return None
     out = {
         "measure": est.measure,
-        "value": _finite(est.value, f"{who}: the estimate", notes),
-        "ci": [_finite(est.low, f"{who}: the lower limit", notes),
-               _finite(est.high, f"{who}: the upper limit", notes)],
+        "value": finite_or_note(est.value, f"{who}: the estimate", notes),
+        "ci": [finite_or_note(est.low, f"{who}: the lower limit", notes),
+               finite_or_note(est.high, f"{who}: the upper limit", notes)],
         "ci_method": est.method,
         "level": level,
         "note": getattr(est, "note", None),
@@ -326,7 +326,7 @@ def _test_on(hyp: Any, plan: Any, table: methods.Table, notes: list[Note],
                           notes))
     out["test"], out["rule"] = run_as.test, rule
     level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
-    out["estimate"] = _estimate_json(methods.estimate(hyp, table, level), level, who, notes)
+    out["estimate"] = estimate_json(methods.estimate(hyp, table, level), level, who, notes)
     return out
 
 
@@ -432,7 +432,7 @@ def _decide_margins(entries: list[dict[str, Any]], plan: Any) -> None:
         e["margin_check"] = _margin_check(source, e["estimate"], decided)
 
 
-def _follow_ups(hyp: Any, plan: Any) -> list[Any]:
+def follow_ups(hyp: Any, plan: Any) -> list[Any]:
     """The pairwise hypotheses of ``then``: each arm against the reference, or every pair."""
     groups = list(plan.data.groups)
     if hyp.then.pairwise == "reference":
@@ -468,7 +468,7 @@ def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[N
             continue
         family = f"{hyp.id} pairwise"
         follow = []
-        for sub in _follow_ups(hyp, plan):
+        for sub in follow_ups(hyp, plan):
             e = compute_hypothesis(sub, plan, prepared, notes, source=hyp.id)
             e["parent"] = hyp.id
             e["family"] = None if hyp.role == "exploratory" else family

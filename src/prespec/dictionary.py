@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .data.prepare import _condition
+from .data.prepare import cell_predicate
 from .errors import DataError
 from .matching import ValueSet, as_text, is_blank
 
@@ -101,7 +101,7 @@ def _outcome_meaning(outcome: Any) -> Meaning:
 
 def _filter_meaning(cond: Any) -> Meaning:
     op, arg = cond.op()
-    holds = _condition(op, arg)
+    holds = cell_predicate(op, arg)
     return lambda cell: "passes filter" if holds(cell) else "fails filter"
 
 

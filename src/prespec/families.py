@@ -27,7 +27,7 @@ from typing import Any
 import pandas as pd
 
 from . import methods
-from .analysis import _estimate_json, _finite, compute_hypothesis, interval_level
+from .analysis import compute_hypothesis, estimate_json, finite_or_note, interval_level
 from .data import Prepared, prepare
 from .data.families import FamilyData, Level, family_data
 from .departures import Note
@@ -163,7 +163,7 @@ def _members_array(plan: Any, hyp: Any, data: FamilyData,
                               f"{', '.join(empty)}; test and estimate not computable"))
         else:
             table = methods.Table(events, totals)
-            row["estimate"] = _estimate_json(methods.estimate(member, table, level_ci),
+            row["estimate"] = estimate_json(methods.estimate(member, table, level_ci),
                                              level_ci, member.id, notes)
             if row["estimate"] is not None:
                 row["estimate"].pop("note", None)
@@ -176,7 +176,8 @@ def _members_array(plan: Any, hyp: Any, data: FamilyData,
         result = fisher_many(a, b, c, d, alternative=hyp.alternative,
                              tie_tolerance=TIE_TOLERANCE)
         for slot, p in zip(slots, np.asarray(result.p_value, dtype=float), strict=True):
-            out[slot]["p_value"] = _finite(float(p), f"{out[slot]['id']}: the p-value", notes)
+            out[slot]["p_value"] = finite_or_note(float(p), f"{out[slot]['id']}: the p-value",
+                                                  notes)
     return out
 
 

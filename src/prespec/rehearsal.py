@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .analysis import _follow_ups, analyse, compute_hypothesis
+from .analysis import analyse, compute_hypothesis, follow_ups
 from .caution import CAUTION
 from .data import Prepared
 from .data.engines.base import DataSource
@@ -177,7 +177,7 @@ def _diagnose(plan: Any, prepared: Prepared) -> list[Executed]:
     """Compute each hypothesis and follow-up on its own, to name the ones that fail."""
     out = []
     for hyp in plan.hypotheses:
-        subs = [hyp, *(_follow_ups(hyp, plan) if hyp.then is not None else [])]
+        subs = [hyp, *(follow_ups(hyp, plan) if hyp.then is not None else [])]
         for sub in subs:
             try:
                 compute_hypothesis(sub, plan, prepared, [])
@@ -190,7 +190,7 @@ def _diagnose(plan: Any, prepared: Prepared) -> list[Executed]:
 def _hypothesis_rows(plan: Any, executed: dict[str, Executed]) -> list[dict[str, Any]]:
     rows = []
     for hyp in plan.hypotheses:
-        subs = [hyp, *(_follow_ups(hyp, plan) if hyp.then is not None else [])]
+        subs = [hyp, *(follow_ups(hyp, plan) if hyp.then is not None else [])]
         for sub in subs:
             done = executed.get(sub.id, Executed(sub.id, False, "not reached"))
             rows.append({"id": sub.id, "title": sub.title, "role": sub.role,

@@ -241,7 +241,7 @@ def _difference_mle(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int,
                     delta: float) -> tuple[np.ndarray, np.ndarray]:
     """The restricted MLEs (p̃1, p̃2) with p1 − p2 = delta on arrays: the closed-form cubic
     root of Farrington and Manning (1990) and Newton steps against rounding, exactly as the
-    scalar ``stats.intervals._difference_mle``."""
+    scalar ``stats.intervals.difference_mle``."""
     p1, p2 = x1 / n1, x2 / n2
     theta = n2 / n1
     a = 1.0 + theta

@@ -163,7 +163,7 @@ def _per_unique(column: pd.Series, fn: Any) -> np.ndarray:
     return np.array([answers[c] if c >= 0 else na_answer for c in codes], dtype=object)
 
 
-def _condition(op: str, arg: Any) -> Any:
+def cell_predicate(op: str, arg: Any) -> Any:
     """The cell predicate of one structured population condition."""
     if op == "is_missing":
         return lambda cell: is_blank(cell) == bool(arg)
@@ -272,7 +272,7 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
     else:
         for cond in spec.include:
             op, arg = cond.op()
-            keep &= _per_unique(frame[cond.column], _condition(op, arg)).astype(bool)
+            keep &= _per_unique(frame[cond.column], cell_predicate(op, arg)).astype(bool)
     excluded_by_filter = at.count(~keep)
 
     groups = list(spec.groups)

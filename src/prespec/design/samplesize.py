@@ -19,8 +19,8 @@ from dataclasses import dataclass
 
 from scipy import optimize, stats
 
-from prespec.stats.intervals import _difference_mle
-from prespec.stats.ratios import _ratio_mle
+from prespec.stats.intervals import difference_mle
+from prespec.stats.ratios import ratio_mle
 
 #: Slack when rounding a real-valued sample size up, so that 435.0000000001 stays 435.
 ROUND_SLACK = 1e-9
@@ -129,7 +129,7 @@ def _margin_parts(p1: float, p2: float, n1: float, n2: float, margin: float, mea
         effect = p1 - p2 - margin
         alt_var = p1 * (1 - p1) / n1 + p2 * (1 - p2) / n2
         if pooled_null:
-            t1, t2 = _difference_mle(p1, 1.0, theta * p2, theta, margin)  # type: ignore[arg-type]
+            t1, t2 = difference_mle(p1, 1.0, theta * p2, theta, margin)  # type: ignore[arg-type]
             null_var = t1 * (1 - t1) / n1 + t2 * (1 - t2) / n2
         else:
             null_var = alt_var
@@ -137,7 +137,7 @@ def _margin_parts(p1: float, p2: float, n1: float, n2: float, margin: float, mea
         if pooled_null:
             effect = p1 - margin * p2
             alt_var = p1 * (1 - p1) / n1 + margin * margin * p2 * (1 - p2) / n2
-            t1, t2 = _ratio_mle(p1, 1.0, theta * p2, theta, margin)  # type: ignore[arg-type]
+            t1, t2 = ratio_mle(p1, 1.0, theta * p2, theta, margin)  # type: ignore[arg-type]
             null_var = t1 * (1 - t1) / n1 + margin * margin * t2 * (1 - t2) / n2
         else:  # the Wald test on the log scale
             effect = math.log(p1 / p2) - math.log(margin)

@@ -24,7 +24,7 @@ from typing import Any
 
 import numpy as np
 
-from prespec.analysis import MAIN_FAMILY, _follow_ups
+from prespec.analysis import MAIN_FAMILY, follow_ups
 from prespec.design import arraymultiplicity
 from prespec.design.arraytests import ArrayTest, array_test, smallest_expected
 from prespec.errors import BadInput
@@ -58,7 +58,7 @@ def units_of(plan: Any) -> list[Unit]:
         out.append(Unit(hyp.id, hyp, family, None, tuple(names.index(g) for g in groups)))
         if hyp.then is None:
             continue
-        for sub in _follow_ups(hyp, plan):
+        for sub in follow_ups(hyp, plan):
             out.append(Unit(sub.id, sub, None if family is None else f"{hyp.id} pairwise",
                             hyp.id, tuple(names.index(g) for g in sub.compare)))
     return out

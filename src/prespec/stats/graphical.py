@@ -33,7 +33,7 @@ def _numbers(name: str, values: object) -> list[float]:
     return [_number(f"{name}[{i}]", v) for i, v in enumerate(values)]
 
 
-def _graph(
+def build_graph(
     p_values: Sequence[float], weights: Sequence[float], transitions: Sequence[Sequence[float]]
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Validate the p-values, weights and transition matrix; return them as float arrays."""
@@ -64,7 +64,7 @@ def _graph(
     return np.array(p, dtype=float), np.array(w, dtype=float), g
 
 
-def _remove(j: int, active: list[int], w: np.ndarray, g: np.ndarray) -> None:
+def remove_hypothesis(j: int, active: list[int], w: np.ndarray, g: np.ndarray) -> None:
     """Remove rejected hypothesis j: pass its weight on and update the graph, in place.
 
     Bretz et al. 2009, Algorithm 1, step 2: w_l ← w_l + w_j·g_jl and, for l ≠ k,
@@ -110,7 +110,7 @@ def graphical_adjust(
     Holm S. A simple sequentially rejective multiple test procedure. Scandinavian Journal of
     Statistics 1979;6:65–70.
     """
-    p, w, g = _graph(p_values, weights, transitions)
+    p, w, g = build_graph(p_values, weights, transitions)
     active = list(range(p.size))
     adjusted = [1.0] * p.size
     previous = 0.0
@@ -118,7 +118,7 @@ def graphical_adjust(
         j = min(active, key=lambda i: _ratio(float(p[i]), float(w[i])))  # the first of equals
         previous = min(1.0, max(_ratio(float(p[j]), float(w[j])), previous))
         adjusted[j] = previous
-        _remove(j, active, w, g)
+        remove_hypothesis(j, active, w, g)
     return adjusted
 
 
@@ -140,7 +140,7 @@ def graphical_rejections(
     Bretz F, Maurer W, Brannath W, Posch M. A graphical approach to sequentially rejective
     multiple test procedures. Statistics in Medicine 2009;28:586–604 (Algorithm 1).
     """
-    p, w, g = _graph(p_values, weights, transitions)
+    p, w, g = build_graph(p_values, weights, transitions)
     if isinstance(alpha, bool) or not isinstance(alpha, Real):
         raise ValueError(f"alpha must be a number, got {alpha!r}")  # noqa: TRY004 (the interface raises ValueError)
     level = float(alpha)
@@ -154,4 +154,4 @@ def graphical_rejections(
             return rejected
         j = candidates[0]
         rejected[j] = True
-        _remove(j, active, w, g)
+        remove_hypothesis(j, active, w, g)

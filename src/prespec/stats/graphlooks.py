@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .graphical import _graph, _remove
+from .graphical import build_graph, remove_hypothesis
 
 
 @dataclass(frozen=True)
@@ -70,7 +70,7 @@ def graph_over_looks(
         raise ValueError(f"alpha must be in (0, 1), got {alpha!r}")
     if looks < 1:
         raise ValueError(f"looks must be at least 1, got {looks!r}")
-    _, w, g = _graph([0.0] * len(weights), weights, transitions)
+    _, w, g = build_graph([0.0] * len(weights), weights, transitions)
     active = list(range(len(weights)))
     levels = [0.0] * len(weights)
     steps: list[Rejection] = []
@@ -83,7 +83,7 @@ def graph_over_looks(
                 break
             levels[found] = float(w[found]) * alpha
             steps.append(Rejection(found, k, levels[found]))
-            _remove(found, active, w, g)
+            remove_hypothesis(found, active, w, g)
     for i in active:
         levels[i] = float(w[i]) * alpha
     return GraphLooks(tuple(steps), tuple(levels))

@@ -135,7 +135,7 @@ def difference_constrained_mle(
     x1: int, n1: int, x2: int, n2: int, delta: float
 ) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) with p1 − p2 = delta, validated; see
-    ``_difference_mle`` for the closed form.
+    ``difference_mle`` for the closed form.
 
     References
     ----------
@@ -145,10 +145,10 @@ def difference_constrained_mle(
     x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
     if isinstance(delta, bool) or not isinstance(delta, (int, float)) or not -1 <= delta <= 1:
         raise ValueError(f"delta must be a number in [-1, 1], got {delta!r}")
-    return _difference_mle(x1, n1, x2, n2, float(delta))
+    return difference_mle(x1, n1, x2, n2, float(delta))
 
 
-def _difference_mle(x1: int, n1: int, x2: int, n2: int, delta: float) -> tuple[float, float]:
+def difference_mle(x1: int, n1: int, x2: int, n2: int, delta: float) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) of two binomial proportions with p1 − p2 = delta.
 
     The closed form of Farrington and Manning (1990, section 2; also Miettinen and Nurminen
@@ -237,7 +237,7 @@ def _mn_difference_share(x1: int, n1: int, x2: int, n2: int, delta: float) -> fl
     with each p̂ equal to 0 or 1) it is 0, its limit.
     """
     numerator = _difference(x1, n1, x2, n2) - delta
-    t1, t2 = _difference_mle(x1, n1, x2, n2, delta)
+    t1, t2 = difference_mle(x1, n1, x2, n2, delta)
     total = n1 + n2
     variance = (t1 * (1.0 - t1) / n1 + t2 * (1.0 - t2) / n2) * total / (total - 1)
     denominator = math.sqrt(numerator * numerator + variance)

@@ -112,7 +112,7 @@ def _positive(name: str, value: object, allow_zero: bool) -> float:
 
 def ratio_constrained_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) with p1 = ratio·p2, validated; see
-    ``_ratio_mle`` for the closed form.
+    ``ratio_mle`` for the closed form.
 
     References
     ----------
@@ -120,7 +120,7 @@ def ratio_constrained_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> t
     """
     x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
     x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
-    return _ratio_mle(x1, n1, x2, n2, _positive("ratio", ratio, allow_zero=True))
+    return ratio_mle(x1, n1, x2, n2, _positive("ratio", ratio, allow_zero=True))
 
 
 def odds_ratio_constrained_mle(
@@ -138,7 +138,7 @@ def odds_ratio_constrained_mle(
     return _odds_ratio_mle(x1, n1, x2, n2, _positive("odds_ratio", odds_ratio, allow_zero=False))
 
 
-def _ratio_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, float]:
+def ratio_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) of two proportions with p1 = ratio·p2.
 
     p̃2 is the smaller root of N·φ p² − (n1φ + x1 + n2 + x2φ) p + (x1 + x2) = 0 (Miettinen and
@@ -184,7 +184,7 @@ def _koopman_share(x1: int, n1: int, x2: int, n2: int, ratio: float) -> float:
     """Z/sqrt(1 + Z²) for the score statistic Z = (p̂1 − φp̂2)/sqrt(V) at p1/p2 = φ,
     V = p̃1(1 − p̃1)/n1 + φ²p̃2(1 − p̃2)/n2 (no variance correction)."""
     numerator = (x1 * n2 - ratio * x2 * n1) / (n1 * n2)
-    t1, t2 = _ratio_mle(x1, n1, x2, n2, ratio)
+    t1, t2 = ratio_mle(x1, n1, x2, n2, ratio)
     variance = t1 * (1.0 - t1) / n1 + ratio * ratio * t2 * (1.0 - t2) / n2
     denominator = math.sqrt(numerator * numerator + variance)
     return 0.0 if denominator == 0.0 else numerator / denominator

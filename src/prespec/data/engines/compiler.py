@@ -224,7 +224,7 @@ class _Sql:
         return f"COALESCE(NOT {self.blank(column)} AND ({' OR '.join(parts)}), FALSE)"
 
     def condition(self, f: Filter) -> str:
-        """One population condition as a boolean (prepare._condition)."""
+        """One population condition as a boolean (prepare.cell_predicate)."""
         if f.op == "is_missing":
             return self.blank(f.column) if f.arg else f"NOT {self.blank(f.column)}"
         if f.op in ("in", "equals"):
