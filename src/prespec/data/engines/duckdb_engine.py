@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import tempfile
 import threading
+from concurrent.futures import ThreadPoolExecutor
 from collections.abc import Callable, Iterator
 from typing import Any
 
@@ -191,15 +192,20 @@ class DuckDBEngine(AggregatingEngine):
         stop, watcher = self._start_watch()
         try:
             blank_hash = int(self.con.execute(compile_blank_hash(self.dialect).text)
-                             .fetchone()[0])
+                             .fetchall()[0][0])
             found = self.con.execute(ids.text, self._params(ids)).fetchnumpy()[HASH_COLUMN]
-            blanks, repeated = _check_hashes(found, blank_hash)
+            # the hashes are sorted (one core, numpy releases the GIL) while DuckDB groups
+            # the cells; the id checks still come before the counts are used
+            with ThreadPoolExecutor(max_workers=1) as pool:
+                checked = pool.submit(_check_hashes, found, blank_hash)
+                table = self.con.sql(groups.text,
+                                     params=self._params(groups)).to_arrow_table()
+                blanks, repeated = checked.result()
             del found
             if blanks:  # the exact count (0 when a non-blank id shares the blank hash)
                 self.check_blank_ids(request, relation, kinds)
             if repeated:  # names the duplicates (or finds a collision: then nothing)
                 self.duplicate_ids(request, relation, kinds)
-            table = self.con.sql(groups.text, params=self._params(groups)).to_arrow_table()
         except (duckdb.Error, UnicodeDecodeError) as exc:
             raise DataError(f"{self.source.shown}: cannot read the data "
                             f"({_one_line(exc)})") from None
