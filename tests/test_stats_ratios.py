@@ -278,3 +278,30 @@ def test_constrained_estimates_are_validated() -> None:
         odds_ratio_constrained_mle(1, 2, 1, 2, "2")  # type: ignore[arg-type]
     with pytest.raises(ValueError, match=r"x1 \(3\) must not exceed n1 \(2\)"):
         ratio_constrained_mle(3, 2, 1, 2, 1.0)
+
+
+@pytest.mark.parametrize("x1, n1, x2, n2, ratio", [
+    (2, 2, 1, 1, 0.99999), (1, 1, 2, 2, 1 / 0.99999), (80, 80, 79, 80, 1.0000001),
+    (40, 80, 20, 80, 2.0), (0, 30, 5, 30, 0.5), (7, 9, 3, 11, 0.05), (50, 50, 50, 50, 1.0),
+])
+def test_ratio_mle_matches_the_quadratic_solved_in_50_digits(
+        x1: int, n1: int, x2: int, n2: int, ratio: float) -> None:
+    """The restricted MLE p̃2 (and 1 − p̃2, which the score variance needs) against the
+    smaller root of the same quadratic worked in 50-digit decimal arithmetic by the textbook
+    root formula, which has no cancellation to fear at that precision."""
+    # common practice: a quadratic's roots checked in extended precision
+    from decimal import Decimal, getcontext
+
+    from prespec.stats.ratios import ratio_mle
+
+    getcontext().prec = 50
+    r = Decimal(ratio)  # the float's exact value
+    a = (n1 + n2) * r
+    b = -(n1 * r + x1 + n2 + x2 * r)
+    c = Decimal(x1 + x2)
+    exact = (-b - (b * b - 4 * a * c).sqrt()) / (2 * a)
+    exact = min(exact, Decimal(1), 1 / r)
+    p1, p2 = ratio_mle(x1, n1, x2, n2, ratio)
+    assert p2 == pytest.approx(float(exact), rel=1e-13, abs=1e-300)
+    assert 1.0 - p2 == pytest.approx(float(1 - exact), rel=1e-9, abs=1e-15)
+    assert p1 == pytest.approx(min(1.0, ratio * float(exact)), rel=1e-13)

@@ -305,12 +305,14 @@ def _polish(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, delta: float,
 
 def _ratio_mle(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int,
                ratio: float) -> tuple[np.ndarray, np.ndarray]:
-    """The restricted MLEs with p1 = ratio·p2 (the quadratic's smaller root), on arrays."""
-    a = (n1 + n2) * ratio
+    """The restricted MLEs with p1 = ratio·p2 (the quadratic's smaller root), on arrays, with
+    the discriminant as ``stats.ratios.ratio_mle`` forms it (a sum that does not cancel)."""
     b = -(n1 * ratio + x1 + n2 + x2 * ratio)
     c = (x1 + x2).astype(float)
+    spread = ratio * (n1 + x2) - (x1 + n2)
+    discriminant = spread * spread + 4.0 * ratio * (n1 - x1) * (n2 - x2)
     with np.errstate(divide="ignore", invalid="ignore"):
-        root = 2.0 * c / (-b + np.sqrt(np.maximum(0.0, b * b - 4.0 * a * c)))
+        root = 2.0 * c / (-b + np.sqrt(discriminant))
     p2 = np.minimum(np.minimum(1.0, root), math.inf if ratio == 0.0 else 1.0 / ratio)
     return np.minimum(1.0, ratio * p2), p2
 

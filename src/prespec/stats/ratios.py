@@ -143,7 +143,11 @@ def ratio_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, 
 
     p̃2 is the smaller root of N·φ p² − (n1φ + x1 + n2 + x2φ) p + (x1 + x2) = 0 (Miettinen and
     Nurminen 1985; Farrington and Manning 1990), computed in the cancellation-free form
-    2c/(−b + sqrt(b² − 4ac)); p̃1 = φ p̃2. ratio must be >= 0 and finite.
+    2c/(−b + sqrt(b² − 4ac)); p̃1 = φ p̃2. The discriminant is formed as the sum of two
+    non-negative terms, (φ(n1 + x2) − (x1 + n2))² + 4φ(n1 − x1)(n2 − x2), which equals
+    b² − 4ac exactly in algebra but does not cancel near a double root (both proportions
+    near 1 and φ near 1, where b² − 4ac loses half its digits). ratio must be >= 0 and
+    finite.
 
     References
     ----------
@@ -151,10 +155,11 @@ def ratio_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, 
     1985;4:213–226.
     Farrington CP, Manning G. Statistics in Medicine 1990;9:1447–1454.
     """
-    a = (n1 + n2) * ratio
     b = -(n1 * ratio + x1 + n2 + x2 * ratio)
     c = float(x1 + x2)
-    root = 2.0 * c / (-b + math.sqrt(max(0.0, b * b - 4.0 * a * c)))
+    spread = ratio * (n1 + x2) - (x1 + n2)
+    discriminant = spread * spread + 4.0 * ratio * (n1 - x1) * (n2 - x2)
+    root = 2.0 * c / (-b + math.sqrt(discriminant))
     p2 = min(1.0, root, math.inf if ratio == 0.0 else 1.0 / ratio)
     return min(1.0, ratio * p2), p2
 
