@@ -750,3 +750,37 @@ def test_main_family_names_the_plans_method() -> None:
     assert "<tr><td>H4</td><td>exploratory</td><td>none (exploratory)</td>" in page
     h1 = sections.hypotheses(res)[0]
     assert "<tr><th>Multiplicity family</th><td>main (holm)</td></tr>" in h1
+
+
+def test_a_kernel_that_dies_while_starting_is_started_again(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Seen with eight runs starting at once: a kernel dies before its first reply (no cell
+    has run), and the notebook is executed again, up to KERNEL_STARTS tries; any other
+    failure is not retried."""
+    import papermill
+
+    calls: list[int] = []
+    died = RuntimeError("Kernel died before replying to kernel_info")
+
+    def flaky(fails: int, error: Exception = died) -> Any:
+        def execute(*args: Any, **kwargs: Any) -> str:
+            calls.append(1)
+            if len(calls) <= fails:
+                raise error
+            return "executed"
+        return execute
+
+    out = tmp_path / "partial.ipynb"
+    monkeypatch.setattr(papermill, "execute_notebook", flaky(2))
+    assert render._execute(tmp_path, out, "sha256:0", render.KERNEL) == "executed"
+    assert len(calls) == 3 == render.KERNEL_STARTS
+    calls.clear()
+    monkeypatch.setattr(papermill, "execute_notebook", flaky(render.KERNEL_STARTS))
+    with pytest.raises(RuntimeError, match="Kernel died before replying"):
+        render._execute(tmp_path, out, "sha256:0", render.KERNEL)
+    assert len(calls) == render.KERNEL_STARTS
+    calls.clear()
+    monkeypatch.setattr(papermill, "execute_notebook", flaky(1, RuntimeError("disk full")))
+    with pytest.raises(RuntimeError, match="disk full"):
+        render._execute(tmp_path, out, "sha256:0", render.KERNEL)
+    assert len(calls) == 1

@@ -110,6 +110,10 @@ def _one_line(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {words}" if words else type(exc).__name__
 
 
+KERNEL_STARTS = 3  # tries at starting the notebook's kernel
+_KERNEL_START_FAILED = "Kernel died before replying to kernel_info"
+
+
 def _execute(folder: Path, output: Path, digest: str, kernel_name: str) -> NotebookNode:
     import papermill
     from papermill.exceptions import PapermillExecutionError
@@ -119,16 +123,24 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str) -> Noteb
     level = logger.level
     logger.setLevel(logging.WARNING)
     try:
-        node: NotebookNode = papermill.execute_notebook(
-            str(TEMPLATE),
-            str(output),
-            parameters={"results_file": RESULTS, "results_sha256": digest},
-            kernel_name=kernel_name,
-            progress_bar=False,
-            log_output=False,
-            cwd=str(folder),
-            **_kernel_options(kernel_name),
-        )
+        for attempt in range(1, KERNEL_STARTS + 1):
+            try:
+                node: NotebookNode = papermill.execute_notebook(
+                    str(TEMPLATE),
+                    str(output),
+                    parameters={"results_file": RESULTS, "results_sha256": digest},
+                    kernel_name=kernel_name,
+                    progress_bar=False,
+                    log_output=False,
+                    cwd=str(folder),
+                    **_kernel_options(kernel_name),
+                )
+                break
+            except RuntimeError as exc:
+                # a kernel that dies while starting (seen with many runs starting at once,
+                # when another process takes a port it chose) has run no cell: start anew
+                if _KERNEL_START_FAILED not in str(exc) or attempt == KERNEL_STARTS:
+                    raise
     except PapermillExecutionError as exc:
         message = " ".join(str(exc.evalue).split())
         raise PrespecError(

@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import tempfile
 import threading
-from concurrent.futures import ThreadPoolExecutor
 from collections.abc import Callable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import pandas as pd
