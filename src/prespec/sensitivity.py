@@ -38,6 +38,7 @@ from scipy import special, stats
 from .data import GroupCounts
 from .plan import vocabulary
 from .stats.proportions import FISHER_TIE_TOLERANCE
+from .stats.ratios import ratio_discriminant
 
 #: Tests whose tipping-point grid is computed here, on arrays (see the module docstring).
 GRID_TESTS: frozenset[str] = frozenset({
@@ -306,13 +307,11 @@ def _polish(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, delta: float,
 def _ratio_mle(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int,
                ratio: float) -> tuple[np.ndarray, np.ndarray]:
     """The restricted MLEs with p1 = ratio·p2 (the quadratic's smaller root), on arrays, with
-    the discriminant as ``stats.ratios.ratio_mle`` forms it (a sum that does not cancel)."""
+    the discriminant of ``stats.ratios.ratio_discriminant`` (a sum that does not cancel)."""
     b = -(n1 * ratio + x1 + n2 + x2 * ratio)
     c = (x1 + x2).astype(float)
-    spread = ratio * (n1 + x2) - (x1 + n2)
-    discriminant = spread * spread + 4.0 * ratio * (n1 - x1) * (n2 - x2)
     with np.errstate(divide="ignore", invalid="ignore"):
-        root = 2.0 * c / (-b + np.sqrt(discriminant))
+        root = 2.0 * c / (-b + np.sqrt(ratio_discriminant(x1, n1, x2, n2, ratio)))
     p2 = np.minimum(np.minimum(1.0, root), math.inf if ratio == 0.0 else 1.0 / ratio)
     return np.minimum(1.0, ratio * p2), p2
 

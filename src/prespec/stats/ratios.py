@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 from scipy import optimize, special, stats
@@ -157,11 +158,16 @@ def ratio_mle(x1: int, n1: int, x2: int, n2: int, ratio: float) -> tuple[float, 
     """
     b = -(n1 * ratio + x1 + n2 + x2 * ratio)
     c = float(x1 + x2)
-    spread = ratio * (n1 + x2) - (x1 + n2)
-    discriminant = spread * spread + 4.0 * ratio * (n1 - x1) * (n2 - x2)
-    root = 2.0 * c / (-b + math.sqrt(discriminant))
+    root = 2.0 * c / (-b + math.sqrt(ratio_discriminant(x1, n1, x2, n2, ratio)))
     p2 = min(1.0, root, math.inf if ratio == 0.0 else 1.0 / ratio)
     return min(1.0, ratio * p2), p2
+
+
+def ratio_discriminant(x1: Any, n1: Any, x2: Any, n2: Any, ratio: float) -> Any:
+    """b² − 4ac of ``ratio_mle``'s quadratic as (φ(n1 + x2) − (x1 + n2))² + 4φ(n1 − x1)(n2 − x2),
+    a sum of non-negative terms; plain arithmetic, so numbers or numpy arrays alike."""
+    spread = ratio * (n1 + x2) - (x1 + n2)
+    return spread * spread + 4.0 * ratio * (n1 - x1) * (n2 - x2)
 
 
 def _odds_ratio_mle(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> tuple[float, float]:
