@@ -574,6 +574,15 @@ def check_out_path(plan_path: Path, out: Path) -> None:
 class VerifyResult:
     passed: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    #: one ``verify.RunVerdict`` per run and look of the log: the locked analysis, or why not
+    runs: list[Any] = field(default_factory=list)
+    #: the last line: true of the files and of every run
+    summary: str = ""
+
+    @property
+    def departed(self) -> list[Any]:
+        """The runs that were not the locked analysis."""
+        return [r for r in self.runs if not r.locked]
 
 
 def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,

@@ -78,6 +78,9 @@ def _parser() -> argparse.ArgumentParser:
                    help="with --rerun: only this report (as the log names it)")
     c.add_argument("--key", metavar="PUBLIC",
                    help="require every lock and amend entry to be signed by this public key")
+    c.add_argument("--strict", action="store_true",
+                   help="exit 3 when any run was not the locked analysis (never locked, "
+                   "overridden, or amended after unblinding)")
     c = add("design", "sample size and power per hypothesis; with --simulate, the operating "
             "characteristics of the whole plan", writes=True)
     c.add_argument("plan")
@@ -250,9 +253,15 @@ def _dispatch(args: argparse.Namespace) -> int:
                          key=args.key)
         for line in res.passed:
             print(f"ok    {line}")
+        for run in res.runs:
+            print(f"{'ok' if run.locked else 'off':<6}{run.line}")
         for line in res.notes:
             print(f"note  {line}")
-        print("verified: the analysis that ran is the one that was locked")
+        print(res.summary)
+        if args.strict and res.departed:
+            print("prespec: --strict: " + ", ".join(r.name for r in res.departed)
+                  + " not the locked analysis", file=sys.stderr)
+            return 3
     elif args.command == "history":
         _print_history(api.history(args.plan, from_version=args.from_version,
                                    to_version=args.to_version))

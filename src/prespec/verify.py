@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -279,6 +280,126 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
                                     "before its log entry; safe to delete")
 
 
+# --- per run: was it the locked analysis? ---
+
+# The departures that make a run something other than the locked analysis, in the order their
+# reasons are given. ``plan-modified-after-lock`` is not one: the locked plan ran, and the
+# changed plan file is listed among the departures on record.
+_NOT_LOCKED_CODES = ("run-without-lock", "override", "amended-after-unblinding")
+
+
+@dataclass(frozen=True)
+class RunVerdict:
+    """Whether one run (or interim look) of the log was the locked analysis, and if not, why.
+
+    Derived from the log entries alone (the entry's departures and the lock and amend entries
+    before it), so a study folder written by an earlier prespec gets the same verdict."""
+
+    number: int  # 1, 2, … over the run and look entries of the log
+    seq: int
+    report: str
+    look: int | None
+    version: int | None  # the lock version in force at the run, None when none was
+    reasons: tuple[str, ...]  # why it was not the locked analysis, each naming its code
+    labels: tuple[str, ...]  # the same, in a word or two, for the last line
+    departures: tuple[str, ...]  # the other departure codes on record for the run
+
+    @property
+    def locked(self) -> bool:
+        return not self.reasons
+
+    @property
+    def name(self) -> str:
+        return f"run {self.number}"
+
+    @property
+    def line(self) -> str:
+        what = f"interim look {self.look}, " if self.look is not None else ""
+        head = f"{self.name} ({what}log entry {self.seq}, report {self.report}): "
+        head += (f"the locked analysis (lock version {self.version})" if self.locked else
+                 "not the locked analysis: " + "; ".join(self.reasons))
+        if self.departures:
+            head += "; other departures on record: " + ", ".join(self.departures)
+        return head
+
+
+def _accepted(dev: dict[str, Any]) -> str:
+    reason = dev.get("accepted")
+    return f", accepted: {json.dumps(reason, ensure_ascii=False)}" if reason else ""
+
+
+def _override_text(dev: dict[str, Any]) -> str:
+    """``alpha 0.05 → 0.5`` from an override departure (its key opens the detail)."""
+    detail = str(dev.get("detail") or "")
+    key = detail.split(": ", 1)[0] if ": " in detail else "a locked value"
+    return f"{key} {dev.get('expected')} → {dev.get('found')}"
+
+
+def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]]
+                 ) -> RunVerdict:
+    devs = [d for d in entry.get("deviations") or [] if isinstance(d, dict)]
+    codes = [str(d.get("code")) for d in devs]
+    locks = [e for e in before if e["action"] in ("lock", "amend")]
+    in_force = locks[-1] if locks else None
+    version = _version_of(in_force) if in_force is not None else None
+    reasons: list[str] = []
+    labels: list[str] = []
+    if in_force is None or "run-without-lock" in codes:
+        dev = next((d for d in devs if d.get("code") == "run-without-lock"), {})
+        reasons.append(f"the plan was never locked (run-without-lock{_accepted(dev)})")
+        labels.append("never locked")
+        version = None
+    elif entry["plan"] != in_force["plan"]:
+        reasons.append(f"the plan that ran ({entry['plan']}) is not lock version {version} "
+                       f"({in_force['plan']})")
+        labels.append("plan changed")
+    overrides = [d for d in devs if d.get("code") == "override"]
+    if overrides:
+        reasons.append("overrides " + ", ".join(_override_text(d) for d in overrides)
+                       + f" (override{_accepted(overrides[0])})")
+        labels.append("overrides " + ", ".join(
+            str(d.get("detail") or "").split(": ", 1)[0] for d in overrides))
+    first_run = next((e["seq"] for e in before if e["action"] in ("run", "look")), None)
+    late = [e for e in locks if e["action"] == "amend" and (
+        first_run is not None and e["seq"] > first_run or any(
+            isinstance(d, dict) and d.get("code") == "amended-after-unblinding"
+            for d in e.get("deviations") or []))]
+    if version is not None and (late or "amended-after-unblinding" in codes):
+        which = ", ".join(str(_version_of(e)) for e in late) or "an earlier version"
+        reasons.append(f"the plan was amended after unblinding (version {which} locked after a "
+                       "run on the data; amended-after-unblinding)")
+        labels.append("amended after unblinding")
+    others = [c for c in dict.fromkeys(codes) if c not in _NOT_LOCKED_CODES]
+    details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
+    look = details.get("look") if entry["action"] == "look" else None
+    return RunVerdict(number, entry["seq"], str(details.get("report")),
+                      look if isinstance(look, int) else None, version, tuple(reasons),
+                      tuple(labels), tuple(others))
+
+
+def run_verdicts(entries: list[dict[str, Any]]) -> list[RunVerdict]:
+    """One verdict per run and look entry of the log, in log order."""
+    out = []
+    for index, entry in enumerate(e for e in entries if e["action"] in ("run", "look")):
+        out.append(_run_verdict(index + 1, entry,
+                                [e for e in entries if e["seq"] < entry["seq"]]))
+    return out
+
+
+def last_line(runs: list[RunVerdict]) -> str:
+    """The final line of verify: true of the files and of every run."""
+    off = [r for r in runs if not r.locked]
+    if not runs:
+        return "verified: files intact; no run on record"
+    if not off:
+        return ("verified: files intact; the run was the locked analysis" if len(runs) == 1
+                else f"verified: files intact; all {len(runs)} runs were the locked analysis")
+    verb = "was" if len(off) == 1 else "were"
+    noun = "run" if len(runs) == 1 else "runs"
+    listed = ", ".join(f"{r.name} ({'; '.join(r.labels)})" for r in off)
+    return f"files intact; {len(off)} of {len(runs)} {noun} {verb} not the locked analysis: {listed}"
+
+
 def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = None,
                report: str | None = None, key: Path | None = None) -> VerifyResult:
     result = VerifyResult()
@@ -294,12 +415,17 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
     _check_leftovers(plan, found, result)
     if expect is not None:
         first = next((e for e in entries if e["action"] == "lock"), None)
-        if first is None or first["plan"] != expect:
+        if first is None:
+            raise _fail(result, f"expected fingerprint: the plan was never locked (the log has "
+                        f"no lock entry), so nothing matches {expect}")
+        if first["plan"] != expect:
             raise _fail(result, f"expected fingerprint: the first lock entry holds "
-                        f"{first['plan'] if first else 'nothing'}, not {expect}")
+                        f"{first['plan']}, not {expect}")
         result.passed.append("expected fingerprint: matches the first lock entry")
     if rerun is not None:
         _rerun(plan, entries, doc, found, rerun, report, result)
+    result.runs = run_verdicts(entries)
+    result.summary = last_line(result.runs)
     return result
 
 
