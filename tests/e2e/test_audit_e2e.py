@@ -107,8 +107,19 @@ def test_the_monitor_verifies_with_key_expect_and_rerun(trail: dict[str, object]
                  "--rerun", "data2.csv", cwd=study))
     assert [line.split(":")[0] for line in out[:-1]] == [
         "ok    audit log", "ok    signatures", "ok    lock", "ok    plan file", "ok    reports",
-        "ok    expected fingerprint", "ok    rerun"]
-    assert out[-1] == "verified: the analysis that ran is the one that was locked"
+        "ok    expected fingerprint", "ok    rerun",
+        "ok    run 1 (log entry 2, report r1)", "off   run 2 (log entry 4, report r2)"]
+    assert out[-2].endswith(
+        "not the locked analysis: overrides hypotheses.H2.test pearson-chi-square → "
+        'two-proportion-z (override, accepted: "the monitor asked for a z test"); the plan was '
+        "amended after unblinding (version 2 locked after a run on the data; "
+        "amended-after-unblinding); other departures on record: data-changed-since-last-run, "
+        "unexpected-group")
+    assert out[-1] == ("files intact; 1 of 2 runs was not the locked analysis: run 2 (overrides "
+                       "hypotheses.H2.test; amended after unblinding)")
+    strict = cli("verify", "trial.yaml", "--strict", cwd=study)
+    assert strict.returncode == 3 and strict.stdout.splitlines()[-1] == out[-1]
+    assert strict.stderr == "prespec: --strict: run 2 not the locked analysis\n"
     other = root / "other"
     ok(cli("key", "new", str(other), cwd=root))
     done = cli("verify", "trial.yaml", "--key", str(root / "other.pub"), cwd=study)
