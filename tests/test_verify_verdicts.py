@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 import prespec.report
-from prespec import api, cli
+from prespec import api, audit, cli
 from prespec.demo import PLAN_TEXT, demo_data
 from prespec.verify import run_verdicts
 
@@ -50,9 +50,9 @@ def test_a_run_of_a_never_locked_plan_is_not_verified_as_locked(
     status, out, err = verify_lines(plan, capsys)
     assert status == 0 and err == ""
     assert out[-2:] == [
-        'off   run 1 (log entry 1, report r1): not the locked analysis: the plan was never '
+        ('off   run 1 (log entry 1, report r1): not the locked analysis: the plan was never '
         'locked (run-without-lock, accepted: "no time"); other departures on record: '
-        'unexpected-group',
+        'unexpected-group'),
         "files intact; 1 of 1 run was not the locked analysis: run 1 (never locked)"]
     assert not any(line.startswith("verified") for line in out)
     status, out, err = verify_lines(plan, capsys, "--strict")
@@ -83,9 +83,9 @@ def test_an_overridden_run_names_each_override_with_its_values(
     assert not second.locked and second.version == 1
     # H2's sparse switch to Fisher no longer applies once Fisher is the test: a change too
     assert second.reasons == (
-        'overrides alpha 0.05 → 0.5, hypotheses.H2.test pearson-chi-square → fisher-exact, '
+        ('overrides alpha 0.05 → 0.5, hypotheses.H2.test pearson-chi-square → fisher-exact, '
         'hypotheses.H2.sparse {"min_expected": 5.0, "test": "fisher-exact"} → null '
-        '(override, accepted: "because")',)
+        '(override, accepted: "because")'),)
     assert res.summary == (
         "files intact; 1 of 2 runs was not the locked analysis: run 2 (overrides alpha, "
         "hypotheses.H2.test, hypotheses.H2.sparse)")
@@ -110,8 +110,8 @@ def test_runs_after_an_amendment_after_unblinding_are_not_the_locked_analysis(
     assert [r.locked for r in res.runs] == [True, False]
     assert res.runs[1].version == 2
     assert res.runs[1].reasons == (
-        "the plan was amended after unblinding (version 2 locked after a run on the data; "
-        "amended-after-unblinding)",)
+        ("the plan was amended after unblinding (version 2 locked after a run on the data; "
+        "amended-after-unblinding)"),)
     assert res.summary == ("files intact; 1 of 2 runs was not the locked analysis: run 2 "
                            "(amended after unblinding)")
 
@@ -182,3 +182,38 @@ def test_verdicts_follow_from_the_log_entries_alone() -> None:
     assert third.labels == ("plan changed", "amended after unblinding")
     assert third.reasons[0] == "the plan that ran (sha256:c) is not lock version 2 (sha256:b)"
 
+
+
+def test_amend_after_a_run_warns_before_it_writes(
+        study: tuple[Path, Path], capsys: pytest.CaptureFixture[str]) -> None:
+    plan, data = study
+    api.lock(plan)
+    plan.write_text(PLAN_TEXT.replace("alpha: 0.05", "alpha: 0.025"))
+    heard: list[str] = []
+    api.amend(plan, reason="before any run", warn=heard.append)
+    assert heard == []  # no run on record: nothing to warn of
+    api.run(plan, data, out=plan.parent / "r1")
+    plan.write_text(PLAN_TEXT.replace("alpha: 0.05", "alpha: 0.01"))
+
+    def warn(message: str) -> None:  # at the warning, nothing of the amendment is written yet
+        heard.append(message)
+        assert len(audit.read_lock(audit.lock_path(plan))["versions"]) == 2
+        assert [e["action"] for e in audit.read_log(audit.log_path(plan))][-1] == "run"
+
+    api.amend(plan, reason="the committee asked", warn=warn)
+    assert heard == [(f"{plan}: 1 run on the data on record, so this amendment comes after "
+                     "unblinding: version 3 is recorded as amended-after-unblinding, and verify "
+                     "reports every run of it as not the locked analysis")]
+    entry = audit.read_log(audit.log_path(plan))[-1]
+    assert entry["action"] == "amend"
+    assert [d["code"] for d in entry["deviations"]] == ["amended-after-unblinding"]
+    plan.write_text(PLAN_TEXT.replace("alpha: 0.05", "alpha: 0.02"))
+    capsys.readouterr()
+    assert cli.main(["amend", str(plan), "--reason", "again"]) == 0
+    done = capsys.readouterr()
+    assert done.err == (f"prespec: warning: {plan}: 1 run on the data on record, so this "
+                        "amendment comes after unblinding: version 4 is recorded as "
+                        "amended-after-unblinding, and verify reports every run of it as not "
+                        "the locked analysis\n")
+    assert done.out.splitlines()[0] == (f"amended {plan}: locked as version 4 (after "
+                                        "unblinding: recorded as amended-after-unblinding)")

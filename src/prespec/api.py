@@ -218,11 +218,13 @@ def lock(plan: str | Path, *, actor: str | None = None,
 
 @_serialised
 def amend(plan: str | Path, *, reason: str, actor: str | None = None,
-          sign: str | Path | None = None) -> LockResult:
+          sign: str | Path | None = None,
+          warn: Callable[[str], None] | None = None) -> LockResult:
     """Lock a changed plan as the next version, chained to the previous one.
 
     The entry lists what changed in meaning (as ``prespec history`` shows it); an amendment
-    after a run on the data is recorded as ``amended-after-unblinding``.
+    after a run on the data is recorded as ``amended-after-unblinding`` in the amend entry,
+    and ``warn(message)`` is called with a warning before anything is written.
     """
     from .history import plan_changes
 
@@ -251,6 +253,11 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
             "no amendment after a run",
             f"amendment to version {version}",
         ).to_json())
+        if warn is not None:
+            count = "1 run" if len(runs) == 1 else f"{len(runs)} runs"
+            warn(f"{loaded.path}: {count} on the data on record, so this amendment comes after "
+                 f"unblinding: version {version} is recorded as amended-after-unblinding, and "
+                 "verify reports every run of it as not the locked analysis")
     changes = [str(c) for c in plan_changes(last["plan"], loaded.resolved)]
     _write_version(loaded, doc, record, "amend", actor, deviations, signer, changes)
     return LockResult(loaded.fingerprint, version, True)

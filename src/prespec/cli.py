@@ -212,9 +212,18 @@ def _dispatch(args: argparse.Namespace) -> int:
                 print(f"note: {res.note}")
             print(f"fingerprint: {res.fingerprint}")
     elif args.command == "amend":
-        res = api.amend(args.plan, reason=args.reason, actor=args.actor, sign=args.sign)
+        warned: list[str] = []
+
+        def warn(message: str) -> None:
+            warned.append(message)
+            print(f"prespec: warning: {message}", file=sys.stderr, flush=True)
+
+        res = api.amend(args.plan, reason=args.reason, actor=args.actor, sign=args.sign,
+                        warn=warn)
         if res.created:
-            print(f"amended {args.plan}: locked as version {res.version}")
+            print(f"amended {args.plan}: locked as version {res.version}"
+                  + (" (after unblinding: recorded as amended-after-unblinding)" if warned
+                     else ""))
         else:
             print(f"{args.plan}: {res.note}")
         print(f"fingerprint: {res.fingerprint}")

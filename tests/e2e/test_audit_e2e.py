@@ -41,20 +41,26 @@ def trail(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
     fp = next(line.split()[1] for line in locked if line.startswith("fingerprint: "))
     ok(cli("run", "trial.yaml", "data.csv", "--out", "r1", cwd=study))
     (study / "trial.yaml").write_text(PLAN_TEXT.replace("alpha: 0.05", "alpha: 0.025"))
-    amended = ok(cli("amend", "trial.yaml", "--reason", "steering committee: alpha 0.025",
-                     "--sign", str(root / "statistician.key"), cwd=study))
+    amending = cli("amend", "trial.yaml", "--reason", "steering committee: alpha 0.025",
+                   "--sign", str(root / "statistician.key"), cwd=study)
+    amended = ok(amending)
     (study / "data2.csv").write_text(demo_data().replace(",Gauze,yes,0", ",Gauze,yes,1"))
     second = ok(cli("run", "trial.yaml", "data2.csv", "--out", "r2", "--test",
                     "H2=two-proportion-z", "--accept-deviation", "the monitor asked for a z test",
                     cwd=study))
     return {"root": root, "study": study, "fp": fp, "keys": keys, "amended": amended,
-            "second": second}
+            "amend_warning": amending.stderr, "second": second}
 
 
 def test_amend_and_history(trail: dict[str, object]) -> None:
     study = trail["study"]
     assert isinstance(study, Path)
-    assert trail["amended"][0] == "amended trial.yaml: locked as version 2"  # type: ignore[index]
+    assert trail["amended"][0] == ("amended trial.yaml: locked as version 2 (after unblinding: "  # type: ignore[index]
+                                   "recorded as amended-after-unblinding)")
+    assert trail["amend_warning"] == (
+        "prespec: warning: trial.yaml: 1 run on the data on record, so this amendment comes "
+        "after unblinding: version 2 is recorded as amended-after-unblinding, and verify "
+        "reports every run of it as not the locked analysis\n")
     out = ok(cli("history", "trial.yaml", cwd=study))
     assert out[1].startswith("version 2 ") and out[1].endswith("[amended after unblinding]")
     assert out[2] == "   reason: steering committee: alpha 0.025"
