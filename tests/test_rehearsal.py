@@ -313,7 +313,7 @@ def test_follow_ups_are_listed_under_their_parent(tmp_path: Path,
     assert "sample-size-shortfall" not in [d["code"] for d in res["deviations"]]
 
 
-def test_no_analysed_outcome_is_not_computable_and_still_executes(
+def test_no_analysed_outcome_is_not_computable_and_would_not_compute(
         tmp_path: Path, renders: list[dict[str, Any]],
         capsys: pytest.CaptureFixture[str]) -> None:
     plan = tmp_path / "trial.yaml"
@@ -323,13 +323,23 @@ def test_no_analysed_outcome_is_not_computable_and_still_executes(
     rows[2]["infected"], rows[3]["infected"] = "", " "
     data = tmp_path / "data.csv"
     data.write_text(rows_text(rows))
-    assert cli.main(["rehearse", str(plan), str(data), "--out", str(tmp_path / "r")]) == 0
+    # the rehearsal is written and logged, and exits 2: its confirmatory hypotheses would
+    # have no result in the run
+    assert cli.main(["rehearse", str(plan), str(data), "--out", str(tmp_path / "r")]) == 2
     res = json.loads((tmp_path / "r" / "results.json").read_text())
     assert res["pooled"]["infection"] == {"events": 0, "total": 0, "missing": 2, "rate": None,
                                           "ci": [None, None], "ci_method": "wilson",
                                           "level": 0.95}
-    assert all(h["executed"] for h in res["hypotheses"])
-    assert "0 events of 0 analysed, not computable, 2 missing" in capsys.readouterr().out
+    why = "would not compute: outcome 'infection': all 2 outcomes in the population are blank " \
+        "(missing: exclude)"
+    assert [(h["executed"], h["problem"]) for h in res["hypotheses"]] == [(False, why)] * 2
+    done = capsys.readouterr()
+    assert "0 events of 0 analysed, not computable, 2 missing" in done.out
+    assert f"H1: pearson-chi-square, {why}" in done.out.splitlines()
+    assert done.err == (f"prespec: {plan}: 2 confirmatory hypotheses would not compute in the "
+                        "run: H1, H2 (outcome 'infection': all 2 outcomes in the population are "
+                        "blank (missing: exclude))\n")
+    assert [e["action"] for e in audit.read_log(audit.log_path(plan))] == ["rehearse"]
 
 
 # --- bad input ---------------------------------------------------------------------------

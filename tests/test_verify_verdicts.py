@@ -177,7 +177,7 @@ def test_verdicts_follow_from_the_log_entries_alone() -> None:
     assert first.locked and first.version == 1 and first.report == "r1"
     assert not second.locked and second.look == 1 and second.labels == (
         "amended after unblinding",)
-    assert second.line.startswith("run 2 (interim look 1, log entry 5, report r2): not the "
+    assert second.line.startswith("run 2 (look 1, log entry 5, report r2): not the "
                                   "locked analysis: the plan was amended after unblinding")
     assert third.labels == ("plan changed", "amended after unblinding")
     assert third.reasons[0] == "the plan that ran (sha256:c) is not lock version 2 (sha256:b)"

@@ -7,6 +7,7 @@ Every function takes paths and plain values, returns a small result, and raises 
 from __future__ import annotations
 
 import copy
+import dataclasses
 import fcntl
 import functools
 import getpass
@@ -467,8 +468,22 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     )
     mark_overrides(results, changes)
     action = "look" if look is not None else "run"
-    return publish(loaded.path, out_path, results, numbered=out is None, action=action,
-                   details=look_details(results))
+    outcome = publish(loaded.path, out_path, results, numbered=out is None, action=action,
+                      details=look_details(results))
+    return dataclasses.replace(outcome, procedures=procedures(model))
+
+
+def procedures(model: Any) -> dict[str, str]:
+    """The multiplicity procedure of each family of hypotheses that a run adjusts: ``main``
+    (the plan's ``multiplicity``) and ``<id> pairwise`` (a hypothesis's ``then``)."""
+    from .analysis import MAIN_FAMILY
+
+    main = model.multiplicity
+    out = {MAIN_FAMILY: main if isinstance(main, str) else str(main.method)}
+    for hyp in model.hypotheses:
+        if hyp.then is not None and hyp.role != "exploratory":
+            out[f"{hyp.id} pairwise"] = str(hyp.then.multiplicity)
+    return out
 
 
 def rehearse(plan: str | Path, data: str | Path | None = None, *,

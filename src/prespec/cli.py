@@ -139,6 +139,36 @@ def _print_history(res: Any) -> None:
         print(f"  {change}")
 
 
+def _hypothesis_line(hyp: dict[str, Any], procedures: dict[str, str], interim: bool) -> str:
+    """``H1: pearson-chi-square, p = 0.0463, holm-adjusted p = 0.0926: do not reject H0``: the
+    p-value the decision rests on (adjusted where a procedure applies, named), and the
+    decision; a follow-up behind a closed gate was not tested and says so."""
+    p = hyp.get("p_value")
+    shown = "p not computable" if p is None else f"p = {p:.4g}"
+    flag = "" if hyp.get("pre_specified", True) else " (not pre-specified: override)"
+    head = f"{hyp['id']}: {hyp['test']}, "
+    reject = hyp.get("reject")
+    if hyp.get("role") == "exploratory":
+        return f"{head}nominal {shown}: exploratory, no decision{flag}"
+    if hyp.get("gate") == "closed":
+        return f"{head}nominal {shown}: not tested (gate closed){flag}"
+    if isinstance(hyp.get("looks"), dict):
+        rests = f"nominal {shown}, the look's efficacy boundary decides"
+    elif isinstance(hyp.get("graph"), dict):
+        rests = f"nominal {shown}, the graph over the looks decides"
+    elif reject is None:
+        return f"{head}{shown}: {'not tested at this look' if interim else 'no decision'}{flag}"
+    else:
+        family = str(hyp.get("family"))
+        method = procedures.get(family)
+        adjusted = hyp.get("p_adjusted")
+        within = "" if family == "main" else f" within {family}"
+        rests = (f"{shown} (multiplicity: none)" if method == "none" or adjusted is None else
+                 f"{shown}, {method or 'multiplicity'}-adjusted p = {adjusted:.4g}{within}")
+    decision = "no decision" if reject is None else "reject H0" if reject else "do not reject H0"
+    return f"{head}{rests}: {decision}{flag}"
+
+
 def _print_rehearsal(res: dict[str, Any]) -> None:
     """Pooled figures only: the population, each outcome, the departures, each hypothesis."""
     print("blinded rehearsal: the group column was not read; all figures are pooled")
@@ -157,7 +187,9 @@ def _print_rehearsal(res: dict[str, Any]) -> None:
     for note in res["notes"]:
         print(f"note: {note['code']}: {note['detail']}")
     for hyp in res["hypotheses"]:
-        state = "executes" if hyp["executed"] else f"FAILS: {hyp['problem']}"
+        problem = str(hyp["problem"] or "")
+        state = ("executes" if hyp["executed"] else problem if problem.startswith(
+            "would not compute") else f"FAILS: {problem}")
         print(f"{hyp['id']}: {hyp['test']}, {state}")
     columns = res["data_dictionary"]["columns"]
     print(f"data dictionary: {len(columns)} column use(s) in tables/data-dictionary.csv")
@@ -236,14 +268,10 @@ def _dispatch(args: argparse.Namespace) -> int:
                       counting=_reduction_bar())
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
+        interim = any(isinstance(h.get("looks"), dict) and h["looks"].get("look") !=
+                      h["looks"].get("of") for h in out.results["hypotheses"])
         for hyp in out.results["hypotheses"]:
-            p = hyp["p_value"]
-            shown = "not computable" if p is None else f"p = {p:.4g}"
-            decision = ("exploratory" if hyp["role"] == "exploratory" else
-                        "reject H0" if hyp["reject"] else
-                        "do not reject H0" if hyp["reject"] is not None else "no decision")
-            flag = "" if hyp.get("pre_specified", True) else " (not pre-specified: override)"
-            print(f"{hyp['id']}: {hyp['test']}, {shown}, {decision}{flag}")
+            print(_hypothesis_line(hyp, out.procedures, interim))
             if hyp.get("looks"):
                 print(f"  {look_line(hyp)}")
         for fam in out.results.get("families") or []:
@@ -255,6 +283,14 @@ def _dispatch(args: argparse.Namespace) -> int:
                            engine=args.engine)
         _print_rehearsal(out.results)
         print(out.folder)
+        empty = [h for h in out.results["hypotheses"] if h["role"] != "exploratory"
+                 and str(h["problem"] or "").startswith("would not compute")]
+        if empty:
+            print(f"prespec: {args.plan}: {len(empty)} confirmatory "
+                  f"{'hypothesis' if len(empty) == 1 else 'hypotheses'} would not compute in "
+                  f"the run: {', '.join(h['id'] for h in empty)} ({empty[0]['problem'].removeprefix('would not compute: ')})",
+                  file=sys.stderr)
+            return 2
     elif args.command == "verify":
         if args.report is not None and args.rerun is None:
             raise BadInput("--report goes with --rerun DATA")

@@ -13,7 +13,7 @@ import os
 import re
 import shutil
 import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -28,6 +28,8 @@ class RunOutcome:
     folder: Path
     results: dict[str, Any]
     entry: dict[str, Any]
+    #: the multiplicity procedure of each family of hypotheses (``main``, ``H3 pairwise``)
+    procedures: dict[str, str] = field(default_factory=dict)
 
 
 def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:

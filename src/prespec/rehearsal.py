@@ -16,6 +16,7 @@ and the data dictionary (:mod:`prespec.dictionary`).
 from __future__ import annotations
 
 import csv
+import json
 import os
 import shutil
 import tempfile
@@ -187,12 +188,47 @@ def _diagnose(plan: Any, prepared: Prepared) -> list[Executed]:
     return out
 
 
-def _hypothesis_rows(plan: Any, executed: dict[str, Executed]) -> list[dict[str, Any]]:
+def _shown(values: Any) -> str:
+    return "[" + ", ".join(json.dumps(v, ensure_ascii=False) for v in values or []) + "]"
+
+
+def would_not_compute(hyp: Any, plan: Any, prepared: Prepared) -> str | None:
+    """Why a hypothesis would have no result in the run, from pooled figures only (no unit
+    in the population, or none analysed for its outcome), or None. The dummy allocation
+    cannot change these: they hold whatever the groups."""
+    if prepared.rows_read == 0:
+        return "the data hold no rows"
+    if prepared.analysed == 0:
+        return (f"the population is empty: the population filter (data.include) leaves out "
+                f"all {prepared.rows_read} rows read")
+    counts = prepared.counts_for(hyp.id, hyp.outcome).groups
+    if sum(gc.total for gc in counts) > 0:
+        return None
+    outcome = plan.outcomes[hyp.outcome]
+    unmapped, blank = sum(gc.unmapped for gc in counts), sum(gc.blank for gc in counts)
+    if unmapped:
+        return (f"outcome {hyp.outcome!r} maps no value of column {outcome.column!r}: none of "
+                f"its {unmapped} non-blank values in the population is in event "
+                f"{_shown(outcome.event)} or no_event {_shown(outcome.no_event)}"
+                + (f" ({blank} more blank)" if blank else ""))
+    if blank:
+        return (f"outcome {hyp.outcome!r}: all {blank} outcomes in the population are blank "
+                f"(missing: {outcome.missing})")
+    return f"outcome {hyp.outcome!r}: no unit analysed"
+
+
+def _hypothesis_rows(plan: Any, executed: dict[str, Executed],
+                     prepared: Prepared | None = None) -> list[dict[str, Any]]:
+    """One row per hypothesis and follow-up; one that executed but would have no result in
+    the run (``would_not_compute``) is marked as not executed, with the reason."""
     rows = []
     for hyp in plan.hypotheses:
         subs = [hyp, *(follow_ups(hyp, plan) if hyp.then is not None else [])]
+        empty = would_not_compute(hyp, plan, prepared) if prepared is not None else None
         for sub in subs:
             done = executed.get(sub.id, Executed(sub.id, False, "not reached"))
+            if done.executed and empty is not None:
+                done = Executed(sub.id, False, f"would not compute: {empty}")
             rows.append({"id": sub.id, "title": sub.title, "role": sub.role,
                          "outcome": sub.outcome, "compare": sub.compare, "test": sub.test,
                          "parent": hyp.id if sub is not hyp else None,
@@ -329,7 +365,7 @@ def compute_rehearsal(
         "planned_total": planned_total,
         "analysed_total": prepared.analysed,
         "pooled": {p.outcome: p.to_json() for p in pooled},
-        "hypotheses": _hypothesis_rows(ordinary_plan(plan), executed),
+        "hypotheses": _hypothesis_rows(ordinary_plan(plan), executed, prepared),
         **({"families": rehearsal_families(plan, family_data, executed)}
            if family_data else {}),
         "data_dictionary": dictionary,

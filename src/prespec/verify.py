@@ -314,7 +314,7 @@ class RunVerdict:
 
     @property
     def line(self) -> str:
-        what = f"interim look {self.look}, " if self.look is not None else ""
+        what = f"look {self.look}, " if self.look is not None else ""
         head = f"{self.name} ({what}log entry {self.seq}, report {self.report}): "
         head += (f"the locked analysis (lock version {self.version})" if self.locked else
                  "not the locked analysis: " + "; ".join(self.reasons))

@@ -149,7 +149,11 @@ def test_log_and_verify(trial: dict[str, object]) -> None:
     data = trial["data"]
     assert isinstance(data, list)
     out = ok(cli("verify", "trial.yaml", "--rerun", data[1], cwd=study))
-    assert out[-2].startswith("ok    rerun: 1 report(s) recomputed")
+    assert out[-5].startswith("ok    rerun: 1 report(s) recomputed")
+    assert [line.split(":")[0] for line in out[-4:-1]] == [
+        f"ok    run {k} (look {k}, log entry {k + 1}, report look-{k})" for k in (1, 2, 3)]
+    assert all(line.endswith("the locked analysis (lock version 1)") for line in out[-4:-1])
+    assert out[-1] == "verified: files intact; all 3 runs were the locked analysis"
 
 
 def test_look_on_a_plan_without_looks_and_design(trial: dict[str, object],
