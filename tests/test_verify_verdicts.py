@@ -217,3 +217,17 @@ def test_amend_after_a_run_warns_before_it_writes(
                         "the locked analysis\n")
     assert done.out.splitlines()[0] == (f"amended {plan}: locked as version 4 (after "
                                         "unblinding: recorded as amended-after-unblinding)")
+
+
+def test_a_run_before_the_plan_was_locked_says_so(study: tuple[Path, Path]) -> None:
+    plan, data = study
+    api.run(plan, data, out=plan.parent / "r1", accept_deviation="no time")
+    api.lock(plan)
+    api.run(plan, data, out=plan.parent / "r2")
+    res = api.verify(plan)
+    assert res.runs[0].reasons == (
+        ('the plan was not locked when it ran (locked later, log entry 2; run-without-lock, '
+        'accepted: "no time")'),)
+    assert res.runs[1].locked and res.runs[1].version == 1
+    assert res.summary == ("files intact; 1 of 2 runs was not the locked analysis: run 1 (not "
+                           "locked when it ran)")

@@ -286,10 +286,10 @@ def _dispatch(args: argparse.Namespace) -> int:
         empty = [h for h in out.results["hypotheses"] if h["role"] != "exploratory"
                  and str(h["problem"] or "").startswith("would not compute")]
         if empty:
+            why = str(empty[0]["problem"]).removeprefix("would not compute: ")
             print(f"prespec: {args.plan}: {len(empty)} confirmatory "
                   f"{'hypothesis' if len(empty) == 1 else 'hypotheses'} would not compute in "
-                  f"the run: {', '.join(h['id'] for h in empty)} ({empty[0]['problem'].removeprefix('would not compute: ')})",
-                  file=sys.stderr)
+                  f"the run: {', '.join(h['id'] for h in empty)} ({why})", file=sys.stderr)
             return 2
     elif args.command == "verify":
         if args.report is not None and args.rerun is None:

@@ -335,8 +335,8 @@ def _override_text(dev: dict[str, Any]) -> str:
     return f"{key} {dev.get('expected')} → {dev.get('found')}"
 
 
-def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]]
-                 ) -> RunVerdict:
+def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]],
+                 later_lock: dict[str, Any] | None) -> RunVerdict:
     devs = [d for d in entry.get("deviations") or [] if isinstance(d, dict)]
     codes = [str(d.get("code")) for d in devs]
     locks = [e for e in before if e["action"] in ("lock", "amend")]
@@ -346,8 +346,13 @@ def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]
     labels: list[str] = []
     if in_force is None or "run-without-lock" in codes:
         dev = next((d for d in devs if d.get("code") == "run-without-lock"), {})
-        reasons.append(f"the plan was never locked (run-without-lock{_accepted(dev)})")
-        labels.append("never locked")
+        if later_lock is None:
+            reasons.append(f"the plan was never locked (run-without-lock{_accepted(dev)})")
+            labels.append("never locked")
+        else:
+            reasons.append(f"the plan was not locked when it ran (locked later, log entry "
+                           f"{later_lock['seq']}; run-without-lock{_accepted(dev)})")
+            labels.append("not locked when it ran")
         version = None
     elif entry["plan"] != in_force["plan"]:
         reasons.append(f"the plan that ran ({entry['plan']}) is not lock version {version} "
@@ -381,8 +386,10 @@ def run_verdicts(entries: list[dict[str, Any]]) -> list[RunVerdict]:
     """One verdict per run and look entry of the log, in log order."""
     out = []
     for index, entry in enumerate(e for e in entries if e["action"] in ("run", "look")):
+        later = next((e for e in entries if e["action"] == "lock" and e["seq"] > entry["seq"]),
+                     None)
         out.append(_run_verdict(index + 1, entry,
-                                [e for e in entries if e["seq"] < entry["seq"]]))
+                                [e for e in entries if e["seq"] < entry["seq"]], later))
     return out
 
 
