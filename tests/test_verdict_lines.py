@@ -192,3 +192,24 @@ def test_a_rehearsal_where_only_exploratory_hypotheses_would_not_compute_exits_0
     assert [(h["id"], h["executed"]) for h in results["hypotheses"]] == [
         ("H1", True), ("H2", True), ("H3", True), ("H3:b-vs-a", True), ("H3:c-vs-a", True),
         ("H4", False)]
+
+
+def test_under_looks_the_boundary_decides_and_untested_hypotheses_say_so() -> None:
+    """The line of a hypothesis with looks, one in a graph over looks, and one not tested at
+    an interim look (results.json entries as looks.py writes them)."""
+    base = {"id": "H1", "test": "two-proportion-z", "role": "primary", "family": "main",
+            "p_value": 0.0123, "p_adjusted": None, "gate": None}
+    line = cli._hypothesis_line
+    looked = {**base, "looks": {"look": 1, "of": 3}, "reject": False}
+    assert line(looked, {"main": "holm"}, True) == (
+        "H1: two-proportion-z, nominal p = 0.0123, the look's efficacy boundary decides: "
+        "do not reject H0")
+    graphed = {**base, "graph": {"rejected_at": 2}, "reject": True}
+    assert line(graphed, {"main": "graphical"}, False) == (
+        "H1: two-proportion-z, nominal p = 0.0123, the graph over the looks decides: reject H0")
+    untested = {**base, "id": "H2", "reject": None}
+    assert line(untested, {"main": "holm"}, True) == (
+        "H2: two-proportion-z, p = 0.0123: not tested at this look")
+    plain = {**base, "p_adjusted": 0.0123, "reject": True}
+    assert line(plain, {"main": "none"}, False) == (
+        "H1: two-proportion-z, p = 0.0123 (multiplicity: none): reject H0")
