@@ -32,6 +32,7 @@ from .compiler import (
     compile_locate,
     compile_reduction,
     compile_row_lines,
+    compile_rows,
     quote_identifier,
 )
 from .fingerprint import LineHasher
@@ -176,8 +177,8 @@ class AggregatingEngine(Engine):
         return frame
 
     def rows_query(self, request: CountRequest) -> Query:
-        columns = ", ".join(quote_identifier(c, self.dialect) for c in request.read)
-        return Query(f"SELECT {columns} FROM {self.relation(request)}", {}, self.dialect)
+        return compile_rows(request, self.relation(request), self.dialect,
+                            self.column_kinds())
 
     def _not_empty(self, rows: int, request: CountRequest) -> None:
         if rows == 0:

@@ -330,6 +330,15 @@ def compile_bad_bytes(columns: Sequence[str], relation: str, dialect: str,
     return Query(f"SELECT {sums} FROM {relation}", sql.params, dialect)
 
 
+def compile_rows(request: CountRequest, relation: str, dialect: str,
+                 types: Mapping[str, str]) -> Query:
+    """The cells of every column the request reads, every row; bytes as UTF-8 text."""
+    sql = _Sql(dialect, types)
+    cells = ", ".join(f"{sql.decoded(sql.ident(c))} AS {sql.ident(c)}"
+                      if sql.kind(c) == "binary" else sql.ident(c) for c in request.read)
+    return Query(f"SELECT {cells} FROM {relation}", sql.params, dialect)
+
+
 SET_COLUMN = "prespec_set"  # 1: a row of counts; 0: an id hash seen more than once
 HASH_COLUMN = "prespec_id_hash"
 BLANK_COLUMN = "prespec_blank_ids"

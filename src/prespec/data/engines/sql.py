@@ -19,6 +19,7 @@ message, since the compiled SQL uses PostgreSQL's functions (``btrim``, ``~``).
 from __future__ import annotations
 
 import os
+import warnings
 from collections.abc import Iterator
 from typing import Any, ClassVar
 
@@ -165,7 +166,10 @@ class SqlEngine(AggregatingEngine):
 
             inspector = sa.inspect(self._connection)
             try:
-                described = inspector.get_columns(self._table, schema=self._schema)
+                with warnings.catch_warnings():  # a record type: found by _records below
+                    warnings.filterwarnings("ignore", "Did not recognize type",
+                                            sa.exc.SAWarning)
+                    described = inspector.get_columns(self._table, schema=self._schema)
             except sa.exc.NoSuchTableError:
                 raise DataError(self._no_table(inspector)) from None
             except sa.exc.SQLAlchemyError as exc:
