@@ -627,3 +627,27 @@ def test_a_rehearsal_reads_bytes_as_text_on_every_engine(
     frame = pipeline.blinded_rows(column_cases["model"], source, engine=engine).frame
     rows = sorted(zip(frame["pid"], frame["y"], strict=True))
     assert rows == [(p, y) for p, _, y, _ in BYTES_ROWS]
+
+
+def test_repeated_names_in_a_glob_and_in_a_spark_table(column_cases: dict[str, Any],
+                                                       spark: Any, tmp_path: Path) -> None:
+    """A glob: every file's header is checked and the file named (duckdb, spark); a table of
+    the Spark session: its schema's names."""
+    from prespec.errors import DataError
+
+    good = tmp_path / "a.csv"
+    good.write_text("pid,arm,y\nG1,gauze,1\n", encoding="utf-8")
+    bad = tmp_path / "b.csv"
+    bad.write_text("pid,arm,Arm,y\nG2,gauze,x,1\n", encoding="utf-8")
+    refusal = _names_refusal("arm", "arm", "Arm")
+    for engine in ("duckdb", "spark"):
+        source = DataSource("glob", str(tmp_path / "*.csv"), "*.csv")
+        with pytest.raises(DataError) as refused:
+            count_source(column_cases["model"], source, engine=engine)
+        assert str(refused.value) == f"{bad}: {refusal}", engine
+    spark_view(spark, "repeated_names", pd.DataFrame(
+        {"pid": ["G1"], "arm": ["gauze"], "ARM": ["x"], "y": ["1"]}))
+    source = DataSource("url", "spark://", "the table", table="repeated_names")
+    with pytest.raises(DataError) as refused:
+        count_source(column_cases["model"], source, engine="spark")
+    assert str(refused.value) == f"the table: {_names_refusal('arm', 'arm', 'ARM')}"

@@ -76,9 +76,7 @@ class AggregatingEngine(Engine):
         """``columns.check_names`` on the names as the source holds them, before any reader
         renames them: each file's header for files (a table's engine overrides this)."""
         if self.source.kind == "file":
-            names = columns.file_names(self.source.path)
-            if names is not None:
-                columns.check_names(names, self.source.shown)
+            columns.check_file(self.source.path, self.source.shown)
         elif self.source.kind == "glob":
             columns.check_files(sorted(globbing.glob(self.source.location)))
 

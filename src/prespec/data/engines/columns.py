@@ -174,9 +174,15 @@ def file_names(path: Path) -> list[str] | None:
     return csv_header(path)
 
 
+def check_file(path: Path, where: str) -> None:
+    """``check_names`` on a file's header or schema (nothing when it cannot be read: the
+    engine's reader then says why)."""
+    names = file_names(path)
+    if names is not None:
+        check_names(names, where)
+
+
 def check_files(paths: Iterable[str | Path]) -> None:
-    """``check_names`` on each file's header (a glob: every file, named in the message)."""
+    """``check_file`` on each file of a glob, each named in the message."""
     for name in paths:
-        names = file_names(Path(name))
-        if names is not None:
-            check_names(names, str(name))
+        check_file(Path(name), str(name))

@@ -31,9 +31,7 @@ class PandasEngine(Engine):
         if self._frame is None:
             path = self.source.path
             if path.is_file():
-                names = columns.file_names(path)
-                if names is not None:
-                    columns.check_names(names, self.source.shown)
+                columns.check_file(path, self.source.shown)
                 if self.source.is_parquet:
                     try:
                         self._kinds = columns.parquet_columns(path)[1]
