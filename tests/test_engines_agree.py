@@ -651,3 +651,21 @@ def test_repeated_names_in_a_glob_and_in_a_spark_table(column_cases: dict[str, A
     with pytest.raises(DataError) as refused:
         count_source(column_cases["model"], source, engine="spark")
     assert str(refused.value) == f"the table: {_names_refusal('arm', 'arm', 'ARM')}"
+
+
+def test_blank_names_of_trailing_commas_are_not_repeated_names(column_cases: dict[str, Any],
+                                                               spark: Any,
+                                                               tmp_path: Path) -> None:
+    """A header ending in commas (as spreadsheets write) has blank names, which every file
+    reader names apart; they are not a repeated name, and the counts are the hand count."""
+    data = tmp_path / "trailing.csv"
+    lines = ["pid,arm,y,,"] + [f"{p},{a},{v},," for p, a, v in
+                               zip(NESTED_PIDS, NESTED_ARMS, Y_VALUES, strict=True)]
+    data.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    for engine in ("pandas", "duckdb", "spark"):
+        counted = count_source(column_cases["model"], DataSource("file", str(data), str(data)),
+                               engine=engine)
+        heal = counted.prepared.outcomes["heal"]
+        # gauze N1-N3 events, N4 not; écume N7 event, N5, N6, N8 not
+        assert (heal.of("gauze").events, heal.of("gauze").total, heal.of("écume").events,
+                heal.of("écume").total) == (3, 4, 1, 4), engine

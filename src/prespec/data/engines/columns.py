@@ -56,10 +56,13 @@ def _role(request: CountRequest, column: str) -> str:
 
 
 def check_names(names: Sequence[str], where: str) -> None:
-    """Refuse a header (or a table) in which two names are equal trimmed and ignoring case."""
+    """Refuse a header (or a table) in which two names are equal trimmed and ignoring case
+    (blank names aside)."""
     seen: dict[str, list[int]] = {}
     for position, name in enumerate(names, start=1):
-        seen.setdefault(str(name).strip().casefold(), []).append(position)
+        key = str(name).strip().casefold()
+        if key:  # blank names (trailing commas) every reader names apart; no plan names one
+            seen.setdefault(key, []).append(position)
     for positions in seen.values():
         if len(positions) > 1:
             shown = [f"{p} {str(names[p - 1])!r}" for p in positions]
