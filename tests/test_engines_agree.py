@@ -669,3 +669,19 @@ def test_blank_names_of_trailing_commas_are_not_repeated_names(column_cases: dic
         # gauze N1-N3 events, N4 not; écume N7 event, N5, N6, N8 not
         assert (heal.of("gauze").events, heal.of("gauze").total, heal.of("écume").events,
                 heal.of("écume").total) == (3, 4, 1, 4), engine
+
+
+def test_a_json_column_of_a_table_is_refused(column_cases: dict[str, Any],
+                                            postgres: PostgresServer) -> None:
+    """json and jsonb hold documents, not single values: refused as the nested kinds are."""
+    from prespec.errors import DataError
+
+    for sql_type in ("json", "jsonb"):
+        postgres.load("json_rows", [{"pid": p, "arm": a, "y": str(v)} for p, a, v in
+                                    zip(NESTED_PIDS, NESTED_ARMS, Y_VALUES, strict=True)],
+                      types={"pid": "text", "arm": "text", "y": sql_type})
+        source = DataSource("url", postgres.url(), "json rows", table="json_rows",
+                            password_from=PASSWORD_VARIABLE)
+        with pytest.raises(DataError) as refused:
+            count_source(column_cases["model"], source, engine="sql")
+        assert str(refused.value) == f"json rows: {NESTED_REFUSAL.format('JSON')}", sql_type
