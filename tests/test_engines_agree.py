@@ -366,3 +366,322 @@ def test_run_log_entry_names_engine_and_query(study: dict[str, Any], postgres: P
         query = last["details"]["query"]
         assert "GROUP BY" in query and "'yes'" not in query and "negative-pressure" not in query
     assert api.verify(plan).passed  # an integrity failure would raise
+
+
+# -- columns each engine once read its own way (issue 14, item 11) ------------------------------
+# One rule per case, the same on every engine (prespec.data.engines.columns): bytes are read as
+# UTF-8 text, nested columns are refused, names repeated (trimmed, ignoring case) are refused.
+
+COLUMN_PLAN = """\
+prespec: 1
+title: Invented dressing rows whose columns the engines once read each in its own way
+data:
+  id: pid
+  group: arm
+  groups: [gauze, écume]
+outcomes:
+  heal: {column: y, event: [1], no_event: [0], missing: exclude}
+alpha: 0.05
+multiplicity: none
+hypotheses:
+  - {id: H1, outcome: heal, compare: [gauze, écume], test: fisher-exact}
+"""
+
+# pid, arm (bytes), y (bytes of these digits), note (bytes the plan does not read)
+BYTES_ROWS = [
+    ("B01", b"gauze", "1", b"ok"),  # gauze event
+    ("B02", b"gauze", "1", b"\xff"),  # gauze event; the note is not UTF-8 and not read
+    ("B03", b" gauze ", "1", b"ok"),  # gauze event (trimmed)
+    ("B04", b"gauze", "0", b"ok"),  # gauze no event
+    ("B05", "écume".encode(), "0", b"ok"),  # écume (two bytes for é) no event
+    ("B06", "écume".encode(), "0", None),  # écume no event
+    ("B07", "écume".encode(), "1", b"ok"),  # écume event
+    ("B08", "écume".encode(), "0", b"ok"),  # écume no event
+    ("B09", b"", "1", b"ok"),  # blank group: left out
+    ("B10", None, "0", b"ok"),  # blank (null) group: left out
+]
+# the same rows with two group cells that are not text: a lone 0xff and a NUL
+BAD_BYTES_ROWS = [row if row[0] not in ("B02", "B04") else
+                  (row[0], b"gau\xffze" if row[0] == "B02" else b"gau\x00ze", *row[2:])
+                  for row in BYTES_ROWS]
+Y_VALUES = [1, 1, 1, 0, 0, 0, 1, 0]
+NESTED_PIDS = [f"N{i}" for i in range(1, 9)]
+NESTED_ARMS = ["gauze"] * 4 + ["écume"] * 4
+NESTED_REFUSAL = ("column 'y' (outcomes.heal.column) holds {} values; prespec compares single "
+                  "values (text, numbers, true or false), so give the plan a column of those")
+
+
+def _names_refusal(name: str, first: str, second: str) -> str:
+    return (f"2 columns are named {name!r} (columns 2 {first!r} and 3 {second!r}; names are "
+            "compared trimmed and ignoring case); rename all but one")
+
+
+# case -> (what the file engines read, how PostgreSQL holds it, the answer of every engine):
+# an answer is the tuple (gauze events, gauze total, écume events, écume total, left out)
+# or the refusal after "<source>: ". None for PostgreSQL: a table cannot repeat a name.
+COLUMN_CASES: dict[str, tuple[str, str | None, Any]] = {
+    "bytes": ("parquet", "bytea", (3, 4, 1, 4, 2)),
+    "bytes-not-text": ("parquet", "bytea",
+                       ("column 'arm' (data.group) holds bytes, read as UTF-8 text, and 2 "
+                        "cells are not UTF-8 text (or hold a NUL character)")),
+    "list": ("parquet", "bigint[]", NESTED_REFUSAL.format("list")),
+    "map": ("parquet", "hstore", NESTED_REFUSAL.format("map")),
+    "struct": ("parquet", "prespec_heal_record", NESTED_REFUSAL.format("struct")),
+    "name-and-spaced-name": ("csv", "text", _names_refusal("arm", "arm", " arm")),
+    "name-twice": ("csv", None, _names_refusal("arm", "arm", "arm")),
+    "name-in-two-cases": ("csv", "text", _names_refusal("arm", "arm", "ARM")),
+    "name-twice-parquet": ("parquet", None, _names_refusal("arm", "arm", "arm")),
+}
+
+
+def _column_case_files(folder: Path) -> dict[str, Path]:
+    """Each case as the file the file engines read."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    files = {}
+
+    def bytes_table(rows: list[tuple[Any, ...]]) -> Any:
+        pid, arm, y, note = (list(c) for c in zip(*rows, strict=True))
+        return pa.table({"pid": pid, "arm": pa.array(arm, pa.binary()),
+                         "y": pa.array([v.encode() for v in y], pa.binary()),
+                         "note": pa.array(note, pa.binary())})
+
+    for name, rows in (("bytes", BYTES_ROWS), ("bytes-not-text", BAD_BYTES_ROWS)):
+        files[name] = folder / f"{name}.parquet"
+        pq.write_table(bytes_table(rows), files[name])
+    nested = {"list": pa.array([[v] for v in Y_VALUES], pa.list_(pa.int64())),
+              "map": pa.array([[("a", v)] for v in Y_VALUES], pa.map_(pa.string(), pa.int64())),
+              "struct": pa.array([{"a": v} for v in Y_VALUES], pa.struct([("a", pa.int64())]))}
+    for name, column in nested.items():
+        files[name] = folder / f"{name}.parquet"
+        pq.write_table(pa.table({"pid": NESTED_PIDS, "arm": NESTED_ARMS, "y": column}),
+                       files[name])
+    for name, second in (("name-and-spaced-name", " arm"), ("name-twice", "arm"),
+                         ("name-in-two-cases", "ARM")):
+        files[name] = folder / f"{name}.csv"
+        lines = [f"pid,arm,{second},y"] + [f"{p},{a},x,{v}" for p, a, v in
+                                           zip(NESTED_PIDS, NESTED_ARMS, Y_VALUES, strict=True)]
+        files[name].write_text("\n".join(lines) + "\n", encoding="utf-8")
+    files["name-twice-parquet"] = folder / "name-twice.parquet"
+    pq.write_table(pa.Table.from_arrays(
+        [pa.array(NESTED_PIDS), pa.array(NESTED_ARMS), pa.array(["x"] * 8),
+         pa.array([str(v) for v in Y_VALUES])], names=["pid", "arm", "arm", "y"]),
+        files["name-twice-parquet"])
+    return files
+
+
+def _column_case_tables(server: PostgresServer) -> None:
+    """Each case PostgreSQL can hold as a table named after it (``-`` as ``_``)."""
+    import sqlalchemy as sa
+
+    with server.engine().begin() as conn:
+        conn.execute(sa.text("CREATE EXTENSION IF NOT EXISTS hstore"))
+        conn.execute(sa.text("DROP TYPE IF EXISTS prespec_heal_record CASCADE"))
+        conn.execute(sa.text("CREATE TYPE prespec_heal_record AS (a bigint)"))
+    for name, rows in (("bytes", BYTES_ROWS), ("bytes-not-text", BAD_BYTES_ROWS)):
+        server.load(name.replace("-", "_"),
+                    [{"pid": p, "arm": a, "y": y.encode(), "note": n} for p, a, y, n in rows],
+                    types={"pid": "text", "arm": "bytea", "y": "bytea", "note": "bytea"})
+    cells = {"list": "{{{}}}", "map": '"a"=>"{}"', "struct": "({})"}
+    for name, shape in cells.items():
+        server.load(name, [{"pid": p, "arm": a, "y": shape.format(v)} for p, a, v in
+                           zip(NESTED_PIDS, NESTED_ARMS, Y_VALUES, strict=True)],
+                    types={"pid": "text", "arm": "text", "y": COLUMN_CASES[name][1] or ""})
+    for name, second in (("name-and-spaced-name", " arm"), ("name-in-two-cases", "ARM")):
+        server.load(name.replace("-", "_"),
+                    [{"pid": p, "arm": a, second: "x", "y": str(v)} for p, a, v in
+                     zip(NESTED_PIDS, NESTED_ARMS, Y_VALUES, strict=True)])
+
+
+@pytest.fixture(scope="module")
+def column_cases(tmp_path_factory: pytest.TempPathFactory, postgres: PostgresServer
+                 ) -> dict[str, Any]:
+    folder = tmp_path_factory.mktemp("columns")
+    plan = folder / "plan.yaml"
+    plan.write_text(COLUMN_PLAN, encoding="utf-8")
+    files = _column_case_files(folder)
+    _column_case_tables(postgres)
+    return {"model": load_plan(plan).model, "files": files}
+
+
+def _column_case_source(engine: str, case: str, files: dict[str, Path],
+                        server: PostgresServer) -> DataSource:
+    if engine == "sql":
+        table = case.replace("-", "_")
+        return DataSource("url", server.url(), f"{server.url()} (table {table})", table=table,
+                          password_from=PASSWORD_VARIABLE)
+    return DataSource("file", str(files[case]), str(files[case]))
+
+
+# every case on every engine, but the two PostgreSQL cannot hold (a table repeating a name)
+COLUMN_RUNS = [(case, engine) for case in COLUMN_CASES for engine in ENGINES
+               if engine != "sql" or COLUMN_CASES[case][1] is not None]
+
+
+@pytest.mark.parametrize(("case", "engine"), COLUMN_RUNS)
+def test_column_cases_give_the_same_answer_on_every_engine(
+        column_cases: dict[str, Any], postgres: PostgresServer, spark: Any, case: str,
+        engine: str) -> None:
+    """Each case, on each engine, gives the hand count or the one refusal written above."""
+    from prespec.errors import DataError
+
+    answer = COLUMN_CASES[case][2]
+    source = _column_case_source(engine, case, column_cases["files"], postgres)
+    if isinstance(answer, str):
+        with pytest.raises(DataError) as refused:
+            count_source(column_cases["model"], source, engine=engine)
+        assert str(refused.value) == f"{source.shown}: {answer}"
+        return
+    counted = count_source(column_cases["model"], source, engine=engine)
+    assert counted.engine == engine
+    prepared = counted.prepared
+    heal = prepared.outcomes["heal"]
+    assert (heal.of("gauze").events, heal.of("gauze").total, heal.of("écume").events,
+            heal.of("écume").total, prepared.excluded_group) == answer
+    assert prepared.rows_read == len(BYTES_ROWS)
+    assert [(d.code, d.found) for d in prepared.deviations] == [("unexpected-group",
+                                                                 "(blank)")]
+    reference = count_source(column_cases["model"], _column_case_source(
+        "pandas", case, column_cases["files"], postgres), engine="pandas")
+    assert prepared == reference.prepared
+
+
+# byte strings against Python's strict UTF-8 decoder: valid (ASCII, two-, three- and four-byte
+# forms, the largest code point, a byte-order mark) and not (a lone 0xff, a lone continuation
+# byte, a cut sequence, overlong forms, an encoded surrogate, a code point above U+10FFFF, and
+# a NUL, which is UTF-8 but not a PostgreSQL text)
+UTF8_SAMPLES = [b"", b"gauze", "écume".encode(), "\u20ac".encode(), "\U0001f600".encode(),
+                "\U0010ffff".encode(), b"\xef\xbb\xbfgauze", b"\xff", b"\x80", b"\xc3",
+                b"\xe2\x82", b"\xc0\xaf", b"\xe0\x80\xaf", b"\xed\xa0\x80", b"\xf4\x90\x80\x80",
+                b"\xf8\x88\x80\x80\x80", b"gau\x00ze"]
+
+
+def test_the_bytes_rule_is_pythons_strict_utf8_on_every_sql_dialect(
+        postgres: PostgresServer, spark: Any) -> None:
+    """``_Sql.not_text`` and ``_Sql.text`` of a bytes column, run by DuckDB, PostgreSQL and
+    Spark, agree with ``bytes.decode('utf-8')`` (strict) on every sample, NUL refused."""
+    import duckdb
+    import pyarrow as pa
+    import sqlalchemy as sa
+    from pyspark.sql.types import BinaryType, StringType, StructField, StructType
+
+    from prespec.data.engines.columns import valid_text
+    from prespec.data.engines.compiler import _Sql
+
+    def strict(cell: bytes) -> bool:
+        try:
+            cell.decode("utf-8")
+        except UnicodeDecodeError:
+            return False
+        return b"\x00" not in cell
+
+    expected = {f"S{i:02d}": strict(b) for i, b in enumerate(UTF8_SAMPLES)}
+    assert expected == {f"S{i:02d}": valid_text(b) for i, b in enumerate(UTF8_SAMPLES)}
+    assert sum(expected.values()) == 7  # the first seven are valid text
+    rows = [{"pid": f"S{i:02d}", "b": b} for i, b in enumerate(UTF8_SAMPLES)]
+    found: dict[str, dict[str, bool]] = {}
+    texts: dict[str, dict[str, str]] = {}
+
+    def query(dialect: str, relation: str) -> tuple[str, dict[str, Any]]:
+        sql = _Sql(dialect, {"b": "binary"})
+        text = (f"SELECT pid, {sql.not_text('b')} AS bad, CASE WHEN NOT {sql.not_text('b')} "
+                f"THEN {sql.text('b')} END AS t FROM {relation}")
+        return text, sql.params
+
+    con = duckdb.connect()
+    con.register("samples", pa.table({"pid": [r["pid"] for r in rows],
+                                      "b": pa.array([r["b"] for r in rows], pa.binary())}))
+    text, params = query("duckdb", "samples")
+    result = con.execute(text, params).fetchall()
+    found["duckdb"] = {p: not bad for p, bad, _ in result}
+    texts["duckdb"] = {p: t for p, _, t in result if t is not None}
+    postgres.load("utf8_samples", rows, types={"pid": "text", "b": "bytea"})
+    text, params = query("postgresql", '"utf8_samples"')
+    with postgres.engine().connect() as conn:
+        result = [tuple(r) for r in conn.execute(sa.text(text), params)]
+    found["postgresql"] = {p: not bad for p, bad, _ in result}
+    texts["postgresql"] = {p: t for p, _, t in result if t is not None}
+    schema = StructType([StructField("pid", StringType()), StructField("b", BinaryType())])
+    spark.createDataFrame([(r["pid"], bytearray(r["b"])) for r in rows],
+                          schema).createOrReplaceTempView("utf8_samples")
+    text, params = query("spark", "utf8_samples")
+    result = [tuple(r) for r in spark.sql(text, args=params).collect()]
+    found["spark"] = {p: not bad for p, bad, _ in result}
+    texts["spark"] = {p: t for p, _, t in result if t is not None}
+    decoded = {f"S{i:02d}": b.decode("utf-8").strip() for i, b in enumerate(UTF8_SAMPLES)
+               if expected[f"S{i:02d}"]}
+    for dialect, valid in found.items():
+        assert valid == expected, dialect
+        # blank cells aside, the text is Python's decoding, trimmed
+        assert {p: t for p, t in texts[dialect].items() if t} == {
+            p: t for p, t in decoded.items() if t}, dialect
+
+
+@pytest.mark.parametrize("engine", ENGINES)
+def test_a_rehearsal_reads_bytes_as_text_on_every_engine(
+        column_cases: dict[str, Any], postgres: PostgresServer, spark: Any,
+        engine: str) -> None:
+    """The rows a rehearsal reads (no group column): the outcome's bytes as UTF-8 text."""
+    source = _column_case_source(engine, "bytes", column_cases["files"], postgres)
+    frame = pipeline.blinded_rows(column_cases["model"], source, engine=engine).frame
+    rows = sorted(zip(frame["pid"], frame["y"], strict=True))
+    assert rows == [(p, y) for p, _, y, _ in BYTES_ROWS]
+
+
+def test_repeated_names_in_a_glob_and_in_a_spark_table(column_cases: dict[str, Any],
+                                                       spark: Any, tmp_path: Path) -> None:
+    """A glob: every file's header is checked and the file named (duckdb, spark); a table of
+    the Spark session: its schema's names."""
+    from prespec.errors import DataError
+
+    good = tmp_path / "a.csv"
+    good.write_text("pid,arm,y\nG1,gauze,1\n", encoding="utf-8")
+    bad = tmp_path / "b.csv"
+    bad.write_text("pid,arm,Arm,y\nG2,gauze,x,1\n", encoding="utf-8")
+    refusal = _names_refusal("arm", "arm", "Arm")
+    for engine in ("duckdb", "spark"):
+        source = DataSource("glob", str(tmp_path / "*.csv"), "*.csv")
+        with pytest.raises(DataError) as refused:
+            count_source(column_cases["model"], source, engine=engine)
+        assert str(refused.value) == f"{bad}: {refusal}", engine
+    spark_view(spark, "repeated_names", pd.DataFrame(
+        {"pid": ["G1"], "arm": ["gauze"], "ARM": ["x"], "y": ["1"]}))
+    source = DataSource("url", "spark://", "the table", table="repeated_names")
+    with pytest.raises(DataError) as refused:
+        count_source(column_cases["model"], source, engine="spark")
+    assert str(refused.value) == f"the table: {_names_refusal('arm', 'arm', 'ARM')}"
+
+
+def test_blank_names_of_trailing_commas_are_not_repeated_names(column_cases: dict[str, Any],
+                                                               spark: Any,
+                                                               tmp_path: Path) -> None:
+    """A header ending in commas (as spreadsheets write) has blank names, which every file
+    reader names apart; they are not a repeated name, and the counts are the hand count."""
+    data = tmp_path / "trailing.csv"
+    lines = ["pid,arm,y,,"] + [f"{p},{a},{v},," for p, a, v in
+                               zip(NESTED_PIDS, NESTED_ARMS, Y_VALUES, strict=True)]
+    data.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    for engine in ("pandas", "duckdb", "spark"):
+        counted = count_source(column_cases["model"], DataSource("file", str(data), str(data)),
+                               engine=engine)
+        heal = counted.prepared.outcomes["heal"]
+        # gauze N1-N3 events, N4 not; écume N7 event, N5, N6, N8 not
+        assert (heal.of("gauze").events, heal.of("gauze").total, heal.of("écume").events,
+                heal.of("écume").total) == (3, 4, 1, 4), engine
+
+
+def test_a_json_column_of_a_table_is_refused(column_cases: dict[str, Any],
+                                            postgres: PostgresServer) -> None:
+    """json and jsonb hold documents, not single values: refused as the nested kinds are."""
+    from prespec.errors import DataError
+
+    for sql_type in ("json", "jsonb"):
+        postgres.load("json_rows", [{"pid": p, "arm": a, "y": str(v)} for p, a, v in
+                                    zip(NESTED_PIDS, NESTED_ARMS, Y_VALUES, strict=True)],
+                      types={"pid": "text", "arm": "text", "y": sql_type})
+        source = DataSource("url", postgres.url(), "json rows", table="json_rows",
+                            password_from=PASSWORD_VARIABLE)
+        with pytest.raises(DataError) as refused:
+            count_source(column_cases["model"], source, engine="sql")
+        assert str(refused.value) == f"json rows: {NESTED_REFUSAL.format('JSON')}", sql_type

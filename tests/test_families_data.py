@@ -205,3 +205,26 @@ def test_every_column_is_carried_to_the_levels(tmp_path: Path,
     monkeypatch.setattr(data_families, "prepare", spy)
     family_data(frame, plan, plan.hypotheses[0], data)
     assert seen == [list(frame.columns)] * 3
+
+
+def test_a_repeated_column_name_is_refused_as_every_engine_refuses_it(tmp_path: Path) -> None:
+    """A plan with families is read by pandas alone; a header naming two columns 'gel' (one
+    spaced and capitalised) is refused as the engines refuse it (prespec.data.engines.columns),
+    not counted from whichever column pandas keeps."""
+    from prespec.data.engines.base import DataSource
+    from prespec.environment import environment
+    from prespec.execute import compute_results
+
+    plan, _, data = setup(tmp_path, BASE)
+    header, rest = data.read_text().split("\n", 1)
+    assert header.endswith(",safety_set")
+    data.write_text(header.replace(",safety_set", ", Gel") + "\n" + rest)
+    with pytest.raises(DataError) as caught:
+        compute_results(plan_path=tmp_path / "plan.yaml", plan=plan,
+                        fingerprint="sha256:" + "0" * 64, version=None, data_path=None,
+                        actor="tester", environment=environment(), deviations=[], notes=[],
+                        previous_data=None, source=DataSource("file", str(data), str(data)),
+                        engine="pandas")
+    assert str(caught.value) == (
+        f"{data}: 2 columns are named 'gel' (columns 2 'gel' and 6 ' Gel'; names are compared "
+        "trimmed and ignoring case); rename all but one")

@@ -129,6 +129,7 @@ def compute_results(
     analysis of a plan with looks (``looks.py``). Family templates (``over``) are run per level
     (:mod:`prespec.families`) and listed under ``families``; ``progress(what, done, total)`` is
     called as a family's levels are prepared."""
+    from .data.engines.columns import check_file
     from .data.engines.pipeline import count_source
     from .data.engines.sources import data_file_field
 
@@ -137,6 +138,7 @@ def compute_results(
     family_data: list[Any] = []
     if templates(plan):
         path = family_file(source, engine)
+        check_file(path, source.shown)  # a repeated column name, as every engine refuses it
         frame = read_data(path)
         data_hash = file_sha256(path)
         prepared, family_data = prepare_run(frame, plan, path, progress)

@@ -9,6 +9,7 @@ blank or duplicate ids, computes the data fingerprint, and looks up the ids an e
 from __future__ import annotations
 
 import abc
+import glob as globbing
 from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from typing import Any, ClassVar
@@ -18,17 +19,20 @@ import pandas as pd
 
 from ...canonical import file_sha256
 from ...errors import DataError
+from . import columns
 from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, Engine, Reduction
 from .compiler import (
     BLANK_COLUMN,
     SET_COLUMN,
     Query,
+    compile_bad_bytes,
     compile_blank_ids,
     compile_counts,
     compile_duplicate_ids,
     compile_locate,
     compile_reduction,
     compile_row_lines,
+    compile_rows,
     quote_identifier,
 )
 from .fingerprint import LineHasher
@@ -68,7 +72,16 @@ class AggregatingEngine(Engine):
         return None
 
     # -- the shared work ---------------------------------------------------------------------
+    def check_header(self) -> None:
+        """``columns.check_names`` on the names as the source holds them, before any reader
+        renames them: each file's header for files (a table's engine overrides this)."""
+        if self.source.kind == "file":
+            columns.check_file(self.source.path, self.source.shown)
+        elif self.source.kind == "glob":
+            columns.check_files(sorted(globbing.glob(self.source.location)))
+
     def check_columns(self, request: CountRequest) -> dict[str, str]:
+        self.check_header()
         kinds = self.column_kinds()
         present = list(kinds)
         for column, role in request.needed:
@@ -77,6 +90,12 @@ class AggregatingEngine(Engine):
                                 f"data (columns: {', '.join(present)})")
         for column in request.read:
             quote_identifier(column, self.dialect)
+        columns.check_nested(kinds, request)
+        binary = columns.binary_columns(kinds, request)
+        if binary:
+            found = self.fetch(compile_bad_bytes(binary, self.relation(request), self.dialect,
+                                                 kinds))
+            columns.refuse_bad_bytes(request, {c: int(found[c].iloc[0] or 0) for c in binary})
         return kinds
 
     def check_ids(self, request: CountRequest, relation: str, kinds: dict[str, str]) -> None:
@@ -156,8 +175,8 @@ class AggregatingEngine(Engine):
         return frame
 
     def rows_query(self, request: CountRequest) -> Query:
-        columns = ", ".join(quote_identifier(c, self.dialect) for c in request.read)
-        return Query(f"SELECT {columns} FROM {self.relation(request)}", {}, self.dialect)
+        return compile_rows(request, self.relation(request), self.dialect,
+                            self.column_kinds())
 
     def _not_empty(self, rows: int, request: CountRequest) -> None:
         if rows == 0:

@@ -12,8 +12,9 @@ pasted into the text.
 
 Each ``compile_*`` function returns a ``Query``: the SQL text with named placeholders in the
 dialect's style (DuckDB ``$p1``; PostgreSQL through SQLAlchemy and Spark SQL ``:p1``) and the
-parameters by name. Column kinds (``types``): ``text``, ``integer``, ``float``, ``bool`` or
-``other`` (cast to text); a CSV read as text has only ``text`` columns.
+parameters by name. Column kinds (``types``): ``text``, ``integer``, ``float``, ``bool``,
+``binary`` (bytes, read as UTF-8 text: ``columns.py``) or ``other`` (cast to text); a CSV read
+as text has only ``text`` columns.
 """
 
 from __future__ import annotations
@@ -24,9 +25,10 @@ from typing import Any
 
 from ...matching import as_number, as_text
 from .base import KEEP_COLUMN, WEIGHT_COLUMN, ColumnMap, CountRequest, Filter
+from .columns import UTF8_HEX_PATTERN
 
 DIALECTS: tuple[str, ...] = ("duckdb", "postgresql", "spark")
-COLUMN_KINDS: tuple[str, ...] = ("text", "integer", "float", "bool", "other")
+COLUMN_KINDS: tuple[str, ...] = ("text", "integer", "float", "bool", "binary", "other")
 # what str.strip() removes: every character for which str.isspace() holds (a test checks the
 # list against Python's own, which takes a second to compute at import)
 WHITESPACE = ("\t\n\x0b\x0c\r\x1c\x1d\x1e\x1f \x85\xa0\u1680\u2000\u2001\u2002\u2003\u2004"
@@ -171,7 +173,32 @@ class _Sql:
                     f"ELSE CAST({x} AS {self.text_type}) END")
         if kind == "bool":
             return f"CASE WHEN {x} THEN {self.bind('True')} ELSE {self.bind('False')} END"
+        if kind == "binary":
+            return self._trim(self.decoded(x))
         return self._trim(f"CAST({x} AS {self.text_type})")
+
+    def decoded(self, x: str) -> str:
+        """Bytes as UTF-8 text (checked first by ``compile_bad_bytes``: never invalid here)."""
+        if self.dialect == "duckdb":
+            return f"decode({x})"
+        if self.dialect == "postgresql":
+            return f"convert_from({x}, {self.bind('UTF8')})"
+        return f"decode({x}, {self.bind('UTF-8')})"
+
+    def not_text(self, column: str) -> str:
+        """TRUE for a non-NULL bytes cell that is not UTF-8 text or holds a NUL
+        (``columns.UTF8_HEX_PATTERN``; Spark: the bytes do not survive a decoding and an
+        encoding, as Java's strict decoder replaces what is malformed)."""
+        x = self.ident(column)
+        if self.dialect == "duckdb":
+            valid = f"regexp_matches(lower(hex({x})), {self.bind(UTF8_HEX_PATTERN)})"
+        elif self.dialect == "postgresql":
+            valid = f"(encode({x}, {self.bind('hex')}) ~ {self.bind(UTF8_HEX_PATTERN)})"
+        else:
+            text = self.decoded(x)
+            valid = (f"(encode({text}, {self.bind('UTF-8')}) = {x} AND "
+                     f"instr({text}, char(0)) = 0)")
+        return f"({x} IS NOT NULL AND NOT {valid})"
 
     def blank(self, column: str) -> str:
         """TRUE for a blank cell, FALSE otherwise (never NULL)."""
@@ -182,14 +209,14 @@ class _Sql:
             nan = (f"{x} = CAST({self.bind('NaN')} AS double precision)"
                    if self.dialect == "postgresql" else f"isnan({x})")
             return f"({x} IS NULL OR {nan})"
-        if kind == "other":
+        if kind in ("other", "binary"):
             return f"({x} IS NULL OR {self.text(column)} = {self.bind('')})"
         return f"({x} IS NULL)"
 
     def number(self, column: str) -> str:
         """The cell as a finite double, NULL where it is not a plain number."""
         x, kind = self.ident(column), self.kind(column)
-        if kind in ("text", "other"):
+        if kind in ("text", "binary", "other"):
             t = self.text(column)
             return f"CASE WHEN {self._regex(t)} THEN {self._to_double(t)} END"
         if kind == "integer":
@@ -210,7 +237,7 @@ class _Sql:
                 texts.append(as_text(value))
         parts = []
         if numbers:
-            if self.kind(column) in ("text", "other"):
+            if self.kind(column) in ("text", "binary", "other"):
                 # the plain spelling of the number first: a cheap test that implies equality
                 shown = ", ".join(self.bind(as_text(n)) for n in dict.fromkeys(numbers))
                 parts.append(f"{self.text(column)} IN ({shown})")
@@ -291,6 +318,25 @@ def compile_counts(request: CountRequest, relation: str, dialect: str,
     text = (f"SELECT {', '.join(outer_cols)}, COUNT(*) AS {sql.ident(WEIGHT_COLUMN)} "
             f"FROM (SELECT {inner} FROM {relation}) AS prespec_rows GROUP BY {positions}")
     return Query(text, sql.params, dialect)
+
+
+def compile_bad_bytes(columns: Sequence[str], relation: str, dialect: str,
+                      types: Mapping[str, str]) -> Query:
+    """Per bytes column, how many cells are not UTF-8 text (``_Sql.not_text``): one row."""
+    sql = _Sql(dialect, types)
+    one, zero = sql.bind(1), sql.bind(0)
+    sums = ", ".join(f"SUM(CASE WHEN {sql.not_text(c)} THEN {one} ELSE {zero} END) AS "
+                     f"{sql.ident(c)}" for c in columns)
+    return Query(f"SELECT {sums} FROM {relation}", sql.params, dialect)
+
+
+def compile_rows(request: CountRequest, relation: str, dialect: str,
+                 types: Mapping[str, str]) -> Query:
+    """The cells of every column the request reads, every row; bytes as UTF-8 text."""
+    sql = _Sql(dialect, types)
+    cells = ", ".join(f"{sql.decoded(sql.ident(c))} AS {sql.ident(c)}"
+                      if sql.kind(c) == "binary" else sql.ident(c) for c in request.read)
+    return Query(f"SELECT {cells} FROM {relation}", sql.params, dialect)
 
 
 SET_COLUMN = "prespec_set"  # 1: a row of counts; 0: an id hash seen more than once

@@ -43,6 +43,14 @@ def _kind(duck_type: str) -> str:
     name = duck_type.upper()
     if name in _INTEGERS:
         return "integer"
+    if name == "BLOB":
+        return "binary"
+    if name.endswith("]"):  # INTEGER[] (a list), VARCHAR[3] (an array)
+        return "list"
+    if name.startswith("MAP("):
+        return "map"
+    if name.startswith(("STRUCT(", "UNION(")):
+        return "struct"
     return _KINDS.get(name, "other")
 
 

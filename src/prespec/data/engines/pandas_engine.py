@@ -1,6 +1,7 @@
 """The ``pandas`` engine: one file read whole into memory; ``prepare`` counts the full frame.
 
-Errors name file lines; the data fingerprint is the file's SHA-256.
+Errors name file lines; the data fingerprint is the file's SHA-256. The column checks every
+engine makes (``columns.py``) come first: repeated names, nested columns, bytes as UTF-8.
 """
 
 from __future__ import annotations
@@ -10,6 +11,7 @@ import pandas as pd
 from ...canonical import file_sha256
 from ...errors import DataError
 from ..read import read_data
+from . import columns
 from .base import CountRequest, DataSource, Engine, Reduction
 
 
@@ -23,15 +25,37 @@ class PandasEngine(Engine):
                             f"{source.shown}: the pandas engine reads files, not databases")
         super().__init__(source)
         self._frame: pd.DataFrame | None = None
+        self._kinds: dict[str, str] = {}
 
     def _read(self) -> pd.DataFrame:
         if self._frame is None:
-            self._frame = read_data(self.source.path)
+            path = self.source.path
+            if path.is_file():
+                columns.check_file(path, self.source.shown)
+                if self.source.is_parquet:
+                    try:
+                        self._kinds = columns.parquet_columns(path)[1]
+                    except Exception:  # noqa: BLE001 - read_data says what is wrong
+                        self._kinds = {}
+            self._frame = read_data(path)
         return self._frame
 
+    def _checked(self, request: CountRequest) -> pd.DataFrame:
+        """The frame, after the nested check, with the bytes of the plan's columns decoded."""
+        frame = self._read()
+        present = [c for c in request.read if c in frame.columns]
+        columns.check_nested(self._kinds, request)
+        bad: dict[str, int] = {}
+        for column in columns.binary_columns(self._kinds, request):
+            if column in present:
+                cells, bad[column] = columns.decode_bytes(frame[column])
+                frame[column] = pd.Series(cells, index=frame.index, dtype=object)
+        columns.refuse_bad_bytes(request, bad)
+        return frame
+
     def reduce(self, request: CountRequest) -> Reduction:
-        return Reduction(frame=self._read(), engine=self.name,
+        return Reduction(frame=self._checked(request), engine=self.name,
                          data_hash=file_sha256(self.source.path))
 
     def rows(self, request: CountRequest) -> pd.DataFrame:
-        return self._read()
+        return self._checked(request)

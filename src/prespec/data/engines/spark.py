@@ -28,6 +28,7 @@ from typing import Any, ClassVar
 import pandas as pd
 
 from ...errors import BadInput, DataError
+from . import columns
 from .aggregate import AggregatingEngine
 from .base import CountRequest, DataSource
 from .compiler import Query, quote_identifier, quote_table
@@ -141,8 +142,13 @@ def _storage_level() -> Any:
     return StorageLevel.MEMORY_AND_DISK
 
 
+_OTHER_KINDS = {"BinaryType": "binary", "ArrayType": "list", "MapType": "map",
+                "StructType": "struct"}
+
+
 def _kind(data_type: Any) -> str:
-    return _KINDS.get(type(data_type).__name__, "other")
+    name = type(data_type).__name__
+    return _KINDS.get(name) or _OTHER_KINDS.get(name, "other")
 
 
 class SparkEngine(AggregatingEngine):
@@ -236,6 +242,17 @@ class SparkEngine(AggregatingEngine):
                                 f"({spark_message(exc)})") from None
             self._kinds = kinds
         return quote_identifier(self._view, self.dialect)
+
+    def check_header(self) -> None:
+        """A table: ``columns.check_names`` on its schema's names; files: their headers."""
+        if not self.source.table:
+            super().check_header()
+            return
+        try:
+            names = list(self.spark.table(quote_table(self.source.table, self.dialect)).columns)
+        except _spark_errors():
+            return  # relation() says what is wrong
+        columns.check_names(names, self.source.shown)
 
     def column_kinds(self) -> dict[str, str]:
         self.relation()

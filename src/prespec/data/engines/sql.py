@@ -19,12 +19,14 @@ message, since the compiled SQL uses PostgreSQL's functions (``btrim``, ``~``).
 from __future__ import annotations
 
 import os
+import warnings
 from collections.abc import Iterator
 from typing import Any, ClassVar
 
 import pandas as pd
 
 from ...errors import BadInput, DataError
+from . import columns
 from .aggregate import AggregatingEngine
 from .base import CountRequest, DataSource
 from .compiler import Query, compile_row_lines, quote_table
@@ -90,9 +92,18 @@ def _split_table(name: str, shown: str) -> tuple[str | None, str]:
 def column_kind(sql_type: Any) -> str:
     """The compiler's kind of an SQLAlchemy column type."""
     import sqlalchemy as sa
+    from sqlalchemy.dialects.postgresql import HSTORE
 
     if isinstance(sql_type, sa.Enum):  # a String to SQLAlchemy, but btrim() refuses it
         return "other"
+    if isinstance(sql_type, sa.LargeBinary):  # bytea: read as UTF-8 text (columns.py)
+        return "binary"
+    if isinstance(sql_type, sa.ARRAY):
+        return "list"
+    if isinstance(sql_type, HSTORE):
+        return "map"
+    if isinstance(sql_type, sa.JSON):  # json, jsonb
+        return "JSON"
     if isinstance(sql_type, sa.Boolean):
         return "bool"
     if isinstance(sql_type, sa.Integer):
@@ -122,6 +133,7 @@ class SqlEngine(AggregatingEngine):
         url = database_url(source)
         self._schema, self._table = _split_table(source.table, source.shown)
         self._kinds: dict[str, str] | None = None
+        self._names: list[str] = []
         self._connection: Any = None
         try:
             self._engine = sa.create_engine(url, poolclass=sa.pool.NullPool)
@@ -145,7 +157,7 @@ class SqlEngine(AggregatingEngine):
         if engine is not None:
             engine.dispose()
 
-    def relation(self, request: CountRequest) -> str:
+    def relation(self, request: CountRequest | None) -> str:
         return quote_table(self.source.table or "", self.dialect)
 
     def column_kinds(self) -> dict[str, str]:
@@ -154,7 +166,10 @@ class SqlEngine(AggregatingEngine):
 
             inspector = sa.inspect(self._connection)
             try:
-                described = inspector.get_columns(self._table, schema=self._schema)
+                with warnings.catch_warnings():  # a record type: found by _records below
+                    warnings.filterwarnings("ignore", "Did not recognize type",
+                                            sa.exc.SAWarning)
+                    described = inspector.get_columns(self._table, schema=self._schema)
             except sa.exc.NoSuchTableError:
                 raise DataError(self._no_table(inspector)) from None
             except sa.exc.SQLAlchemyError as exc:
@@ -162,8 +177,26 @@ class SqlEngine(AggregatingEngine):
                                 f"{self.source.table!r} ({_first_line(exc)})") from None
             finally:
                 self._connection.rollback()
+            self._names = [str(c["name"]) for c in described]
             self._kinds = {str(c["name"]): column_kind(c["type"]) for c in described}
+            for name in self._records():
+                self._kinds[name] = "struct"
         return self._kinds
+
+    def _records(self) -> list[str]:
+        """The columns of a composite (record) type, which SQLAlchemy does not recognise."""
+        found = self.fetch(Query(
+            "SELECT a.attname AS name FROM pg_attribute AS a JOIN pg_type AS t ON t.oid = "
+            "a.atttypid WHERE a.attrelid = to_regclass(:rec_table) AND a.attnum > 0 AND NOT "
+            "a.attisdropped AND t.typtype = :rec_type",
+            {"rec_table": self.relation(None), "rec_type": "c"}, self.dialect))
+        return [str(n) for n in found["name"]]
+
+    def check_header(self) -> None:
+        """``columns.check_names`` on the table's column names (a table cannot repeat a name
+        exactly, but ``arm``, `` arm`` and ``ARM`` can stand side by side)."""
+        self.column_kinds()
+        columns.check_names(self._names, self.source.shown)
 
     def _no_table(self, inspector: Any) -> str:
         where = f"schema {self._schema!r}" if self._schema else "the database"
