@@ -172,12 +172,12 @@ def ratio_discriminant(x1: Any, n1: Any, x2: Any, n2: Any, ratio: float) -> Any:
 
 def _odds_ratio_mle(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) of two proportions with odds ratio ψ; see
-    ``_odds_ratio_cells``."""
-    p1, _, p2, _ = _odds_ratio_cells(x1, n1, x2, n2, odds_ratio)
+    ``odds_ratio_cells``."""
+    p1, _, p2, _ = odds_ratio_cells(x1, n1, x2, n2, odds_ratio)
     return p1, p2
 
 
-def _odds_ratio_cells(
+def odds_ratio_cells(
     x1: int, n1: int, x2: int, n2: int, odds_ratio: float
 ) -> tuple[float, float, float, float]:
     """(p̃1, 1 − p̃1, p̃2, 1 − p̃2), the maximum likelihood estimates with odds ratio ψ and
@@ -240,8 +240,9 @@ def _mn_odds_share(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> flo
     """
     if odds_ratio == 0.0:
         return 1.0
-    t1, u1, t2, u2 = _odds_ratio_cells(x1, n1, x2, n2, odds_ratio)
-    difference = x1 - n1 * t1
+    t1, u1, t2, u2 = odds_ratio_cells(x1, n1, x2, n2, odds_ratio)
+    # x1 − n1p̃1 = n1q̃1 − (n1 − x1): the form with the smaller numbers loses fewer digits
+    difference = x1 - n1 * t1 if t1 <= u1 else n1 * u1 - (n1 - x1)
     v1, v2 = n1 * t1 * u1, n2 * t2 * u2
     total = n1 + n2
     harmonic = 0.0 if v1 + v2 == 0.0 else v1 * v2 / (v1 + v2)
