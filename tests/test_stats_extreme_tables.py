@@ -223,3 +223,15 @@ def test_likelihood_ratio_twins_agree_on_extreme_tables(
         np.array([events[0]]), totals[0], np.array([events[1]]), totals[1],
         SimpleNamespace(alternative="two-sided"))
     assert float(grid[0]) == pytest.approx(want, rel=1e-13, abs=0.0)
+
+
+@pytest.mark.parametrize("x1, n1, x2, n2, alternative", FISHER_LARGE)
+def test_design_fisher_twin_agrees_on_large_tables(
+        x1: int, n1: int, x2: int, n2: int, alternative: str) -> None:
+    """The exact-power enumeration's p-values (design.exactpower.fisher_row) are the scalar
+    test's on the same tables (they were 5e-10 apart for N > 1e5, log-gamma based)."""
+    from prespec.design.exactpower import fisher_row
+
+    low, p = fisher_row(x1 + x2, n1, n2, alternative)
+    want = fisher_exact(x1, n1, x2, n2, alternative=alternative).p_value
+    assert float(p[x1 - low]) == pytest.approx(want, rel=1e-12, abs=0.0)
