@@ -319,7 +319,8 @@ def breslow_day_tarone(strata: Sequence[Stratum]) -> TestResult:
         n1 * cells[:, 0], n1 * cells[:, 1], n2 * cells[:, 2], n2 * cells[:, 3]
     )
     variance = 1.0 / (1.0 / expected + 1.0 / lacking + 1.0 / second + 1.0 / second_lacking)
-    residual = a - expected
+    # a − E = (n1 − E) − (n1 − a): the form with the smaller numbers loses fewer digits
+    residual = np.where(cells[:, 0] <= cells[:, 1], a - expected, lacking - (n1 - a))
     statistic = math.fsum(residual**2 / variance) - math.fsum(residual) ** 2 / math.fsum(variance)
     statistic = max(0.0, statistic)  # >= 0 by Cauchy–Schwarz; guard the last rounding
     return TestResult(method, statistic, df, float(stats.chi2.sf(statistic, df)), "two-sided")
