@@ -230,3 +230,54 @@ def test_unconditional_exact_test_on_groups_too_large_is_bad_input(tmp_path: Pat
     big = prepared({"a": (10, 1500), "b": (20, 1500), "c": (5, 10)})
     with pytest.raises(DataError, match=r"hypotheses.P: barnard-exact: .*\(1000 per group\)"):
         analyse(load_plan(path).model, big)
+
+
+@pytest.mark.parametrize("counts, limit", [
+    ({"a": (20, 20), "b": (0, 20), "c": (0, 20)}, -1.0),  # 0/20 vs 20/20
+    ({"a": (0, 1), "b": (0, 1), "c": (1, 1)}, 1.0),  # n = 1 in each group
+])
+def test_zero_width_wald_interval_gets_a_note(tmp_path: Path, counts: dict, limit: float) -> None:
+    """H2 compares c with a by Wald: every unit in each group had the same outcome, so the
+    standard error is 0 and the interval a point, which a note explains."""
+    entries, notes = analyse(plan(tmp_path), prepared(counts))
+    h2 = entries[1]
+    # statsmodels.stats.proportion.confint_proportions_2indep, Wald, gives the same point
+    low, high = confint_proportions_2indep(counts["c"][0], counts["c"][1], counts["a"][0],
+                                           counts["a"][1], method="wald", compare="diff",
+                                           alpha=0.10)
+    assert (low, high) == pytest.approx((limit, limit), abs=1e-15)
+    assert h2["estimate"]["ci"] == [limit, limit]
+    zero = [n for n in notes if n.code == "zero-width-interval"]
+    assert [n.detail.split(":")[0] for n in zero] == ["H2"]
+    assert f"the wald interval is [{limit:g}, {limit:g}], of zero width" in zero[0].detail
+    assert "variance estimate is 0" in zero[0].detail
+
+
+def test_no_zero_width_note_for_an_ordinary_interval(tmp_path: Path) -> None:
+    _, notes = analyse(plan(tmp_path), prepared(TABLE))
+    assert not [n for n in notes if n.code == "zero-width-interval"]
+
+
+@pytest.mark.parametrize("function, strata, limit", [
+    # Sato: all events in the second group, none in the first, in both strata
+    ("mantel_haenszel_risk_difference", [(0, 10, 10, 10), (0, 5, 7, 7)], -1.0),
+    # Greenland–Robins: every unit an event in both groups of both strata
+    ("mantel_haenszel_risk_ratio", [(10, 10, 10, 10), (5, 5, 7, 7)], 1.0),
+])
+def test_zero_width_stratified_interval_gets_a_note(function: str, strata: list,
+                                                    limit: float) -> None:
+    """The note is written wherever an estimate enters the results, and the report's notes
+    table shows it."""
+    from prespec.analysis import estimate_json
+    from prespec.report import sections
+    from prespec.stats import stratified
+
+    est = getattr(stratified, function)(strata, 0.95)
+    assert (est.low, est.high) == (limit, limit)
+    notes: list = []
+    out = estimate_json(est, 0.95, "H7", notes)
+    assert out is not None and out["ci"] == [limit, limit]
+    assert [(n.code, n.detail.split(":")[0]) for n in notes] == [("zero-width-interval", "H7")]
+    assert f"the {est.method} interval is [{limit:g}, {limit:g}]" in notes[0].detail
+    page = sections.departures({"deviations": [], "notes": [n.to_json() for n in notes]})
+    assert "zero-width-interval" in page and f"[{limit:g}, {limit:g}], of zero width" in page

@@ -10,6 +10,7 @@ import json
 import math
 from fractions import Fraction
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -377,3 +378,58 @@ def test_fisher_k_with_large_groups_uses_the_weaker_bound() -> None:
     three = fisher_exact_k([5, 0, 1], [100_000] * 3)
     assert three.tables_enumerated == 28  # 6 events in 3 groups: C(8, 2) # common practice
     assert 0.0 < three.result.p_value < 1.0
+
+
+def _fisher_one_sided_fraction(a: int, n1: int, b: int, n2: int, side: str) -> Fraction:
+    """Fisher's one-sided p-value of the table (a, b) as an exact fraction (math.comb)."""
+    s = a + b
+    support = range(max(0, s - n2), min(s, n1) + 1)
+    kept = [j for j in support if (j >= a if side == "greater" else j <= a)]
+    return Fraction(sum(math.comb(n1, j) * math.comb(n2, s - j) for j in kept),
+                    math.comb(n1 + n2, s))
+
+
+def _exact_boschloo_region(a: int, n1: int, b: int, n2: int, side: str) -> np.ndarray:
+    observed = _fisher_one_sided_fraction(a, n1, b, n2, side)
+    return np.array([[_fisher_one_sided_fraction(i, n1, j, n2, side) <= observed
+                      for j in range(n2 + 1)] for i in range(n1 + 1)])
+
+
+@pytest.mark.parametrize("a, n1, b, n2, side", [
+    (1, 5, 119, 120, "greater"), (3, 20, 5, 20, "less"), (3, 20, 5, 20, "greater"),
+    (7, 15, 2, 15, "greater"), (0, 10, 10, 10, "less"), (4, 9, 4, 9, "greater"),
+])
+def test_boschloo_region_is_the_exact_ordering(a: int, n1: int, b: int, n2: int,
+                                               side: str) -> None:
+    """The tables counted as at least as extreme are exactly those whose Fisher p-value, as an
+    exact fraction, is at most the observed one: exact ties in, near ties out."""
+    from prespec.stats.exact import _boschloo_region
+
+    region, _ = _boschloo_region(a, n1, b, n2, side)
+    assert np.array_equal(region, _exact_boschloo_region(a, n1, b, n2, side))
+
+
+def test_boschloo_near_ties_are_not_ties() -> None:
+    """(1/5 vs 119/120, greater): tables whose Fisher p-value exceeds the observed one by up to
+    2e-8 relative used to count as ties and gave p = 1. The reference: the exact region, then
+    1 − min over π of the probability of the tables outside it, minimised by scipy on a grid
+    of 2000 intervals."""
+    from scipy import optimize
+    from scipy.stats import binom
+
+    outside = np.argwhere(~_exact_boschloo_region(1, 5, 119, 120, "greater"))
+    assert len(outside) > 0
+
+    def mass_outside(rate: float) -> float:
+        return float(np.sum(binom.pmf(outside[:, 0], 5, rate) * binom.pmf(outside[:, 1], 120, rate)))
+
+    edges = np.linspace(1e-9, 1 - 1e-9, 2001)
+    values = [mass_outside(r) for r in edges]
+    k = int(np.argmin(values))
+    found = optimize.minimize_scalar(mass_outside, bounds=(edges[max(k - 1, 0)],
+                                     edges[min(k + 1, 2000)]), method="bounded",
+                                     options={"xatol": 1e-14})
+    want = 1.0 - min(found.fun, min(values))
+    got = boschloo_exact(1, 5, 119, 120, alternative="greater").p_value
+    assert want < 0.99999  # not 1: the near ties are out
+    assert got == pytest.approx(want, rel=1e-9, abs=0.0)

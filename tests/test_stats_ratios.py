@@ -305,3 +305,79 @@ def test_ratio_mle_matches_the_quadratic_solved_in_50_digits(
     assert p2 == pytest.approx(float(exact), rel=1e-13, abs=1e-300)
     assert 1.0 - p2 == pytest.approx(float(1 - exact), rel=1e-9, abs=1e-15)
     assert p1 == pytest.approx(min(1.0, ratio * float(exact)), rel=1e-13)
+
+
+def odds_ratio_cells_50_digits(x1: int, n1: int, x2: int, n2: int, psi: object) -> tuple:
+    """(p̃1, 1 − p̃1, p̃2, 1 − p̃2) under odds ratio ψ, from the textbook root of
+    n2(ψ − 1)p² + (n1ψ + n2 − m(ψ − 1))p − m = 0 (Miettinen and Nurminen 1985) worked in
+    50-digit decimal arithmetic, where its cancellation costs nothing."""
+    from decimal import Decimal, getcontext
+
+    getcontext().prec = 50
+    psi = Decimal(psi)  # type: ignore[arg-type]
+    m = x1 + x2
+    b = n1 * psi + n2 - m * (psi - 1)
+    discriminant = b * b + 4 * n2 * (psi - 1) * m
+    p2 = 2 * m / (b + discriminant.sqrt())
+    p1 = psi * p2 / (1 + p2 * (psi - 1))
+    return p1, 1 - p1, p2, 1 - p2
+
+
+@pytest.mark.parametrize("x1, n1, x2, n2", [
+    (1, 2, 99999, 100000), (1, 5, 499999, 500000), (1, 1000000, 999999, 1000000),
+    (3, 10, 5, 12), (5, 5, 1, 100), (0, 7, 7, 7), (40, 80, 20, 80), (2, 3, 1, 200000),
+])
+@pytest.mark.parametrize("psi", [1e-13, 3.3e-8, 7.3e-7, 0.05, 0.5, 1.0, 1.0000001, 3.0, 5e4, 1e9])
+def test_odds_ratio_mle_and_complements_match_50_digits(
+        x1: int, n1: int, x2: int, n2: int, psi: float) -> None:
+    """The constrained MLEs and their complements to 1e-12 relative, ψ far below and above 1
+    (the second form of each root, b < 0, is taken for ψ > 1 with m > n1 + (n2 + m)/ψ)."""
+    # common practice: a quadratic's roots checked in extended precision
+    from prespec.stats.ratios import odds_ratio_cells
+
+    got = odds_ratio_cells(x1, n1, x2, n2, psi)
+    want = odds_ratio_cells_50_digits(x1, n1, x2, n2, psi)
+    for value, exact in zip(got, want, strict=True):
+        assert value == pytest.approx(float(exact), rel=1e-12, abs=1e-300)
+
+
+def _mn_odds_lower_limit_50_digits(x1: int, n1: int, x2: int, n2: int, z: float) -> float:
+    """The Miettinen–Nurminen lower limit for the odds ratio by bisection on log ψ of the
+    statistic Z(ψ) = (x1 − n1p̃1)·sqrt((1/v1 + 1/v2)(N − 1)/N) in 50-digit arithmetic, for
+    the same normal quantile z (its float value taken exactly)."""
+    from decimal import Decimal
+
+    total = n1 + n2
+    zz = Decimal(z)
+
+    def statistic(psi: Decimal) -> Decimal:
+        p1, q1, p2, q2 = odds_ratio_cells_50_digits(x1, n1, x2, n2, psi)
+        v1, v2 = n1 * p1 * q1, n2 * p2 * q2
+        return (x1 - n1 * p1) * ((1 / v1 + 1 / v2) * (total - 1) / total).sqrt()
+
+    high = Decimal(x1 * (n2 - x2)) / Decimal((n1 - x1) * x2)
+    low = high / Decimal(10) ** 40
+    for _ in range(400):
+        middle = (low * high).sqrt()
+        if statistic(middle) > zz:
+            low = middle
+        else:
+            high = middle
+    return float((low * high).sqrt())
+
+
+@pytest.mark.parametrize("x1, n1, x2, n2, level", [
+    (1, 2, 99999, 100000, 0.90), (1, 5, 499999, 500000, 0.95),
+    (1, 1000000, 999999, 1000000, 0.90), (3, 10, 5, 12, 0.95), (20, 50, 5, 60, 0.99),
+])
+def test_mn_odds_ratio_limits_on_extreme_tables_match_50_digits(
+        x1: int, n1: int, x2: int, n2: int, level: float) -> None:
+    """The lower limit (and the upper, as 1/the lower limit of the swapped table) against a
+    50-digit search; the first three tables lost up to 4e-4 relative when the discriminant
+    was formed as b² + 4n2(ψ − 1)m and 1 − p̃ by subtraction."""
+    z = float(scipy.stats.norm.isf((1.0 - level) / 2.0))
+    estimate = miettinen_nurminen_odds_ratio(x1, n1, x2, n2, level)
+    assert estimate.low == pytest.approx(_mn_odds_lower_limit_50_digits(x1, n1, x2, n2, z),
+                                         rel=1e-12, abs=0.0)
+    swapped_low = _mn_odds_lower_limit_50_digits(x2, n2, x1, n1, z)
+    assert estimate.high == pytest.approx(1.0 / swapped_low, rel=1e-12, abs=0.0)

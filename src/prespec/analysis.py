@@ -219,7 +219,18 @@ def estimate_json(est: Any, level: float, who: str, notes: list[Note]) -> dict[s
     }
     if out["note"]:
         notes.append(Note("interval-adjustment", f"{who}: {out['note']}"))
+    low, high = out["ci"]
+    if low is not None and low == high:
+        notes.append(Note("zero-width-interval", _zero_width_words(who, est.method, low)))
     return out
+
+
+def _zero_width_words(who: str, method: str, limit: float) -> str:
+    """Why an interval collapsed to a point: its variance estimate is 0 at these counts."""
+    return (f"{who}: the {method} interval is [{limit:g}, {limit:g}], of zero width: its "
+            "variance estimate is 0 at these counts (as when every participant in each "
+            "compared group, in every stratum, had the same outcome); zero width does not mean "
+            "the estimate is certain, and a score or exact interval keeps a width")
 
 
 # --- the estimand in words (ICH E9(R1)) ---

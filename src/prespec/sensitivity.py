@@ -37,7 +37,7 @@ from scipy import special, stats
 
 from .data import GroupCounts
 from .plan import vocabulary
-from .stats.proportions import FISHER_TIE_TOLERANCE
+from .stats.proportions import FISHER_TIE_TOLERANCE, deviance_terms
 from .stats.ratios import ratio_discriminant
 
 #: Tests whose tipping-point grid is computed here, on arrays (see the module docstring).
@@ -118,15 +118,15 @@ def _pearson(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Any) -> np.n
 
 def _likelihood_ratio(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int,
                       hyp: Any) -> np.ndarray:
-    """G² = 2 Σ O ln(O/E) over the four cells (0 ln 0 = 0); nan at a zero column margin."""
+    """G² = 2 Σ O ln(O/E) over the four cells (0 ln 0 = 0), summed as the non-negative
+    ``stats.proportions.deviance_terms``; nan at a zero column margin."""
     n = n1 + n2
     s = x1 + x2
     g2 = np.zeros(np.broadcast(x1, x2).shape)
     with np.errstate(divide="ignore", invalid="ignore"):
         for observed_, row, column in ((x1, n1, s), (n1 - x1, n1, n - s), (x2, n2, s),
                                        (n2 - x2, n2, n - s)):
-            g2 = g2 + special.xlogy(observed_, observed_ / (row * column / n))
-    g2 = np.maximum(0.0, 2.0 * g2)
+            g2 = g2 + deviance_terms(observed_, row, column, n)
     g2 = np.where((s == 0) | (s == n), np.nan, g2)
     return stats.chi2.sf(g2, 1)
 

@@ -18,6 +18,7 @@ from scipy import stats
 
 from prespec import methods
 from prespec.design.exactpower import FisherTables, binomial_p_values
+from prespec.stats.proportions import deviance_terms
 
 ArrayTest = Callable[[np.ndarray], np.ndarray]
 
@@ -87,13 +88,14 @@ def pearson(events: np.ndarray, totals: np.ndarray, *, continuity: bool,
 
 def likelihood_ratio(events: np.ndarray, totals: np.ndarray) -> np.ndarray:
     """The G² test (``stats.proportions.likelihood_ratio``) on every row."""
-    e_ev, e_non = expected_events(events, totals)
-    o_ev, o_non = _observed(events, totals)
-    undefined = (e_ev == 0.0).any(axis=1) | (e_non == 0.0).any(axis=1)
+    grand = int(totals.sum())
+    column = events.sum(axis=1)[:, None]
+    undefined = (column[:, 0] == 0) | (column[:, 0] == grand)
     with np.errstate(divide="ignore", invalid="ignore"):
-        t_ev = np.where(o_ev > 0, o_ev * np.log(o_ev / e_ev), 0.0)
-        t_non = np.where(o_non > 0, o_non * np.log(o_non / e_non), 0.0)
-    g2 = np.maximum(0.0, 2.0 * np.stack([t_ev, t_non], axis=2).reshape(len(events), -1).sum(1))
+        terms = (deviance_terms(events, totals[None, :], column, grand)
+                 + deviance_terms(totals[None, :] - events, totals[None, :], grand - column,
+                                  grand))
+    g2 = np.where(undefined, 0.0, terms.sum(axis=1))
     return np.where(undefined, np.nan, chi2_p(g2, totals.size - 1))
 
 

@@ -19,18 +19,14 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special, stats
+from scipy import stats
 
 from prespec.stats.proportions import FISHER_TIE_TOLERANCE
 from prespec.stats.single import BINOMIAL_TIE_TOLERANCE
+from prespec.stats.tails import hypergeometric_pmf
 
 #: Probability left out of each tail of each group's binomial law in an enumeration.
 TAIL = 1e-12
-
-
-def _log_choose(n: np.ndarray | int, k: np.ndarray) -> np.ndarray:
-    return special.gammaln(np.asarray(n, float) + 1) - special.gammaln(k + 1.0) \
-        - special.gammaln(np.asarray(n, float) - k + 1)
 
 
 def _two_sided(prob: np.ndarray, tolerance: float) -> np.ndarray:
@@ -56,9 +52,9 @@ def fisher_row(t: int, n1: int, n2: int, alternative: str) -> tuple[int, np.ndar
     1992;7:131–177 (the two-sided rule by probability ordering).
     """
     low, high = max(0, t - n2), min(t, n1)
-    x = np.arange(low, high + 1, dtype=float)
-    log_p = _log_choose(n1, x) + _log_choose(n2, t - x) - _log_choose(n1 + n2, np.float64(t))
-    prob = np.exp(log_p)
+    # the point probabilities as ``stats.tails`` forms them (Loader's ratio of binomials), so
+    # that the p-values agree with ``stats.proportions.fisher_exact`` for large totals too
+    prob = hypergeometric_pmf(np.arange(low, high + 1), n1 + n2, t, n1)
     if alternative == "greater":
         p = np.cumsum(prob[::-1])[::-1]
     elif alternative == "less":

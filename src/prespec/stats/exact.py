@@ -15,8 +15,9 @@ bounds on the probability that the remaining groups can reach, or draws them at 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from fractions import Fraction
 from numbers import Integral
 
 import numpy as np
@@ -227,11 +228,51 @@ def _fisher_one_sided_log(n1: int, n2: int, side: str) -> np.ndarray:
     return np.minimum(by_table, 0.0)
 
 
-def _boschloo_one_sided(a: int, m: int, b: int, n: int, side: str) -> tuple[float, float]:
-    """(p-value, Fisher's one-sided p of the observed table) for one side of Boschloo's test."""
+def _fisher_one_sided_exact(n1: int, n2: int, side: str) -> Callable[[int, int], Fraction]:
+    """Fisher's one-sided p-value of the table (a, b) as an exact fraction, from the integer
+    tail Σ C(n1, j)C(n2, s − j) over j >= a (``greater``) or j <= a (``less``), s = a + b,
+    over C(n1 + n2, s); the tails of each margin s are formed once."""
+    tails: dict[int, list[int]] = {}
+
+    def p_value(a: int, b: int) -> Fraction:
+        s = a + b
+        if s not in tails:
+            low, high = max(0, s - n2), min(s, n1)
+            terms = [math.comb(n1, j) * math.comb(n2, s - j) for j in range(low, high + 1)]
+            if side == "greater":
+                terms.reverse()
+            running, cumulative = 0, []
+            for term in terms:
+                running += term
+                cumulative.append(running)
+            if side == "greater":
+                cumulative.reverse()
+            tails[s] = [low, *cumulative]
+        low, *cumulative = tails[s]
+        return Fraction(cumulative[a - low], math.comb(n1 + n2, s))
+
+    return p_value
+
+
+def _boschloo_region(a: int, m: int, b: int, n: int, side: str) -> tuple[np.ndarray, float]:
+    """(the tables whose Fisher one-sided p-value is at most the observed one, the observed
+    log p-value). The log p-values order the tables to about 1e-13; those within a relative
+    TIE_TOLERANCE of the observed one, where that is too coarse to tell a tie from a table
+    just less extreme, are decided by exact integer arithmetic."""
     log_fisher = _fisher_one_sided_log(m, n, side)
     observed = log_fisher[a, b]
-    region = log_fisher <= observed + _LOG_TIE
+    region = log_fisher <= observed - _LOG_TIE
+    close = np.argwhere(~region & (log_fisher <= observed + _LOG_TIE))
+    exact = _fisher_one_sided_exact(m, n, side)
+    target = exact(a, b)
+    for i, j in close:
+        region[i, j] = exact(int(i), int(j)) <= target
+    return region, float(observed)
+
+
+def _boschloo_one_sided(a: int, m: int, b: int, n: int, side: str) -> tuple[float, float]:
+    """(p-value, Fisher's one-sided p of the observed table) for one side of Boschloo's test."""
+    region, observed = _boschloo_region(a, m, b, n, side)
     return _maximum_over_rate(_region_log_coefficients(region, m, n)), math.exp(observed)
 
 
@@ -240,8 +281,9 @@ def boschloo_exact(x1: int, n1: int, x2: int, n2: int, *, alternative: str) -> T
 
     For ``greater`` the tables are ordered by Fisher's one-sided p-value P(X1 >= a | a + b)
     (``less``: P(X1 <= a | a + b)); the p-value is the largest, over the common rate π, of the
-    probability of the tables whose Fisher p-value is at most the observed one (within a
-    relative 1e-7, so that equal values computed by different routes count as ties). The
+    probability of the tables whose Fisher p-value is at most the observed one, ties decided
+    exactly (tables within a relative 1e-7 of the observed p-value are compared in exact
+    integer arithmetic, so a table just less extreme is not counted as a tie). The
     two-sided p-value is twice the smaller one-sided p-value, at most 1, as in
     scipy.stats.boschloo_exact. ``statistic`` is the observed Fisher one-sided p-value (of the
     side with the smaller p-value when two-sided), as scipy reports it; ``df`` is ``None``.

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from scipy import stats
@@ -17,6 +18,7 @@ from prespec.stats import _checks
 from prespec.stats._normal import normal_p_value
 from prespec.stats.results import TestResult
 from prespec.stats.tables import expected_counts
+from prespec.stats.tails import hypergeometric_tail
 
 #: Relative tolerance for tables as probable as the observed one in the two-sided Fisher test.
 FISHER_TIE_TOLERANCE = 1e-7
@@ -127,9 +129,9 @@ def fisher_exact(
     population, events = n1 + n2, x1 + x2
     law = stats.hypergeom(population, events, n1)
     if alt == "greater":
-        p = float(law.sf(x1 - 1))
+        p = hypergeometric_tail(x1, population, events, n1, upper=True)
     elif alt == "less":
-        p = float(law.cdf(x1))
+        p = hypergeometric_tail(x1, population, events, n1, upper=False)
     else:
         p = _fisher_two_sided(x1, law, max(0, events - n2), min(events, n1))
     return TestResult(method, None, None, min(1.0, p), alt)
@@ -147,12 +149,40 @@ def _fisher_two_sided(x1: int, law: stats.rv_discrete, low: int, high: int) -> f
     # The hypergeometric law is unimodal, so the counted tables are the two tails.
     below = np.flatnonzero(counted[:mode])
     above = np.flatnonzero(counted[mode + 1 :])
+    population, events, drawn = (int(v) for v in law.args)
     p = 0.0
     if below.size:
-        p += float(law.cdf(support[below[-1]]))
+        p += hypergeometric_tail(int(support[below[-1]]), population, events, drawn, upper=False)
     if above.size:
-        p += float(law.sf(support[mode + 1 + above[0]] - 1))
+        p += hypergeometric_tail(int(support[mode + 1 + above[0]]), population, events, drawn,
+                                 upper=True)
     return p
+
+
+def deviance_terms(observed: Any, row: Any, column: Any, total: Any) -> np.ndarray:
+    """2[O ln(O/E) − (O − E)] for each cell, E = row·column/total: the cell's share of G².
+
+    The terms sum to G² = 2 Σ O ln(O/E) (the (O − E) sum to zero over a table with fixed
+    margins) and each is >= 0, so their sum does not cancel when G² is tiny. Each is
+    E·h(d), h(d) = (1 + d)ln(1 + d) − d, d = (O − E)/E = (O·total − row·column)/(row·column)
+    formed from the integer counts (exactly: Python integers once total reaches 2^31), h by its series Σ (−d)^k/(k(k − 1)),
+    k >= 2, for |d| < 0.1, and 1 at O = 0 (the limit of O ln O). Arrays broadcast; the cells'
+    expected counts must be > 0.
+    """
+    exact = np.int64 if int(total) < 2**31 else object
+    observed, row, column = (np.asarray(v).astype(exact) for v in (observed, row, column))
+    product = row * column
+    scale = np.int64(total) if exact is np.int64 else int(total)
+    d = (observed * scale - product).astype(float) / product.astype(float)
+    series = np.zeros(d.shape)
+    power = d * d
+    for k in range(2, 20):  # |d| < 0.1: the 19th term is below 1e-18 of the first
+        series = series + power / (k * (k - 1))
+        power = -power * d
+    with np.errstate(divide="ignore", invalid="ignore"):
+        direct = (1.0 + d) * np.log1p(d) - d
+    h = np.where(observed == 0, 1.0, np.where(np.abs(d) < 0.1, series, direct))
+    return 2.0 * (product.astype(float) / float(total)) * h
 
 
 def likelihood_ratio(
@@ -180,8 +210,9 @@ def likelihood_ratio(
     expected = expected_counts(ev, tot)
     if np.any(expected == 0.0):
         return TestResult(method, math.nan, df, math.nan, alt)
-    observed = np.column_stack([np.asarray(ev, float), np.asarray(tot, float) - ev])
-    positive = observed > 0.0
-    g2 = 2.0 * float(np.sum(observed[positive] * np.log(observed[positive] / expected[positive])))
-    g2 = max(0.0, g2)  # rounding can leave a tiny negative sum when O = E
+    events_total, grand = sum(ev), sum(tot)
+    rows = [[t, t] for t in tot]
+    observed = [[e, t - e] for e, t in zip(ev, tot, strict=True)]
+    columns = [[events_total, grand - events_total]] * len(ev)
+    g2 = math.fsum(deviance_terms(observed, rows, columns, grand).ravel())
     return TestResult(method, g2, df, float(stats.chi2.sf(g2, df)), alt)

@@ -171,12 +171,29 @@ def ratio_discriminant(x1: Any, n1: Any, x2: Any, n2: Any, ratio: float) -> Any:
 
 
 def _odds_ratio_mle(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> tuple[float, float]:
-    """Maximum likelihood estimates (p̃1, p̃2) of two proportions with odds ratio ψ.
+    """Maximum likelihood estimates (p̃1, p̃2) of two proportions with odds ratio ψ; see
+    ``odds_ratio_cells``."""
+    p1, _, p2, _ = odds_ratio_cells(x1, n1, x2, n2, odds_ratio)
+    return p1, p2
 
-    p̃2 is the root in [0, 1] of n2(ψ − 1)p² + (n1ψ + n2 − m(ψ − 1))p − m = 0, m = x1 + x2
-    (Miettinen and Nurminen 1985), computed as 2m/(b + sqrt(b² + 4n2(ψ − 1)m)), whose
-    denominator is positive for every ψ > 0 (so ψ = 1, where the quadratic is linear, needs no
-    special case); p̃1 = ψp̃2/(1 + p̃2(ψ − 1)). odds_ratio must be > 0 and finite.
+
+def odds_ratio_cells(
+    x1: int, n1: int, x2: int, n2: int, odds_ratio: float
+) -> tuple[float, float, float, float]:
+    """(p̃1, 1 − p̃1, p̃2, 1 − p̃2), the maximum likelihood estimates with odds ratio ψ and
+    their complements, each to full relative precision.
+
+    p̃2 is the root in [0, 1] of n2(ψ − 1)p² + bp − m = 0, b = n1ψ + n2 − m(ψ − 1),
+    m = x1 + x2 (Miettinen and Nurminen 1985), and q̃2 = 1 − p̃2 the matching root of
+    n2(ψ − 1)q² − b'q + ψ(N − m) = 0, b' = ψ(n1 + 2n2 − m) + (m − n2), the same quadratic
+    in q = 1 − p. Both share the discriminant b² + 4n2(ψ − 1)m, formed here as the sum of two
+    non-negative terms, (ψ(n1 − m) + (n2 − m))² + 4ψm(N − m): equal in algebra but free of
+    the cancellation near a double root (ψ far below 1 with m near n2, e.g. one event in a
+    small first group against all but one in a large second). Each root is taken in the form
+    that adds numbers of one sign: 2m/(b + √disc) while b >= 0 (always so for ψ <= 1, and ψ
+    = 1, where the quadratic is linear, needs no special case), else (√disc − b)/(2n2(ψ − 1));
+    likewise for q̃2. Then 1 + p̃2(ψ − 1) = q̃2 + ψp̃2, so p̃1 = ψp̃2/(q̃2 + ψp̃2) and
+    q̃1 = q̃2/(q̃2 + ψp̃2), with no difference taken. odds_ratio must be > 0 and finite.
 
     References
     ----------
@@ -184,11 +201,24 @@ def _odds_ratio_mle(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> tu
     1985;4:213–226.
     """
     m = x1 + x2
-    b = n1 * odds_ratio + n2 - m * (odds_ratio - 1.0)
-    root = 2.0 * m / (b + math.sqrt(max(0.0, b * b + 4.0 * n2 * (odds_ratio - 1.0) * m)))
-    p2 = min(1.0, max(0.0, root))
-    p1 = odds_ratio * p2 / (1.0 + p2 * (odds_ratio - 1.0))
-    return min(1.0, max(0.0, p1)), p2
+    total = n1 + n2
+    psi = odds_ratio
+    spread = psi * (n1 - m) + (n2 - m)
+    root_disc = math.sqrt(spread * spread + 4.0 * psi * m * (total - m))
+    b = psi * (n1 - m) + (n2 + m)
+    if b >= 0.0:
+        p2 = 2.0 * m / (b + root_disc)
+    else:  # then ψ > 1
+        p2 = (root_disc - b) / (2.0 * n2 * (psi - 1.0))
+    b_complement = psi * (n1 + 2 * n2 - m) + (m - n2)
+    if b_complement >= 0.0:
+        q2 = 2.0 * psi * (total - m) / (b_complement + root_disc)
+    else:  # then ψ < 1
+        q2 = (b_complement - root_disc) / (2.0 * n2 * (psi - 1.0))
+    p2, q2 = min(1.0, max(0.0, p2)), min(1.0, max(0.0, q2))
+    scale = q2 + psi * p2
+    p1, q1 = psi * p2 / scale, q2 / scale
+    return min(1.0, max(0.0, p1)), min(1.0, max(0.0, q1)), p2, q2
 
 
 def _koopman_share(x1: int, n1: int, x2: int, n2: int, ratio: float) -> float:
@@ -210,9 +240,10 @@ def _mn_odds_share(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> flo
     """
     if odds_ratio == 0.0:
         return 1.0
-    t1, t2 = _odds_ratio_mle(x1, n1, x2, n2, odds_ratio)
-    difference = x1 - n1 * t1
-    v1, v2 = n1 * t1 * (1.0 - t1), n2 * t2 * (1.0 - t2)
+    t1, u1, t2, u2 = odds_ratio_cells(x1, n1, x2, n2, odds_ratio)
+    # x1 − n1p̃1 = n1q̃1 − (n1 − x1): the form with the smaller numbers loses fewer digits
+    difference = x1 - n1 * t1 if t1 <= u1 else n1 * u1 - (n1 - x1)
+    v1, v2 = n1 * t1 * u1, n2 * t2 * u2
     total = n1 + n2
     harmonic = 0.0 if v1 + v2 == 0.0 else v1 * v2 / (v1 + v2)
     denominator = math.sqrt(difference * difference + harmonic * total / (total - 1))

@@ -17,6 +17,7 @@ from scipy import stats
 from prespec.stats import _checks
 from prespec.stats._normal import normal_p_value
 from prespec.stats.results import Estimate, TestResult
+from prespec.stats.tails import binomial_tail
 
 #: Relative tolerance for outcomes as probable as the observed one in the two-sided test.
 BINOMIAL_TIE_TOLERANCE = 1e-7
@@ -53,9 +54,9 @@ def binomial_exact(x: int, n: int, null_rate: float, *, alternative: str) -> Tes
     alt = _checks.alternative(alternative)
     law = stats.binom(n, rate)
     if alt == "greater":
-        p = float(law.sf(x - 1))
+        p = binomial_tail(x, n, rate, upper=True)
     elif alt == "less":
-        p = float(law.cdf(x))
+        p = binomial_tail(x, n, rate, upper=False)
     else:
         p = _binomial_two_sided(x, n, rate, law)
     return TestResult("binomial-exact", None, None, min(1.0, p), alt)
@@ -71,11 +72,12 @@ def _binomial_two_sided(x: int, n: int, rate: float, law: stats.rv_discrete) -> 
         # the far side is [ceil(n p0), n], where the probabilities fall with j
         far = np.arange(math.ceil(mean), n + 1)
         count = int(np.count_nonzero(law.pmf(far) <= limit))
-        return float(law.cdf(x)) + float(law.sf(n - count))
+        return binomial_tail(x, n, rate, upper=False) + binomial_tail(
+            n - count + 1, n, rate, upper=True)
     # the far side is [0, floor(n p0)], where the probabilities rise with j
     far = np.arange(0, math.floor(mean) + 1)
     count = int(np.count_nonzero(law.pmf(far) <= limit))
-    return float(law.cdf(count - 1)) + float(law.sf(x - 1))
+    return binomial_tail(count - 1, n, rate, upper=False) + binomial_tail(x, n, rate, upper=True)
 
 
 def one_proportion_z(x: int, n: int, null_rate: float, *, alternative: str) -> TestResult:

@@ -22,6 +22,7 @@ from scipy import stats
 
 from prespec.stats import _checks
 from prespec.stats._normal import normal_p_value
+from prespec.stats.ratios import odds_ratio_cells
 from prespec.stats.results import Estimate, TestResult
 
 Stratum = tuple[int, int, int, int]
@@ -306,16 +307,20 @@ def breslow_day_tarone(strata: Sequence[Stratum]) -> TestResult:
     if k < 2 or r == 0.0 or s == 0.0:
         return TestResult(method, math.nan, df, math.nan, "two-sided")
     psi = r / s
-    # E solves E·(n2 − m1 + E) = ψ·(n1 − E)·(m1 − E); the root in the support, in the form
-    # 2C / (−B − sqrt(B² − 4AC)) that stays accurate (and finite) at ψ = 1.
-    linear = n2 - m1 + psi * (n1 + m1)
-    expected = (
-        2.0 * psi * n1 * m1 / (linear + np.sqrt(linear**2 + 4.0 * psi * (1.0 - psi) * n1 * m1))
+    # E solves E·(n2 − m1 + E) = ψ·(n1 − E)·(m1 − E): the first group's expected events under
+    # odds ratio ψ with both margins kept, n1·p̃1 of the constrained MLEs (p̃1, p̃2); the four
+    # expected cells come from the roots for p̃ and 1 − p̃ separately, so that none is a
+    # difference of nearly equal numbers near the edge of the support
+    cells = np.array([
+        odds_ratio_cells(int(x1), int(size1), int(events - x1), int(size2), psi)
+        for x1, size1, size2, events in zip(a, n1, n2, m1, strict=True)
+    ]).reshape(-1, 4)
+    expected, lacking, second, second_lacking = (
+        n1 * cells[:, 0], n1 * cells[:, 1], n2 * cells[:, 2], n2 * cells[:, 3]
     )
-    variance = 1.0 / (
-        1.0 / expected + 1.0 / (n1 - expected) + 1.0 / (m1 - expected) + 1.0 / (n2 - m1 + expected)
-    )
-    residual = a - expected
+    variance = 1.0 / (1.0 / expected + 1.0 / lacking + 1.0 / second + 1.0 / second_lacking)
+    # a − E = (n1 − E) − (n1 − a): the form with the smaller numbers loses fewer digits
+    residual = np.where(cells[:, 0] <= cells[:, 1], a - expected, lacking - (n1 - a))
     statistic = math.fsum(residual**2 / variance) - math.fsum(residual) ** 2 / math.fsum(variance)
     statistic = max(0.0, statistic)  # >= 0 by Cauchy–Schwarz; guard the last rounding
     return TestResult(method, statistic, df, float(stats.chi2.sf(statistic, df)), "two-sided")
