@@ -388,6 +388,18 @@ def _look_of(entries: list[dict[str, Any]], entry: dict[str, Any], model: Any) -
     return look_run(model, before, entry["plan"], number)
 
 
+def _design_as_written(stored: dict[str, Any], again: dict[str, Any], model: Any) -> None:
+    """A design entry written before the power of a two-sided test counted its far tail is
+    recomputed the same way, so that such a report keeps verifying."""
+    from .design.report import BOTH_TAILS_KEY
+    from .execute import design_entry
+
+    design = stored.get("design")
+    if isinstance(design, dict) and BOTH_TAILS_KEY not in design and again.get("design"):
+        again["design"] = design_entry(model, str(stored.get("kind")), again["hypotheses"],
+                                       both_tails=False)
+
+
 def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None,
            found: dict[str, Path], data: Path, report: str | None,
            result: VerifyResult) -> None:
@@ -425,6 +437,7 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
             raise _fail(result, f"rerun {rel}: the recomputation failed: {exc}") from None
         if "overrides" in stored:
             mark_overrides(again, [o for o in stored["overrides"] or [] if isinstance(o, dict)])
+        _design_as_written(stored, again, model)
         again = json.loads(json.dumps(again, allow_nan=False))  # as written to results.json
         keys = [k for k in [*stored, *(k for k in again if k not in stored)]
                 if k not in MOMENT_FIELDS]
