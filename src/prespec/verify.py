@@ -55,11 +55,17 @@ def _check_log(plan: Path, result: VerifyResult) -> list[dict[str, Any]]:
         raise _fail(result, str(exc)) from None
     if log.exists() or head.exists():
         result.passed.append(
-            f"audit log: {len(entries)} entries, sequence, links and hashes intact; head matches"
+            f"audit log: {_entries(len(entries))}, sequence, links and hashes intact; head "
+            "matches"
             + (" the entry before the last" if note else ""))
     if note:
         result.notes.append(f"{head.name}: {note}; the next entry brings it up to date")
     return entries
+
+
+def _entries(count: int, kind: str = "") -> str:
+    """``1 entry``, ``3 entries`` (``1 signed entry`` with ``kind``)."""
+    return f"{count} {kind}{'entry' if count == 1 else 'entries'}"
 
 
 def _check_signatures(entries: list[dict[str, Any]], key: Path | None,
@@ -84,10 +90,12 @@ def _check_signatures(entries: list[dict[str, Any]], key: Path | None,
                         f"{_version_of(entry)}): {problem}")
     count = sum(1 for e in entries if e["action"] in audit.log.SIGNED_ACTIONS)
     if public is not None:
-        result.passed.append(f"signatures: all {count} lock/amend entries signed by "
+        every = "the" if count == 1 else "all"
+        result.passed.append(f"signatures: {every} {_entries(count, 'lock/amend ')} signed by "
                              f"{key_id(public)}")
     else:
-        result.passed.append(f"signatures: {len(signed)} signed entries hold valid signatures "
+        holds = "holds a valid signature" if len(signed) == 1 else "hold valid signatures"
+        result.passed.append(f"signatures: {_entries(len(signed), 'signed ')} {holds} "
                              "(give --key to require the signer)")
 
 

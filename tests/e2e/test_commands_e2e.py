@@ -64,7 +64,8 @@ def test_verify_passes_and_checks_the_registered_fingerprint(demo: Path) -> None
     assert done.returncode == 0, done.stderr
     assert "expected fingerprint: matches" in done.stdout
     wrong = cli("verify", "wound-dressing.yaml", "--expect", "sha256:" + "0" * 64, cwd=demo)
-    assert wrong.returncode == 3 and "expected fingerprint" in wrong.stderr
+    assert wrong.returncode == 3 and "FAIL  expected fingerprint" in wrong.stdout
+    assert wrong.stderr == "prespec: not verified; the FAIL line says what does not match\n"
 
 
 def test_a_handed_over_folder_still_verifies(demo: Path, tmp_path: Path) -> None:
@@ -185,8 +186,11 @@ def test_verify_command_names_the_failure(demo: Path, tmp_path: Path) -> None:
     (next((copy / "reports" / "wound-dressing").iterdir()) / "report.html").write_text("<p>")
     done = cli("verify", "wound-dressing.yaml", cwd=copy)
     assert done.returncode == 3
-    assert "report.html does not match its manifest hash" in done.stderr
+    assert "report.html does not match its manifest hash" in done.stdout
     assert "ok    audit log" in done.stdout
+    # the failure is said once, in the checklist; stderr points to it without repeating it
+    assert done.stdout.count("does not match its manifest hash") == 1
+    assert done.stderr == "prespec: not verified; the FAIL line says what does not match\n"
     nothing = cli("verify", "none.yaml", cwd=tmp_path)
     assert nothing.returncode == 3 and "nothing to verify" in nothing.stderr
 
