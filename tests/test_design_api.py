@@ -320,6 +320,9 @@ def test_looks_by_fractions_are_designed_without_planned_n(
     assert "planned_n_from_design" not in api.design(filled)
     assert cli.main(["design", str(plan)]) == 0
     assert line in capsys.readouterr().out
+    simulated = api.design(plan, simulate=50)["simulation"]
+    assert simulated["n_per_group"] == doc["planned_n_from_design"]
+    assert simulated["sizes_from"] == "the designed sizes; the plan has no data.planned_n"
 
 
 def test_a_looks_plan_that_cannot_be_sized_keeps_its_error(tmp_path: Path) -> None:

@@ -540,6 +540,8 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
     if designed_n is not None:
         doc["planned_n_from_design"] = designed_n
         doc["notes"].insert(0, designed_n_line(designed_n))
+        if doc["simulation"] is not None:
+            doc["simulation"]["sizes_from"] = "the designed sizes; the plan has no data.planned_n"
     _finish_stopped_writes(loaded.path)
     sim = doc["simulation"]
     details = {
