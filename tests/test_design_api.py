@@ -252,8 +252,9 @@ def test_two_sided_power_under_equal_rates_is_the_alpha_share(tmp_path: Path) ->
         assert h["power"] == pytest.approx(expected, rel=1e-9)
         assert h["n_per_group"] is None  # no difference to detect
     assert h3["power"] is None  # one-sided, the rates not on its side: not computed
-    assert "power at data.planned_n: 0.0167" in __import__(
-        "prespec.design", fromlist=["design_text"]).design_text(doc)
+    from prespec.design import design_text
+
+    assert "      power at data.planned_n: 0.0167\n" in design_text(doc)
 
 
 LOOKS = """\

@@ -62,11 +62,13 @@ def _then(plan: Plan, hyp: Hypothesis) -> str:
     from prespec.analysis import follow_ups
 
     assert hyp.then is not None
-    pairs = ", ".join(f"{f.compare[0]} vs {f.compare[1]}" for f in follow_ups(hyp, plan))
+    subs = follow_ups(hyp, plan)  # what the run tests, so the words cannot drift from it
+    pairs = ", ".join(f"{f.compare[0]} vs {f.compare[1]}" for f in subs)
     which = ("each group against the reference" if hyp.then.pairwise == "reference"
              else "every pair")
-    return (f"then, only if {hyp.id} is rejected, {which} ({pairs}) by {hyp.test}, "
-            f"two-sided, risk-difference with newcombe interval, adjusted by "
+    first = subs[0]
+    return (f"then, only if {hyp.id} is rejected, {which} ({pairs}) by {first.test}, "
+            f"{first.alternative}, {first.measure} with {first.interval} interval, adjusted by "
             f"{hyp.then.multiplicity} among themselves")
 
 
