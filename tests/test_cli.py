@@ -151,3 +151,21 @@ def test_verify_prints_notes_and_usage_of_report(tmp_path: Path,
     assert "--report goes with --rerun DATA" in capsys.readouterr().err
     assert cli.main(["run", str(plan), "d.csv", "--test", "H1"]) == 2
     assert "give ID=NAME" in capsys.readouterr().err
+
+
+def test_verify_says_a_failure_once_and_counts_entries_in_words(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    plan = tmp_path / "p.yaml"
+    plan.write_text(PLAN_TEXT)
+    assert cli.main(["lock", str(plan)]) == 0
+    capsys.readouterr()
+    assert cli.main(["verify", str(plan)]) == 0
+    out = capsys.readouterr().out
+    assert "ok    audit log: 1 entry, sequence, links and hashes intact; head matches\n" in out
+    assert cli.main(["verify", str(plan), "--expect", "sha256:" + "0" * 64]) == 3
+    got = capsys.readouterr()
+    fails = [line for line in got.out.splitlines() if line.startswith("FAIL  ")]
+    assert len(fails) == 1 and "expected fingerprint" in fails[0]
+    message = fails[0].removeprefix("FAIL  ")
+    assert message not in got.err  # not printed a second time
+    assert got.err == "prespec: not verified; the FAIL line says what does not match\n"

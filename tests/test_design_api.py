@@ -72,8 +72,8 @@ def test_design_returns_the_document_and_logs_it(study: tuple[Path, Path]) -> No
     assert h1["n_per_group"] == dict(zip(
         ["negative-pressure", "gauze"],
         samplesize.two_proportion_n(0.10, 0.20, 0.0125, 0.8).n, strict=True))
-    assert h1["power"] == pytest.approx(samplesize.two_proportion_power(0.10, 0.20, 180, 180,
-                                                                        0.0125))
+    assert h1["power"] == pytest.approx(samplesize.two_proportion_power(
+        0.10, 0.20, 180, 180, 0.0125, two_sided=True), rel=1e-12)
     assert set(doc) >= {"hypotheses", "scenarios", "alpha_rule", "caution"}
 
 
@@ -154,7 +154,8 @@ def test_a_run_records_planned_versus_achieved(study: tuple[Path, Path]) -> None
     h1 = design["hypotheses"][0]
     got = h1["achieved_per_group"]
     assert h1["power_at_achieved"] == pytest.approx(samplesize.two_proportion_power(
-        0.10, 0.20, got["negative-pressure"], got["gauze"], 0.0125))
+        0.10, 0.20, got["negative-pressure"], got["gauze"], 0.0125, two_sided=True), rel=1e-12)
+    assert design["two_sided_power"] == "both tails"
     assert h1["n_per_group"] == api.design(plan)["hypotheses"][0]["n_per_group"]
 
 
@@ -207,3 +208,159 @@ def test_the_progress_bar_draws_on_a_terminal(monkeypatch: pytest.MonkeyPatch) -
     assert screen.getvalue() == (
         "\rsimulating assumed                  [###############...............]  50%"
         "\rsimulating global-null              [##############################] 100%\n")
+
+
+# --- issue 14, item 13 -------------------------------------------------------------------------
+
+EQUAL = """\
+prespec: 1
+title: Invented three-arm trial, rates assumed equal
+data:
+  id: participant
+  group: arm
+  groups: [a, b, c]
+  planned_n: {a: 120, b: 120, c: 120}
+outcomes:
+  cured: {column: cured, event: [1], no_event: [0], missing: exclude}
+alpha: 0.05
+multiplicity: bonferroni
+design:
+  assumed: {a: 0.25, b: 0.25, c: 0.25}
+  power: 0.8
+hypotheses:
+  - {id: H1, outcome: cured, compare: [b, a], test: two-proportion-z}
+  - {id: H2, outcome: cured, compare: [c, a], test: pearson-chi-square}
+  - {id: H3, outcome: cured, compare: [c, b], test: two-proportion-z, alternative: greater}
+"""
+
+
+def test_two_sided_power_under_equal_rates_is_the_alpha_share(tmp_path: Path) -> None:
+    from statsmodels.stats.proportion import power_proportions_2indep
+
+    plan = tmp_path / "equal.yaml"
+    plan.write_text(EQUAL)
+    doc = api.design(plan)
+    h1, h2, h3 = doc["hypotheses"]
+    share = 0.05 / 3
+    # a level-alpha test rejects a true null with probability alpha (common practice), both
+    # tails; statsmodels.stats.proportion.power_proportions_2indep(diff=0, "two-sided") agrees
+    expected = power_proportions_2indep(0.0, 0.25, 120, ratio=1.0, alpha=share,
+                                        alternative="two-sided").power
+    for h in (h1, h2):
+        assert h["alpha"] == pytest.approx(share)
+        assert h["power"] == pytest.approx(share, rel=1e-12)
+        assert h["power"] == pytest.approx(expected, rel=1e-9)
+        assert h["n_per_group"] is None  # no difference to detect
+    assert h3["power"] is None  # one-sided, the rates not on its side: not computed
+    from prespec.design import design_text
+
+    assert "      power at data.planned_n: 0.0167\n" in design_text(doc)
+
+
+LOOKS = """\
+prespec: 1
+title: Invented two-arm trial with an interim look
+data:
+  id: participant
+  group: arm
+  groups: [control, treated]
+outcomes:
+  cured: {column: cured, event: [1], no_event: [0], missing: exclude}
+alpha: 0.05
+multiplicity: none
+design:
+  assumed: {control: 0.30, treated: 0.45}
+  power: 0.8
+hypotheses:
+  - id: H1
+    outcome: cured
+    compare: [treated, control]
+    test: two-proportion-z
+    looks: {fractions: [0.5, 1], efficacy: lan-demets-obrien-fleming}
+"""
+
+
+def test_looks_by_fractions_are_designed_without_planned_n(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from prespec.design import design_text
+    from prespec.errors import PlanError
+
+    plan = tmp_path / "looks.yaml"
+    plan.write_text(LOOKS)
+    with pytest.raises(PlanError, match=r"looks\.yaml:19: hypotheses\.H1\.looks\.fractions: .*"
+                       r"give data\.planned_n for treated and control \(prespec design "
+                       r"computes it\)"):
+        load_plan(plan)  # check and lock still need it
+    doc = api.design(plan)
+    (h1,) = doc["hypotheses"]
+    fixed = samplesize.two_proportion_n(0.45, 0.30, 0.025, 0.8).n
+    assert h1["n_per_group"] == {"treated": fixed[0], "control": fixed[1]}
+    n_max = h1["n_max_per_group"]
+    assert n_max == {g: -(-n * h1["inflation"] // 1) for g, n in h1["n_per_group"].items()}
+    assert doc["planned_n_from_design"] == {"control": n_max["control"],
+                                            "treated": n_max["treated"]}
+    assert h1["power"] == pytest.approx(samplesize.two_proportion_power(
+        0.45, 0.30, n_max["treated"], n_max["control"], 0.025, two_sided=True), rel=1e-12)
+    text = design_text(doc)
+    line = (f"Sizes: data.planned_n is not in the plan: the interim looks and the power below "
+            f"use the designed analysed sizes per group (control {n_max['control']}, treated "
+            f"{n_max['treated']}), the largest any hypothesis needs; write them into "
+            "data.planned_n before locking")
+    assert line in text
+    assert text.count("data.planned_n is not in the plan") == 1
+    assert "      power at the designed sizes: " in text
+    entry = log_of(plan)[-1]
+    assert entry["details"]["planned_n_from_design"] == doc["planned_n_from_design"]
+    # the fingerprint is that of the plan with the designed sizes written in
+    filled = tmp_path / "filled.yaml"
+    filled.write_text(LOOKS.replace(
+        "  groups: [control, treated]\n",
+        f"  groups: [control, treated]\n  planned_n: {{control: {n_max['control']}, "
+        f"treated: {n_max['treated']}}}\n"))
+    assert entry["plan"] == load_plan(filled).fingerprint
+    assert "planned_n_from_design" not in api.design(filled)
+    assert cli.main(["design", str(plan)]) == 0
+    assert line in capsys.readouterr().out
+    simulated = api.design(plan, simulate=50)["simulation"]
+    assert simulated["n_per_group"] == doc["planned_n_from_design"]
+    assert simulated["sizes_from"] == "the designed sizes; the plan has no data.planned_n"
+
+
+def test_a_looks_plan_that_cannot_be_sized_keeps_its_error(tmp_path: Path) -> None:
+    from prespec.errors import PlanError
+
+    plan = tmp_path / "looks.yaml"
+    plan.write_text(LOOKS.replace("treated: 0.45}", "treated: 0.30}"))  # nothing to detect
+    with pytest.raises(PlanError, match="give data.planned_n for treated and control"):
+        api.design(plan)
+    assert not audit.log_path(plan).exists()
+
+
+def test_simulate_refuses_a_stratified_test_at_its_line(
+        study: tuple[Path, Path], capsys: pytest.CaptureFixture[str]) -> None:
+    plan, _ = study
+    text = plan.read_text().replace("    test: pearson-chi-square\n    alternative: two-sided",
+                                    "    test: cochran-mantel-haenszel\n    strata: [site]\n"
+                                    "    alternative: two-sided", 1)
+    text = text.replace("    interval: newcombe\n    sparse: {min_expected: 5, test: fisher-exact}\n"
+                        "    role: primary", "    interval: sato\n    role: primary", 1)
+    plan.write_text(text)
+    line = text.splitlines().index("    strata: [site]") + 1
+    assert cli.main(["design", str(plan), "--simulate", "100"]) == 2
+    err = capsys.readouterr().err
+    assert err == (f"prespec: {plan}:{line}: hypotheses.H1.strata: a stratified test "
+                   "(cochran-mantel-haenszel) cannot be simulated: --simulate draws one assumed "
+                   "rate per group, with no strata; leave out --simulate (the sizes assume the "
+                   "same rates in every stratum)\n")
+    assert not audit.log_path(plan).exists()
+
+
+def test_a_simulation_says_it_leaves_the_interim_looks_out(tmp_path: Path) -> None:
+    plan = tmp_path / "looks.yaml"
+    plan.write_text(LOOKS.replace("  groups: [control, treated]\n",
+                                  "  groups: [control, treated]\n"
+                                  "  planned_n: {control: 170, treated: 170}\n"))
+    doc = api.design(plan, simulate=200)
+    assert ("interim looks are not simulated: each simulated trial is analysed once, at the "
+            "sizes above, by the fixed-sample test without the group-sequential boundaries "
+            "(which are shown per hypothesis)") in doc["notes"]

@@ -113,3 +113,36 @@ def test_design_refuses_a_plan_of_families_only(tmp_path: Path) -> None:
     plan.write_text(text)
     with pytest.raises(BadInput, match="this plan has only families"):
         api.design(plan, actor="reviewer")
+
+
+def test_the_safety_demo_module_writes_its_plan_and_data_and_says_where(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    import os
+    import subprocess
+    import sys
+
+    from prespec import safety_demo
+
+    folder = tmp_path / "gel"
+    assert safety_demo.main([str(folder)]) == 0
+    plan, data = folder / "safety-review.yaml", folder / "safety-review.csv"
+    assert capsys.readouterr().out == (
+        "Wrote the invented safety review (demonstration data, nothing real):\n"
+        f"  plan: {plan}\n  data: {data}\n"
+        f"Lock and run it: prespec lock {plan} && prespec run {plan} {data}\n")
+    assert plan.read_text() == safety_demo.PLAN_TEXT
+    assert data.read_text() == safety_demo.safety_frame().to_csv(index=False)
+    (folder / "mine.txt").write_text("keep")
+    assert safety_demo.main([str(folder)]) == 2
+    got = capsys.readouterr()
+    assert got.out == "" and got.err == (
+        f"prespec: {folder}: exists and holds other files; choose an empty folder\n")
+    # run as `python -m prespec.safety_demo` (the default folder, in the working directory)
+    import prespec
+
+    env = {**os.environ, "PYTHONPATH": str(Path(prespec.__file__).parents[1])}
+    done = subprocess.run([sys.executable, "-m", "prespec.safety_demo"], cwd=tmp_path, env=env,
+                          capture_output=True, text=True, timeout=120, check=False)
+    assert done.returncode == 0, done.stderr
+    assert (tmp_path / "safety-demo" / "safety-review.csv").is_file()
+    assert "  plan: safety-demo/safety-review.yaml\n" in done.stdout

@@ -127,3 +127,35 @@ def test_history_of_an_unlocked_plan(tmp_path: Path) -> None:
     plan.write_text(PLAN_TEXT)
     with pytest.raises(BadInput, match="not locked"):
         api.history(plan)
+
+
+def test_a_design_added_or_removed_reads_key_by_key(tmp_path: Path) -> None:
+    import re
+
+    bare = re.sub(r"^design:\n(?:  .*\n)+", "", PLAN_TEXT, flags=re.MULTILINE)
+    assert "design:" not in bare and "design:" in PLAN_TEXT
+    before = resolved(tmp_path, bare, "a.yaml")
+    after = resolved(tmp_path, PLAN_TEXT, "b.yaml")
+    added = [str(c) for c in plan_changes(before, after)]
+    assert added == [
+        "design.assumed.gauze: added (0.2)",
+        "design.assumed.alginate: added (0.14)",
+        "design.assumed.negative-pressure: added (0.1)",
+        "design.power: added (0.8)",
+        "design.allocation.gauze: added (1.0)",
+        "design.allocation.alginate: added (1.0)",
+        "design.allocation.negative-pressure: added (1.0)",
+        "design.dropout: added (0.05)",
+        "design.continuity: added (false)",
+    ]
+    removed = [str(c) for c in plan_changes(after, before)]
+    assert removed[0] == "design.assumed.gauze: removed (was 0.2)"
+    assert len(removed) == len(added) and all(" removed (was " in line for line in removed)
+    assert not any("{" in line for line in added + removed)  # no JSON blob
+    # a sparse switch added to a hypothesis reads the same way
+    no_switch = resolved(tmp_path, PLAN_TEXT.replace(
+        "    sparse: {min_expected: 5, test: fisher-exact}\n", "", 1), "c.yaml")
+    assert [str(c) for c in plan_changes(no_switch, after)] == [
+        "hypotheses.H1.sparse.min_expected: added (5.0)",
+        "hypotheses.H1.sparse.test: added (fisher-exact)",
+    ]

@@ -319,3 +319,60 @@ def test_summary_lists_the_plan(tmp_path: Path) -> None:
             "interval; fisher-exact if an expected count is below 5") in lines
     assert "  H2 [secondary] infection: alginate vs gauze" in lines
     assert "  H3 [exploratory] infection: all 3 groups" in lines
+
+
+SUMMARY_PLAN = """\
+prespec: 1
+title: Invented three-arm trial for the summary
+data:
+  id: participant
+  group: arm
+  groups: [low, mid, high]
+outcomes:
+  relief: {column: relief, event: [1], no_event: [0], missing: exclude, favourable: event}
+alpha: 0.05
+multiplicity: holm
+hypotheses:
+  - id: K
+    outcome: relief
+    compare: all
+    test: pearson-chi-square
+    then: {pairwise: reference, multiplicity: hochberg}
+  - id: T
+    outcome: relief
+    compare: trend
+    test: cochran-armitage-trend
+    alternative: greater
+    scores: [0, 1, 2.5]
+  - id: P
+    outcome: relief
+    compare: [high, low]
+    test: two-proportion-z
+    sensitivity: [worst-case, tipping-point]
+  - id: F
+    outcome: relief
+    compare: all
+    test: fisher-exact
+    monte_carlo: {tables: 20000, seed: 3}
+    role: exploratory
+"""
+
+
+def test_summary_says_what_follows_the_k_group_test_and_what_it_tests(tmp_path: Path) -> None:
+    lines = summary(load_text(tmp_path, SUMMARY_PLAN).model).splitlines()
+    by_id = {line.split()[0]: lines[i + 1] for i, line in enumerate(lines)
+             if line.startswith("  ") and not line.startswith("   ")}
+    assert by_id["K"] == (
+        "      pearson-chi-square; test of equal proportions in every group, against any "
+        "difference (no direction); then, only if K is rejected, each group against the "
+        "reference (mid vs low, high vs low) by pearson-chi-square, two-sided, "
+        "risk-difference with newcombe interval, adjusted by hochberg among themselves")
+    assert by_id["T"] == ("      cochran-armitage-trend; one-sided: the proportion rises with "
+                          "the score; scores 0, 1, 2.5")
+    assert by_id["P"] == ("      two-proportion-z; two-sided; superiority; risk-difference with "
+                          "newcombe interval; sensitivity for missing outcomes: worst-case, "
+                          "tipping-point")
+    assert by_id["F"] == ("      fisher-exact; test of equal proportions in every group, "
+                          "against any difference (no direction); Monte Carlo p-value from "
+                          "20,000 tables, seed 3")
+    assert "superiority" not in by_id["K"] + by_id["T"] + by_id["F"]

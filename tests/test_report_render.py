@@ -784,3 +784,48 @@ def test_a_kernel_that_dies_while_starting_is_started_again(
     with pytest.raises(RuntimeError, match="disk full"):
         render._execute(tmp_path, out, "sha256:0", render.KERNEL)
     assert len(calls) == 1
+
+
+def test_the_kernel_writes_nothing_to_the_terminal_and_is_not_interrupted_at_shutdown(
+        capfd: pytest.CaptureFixture[str]) -> None:
+    # The kernel process used to inherit prespec's stdout and stderr, and jupyter_client
+    # interrupts (SIGINT) a kernel before asking it to shut down: "KeyboardInterrupt caught in
+    # kernel" then reached the terminal after the command's own output.
+    import asyncio
+    import signal
+
+    from prespec.report.render import KERNEL, _kernel_options
+
+    options = _kernel_options(KERNEL)
+    manager = options["kernel_manager_class"](kernel_name=KERNEL, config=options.get("config"))
+    signals: list[int] = []
+    sent = manager._async_signal_kernel
+
+    async def spy(signum: int) -> None:
+        signals.append(signum)
+        await sent(signum)
+
+    manager._async_signal_kernel = spy
+
+    async def session() -> None:
+        await manager.start_kernel()
+        client = manager.client()
+        client.start_channels()
+        try:
+            await client.wait_for_ready(timeout=60)
+            reply = await client.execute_interactive(
+                "import os, sys\n"
+                "print('to the inherited stdout', file=sys.__stdout__, flush=True)\n"
+                "print('to the inherited stderr', file=sys.__stderr__, flush=True)\n"
+                "_ = os.write(1, b'fd 1\\n'), os.write(2, b'fd 2\\n')\n", timeout=60,
+                output_hook=lambda message: None)
+            assert reply["content"]["status"] == "ok"
+        finally:
+            client.stop_channels()
+            await manager.shutdown_kernel()
+
+    asyncio.run(session())
+    out, err = capfd.readouterr()
+    assert (out, err) == ("", "")
+    assert signal.SIGINT not in signals
+    assert not manager.has_kernel

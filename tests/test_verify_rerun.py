@@ -109,3 +109,31 @@ def test_first_difference() -> None:
     assert first_difference({"a": 1}, {"a": 1.0}) is None  # the same JSON number
     assert first_difference({"a": True}, {"a": 1}) == "a"
     assert first_difference({"a": 1}, {"b": 1}) == "a"
+
+
+def test_a_report_whose_design_power_left_out_the_far_tail_still_verifies(
+        study: tuple[Path, Path], monkeypatch: pytest.MonkeyPatch) -> None:
+    # A report written when the power of a two-sided test counted one tail only (its design
+    # entry has no "two_sided_power" key) must keep verifying under --rerun.
+    import prespec.execute
+    import prespec.verify
+
+    plan, data = study
+    current = prespec.execute.design_entry
+    with monkeypatch.context() as m:
+        m.setattr(prespec.execute, "design_entry",
+                  lambda p, kind, hyps: current(p, kind, hyps, both_tails=False))
+        old = api.run(plan, data, out=plan.parent / "old").results
+    new = api.run(plan, data, out=plan.parent / "new").results
+    assert "two_sided_power" not in old["design"]
+    assert new["design"]["two_sided_power"] == "both tails"
+    before = old["design"]["hypotheses"][0]["power_at_achieved"]
+    after = new["design"]["hypotheses"][0]["power_at_achieved"]
+    assert after > before  # the far tail, now counted
+    assert api.verify(plan, rerun=data).passed[-1] == (
+        "rerun: 2 report(s) recomputed from data.csv, every result identical")
+    with monkeypatch.context() as m:  # without the old rule, the old report would not verify
+        m.setattr(prespec.verify, "_design_as_written", lambda stored, again, model: None)
+        with pytest.raises(IntegrityStop, match=r"rerun old: design\.hypotheses\[0\]\."
+                                                r"power_at_achieved differs"):
+            api.verify(plan, rerun=data, report="old")

@@ -543,19 +543,27 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
     """
     from .canonical import canonical_json, sha256_tag
     from .design import design_document
+    from .design.planned import designed_n_line, load_for_design, refuse_unsimulated
 
     if simulate is not None and simulate < 1:
         raise BadInput(f"--simulate: the number of trials must be at least 1, got {simulate}")
     if seed is not None and seed < 0:
         raise BadInput(f"--seed must be 0 or more, got {seed}")
-    loaded = load_plan(Path(plan))
+    loaded, designed_n = load_for_design(Path(plan))  # designed_n: for a missing planned_n
     sized = ordinary_plan(loaded.model)  # families are flagged, not sized
+    if simulate is not None:
+        refuse_unsimulated(loaded.path, loaded.model)
     if not sized.hypotheses:
         raise BadInput(f"{loaded.path}: design sizes the plan's ordinary hypotheses, and this "
                        "plan has only families (over), which are not sized")
     doc = design_document(sized, where=str(loaded.path),
                           fingerprint=loaded.fingerprint,
                           simulate_trials=simulate, seed=seed, progress=progress)
+    if designed_n is not None:
+        doc["planned_n_from_design"] = designed_n
+        doc["notes"].insert(0, designed_n_line(designed_n))
+        if doc["simulation"] is not None:
+            doc["simulation"]["sizes_from"] = "the designed sizes; the plan has no data.planned_n"
     _finish_stopped_writes(loaded.path)
     sim = doc["simulation"]
     details = {
@@ -568,6 +576,8 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
                       for s in doc["scenarios"]],
         "document": sha256_tag(canonical_json(doc)),
     }
+    if designed_n is not None:
+        details["planned_n_from_design"] = designed_n
     audit.append(audit.log_path(loaded.path), audit.head_path(loaded.path),
                  actor=resolve_actor(actor), action="design", plan=loaded.fingerprint,
                  data=None, details=details)

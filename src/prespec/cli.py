@@ -341,7 +341,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         for line in getattr(exc, "notes", []):
             print(f"note  {line}")
         if getattr(exc, "passed", None) is not None and args.command == "verify":
-            print(f"FAIL  {exc}")
+            print(f"FAIL  {exc}")  # said once, in the checklist; stderr only points to it
+            print("prespec: not verified; the FAIL line says what does not match",
+                  file=sys.stderr)
+            return exc.exit_status
         print(f"prespec: {exc}", file=sys.stderr)
         return exc.exit_status
 

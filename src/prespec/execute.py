@@ -90,16 +90,18 @@ def build_results(
     return results
 
 
-def design_entry(plan: Any, kind: str, hypotheses: list[dict[str, Any]]) -> dict[str, Any] | None:
+def design_entry(plan: Any, kind: str, hypotheses: list[dict[str, Any]], *,
+                 both_tails: bool = True) -> dict[str, Any] | None:
     """Planned versus achieved: the design's n per group for each hypothesis and, in a run,
-    the analysed n of its table (a rehearsal shows no group's size)."""
+    the analysed n of its table (a rehearsal shows no group's size). ``both_tails=False``:
+    as written before the power of a two-sided test counted its far tail."""
     from .design import planned_vs_achieved
 
     achieved = None
     if kind == "run":
         achieved = {h["id"]: dict(zip(h["table"]["groups"], h["table"]["totals"], strict=True))
                     for h in hypotheses if h.get("parent") is None}
-    return planned_vs_achieved(plan, achieved)
+    return planned_vs_achieved(plan, achieved, both_tails=both_tails)
 
 
 def compute_results(

@@ -82,13 +82,17 @@ def _diff(path: str, a: Any, b: Any, out: list[Change]) -> None:
         for key in [*a, *(k for k in b if k not in a)]:
             where = _join(path, str(key))
             if key not in b:
-                if a[key] is not None:
-                    out.append(Change(where, a[key], None, "removed"))
+                _whole(where, a[key], "removed", out)
             elif key not in a:
-                if b[key] is not None:
-                    out.append(Change(where, None, b[key], "added"))
+                _whole(where, b[key], "added", out)
             else:
                 _diff(where, a[key], b[key], out)
+        return
+    if a is None and isinstance(b, dict):
+        _whole(path, b, "added", out)
+        return
+    if b is None and isinstance(a, dict):
+        _whole(path, a, "removed", out)
         return
     if isinstance(a, list) and isinstance(b, list):
         ids_a, ids_b = _ids(a), _ids(b)
@@ -101,6 +105,20 @@ def _diff(path: str, a: Any, b: Any, out: list[Change]) -> None:
             return
     if a != b or type(a) is not type(b) and not _same_number(a, b):
         out.append(Change(path, a, b, "changed"))
+
+
+def _whole(path: str, value: Any, kind: str, out: list[Change]) -> None:
+    """A section added or removed as a whole (``design``, a ``sparse`` switch), one line per
+    key (``design.assumed.gauze: added (0.2)``); unset options and empty mappings carry no
+    meaning and are left out."""
+    if value is None:
+        return
+    if isinstance(value, dict):
+        for key, item in value.items():
+            _whole(_join(path, str(key)), item, kind, out)
+        return
+    out.append(Change(path, value if kind == "removed" else None,
+                      value if kind == "added" else None, kind))
 
 
 def _same_number(a: Any, b: Any) -> bool:

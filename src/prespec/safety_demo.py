@@ -8,6 +8,7 @@ with the new gel so that the flagging has something to find. Nothing here is rea
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -96,10 +97,53 @@ def safety_frame(*, per_group: int = 200, seed: int = 7,
 
 def write_safety_demo(folder: Path, *, per_group: int = 200, seed: int = 7
                       ) -> tuple[Path, Path]:
-    """Write the plan and its data into ``folder``: (plan path, data path)."""
+    """Write the plan and its data into ``folder``: (plan path, data path). Overwrites them."""
     folder.mkdir(parents=True, exist_ok=True)
     plan = folder / PLAN_NAME
     plan.write_text(PLAN_TEXT, encoding="utf-8")
     data = folder / DATA_NAME
     safety_frame(per_group=per_group, seed=seed).to_csv(data, index=False)
     return plan, data
+
+
+DEFAULT_FOLDER = "safety-demo"
+
+
+def main(argv: list[str] | None = None) -> int:
+    """``python -m prespec.safety_demo [FOLDER]``: write the plan and its data into FOLDER
+    (default ``safety-demo``), print their paths and the commands that lock and run them.
+    A folder holding other files is refused, so nothing is overwritten."""
+    import argparse
+
+    from prespec.errors import BadInput
+
+    parser = argparse.ArgumentParser(
+        prog="python -m prespec.safety_demo",
+        description="Write the invented hand-gel safety review (a plan with a family over 30 "
+                    "adverse-event terms, and its data) into a folder.")
+    parser.add_argument("folder", nargs="?", default=DEFAULT_FOLDER,
+                        help=f"the folder to write into (default: {DEFAULT_FOLDER})")
+    args = parser.parse_args(argv)
+    folder = Path(args.folder)
+    try:
+        if folder.exists():
+            if not folder.is_dir():
+                raise BadInput(f"{folder}: exists and is not a folder")
+            plan = folder / PLAN_NAME
+            earlier = plan.is_file() and plan.read_text("utf-8") == PLAN_TEXT
+            others = [p for p in folder.iterdir() if p.name not in (PLAN_NAME, DATA_NAME)]
+            if others or (plan.exists() and not earlier):
+                raise BadInput(f"{folder}: exists and holds other files; choose an empty folder")
+        plan, data = write_safety_demo(folder)
+    except (BadInput, OSError) as exc:
+        print(f"prespec: {exc}", file=sys.stderr)
+        return 2
+    print("Wrote the invented safety review (demonstration data, nothing real):")
+    print(f"  plan: {plan}")
+    print(f"  data: {data}")
+    print(f"Lock and run it: prespec lock {plan} && prespec run {plan} {data}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -56,11 +56,17 @@ def _check_log(plan: Path, result: VerifyResult) -> list[dict[str, Any]]:
         raise _fail(result, str(exc)) from None
     if log.exists() or head.exists():
         result.passed.append(
-            f"audit log: {len(entries)} entries, sequence, links and hashes intact; head matches"
+            f"audit log: {_entries(len(entries))}, sequence, links and hashes intact; head "
+            "matches"
             + (" the entry before the last" if note else ""))
     if note:
         result.notes.append(f"{head.name}: {note}; the next entry brings it up to date")
     return entries
+
+
+def _entries(count: int, kind: str = "") -> str:
+    """``1 entry``, ``3 entries`` (``1 signed entry`` with ``kind``)."""
+    return f"{count} {kind}{'entry' if count == 1 else 'entries'}"
 
 
 def _check_signatures(entries: list[dict[str, Any]], key: Path | None,
@@ -85,10 +91,12 @@ def _check_signatures(entries: list[dict[str, Any]], key: Path | None,
                         f"{_version_of(entry)}): {problem}")
     count = sum(1 for e in entries if e["action"] in audit.log.SIGNED_ACTIONS)
     if public is not None:
-        result.passed.append(f"signatures: all {count} lock/amend entries signed by "
+        every = "the" if count == 1 else "all"
+        result.passed.append(f"signatures: {every} {_entries(count, 'lock/amend ')} signed by "
                              f"{key_id(public)}")
     else:
-        result.passed.append(f"signatures: {len(signed)} signed entries hold valid signatures "
+        holds = "holds a valid signature" if len(signed) == 1 else "hold valid signatures"
+        result.passed.append(f"signatures: {_entries(len(signed), 'signed ')} {holds} "
                              "(give --key to require the signer)")
 
 
@@ -521,6 +529,18 @@ def _look_of(entries: list[dict[str, Any]], entry: dict[str, Any], model: Any) -
     return look_run(model, before, entry["plan"], number)
 
 
+def _design_as_written(stored: dict[str, Any], again: dict[str, Any], model: Any) -> None:
+    """A design entry written before the power of a two-sided test counted its far tail is
+    recomputed the same way, so that such a report keeps verifying."""
+    from .design.report import BOTH_TAILS_KEY
+    from .execute import design_entry
+
+    design = stored.get("design")
+    if isinstance(design, dict) and BOTH_TAILS_KEY not in design and again.get("design"):
+        again["design"] = design_entry(model, str(stored.get("kind")), again["hypotheses"],
+                                       both_tails=False)
+
+
 def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None,
            found: dict[str, Path], data: Path, report: str | None,
            result: VerifyResult) -> None:
@@ -558,6 +578,7 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
             raise _fail(result, f"rerun {rel}: the recomputation failed: {exc}") from None
         if "overrides" in stored:
             mark_overrides(again, [o for o in stored["overrides"] or [] if isinstance(o, dict)])
+        _design_as_written(stored, again, model)
         again = json.loads(json.dumps(again, allow_nan=False))  # as written to results.json
         keys = [k for k in [*stored, *(k for k in again if k not in stored)]
                 if k not in MOMENT_FIELDS]

@@ -30,6 +30,8 @@ def demo(tmp_path_factory: pytest.TempPathFactory) -> Path:
     where = tmp_path_factory.mktemp("demo")
     done = cli("demo", "study", cwd=where)
     assert done.returncode == 0, done.stderr
+    # the command's whole output: the report's path, nothing from the notebook's kernel
+    assert done.stderr == "" and len(done.stdout.splitlines()) == 1, done.stdout + done.stderr
     html = Path(done.stdout.strip().splitlines()[-1])
     assert html.name == "report.html" and (where / html).is_file()
     return where / "study"
@@ -64,7 +66,8 @@ def test_verify_passes_and_checks_the_registered_fingerprint(demo: Path) -> None
     assert done.returncode == 0, done.stderr
     assert "expected fingerprint: matches" in done.stdout
     wrong = cli("verify", "wound-dressing.yaml", "--expect", "sha256:" + "0" * 64, cwd=demo)
-    assert wrong.returncode == 3 and "expected fingerprint" in wrong.stderr
+    assert wrong.returncode == 3 and "FAIL  expected fingerprint" in wrong.stdout
+    assert wrong.stderr == "prespec: not verified; the FAIL line says what does not match\n"
 
 
 def test_a_handed_over_folder_still_verifies(demo: Path, tmp_path: Path) -> None:
@@ -185,10 +188,14 @@ def test_verify_command_names_the_failure(demo: Path, tmp_path: Path) -> None:
     (next((copy / "reports" / "wound-dressing").iterdir()) / "report.html").write_text("<p>")
     done = cli("verify", "wound-dressing.yaml", cwd=copy)
     assert done.returncode == 3
-    assert "report.html does not match its manifest hash" in done.stderr
+    assert "report.html does not match its manifest hash" in done.stdout
     assert "ok    audit log" in done.stdout
+    # the failure is said once, in the checklist; stderr points to it without repeating it
+    assert done.stdout.count("does not match its manifest hash") == 1
+    assert done.stderr == "prespec: not verified; the FAIL line says what does not match\n"
     nothing = cli("verify", "none.yaml", cwd=tmp_path)
-    assert nothing.returncode == 3 and "nothing to verify" in nothing.stderr
+    assert nothing.returncode == 3 and "nothing to verify" in nothing.stdout
+    assert nothing.stdout.startswith("FAIL  ") and "nothing to verify" not in nothing.stderr
 
 
 def test_the_methods_tour_runs_to_a_report(tmp_path: Path) -> None:

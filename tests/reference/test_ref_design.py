@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 from scipy import stats
-from statsmodels.stats.power import GofChisquarePower, NormalIndPower
+from statsmodels.stats.power import GofChisquarePower, NormalIndPower, normal_power_het
 from statsmodels.stats.proportion import (
     power_proportions_2indep,
     proportion_effectsize,
@@ -61,6 +61,55 @@ def test_two_proportion_power_equals_statsmodels_one_sided(p1: float, p2: float,
     expected = power_proportions_2indep(p1 - p2, p2, n1, ratio=ratio, alpha=0.025,
                                         alternative=side).power
     got = samplesize.two_proportion_power(p1, p2, n1, ratio * n1, 0.025)
+    assert got == pytest.approx(expected, rel=1e-9)
+
+
+@pytest.mark.parametrize(("p1", "p2", "n1", "ratio", "alpha"), [
+    (0.10, 0.20, 100, 1.5, 0.05), (0.30, 0.22, 250, 1.0, 0.05), (0.05, 0.01, 400, 0.5, 0.05),
+    (0.20, 0.21, 30, 1.0, 0.05 / 3), (0.15, 0.25, 20, 2.0, 0.01),
+])
+def test_two_sided_power_counts_both_tails_as_statsmodels(p1: float, p2: float, n1: int,
+                                                          ratio: float, alpha: float) -> None:
+    # statsmodels.stats.proportion.power_proportions_2indep(alternative="two-sided"): the near
+    # tail at alpha/2 plus the far one (a rejection in the direction opposite to the rates)
+    expected = power_proportions_2indep(p1 - p2, p2, n1, ratio=ratio, alpha=alpha,
+                                        alternative="two-sided").power
+    got = samplesize.two_proportion_power(p1, p2, n1, ratio * n1, alpha / 2, two_sided=True)
+    assert got == pytest.approx(expected, rel=1e-9)
+    assert got > samplesize.two_proportion_power(p1, p2, n1, ratio * n1, alpha / 2)
+
+
+@pytest.mark.parametrize("alpha", [0.05, 0.05 / 3, 0.01])
+def test_two_sided_power_under_equal_rates_is_the_whole_level(alpha: float) -> None:
+    # common practice: a test of level alpha rejects a true null with probability alpha; and
+    # statsmodels.stats.proportion.power_proportions_2indep(diff=0, alternative="two-sided")
+    got = samplesize.two_proportion_power(0.2, 0.2, 90, 120, alpha / 2, two_sided=True)
+    assert got == pytest.approx(alpha, rel=1e-12)
+    expected = power_proportions_2indep(0.0, 0.2, 90, ratio=120 / 90, alpha=alpha,
+                                        alternative="two-sided").power
+    assert got == pytest.approx(expected, rel=1e-9)
+    assert samplesize.one_proportion_power(0.3, 0.3, 50, alpha / 2, two_sided=True) == \
+        pytest.approx(alpha, rel=1e-12)
+    assert samplesize.trend_power([0.2, 0.2, 0.2], [40, 40, 40], [0, 1, 2], alpha / 2,
+                                  two_sided=True) == pytest.approx(alpha, rel=1e-12)
+
+
+@pytest.mark.parametrize(("p", "p0", "n"), [(0.45, 0.30, 60), (0.10, 0.20, 150), (0.5, 0.52, 40)])
+def test_one_proportion_two_sided_power_equals_statsmodels(p: float, p0: float, n: int) -> None:
+    # statsmodels.stats.power.normal_power_het: the null sd in the critical value, the
+    # alternative one in the power, both tails at alpha/2
+    expected = normal_power_het(abs(p - p0), n, 0.05, std_null=math.sqrt(p0 * (1 - p0)),
+                                std_alternative=math.sqrt(p * (1 - p)), alternative="two-sided")
+    got = samplesize.one_proportion_power(p, p0, n, 0.025, two_sided=True)
+    assert got == pytest.approx(float(expected), rel=1e-9)
+
+
+def test_trend_two_sided_power_with_two_groups_equals_statsmodels() -> None:
+    # for k = 2 and scores (0, 1) the trend test is the two-proportion z test:
+    # statsmodels.stats.proportion.power_proportions_2indep(alternative="two-sided")
+    got = samplesize.trend_power([0.10, 0.13], [100, 150], [0, 1], 0.025, two_sided=True)
+    expected = power_proportions_2indep(0.03, 0.1, 150, ratio=100 / 150, alpha=0.05,
+                                        alternative="two-sided").power
     assert got == pytest.approx(expected, rel=1e-9)
 
 

@@ -142,11 +142,12 @@ def _direction_ok(hyp: Any, rates: list[float]) -> bool:
     return diff > 0 if hyp.alternative == "greater" else diff < 0
 
 
-def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: float
-                 ) -> _Method:
+def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: float,
+                 both_tails: bool = True) -> _Method:
     design = plan.design
     p1, p2 = rates
     side = alpha / 2.0 if hyp.alternative == "two-sided" else alpha
+    two = hyp.alternative == "two-sided" and both_tails
     if hyp.comparison != "superiority":
         score = hyp.test == "farrington-manning"
         name = ("Farrington–Manning score test (Farrington and Manning 1990)" if score else
@@ -187,7 +188,7 @@ def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: f
             if max(n) > FISHER_LIMIT:
                 late.append(f"power by the normal approximation: {above}")
                 return samplesize.two_proportion_power(p1, p2, n[0], n[1], side,
-                                                       continuity=True)
+                                                       continuity=True, two_sided=two)
             return exactpower.fisher_power(p1, p2, n[0], n[1], alpha, hyp.alternative)
 
         return _Method(
@@ -216,16 +217,21 @@ def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: f
         text,
         lambda: samplesize.two_proportion_n(p1, p2, side, design.power, ratio=ratio,
                                             continuity=cc).n,
-        lambda n: samplesize.two_proportion_power(p1, p2, n[0], n[1], side, continuity=cc),
+        lambda n: samplesize.two_proportion_power(p1, p2, n[0], n[1], side, continuity=cc,
+                                                  two_sided=two),
         tuple(notes))
 
 
 def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
-            shares: list[float]) -> _Method:
+            shares: list[float], both_tails: bool = True) -> _Method:
+    """How one hypothesis is sized and its power computed. ``both_tails=False`` leaves the far
+    tail out of a two-sided test's normal-approximation power, as prespec once did: only to
+    recompute the design entry of a results.json written then (``verify --rerun``)."""
     design = plan.design
     side = alpha / 2.0 if hyp.alternative == "two-sided" else alpha
+    two = hyp.alternative == "two-sided" and both_tails
     if hyp.kind == "pair":
-        return _pair_method(plan, hyp, alpha, rates, shares[1] / shares[0])
+        return _pair_method(plan, hyp, alpha, rates, shares[1] / shares[0], both_tails)
     if hyp.kind == "single":
         p, p0 = rates[0], float(hyp.null_rate)
         if hyp.test == "binomial-exact":
@@ -244,7 +250,7 @@ def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
             def binomial_power(n: tuple[int, ...]) -> float:
                 if n[0] > BINOMIAL_LIMIT:
                     late.append(f"power by the normal approximation: {above}")
-                    return samplesize.one_proportion_power(p, p0, n[0], side)
+                    return samplesize.one_proportion_power(p, p0, n[0], side, two_sided=two)
                 return exactpower.binomial_power(p, p0, n[0], alpha, hyp.alternative)
 
             return _Method(
@@ -254,13 +260,13 @@ def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
         return _Method(
             "normal approximation of the score z test (Fleiss, Levin and Paik 2003, §2.5)",
             lambda: samplesize.one_proportion_n(p, p0, side, design.power).n,
-            lambda n: samplesize.one_proportion_power(p, p0, n[0], side))
+            lambda n: samplesize.one_proportion_power(p, p0, n[0], side, two_sided=two))
     if hyp.kind == "trend":
         scores = hyp.scores if hyp.scores is not None else list(range(len(rates)))
         return _Method(
             "normal approximation of the Cochran–Armitage test (Nam 1987)",
             lambda: samplesize.trend_n(rates, scores, side, design.power, shares).n,
-            lambda n: samplesize.trend_power(rates, n, scores, side))
+            lambda n: samplesize.trend_power(rates, n, scores, side, two_sided=two))
     notes = ()
     if hyp.test == "fisher-exact":
         notes = ("fisher-exact on k groups: sized by the chi-square approximation",)
@@ -416,6 +422,10 @@ def design_document(plan: Any, *, where: str = "plan", fingerprint: str | None =
                             "distinct table: " + "; ".join(decider.per_table))
     doc["notes"].append("simulated trials have the analysed sizes fixed (dropout already "
                         "allowed for); outcomes are simulated independently of each other")
+    if any(h.looks is not None for h in plan.hypotheses):
+        doc["notes"].append("interim looks are not simulated: each simulated trial is analysed "
+                            "once, at the sizes above, by the fixed-sample test without the "
+                            "group-sequential boundaries (which are shown per hypothesis)")
     doc["notes"].append("fwer: the probability of rejecting at least one true null among the "
                         "non-exploratory hypotheses, follow-ups included (true_nulls lists "
                         "them); any and all: over the plan's non-exploratory hypotheses; power "
@@ -433,6 +443,14 @@ def _pm(value: float | None, se: float | None) -> str:
     return f"{value:.4f} ± {se:.4f}" if se is not None else f"{value:.4f}"
 
 
+def designed_n_text(doc: dict[str, Any]) -> str | None:
+    """The note on sizes put in for a missing data.planned_n (printed once, near the top)."""
+    from prespec.design.planned import designed_n_line
+
+    sizes = doc.get("planned_n_from_design")
+    return designed_n_line(sizes) if sizes else None
+
+
 def design_text(doc: dict[str, Any]) -> str:
     """The design document as text, for the terminal."""
     from prespec.design.looks import looks_lines
@@ -442,7 +460,11 @@ def design_text(doc: dict[str, Any]) -> str:
              (f"Target power {doc['power_target']:g} at the assumed rates "
              f"{_rates(doc['assumed'])}; allocation {ratio}; dropout {doc['dropout']:g}"),
              (f"Alpha {doc['alpha']:g}, multiplicity {doc['multiplicity']}; each hypothesis is "
-             f"sized at {doc['alpha_rule']}."), "Hypotheses:"]
+             f"sized at {doc['alpha_rule']}.")]
+    shown_above = designed_n_text(doc)
+    if shown_above:
+        lines.append(f"Sizes: {shown_above}.")
+    lines.append("Hypotheses:")
     for h in doc["hypotheses"]:
         lines.append(f"  {h['id']}: alpha {_fmt(h['alpha'])}, {h['sides']}; {h['method']}")
         if h["n_per_group"] is not None:
@@ -452,7 +474,8 @@ def design_text(doc: dict[str, Any]) -> str:
         else:
             lines.append("      analysed n per group: not computable")
         shown = "no data.planned_n" if h["power"] is None else f"{h['power']:.4f}"
-        lines.append(f"      power at data.planned_n: {shown}")
+        at = "the designed sizes" if doc.get("planned_n_from_design") else "data.planned_n"
+        lines.append(f"      power at {at}: {shown}")
         lines.extend(looks_lines(h))
         lines.extend(f"      note: {note}" for note in h["notes"])
     sim = doc.get("simulation")
@@ -474,18 +497,24 @@ def design_text(doc: dict[str, Any]) -> str:
                          f"P(reject all) {_pm(s['all'], se['all'])}")
             for ident, p in s["power"].items():
                 lines.append(f"      reject {ident}: {_pm(p, se['power'][ident])}")
-    lines.extend(f"Note: {n}" for n in doc["notes"])
+    lines.extend(f"Note: {n}" for n in doc["notes"] if n != shown_above)
     lines.append(f"Caution: {doc['caution']}")
     return "\n".join(lines)
 
 
-def planned_vs_achieved(plan: Any, achieved: dict[str, dict[str, int]] | None
-                        ) -> dict[str, Any] | None:
+#: The key of results.json's ``design`` saying that the power of a two-sided test counts both
+#: tails. A design entry without it was written when the far tail was left out.
+BOTH_TAILS_KEY = "two_sided_power"
+
+
+def planned_vs_achieved(plan: Any, achieved: dict[str, dict[str, int]] | None, *,
+                        both_tails: bool = True) -> dict[str, Any] | None:
     """For results.json: per hypothesis the alpha it was sized at, the design's analysed n per
     group (``n_per_group``, before dropout) and n to enrol (after it), the achieved analysed n
     (``achieved_per_group``, from ``achieved``: per hypothesis id its table's totals; None in
     a rehearsal) and the power at the achieved sizes under the
-    assumed rates (closed forms or exact enumeration; no simulation). None without a design."""
+    assumed rates (closed forms or exact enumeration; no simulation). None without a design.
+    ``both_tails=False`` recomputes an entry written before the far tail was counted."""
     if plan.design is None:
         return None
     sized, rule = size_plan(plan)
@@ -500,13 +529,16 @@ def planned_vs_achieved(plan: Any, achieved: dict[str, dict[str, int]] | None
                 and _direction_ok(hyp, [float(plan.design.assumed[g]) for g in groups])):
             rates = [float(plan.design.assumed[g]) for g in groups]
             weights = [float(plan.design.allocation[g]) for g in groups]
-            method = _method(plan, hyp, shares[hyp.id].alpha, rates, weights)
+            method = _method(plan, hyp, shares[hyp.id].alpha, rates, weights, both_tails)
             power = method.power(tuple(got[g] for g in groups))
         out.append({"id": h.id, "alpha": h.alpha, "method": h.method,
                     "n_per_group": h.n_per_group,
                     "n_enrol_per_group": h.n_enrol_per_group,
                     "achieved_per_group": got,
                     "power_at_achieved": power})
-    return {"rule": rule, "power": plan.design.power, "dropout": plan.design.dropout,
-            "assumed": {g: float(plan.design.assumed[g]) for g in plan.data.groups},
-            "hypotheses": out}
+    entry = {"rule": rule, "power": plan.design.power, "dropout": plan.design.dropout,
+             "assumed": {g: float(plan.design.assumed[g]) for g in plan.data.groups},
+             "hypotheses": out}
+    if both_tails:
+        entry[BOTH_TAILS_KEY] = "both tails"
+    return entry

@@ -1,11 +1,12 @@
 """Closed-form power and sample size for comparisons of proportions (normal approximations).
 
 Every function takes the level of one side, ``alpha`` (a one-sided test at alpha; a two-sided
-test at level 2·alpha is the caller's alpha/2 per side), the assumed rates and the group sizes,
-and returns the probability of rejecting in the direction of the assumed difference. The far
-tail of a two-sided test (a rejection in the wrong direction, of negligible probability at any
-useful power) is left out, as in the published formulas, so that the sample size and the power
-agree: the power at the returned sizes is at least the target.
+test at level 2·alpha is the caller's alpha/2 per side), the assumed rates and the group sizes.
+A power function returns the probability of rejecting in the direction of the assumed
+difference and, with ``two_sided=True``, adds the far tail (a rejection in the other
+direction), so that the power of a two-sided test under equal rates is its whole level, 2·alpha.
+The sample sizes are the published formulas, which leave the far tail out; the power at the
+returned sizes, with or without it, is at least the target.
 
 Sizes are per group; allocation is the ratio ``ratio`` = n2 / n1 (or, for k groups, shares).
 A sample size is the real-valued solution of the formula rounded up in each group.
@@ -51,6 +52,15 @@ def _up(x: float) -> int:
     return max(1, math.ceil(x - ROUND_SLACK))
 
 
+def _tails(effect: float, threshold: float, sd: float, two_sided: bool) -> float:
+    """Φ((effect − threshold)/sd), plus the far tail Φ((−effect − threshold)/sd) if two-sided
+    (effect >= 0: the statistic's numerator at the assumed rates, on the side they lie)."""
+    near = float(stats.norm.cdf((effect - threshold) / sd))
+    if not two_sided:
+        return near
+    return near + float(stats.norm.cdf((-effect - threshold) / sd))
+
+
 def _rate(name: str, p: float) -> float:
     if not 0.0 < p < 1.0:
         raise ValueError(f"{name} must be in (0, 1), got {p!r}")
@@ -60,12 +70,13 @@ def _rate(name: str, p: float) -> float:
 # --- two proportions, superiority -----------------------------------------------------------
 
 def two_proportion_power(p1: float, p2: float, n1: float, n2: float, alpha: float, *,
-                         continuity: bool = False) -> float:
-    """Power of the two-proportion z test (≡ Pearson's 2×2 X²) at one-sided level ``alpha``.
+                         continuity: bool = False, two_sided: bool = False) -> float:
+    """Power of the two-proportion z test (≡ Pearson's 2×2 X²) at level ``alpha`` per side.
 
     Φ((|p1 − p2| − c − z_α·sqrt(p̄q̄(1/n1 + 1/n2))) / sqrt(p1q1/n1 + p2q2/n2)), with p̄ the
     size-weighted mean rate (the pooled variance under the null, the unpooled one under the
-    alternative) and c = (1/n1 + 1/n2)/2 with the continuity correction, 0 without.
+    alternative) and c = (1/n1 + 1/n2)/2 with the continuity correction, 0 without; with
+    ``two_sided`` plus the far tail Φ((−|p1 − p2| − c − z_α·sd0) / sd1).
 
     References
     ----------
@@ -80,11 +91,11 @@ def two_proportion_power(p1: float, p2: float, n1: float, n2: float, alpha: floa
     null_sd = math.sqrt(pooled * (1.0 - pooled) * (1.0 / n1 + 1.0 / n2))
     alt_sd = math.sqrt(p1 * (1.0 - p1) / n1 + p2 * (1.0 - p2) / n2)
     correction = 0.5 * (1.0 / n1 + 1.0 / n2) if continuity else 0.0
-    return float(stats.norm.cdf((abs(p1 - p2) - correction - _z(alpha) * null_sd) / alt_sd))
+    return _tails(abs(p1 - p2), correction + _z(alpha) * null_sd, alt_sd, two_sided)
 
 
 def two_proportion_n(p1: float, p2: float, alpha: float, power: float, *, ratio: float = 1.0,
-                     continuity: bool = False) -> Size:
+                     continuity: bool = False, two_sided: bool = False) -> Size:
     """Sizes (n1, n2 = ratio·n1) for :func:`two_proportion_power` to reach ``power``.
 
     n1' = [z_α·sqrt((r + 1)p̄q̄) + z_β·sqrt(r·p1q1 + p2q2)]² / (r·(p1 − p2)²), p̄ = (p1 + r·p2)/
@@ -110,7 +121,8 @@ def two_proportion_n(p1: float, p2: float, alpha: float, power: float, *, ratio:
     if continuity:
         n = n / 4.0 * (1.0 + math.sqrt(1.0 + 2.0 * (r + 1.0) / (r * n * delta))) ** 2
     n1, n2 = _up(n), _up(r * n)
-    return Size((n1, n2), two_proportion_power(p1, p2, n1, n2, alpha, continuity=continuity), n)
+    return Size((n1, n2), two_proportion_power(p1, p2, n1, n2, alpha, continuity=continuity,
+                                               two_sided=two_sided), n)
 
 
 # --- margins: non-inferiority and equivalence -----------------------------------------------
@@ -256,9 +268,11 @@ def _search_up(reach: Callable[[int], float], power: float, limit: int = 10**9) 
 
 # --- one group against a fixed rate ---------------------------------------------------------
 
-def one_proportion_power(p: float, p0: float, n: float, alpha: float) -> float:
-    """Power of the score z test of p = p0 at one-sided level alpha:
-    Φ((|p − p0|·sqrt(n) − z_α·sqrt(p0q0)) / sqrt(pq)).
+def one_proportion_power(p: float, p0: float, n: float, alpha: float, *,
+                         two_sided: bool = False) -> float:
+    """Power of the score z test of p = p0 at level alpha per side:
+    Φ((|p − p0|·sqrt(n) − z_α·sqrt(p0q0)) / sqrt(pq)), plus the far tail
+    Φ((−|p − p0|·sqrt(n) − z_α·sqrt(p0q0)) / sqrt(pq)) if ``two_sided``.
 
     References
     ----------
@@ -268,11 +282,12 @@ def one_proportion_power(p: float, p0: float, n: float, alpha: float) -> float:
     """
     _check(alpha)
     p, p0 = _rate("p", p), _rate("p0", p0)
-    return float(stats.norm.cdf((abs(p - p0) * math.sqrt(n) - _z(alpha) * math.sqrt(p0 * (1 - p0)))
-                                / math.sqrt(p * (1 - p))))
+    return _tails(abs(p - p0) * math.sqrt(n), _z(alpha) * math.sqrt(p0 * (1 - p0)),
+                  math.sqrt(p * (1 - p)), two_sided)
 
 
-def one_proportion_n(p: float, p0: float, alpha: float, power: float) -> Size:
+def one_proportion_n(p: float, p0: float, alpha: float, power: float, *,
+                     two_sided: bool = False) -> Size:
     """n = [z_α·sqrt(p0q0) + z_β·sqrt(pq)]² / (p − p0)² for :func:`one_proportion_power`."""
     _check(alpha, power)
     p, p0 = _rate("p", p), _rate("p0", p0)
@@ -281,7 +296,7 @@ def one_proportion_n(p: float, p0: float, alpha: float, power: float) -> Size:
     n = ((_z(alpha) * math.sqrt(p0 * (1 - p0)) + _z(1.0 - power) * math.sqrt(p * (1 - p)))
          / (p - p0)) ** 2
     m = _up(n)
-    return Size((m,), one_proportion_power(p, p0, m, alpha), n)
+    return Size((m,), one_proportion_power(p, p0, m, alpha, two_sided=two_sided), n)
 
 
 # --- k groups -------------------------------------------------------------------------------
@@ -354,11 +369,11 @@ def _trend_parts(rates: Sequence[float], sizes: Sequence[float], scores: Sequenc
 
 
 def trend_power(rates: Sequence[float], sizes: Sequence[float], scores: Sequence[float],
-                alpha: float) -> float:
-    """Power of the Cochran–Armitage trend test at one-sided level alpha, in the direction of
+                alpha: float, *, two_sided: bool = False) -> float:
+    """Power of the Cochran–Armitage trend test at level alpha per side, in the direction of
     the assumed trend: Φ((|U| − z_α·sqrt(p̄q̄·S)) / sqrt(Σ n_i(s_i − s̄)²p_iq_i)), U = Σ n_i(s_i −
-    s̄)p_i and S = Σ n_i(s_i − s̄)². For two groups with scores (0, 1) it is the two-proportion
-    power of :func:`two_proportion_power`.
+    s̄)p_i and S = Σ n_i(s_i − s̄)², plus the far tail Φ((−|U| − …)/…) if ``two_sided``. For two
+    groups with scores (0, 1) it is the two-proportion power of :func:`two_proportion_power`.
 
     References
     ----------
@@ -367,11 +382,11 @@ def trend_power(rates: Sequence[float], sizes: Sequence[float], scores: Sequence
     """
     _check(alpha)
     effect, null_sd, alt_sd = _trend_parts(rates, sizes, scores)
-    return float(stats.norm.cdf((abs(effect) - _z(alpha) * null_sd) / alt_sd))
+    return _tails(abs(effect), _z(alpha) * null_sd, alt_sd, two_sided)
 
 
 def trend_n(rates: Sequence[float], scores: Sequence[float], alpha: float, power: float,
-            shares: Sequence[float] | None = None) -> Size:
+            shares: Sequence[float] | None = None, *, two_sided: bool = False) -> Size:
     """Sizes n_i = ⌈N·w_i⌉ for :func:`trend_power` to reach ``power``: N = (z_α·sqrt(v0) +
     z_β·sqrt(v1))²/u², u, v0 and v1 the effect and variances per participant (Nam 1987)."""
     _check(alpha, power)
@@ -382,4 +397,5 @@ def trend_n(rates: Sequence[float], scores: Sequence[float], alpha: float, power
         raise ValueError("the assumed rates have no linear trend in the scores")
     total = ((_z(alpha) * null_sd + _z(1.0 - power) * alt_sd) / effect) ** 2
     sizes = tuple(_up(total * wi) for wi in w)
-    return Size(sizes, trend_power(rates, sizes, scores, alpha), total * w[0])
+    return Size(sizes, trend_power(rates, sizes, scores, alpha, two_sided=two_sided),
+                total * w[0])

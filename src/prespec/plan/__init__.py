@@ -67,13 +67,20 @@ class LoadedPlan:
     fingerprint: str
 
 
-def load_plan(path: str | Path) -> LoadedPlan:
-    """Read, validate and resolve a plan file; any problem is a one-line :class:`PlanError`."""
+def load_plan(path: str | Path, *, planned_n: dict[str, int] | None = None) -> LoadedPlan:
+    """Read, validate and resolve a plan file; any problem is a one-line :class:`PlanError`.
+
+    ``planned_n`` (for ``prespec design`` only) stands in for ``data.planned_n`` when the file
+    gives none; the fingerprint is then that of the plan with these sizes written in."""
     file = str(path)
     plan_path = Path(path)
     data = read_plan_bytes(plan_path, file)
     doc = parse_plan_yaml(data, file)
-    plan = _validate(doc.data, Locator(file, doc.data, doc.lines, doc.key_lines))
+    raw = doc.data
+    if planned_n is not None and isinstance(raw.get("data"), dict) \
+            and raw["data"].get("planned_n") is None:
+        raw = {**raw, "data": {**raw["data"], "planned_n": dict(planned_n)}}
+    plan = _validate(raw, Locator(file, raw, doc.lines, doc.key_lines))
     resolved = resolve(plan)
     return LoadedPlan(
         path=plan_path,

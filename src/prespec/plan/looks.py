@@ -196,7 +196,7 @@ def _schedule_issues(plan: Any, hyp: Any, where: KeyPath) -> Iterator[Issue]:
     if key == "fractions" and not all(g in planned for g in groups):
         yield Issue((*where, key), "the observed information fraction is the analysed total "
                     "over the planned total: give data.planned_n for "
-                    f"{' and '.join(groups)}, or looks.sizes")
+                    f"{' and '.join(groups)} (prespec design computes it), or looks.sizes")
     elif key == "sizes" and all(g in planned for g in groups):
         total = sum(planned[g] for g in groups)
         if int(values[-1]) != total:

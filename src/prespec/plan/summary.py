@@ -41,9 +41,43 @@ def _compare(plan: Plan, hyp: Hypothesis) -> str:
     return f"{hyp.compare[0]} vs {hyp.compare[1]}"
 
 
+def _sides(plan: Plan, hyp: Hypothesis) -> list[str]:
+    """The direction of the test in words. A k-group test has none: its statistic grows with
+    a departure from equal proportions in any direction; a trend is tested in the direction
+    of the scores."""
+    if hyp.kind == "all":
+        return [("test of equal proportions in every group, against any difference (no "
+                 "direction)")]
+    if hyp.kind == "trend":
+        scores = (", ".join(map(_num, hyp.scores)) if hyp.scores is not None
+                  else ", ".join(str(i) for i in range(len(plan.data.groups))) + " (default)")
+        direction = {"two-sided": "two-sided (a rising or a falling trend)",
+                     "greater": "one-sided: the proportion rises with the score",
+                     "less": "one-sided: the proportion falls with the score"}
+        return [direction.get(hyp.alternative, hyp.alternative), f"scores {scores}"]
+    return [hyp.alternative, hyp.comparison]
+
+
+def _then(plan: Plan, hyp: Hypothesis) -> str:
+    from prespec.analysis import follow_ups
+
+    assert hyp.then is not None
+    subs = follow_ups(hyp, plan)  # what the run tests, so the words cannot drift from it
+    pairs = ", ".join(f"{f.compare[0]} vs {f.compare[1]}" for f in subs)
+    which = ("each group against the reference" if hyp.then.pairwise == "reference"
+             else "every pair")
+    first = subs[0]
+    return (f"then, only if {hyp.id} is rejected, {which} ({pairs}) by {first.test}, "
+            f"{first.alternative}, {first.measure} with {first.interval} interval, adjusted by "
+            f"{hyp.then.multiplicity} among themselves")
+
+
 def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
     parts = [hyp.test + (" (continuity-corrected)" if hyp.continuity else ""),
-             hyp.alternative, hyp.comparison]
+             *_sides(plan, hyp)]
+    if hyp.monte_carlo is not None:
+        parts.append(f"Monte Carlo p-value from {hyp.monte_carlo.tables:,} tables, seed "
+                     f"{hyp.monte_carlo.seed}")
     if hyp.margin is not None:
         margin = hyp.margin if isinstance(hyp.margin, list) else [hyp.margin]
         parts.append("margin " + " to ".join(map(_num, margin)))
@@ -60,6 +94,10 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
         parts.append(looks_words(hyp.looks))
     if hyp.over is not None:
         parts.append(family_words(hyp))
+    if hyp.sensitivity:
+        parts.append(f"sensitivity for missing outcomes: {', '.join(hyp.sensitivity)}")
+    if hyp.then is not None:
+        parts.append(_then(plan, hyp))
     title = f" - {hyp.title}" if hyp.title else ""
     return (f"  {hyp.id} [{hyp.role}] {hyp.outcome}: {_compare(plan, hyp)}{title}\n"
             f"      {'; '.join(parts)}")

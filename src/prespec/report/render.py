@@ -13,6 +13,7 @@ import hashlib
 import json
 import logging
 import os
+import subprocess
 from pathlib import Path
 from typing import Any
 
@@ -165,9 +166,37 @@ def _kernel_options(kernel_name: str) -> dict[str, Any]:
     options: dict[str, Any] = {}
     if zmq.has("curve"):
         options["config"] = Config({"KernelManager": {"transport_encryption": "auto"}})
-    if kernel_name == KERNEL:
-        options["kernel_manager_class"] = _this_interpreter_manager(AsyncKernelManager)
+    quiet = _quiet_manager(AsyncKernelManager)
+    options["kernel_manager_class"] = (_this_interpreter_manager(quiet) if kernel_name == KERNEL
+                                       else quiet)
     return options
+
+
+def _quiet_manager(base: type[Any]) -> type[Any]:
+    """A kernel manager whose kernel writes nothing to prespec's terminal.
+
+    The kernel process inherited prespec's stdout and stderr, and at the end of every notebook
+    jupyter_client interrupts the kernel (SIGINT) before asking it to shut down; a kernel
+    caught in a message handler or its event loop by that signal writes "KeyboardInterrupt
+    caught in kernel" straight to the terminal, after the command's own output. Here the
+    kernel's own stdout and stderr go to the null device (what a cell prints reaches the
+    notebook through the kernel's messages, not through them), and a kernel that is shutting
+    down (the notebook has finished; nothing runs) gets the shutdown request without the
+    interrupt.
+    """
+
+    class QuietKernel(base):  # type: ignore[misc, valid-type]
+        async def _async_launch_kernel(self, kernel_cmd: list[str], **kw: Any) -> None:
+            kw["stdout"] = subprocess.DEVNULL
+            kw["stderr"] = subprocess.DEVNULL
+            await super()._async_launch_kernel(kernel_cmd, **kw)
+
+        async def _async_interrupt_kernel(self) -> None:
+            if self.shutting_down:
+                return
+            await super()._async_interrupt_kernel()
+
+    return QuietKernel
 
 
 def _this_interpreter_manager(base: type[Any]) -> type[Any]:
