@@ -28,6 +28,7 @@ from ..errors import DataError
 from ..matching import as_text, is_blank, value_key
 from ..plan.families import declared, member_id
 from .prepare import Prepared, _per_unique, prepare
+from .read import missing_column
 
 _SHOW = 5
 _ROWS = re.compile(r"\(rows ([0-9][0-9, ]*)\)")
@@ -101,8 +102,8 @@ def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
     for key in ("over", "within"):
         column = getattr(hyp, key)
         if column is not None and column not in present:
-            raise DataError(f"{source}: column {column!r} (hypotheses.{hyp.id}.{key}) is not "
-                            f"in the data (columns: {', '.join(map(str, present))})")
+            raise missing_column(source, column, f"hypotheses.{hyp.id}.{key}",
+                                 [str(c) for c in present])
     labels = _labels(frame[hyp.over])
     deviations: list[Departure] = []
     notes: list[Note] = []

@@ -20,6 +20,7 @@ import pandas as pd
 from ..departures import Departure, Note
 from ..errors import DataError
 from ..matching import ValueSet, as_number, as_text, is_blank
+from .read import missing_column
 
 _SHOW = 5  # how many offending values an error message lists
 # A frame with this column is weighted: each row stands for that many source rows (an engine's
@@ -189,13 +190,10 @@ def cell_predicate(op: str, arg: Any) -> Any:
 
 
 def _check_columns(frame: pd.DataFrame, needed: dict[str, str], source: str) -> None:
-    present = list(frame.columns)
+    present = [str(c) for c in frame.columns]
     for column, role in needed.items():
         if column not in present:
-            raise DataError(
-                f"{source}: column {column!r} ({role}) is not in the data "
-                f"(columns: {', '.join(present)})"
-            )
+            raise missing_column(source, column, role, present)
 
 
 def _check_ids(frame: pd.DataFrame, id_column: str, source: str, line_offset: int) -> None:
@@ -237,6 +235,21 @@ def needed_columns(plan: Any) -> dict[str, str]:
             if ice.strategy == "while-on-treatment" and ice.outcome_column:
                 needed.setdefault(ice.outcome_column, f"{where}.outcome_column")
     return needed
+
+
+def read_columns(plan: Any, *, blinded: bool = False) -> dict[str, str]:
+    """Every column a run reads from the data, with the plan key that names it: those of
+    ``needed_columns`` and each family's ``over`` and ``within``; ``blinded`` (a rehearsal):
+    without the group column."""
+    columns = needed_columns(plan)
+    for hyp in plan.hypotheses:
+        for key in ("over", "within"):
+            column = getattr(hyp, key, None)
+            if column:
+                columns.setdefault(column, f"hypotheses.{hyp.id}.{key}")
+    if blinded:
+        columns.pop(plan.data.group, None)
+    return columns
 
 
 def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,

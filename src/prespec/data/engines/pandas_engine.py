@@ -1,4 +1,5 @@
-"""The ``pandas`` engine: one file read whole into memory; ``prepare`` counts the full frame.
+"""The ``pandas`` engine: one file read into memory, the columns the plan names only;
+``prepare`` counts the full frame.
 
 Errors name file lines; the data fingerprint is the file's SHA-256.
 """
@@ -22,16 +23,21 @@ class PandasEngine(Engine):
                             "--engine duckdb for a glob" if source.kind == "glob" else
                             f"{source.shown}: the pandas engine reads files, not databases")
         super().__init__(source)
-        self._frame: pd.DataFrame | None = None
+        self._frames: dict[tuple[tuple[str, str], ...], pd.DataFrame] = {}
 
-    def _read(self) -> pd.DataFrame:
-        if self._frame is None:
-            self._frame = read_data(self.source.path)
-        return self._frame
+    def _read(self, request: CountRequest) -> pd.DataFrame:
+        """The columns of ``request.needed`` (and of ``request.read``), every row."""
+        columns = dict(request.needed)
+        for column in request.read:
+            columns.setdefault(column, "read by the plan")
+        key = tuple(columns.items())
+        if key not in self._frames:
+            self._frames[key] = read_data(self.source.path, columns, self.source.shown)
+        return self._frames[key]
 
     def reduce(self, request: CountRequest) -> Reduction:
-        return Reduction(frame=self._read(), engine=self.name,
+        return Reduction(frame=self._read(request), engine=self.name,
                          data_hash=file_sha256(self.source.path))
 
     def rows(self, request: CountRequest) -> pd.DataFrame:
-        return self._read()
+        return self._read(request)
