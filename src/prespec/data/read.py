@@ -103,6 +103,8 @@ def _csv_header(path: Path) -> tuple[list[str], int]:
         raw = next((row for row in reader if row), [])
         lines = reader.line_num
     names = [name if name else f"Unnamed: {i}" for i, name in enumerate(raw)]
+    if len(set(names)) == len(names):
+        return [n.strip() for n in names], lines
     counts: dict[str, int] = {}
     for i, col in enumerate(names):
         seen = counts.get(col, 0)
@@ -143,8 +145,9 @@ def _read_csv(path: Path, columns: Mapping[str, str] | None, shown: str) -> pd.D
         frame.columns = [str(c).strip() for c in frame.columns]
         return frame
     header, lines = _csv_header(path)
+    present = set(header)
     for column, role in columns.items():
-        if column not in header:
+        if column not in present:
             raise missing_column(shown, column, role, header)
     at = [i for i, name in enumerate(header) if name in columns]
     rows, widest = _row_widths(path, len(header))
