@@ -190,3 +190,15 @@ def test_the_first_bad_byte_is_found_past_the_first_block(tmp_path: Path) -> Non
     assert str(caught.value) == (
         f"{path}: byte offset {len(data) + 2} (line {good.count(chr(10)) + 1}) is 0x81, which "
         "is not UTF-8; save the file as UTF-8 (encodings tried: UTF-8, Windows-1252)")
+
+
+def test_a_long_field_is_read_and_the_csv_limit_is_put_back(tmp_path: Path) -> None:
+    import csv
+
+    before = csv.field_size_limit()
+    path = tmp_path / "d.csv"
+    long_text = "z" * 200_000  # over the csv module's default limit of 131,072
+    path.write_text(f"pid,note,y\n1,{long_text},1\n2,,0\n", encoding="utf-8")
+    frame = read_data(path, {"pid": "data.id", "note": "x"})
+    assert frame["note"].tolist() == [long_text, ""]
+    assert csv.field_size_limit() == before

@@ -10,28 +10,36 @@ from __future__ import annotations
 
 import codecs
 import csv
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from pathlib import Path
+from typing import Any
 
 import pandas as pd
 import pyarrow as pa
 
+from ..departures import listed
 from ..errors import DataError
 
 #: How many column names a missing-column message lists before "… and N more".
 COLUMNS_SHOWN = 20
-#: A column name longer than this is shortened in messages.
-NAME_SHOWN = 60
 #: Separators a CSV written by a spreadsheet in another locale may use instead of a comma.
 OTHER_SEPARATORS = {";": "';' (semicolon)", "\t": "a tab", "|": "'|' (vertical bar)"}
+#: The longest field the csv module reads here (its default, 131,072 characters, is a guard
+#: against runaway quotes; pandas has no such limit, and a full read did not either).
+FIELD_LIMIT = 1 << 30
 
 
-def listed(names: Iterable[str], shown: int = COLUMNS_SHOWN) -> str:
-    """``a, b, c … and 99,997 more``: at most ``shown`` names, each at most NAME_SHOWN long."""
-    items = list(names)
-    cut = [n if len(n) <= NAME_SHOWN else n[: NAME_SHOWN - 1] + "…" for n in items[:shown]]
-    rest = len(items) - len(cut)
-    return ", ".join(cut) + (f" … and {rest:,} more" if rest > 0 else "")
+@contextmanager
+def _csv_reader(path: Path) -> Iterator[Any]:
+    """A csv reader over ``path`` (UTF-8, a byte-order mark skipped) with FIELD_LIMIT in force
+    while it is open (the limit is process-wide, so it is set back afterwards)."""
+    before = csv.field_size_limit(FIELD_LIMIT)
+    try:
+        with path.open(encoding="utf-8-sig", newline="") as handle:
+            yield csv.reader(handle)
+    finally:
+        csv.field_size_limit(before)
 
 
 def separator_hint(present: list[str]) -> str:
@@ -51,7 +59,7 @@ def missing_column(source: str, column: str, role: str, present: list[str]) -> D
     """The one-line error for a column the plan names that the data lack: the columns that
     are there (at most COLUMNS_SHOWN of them) and a hint when the separator looks wrong."""
     return DataError(f"{source}: column {column!r} ({role}) is not in the data "
-                     f"(columns: {listed(present)}){separator_hint(present)}")
+                     f"(columns: {listed(present, COLUMNS_SHOWN)}){separator_hint(present)}")
 
 
 def _first_bad_byte(path: Path) -> tuple[int, int, int]:
@@ -97,9 +105,7 @@ def not_utf8(path: Path, shown: str | None = None) -> DataError:
 def _csv_header(path: Path) -> tuple[list[str], int]:
     """The header's fields as pandas names them (an empty name ``Unnamed: i``, a repeated one
     ``name.1``, …, as ``pandas.io.common.dedup_names``) and the physical lines it took."""
-    csv.field_size_limit(1 << 30)
-    with path.open(encoding="utf-8-sig", newline="") as handle:
-        reader = csv.reader(handle)
+    with _csv_reader(path) as reader:
         raw = next((row for row in reader if row), [])
         lines = reader.line_num
     names = [name if name else f"Unnamed: {i}" for i, name in enumerate(raw)]
@@ -125,8 +131,7 @@ def _row_widths(path: Path, width: int) -> tuple[int, int]:
     """The number of data rows and the most fields a row has; a row with more fields than
     the header is an error, as a full read by pandas makes it."""
     rows = widest = 0
-    with path.open(encoding="utf-8-sig", newline="") as handle:
-        reader = csv.reader(handle)
+    with _csv_reader(path) as reader:
         next((row for row in reader if row), None)
         for row in reader:
             if not row:
@@ -215,10 +220,10 @@ def read_data(path: Path, columns: Mapping[str, str] | None = None,
     except DataError:
         raise
     except UnicodeDecodeError:
-        raise not_utf8(path) from None
+        raise not_utf8(path, shown) from None
     except pd.errors.EmptyDataError:
         raise DataError(f"{path}: the data file is empty") from None
-    except (pd.errors.ParserError, ValueError, OSError, pa.ArrowException) as exc:
+    except (pd.errors.ParserError, csv.Error, ValueError, OSError, pa.ArrowException) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise DataError(f"{path}: cannot read the data file ({first})") from None
     if len(frame.index) == 0:
