@@ -96,6 +96,10 @@ def test_an_earlier_uncapped_found_compares_equal_to_the_capped_one() -> None:
     assert _comparable([old], "deviations") == _comparable([new], "deviations")
     assert capped_found("a, b") == "a, b" and capped_found(None) is None
     assert capped_found(new["found"]) == new["found"]
+    # a found that is not a list of data values is compared as it is, however long
+    used = [{"code": "override", "detail": "d", "expected": "x", "found": "y" * 70 + c}
+            for c in "ab"]
+    assert _comparable(used[:1], "deviations") != _comparable(used[1:], "deviations")
 
 
 def _write_plan(tmp_path: Path, text: str) -> Path:
