@@ -18,7 +18,7 @@ from prespec.demo import PLAN_TEXT, demo_data
 from prespec.departures import FOUND_SHOWN, Departure, capped_found, listed
 from prespec.errors import DataError, PlanError
 from prespec.plan import load_plan
-from prespec.verify import _comparable
+from prespec.verify import _comparable, _found_capped
 
 
 def _plan(id_column: str = "pid") -> SimpleNamespace:
@@ -97,9 +97,10 @@ def test_an_earlier_uncapped_found_compares_equal_to_the_capped_one() -> None:
     assert capped_found("a, b") == "a, b" and capped_found(None) is None
     assert capped_found(new["found"]) == new["found"]
     # a found that is not a list of data values is compared as it is, however long
-    used = [{"code": "override", "detail": "d", "expected": "x", "found": "y" * 70 + c}
-            for c in "ab"]
-    assert _comparable(used[:1], "deviations") != _comparable(used[1:], "deviations")
+    shortfall = {"code": "sample-size-shortfall", "detail": "d", "expected": "x",
+                 "found": ", ".join(["y" * 70] * 30)}
+    assert _found_capped(shortfall) == shortfall
+    assert _found_capped(old)["found"] == new["found"]
 
 
 def _write_plan(tmp_path: Path, text: str) -> Path:
