@@ -9,7 +9,8 @@ it is detected with ``departure(...)``, and add a test that provokes it.
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
+from collections.abc import Iterable
+from dataclasses import asdict, dataclass, field
 
 DEPARTURE_CODES: dict[str, str] = {
     "plan-modified-after-lock": "the plan file no longer matches its lock",
@@ -33,6 +34,32 @@ DEPARTURE_CODES: dict[str, str] = {
 STOPPING = frozenset({"plan-modified-after-lock", "run-without-lock", "override"})
 
 
+#: How many values a departure's ``found`` lists before "… and N more".
+FOUND_SHOWN = 20
+#: A value longer than this is shortened where a list shows it.
+VALUE_SHOWN = 60
+_MORE = " … and "
+
+
+def listed(values: Iterable[str], shown: int = FOUND_SHOWN) -> str:
+    """``a, b, c … and 999,997 more``: at most ``shown`` values, each at most VALUE_SHOWN
+    characters, so that a list from the data stays one short line however long it is."""
+    items = list(values)
+    cut = [v if len(v) <= VALUE_SHOWN else v[: VALUE_SHOWN - 1] + "…" for v in items[:shown]]
+    rest = len(items) - len(cut)
+    return ", ".join(cut) + (f"{_MORE}{rest:,} more" if rest > 0 else "")
+
+
+def capped_found(found: str | None) -> str | None:
+    """A ``found`` as this version writes it: an uncapped list from an earlier version (values
+    joined by ", ") is capped as ``listed`` caps it, so that a recomputation compares equal."""
+    if found is None or _MORE in found:
+        return found
+    items = found.split(", ")
+    return listed(items) if len(items) > FOUND_SHOWN or any(
+        len(v) > VALUE_SHOWN for v in items) else found
+
+
 @dataclass(frozen=True)
 class Departure:
     code: str
@@ -40,15 +67,25 @@ class Departure:
     expected: str | None
     found: str | None
     accepted: str | None = None  # the --accept-deviation reason, for stopping departures
+    # every value found, where ``found`` lists some of them (not written; families merge them)
+    values: tuple[str, ...] | None = field(default=None, compare=False, repr=False)
 
     def __post_init__(self) -> None:
         if self.code not in DEPARTURE_CODES:
             raise ValueError(f"unknown departure code {self.code!r}")
 
+    @classmethod
+    def of_values(cls, code: str, detail: str, expected: str | None,
+                  values: Iterable[str]) -> Departure:
+        """A departure whose ``found`` lists ``values`` (sorted, capped by ``listed``)."""
+        every = tuple(sorted(set(values)))
+        return cls(code, detail, expected, listed(every), values=every)
+
     def to_json(self) -> dict[str, str | None]:
-        doc = asdict(self)
-        if self.accepted is None:
-            del doc["accepted"]
+        doc: dict[str, str | None] = {"code": self.code, "detail": self.detail,
+                                      "expected": self.expected, "found": self.found}
+        if self.accepted is not None:
+            doc["accepted"] = self.accepted
         return doc
 
 

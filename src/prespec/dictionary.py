@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .data.prepare import cell_predicate
-from .errors import DataError
+from .data.read import missing_column
 from .matching import ValueSet, as_text, is_blank
 
 #: At most this many values are listed per column; the rest are counted in ``more``.
@@ -211,8 +211,7 @@ def data_dictionary(frame: pd.DataFrame, plan: Any, source: str | Path) -> dict[
     columns = []
     for use, role in _grouped(uses(plan)):
         if use.column not in present:
-            raise DataError(f"{source}: column {use.column!r} ({role}) is not in the data "
-                            f"(columns: {', '.join(present)})")
+            raise missing_column(str(source), use.column, role, [str(c) for c in present])
         summarise = _id_summary if use.meaning is None else _summary
         columns.append(summarise(use, role, frame[use.column]).to_json())
     return {"rows": len(frame.index), "counted_over": "all rows read",

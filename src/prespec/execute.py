@@ -16,6 +16,7 @@ from .analysis import analyse, group_summaries
 from .caution import CAUTION
 from .data import Prepared, file_sha256, read_data
 from .data.engines.base import DataSource
+from .data.prepare import read_columns
 from .departures import Departure, Note
 from .errors import BadInput
 from .families import analyse_families, ordinary_plan, prepare_run, templates
@@ -141,7 +142,7 @@ def compute_results(
     if templates(plan):
         path = family_file(source, engine)
         check_file(path, source.shown)  # a repeated column name, as every engine refuses it
-        frame = read_data(path)
+        frame = read_data(path, read_columns(plan), source.shown)
         data_hash = file_sha256(path)
         prepared, family_data = prepare_run(frame, plan, path, progress)
         used_engine, query = "pandas", None

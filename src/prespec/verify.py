@@ -18,6 +18,7 @@ from . import audit
 from .api import VerifyResult, apply_overrides, mark_overrides
 from .audit.lockfile import logged_pending, pending_path, version_digest
 from .canonical import file_sha256
+from .departures import capped_found
 from .errors import IntegrityStop, PrespecError
 from .families import declared_members, member_ids
 from .looks import look_problem, look_run
@@ -484,8 +485,21 @@ def _plan_for(plan: Path, doc: dict[str, Any] | None, results: dict[str, Any], r
 
 def _comparable(value: Any, key: str) -> Any:
     if key in ("deviations", "notes") and isinstance(value, list):
-        return [d for d in value if not (isinstance(d, dict) and d.get("code") in MOMENT_CODES)]
+        return [_found_capped(d) for d in value
+                if not (isinstance(d, dict) and d.get("code") in MOMENT_CODES)]
     return value
+
+
+#: The departures whose ``found`` lists values from the data (capped since issue 14).
+LISTED_FOUND = frozenset({"unexpected-group", "unmapped-outcome-value", "undeclared-level"})
+
+
+def _found_capped(entry: Any) -> Any:
+    """A departure whose ``found`` an earlier version wrote uncapped, compared as capped."""
+    if (isinstance(entry, dict) and entry.get("code") in LISTED_FOUND
+            and isinstance(entry.get("found"), str)):
+        return {**entry, "found": capped_found(entry["found"])}
+    return entry
 
 
 def first_difference(a: Any, b: Any, path: str = "") -> str | None:

@@ -28,6 +28,7 @@ from ..errors import DataError
 from ..matching import as_text, is_blank, value_key
 from ..plan.families import declared, member_id
 from .prepare import Prepared, _per_unique, prepare
+from .read import missing_column
 
 _SHOW = 5
 _ROWS = re.compile(r"\(rows ([0-9][0-9, ]*)\)")
@@ -101,8 +102,8 @@ def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
     for key in ("over", "within"):
         column = getattr(hyp, key)
         if column is not None and column not in present:
-            raise DataError(f"{source}: column {column!r} (hypotheses.{hyp.id}.{key}) is not "
-                            f"in the data (columns: {', '.join(map(str, present))})")
+            raise missing_column(source, column, f"hypotheses.{hyp.id}.{key}",
+                                 [str(c) for c in present])
     labels = _labels(frame[hyp.over])
     deviations: list[Departure] = []
     notes: list[Note] = []
@@ -176,7 +177,7 @@ def _check_ids_within(frame: pd.DataFrame, id_column: str, by_level: np.ndarray,
     dup_ids = list(dict.fromkeys(str(ids[i]) for i in in_level[repeated[span]]))
     for value in dup_ids[:_SHOW]:
         at = np.sort(rows[ids[span] == value])
-        shown.append(f"{value!r} (rows {', '.join(str(int(r) + offset) for r in at)})")
+        shown.append(f"{value!r} (rows {_lines(at, offset)})")
     more = len(dup_ids) - len(shown)
     raise DataError(f"{source}: {where}: duplicate ids in column {id_column!r}: "
                     f"{'; '.join(shown)}" + (f"; and {more} more" if more > 0 else ""))
@@ -195,11 +196,11 @@ def _levels(frame: pd.DataFrame, labels: np.ndarray, blank: np.ndarray, hyp: Any
         stray = keep & np.array([m is None for m in mapped], dtype=bool)
         if stray.any():
             found = Counter(str(x) for x in labels[stray])
-            deviations.append(Departure(
+            deviations.append(Departure.of_values(
                 "undeclared-level",
                 f"{hyp.id}: {_rows(int(stray.sum()))} left out: column {hyp.over!r} holds "
                 f"levels outside the declared levels: {_listing(found)}",
-                ", ".join(term for term, _ in given), ", ".join(sorted(found))))
+                ", ".join(term for term, _ in given), found))
         keep = keep & ~stray
         labels[keep] = mapped[keep]
         groups_of: dict[str, str | None] = {term: group for term, group in given}
@@ -283,9 +284,12 @@ def _merged_departures(hyp_id: str, per_level: list[tuple[str, Prepared]]
                                                  if len(values) > _SHOW else "")
             detail = (f"{hyp_id}: in {len(values)} of {len(per_level)} levels ({shown}); "
                       f"first, {values[0]}: {first.detail}")
-        found_values = sorted({x.strip() for _, d in found for x in (d.found or "").split(",")
-                               if x.strip()})
-        out.append(Departure(code, detail, first.expected, ", ".join(found_values) or None))
+        # each level's values split at commas, as merged before values were capped
+        found_values = {x.strip() for _, d in found
+                        for v in (d.values if d.values is not None else [d.found or ""])
+                        for x in v.split(",") if x.strip()}
+        out.append(Departure.of_values(code, detail, first.expected, found_values)
+                   if found_values else Departure(code, detail, first.expected, None))
     return out
 
 

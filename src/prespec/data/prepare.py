@@ -20,6 +20,7 @@ import pandas as pd
 from ..departures import Departure, Note
 from ..errors import DataError
 from ..matching import ValueSet, as_number, as_text, is_blank
+from .read import missing_column
 
 _SHOW = 5  # how many offending values an error message lists
 # A frame with this column is weighted: each row stands for that many source rows (an engine's
@@ -189,13 +190,10 @@ def cell_predicate(op: str, arg: Any) -> Any:
 
 
 def _check_columns(frame: pd.DataFrame, needed: dict[str, str], source: str) -> None:
-    present = list(frame.columns)
+    present = [str(c) for c in frame.columns]
     for column, role in needed.items():
         if column not in present:
-            raise DataError(
-                f"{source}: column {column!r} ({role}) is not in the data "
-                f"(columns: {', '.join(present)})"
-            )
+            raise missing_column(source, column, role, present)
 
 
 def _check_ids(frame: pd.DataFrame, id_column: str, source: str, line_offset: int) -> None:
@@ -205,13 +203,17 @@ def _check_ids(frame: pd.DataFrame, id_column: str, source: str, line_offset: in
         lines = ", ".join(str(i + line_offset) for i in blank[:_SHOW])
         raise DataError(f"{source}: blank id in column {id_column!r} (rows {lines})")
     texts = pd.Series([as_text(c) for c in ids])
-    dup = texts[texts.duplicated(keep=False)]
-    if len(dup):
+    at = np.flatnonzero(texts.duplicated(keep=False).to_numpy())
+    if len(at):
+        codes, values = pd.factorize(texts.iloc[at])  # in the order of first appearance
         shown = []
-        for value, rows in list(dup.groupby(dup, sort=False).groups.items())[:_SHOW]:
-            lines = ", ".join(str(r + line_offset) for r in rows)
+        for k, value in enumerate(values[:_SHOW]):
+            rows = at[codes == k] + line_offset
+            more_rows = len(rows) - _SHOW
+            lines = ", ".join(map(str, rows[:_SHOW])) + (
+                f" and {more_rows:,} more" if more_rows > 0 else "")
             shown.append(f"{value!r} (rows {lines})")
-        more = dup.nunique() - len(shown)
+        more = len(values) - len(shown)
         raise DataError(
             f"{source}: duplicate ids in column {id_column!r}: {'; '.join(shown)}"
             + (f"; and {more} more" if more > 0 else "")
@@ -237,6 +239,21 @@ def needed_columns(plan: Any) -> dict[str, str]:
             if ice.strategy == "while-on-treatment" and ice.outcome_column:
                 needed.setdefault(ice.outcome_column, f"{where}.outcome_column")
     return needed
+
+
+def read_columns(plan: Any, *, blinded: bool = False) -> dict[str, str]:
+    """Every column a run reads from the data, with the plan key that names it: those of
+    ``needed_columns`` and each family's ``over`` and ``within``; ``blinded`` (a rehearsal):
+    without the group column."""
+    columns = needed_columns(plan)
+    for hyp in plan.hypotheses:
+        for key in ("over", "within"):
+            column = getattr(hyp, key, None)
+            if column:
+                columns.setdefault(column, f"hypotheses.{hyp.id}.{key}")
+    if blinded:
+        columns.pop(plan.data.group, None)
+    return columns
 
 
 def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
@@ -293,12 +310,12 @@ def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
         found = at.found(frame[spec.group], stray,
                          lambda c: "(blank)" if is_blank(c) else as_text(c))
         deviations.append(
-            Departure(
+            Departure.of_values(
                 "unexpected-group",
                 f"{_rows(at.count(stray))} left out: column {spec.group!r} holds values "
                 f"outside data.groups: {_listing(found)}",
                 ", ".join(groups),
-                ", ".join(sorted(found)),
+                found,
             )
         )
     analysed_rows = keep & in_group
@@ -467,14 +484,14 @@ def _classify_outcome(
                 f"neither event nor no_event: {_listing(found)} "
                 f"({at.where(unmapped_rows)}); missing: error"
             )
-        departure = Departure(
+        departure = Departure.of_values(
             "unmapped-outcome-value",
             f"outcome {name!r} ({label}): {_rows(at.count(unmapped_rows))} "
             f"with values that are neither event nor no_event: {_listing(found)}; "
             f"treated by the missing rule ({outcome.missing})",
             "event: " + ", ".join(map(as_text, outcome.event))
             + "; no_event: " + ", ".join(map(as_text, outcome.no_event)),
-            ", ".join(sorted(found)),
+            found,
         )
         if departure not in deviations:
             deviations.append(departure)

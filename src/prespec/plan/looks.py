@@ -28,6 +28,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 from pydantic_core import PydanticCustomError
 
 from prespec.plan.locate import Issue
+from prespec.plan.vocabulary import MAX_LOOKS
 from prespec.plan.yamlread import KeyPath, show
 
 #: The efficacy spending functions and classical boundaries (the maths module's names).
@@ -74,10 +75,11 @@ class Looks(_Model):
     """The interim analyses of one hypothesis: when, and with which boundaries."""
 
     fractions: list[Fraction] | None = Field(
-        default=None, description="planned information fractions, increasing, ending at 1")
+        default=None, max_length=MAX_LOOKS,
+        description="planned information fractions, increasing, ending at 1")
     sizes: list[Annotated[int, Field(gt=0)]] | None = Field(
-        default=None, description="planned cumulative total sizes (both groups), increasing; "
-        "instead of fractions")
+        default=None, max_length=MAX_LOOKS, description="planned cumulative total sizes (both "
+        "groups), increasing; instead of fractions")
     efficacy: Literal[EFFICACY] = Field(  # type: ignore[valid-type]
         description="the efficacy spending function or classical boundary")
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")

@@ -136,5 +136,11 @@ def issue_from_pydantic(error: dict[str, Any], raw: Any) -> Issue:
         limit = ctx.get(bound[0])
         if isinstance(limit, float) and limit.is_integer():
             limit = int(limit)
+        if kind == "less_than_equal" and name in v.LIMIT_REASONS:
+            return Issue(path, f"must be at most {limit:,}, found {found:,}: "
+                         f"{v.LIMIT_REASONS[name]}")
         return Issue(path, f"must be {bound[1]} {limit}, found {show(found)}")
+    if kind == "too_long" and name in v.LIMIT_REASONS:
+        return Issue(path, f"lists {ctx.get('actual_length')} looks, and a plan may have at "
+                     f"most {ctx.get('max_length')}: {v.LIMIT_REASONS[name]}")
     return Issue(path, " ".join(str(error["msg"]).split()))

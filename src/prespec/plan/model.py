@@ -277,7 +277,7 @@ class Then(_Model):
 class MonteCarlo(_Model):
     """A Monte Carlo p-value for an exact k-group test."""
 
-    tables: Annotated[int, Field(gt=0)]
+    tables: Annotated[int, Field(gt=0, le=v.MAX_MONTE_CARLO_TABLES)]
     seed: Annotated[int, Field(ge=0)]
 
 

@@ -177,3 +177,17 @@ def unavailable(name: str, available: frozenset[str], where: str = "", shown: st
     label = f"available for {where}" if where else "available"
     return (f"{shown or repr(name)} is known but not available in this version of prespec "
             f"({label}: {names})")
+
+
+# Plan-time limits on keys whose cost grows without bound, with the reason each error gives.
+MAX_MONTE_CARLO_TABLES = 10_000_000
+MAX_LOOKS = 20
+_LOOKS_REASON = ("the boundaries' computation grows steeply with the number of looks (20 take "
+                 "about a second, 50 several seconds, 200 over a minute), and a group-sequential "
+                 "design has a handful")
+LIMIT_REASONS: dict[str, str] = {
+    "tables": (f"with {MAX_MONTE_CARLO_TABLES:,} tables the Monte Carlo standard error is below "
+               "0.0002 at any p-value, and each million tables takes a second or more"),
+    "fractions": _LOOKS_REASON,
+    "sizes": _LOOKS_REASON,
+}

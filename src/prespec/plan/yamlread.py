@@ -181,7 +181,7 @@ def _parse_text(text: str) -> YamlDoc:
         what = " ".join(str(exc.problem or exc.context or "unreadable").split())
         if what == "but found another document":
             what = "a plan file holds one document, and a second one starts here"
-        raise _Problem(line, f"not valid YAML: {what}") from None
+        raise _Problem(line, f"not valid YAML: {what}{_tab_hint(text, mark)}") from None
     except yaml.YAMLError as exc:
         raise _Problem(None, f"not valid YAML: {' '.join(str(exc).split())}") from None
     finally:
@@ -197,6 +197,21 @@ def _parse_text(text: str) -> YamlDoc:
             f"found {describe(data)}"
         )
     return YamlDoc(data, builder.lines, builder.key_lines)
+
+
+def _tab_hint(text: str, mark: Any) -> str:
+    """``; the line holds a tab …`` when the line where the YAML error was found has a tab
+    (YAML indents with spaces only), else ``""``."""
+    if mark is None:
+        return ""
+    lines = text.splitlines()
+    where = lines[mark.line] if 0 <= mark.line < len(lines) else ""
+    if "\t" not in where:
+        return ""
+    column = where.index("\t") + 1
+    leading = where[: column - 1].strip(" -") == ""  # in the indentation, or after a "- "
+    use = "indent with spaces" if leading else "separate with spaces"
+    return f"; the line holds a tab (column {column}): {use}, not tabs"
 
 
 def _line(node: Node) -> int:

@@ -19,6 +19,7 @@ import pandas as pd
 
 from ...canonical import file_sha256
 from ...errors import DataError
+from ..read import missing_column
 from . import columns
 from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, Engine, Reduction
 from .compiler import (
@@ -86,8 +87,7 @@ class AggregatingEngine(Engine):
         present = list(kinds)
         for column, role in request.needed:
             if column not in kinds:
-                raise DataError(f"{request.source}: column {column!r} ({role}) is not in the "
-                                f"data (columns: {', '.join(present)})")
+                raise missing_column(request.source, column, role, present)
         for column in request.read:
             quote_identifier(column, self.dialect)
         columns.check_nested(kinds, request)

@@ -1,4 +1,5 @@
-"""The ``pandas`` engine: one file read whole into memory; ``prepare`` counts the full frame.
+"""The ``pandas`` engine: one file read into memory, the columns the plan names only;
+``prepare`` counts the full frame.
 
 Errors name file lines; the data fingerprint is the file's SHA-256. The column checks every
 engine makes (``columns.py``) come first: repeated names, nested columns, bytes as UTF-8.
@@ -24,25 +25,33 @@ class PandasEngine(Engine):
                             "--engine duckdb for a glob" if source.kind == "glob" else
                             f"{source.shown}: the pandas engine reads files, not databases")
         super().__init__(source)
-        self._frame: pd.DataFrame | None = None
+        self._frames: dict[tuple[tuple[str, str], ...], pd.DataFrame] = {}
         self._kinds: dict[str, str] = {}
+        self._checked_file = False
 
-    def _read(self) -> pd.DataFrame:
-        if self._frame is None:
-            path = self.source.path
-            if path.is_file():
-                columns.check_file(path, self.source.shown)
-                if self.source.is_parquet:
-                    try:
-                        self._kinds = columns.parquet_columns(path)[1]
-                    except Exception:  # noqa: BLE001 - read_data says what is wrong
-                        self._kinds = {}
-            self._frame = read_data(path)
-        return self._frame
+    def _read(self, request: CountRequest) -> pd.DataFrame:
+        """The columns of ``request.needed`` (and of ``request.read``), every row, after the
+        file-level column checks every engine makes."""
+        path = self.source.path
+        if not self._checked_file and path.is_file():
+            columns.check_file(path, self.source.shown)
+            if self.source.is_parquet:
+                try:
+                    self._kinds = columns.parquet_columns(path)[1]
+                except Exception:  # noqa: BLE001 - read_data says what is wrong
+                    self._kinds = {}
+            self._checked_file = True
+        named = dict(request.needed)
+        for column in request.read:
+            named.setdefault(column, "read by the plan")
+        key = tuple(named.items())
+        if key not in self._frames:
+            self._frames[key] = read_data(path, named, self.source.shown)
+        return self._frames[key]
 
     def _checked(self, request: CountRequest) -> pd.DataFrame:
         """The frame, after the nested check, with the bytes of the plan's columns decoded."""
-        frame = self._read()
+        frame = self._read(request)
         present = [c for c in request.read if c in frame.columns]
         columns.check_nested(self._kinds, request)
         bad: dict[str, int] = {}

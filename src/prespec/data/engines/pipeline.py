@@ -48,8 +48,8 @@ class BlindedRows:
 def blinded_rows(plan: Any, source: DataSource, *, engine: str = "auto") -> BlindedRows:
     """The rows a rehearsal reads; the request (and any query) never names the group column.
 
-    With the pandas engine the file is read whole and the group column dropped by the
-    rehearsal, as before; the other engines select only the columns the plan reads."""
+    Every engine reads only the columns the request names, never the group column (the
+    pandas engine parses those columns alone, ``read.py``)."""
     request = count_request(plan, source.shown, blinded=True)
     with open_engine(engine, source) as eng:
         frame = eng.rows(request)

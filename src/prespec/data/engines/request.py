@@ -6,7 +6,7 @@ from collections import Counter
 from typing import Any
 
 from ...matching import ValueSet, as_text
-from ..prepare import needed_columns
+from ..prepare import read_columns
 from .base import ColumnMap, CountRequest, Filter
 
 
@@ -44,12 +44,12 @@ def count_request(plan: Any, source: str, *, blinded: bool = False,
     """What an engine must read for ``plan``: the group column and each outcome column read
     by that one use alone are mapped to canonical values, every other column stays raw.
 
-    ``blinded`` (a rehearsal): the group column is not named at all.
+    ``blinded`` (a rehearsal): the group column is not named at all. ``needed`` also names a
+    family's ``over`` and ``within`` columns (a plan with families is read by the pandas
+    engine, which reads the columns of ``needed`` only).
     """
     spec = plan.data
-    needed = needed_columns(plan)
-    if blinded:
-        needed.pop(spec.group, None)
+    needed = read_columns(plan, blinded=blinded)
     uses = _grouped_uses(plan, blinded)
     mapped: list[ColumnMap] = []
     if not blinded and uses[spec.group] == 1:
