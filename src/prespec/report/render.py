@@ -20,6 +20,7 @@ import nbformat
 from nbformat import NotebookNode
 
 from prespec.errors import PrespecError
+from prespec.shown import visible
 
 TEMPLATE = Path(__file__).with_name("template.ipynb")
 
@@ -195,7 +196,9 @@ def _title(results_path: Path) -> str:
         title = json.loads(results_path.read_bytes()).get("title")
     except (ValueError, AttributeError):
         return "prespec report"
-    return f"{title} — prespec report" if isinstance(title, str) and title else "prespec report"
+    if not isinstance(title, str) or not title:
+        return "prespec report"
+    return f"{visible(title)} — prespec report"
 
 
 def _clean(nb: NotebookNode, title: str) -> None:
