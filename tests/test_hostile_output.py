@@ -17,7 +17,8 @@ from pathlib import Path
 
 import pytest
 
-from prespec import api, cli, shown
+from prespec import api, audit, cli, shown
+from prespec.errors import IntegrityStop
 from prespec.families import analyse_family, prepare_run
 from prespec.plan import load_plan
 from prespec.report import families as report_families
@@ -268,3 +269,37 @@ def test_run_rehearse_and_errors_escape_user_text(study: Path, tmp_path: Path,
     assert cli.main(["check", str(bad)]) == 2
     err = capsys.readouterr().err
     assert err.startswith("prespec: ") and "\x1b" not in err and RLO not in err
+
+
+# --- the lock and the log ------------------------------------------------------------------
+
+
+def test_the_lock_and_log_escape_bidi_controls_and_the_earlier_raw_form_still_verifies(
+        tmp_path: Path) -> None:
+    plan, data = tmp_path / "plan.yaml", tmp_path / "data.csv"
+    plan.write_text(_plan_text(), encoding="utf-8")
+    data.write_text(_data_text(), encoding="utf-8")
+    api.lock(plan, actor="ana")
+    plan.write_text(_plan_text().replace("alpha: 0.05", "alpha: 0.025"), encoding="utf-8")
+    api.amend(plan, reason=f"a typo{RLO} fixed", actor="ana")
+    lock, log = audit.lock_path(plan), audit.log_path(plan)
+    for path in (lock, log):
+        raw = path.read_text("utf-8")
+        assert RLO not in raw and "\\u202e" in raw, path.name
+    versions = audit.read_lock(lock)
+    assert versions is not None and versions["versions"][1]["reason"] == f"a typo{RLO} fixed"
+    assert [e["details"].get("reason") for e in audit.read_log(log)] == [
+        None, f"a typo{RLO} fixed"]
+    # a study locked by an earlier prespec holds the characters raw: it keeps verifying, and
+    # the next entry is appended to it
+    for path in (lock, log):
+        path.write_text(path.read_text("utf-8").replace("\\u202e", RLO), encoding="utf-8")
+        assert RLO in path.read_text("utf-8")
+    api.verify(plan)
+    api.run(plan, data, out=tmp_path / "report", actor="ana")
+    api.verify(plan)
+    assert len(audit.read_log(log)) == 3
+    # any third form of the same value (here the escape in capitals) is still an edit
+    log.write_text(log.read_text("utf-8").replace(RLO, "\\u202E", 1), encoding="utf-8")
+    with pytest.raises(IntegrityStop, match="not in the form prespec writes"):
+        audit.read_log(log)
