@@ -29,7 +29,7 @@ LINK = '=HYPERLINK("http://127.0.0.1:9/x","click")'
 GROUPS = [LINK, "+1+cmd", f"@SUM(A1)x{RLO}gpj.exe"]
 EVENT, NO_EVENT = "-2+3", "@no"  # data values of the outcome column
 HYP_ID = "@H1"
-OUTCOME = "=healed"
+OUTCOME = "=healed\x00"
 TITLE = "Trial\x1b[2J of \x1b[8mhidden"
 
 
@@ -166,7 +166,7 @@ def test_a_negative_number_in_a_csv_stays_a_number(tmp_path: Path) -> None:
 def test_the_rehearsal_tables_neutralise_data_values(study: Path) -> None:
     tables = study / "rehearsal" / "tables"
     pooled = _rows(tables / "pooled.csv")
-    assert pooled[1][0] == "'" + OUTCOME and pooled[1][1:4] == ["41", "49", "90"]
+    assert pooled[1][0] == "'=healed\\x00" and pooled[1][1:4] == ["41", "49", "90"]
     dictionary = _rows(tables / "data-dictionary.csv")
     header = dictionary[0]
     value = header.index("value")
@@ -222,11 +222,14 @@ def test_bidi_controls_are_visible_in_the_report_and_escaped_in_results(study: P
     results = json.loads(raw)
     assert results["hypotheses"][0]["title"] == f"{RLO}tpircs"  # the same value, read back
     assert results["title"] == TITLE
+    assert list(results["groups"]) == [OUTCOME] and "=healed\\u0000" in raw
     page = (folder / "report.html").read_text("utf-8")
     assert RLO not in page and "\x1b" not in page
     assert "\\u202etpircs" in page and "gpj.exe" in page
+    assert "\x00" not in page and "=healed\\x00" in page
     notebook = (folder / "report.ipynb").read_text("utf-8")
     assert RLO not in notebook and "\\\\u202etpircs" in notebook  # JSON of the visible text
+    assert "\\u0000" not in notebook and "=healed\\\\x00" in notebook  # the alt text too
     api.verify(study / "plan.yaml")  # the report still verifies as the locked analysis
 
 

@@ -202,7 +202,8 @@ def _title(results_path: Path) -> str:
 
 
 def _clean(nb: NotebookNode, title: str) -> None:
-    """Drop what makes the executed notebook differ from run to run: times and temp names."""
+    """Drop what makes the executed notebook differ from run to run: times and temp names;
+    show hidden characters in the figures' alt texts."""
     meta: dict[str, Any] = nb.metadata.get("papermill", {})
     for key in ("start_time", "end_time", "duration"):
         meta.pop(key, None)
@@ -216,6 +217,10 @@ def _clean(nb: NotebookNode, title: str) -> None:
                 pm.pop(key, None)
         if "injected-parameters" in cell.metadata.get("tags", []):
             cell.id = "injected-parameters"
+        for output in cell.get("outputs", []):  # a figure's alt text names labels: visible
+            shown = output.get("metadata", {}).get("image/png")
+            if isinstance(shown, dict) and isinstance(shown.get("alt"), str):
+                shown["alt"] = visible(shown["alt"])
     nb.metadata["title"] = title
 
 
