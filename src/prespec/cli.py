@@ -15,11 +15,11 @@ from .errors import BadInput, PrespecError
 from .shown import console, console_lines, json_text
 
 
-def print(*values: object, file: Any = None) -> None:  # the builtin's name, on purpose
+def print(*values: object, **options: Any) -> None:  # the builtin's name, on purpose
     """Every line this command prints, with the control and bidi characters of any user text in
     it (a title, a label, a reason, a data value) escaped, so that nothing printed acts on the
     terminal or hides the lines after it. Line breaks that prespec writes are kept."""
-    builtins.print(*(console_lines(str(v)) for v in values), file=file)
+    builtins.print(*(console_lines(str(v)) for v in values), **options)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -177,7 +177,8 @@ def _progress_bar(verb: str = "simulating") -> Any:
     def show(name: str, done: int, total: int) -> None:
         width = 30
         filled = width * done // total
-        sys.stderr.write(f"\r{verb} {console(name)[:24]:<24} [{'#' * filled}{'.' * (width - filled)}]"
+        label = console(name)[:24]
+        sys.stderr.write(f"\r{verb} {label:<24} [{'#' * filled}{'.' * (width - filled)}]"
                          f" {100 * done // total:3d}%")
         if done >= total:
             sys.stderr.write("\n")

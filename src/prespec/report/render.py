@@ -218,9 +218,9 @@ def _clean(nb: NotebookNode, title: str) -> None:
         if "injected-parameters" in cell.metadata.get("tags", []):
             cell.id = "injected-parameters"
         for output in cell.get("outputs", []):  # a figure's alt text names labels: visible
-            shown = output.get("metadata", {}).get("image/png")
-            if isinstance(shown, dict) and isinstance(shown.get("alt"), str):
-                shown["alt"] = visible(shown["alt"])
+            image = output.get("metadata", {}).get("image/png")
+            if isinstance(image, dict) and isinstance(image.get("alt"), str):
+                image["alt"] = visible(image["alt"])
     nb.metadata["title"] = title
 
 
