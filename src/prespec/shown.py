@@ -101,4 +101,6 @@ def json_text(doc: Any, **options: Any) -> str:
     escape changes no value: ``json.loads`` of the result equals ``json.loads`` of the raw form.
     """
     text = json.dumps(doc, ensure_ascii=False, **options)
+    if text.isascii() and "\x7f" not in text:  # the usual case, at the cost of two scans in C
+        return text
     return _JSON_HIDDEN.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
