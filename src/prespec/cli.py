@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import builtins
 import json
 import os
 import sys
@@ -11,6 +12,14 @@ from typing import Any
 
 from . import __version__, api
 from .errors import BadInput, PrespecError
+from .shown import console, console_lines, json_text
+
+
+def print(*values: object, **options: Any) -> None:  # the builtin's name, on purpose
+    """Every line this command prints, with the control and bidi characters of any user text in
+    it (a title, a label, a reason, a data value) escaped, so that nothing printed acts on the
+    terminal or hides the lines after it. Line breaks that prespec writes are kept."""
+    builtins.print(*(console_lines(str(v)) for v in values), **options)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -125,7 +134,7 @@ def _overrides(args: argparse.Namespace) -> dict[str, object]:
 def _print_history(res: Any) -> None:
     for v in res.versions:
         flag = "  [amended after unblinding]" if v.after_unblinding else ""
-        reason = f"  reason: {v.reason}" if v.reason else ""
+        reason = f"  reason: {console(v.reason)}" if v.reason else ""
         print(f"version {v.version}  {v.at}  {v.actor}  {v.fingerprint}{flag}")
         if reason:
             print(f"   {reason.strip()}")
@@ -203,7 +212,8 @@ def _progress_bar(verb: str = "simulating") -> Any:
     def show(name: str, done: int, total: int) -> None:
         width = 30
         filled = width * done // total
-        sys.stderr.write(f"\r{verb} {name[:24]:<24} [{'#' * filled}{'.' * (width - filled)}]"
+        label = console(name)[:24]
+        sys.stderr.write(f"\r{verb} {label:<24} [{'#' * filled}{'.' * (width - filled)}]"
                          f" {100 * done // total:3d}%")
         if done >= total:
             sys.stderr.write("\n")
@@ -320,7 +330,7 @@ def _dispatch(args: argparse.Namespace) -> int:
 
         doc = api.design(args.plan, simulate=args.simulate, seed=args.seed, actor=args.actor,
                          progress=_progress_bar())
-        print(json.dumps(doc, indent=2, ensure_ascii=False) if args.json else design_text(doc))
+        print(json_text(doc, indent=2) if args.json else design_text(doc))
     elif args.command == "demo":
         html = api.demo(args.dir, actor=args.actor)
         print(html)

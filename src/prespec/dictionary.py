@@ -12,7 +12,6 @@ Counts are over all rows of the file, before the population filter.
 
 from __future__ import annotations
 
-import csv
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -24,6 +23,7 @@ import pandas as pd
 from .data.prepare import cell_predicate
 from .data.read import missing_column
 from .matching import ValueSet, as_text, is_blank
+from .shown import csv_writer
 
 #: At most this many values are listed per column; the rest are counted in ``more``.
 MAX_VALUES = 50
@@ -225,7 +225,7 @@ DICTIONARY_HEADER = ["column", "role", "distinct", "blank", "duplicates", "value
 def write_dictionary_csv(path: Path, dictionary: dict[str, Any]) -> None:
     """One row per listed value; ``(blank)`` for blank cells, ``(N more values)`` for the rest."""
     with open(path, "w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
+        w = csv_writer(fh)
         w.writerow(DICTIONARY_HEADER)
         for col in dictionary["columns"]:
             head = [col["column"], col["role"], col["distinct"], col["blank"],

@@ -7,8 +7,6 @@ executed notebook and HTML → manifest → folder renamed over its reserved emp
 
 from __future__ import annotations
 
-import csv
-import json
 import os
 import re
 import shutil
@@ -21,6 +19,7 @@ from . import audit
 from .execute import check_out_folder
 from .families import family_details
 from .manifest import write_manifest
+from .shown import csv_writer, json_text
 
 
 @dataclass(frozen=True)
@@ -68,7 +67,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
         return
     for outcome, rows in results["groups"].items():
         with open(tables / f"groups-{_safe_name(outcome)}.csv", "w", newline="") as fh:
-            w = csv.writer(fh)
+            w = csv_writer(fh)
             w.writerow(["group", "events", "no_events", "total", "missing", "proportion",
                         "ci_low", "ci_high", "ci_method", "level"])
             for r in rows:
@@ -83,7 +82,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
         t = h["table"]
         expected = h["expected"] or [[None, None]] * len(t["groups"])
         with open(tables / f"{_safe_name(h['id'])}.csv", "w", newline="") as fh:
-            w = csv.writer(fh)
+            w = csv_writer(fh)
             w.writerow(["group", "events", "no_events", "total", "expected_events",
                         "expected_no_events"])
             for g, e, n, (ee, en) in zip(t["groups"], t["events"], t["totals"], expected,
@@ -111,7 +110,7 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
     tmp = Path(tempfile.mkdtemp(prefix=partial_prefix(folder), dir=folder.parent))
     tmp.chmod(0o755)  # mkdtemp makes it private; a report folder is an ordinary folder
     try:
-        text = json.dumps(results, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+        text = json_text(results, indent=2, allow_nan=False) + "\n"
         (tmp / "results.json").write_text(text, encoding="utf-8")
         _write_tables(tmp, results)
         write_figures(results, tmp)

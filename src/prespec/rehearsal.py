@@ -15,7 +15,6 @@ and the data dictionary (:mod:`prespec.dictionary`).
 
 from __future__ import annotations
 
-import csv
 import json
 import os
 import shutil
@@ -37,6 +36,7 @@ from .dictionary import data_dictionary, uses, write_dictionary_csv
 from .errors import BadInput
 from .execute import build_results, family_file, provenance, with_engine
 from .families import analyse_families, ordinary_plan, prepare_run, rehearsal_families, templates
+from .shown import csv_writer
 from .stats import intervals
 
 #: The name of the rehearsal's pooled table in ``tables/``.
@@ -382,7 +382,7 @@ POOLED_HEADER = ["outcome", "events", "no_events", "total", "missing", "rate", "
 def write_rehearsal_tables(tables: Path, results: dict[str, Any]) -> None:
     """The rehearsal's only tables: the pooled figures and the data dictionary."""
     with open(tables / POOLED_TABLE, "w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
+        w = csv_writer(fh)
         w.writerow(POOLED_HEADER)
         for outcome, p in results["pooled"].items():
             w.writerow([outcome, p["events"], p["total"] - p["events"], p["total"],

@@ -8,6 +8,7 @@ from typing import Any
 
 from ..canonical import canonical_json, sha256_tag
 from ..errors import IntegrityStop
+from ..shown import json_text
 from .files import fsync_dir, replace_atomically
 
 VERSION_KEYS = ("version", "fingerprint", "plan", "plan_file_sha256", "previous", "reason", "at",
@@ -38,7 +39,7 @@ def read_lock(path: Path) -> dict[str, Any] | None:
         if not isinstance(version["plan"], dict) or not isinstance(version["fingerprint"], str) \
                 or not isinstance(version["version"], int):
             raise IntegrityStop(f"{path.name}: version {index} is malformed")
-    if lock_bytes(doc) != raw:
+    if lock_bytes(doc) != raw and earlier_lock_bytes(doc) != raw:
         raise IntegrityStop(f"{path.name}: not in the form prespec writes (spacing, key order or "
                             "escapes differ: the lock was edited)")
     return doc
@@ -49,7 +50,14 @@ def latest(doc: dict[str, Any]) -> dict[str, Any]:
 
 
 def lock_bytes(doc: dict[str, Any]) -> bytes:
-    """The exact bytes prespec writes for a lock document."""
+    """The exact bytes prespec writes for a lock document (hidden characters as ``\\u``
+    escapes, :func:`prespec.shown.json_text`)."""
+    return (json_text(doc, indent=2) + "\n").encode("utf-8")
+
+
+def earlier_lock_bytes(doc: dict[str, Any]) -> bytes:
+    """The form written before hidden characters were escaped (they stood raw); still accepted,
+    so that an old lock keeps verifying. Both forms hold the same values."""
     return (json.dumps(doc, indent=2, ensure_ascii=False) + "\n").encode("utf-8")
 
 

@@ -20,6 +20,7 @@ from typing import Any
 
 from ..canonical import canonical_json, sha256_hex
 from ..errors import IntegrityStop
+from ..shown import json_text
 from .files import fsync_dir, replace_atomically
 
 GENESIS = "0" * 64
@@ -32,7 +33,17 @@ SIGNED_ACTIONS = frozenset({"lock", "amend"})
 
 
 def entry_line(entry: dict[str, Any]) -> bytes:
-    """The exact bytes prespec writes for one entry: its JSON in key order, and a newline."""
+    """The exact bytes prespec writes for one entry: its JSON in key order, and a newline.
+
+    Bidi controls, C1 controls and line separators in a value are written as ``\\uNNNN``
+    escapes (:func:`prespec.shown.json_text`), so that the raw log shows them."""
+    return json_text(entry, sort_keys=False).encode("utf-8") + b"\n"
+
+
+def earlier_entry_line(entry: dict[str, Any]) -> bytes:
+    """The form written before :func:`entry_line` escaped hidden characters (they
+    stood raw); still accepted, so that an old log keeps verifying. Both forms hold the same
+    values, and the hashes are over the values."""
     return json.dumps(entry, ensure_ascii=False, sort_keys=False).encode("utf-8") + b"\n"
 
 
@@ -73,7 +84,7 @@ def parse_log(data: bytes, name: str) -> list[dict[str, Any]]:
             raise IntegrityStop(f"{name}:{number}: not a JSON entry ({exc})") from None
         if not isinstance(entry, dict):
             raise IntegrityStop(f"{name}:{number}: an entry must be a JSON object")
-        if entry_line(entry) != line + b"\n":
+        if entry_line(entry) != line + b"\n" and earlier_entry_line(entry) != line + b"\n":
             raise IntegrityStop(f"{name}:{number}: not in the form prespec writes (the line was "
                                 "edited: spacing, key order, escapes or a repeated key)")
         entries.append(entry)

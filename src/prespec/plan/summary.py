@@ -5,6 +5,7 @@ from __future__ import annotations
 from prespec.plan.families import family_words
 from prespec.plan.model import Condition, Hypothesis, Plan
 from prespec.plan.yamlread import show
+from prespec.shown import console
 
 
 def _num(value: float | None) -> str:
@@ -98,17 +99,17 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
         parts.append(f"sensitivity for missing outcomes: {', '.join(hyp.sensitivity)}")
     if hyp.then is not None:
         parts.append(_then(plan, hyp))
-    title = f" - {hyp.title}" if hyp.title else ""
+    title = f" - {console(hyp.title)}" if hyp.title else ""
     return (f"  {hyp.id} [{hyp.role}] {hyp.outcome}: {_compare(plan, hyp)}{title}\n"
             f"      {'; '.join(parts)}")
 
 
 def summary(plan: Plan) -> str:
-    """A readable multi-line summary of the plan."""
+    """A readable multi-line summary of the plan; a line break in a title is shown as ``\\n``."""
     data = plan.data
     groups = ", ".join(f"{g} (reference)" if g == data.reference else g for g in data.groups)
-    lines = [f"Plan:          {plan.title}",
-             f"Protocol:      {plan.protocol or '(none given)'}",
+    lines = [f"Plan:          {console(plan.title)}",
+             f"Protocol:      {console(plan.protocol or '(none given)')}",
              f"Unit id:       column {data.id}",
              f"Groups:        {groups} (column {data.group})"]
     if data.planned_n:

@@ -13,7 +13,7 @@ import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from prespec.report.values import visible
+from prespec.shown import visible
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure

@@ -18,7 +18,6 @@ Nothing is computed here beyond −log10 p: the values are those of ``results.js
 
 from __future__ import annotations
 
-import csv
 import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -37,6 +36,7 @@ from prespec.report.values import (
     number,
     text,
 )
+from prespec.shown import csv_writer
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
@@ -206,7 +206,7 @@ def write_family_tables(folder: Path, results: Mapping[str, Any]) -> list[Path]:
         path.parent.mkdir(parents=True, exist_ok=True)
         g = list(fam.get("compare") or ["first", "second"])
         with open(path, "w", newline="", encoding="utf-8") as fh:
-            w = csv.writer(fh)
+            w = csv_writer(fh)
             w.writerow(["id", "level", "group", f"events_{g[0]}", f"total_{g[0]}",
                         f"events_{g[1]}", f"total_{g[1]}", "risk_difference", "ci_low",
                         "ci_high", "ci_method", "ci_level", "test", "p_value", "p_adjusted",

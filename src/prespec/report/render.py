@@ -21,6 +21,7 @@ import nbformat
 from nbformat import NotebookNode
 
 from prespec.errors import PrespecError
+from prespec.shown import visible
 
 TEMPLATE = Path(__file__).with_name("template.ipynb")
 
@@ -224,11 +225,14 @@ def _title(results_path: Path) -> str:
         title = json.loads(results_path.read_bytes()).get("title")
     except (ValueError, AttributeError):
         return "prespec report"
-    return f"{title} — prespec report" if isinstance(title, str) and title else "prespec report"
+    if not isinstance(title, str) or not title:
+        return "prespec report"
+    return f"{visible(title)} — prespec report"
 
 
 def _clean(nb: NotebookNode, title: str) -> None:
-    """Drop what makes the executed notebook differ from run to run: times and temp names."""
+    """Drop what makes the executed notebook differ from run to run: times and temp names;
+    show hidden characters in the figures' alt texts."""
     meta: dict[str, Any] = nb.metadata.get("papermill", {})
     for key in ("start_time", "end_time", "duration"):
         meta.pop(key, None)
@@ -242,6 +246,10 @@ def _clean(nb: NotebookNode, title: str) -> None:
                 pm.pop(key, None)
         if "injected-parameters" in cell.metadata.get("tags", []):
             cell.id = "injected-parameters"
+        for output in cell.get("outputs", []):  # a figure's alt text names labels: visible
+            image = output.get("metadata", {}).get("image/png")
+            if isinstance(image, dict) and isinstance(image.get("alt"), str):
+                image["alt"] = visible(image["alt"])
     nb.metadata["title"] = title
 
 

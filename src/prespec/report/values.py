@@ -12,12 +12,12 @@ and ``—`` for a value that is null (not computable).
 from __future__ import annotations
 
 import math
-import re
 from collections.abc import Mapping, Sequence
 from typing import Any
 
 from prespec.caution import CAUTION
 from prespec.errors import PrespecError
+from prespec.shown import visible  # noqa: F401  (one rule for every output; kept here by name)
 
 #: What the report shows for a null (not computable) value.
 NULL = "—"
@@ -37,21 +37,6 @@ MEASURES = {
 def measure_label(measure: str) -> str:
     """``risk-ratio`` -> ``risk ratio``; an unknown measure is shown as written."""
     return MEASURES.get(measure, measure)
-
-
-# Control characters (terminal escape sequences, NUL, line and paragraph separators) are
-# shown as visible escapes, so that nothing in a label is invisible or acts on the reader.
-_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\u2028\u2029]")
-
-
-def _escape_control(match: re.Match[str]) -> str:
-    code = ord(match.group())
-    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}"
-
-
-def visible(value: str) -> str:
-    """``value`` with each control character (other than tab and line breaks) as ``\\xNN``."""
-    return _CONTROL.sub(_escape_control, value)
 
 
 def _where(path: str) -> str:
