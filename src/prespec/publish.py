@@ -10,7 +10,6 @@ from __future__ import annotations
 import csv
 import json
 import os
-import re
 import shutil
 import tempfile
 from dataclasses import dataclass
@@ -21,6 +20,7 @@ from . import audit
 from .execute import check_out_folder
 from .families import family_details
 from .manifest import write_manifest
+from .report.tablenames import TABLES, groups_table, hypothesis_table
 
 
 @dataclass(frozen=True)
@@ -52,12 +52,8 @@ def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:
             candidate = out.with_name(f"{out.name}-{n}")
 
 
-def _safe_name(text: str) -> str:
-    return re.sub(r"[^A-Za-z0-9._-]+", "_", text)
-
-
 def _write_tables(folder: Path, results: dict[str, Any]) -> None:
-    tables = folder / "tables"
+    tables = folder / TABLES
     tables.mkdir()
     if results.get("kind") == "rehearsal":  # pooled figures and the data dictionary only
         from .rehearsal import write_rehearsal_tables
@@ -65,7 +61,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
         write_rehearsal_tables(tables, results)
         return
     for outcome, rows in results["groups"].items():
-        with open(tables / f"groups-{_safe_name(outcome)}.csv", "w", newline="") as fh:
+        with open(folder / groups_table(outcome), "w", newline="") as fh:
             w = csv.writer(fh)
             w.writerow(["group", "events", "no_events", "total", "missing", "proportion",
                         "ci_low", "ci_high", "ci_method", "level"])
@@ -80,7 +76,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
     for h in results["hypotheses"]:
         t = h["table"]
         expected = h["expected"] or [[None, None]] * len(t["groups"])
-        with open(tables / f"{_safe_name(h['id'])}.csv", "w", newline="") as fh:
+        with open(folder / hypothesis_table(h["id"]), "w", newline="") as fh:
             w = csv.writer(fh)
             w.writerow(["group", "events", "no_events", "total", "expected_events",
                         "expected_no_events"])
