@@ -14,8 +14,9 @@ from pathlib import Path
 import pytest
 
 import prespec.report
-from prespec import api
+from prespec import api, audit
 from prespec.demo import PLAN_TEXT, demo_data
+from prespec.errors import BadInput
 
 
 @pytest.fixture(autouse=True)
@@ -81,3 +82,78 @@ def test_table_files_are_unique_and_name_their_labels(tmp_path: Path) -> None:
     assert {n for n in listed if n.startswith("tables/")} == {
         f"tables/{p.name}" for p in tables.iterdir()}
     assert api.verify(plan).passed
+
+
+# --- item 7: report folders are real folders inside the study ---
+
+def _files_under(folder: Path) -> list[str]:
+    return sorted(p.relative_to(folder).as_posix() for p in folder.rglob("*"))
+
+
+@pytest.mark.parametrize("linked", ["reports", "reports/trial"])
+def test_a_linked_report_place_is_refused_and_nothing_is_written(
+        tmp_path: Path, linked: str) -> None:
+    plan, data = _study(tmp_path / "study")
+    api.lock(plan)
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    link = plan.parent / linked
+    link.parent.mkdir(parents=True, exist_ok=True)
+    link.symlink_to(outside, target_is_directory=True)
+    log_before = audit.log_path(plan).read_bytes()
+    with pytest.raises(BadInput) as err:
+        api.run(plan, data)
+    assert str(err.value) == (f"{link}: is a symbolic link; report folders are written only "
+                              "into real folders inside the study (remove the link, or give "
+                              "--out)")
+    assert err.value.exit_status == 2
+    assert _files_under(outside) == []
+    assert audit.log_path(plan).read_bytes() == log_before
+    with pytest.raises(BadInput, match="symbolic link"):
+        api.rehearse(plan, data)
+    assert _files_under(outside) == []
+
+
+def test_a_file_where_the_reports_folder_goes_is_refused(tmp_path: Path) -> None:
+    plan, data = _study(tmp_path)
+    api.lock(plan)
+    (tmp_path / "reports").mkdir()
+    (tmp_path / "reports" / "trial").write_text("not a folder\n")
+    with pytest.raises(BadInput, match=r"reports/trial: is not a folder"):
+        api.run(plan, data)
+    assert (tmp_path / "reports" / "trial").read_text() == "not a folder\n"
+    assert [e["action"] for e in audit.read_log(audit.log_path(plan))] == ["lock"]
+
+
+@pytest.mark.parametrize("name", ["...yaml", "..yaml"])
+def test_a_plan_name_that_gives_no_report_folder_is_refused(tmp_path: Path, name: str) -> None:
+    plan, data = _study(tmp_path / "study", name=name)
+    api.lock(plan)
+    before = _files_under(tmp_path)
+    with pytest.raises(BadInput, match=r"the plan's file name gives no report folder name"):
+        api.run(plan, data)
+    assert _files_under(tmp_path) == before
+    out = api.run(plan, data, out=tmp_path / "study" / "chosen")  # --out still works
+    assert out.folder == tmp_path / "study" / "chosen" and (out.folder / "manifest.json").is_file()
+
+
+def test_a_link_planted_while_the_run_computes_is_refused(tmp_path: Path,
+                                                          monkeypatch: pytest.MonkeyPatch) -> None:
+    from prespec import publish
+
+    plan, data = _study(tmp_path / "study")
+    api.lock(plan)
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    real_reserve = publish.reserve_folder
+
+    def reserve(out: Path, *, numbered: bool) -> tuple[Path, bool]:
+        out.parent.parent.mkdir(parents=True, exist_ok=True)
+        out.parent.symlink_to(outside, target_is_directory=True)  # after the first check
+        return real_reserve(out, numbered=numbered)
+
+    monkeypatch.setattr(publish, "reserve_folder", reserve)
+    with pytest.raises(BadInput, match="symbolic link"):
+        api.run(plan, data)
+    assert _files_under(outside) == []
+    assert [e["action"] for e in audit.read_log(audit.log_path(plan))] == ["lock"]

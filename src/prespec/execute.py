@@ -22,9 +22,30 @@ from .families import analyse_families, ordinary_plan, prepare_run, templates
 
 
 def default_folder(plan_path: Path, kind: str) -> Path:
-    """``reports/<plan stem>/<YYYYMMDDTHHMMSSZ>-run`` beside the plan (not yet reserved)."""
+    """``reports/<plan stem>/<YYYYMMDDTHHMMSSZ>-run`` beside the plan (not yet reserved);
+    the places above it checked by :func:`check_report_place`."""
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
-    return plan_path.parent / "reports" / plan_path.stem / f"{stamp}-{kind}"
+    stem = plan_path.stem
+    if stem in ("", ".", "..") or "/" in stem or "\\" in stem:
+        raise BadInput(f"{plan_path}: the plan's file name gives no report folder name "
+                       f"(reports/{stem}/); rename the plan file, or give --out")
+    place = plan_path.parent / "reports" / stem
+    check_report_place(place)
+    return place / f"{stamp}-{kind}"
+
+
+def check_report_place(place: Path) -> None:
+    """``reports/`` and ``reports/<plan stem>/`` must each be a real folder (or not exist yet):
+    a symbolic link or any other file there would send the report, and its log entry,
+    somewhere else. One line naming the place; nothing is written."""
+    for where in (place.parent, place):
+        if where.is_symlink():
+            raise BadInput(f"{where}: is a symbolic link; report folders are written only "
+                           "into real folders inside the study (remove the link, or give --out)")
+        if where.exists() and not where.is_dir():
+            raise BadInput(f"{where}: is not a folder; report folders are written into "
+                           f"{place.parent.name}/{place.name}/ inside the study (move it away, "
+                           "or give --out)")
 
 
 def check_out_folder(out: Path) -> None:

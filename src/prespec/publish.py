@@ -17,7 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from . import audit
-from .execute import check_out_folder
+from .execute import check_out_folder, check_report_place
 from .families import family_details
 from .manifest import write_manifest
 from .report.tablenames import TABLES, groups_table, hypothesis_table
@@ -38,7 +38,11 @@ def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:
     with ``--out`` must not exist or be empty. The complete report is later renamed over the
     empty folder, which POSIX rename allows.
     """
+    if numbered:  # reports/<stem>/: checked again as it is made, then used
+        check_report_place(out.parent)
     out.parent.mkdir(parents=True, exist_ok=True)
+    if numbered:
+        check_report_place(out.parent)
     candidate, n = out, 1
     while True:
         try:
