@@ -157,3 +157,190 @@ def test_a_link_planted_while_the_run_computes_is_refused(tmp_path: Path,
         api.run(plan, data)
     assert _files_under(outside) == []
     assert [e["action"] for e in audit.read_log(audit.log_path(plan))] == ["lock"]
+
+
+# --- item 6: a plan's data.source must be inside the plan's folder ---
+
+SECRET = "hunter2-5f0c"  # in every cell of the secret file's password column
+
+
+def _secret_file(path: Path) -> None:
+    """The demo data with a password column: read as data.group it would fill the report."""
+    lines = demo_data().splitlines()
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text("\n".join([lines[0] + ",password",
+                               *(f"{row},{SECRET}-{i}" for i, row in enumerate(lines[1:]))])
+                    + "\n")
+
+
+def _sourced(source: str, group: str = "arm") -> str:
+    return PLAN_TEXT.replace("  group: arm\n", f"  group: {group}\n  source: {source}\n")
+
+
+def _everything_under(folder: Path) -> str:
+    return "".join(p.read_text(errors="replace") for p in folder.rglob("*") if p.is_file()
+                   and not p.is_symlink() and "secret" not in p.parts)
+
+
+@pytest.mark.parametrize("source", ["../../secret/creds.csv", "ABSOLUTE", "../../secret/*.csv"])
+def test_a_plan_cannot_read_data_outside_its_folder(tmp_path: Path, source: str,
+                                                    capsys: pytest.CaptureFixture[str]) -> None:
+    from prespec import cli
+
+    _secret_file(tmp_path / "secret" / "creds.csv")
+    source = str(tmp_path / "secret" / "creds.csv") if source == "ABSOLUTE" else source
+    plan, _ = _study(tmp_path / "a" / "b", _sourced(source, "password"))
+    for command in (["check"], ["lock"], ["run", "--accept-deviation", "unlocked"],
+                    ["rehearse"]):
+        assert cli.main([command[0], str(plan), *command[1:]]) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1
+        assert err.startswith(f"prespec: {plan}:8: data.source: {source!r} ")
+        assert "outside the plan's folder" in err or "an absolute path" in err
+    assert not audit.log_path(plan).exists() and not (plan.parent / "reports").exists()
+    assert SECRET not in _everything_under(tmp_path)
+
+
+def test_a_link_inside_the_folder_to_data_outside_is_refused(tmp_path: Path) -> None:
+    _secret_file(tmp_path / "secret" / "creds.csv")
+    plan, _ = _study(tmp_path / "study", _sourced("inside.csv", "password"))
+    (plan.parent / "inside.csv").symlink_to(tmp_path / "secret" / "creds.csv")
+    with pytest.raises(BadInput, match=r"trial.yaml:8: data.source: 'inside.csv' resolves "
+                                       "outside the plan's folder"):
+        api.lock(plan)
+    # a glob whose pattern is inside but one match links outside: refused when read
+    glob_plan, _ = _study(tmp_path / "g", _sourced("parts/*.csv", "password"))
+    (glob_plan.parent / "parts").mkdir()
+    (glob_plan.parent / "parts" / "a.csv").write_text(demo_data())
+    (glob_plan.parent / "parts" / "z.csv").symlink_to(tmp_path / "secret" / "creds.csv")
+    api.lock(glob_plan)
+    with pytest.raises(BadInput, match=r"trial.yaml:8: data.source: 'parts/\*.csv' matches "
+                                       r"parts/z.csv, which resolves outside"):
+        api.run(glob_plan)
+    assert [e["action"] for e in audit.read_log(audit.log_path(glob_plan))] == ["lock"]
+    assert SECRET not in _everything_under(tmp_path)
+
+
+def test_data_given_on_the_command_line_may_be_anywhere(tmp_path: Path) -> None:
+    plan, _ = _study(tmp_path / "study", _sourced("../elsewhere.csv"))
+    (tmp_path / "elsewhere.csv").write_text(demo_data())
+    with pytest.raises(BadInput, match="data.source"):
+        api.lock(plan)
+    plain, _ = _study(tmp_path / "plain")
+    api.lock(plain)
+    out = api.run(plain, tmp_path / "elsewhere.csv")
+    assert out.results["data_file"] == "../elsewhere.csv"
+
+
+def test_check_shows_the_source_it_will_read(tmp_path: Path,
+                                             capsys: pytest.CaptureFixture[str]) -> None:
+    from prespec import cli
+
+    plan, _ = _study(tmp_path, _sourced("data.csv"))
+    assert cli.main(["check", str(plan)]) == 0
+    assert f"\ndata: {tmp_path / 'data.csv'} (a file; found)\n" in capsys.readouterr().out
+    globbed, _ = _study(tmp_path, _sourced("parts/*.csv"), name="g.yaml")
+    (tmp_path / "parts").mkdir()
+    for name in ("a.csv", "b.csv", ".hidden.csv"):
+        (tmp_path / "parts" / name).write_text(demo_data())
+    assert cli.main(["check", str(globbed)]) == 0
+    assert f"\ndata: {tmp_path / 'parts/*.csv'} (a glob; 2 files match now)\n" in \
+        capsys.readouterr().out
+    assert api.check(_study(tmp_path, name="n.yaml")[0]).source == (
+        "none named in the plan (give it to run: prespec run PLAN DATA)")
+
+
+# --- item 9: a glob reads what Python's glob matches, and every file read is recorded ---
+
+def _parts(folder: Path) -> list[Path]:
+    """The demo data split in two files under folder/parts, and a hidden third (10 rows)."""
+    lines = demo_data().splitlines()
+    header, rows = lines[0], lines[1:]
+    parts = folder / "parts"
+    parts.mkdir(parents=True)
+    written = []
+    for name, chunk in (("a.csv", rows[:300]), ("b.csv", rows[300:]),
+                        (".b.csv", [r.replace("WD-", "HIDDEN-") for r in rows[:10]])):
+        (parts / name).write_text("\n".join([header, *chunk]) + "\n")
+        written.append(parts / name)
+    return written
+
+
+def test_expand_glob_follows_pythons_rules(tmp_path: Path) -> None:
+    import glob
+
+    from prespec.data.engines.base import expand_glob
+
+    _parts(tmp_path)
+    (tmp_path / "parts" / "sub").mkdir()
+    (tmp_path / "parts" / "sub" / "c.csv").write_text("x\n")
+    (tmp_path / "parts" / "folder.csv").mkdir()
+    (tmp_path / "parts" / ".hid").mkdir()
+    (tmp_path / "parts" / ".hid" / "d.csv").write_text("x\n")
+    p = str(tmp_path / "parts")
+    assert expand_glob(f"{p}/*.csv") == [f"{p}/a.csv", f"{p}/b.csv"]
+    assert expand_glob(f"{p}/*.csv") == sorted(
+        f for f in glob.glob(f"{p}/*.csv") if Path(f).is_file())  # glob.glob
+    assert expand_glob(f"{p}/.*.csv") == [f"{p}/.b.csv"]
+    assert expand_glob(f"{p}/**/*.csv") == [f"{p}/a.csv", f"{p}/b.csv", f"{p}/sub/c.csv"]
+
+
+@pytest.mark.parametrize("engine", ["duckdb", "auto"])
+def test_a_glob_skips_hidden_files_and_records_every_file_read(tmp_path: Path,
+                                                               engine: str) -> None:
+    import hashlib
+
+    plan, _ = _study(tmp_path, _sourced("parts/*.csv"))
+    a, b, _ = _parts(tmp_path)
+    api.lock(plan)
+    out = api.run(plan, engine=engine)
+    results = out.results
+    assert results["engine"] == "duckdb"
+    assert results["population"]["rows_read"] == 601  # the demo's rows; not the hidden 10
+    expected = [{"path": f"parts/{f.name}",
+                 "sha256": "sha256:" + hashlib.sha256(f.read_bytes()).hexdigest()}
+                for f in (a, b)]
+    assert results["data_files"] == expected
+    assert results["data_file"] == "parts/*.csv"
+    assert list(results).index("data_files") == list(results).index("data_file") + 1
+    (entry,) = [e for e in audit.read_log(audit.log_path(plan)) if e["action"] == "run"]
+    assert entry["details"]["data_files"] == expected
+    stored = json.loads((out.folder / "results.json").read_text())
+    assert stored["data_files"] == expected
+    assert api.verify(plan).passed
+    # a rehearsal reads and records the same files
+    rehearsed = api.rehearse(plan, engine="duckdb").results
+    assert rehearsed["population"]["rows_read"] == 601
+    assert rehearsed["data_files"] == expected
+
+
+def test_a_file_changed_while_a_glob_is_read_stops_the_run(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from prespec.data.engines import pipeline
+
+    plan, _ = _study(tmp_path, _sourced("parts/*.csv"))
+    a, _, _ = _parts(tmp_path)
+    api.lock(plan)
+    real = pipeline.count_source
+
+    def count_then_touch(*args: object, **kwargs: object) -> object:
+        counted = real(*args, **kwargs)
+        a.write_text(a.read_text() + "\n")
+        return counted
+
+    monkeypatch.setattr(pipeline, "count_source", count_then_touch)
+    with pytest.raises(BadInput, match=r"parts/\*.csv: a data file changed, appeared or went "
+                                       "while it was read"):
+        api.run(plan)
+    assert [e["action"] for e in audit.read_log(audit.log_path(plan))] == ["lock"]
+
+
+def test_duckdb_reads_a_file_whose_name_looks_like_a_glob(tmp_path: Path) -> None:
+    plan, _ = _study(tmp_path)
+    api.lock(plan)
+    odd = tmp_path / "wave[1].csv"
+    odd.write_text(demo_data())
+    (tmp_path / "wave1.csv").write_text("participant,arm\n")  # what DuckDB's glob would read
+    out = api.run(plan, odd, engine="duckdb")
+    assert out.results["population"]["rows_read"] == 601
+    assert out.results["data_file"] == "wave[1].csv" and "data_files" not in out.results

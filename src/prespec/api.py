@@ -63,6 +63,7 @@ class CheckResult:
     loaded: LoadedPlan
     summary: str
     lock_status: str
+    source: str = ""  # the data a run reads without DATA (``sources.describe_source``)
 
 
 def _lock_status(loaded: LoadedPlan) -> str:
@@ -76,9 +77,21 @@ def _lock_status(loaded: LoadedPlan) -> str:
 
 
 def check(plan: str | Path) -> CheckResult:
-    """Validate a plan; nothing is written."""
+    """Validate a plan; nothing is written. ``data.source`` must be inside its folder."""
+    from .data.engines.sources import describe_source
+
     loaded = load_plan(Path(plan))
-    return CheckResult(loaded, summary(loaded.model), _lock_status(loaded))
+    source = describe_source(loaded.path, loaded.model)
+    return CheckResult(loaded, summary(loaded.model), _lock_status(loaded), source)
+
+
+def _load_for_lock(plan: str | Path) -> LoadedPlan:
+    """The plan to lock or amend; its ``data.source`` must be inside its folder."""
+    from .data.engines.sources import check_declared_source
+
+    loaded = load_plan(Path(plan))
+    check_declared_source(loaded.path, loaded.model)
+    return loaded
 
 
 def schema() -> dict[str, Any]:
@@ -195,7 +208,7 @@ def lock(plan: str | Path, *, actor: str | None = None,
     ``sign``: a private key file (``prespec key new``) that signs the entry.
     """
     signer = _signer(sign)
-    loaded = load_plan(Path(plan))
+    loaded = _load_for_lock(plan)
     _finish_stopped_writes(loaded.path)
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is not None:
@@ -229,7 +242,7 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
     if not reason or not reason.strip():
         raise BadInput("amend: --reason must say why the plan changed")
     signer = _signer(sign)
-    loaded = load_plan(Path(plan))
+    loaded = _load_for_lock(plan)
     _finish_stopped_writes(loaded.path)
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is None:

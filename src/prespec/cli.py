@@ -189,6 +189,7 @@ def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "check":
         res = api.check(args.plan)
         print(res.summary)
+        print(f"data: {res.source}")
         print(f"lock: {res.lock_status}")
         print(f"fingerprint: {res.loaded.fingerprint}")
     elif args.command == "schema":

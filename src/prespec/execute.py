@@ -151,10 +151,11 @@ def compute_results(
     (:mod:`prespec.families`) and listed under ``families``; ``progress(what, done, total)`` is
     called as a family's levels are prepared."""
     from .data.engines.pipeline import count_source
-    from .data.engines.sources import data_file_field
+    from .data.engines.sources import data_file_field, data_files_field, file_stamps
 
     if source is None:
         source = DataSource("file", str(data_path), str(data_path))
+    before = file_stamps(source)
     family_data: list[Any] = []
     if templates(plan):
         path = family_file(source, engine)
@@ -166,6 +167,7 @@ def compute_results(
         counted = count_source(plan, source, engine=engine, progress=counting)
         data_hash, prepared = counted.data_hash, counted.prepared
         used_engine, query = counted.engine, counted.query
+    files = data_files_field(plan_path, source, before)
     deviations = list(deviations)
     if previous_data is not None and previous_data != data_hash:
         deviations.append(
@@ -209,7 +211,7 @@ def compute_results(
     )
     if family_data:
         results["families"] = families
-    return with_engine(results, used_engine, query)
+    return with_engine(results, used_engine, query, files)
 
 
 def family_file(source: DataSource, engine: str) -> Path:
@@ -221,15 +223,19 @@ def family_file(source: DataSource, engine: str) -> Path:
     return Path(source.location)
 
 
-def with_engine(results: dict[str, Any], engine: str, query: str | None) -> dict[str, Any]:
+def with_engine(results: dict[str, Any], engine: str, query: str | None,
+                files: list[dict[str, str]] | None = None) -> dict[str, Any]:
     """``engine`` beside the provenance fields, the versions it counted with
-    (``engine_library``), and the ``query`` it sent (None for pandas)."""
+    (``engine_library``), and the ``query`` it sent (None for pandas); for a glob, first
+    ``data_files``: every file read with its SHA-256 (``sources.data_files_field``)."""
     from .data.engines.choose import engine_library
 
     out: dict[str, Any] = {}
     for key, value in results.items():
         out[key] = value
         if key == "data_file":
+            if files is not None:
+                out["data_files"] = files
             out["engine"] = engine
             out["engine_library"] = engine_library(engine)
             out["query"] = query

@@ -168,6 +168,8 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
             plan=results["plan"],
             data=results["data"],
             details={"report": report_rel, "manifest": manifest, **(details or {}),
+                     **({"data_files": results["data_files"]} if "data_files" in results
+                        else {}),
                      **family_details(results),
                      **({"engine": results["engine"],
                          "engine_library": results.get("engine_library"),

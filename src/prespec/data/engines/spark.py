@@ -14,7 +14,6 @@ plan is pasted into the text. It needs Java (PySpark 3.5 runs on Java 8, 11 or 1
 
 from __future__ import annotations
 
-import glob as globbing
 import itertools
 import os
 import shutil
@@ -191,7 +190,7 @@ class SparkEngine(AggregatingEngine):
                 raise DataError(f"{shown}: the data file is empty")
             files = [str(path)]
         else:
-            files = sorted(globbing.glob(self.source.location))
+            files = self.source.matches()  # Python's rules: no hidden file
             if not files:
                 raise DataError(f"{shown}: no data file matches")
         parquet = self.source.is_parquet
