@@ -344,3 +344,114 @@ def test_duckdb_reads_a_file_whose_name_looks_like_a_glob(tmp_path: Path) -> Non
     out = api.run(plan, odd, engine="duckdb")
     assert out.results["population"]["rows_read"] == 601
     assert out.results["data_file"] == "wave[1].csv" and "data_files" not in out.results
+
+
+# --- item 10: verify names what no recorded run wrote; --strict fails on it ---
+
+@pytest.fixture
+def verified_study(tmp_path: Path) -> tuple[Path, Path]:
+    """A locked study with one run; (the plan, the run's report folder)."""
+    plan, data = _study(tmp_path / "study")
+    api.lock(plan)
+    out = api.run(plan, data)
+    assert not api.verify(plan).warnings and not api.verify(plan).notes
+    return plan, out.folder
+
+
+def test_a_planted_complete_report_dressed_as_a_temporary_folder_is_named(
+        verified_study: tuple[Path, Path], capsys: pytest.CaptureFixture[str]) -> None:
+    import shutil
+
+    from prespec import cli
+    from prespec.errors import IntegrityStop
+
+    plan, folder = verified_study
+    planted = folder.parent / ".x.partial-evil"
+    shutil.copytree(folder, planted)  # complete: results, tables, manifest
+    res = api.verify(plan)
+    assert res.warnings == [
+        ("reports/trial/.x.partial-evil: named like a temporary report folder, but no stopped "
+        "run left it (no empty reserved folder x beside it, or the log names that report); "
+        "not produced by a recorded run")]
+    assert not any("safe to delete" in n for n in res.notes)
+    with pytest.raises(IntegrityStop, match=r"^--strict: 1 thing in the report folders no "
+                                            r"recorded run wrote \(first: reports/trial/"
+                                            r"\.x\.partial-evil: named like"):
+        api.verify(plan, strict=True)
+    # the same folder beside the run's own name, with that report logged: also planted
+    shutil.move(planted, folder.parent / f".{folder.name}.partial-evil")
+    assert len(api.verify(plan).warnings) == 1
+    capsys.readouterr()
+    assert cli.main(["verify", str(plan)]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[-2].startswith(f"warn  reports/trial/.{folder.name}.partial-evil: named like")
+    assert out[-1] == ("verified, with 1 warning: the analysis that ran is the one that was "
+                       "locked, but the report folders hold things no recorded run wrote "
+                       "(listed above; --strict fails on them)")
+    assert cli.main(["verify", str(plan), "--strict"]) == 3
+    captured = capsys.readouterr()
+    assert "warn  reports/trial/." in captured.out and "FAIL  --strict: 1 thing" in captured.out
+    assert captured.err.count("\n") == 1
+
+
+def test_loose_files_pipes_and_empty_folders_are_each_named(
+        verified_study: tuple[Path, Path]) -> None:
+    import os
+    import socket
+
+    from prespec.errors import IntegrityStop
+
+    plan, folder = verified_study
+    place = folder.parent
+    (place / "notes.txt").write_text("looks harmless\n")
+    os.mkfifo(place / "pipe")
+    (place / "empty").mkdir()
+    os.mkfifo(folder / "figures" / "inner-pipe")
+    (folder / "tables" / "nothing").mkdir()
+    sock = socket.socket(socket.AF_UNIX)
+    cwd = os.getcwd()
+    try:
+        os.chdir(place)  # a short path for the socket's address
+        sock.bind("sock")
+    finally:
+        os.chdir(cwd)
+    try:
+        res = api.verify(plan)
+        with pytest.raises(IntegrityStop, match="--strict: 6 things"):
+            api.verify(plan, strict=True)
+    finally:
+        sock.close()
+    rel = f"reports/trial/{folder.name}"
+    assert res.warnings == [
+        ("reports/trial/empty: an empty folder among the report folders; no recorded run "
+        "reserved it"),
+        "reports/trial/notes.txt: a loose file among the report folders; no recorded run wrote it",
+        ("reports/trial/pipe: a named pipe (FIFO) among the report folders; no recorded run "
+        "wrote it"),
+        "reports/trial/sock: a socket among the report folders; no recorded run wrote it",
+        (f"report {rel}: figures/inner-pipe: a named pipe (FIFO) inside the report (not in its "
+        "manifest)"),
+        f"report {rel}: tables/nothing: an empty folder inside the report (not in its manifest)",
+    ]
+    assert res.passed and not res.notes
+
+
+def test_an_unlogged_dot_named_report_folder_fails_and_a_linked_place_is_named(
+        verified_study: tuple[Path, Path], tmp_path: Path) -> None:
+    import shutil
+
+    from prespec.errors import IntegrityStop
+
+    plan, folder = verified_study
+    hidden = folder.parent / ".quiet"
+    shutil.copytree(folder, hidden)
+    with pytest.raises(IntegrityStop, match=r"reports/trial/\.quiet: a report folder that the "
+                                            "log does not name"):
+        api.verify(plan)
+    shutil.rmtree(hidden)
+    moved = tmp_path / "elsewhere"
+    shutil.move(folder.parent, moved)
+    (plan.parent / "reports" / "trial").symlink_to(moved, target_is_directory=True)
+    assert api.verify(plan).warnings == [
+        ("reports/trial: a symbolic link; report folders are real folders inside the study "
+        "(not written by prespec)")]

@@ -587,20 +587,24 @@ def check_out_path(plan_path: Path, out: Path) -> None:
 class VerifyResult:
     passed: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    # things in the report folders that no recorded run wrote; failures under ``strict``
+    warnings: list[str] = field(default_factory=list)
 
 
 def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,
-           report: str | None = None, key: str | Path | None = None) -> VerifyResult:
+           report: str | None = None, key: str | Path | None = None,
+           strict: bool = False) -> VerifyResult:
     """Check the lock, the log and every report the log names, from the files alone.
 
     ``expect``: the fingerprint registered elsewhere at lock time. ``rerun``: a data file;
     every run report made from it (or only ``report``) is recomputed and must be identical.
     ``key``: a public key file; every lock and amend entry must carry its valid signature.
+    ``strict``: the warnings (things in the report folders no recorded run wrote) fail.
     """
     from .verify import verify_all
 
     return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
-                      report=report, key=Path(key) if key else None)
+                      report=report, key=Path(key) if key else None, strict=strict)
 
 
 def history(plan: str | Path, *, from_version: int | None = None,

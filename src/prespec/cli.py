@@ -78,6 +78,8 @@ def _parser() -> argparse.ArgumentParser:
                    help="with --rerun: only this report (as the log names it)")
     c.add_argument("--key", metavar="PUBLIC",
                    help="require every lock and amend entry to be signed by this public key")
+    c.add_argument("--strict", action="store_true",
+                   help="fail on warnings: anything in the report folders no recorded run wrote")
     c = add("design", "sample size and power per hypothesis; with --simulate, the operating "
             "characteristics of the whole plan", writes=True)
     c.add_argument("plan")
@@ -248,12 +250,20 @@ def _dispatch(args: argparse.Namespace) -> int:
         if args.report is not None and args.rerun is None:
             raise BadInput("--report goes with --rerun DATA")
         res = api.verify(args.plan, expect=args.expect, rerun=args.rerun, report=args.report,
-                         key=args.key)
+                         key=args.key, strict=args.strict)
         for line in res.passed:
             print(f"ok    {line}")
         for line in res.notes:
             print(f"note  {line}")
-        print("verified: the analysis that ran is the one that was locked")
+        for line in res.warnings:
+            print(f"warn  {line}")
+        if res.warnings:
+            count = len(res.warnings)
+            print(f"verified, with {count} warning{'' if count == 1 else 's'}: the analysis "
+                  "that ran is the one that was locked, but the report folders hold things no "
+                  "recorded run wrote (listed above; --strict fails on them)")
+        else:
+            print("verified: the analysis that ran is the one that was locked")
     elif args.command == "history":
         _print_history(api.history(args.plan, from_version=args.from_version,
                                    to_version=args.to_version))
@@ -287,6 +297,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             print(f"ok    {line}")
         for line in getattr(exc, "notes", []):
             print(f"note  {line}")
+        for line in getattr(exc, "warnings", []):
+            print(f"warn  {line}")
         if getattr(exc, "passed", None) is not None and args.command == "verify":
             print(f"FAIL  {exc}")
         print(f"prespec: {exc}", file=sys.stderr)
