@@ -105,6 +105,12 @@ def spark_session() -> Any:
         return _session
 
 
+def hadoop_escape(path: str) -> str:
+    """``path`` with Hadoop's glob characters escaped by a backslash, so that Spark reads the
+    file of that name: ``wave[1].csv`` would otherwise read ``wave1.csv``."""
+    return "".join("\\" + c if c in "\\*?[]{}" else c for c in path)
+
+
 def spark_message(exc: BaseException) -> str:
     """The first meaningful line of a Spark or Py4J error (not the Java stack)."""
     text = str(exc).strip()
@@ -204,6 +210,7 @@ class SparkEngine(AggregatingEngine):
 
     def _read(self, name: str) -> Any:
         reader = self.spark.read
+        name = hadoop_escape(name)  # Spark globs every path it is given
         if self.source.is_parquet:
             frame = reader.parquet(name)
         else:
