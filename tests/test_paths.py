@@ -314,6 +314,18 @@ def test_a_glob_skips_hidden_files_and_records_every_file_read(tmp_path: Path,
     assert rehearsed["data_files"] == expected
 
 
+def test_the_report_header_lists_the_files_read() -> None:
+    from prespec.report.sections import header
+
+    files = [{"path": "parts/a.csv", "sha256": "sha256:" + "a" * 64},
+             {"path": "parts/<b>.csv", "sha256": "sha256:" + "b" * 64}]
+    shown = header({"kind": "run", "data_file": "parts/*.csv", "data_files": files})
+    assert "Files read" in shown
+    assert (f"parts/a.csv (sha256:{'a' * 64}); parts/&lt;b&gt;.csv (sha256:{'b' * 64})"
+            in shown)
+    assert "Files read" not in header({"kind": "run", "data_file": "one.csv"})
+
+
 def test_a_file_changed_while_a_glob_is_read_stops_the_run(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     from prespec.data.engines import pipeline
