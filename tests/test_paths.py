@@ -467,3 +467,16 @@ def test_an_unlogged_dot_named_report_folder_fails_and_a_linked_place_is_named(
     assert api.verify(plan).warnings == [
         ("reports/trial: a symbolic link; report folders are real folders inside the study "
         "(not written by prespec)")]
+
+
+def test_verify_of_a_plan_whose_stem_names_no_report_folder(tmp_path: Path) -> None:
+    """A plan named ``...yaml`` (run with --out): verify does not take the plan's own folder
+    for its report folder, so the data and the plan beside it are no warnings."""
+    plan, data = _study(tmp_path / "study", name="...yaml")
+    api.lock(plan)
+    api.run(plan, data, out=plan.parent / "chosen")
+    (plan.parent / "notes").mkdir()
+    (plan.parent / "notes" / "minutes.txt").write_text("kept beside the plan\n")
+    res = api.verify(plan, strict=True)
+    assert not res.warnings and not res.notes
+    assert res.passed[-1] == "reports: 1 folder(s) match their manifests and log entries"

@@ -292,8 +292,9 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
                                    "are real folders inside the study (not written by prespec)")
     named = {Path(os.path.abspath(plan.parent / rel)) for rel in found}
     in_use = {Path(os.path.abspath(p)) for p in found.values()}
-    own_abs = Path(os.path.abspath(own))
-    places = {own_abs} | {p.parent for p in named}
+    # a plan named ``...yaml`` (stem ``..``) has no folder of its own under reports/
+    own_abs = Path(os.path.abspath(own)) if plan.stem not in ("", ".", "..") else None
+    places = ({own_abs} if own_abs else set()) | {p.parent for p in named}
     prefixes = {f".{p.name}{PARTIAL}" for p in named}
     for place in sorted(places):
         if not place.is_dir():
