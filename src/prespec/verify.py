@@ -272,8 +272,9 @@ def _kind_of(mode: int) -> str:
 
 
 def _shown(plan: Path, path: Path) -> str:
-    return (path.relative_to(plan.parent) if path.is_relative_to(plan.parent) else path
-            ).as_posix()
+    """``path`` relative to the plan's folder when inside it (as the log names reports)."""
+    here, path = Path(os.path.abspath(plan.parent)), Path(os.path.abspath(path))
+    return (path.relative_to(here) if path.is_relative_to(here) else path).as_posix()
 
 
 def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -> None:
