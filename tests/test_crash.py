@@ -172,6 +172,7 @@ def check_state_after_crash(study: Path) -> str:
     plan = study / "trial.yaml"
     try:
         res = api.verify(plan)
+        assert not res.warnings, res.warnings  # what a kill leaves is named as a leftover
         outcome = "passed" + (" with notes" if res.notes else "")
     except IntegrityStop as exc:
         assert "the last line is incomplete" in str(exc), str(exc)
@@ -266,6 +267,7 @@ def test_verify_mentions_what_a_stopped_run_left(locked_study: Path, tmp_path: P
     res = api.verify(study / "trial.yaml")
     assert any("an empty folder reserved by a run" in n for n in res.notes)
     assert any(".partial-ab12: a temporary folder" in n for n in res.notes)
+    assert not res.warnings
     # a folder with files that the log does not name is not a leftover: it fails
     (reports / "20270101T000000Z-run" / "results.json").write_text("{}")
     with pytest.raises(IntegrityStop, match="a report folder that the log does not name"):

@@ -93,6 +93,22 @@ def test_a_glob_equals_pandas_on_the_rows_together(spark: Any, demo: dict[str, A
     assert counted.data_hash == frame_row_hash(frame, request)
 
 
+def test_a_glob_reads_pythons_matches_and_names_that_look_like_globs(
+        spark: Any, demo: dict[str, Any]) -> None:
+    """``wave[[2]*.csv`` matches ``wave[1].csv`` and ``wave2.csv`` by Python's rules (not the
+    hidden ``.wave3.csv``, not ``wave1.csv``); ``wave[1].csv`` is read as itself, not as the
+    Hadoop pattern that would read ``wave1.csv``."""
+    frame = demo["frame"]
+    folder = demo["folder"] / "waves"
+    folder.mkdir()
+    frame.iloc[:300].to_csv(folder / "wave[1].csv", index=False)
+    frame.iloc[300:].to_csv(folder / "wave2.csv", index=False)
+    frame.iloc[:5].to_csv(folder / "wave1.csv", index=False)  # what Hadoop's glob would read
+    frame.iloc[:10].to_csv(folder / ".wave3.csv", index=False)  # hidden: not matched by *
+    counted = counts(demo["plan"], "glob", folder / "wave[[2]*.csv")
+    assert counted.prepared == prepare(frame, demo["plan"], "rows")
+
+
 def test_csv_quoting_and_whitespace_as_pandas_reads_them(spark: Any, tmp_path: Path) -> None:
     """Quoted commas and doubled quotes, a field across lines, blank and spaced cells."""
     plan_path = tmp_path / "plan.yaml"

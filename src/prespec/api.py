@@ -64,6 +64,7 @@ class CheckResult:
     loaded: LoadedPlan
     summary: str
     lock_status: str
+    source: str = ""  # the data a run reads without DATA (``sources.describe_source``)
 
 
 def _lock_status(loaded: LoadedPlan) -> str:
@@ -77,9 +78,21 @@ def _lock_status(loaded: LoadedPlan) -> str:
 
 
 def check(plan: str | Path) -> CheckResult:
-    """Validate a plan; nothing is written."""
+    """Validate a plan; nothing is written. ``data.source`` must be inside its folder."""
+    from .data.engines.sources import describe_source
+
     loaded = load_plan(Path(plan))
-    return CheckResult(loaded, summary(loaded.model), _lock_status(loaded))
+    source = describe_source(loaded.path, loaded.model)
+    return CheckResult(loaded, summary(loaded.model), _lock_status(loaded), source)
+
+
+def _load_for_lock(plan: str | Path) -> LoadedPlan:
+    """The plan to lock or amend; its ``data.source`` must be inside its folder."""
+    from .data.engines.sources import check_declared_source
+
+    loaded = load_plan(Path(plan))
+    check_declared_source(loaded.path, loaded.model)
+    return loaded
 
 
 def schema() -> dict[str, Any]:
@@ -196,7 +209,7 @@ def lock(plan: str | Path, *, actor: str | None = None,
     ``sign``: a private key file (``prespec key new``) that signs the entry.
     """
     signer = _signer(sign)
-    loaded = load_plan(Path(plan))
+    loaded = _load_for_lock(plan)
     _finish_stopped_writes(loaded.path)
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is not None:
@@ -232,7 +245,7 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
     if not reason or not reason.strip():
         raise BadInput("amend: --reason must say why the plan changed")
     signer = _signer(sign)
-    loaded = load_plan(Path(plan))
+    loaded = _load_for_lock(plan)
     _finish_stopped_writes(loaded.path)
     doc = audit.read_lock(audit.lock_path(loaded.path))
     if doc is None:
@@ -615,20 +628,24 @@ class VerifyResult:
     def departed(self) -> list[Any]:
         """The runs that were not the locked analysis."""
         return [r for r in self.runs if not r.locked]
+    # things in the report folders that no recorded run wrote; failures under ``strict``
+    warnings: list[str] = field(default_factory=list)
 
 
 def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,
-           report: str | None = None, key: str | Path | None = None) -> VerifyResult:
+           report: str | None = None, key: str | Path | None = None,
+           strict: bool = False) -> VerifyResult:
     """Check the lock, the log and every report the log names, from the files alone.
 
     ``expect``: the fingerprint registered elsewhere at lock time. ``rerun``: a data file;
     every run report made from it (or only ``report``) is recomputed and must be identical.
     ``key``: a public key file; every lock and amend entry must carry its valid signature.
+    ``strict``: the warnings (things in the report folders no recorded run wrote) fail.
     """
     from .verify import verify_all
 
     return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
-                      report=report, key=Path(key) if key else None)
+                      report=report, key=Path(key) if key else None, strict=strict)
 
 
 def history(plan: str | Path, *, from_version: int | None = None,

@@ -89,7 +89,8 @@ def _parser() -> argparse.ArgumentParser:
                    help="require every lock and amend entry to be signed by this public key")
     c.add_argument("--strict", action="store_true",
                    help="exit 3 when any run was not the locked analysis (never locked, "
-                   "overridden, or amended after unblinding)")
+                   "overridden, or amended after unblinding) or when the report folders hold "
+                   "anything no recorded run wrote")
     c = add("design", "sample size and power per hypothesis; with --simulate, the operating "
             "characteristics of the whole plan", writes=True)
     c.add_argument("plan")
@@ -234,6 +235,7 @@ def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "check":
         res = api.check(args.plan)
         print(res.summary)
+        print(f"data: {res.source}")
         print(f"lock: {res.lock_status}")
         print(f"fingerprint: {res.loaded.fingerprint}")
     elif args.command == "schema":
@@ -305,13 +307,15 @@ def _dispatch(args: argparse.Namespace) -> int:
         if args.report is not None and args.rerun is None:
             raise BadInput("--report goes with --rerun DATA")
         res = api.verify(args.plan, expect=args.expect, rerun=args.rerun, report=args.report,
-                         key=args.key)
+                         key=args.key, strict=args.strict)
         for line in res.passed:
             print(f"ok    {line}")
         for run in res.runs:
             print(f"{'ok' if run.locked else 'off':<6}{run.line}")
         for line in res.notes:
             print(f"note  {line}")
+        for line in res.warnings:
+            print(f"warn  {line}")
         print(res.summary)
         if args.strict and res.departed:
             print("prespec: --strict: " + ", ".join(r.name for r in res.departed)
@@ -350,6 +354,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             print(f"ok    {line}")
         for line in getattr(exc, "notes", []):
             print(f"note  {line}")
+        for line in getattr(exc, "warnings", []):
+            print(f"warn  {line}")
         if getattr(exc, "passed", None) is not None and args.command == "verify":
             print(f"FAIL  {exc}")  # said once, in the checklist; stderr only points to it
             print("prespec: not verified; the FAIL line says what does not match",

@@ -23,9 +23,30 @@ from .families import analyse_families, ordinary_plan, prepare_run, templates
 
 
 def default_folder(plan_path: Path, kind: str) -> Path:
-    """``reports/<plan stem>/<YYYYMMDDTHHMMSSZ>-run`` beside the plan (not yet reserved)."""
+    """``reports/<plan stem>/<YYYYMMDDTHHMMSSZ>-run`` beside the plan (not yet reserved);
+    the places above it checked by :func:`check_report_place`."""
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
-    return plan_path.parent / "reports" / plan_path.stem / f"{stamp}-{kind}"
+    stem = plan_path.stem
+    if stem in ("", ".", "..") or "/" in stem or "\\" in stem:
+        raise BadInput(f"{plan_path}: the plan's file name gives no report folder name "
+                       f"(reports/{stem}/); rename the plan file, or give --out")
+    place = plan_path.parent / "reports" / stem
+    check_report_place(place)
+    return place / f"{stamp}-{kind}"
+
+
+def check_report_place(place: Path) -> None:
+    """``reports/`` and ``reports/<plan stem>/`` must each be a real folder (or not exist yet):
+    a symbolic link or any other file there would send the report, and its log entry,
+    somewhere else. One line naming the place; nothing is written."""
+    for where in (place.parent, place):
+        if where.is_symlink():
+            raise BadInput(f"{where}: is a symbolic link; report folders are written only "
+                           "into real folders inside the study (remove the link, or give --out)")
+        if where.exists() and not where.is_dir():
+            raise BadInput(f"{where}: is not a folder; report folders are written into "
+                           f"{place.parent.name}/{place.name}/ inside the study (move it away, "
+                           "or give --out)")
 
 
 def check_out_folder(out: Path) -> None:
@@ -134,10 +155,11 @@ def compute_results(
     called as a family's levels are prepared."""
     from .data.engines.columns import check_file
     from .data.engines.pipeline import count_source
-    from .data.engines.sources import data_file_field
+    from .data.engines.sources import data_file_field, data_files_field, file_stamps
 
     if source is None:
         source = DataSource("file", str(data_path), str(data_path))
+    before = file_stamps(source)
     family_data: list[Any] = []
     if templates(plan):
         path = family_file(source, engine)
@@ -150,6 +172,7 @@ def compute_results(
         counted = count_source(plan, source, engine=engine, progress=counting)
         data_hash, prepared = counted.data_hash, counted.prepared
         used_engine, query = counted.engine, counted.query
+    files = data_files_field(plan_path, source, before)
     deviations = list(deviations)
     if previous_data is not None and previous_data != data_hash:
         deviations.append(
@@ -193,7 +216,7 @@ def compute_results(
     )
     if family_data:
         results["families"] = families
-    return with_engine(results, used_engine, query)
+    return with_engine(results, used_engine, query, files)
 
 
 def family_file(source: DataSource, engine: str) -> Path:
@@ -205,15 +228,19 @@ def family_file(source: DataSource, engine: str) -> Path:
     return Path(source.location)
 
 
-def with_engine(results: dict[str, Any], engine: str, query: str | None) -> dict[str, Any]:
+def with_engine(results: dict[str, Any], engine: str, query: str | None,
+                files: list[dict[str, str]] | None = None) -> dict[str, Any]:
     """``engine`` beside the provenance fields, the versions it counted with
-    (``engine_library``), and the ``query`` it sent (None for pandas)."""
+    (``engine_library``), and the ``query`` it sent (None for pandas); for a glob, first
+    ``data_files``: every file read with its SHA-256 (``sources.data_files_field``)."""
     from .data.engines.choose import engine_library
 
     out: dict[str, Any] = {}
     for key, value in results.items():
         out[key] = value
         if key == "data_file":
+            if files is not None:
+                out["data_files"] = files
             out["engine"] = engine
             out["engine_library"] = engine_library(engine)
             out["query"] = query

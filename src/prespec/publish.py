@@ -8,7 +8,6 @@ executed notebook and HTML → manifest → folder renamed over its reserved emp
 from __future__ import annotations
 
 import os
-import re
 import shutil
 import tempfile
 from dataclasses import dataclass, field
@@ -16,9 +15,10 @@ from pathlib import Path
 from typing import Any
 
 from . import audit
-from .execute import check_out_folder
+from .execute import check_out_folder, check_report_place
 from .families import family_details
 from .manifest import write_manifest
+from .report.tablenames import TABLES, groups_table, hypothesis_table
 from .shown import csv_writer, json_text
 
 
@@ -39,7 +39,11 @@ def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:
     with ``--out`` must not exist or be empty. The complete report is later renamed over the
     empty folder, which POSIX rename allows.
     """
+    if numbered:  # reports/<stem>/: checked again as it is made, then used
+        check_report_place(out.parent)
     out.parent.mkdir(parents=True, exist_ok=True)
+    if numbered:
+        check_report_place(out.parent)
     candidate, n = out, 1
     while True:
         try:
@@ -53,12 +57,8 @@ def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:
             candidate = out.with_name(f"{out.name}-{n}")
 
 
-def _safe_name(text: str) -> str:
-    return re.sub(r"[^A-Za-z0-9._-]+", "_", text)
-
-
 def _write_tables(folder: Path, results: dict[str, Any]) -> None:
-    tables = folder / "tables"
+    tables = folder / TABLES
     tables.mkdir()
     if results.get("kind") == "rehearsal":  # pooled figures and the data dictionary only
         from .rehearsal import write_rehearsal_tables
@@ -66,7 +66,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
         write_rehearsal_tables(tables, results)
         return
     for outcome, rows in results["groups"].items():
-        with open(tables / f"groups-{_safe_name(outcome)}.csv", "w", newline="") as fh:
+        with open(folder / groups_table(outcome), "w", newline="") as fh:
             w = csv_writer(fh)
             w.writerow(["group", "events", "no_events", "total", "missing", "proportion",
                         "ci_low", "ci_high", "ci_method", "level"])
@@ -81,7 +81,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
     for h in results["hypotheses"]:
         t = h["table"]
         expected = h["expected"] or [[None, None]] * len(t["groups"])
-        with open(tables / f"{_safe_name(h['id'])}.csv", "w", newline="") as fh:
+        with open(folder / hypothesis_table(h["id"]), "w", newline="") as fh:
             w = csv_writer(fh)
             w.writerow(["group", "events", "no_events", "total", "expected_events",
                         "expected_no_events"])
@@ -169,6 +169,8 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
             plan=results["plan"],
             data=results["data"],
             details={"report": report_rel, "manifest": manifest, **(details or {}),
+                     **({"data_files": results["data_files"]} if "data_files" in results
+                        else {}),
                      **family_details(results),
                      **({"engine": results["engine"],
                          "engine_library": results.get("engine_library"),

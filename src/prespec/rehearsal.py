@@ -311,14 +311,16 @@ def compute_rehearsal(
     results.json document of a rehearsal (not written). ``source`` (default: the file
     ``data_path``) is read by ``engine``; no engine is asked for the group column."""
     from .data.engines.pipeline import blinded_rows
-    from .data.engines.sources import data_file_field
+    from .data.engines.sources import data_file_field, data_files_field, file_stamps
 
     if source is None:
         source = DataSource("file", str(data_path), str(data_path))
     blinded_frame(pd.DataFrame(), plan, str(plan_path))  # refuses a plan that reads the group
     if templates(plan):
         family_file(source, engine)  # families: one file, the pandas engine
+    before = file_stamps(source)
     read = blinded_rows(plan, source, engine=engine)
+    files = data_files_field(plan_path, source, before)
     frame = blinded_frame(read.frame, plan, str(plan_path))
     data_hash = read.data_hash
     source_name = source.shown
@@ -354,7 +356,8 @@ def compute_rehearsal(
     return {
         **with_engine(provenance(kind="rehearsal", plan=plan, fingerprint=fingerprint,
                                  version=version, data_hash=data_hash, data_file=data_file,
-                                 actor=actor, environment=environment), read.engine, read.query),
+                                 actor=actor, environment=environment), read.engine, read.query,
+                     files),
         "blinded": True,
         "population": {
             "rows_read": prepared.rows_read,

@@ -10,6 +10,9 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import re
+import stat
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -30,14 +33,17 @@ from .publish import PARTIAL, pending_report
 class VerifyFailure(IntegrityStop):
     """A failed check, carrying the checks that passed before it."""
 
-    def __init__(self, message: str, passed: list[str], notes: list[str] | None = None) -> None:
+    def __init__(self, message: str, passed: list[str], notes: list[str] | None = None,
+                 warnings: list[str] | None = None) -> None:
         super().__init__(message)
         self.passed = passed
         self.notes = notes or []
+        self.warnings = warnings or []
 
 
 def _fail(result: VerifyResult, message: str) -> VerifyFailure:
-    return VerifyFailure(message, list(result.passed), list(result.notes))
+    return VerifyFailure(message, list(result.passed), list(result.notes),
+                         list(result.warnings))
 
 
 def _version_of(entry: dict[str, Any]) -> int | None:
@@ -259,34 +265,126 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
     return found
 
 
+_STOPPED_RUN_NAME = re.compile(r"\d{8}T\d{6}Z-(run|rehearsal)(-\d+)?")  # default_folder's
+
+
+def _kind_of(mode: int) -> str:
+    """What a file that is neither a plain file nor a folder is, for a warning."""
+    if stat.S_ISFIFO(mode):
+        return "a named pipe (FIFO)"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    if stat.S_ISBLK(mode) or stat.S_ISCHR(mode):
+        return "a device file"
+    if stat.S_ISLNK(mode):
+        return "a symbolic link"
+    return "a file of an unknown kind"
+
+
+def _shown(plan: Path, path: Path) -> str:
+    """``path`` relative to the plan's folder when inside it (as the log names reports)."""
+    here, path = Path(os.path.abspath(plan.parent)), Path(os.path.abspath(path))
+    return (path.relative_to(here) if path.is_relative_to(here) else path).as_posix()
+
+
 def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -> None:
-    """Under ``reports/<stem>/``, a folder with files that the log does not name fails; what a
-    stopped run leaves (an empty reserved folder, a temporary one) is a note, there and beside
-    every named report."""
-    own = (plan.parent / "reports" / plan.stem).resolve()
-    named = {(plan.parent / rel).resolve() for rel in found}
-    in_use = {p.resolve() for p in found.values()}
+    """What lies in ``reports/<stem>/`` (and beside every named report) that no recorded run
+    wrote. A folder with files that the log does not name fails. What a run stopped before
+    its log entry leaves, an empty reserved folder and its temporary ``.<name>.partial-*``
+    folder beside it, is a note naming it as such. Anything else is a warning by name (a
+    failure under ``--strict``): a dot-named folder dressed as a temporary one with no
+    reserved folder beside it, a loose file, a link, a FIFO, socket or device, an empty folder
+    no run reserved, ``reports/`` or ``reports/<stem>/`` as a link."""
+    base = plan.parent / "reports"
+    own = base / plan.stem
+    for where in (base, own):
+        if where.is_symlink():
+            result.warnings.append(f"{_shown(plan, where)}: a symbolic link; report folders "
+                                   "are real folders inside the study (not written by prespec)")
+    named = {Path(os.path.abspath(plan.parent / rel)) for rel in found}
+    in_use = {Path(os.path.abspath(p)) for p in found.values()}
+    # a plan named ``...yaml`` (stem ``..``) has no folder of its own under reports/
+    own_abs = Path(os.path.abspath(own)) if plan.stem not in ("", ".", "..") else None
+    places = ({own_abs} if own_abs else set()) | {p.parent for p in named}
     prefixes = {f".{p.name}{PARTIAL}" for p in named}
-    places = {own} | {p.parent for p in named}
     for place in sorted(places):
         if not place.is_dir():
             continue
         for child in sorted(place.iterdir()):
-            resolved = child.resolve()
-            if resolved in named or resolved in in_use or not child.is_dir():
+            if child in named or child in in_use:
                 continue
-            rel = (child.relative_to(plan.parent) if child.is_relative_to(plan.parent)
-                   else child).as_posix()
+            rel = _shown(plan, child)
+            mode = child.lstat().st_mode
             temporary = child.name.startswith(".") and PARTIAL in child.name
-            if temporary and (place == own or any(child.name.startswith(p) for p in prefixes)):
-                result.notes.append(f"{rel}: a temporary folder left by a run that was stopped "
-                                    "before its log entry; not part of any report, safe to delete")
-            elif place == own and not temporary:
-                if any(child.iterdir()):
-                    raise _fail(result, f"{rel}: a report folder that the log does not name "
-                                "(not produced by a recorded run)")
+            if stat.S_ISDIR(mode) and temporary:
+                if place != own_abs and not any(child.name.startswith(p) for p in prefixes):
+                    continue  # a folder chosen with --out: only the temporary folders of its
+                    # named reports are looked at
+                _temporary_folder(plan, child, rel, found, result)
+            elif place != own_abs:
+                continue
+            elif not stat.S_ISDIR(mode):
+                what = "a loose file" if stat.S_ISREG(mode) else _kind_of(mode)
+                result.warnings.append(f"{rel}: {what} among the report folders; no recorded "
+                                       "run wrote it")
+            elif any(child.iterdir()):
+                raise _fail(result, f"{rel}: a report folder that the log does not name "
+                            "(not produced by a recorded run)")
+            elif _STOPPED_RUN_NAME.fullmatch(child.name) or any(
+                    p.name.startswith(f".{child.name}{PARTIAL}") for p in place.iterdir()):
                 result.notes.append(f"{rel}: an empty folder reserved by a run that was stopped "
                                     "before its log entry; safe to delete")
+            else:
+                result.warnings.append(f"{rel}: an empty folder among the report folders; no "
+                                       "recorded run reserved it")
+
+
+def _temporary_folder(plan: Path, child: Path, rel: str, found: dict[str, Path],
+                      result: VerifyResult) -> None:
+    """``.<name>.partial-*``: a run's leftover only when ``<name>``, the folder that run
+    reserved, is beside it, empty and not named by the log (a run killed before its log entry
+    leaves both); otherwise it is planted or left by hand, and a warning."""
+    name = child.name[1:child.name.index(PARTIAL)]
+    reserved = child.parent / name
+    logged = {Path(os.path.abspath(plan.parent / r)) for r in found}
+    if (reserved.is_dir() and not reserved.is_symlink() and not any(reserved.iterdir())
+            and Path(os.path.abspath(reserved)) not in logged):
+        result.notes.append(f"{rel}: a temporary folder left by a run that was stopped before "
+                            f"its log entry (its reserved folder {name} is empty beside it); "
+                            "not part of any report, safe to delete")
+        return
+    result.warnings.append(f"{rel}: named like a temporary report folder, but no stopped run "
+                           f"left it (no empty reserved folder {name} beside it, or the log "
+                           "names that report); not produced by a recorded run")
+
+
+def _check_report_contents(found: dict[str, Path], result: VerifyResult) -> None:
+    """Inside each named report: what its manifest cannot list (it lists plain files only):
+    an empty folder, a FIFO, socket or device; each a warning by name. (A link fails in
+    ``check_manifest``; an extra plain file fails there too.)"""
+    for rel, folder in sorted(found.items()):
+        for root, dirs, files in os.walk(folder):
+            dirs.sort()  # named in a stable order
+            here = Path(root)
+            for name in sorted(dirs + files):
+                path = here / name
+                mode = path.lstat().st_mode
+                inner = path.relative_to(folder).as_posix()
+                if stat.S_ISDIR(mode):
+                    if not any(path.iterdir()):
+                        result.warnings.append(f"report {rel}: {inner}: an empty folder inside "
+                                               "the report (not in its manifest)")
+                elif not stat.S_ISREG(mode) and not stat.S_ISLNK(mode):
+                    result.warnings.append(f"report {rel}: {inner}: {_kind_of(mode)} inside "
+                                           "the report (not in its manifest)")
+
+
+def _check_strict(result: VerifyResult) -> None:
+    """``--strict``: every warning is a failure."""
+    if result.warnings:
+        count = len(result.warnings)
+        raise _fail(result, f"--strict: {count} thing{'' if count == 1 else 's'} in the report "
+                    f"folders no recorded run wrote (first: {result.warnings[0]})")
 
 
 # --- per run: was it the locked analysis? ---
@@ -402,22 +500,29 @@ def run_verdicts(entries: list[dict[str, Any]]) -> list[RunVerdict]:
     return out
 
 
-def last_line(runs: list[RunVerdict]) -> str:
-    """The final line of verify: true of the files and of every run."""
+def last_line(runs: list[RunVerdict], warnings: int = 0) -> str:
+    """The final line of verify: true of the files, of every run and of the report folders."""
     off = [r for r in runs if not r.locked]
     if not runs:
-        return "verified: files intact; no run on record"
-    if not off:
-        return ("verified: files intact; the run was the locked analysis" if len(runs) == 1
+        line = "verified: files intact; no run on record"
+    elif not off:
+        line = ("verified: files intact; the run was the locked analysis" if len(runs) == 1
                 else f"verified: files intact; all {len(runs)} runs were the locked analysis")
-    verb = "was" if len(off) == 1 else "were"
-    noun = "run" if len(runs) == 1 else "runs"
-    listed = ", ".join(f"{r.name} ({'; '.join(r.labels)})" for r in off)
-    return f"files intact; {len(off)} of {len(runs)} {noun} {verb} not the locked analysis: {listed}"
+    else:
+        verb = "was" if len(off) == 1 else "were"
+        noun = "run" if len(runs) == 1 else "runs"
+        listed = ", ".join(f"{r.name} ({'; '.join(r.labels)})" for r in off)
+        line = (f"files intact; {len(off)} of {len(runs)} {noun} {verb} not the locked "
+                f"analysis: {listed}")
+    if warnings:
+        line += (f"; {warnings} warning{'' if warnings == 1 else 's'}: the report folders hold "
+                 "things no recorded run wrote (listed above; --strict fails on them)")
+    return line
 
 
 def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = None,
-               report: str | None = None, key: Path | None = None) -> VerifyResult:
+               report: str | None = None, key: Path | None = None,
+               strict: bool = False) -> VerifyResult:
     result = VerifyResult()
     if not audit.lock_path(plan).exists() and not audit.log_path(plan).exists() \
             and not audit.head_path(plan).exists():
@@ -429,6 +534,7 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
         _check_plan_file(plan, doc, entries, result)
     found = _check_reports(plan, entries, result)
     _check_leftovers(plan, found, result)
+    _check_report_contents(found, result)
     if expect is not None:
         first = next((e for e in entries if e["action"] == "lock"), None)
         if first is None:
@@ -441,7 +547,9 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
     if rerun is not None:
         _rerun(plan, entries, doc, found, rerun, report, result)
     result.runs = run_verdicts(entries)
-    result.summary = last_line(result.runs)
+    result.summary = last_line(result.runs, len(result.warnings))
+    if strict:
+        _check_strict(result)
     return result
 
 

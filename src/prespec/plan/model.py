@@ -209,8 +209,8 @@ class DataSpec(_Model):
     include: list[Condition] = Field(default=[], description="every condition must hold")
     planned_n: dict[str, Annotated[int, Field(gt=0)]] | None = None
     source: Annotated[str | None, BeforeValidator(_data_source)] = Field(
-        default=None, description="the data: a file path or glob relative to the plan's folder, "
-        "or an SQLAlchemy URL without a password")
+        default=None, description="the data: a file path or glob inside the plan's folder "
+        "(relative to it), or an SQLAlchemy URL without a password")
     table: str | None = Field(default=None, description="the table of a database source")
     password_from: Annotated[str | None, BeforeValidator(_env_name)] = Field(
         default=None, description="the environment variable that holds the database password")

@@ -26,6 +26,7 @@ from typing import TYPE_CHECKING, Any
 
 from prespec.report.canvas import FIGURES, GUIDE, INK, LINE, new_figure, safe_stem, shorten
 from prespec.report.markup import QUIET_STYLE, esc, fields, plural
+from prespec.report.tablenames import family_table
 from prespec.report.values import (
     fmt_estimate,
     fmt_interval,
@@ -62,7 +63,7 @@ def volcano_name(family_id: str) -> str:
 
 def table_name(family_id: str) -> str:
     """The relative path of a family's CSV table."""
-    return f"tables/family-{safe_stem(family_id, 'family')}.csv"
+    return family_table(family_id)
 
 
 def _neg_log10(p: float) -> float:

@@ -79,6 +79,16 @@ def _optional(results: Mapping[str, Any], key: str) -> str:
     return json.dumps(value, sort_keys=True)
 
 
+def _files_read(results: Mapping[str, Any]) -> str:
+    """The files a glob read, each with its SHA-256: ``a.csv (sha256:…); b.csv (…)``."""
+    shown = []
+    for i, raw in enumerate(items(results.get("data_files"), "data_files")):
+        entry = mapping(raw, f"data_files[{i}]")
+        shown.append(f"{text(entry.get('path'), f'data_files[{i}].path')} "
+                     f"({text(entry.get('sha256'), f'data_files[{i}].sha256')})")
+    return "; ".join(shown) or NULL
+
+
 def kind_label(results: Mapping[str, Any]) -> str:
     """``Analysis run`` or ``Blinded rehearsal`` (another kind is shown as written)."""
     kind = text(results.get("kind"), "kind", default="")
@@ -96,6 +106,7 @@ def header(results: Mapping[str, Any]) -> str:
         ("Plan version", _optional(results, "plan_version")),
         ("Data hash", _optional(results, "data")),
         ("Data file", _optional(results, "data_file")),
+        *([("Files read", _files_read(results))] if "data_files" in results else []),
         *([("Engine", _engine(results))] if "engine" in results else []),
         ("Time (UTC)", _optional(results, "created")),
         ("Actor", _optional(results, "actor")),

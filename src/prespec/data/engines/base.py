@@ -41,6 +41,19 @@ __all__ = [
 ENGINE_NAMES: tuple[str, ...] = ("auto", "pandas", "duckdb", "sql", "spark")
 
 
+def expand_glob(pattern: str) -> list[str]:
+    """The regular files ``pattern`` matches under Python's rules (``glob.glob`` with
+    ``recursive=True``): ``*``, ``?`` and ``[...]`` never match a name that begins with ``.``
+    (a hidden file or folder is matched only by a pattern part that itself begins with
+    ``.``), ``**`` matches any depth of folders; folders and other non-files are left out;
+    sorted. Engines that glob by their own rules (DuckDB reads hidden files) are given this
+    list instead of the pattern."""
+    import glob
+    import os
+
+    return sorted(p for p in glob.glob(pattern, recursive=True) if os.path.isfile(p))
+
+
 @dataclass(frozen=True)
 class DataSource:
     """Where the rows are: one file, a glob of files, or a database table.
@@ -55,10 +68,16 @@ class DataSource:
     shown: str
     table: str | None = None
     password_from: str | None = None
+    files: tuple[str, ...] | None = None  # a glob's matches, expanded once (see ``matches``)
 
     @property
     def path(self) -> Path:
         return Path(self.location)
+
+    def matches(self) -> list[str]:
+        """The files a glob reads: ``files`` when expanded already, else :func:`expand_glob`
+        of ``location``; every engine reads exactly these, never the pattern itself."""
+        return list(self.files) if self.files is not None else expand_glob(self.location)
 
     @property
     def is_parquet(self) -> bool:

@@ -114,9 +114,7 @@ class DuckDBEngine(AggregatingEngine):
             if path.stat().st_size == 0:
                 raise DataError(f"{self.source.shown}: the data file is empty")
         else:
-            import glob
-
-            files = sorted(glob.glob(self.source.location))
+            files = self.source.matches()
             if not files:
                 raise DataError(f"{self.source.shown}: no data file matches")
             for name in files:
@@ -141,16 +139,26 @@ class DuckDBEngine(AggregatingEngine):
                 "strict_mode = true, encoding = 'utf-8', delim = ',', quote = '\"', "
                 "escape = '\"')")
 
+    def _files_param(self) -> str | list[str]:
+        """What ``$source`` stands for: the file, or the list of a glob's files by Python's
+        rules (DuckDB's own glob would read hidden files); escaped (``glob.escape``), since
+        DuckDB globs every name it is given and ``a[1].csv`` would read ``a1.csv``."""
+        import glob
+
+        if self.source.kind == "glob":
+            return [glob.escape(name) for name in self.source.matches()]
+        return glob.escape(self.source.location)
+
     def _params(self, query: Query) -> dict[str, Any]:
         if "$source" not in query.text:
             return dict(query.params)
-        return {**query.params, "source": self.source.location}
+        return {**query.params, "source": self._files_param()}
 
     def column_kinds(self) -> dict[str, str]:
         if self._kinds is None:
             rel = self.relation()
-            described = self._run(f"DESCRIBE SELECT * FROM {rel}", {"source":
-                                                                   self.source.location})
+            described = self._run(f"DESCRIBE SELECT * FROM {rel}",
+                                  {"source": self._files_param()})
             self._kinds = {str(name).strip(): _kind(str(t)) for name, t in
                            described[["column_name", "column_type"]].itertuples(index=False)}
         return self._kinds

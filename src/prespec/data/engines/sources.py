@@ -1,4 +1,10 @@
-"""Where a run's rows come from: DATA on the command line, or ``data.source`` in the plan."""
+"""Where a run's rows come from: DATA on the command line, or ``data.source`` in the plan.
+
+A plan may come from someone else, so ``data.source`` must name data inside the plan's own
+folder: a file or glob that resolves (after symbolic links, each matched file too) outside
+it is refused at check, lock, amend, run and rehearsal, one line naming the plan's line.
+DATA given on the command line is the user's own choice and may be anywhere.
+"""
 
 from __future__ import annotations
 
@@ -7,9 +13,10 @@ import os
 from pathlib import Path
 from typing import Any
 
+from ...canonical import file_sha256
 from ...departures import Note
-from ...errors import BadInput
-from .base import DataSource
+from ...errors import BadInput, DataError, PlanError
+from .base import DataSource, expand_glob
 
 NOTE_DATA_OVER_SOURCE = "data-argument-over-source"
 
@@ -21,8 +28,55 @@ def _is_glob(text: str) -> bool:
 def _file_or_glob(location: Path, shown: str) -> DataSource:
     text = str(location)
     if _is_glob(text) and not location.is_file():
-        return DataSource("glob", text, shown)
+        return DataSource("glob", text, shown, files=tuple(expand_glob(text)))
     return DataSource("file", text, shown)
+
+
+def _source_error(plan_path: Path, message: str) -> PlanError:
+    """A one-line error at the plan file's ``data.source`` line."""
+    from ...plan.yamlread import parse_plan_yaml, read_plan_bytes
+
+    line = None
+    try:
+        doc = parse_plan_yaml(read_plan_bytes(plan_path, str(plan_path)), str(plan_path))
+        line = doc.lines.get(("data", "source"))
+    except BadInput:  # the plan in force came from the lock; the file no longer loads
+        pass
+    return PlanError(str(plan_path), line, "data.source", message)
+
+
+def _outside(folder: Path, target: Path) -> bool:
+    return not target.resolve().is_relative_to(folder)
+
+
+def check_declared_source(plan_path: Path, plan: Any, files: list[str] | None = None) -> None:
+    """``data.source`` (a file or a glob) must resolve inside the plan's folder, after
+    symbolic links; so must each file of ``files`` (a glob's matches, when read). A database
+    URL is not a path and is not checked here."""
+    declared = getattr(plan.data, "source", None)
+    if declared is None or "://" in declared:
+        return
+    folder = plan_path.parent.resolve()
+    if Path(declared).is_absolute():
+        raise _source_error(plan_path, f"{declared!r} is an absolute path; a plan's data must "
+                            "be inside the plan's folder (name data elsewhere on the command "
+                            "line: prespec run PLAN DATA)")
+    # the part before the first wildcard, resolved (a glob's matches are checked when read)
+    parts = Path(declared).parts
+    first = next((i for i, p in enumerate(parts) if _is_glob(p)), len(parts))
+    if ".." in parts[first:]:
+        raise _source_error(plan_path, f"{declared!r} has '..' after a wildcard; name the "
+                            "data by a path inside the plan's folder")
+    if _outside(folder, plan_path.parent.joinpath(*parts[:first])):
+        raise _source_error(plan_path, f"{declared!r} resolves outside the plan's folder; a "
+                            "plan's data must be inside its folder (name data elsewhere on the "
+                            "command line: prespec run PLAN DATA)")
+    for name in files or []:
+        if _outside(folder, Path(name)):
+            raise _source_error(plan_path, f"{declared!r} matches "
+                                f"{os.path.relpath(name, plan_path.parent)}, which resolves "
+                                "outside the plan's folder (a symbolic link?); a plan's data "
+                                "must be inside its folder")
 
 
 def resolve_source(plan_path: Path, plan: Any, data: str | Path | None
@@ -30,7 +84,8 @@ def resolve_source(plan_path: Path, plan: Any, data: str | Path | None
     """The data source of a run or rehearsal, and a note when DATA overrides ``data.source``.
 
     DATA (a file or a glob, relative to the working folder) wins over ``data.source`` (a
-    file or glob relative to the plan's folder, or a database URL with ``data.table``).
+    file or glob relative to the plan's folder, and inside it, or a database URL with
+    ``data.table``). A glob is expanded once here, by Python's rules (:func:`expand_glob`).
     """
     spec = plan.data
     declared = getattr(spec, "source", None)
@@ -46,15 +101,35 @@ def resolve_source(plan_path: Path, plan: Any, data: str | Path | None
     if "://" in declared:
         return DataSource("url", declared, f"{declared} (table {spec.table})", table=spec.table,
                           password_from=getattr(spec, "password_from", None)), notes
+    check_declared_source(plan_path, plan)
     location = plan_path.parent / declared
-    return _file_or_glob(location, str(location)), notes
+    source = _file_or_glob(location, str(location))
+    check_declared_source(plan_path, plan, [source.location] if source.kind == "file"
+                          else list(source.files or ()))
+    return source, notes
+
+
+def describe_source(plan_path: Path, plan: Any) -> str:
+    """What ``prespec check`` says about the data a run would read without DATA."""
+    declared = getattr(plan.data, "source", None)
+    if declared is None:
+        return "none named in the plan (give it to run: prespec run PLAN DATA)"
+    if "://" in declared:
+        return f"{declared} (a database, table {plan.data.table})"
+    source, _ = resolve_source(plan_path, plan, None)
+    if source.kind == "glob":
+        count = len(source.files or ())
+        found = f"{count} file{'' if count == 1 else 's'} match now"
+        return f"{source.shown} (a glob; {found})"
+    found = "found" if source.path.is_file() else "not there yet"
+    return f"{source.shown} (a file; {found})"
 
 
 def check_source(source: DataSource) -> None:
     """A file must exist; a glob must match; a database source is checked when read."""
     if source.kind == "file" and not source.path.is_file():
         raise BadInput(f"{source.shown}: no such data file")
-    if source.kind == "glob" and not glob.glob(source.location):
+    if source.kind == "glob" and not source.matches():
         raise BadInput(f"{source.shown}: no data file matches")
 
 
@@ -63,3 +138,39 @@ def data_file_field(plan_path: Path, source: DataSource) -> str:
     if source.kind == "url":
         return source.shown
     return os.path.relpath(Path(source.location).resolve(), plan_path.parent.resolve())
+
+
+def _stamps(names: list[str]) -> list[tuple[str, int, int]]:
+    stamps = []
+    for name in names:
+        try:
+            st = os.stat(name)
+            stamps.append((name, st.st_size, st.st_mtime_ns))
+        except OSError:
+            stamps.append((name, -1, -1))
+    return stamps
+
+
+def file_stamps(source: DataSource) -> list[tuple[str, int, int]] | None:
+    """(file, size, modification time) of each file of a glob, taken before it is read."""
+    return _stamps(source.matches()) if source.kind == "glob" else None
+
+
+def data_files_field(plan_path: Path, source: DataSource,
+                     before: list[tuple[str, int, int]] | None) -> list[dict[str, str]] | None:
+    """``data_files`` of results.json for a glob: every file read, in the order read, as a
+    path relative to the plan's folder and its ``sha256:``. The files are hashed after the
+    reading and must be as they were before it (``before``: :func:`file_stamps`); a file
+    changed meanwhile is an error, so the hashes are those of what was read. None for one
+    file (``data`` is its SHA-256) and for a database."""
+    if before is None:
+        return None
+    here = plan_path.parent.resolve()
+    out = []
+    for name, _, _ in before:
+        digest = file_sha256(Path(name))
+        out.append({"path": os.path.relpath(Path(name).resolve(), here), "sha256": digest})
+    if _stamps(expand_glob(source.location)) != before:
+        raise DataError(f"{source.shown}: a data file changed, appeared or went while it was "
+                        "read; run again when the data are still")
+    return out

@@ -14,7 +14,6 @@ plan is pasted into the text. It needs Java (PySpark 3.5 runs on Java 8, 11 or 1
 
 from __future__ import annotations
 
-import glob as globbing
 import itertools
 import os
 import shutil
@@ -107,6 +106,12 @@ def spark_session() -> Any:
         return _session
 
 
+def hadoop_escape(path: str) -> str:
+    """``path`` with Hadoop's glob characters escaped by a backslash, so that Spark reads the
+    file of that name: ``wave[1].csv`` would otherwise read ``wave1.csv``."""
+    return "".join("\\" + c if c in "\\*?[]{}" else c for c in path)
+
+
 def spark_message(exc: BaseException) -> str:
     """The first meaningful line of a Spark or Py4J error (not the Java stack)."""
     text = str(exc).strip()
@@ -197,7 +202,7 @@ class SparkEngine(AggregatingEngine):
                 raise DataError(f"{shown}: the data file is empty")
             files = [str(path)]
         else:
-            files = sorted(globbing.glob(self.source.location))
+            files = self.source.matches()  # Python's rules: no hidden file
             if not files:
                 raise DataError(f"{shown}: no data file matches")
         parquet = self.source.is_parquet
@@ -211,6 +216,7 @@ class SparkEngine(AggregatingEngine):
 
     def _read(self, name: str) -> Any:
         reader = self.spark.read
+        name = hadoop_escape(name)  # Spark globs every path it is given
         if self.source.is_parquet:
             frame = reader.parquet(name)
         else:

@@ -1,0 +1,73 @@
+"""The names of the CSV files in a report's ``tables/``: unique within a run and reversible.
+
+One rule, used for every table a run writes:
+
+- ``tables/groups-<outcome>.csv``: the groups of one outcome;
+- ``tables/<hypothesis id>.csv``: the table of one hypothesis (follow-ups included);
+- ``tables/family-<family id>.csv``: the members of one family.
+
+A label is written as it is when made of ASCII letters, digits, ``_``, ``.`` and ``-``; every
+other byte of its UTF-8 form is percent-encoded (``%2B``, ``%2F``, ``%20``, ``%25`` for ``%``
+itself), and so is a leading ``.`` (no hidden file, never ``.`` or ``..``). So ``H+1``, ``H/1``
+and ``H_1`` give ``H%2B1.csv``, ``H%2F1.csv`` and ``H_1.csv``, and
+``urllib.parse.unquote`` gives the label back. A hypothesis id that would begin like the other
+two kinds (``groups-…``, ``family-…``) has that ``-`` encoded (``groups%2Dx.csv``), so the three
+kinds never share a name. A stem longer than ``MAX_STEM`` bytes (file systems stop at 255) is
+cut and ends in ``~`` and 16 hex digits of the label's SHA-256: unique still, but no longer
+reversible; no plan label of ordinary length comes near it.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import string
+from urllib.parse import unquote
+
+TABLES = "tables"
+MAX_STEM = 200
+_SAFE = frozenset((string.ascii_letters + string.digits + "_.-").encode("ascii"))
+_KIND_PREFIXES = ("groups-", "family-")
+
+
+def encode_label(label: str) -> str:
+    """``label`` with every byte outside the safe set (and a leading ``.``) percent-encoded."""
+    out = []
+    for i, byte in enumerate(label.encode("utf-8")):
+        if byte in _SAFE and not (i == 0 and byte == ord(".")):
+            out.append(chr(byte))
+        else:
+            out.append(f"%{byte:02X}")
+    return "".join(out)
+
+
+def decode_stem(stem: str) -> str:
+    """The label a (not cut) stem was made from."""
+    return unquote(stem, encoding="utf-8", errors="strict")
+
+
+def _bounded(stem: str, label: str) -> str:
+    if len(stem) <= MAX_STEM:
+        return stem
+    digest = hashlib.sha256(label.encode("utf-8")).hexdigest()[:16]
+    cut = stem[:MAX_STEM - 17]
+    cut = cut[:cut.rfind("%")] if "%" in cut[-2:] else cut  # never half an escape
+    return f"{cut}~{digest}"
+
+
+def groups_table(outcome: str) -> str:
+    """``tables/groups-<outcome>.csv``."""
+    return f"{TABLES}/{_bounded('groups-' + encode_label(outcome), outcome)}.csv"
+
+
+def hypothesis_table(hypothesis_id: str) -> str:
+    """``tables/<hypothesis id>.csv``; never the name of a groups or family table."""
+    stem = encode_label(hypothesis_id)
+    for prefix in _KIND_PREFIXES:
+        if stem.startswith(prefix):
+            stem = f"{prefix[:-1]}%2D{stem[len(prefix):]}"
+    return f"{TABLES}/{_bounded(stem, hypothesis_id)}.csv"
+
+
+def family_table(family_id: str) -> str:
+    """``tables/family-<family id>.csv``."""
+    return f"{TABLES}/{_bounded('family-' + encode_label(family_id), family_id)}.csv"
