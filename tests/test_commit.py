@@ -369,3 +369,57 @@ def test_a_run_that_outlives_an_amend_is_not_recorded(tmp_path: Path,
     changed = contents(study)
     assert {k for k in changed if k not in before} == set()  # no report folder left
     api.verify(plan)
+
+
+@pytest.mark.parametrize("umask", [0o022, 0o027])
+def test_the_lock_and_the_head_follow_the_umask(tmp_path: Path, umask: int) -> None:
+    """A monitor given read access (group or others) can read the lock and the head: they
+    are written like every other file, mode 0666 less the umask, not 0600."""
+    old = os.umask(umask)
+    try:
+        study = make_base(tmp_path / "s", "amend")  # a lock, then an amend rewrites it
+        api.amend(study / "trial.yaml", reason="stricter", actor="ana")
+    finally:
+        os.umask(old)
+    plan = study / "trial.yaml"
+    for path in (audit.lock_path(plan), audit.head_path(plan), audit.log_path(plan)):
+        assert stat.S_IMODE(path.stat().st_mode) == 0o666 & ~umask, path.name
+
+
+def test_a_file_verify_cannot_read_is_exit_2_with_its_path(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    study = make_base(tmp_path / "s", "run")
+    plan = study / "trial.yaml"
+    for unreadable in (audit.head_path(plan), audit.lock_path(plan), audit.log_path(plan)):
+        real = pathlib.Path.read_bytes
+
+        def denied(self: Path, _target: Path = unreadable,
+                   _real: Callable[[Path], bytes] = real) -> bytes:
+            if self == _target:
+                raise PermissionError(errno.EACCES, os.strerror(errno.EACCES), str(self))
+            return _real(self)
+
+        monkeypatch.setattr(pathlib.Path, "read_bytes", denied)
+        status = cli.main(["verify", str(plan)])
+        err = capsys.readouterr().err
+        monkeypatch.setattr(pathlib.Path, "read_bytes", real)
+        assert status == 2
+        assert err == f"prespec: {unreadable}: permission denied\n"
+
+
+def test_ctrl_c_in_the_command_is_one_line(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                           capsys: pytest.CaptureFixture[str]) -> None:
+    study = make_base(tmp_path / "s", "run")
+    before = contents(study)
+    import prespec.publish
+
+    def interrupted(*args: Any, **kwargs: Any) -> Any:
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(prespec.publish, "build_report", interrupted)
+    status = cli.main(["run", str(study / "trial.yaml"), str(study / "data.csv")])
+    assert status == 130
+    assert capsys.readouterr().err == ("prespec: interrupted; prespec verify shows the state "
+                                       "of the study\n")
+    assert contents(study) == before

@@ -38,7 +38,7 @@ def hold(folder: Path, *, exclusive: bool) -> Iterator[None]:
     A folder that cannot be opened (missing, no permission) is not locked: the step that
     follows reports the folder itself.
     """
-    key = os.path.abspath(folder)
+    key = os.path.realpath(folder)  # one key per folder, however it is named
     table = _table()
     if key in table:
         held_exclusive, depth = table[key]
