@@ -26,34 +26,18 @@ from typing import Any
 
 import pytest
 
-import prespec.report
 from prespec import api, audit, cli
 from prespec.demo import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, IntegrityStop
+from tests.test_crash import (  # noqa: F401 - quick_report: the fixture, for every test here
+    _write_bytes_via,
+    _write_text_via,
+    quick_report,
+)
 
 FD_STEPS = ("write", "fsync", "ftruncate")
 PATH_STEPS = ("replace", "rename", "mkdir")
 WRITING = os.O_WRONLY | os.O_RDWR | os.O_CREAT
-
-
-def fake_figures(results: dict[str, Any], folder: Path) -> list[Path]:
-    (folder / "figures").mkdir()
-    path = folder / "figures" / "proportions.png"
-    path.write_bytes(b"\x89PNG fake figure for " + results["plan"].encode())
-    return [path]
-
-
-def fake_render(folder: Path) -> None:
-    for name in ("report.ipynb", "report.html"):
-        tmp = folder / f".{name}.partial"
-        tmp.write_text(f"{name} of {(folder / 'results.json').stat().st_size} bytes")
-        os.replace(tmp, folder / name)
-
-
-@pytest.fixture(autouse=True)
-def quick_report(monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(prespec.report, "render_notebook", fake_render)
-    monkeypatch.setattr(prespec.report, "write_figures", fake_figures)
 
 
 class Fault:
@@ -137,17 +121,8 @@ def failing(monkeypatch: pytest.MonkeyPatch, fault: Fault) -> Iterator[Fault]:
 
         mp.setattr(builtins, "open", opening)
 
-        def write_text(self: Path, data: str, encoding: str | None = None,
-                       errors: str | None = None, newline: str | None = None) -> int:
-            with opening(self, "w", encoding=encoding, errors=errors, newline=newline) as fh:
-                return int(fh.write(data))
-
-        def write_bytes(self: Path, data: bytes) -> int:
-            with opening(self, "wb") as fh:
-                return int(fh.write(data))
-
-        mp.setattr(pathlib.Path, "write_text", write_text)
-        mp.setattr(pathlib.Path, "write_bytes", write_bytes)
+        mp.setattr(pathlib.Path, "write_text", _write_text_via(opening))
+        mp.setattr(pathlib.Path, "write_bytes", _write_bytes_via(opening))
         yield fault
 
 
@@ -286,6 +261,19 @@ def test_every_step_fails_cleanly(tmp_path: Path, monkeypatch: pytest.MonkeyPatc
     print("\n".join(counted.names[i - 1] for i in steps))
 
 
+def head_full(monkeypatch: pytest.MonkeyPatch, head: Path) -> Callable[[Path, bytes], None]:
+    """Make the disk full for the head file only; returns the real writer."""
+    real: Callable[[Path, bytes], None] = audit.log.replace_atomically
+
+    def full(path: Path, data: bytes) -> None:
+        if path == head:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
+        real(path, data)
+
+    monkeypatch.setattr(audit.log, "replace_atomically", full)
+    return real
+
+
 def test_a_full_disk_at_the_head_keeps_the_report_and_is_repaired(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
 ) -> None:
@@ -294,14 +282,7 @@ def test_a_full_disk_at_the_head_keeps_the_report_and_is_repaired(
     study = make_base(tmp_path / "s", "run")
     plan = study / "trial.yaml"
     head = audit.head_path(plan)
-    real = audit.log.replace_atomically
-
-    def full(path: Path, data: bytes) -> None:
-        if path == head:
-            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
-        real(path, data)
-
-    monkeypatch.setattr(audit.log, "replace_atomically", full)
+    real = head_full(monkeypatch, head)
     status = cli.main(["run", str(plan), str(study / "data.csv"), "--actor", "ana"])
     err = capsys.readouterr().err
     assert status == 2
@@ -323,14 +304,7 @@ def test_a_full_disk_at_the_head_of_an_amend_keeps_the_version(
     study = make_base(tmp_path / "s", "amend")
     plan = study / "trial.yaml"
     head = audit.head_path(plan)
-    real = audit.log.replace_atomically
-
-    def full(path: Path, data: bytes) -> None:
-        if path == head:
-            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
-        real(path, data)
-
-    monkeypatch.setattr(audit.log, "replace_atomically", full)
+    real = head_full(monkeypatch, head)
     with pytest.raises(BadInput, match=r"^no space left on .*version 2 was locked"):
         api.amend(plan, reason="stricter", actor="ana")
     monkeypatch.setattr(audit.log, "replace_atomically", real)

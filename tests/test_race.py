@@ -2,7 +2,8 @@
 
 One process amends the plan again and again while three others start runs in a loop (on a
 data path that does not exist: each run reads the lock, the log and the head, repairs what a
-stop left, then fails on the data) and one verifies in a loop. Every amend must succeed and
+stop left, then fails on the data) and one verifies in a loop (through the command: one of
+each, as every command starts a Python). Every amend must succeed and
 be recorded once; the lock and the log must end with one version per amend entry; and no
 reader may see a half state (the only failures allowed are the true ones: no data, and a
 plan file edited but not yet amended). Run twice through the Python interface and once
@@ -148,8 +149,8 @@ def test_amend_racing_with_runs_through_the_command(tmp_path: Path) -> None:
     run = [*PRESPEC, "run", "trial.yaml", "missing.csv", "--actor", "runner"]
     verify = [*PRESPEC, "verify", "trial.yaml"]
     readers = [subprocess.Popen([sys.executable, "-c", loop, str(stop), str(folder / f"r{i}"),
-                                 *(verify if i == 2 else run)], cwd=folder)
-               for i in range(3)]
+                                 *(verify if i == 1 else run)], cwd=folder)
+               for i in range(2)]
     try:
         for step in range(1, amends + 1):
             write_plan(plan, step)
@@ -163,12 +164,12 @@ def test_amend_racing_with_runs_through_the_command(tmp_path: Path) -> None:
         stop.write_text("")
         for p in readers:
             p.wait(timeout=300)
-    for i in range(3):
+    for i in range(2):
         seen = json.loads((folder / f"r{i}").read_text())
         assert seen, "the reader never ran"
-        for status, err in seen:
-            assert status in (2, 3) and "Traceback" not in err, err
-            assert not unexpected(err), err
+        for status, err in seen:  # verify passes between two amends; a run never does
+            assert status in ((0, 3) if i == 1 else (2, 3)) and "Traceback" not in err, err
+            assert status == 0 or not unexpected(err), err
     check_end_state(plan, amends)
 
 

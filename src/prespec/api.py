@@ -150,8 +150,8 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
                 audit.files.fsync_dir(lock_file.parent)
             except OSError:
                 pass
-        raise_recorded(exc, plan_path.parent, f"version {record['version']} was locked and recorded "
-                       f"in {log.name}; the next prespec command completes what is left")
+        raise_recorded(exc, plan_path.parent, f"version {record['version']} was locked and "
+                       f"recorded in {log.name}; the next prespec command completes what is left")
     pending.replace(lock_file)
     audit.files.fsync_dir(lock_file.parent)
 

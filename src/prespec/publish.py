@@ -207,9 +207,9 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
                     move_into_place(tmp, folder, manifest)
                 except OSError:
                     pass
-            raise_recorded(exc, plan_path.parent, f"the {action} was recorded in {log.name} and its "
-                           f"report is complete ({report_rel}); the next prespec command "
-                           "completes what is left")
+            raise_recorded(exc, plan_path.parent, f"the {action} was recorded in {log.name} "
+                           f"and its report is complete ({report_rel}); the next prespec "
+                           "command completes what is left")
             raise  # pragma: no cover - raise_recorded always raises
         move_into_place(tmp, folder, manifest)
     return RunOutcome(folder, results, entry)
