@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import copy
 import dataclasses
-import fcntl
 import functools
 import getpass
 import os
@@ -21,7 +20,7 @@ from . import audit
 from .audit.lockfile import complete_pending, version_digest, write_pending
 from .departures import Departure, Note
 from .environment import differences, environment
-from .errors import BadInput, IntegrityStop
+from .errors import BadInput, IntegrityStop, plain_os_error, raise_recorded
 from .execute import check_out_folder, compute_results, default_folder
 from .families import declared_members, ordinary_plan
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
@@ -128,8 +127,9 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
                    changes: list[str] | None = None) -> None:
     """Write the next lock document beside the lock, append the log entry (the moment the
     version counts), then rename the document over the lock. A failure before the entry
-    leaves the lock as it was; a stop after it is completed by the next command
-    (``complete_pending``), and verify checks the waiting document meanwhile."""
+    leaves the lock as it was and nothing beside it; after it, nothing is removed: a failed
+    head write or rename is completed by the next command (``_finish_stopped_writes``), and
+    verify checks the waiting document meanwhile. The caller holds the folder's lock."""
     plan_path = loaded.path
     lock_file = audit.lock_path(plan_path)
     new_doc = {"prespec": 1, "versions": [*(doc["versions"] if doc else []), record]}
@@ -138,6 +138,7 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
     audit.check_chain(entries, log.name)
     audit.check_head(entries, audit.head_path(plan_path))
     pending = write_pending(lock_file, new_doc)
+    size = audit.log.log_size(log)
     try:
         audit.append(
             log,
@@ -153,23 +154,35 @@ def _write_version(loaded: LoadedPlan, doc: dict[str, Any] | None, record: dict[
             deviations=deviations,
             sign=sign,
         )
-    except BaseException:
-        pending.unlink(missing_ok=True)
-        raise
+    except BaseException as exc:
+        if audit.log.log_size(log) == size:  # no entry: the version never counted
+            pending.unlink(missing_ok=True)
+            raise
+        if isinstance(exc, Exception):  # the entry is in: finish what is left, if we can
+            try:
+                pending.replace(lock_file)
+                audit.files.fsync_dir(lock_file.parent)
+            except OSError:
+                pass
+        raise_recorded(exc, plan_path.parent, f"version {record['version']} was locked and "
+                       f"recorded in {log.name}; the next prespec command completes what is left")
     pending.replace(lock_file)
     audit.files.fsync_dir(lock_file.parent)
 
 
 def _finish_stopped_writes(plan: Path) -> list[dict[str, Any]]:
-    """Check the log, then complete a lock write or a report rename that a stop interrupted."""
-    log = audit.log_path(plan)
-    entries = audit.read_log(log)
-    audit.check_chain(entries, log.name)
-    if audit.check_head(entries, audit.head_path(plan)) is not None:
-        audit.log.repair_head(log, audit.head_path(plan))
-    complete_pending(audit.lock_path(plan), entries)
-    complete_interrupted(plan, entries)
-    return entries
+    """Check the log, then complete a head write, a lock write or a report rename that a stop
+    interrupted; the log's entries. Holds the folder's lock exclusively: the caller keeps it
+    while it reads the lock and the log to decide what to do."""
+    with audit.guard.hold(plan.parent, exclusive=True):
+        log = audit.log_path(plan)
+        entries = audit.read_log(log)
+        audit.check_chain(entries, log.name)
+        if audit.check_head(entries, audit.head_path(plan)) is not None:
+            audit.log.repair_head(log, audit.head_path(plan))
+        complete_pending(audit.lock_path(plan), entries)
+        complete_interrupted(plan, entries)
+        return entries
 
 
 def _signer(sign: str | Path | None) -> audit.log.Signer | None:
@@ -180,27 +193,38 @@ def _signer(sign: str | Path | None) -> audit.log.Signer | None:
     return signer(sign)
 
 
-def _serialised(fn: Callable[..., LockResult]) -> Callable[..., LockResult]:
-    """Hold an exclusive lock on the plan's folder while a lock or amend reads the lock,
-    numbers the next version and writes it, so that two at once cannot claim one number."""
+def _plain_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """A full disk (``no space left on PATH``) or a file that may not be read or written
+    (``PATH: permission denied``) is a one-line error, exit status 2, never a traceback."""
 
     @functools.wraps(fn)
-    def wrapper(plan: str | Path, **kwargs: Any) -> LockResult:
-        folder = Path(plan).parent
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
         try:
-            fd = os.open(folder, os.O_RDONLY)
-        except OSError:  # no such folder: load_plan reports it
-            return fn(plan, **kwargs)
-        try:
-            fcntl.flock(fd, fcntl.LOCK_EX)
-            return fn(plan, **kwargs)
-        finally:
-            fcntl.flock(fd, fcntl.LOCK_UN)
-            os.close(fd)
+            return fn(*args, **kwargs)
+        except OSError as exc:
+            plan = args[0] if args else kwargs.get("plan", ".")
+            plain = plain_os_error(exc, Path(plan).parent)
+            if plain is None:
+                raise
+            raise plain from None
 
     return wrapper
 
 
+def _serialised(fn: Callable[..., LockResult]) -> Callable[..., LockResult]:
+    """Hold the plan folder's lock exclusively while a lock or amend reads the lock,
+    numbers the next version and writes it, so that two at once cannot claim one number and
+    no run repairs or reads the files half way."""
+
+    @functools.wraps(fn)
+    def wrapper(plan: str | Path, **kwargs: Any) -> LockResult:
+        with audit.guard.hold(Path(plan).parent, exclusive=True):
+            return fn(plan, **kwargs)
+
+    return wrapper
+
+
+@_plain_errors
 @_serialised
 def lock(plan: str | Path, *, actor: str | None = None,
          sign: str | Path | None = None) -> LockResult:
@@ -230,6 +254,7 @@ def lock(plan: str | Path, *, actor: str | None = None,
     return LockResult(loaded.fingerprint, 1, True)
 
 
+@_plain_errors
 @_serialised
 def amend(plan: str | Path, *, reason: str, actor: str | None = None,
           sign: str | Path | None = None,
@@ -423,6 +448,7 @@ def _environment_departures(record: dict[str, Any], env: dict[str, str]) -> list
         "; ".join(f"{n} {b}" for n, _, b in diffs))]
 
 
+@_plain_errors
 def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | None = None,
         actor: str | None = None, accept_deviation: str | None = None,
         overrides: Mapping[str, Any] | None = None, look: int | None = None,
@@ -445,8 +471,9 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     if accept_deviation is not None and not accept_deviation.strip():
         raise BadInput("--accept-deviation needs a reason")
     loaded = load_plan(Path(plan))
-    entries = _finish_stopped_writes(loaded.path)
-    model, fp, version, deviations, notes, record = _plan_in_force(loaded, accept_deviation)
+    with audit.guard.hold(loaded.path.parent, exclusive=True):  # the files as one state
+        entries = _finish_stopped_writes(loaded.path)
+        model, fp, version, deviations, notes, record = _plan_in_force(loaded, accept_deviation)
     source, source_notes = resolve_source(loaded.path, model, data)
     check_source(source)
     notes.extend(source_notes)
@@ -481,8 +508,11 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     )
     mark_overrides(results, changes)
     action = "look" if look is not None else "run"
+    in_force = record["fingerprint"] if record is not None else None
     outcome = publish(loaded.path, out_path, results, numbered=out is None, action=action,
-                      details=look_details(results))
+                      details=look_details(results),
+                      before_entry=lambda: _still_as_read(loaded.path, in_force, entries,
+                                                          looks is not None))
     return dataclasses.replace(outcome, procedures=procedures(model))
 
 
@@ -499,6 +529,7 @@ def procedures(model: Any) -> dict[str, str]:
     return out
 
 
+@_plain_errors
 def rehearse(plan: str | Path, data: str | Path | None = None, *,
              out: str | Path | None = None, actor: str | None = None,
              engine: str = "auto") -> RunOutcome:
@@ -516,8 +547,9 @@ def rehearse(plan: str | Path, data: str | Path | None = None, *,
     loaded = load_plan(Path(plan))
     source, source_notes = resolve_source(loaded.path, loaded.model, data)
     check_source(source)
-    _finish_stopped_writes(loaded.path)
-    doc = audit.read_lock(audit.lock_path(loaded.path))
+    with audit.guard.hold(loaded.path.parent, exclusive=True):  # the files as one state
+        entries = _finish_stopped_writes(loaded.path)
+        doc = audit.read_lock(audit.lock_path(loaded.path))
     deviations: list[Departure] = []
     notes: list[Note] = []
     version = None
@@ -542,9 +574,31 @@ def rehearse(plan: str | Path, data: str | Path | None = None, *,
         version=version, data_path=None, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes, source=source, engine=engine,
     )
-    return publish(loaded.path, out_path, results, numbered=out is None, action="rehearse")
+    in_force = audit.latest(doc)["fingerprint"] if doc is not None else None
+    return publish(loaded.path, out_path, results, numbered=out is None, action="rehearse",
+                   before_entry=lambda: _still_as_read(loaded.path, in_force, entries, False))
 
 
+def _still_as_read(plan: Path, in_force: str | None, entries: list[dict[str, Any]],
+                   runs_matter: bool) -> None:
+    """Called under the folder's lock just before a run's log entry: the lock must still hold
+    the version the run started from (an amend while it computed would make the report claim
+    a version no longer in force), and for a plan with looks, no other run or look may have
+    been recorded meanwhile (the look numbers and boundaries were taken from the log)."""
+    now = _finish_stopped_writes(plan)
+    doc = audit.read_lock(audit.lock_path(plan))
+    latest = audit.latest(doc) if doc is not None else None
+    if (latest["fingerprint"] if latest else None) != in_force:
+        raise IntegrityStop(
+            f"{plan}: the lock changed while this ran (now version "
+            f"{latest['version'] if latest else None}); nothing was recorded; run it again")
+    if runs_matter and [e for e in now if e.get("action") in ("run", "look")] != \
+            [e for e in entries if e.get("action") in ("run", "look")]:
+        raise IntegrityStop(f"{plan}: another run or look of this plan was recorded while this "
+                            "one ran; nothing was recorded; run it again")
+
+
+@_plain_errors
 def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = None,
            actor: str | None = None,
            progress: Callable[[str, int, int], None] | None = None) -> dict[str, Any]:
@@ -577,7 +631,6 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
         doc["notes"].insert(0, designed_n_line(designed_n))
         if doc["simulation"] is not None:
             doc["simulation"]["sizes_from"] = "the designed sizes; the plan has no data.planned_n"
-    _finish_stopped_writes(loaded.path)
     sim = doc["simulation"]
     details = {
         "plan_file_sha256": loaded.file_sha256,
@@ -591,9 +644,11 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
     }
     if designed_n is not None:
         details["planned_n_from_design"] = designed_n
-    audit.append(audit.log_path(loaded.path), audit.head_path(loaded.path),
-                 actor=resolve_actor(actor), action="design", plan=loaded.fingerprint,
-                 data=None, details=details)
+    with audit.guard.hold(loaded.path.parent, exclusive=True):
+        _finish_stopped_writes(loaded.path)
+        audit.append(audit.log_path(loaded.path), audit.head_path(loaded.path),
+                     actor=resolve_actor(actor), action="design", plan=loaded.fingerprint,
+                     data=None, details=details)
     return doc
 
 
@@ -632,6 +687,7 @@ class VerifyResult:
     warnings: list[str] = field(default_factory=list)
 
 
+@_plain_errors
 def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,
            report: str | None = None, key: str | Path | None = None,
            strict: bool = False) -> VerifyResult:
@@ -644,16 +700,20 @@ def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | N
     """
     from .verify import verify_all
 
-    return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
-                      report=report, key=Path(key) if key else None, strict=strict)
+    with audit.guard.hold(Path(plan).parent, exclusive=False):  # no writer half way
+        return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
+                          report=report, key=Path(key) if key else None,
+                          strict=strict)
 
 
+@_plain_errors
 def history(plan: str | Path, *, from_version: int | None = None,
             to_version: int | None = None) -> Any:
     """The locked versions of a plan and the changes in meaning between two of them."""
     from .history import history as _history
 
-    return _history(plan, from_version=from_version, to_version=to_version)
+    with audit.guard.hold(Path(plan).parent, exclusive=False):
+        return _history(plan, from_version=from_version, to_version=to_version)
 
 
 def new_key(name: str | Path) -> Any:

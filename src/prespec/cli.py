@@ -349,6 +349,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         devnull = os.open(os.devnull, os.O_WRONLY)  # as the Python docs advise (signal module)
         os.dup2(devnull, sys.stdout.fileno())
         return 0
+    except KeyboardInterrupt:  # Ctrl-C: what was written before the log entry is removed
+        print("prespec: interrupted; prespec verify shows the state of the study",
+              file=sys.stderr)
+        return 130
     except PrespecError as exc:
         for line in getattr(exc, "passed", []):
             print(f"ok    {line}")

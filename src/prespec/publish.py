@@ -10,11 +10,13 @@ from __future__ import annotations
 import os
 import shutil
 import tempfile
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from . import audit
+from .errors import raise_recorded
 from .execute import check_out_folder, check_report_place
 from .families import family_details
 from .manifest import write_manifest
@@ -142,47 +144,77 @@ def move_into_place(tmp: Path, folder: Path, manifest: str | None = None) -> Non
 
 
 def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bool,
-            action: str = "run", details: dict[str, Any] | None = None) -> RunOutcome:
+            action: str = "run", details: dict[str, Any] | None = None,
+            before_entry: Callable[[], None] | None = None) -> RunOutcome:
     """Build the report under a temporary name, append its log entry, then move it into place.
 
-    The log entry is the moment the run counts. Before it, a failure removes everything
-    (the temporary folder and the reserved name). After it, the only step left is one rename;
-    if a run is stopped there (killed, power cut), the log names a reserved empty folder and
-    the complete report waits beside it under its temporary name: ``verify`` checks it there,
-    and the next run on the plan moves it into place (:func:`complete_interrupted`). So no
-    report folder ever holds files unless it is complete and named by the log.
+    The log entry is the moment the run counts. Before it, a failure or a stop removes
+    everything (the temporary folder, the reserved name and the folders made for it). After
+    it, nothing is removed: the only steps left are the head write and one rename; if they
+    fail (a full disk) or a run is stopped there (killed, interrupted, power cut), the log
+    names a reserved empty folder and the complete report waits beside it under its
+    temporary name: ``verify`` checks it there, and the next command on the plan moves it
+    into place (:func:`complete_interrupted`) and repairs the head. So no report folder ever
+    holds files unless it is complete and named by the log. The entry and the rename are
+    made under the folder's lock; ``before_entry``, called under it, may refuse the entry.
     """
+    made = [p for p in reversed(out.parents) if not p.exists()]  # outermost first
     folder, created = reserve_folder(out, numbered=numbered)
+
+    def clean(tmp: Path | None) -> None:
+        if tmp is not None:
+            shutil.rmtree(tmp, ignore_errors=True)
+        if created:
+            shutil.rmtree(folder, ignore_errors=True)
+        for parent in reversed(made):
+            try:
+                parent.rmdir()  # only if still empty: another run may use it
+            except OSError:
+                break
+
     try:
         tmp, manifest = build_report(folder, results)
     except BaseException:
-        if created:
-            shutil.rmtree(folder, ignore_errors=True)
+        clean(None)
         raise
     report_rel = Path(os.path.relpath(folder.resolve(), plan_path.parent.resolve())).as_posix()
-    try:
-        entry = audit.append(
-            audit.log_path(plan_path),
-            audit.head_path(plan_path),
-            actor=results["actor"],
-            action=action,
-            plan=results["plan"],
-            data=results["data"],
-            details={"report": report_rel, "manifest": manifest, **(details or {}),
-                     **({"data_files": results["data_files"]} if "data_files" in results
-                        else {}),
-                     **family_details(results),
-                     **({"engine": results["engine"],
-                         "engine_library": results.get("engine_library"),
-                         "query": results.get("query")} if "engine" in results else {})},
-            deviations=results["deviations"],
-        )
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        if created:
-            shutil.rmtree(folder, ignore_errors=True)
-        raise
-    move_into_place(tmp, folder, manifest)
+    log = audit.log_path(plan_path)
+    with audit.guard.hold(plan_path.parent, exclusive=True):
+        size = audit.log.log_size(log)
+        try:
+            if before_entry is not None:
+                before_entry()
+                size = audit.log.log_size(log)
+            entry = audit.append(
+                log,
+                audit.head_path(plan_path),
+                actor=results["actor"],
+                action=action,
+                plan=results["plan"],
+                data=results["data"],
+                details={"report": report_rel, "manifest": manifest, **(details or {}),
+                         **({"data_files": results["data_files"]} if "data_files" in results
+                            else {}),
+                         **family_details(results),
+                         **({"engine": results["engine"],
+                             "engine_library": results.get("engine_library"),
+                             "query": results.get("query")} if "engine" in results else {})},
+                deviations=results["deviations"],
+            )
+        except BaseException as exc:
+            if audit.log.log_size(log) == size:  # no entry: the run never counted
+                clean(tmp)
+                raise
+            if isinstance(exc, Exception):  # the entry is in: finish what is left, if we can
+                try:
+                    move_into_place(tmp, folder, manifest)
+                except OSError:
+                    pass
+            raise_recorded(exc, plan_path.parent, f"the {action} was recorded in {log.name} "
+                           f"and its report is complete ({report_rel}); the next prespec "
+                           "command completes what is left")
+            raise  # pragma: no cover - raise_recorded always raises
+        move_into_place(tmp, folder, manifest)
     return RunOutcome(folder, results, entry)
 
 

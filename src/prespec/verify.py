@@ -167,9 +167,43 @@ def _check_lock(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
         if (number == 1) != (entry["action"] == "lock"):
             raise _fail(result, f"log entry {entry['seq']}: a {entry['action']} entry for "
                         f"version {number}")
+    _check_versions_match_entries(doc, entries, name, result)
     result.passed.append(f"lock: {len(doc['versions'])} version(s), fingerprints and links intact, "
                          "each recorded in the log")
     return doc
+
+
+def _check_versions_match_entries(doc: dict[str, Any], entries: list[dict[str, Any]],
+                                  name: str, result: VerifyResult) -> None:
+    """The lock and amend entries, in log order, must be versions 1, 2, … N of the lock, one
+    entry each, each naming its version's fingerprint and record: an entry repeated for one
+    version, an entry whose fingerprint is in no version, or a version without its entry
+    means the lock and the log tell different stories. Lock and amend hold the folder's
+    lock, so an honest log numbers its versions in order."""
+    versions = doc["versions"]
+    logged = [e for e in entries if e["action"] in ("lock", "amend")]
+    for position, entry in enumerate(logged, start=1):
+        number = _version_of(entry)
+        where = f"log entry {entry['seq']} ({entry['action']}, version {number})"
+        if number != position:
+            if number in [_version_of(e) for e in logged[:position - 1]]:
+                raise _fail(result, f"{where}: a second entry for version {number} "
+                            f"(the log has {sum(_version_of(e) == number for e in logged)})")
+            raise _fail(result, f"{where}: out of order; the lock and amend entries before it "
+                        f"record {position - 1} version(s)")
+        version = versions[number - 1]
+        if entry["plan"] != version["fingerprint"]:
+            held = [v["version"] for v in versions if v["fingerprint"] == entry["plan"]]
+            raise _fail(result, f"{where}: fingerprint {entry['plan']} is "
+                        + (f"that of version(s) {held}, not of version {number}" if held else
+                           f"in no version of {name}"))
+        details = entry["details"] if isinstance(entry["details"], dict) else {}
+        if details.get("record") != version_digest(version):
+            raise _fail(result, f"{where}: records a version other than {name}'s version "
+                        f"{number}")
+    if len(logged) != len(versions):
+        raise _fail(result, f"{name}: {len(versions)} version(s), but the log has "
+                    f"{len(logged)} lock and amend entries")
 
 
 def _check_plan_file(plan: Path, doc: dict[str, Any], entries: list[dict[str, Any]],

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-import tempfile
+import secrets
 from pathlib import Path
 
 
@@ -34,13 +34,27 @@ def fsync_dir(folder: Path) -> None:
 
 
 def replace_atomically(path: Path, data: bytes) -> None:
-    """Write ``data`` to a temporary file beside ``path``, fsync it, then rename over ``path``."""
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    """Write ``data`` to a temporary file beside ``path``, fsync it, then rename over ``path``.
+
+    The file is created with mode 0666 less the umask, like every other file prespec writes,
+    so that a monitor given read access to the study can read the lock and the head too.
+    A failure at any step removes the temporary file; ``path`` is then as it was.
+    """
+    while True:
+        tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}.tmp")
+        try:
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+            break
+        except FileExistsError:
+            continue
     try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
+        try:
+            view = memoryview(data)
+            while view:
+                view = view[os.write(fd, view):]
+            os.fsync(fd)
+        finally:
+            os.close(fd)
         os.replace(tmp, path)
     except BaseException:
         try:

@@ -9,6 +9,7 @@ Only this module writes the log.
 
 from __future__ import annotations
 
+import errno
 import fcntl
 import json
 import os
@@ -21,6 +22,7 @@ from typing import Any
 from ..canonical import canonical_json, sha256_hex
 from ..errors import IntegrityStop
 from ..shown import json_text
+from . import guard
 from .files import fsync_dir, replace_atomically
 
 GENESIS = "0" * 64
@@ -136,43 +138,67 @@ def append(
     fails, the log is cut back to its size before it, under the same lock. A head that lags
     one entry behind (an append stopped between the log and the head) is brought up to date.
     ``sign``, for lock and amend entries, returns the ``signature`` of the entry's content.
+
+    The whole append holds the study folder's lock (``guard``) exclusively. Once the entry is
+    written and fsynced it counts: a failure after it (the head write, on a full disk) is
+    raised, and the log grew; callers tell the two cases apart with :func:`log_size`.
     """
     if action not in ACTIONS:
         raise ValueError(f"unknown log action {action!r}")
     if sign is not None and action not in SIGNED_ACTIONS:
         raise ValueError(f"only {', '.join(sorted(SIGNED_ACTIONS))} entries are signed")
-    with _locked(log) as fd:
-        size = os.fstat(fd).st_size
-        existing = parse_log(os.pread(fd, size, 0), log.name) if size else []
-        check_chain(existing, log.name)
-        check_head(existing, head)
-        last = existing[-1] if existing else None
-        entry: dict[str, Any] = {
-            "seq": (last["seq"] + 1) if last else 1,
-            "at": at or utc_now(),
-            "actor": actor,
-            "action": action,
-            "plan": plan,
-            "data": data,
-            "details": details or {},
-            "deviations": deviations or [],
-            "prev": last["hash"] if last else GENESIS,
-        }
-        if sign is not None:
-            entry[SIGNATURE_KEY] = sign(signing_message(entry))
-        entry["hash"] = entry_hash(entry)
-        line = entry_line(entry)
-        try:
-            written = os.write(fd, line)
-            if written != len(line):
-                raise OSError(f"{log.name}: short write ({written} of {len(line)} bytes)")
-            os.fsync(fd)
-        except Exception:
-            os.ftruncate(fd, size)  # no half entry left behind by a failure we see
-            os.fsync(fd)
-            raise
-        fsync_dir(log.parent)
-        replace_atomically(head, head_line(entry))
+    with guard.hold(log.parent, exclusive=True):
+        existed = log.exists()
+        with _locked(log) as fd:
+            try:
+                entry = _write_entry(fd, log, head, actor=actor, action=action, plan=plan,
+                                     data=data, details=details, deviations=deviations, at=at,
+                                     sign=sign)
+            except BaseException:
+                if not existed and os.fstat(fd).st_size == 0:
+                    log.unlink(missing_ok=True)  # a first entry that failed leaves no log
+                raise
+            fsync_dir(log.parent)
+            replace_atomically(head, head_line(entry))
+    return entry
+
+
+def _write_entry(fd: int, log: Path, head: Path, *, actor: str, action: str, plan: str,
+                 data: str | None, details: dict[str, Any] | None,
+                 deviations: list[dict[str, Any]] | None, at: str | None,
+                 sign: Signer | None) -> dict[str, Any]:
+    """Check the chain and the head, then write and fsync the next entry (see ``append``)."""
+    size = os.fstat(fd).st_size
+    existing = parse_log(os.pread(fd, size, 0), log.name) if size else []
+    check_chain(existing, log.name)
+    check_head(existing, head)
+    last = existing[-1] if existing else None
+    entry: dict[str, Any] = {
+        "seq": (last["seq"] + 1) if last else 1,
+        "at": at or utc_now(),
+        "actor": actor,
+        "action": action,
+        "plan": plan,
+        "data": data,
+        "details": details or {},
+        "deviations": deviations or [],
+        "prev": last["hash"] if last else GENESIS,
+    }
+    if sign is not None:
+        entry[SIGNATURE_KEY] = sign(signing_message(entry))
+    entry["hash"] = entry_hash(entry)
+    line = entry_line(entry)
+    try:
+        written = os.write(fd, line)
+        if written != len(line):
+            # a short write to a regular file is a full disk
+            raise OSError(errno.ENOSPC, f"short write ({written} of {len(line)} bytes)",
+                          str(log))
+        os.fsync(fd)
+    except Exception:
+        os.ftruncate(fd, size)  # no half entry left behind by a failure we see
+        os.fsync(fd)
+        raise
     return entry
 
 
@@ -250,7 +276,7 @@ def repair_head(log: Path, head: Path) -> bool:
     """Bring a head that lags one entry behind up to date, under the log's lock; True if so."""
     if not log.exists():
         return False
-    with _locked(log) as fd:
+    with guard.hold(log.parent, exclusive=True), _locked(log) as fd:
         size = os.fstat(fd).st_size
         entries = parse_log(os.pread(fd, size, 0), log.name) if size else []
         check_chain(entries, log.name)
@@ -258,3 +284,12 @@ def repair_head(log: Path, head: Path) -> bool:
             return False
         replace_atomically(head, head_line(entries[-1]))
     return True
+
+
+def log_size(log: Path) -> int:
+    """The log's size in bytes (0 when absent). Taken before an append under the folder's
+    lock, it tells afterwards whether the entry went in: a failed write is cut back."""
+    try:
+        return log.stat().st_size
+    except FileNotFoundError:
+        return 0
