@@ -68,7 +68,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
         write_rehearsal_tables(tables, results)
         return
     for outcome, rows in results["groups"].items():
-        with open(folder / groups_table(outcome), "w", newline="") as fh:
+        with open(folder / groups_table(outcome), "w", newline="", encoding="utf-8") as fh:
             w = csv_writer(fh)
             w.writerow(["group", "events", "no_events", "total", "missing", "proportion",
                         "ci_low", "ci_high", "ci_method", "level"])
@@ -83,7 +83,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
     for h in results["hypotheses"]:
         t = h["table"]
         expected = h["expected"] or [[None, None]] * len(t["groups"])
-        with open(folder / hypothesis_table(h["id"]), "w", newline="") as fh:
+        with open(folder / hypothesis_table(h["id"]), "w", newline="", encoding="utf-8") as fh:
             w = csv_writer(fh)
             w.writerow(["group", "events", "no_events", "total", "expected_events",
                         "expected_no_events"])
