@@ -644,8 +644,23 @@ def _found_capped(entry: Any) -> Any:
     return entry
 
 
+# Two numbers of a recomputation agree when they are within this relative distance: the last
+# bits of a float may move with a library's version or a more careful summation (an exact tail
+# summed away from its mode moved a Fisher p-value by 6e-16), which is not a different result.
+# Anything larger, and any change of an integer, a text or a zero, is a difference.
+RERUN_REL_TOL = 1e-12
+
+
+def _numbers(a: Any, b: Any) -> bool:
+    """Both plain numbers, at least one of them a float (a count compares exactly)."""
+    kinds = (int, float)
+    return (isinstance(a, kinds) and isinstance(b, kinds) and not isinstance(a, bool)
+            and not isinstance(b, bool) and (isinstance(a, float) or isinstance(b, float)))
+
+
 def first_difference(a: Any, b: Any, path: str = "") -> str | None:
-    """The path of the first place two JSON values differ (``hypotheses[0].p_value``)."""
+    """The path of the first place two JSON values differ (``hypotheses[0].p_value``); floats
+    within ``RERUN_REL_TOL`` of each other relative to the larger are the same."""
     if isinstance(a, dict) and isinstance(b, dict):
         for k in [*a, *(k for k in b if k not in a)]:
             where = f"{path}.{k}" if path else str(k)
@@ -662,6 +677,8 @@ def first_difference(a: Any, b: Any, path: str = "") -> str | None:
                 return found
         return f"{path}[{min(len(a), len(b))}]" if len(a) != len(b) else None
     if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
+        return None
+    if _numbers(a, b) and math.isclose(a, b, rel_tol=RERUN_REL_TOL, abs_tol=0.0):
         return None
     same = a == b and (type(a) is type(b) or not isinstance(a, bool) and not isinstance(b, bool))
     return None if same else (path or "(the whole document)")
@@ -746,4 +763,4 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
                         f"{json.dumps(_lookup(left, where))}, the recomputation "
                         f"{json.dumps(_lookup(right, where))}")
     result.passed.append(f"rerun: {len(runs)} report(s) recomputed from {data.name}, every "
-                         "result identical")
+                         "result identical (numbers to 1e-12 relative)")
