@@ -142,7 +142,8 @@ def test_amend_racing_with_runs_through_the_command(tmp_path: Path) -> None:
         "seen = []\n"
         "while not pathlib.Path(stop).exists():\n"
         "    p = subprocess.run(argv, capture_output=True, text=True, check=False)\n"
-        "    seen.append([p.returncode, p.stderr])\n"
+        "    fail = [l for l in p.stdout.splitlines() if l.startswith('FAIL  ')]\n"
+        "    seen.append([p.returncode, p.stderr + ''.join(fail)])\n"
         "pathlib.Path(out).write_text(json.dumps(seen))\n"
     )
     stop = folder / "stop"
@@ -167,7 +168,9 @@ def test_amend_racing_with_runs_through_the_command(tmp_path: Path) -> None:
     for i in range(2):
         seen = json.loads((folder / f"r{i}").read_text())
         assert seen, "the reader never ran"
-        for status, err in seen:  # verify passes between two amends; a run never does
+        # verify passes between two amends; a run never does. verify says why it failed on
+        # its FAIL line (stdout), and stderr only points to it: both are read
+        for status, err in seen:
             assert status in ((0, 3) if i == 1 else (2, 3)) and "Traceback" not in err, err
             assert status == 0 or not unexpected(err), err
     check_end_state(plan, amends)
