@@ -114,15 +114,21 @@ def test_a_plan_without_design_is_bad_input(tmp_path: Path) -> None:
     assert not audit.log_path(plan).exists()
 
 
-def test_a_stratified_plan_cannot_be_simulated_and_nothing_is_written(
-        study: tuple[Path, Path]) -> None:
-    plan, _ = study
+def _stratified(plan: Path) -> str:
+    """The plan's first hypothesis tested by Cochran–Mantel–Haenszel over site, written back."""
     text = plan.read_text().replace("    test: pearson-chi-square\n    alternative: two-sided",
                                     "    test: cochran-mantel-haenszel\n    strata: [site]\n"
                                     "    alternative: two-sided", 1)
     text = text.replace("    interval: newcombe\n    sparse: {min_expected: 5, test: fisher-exact}\n"
                         "    role: primary", "    interval: sato\n    role: primary", 1)
     plan.write_text(text)
+    return text
+
+
+def test_a_stratified_plan_cannot_be_simulated_and_nothing_is_written(
+        study: tuple[Path, Path]) -> None:
+    plan, _ = study
+    _stratified(plan)
     with pytest.raises(BadInput, match="stratified test"):
         api.design(plan, simulate=100)
     assert not audit.log_path(plan).exists()
@@ -339,12 +345,7 @@ def test_a_looks_plan_that_cannot_be_sized_keeps_its_error(tmp_path: Path) -> No
 def test_simulate_refuses_a_stratified_test_at_its_line(
         study: tuple[Path, Path], capsys: pytest.CaptureFixture[str]) -> None:
     plan, _ = study
-    text = plan.read_text().replace("    test: pearson-chi-square\n    alternative: two-sided",
-                                    "    test: cochran-mantel-haenszel\n    strata: [site]\n"
-                                    "    alternative: two-sided", 1)
-    text = text.replace("    interval: newcombe\n    sparse: {min_expected: 5, test: fisher-exact}\n"
-                        "    role: primary", "    interval: sato\n    role: primary", 1)
-    plan.write_text(text)
+    text = _stratified(plan)
     line = text.splitlines().index("    strata: [site]") + 1
     assert cli.main(["design", str(plan), "--simulate", "100"]) == 2
     err = capsys.readouterr().err
