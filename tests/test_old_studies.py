@@ -88,3 +88,64 @@ def test_numbers_agree_to_a_relative_1e_12_and_nothing_else_moves() -> None:
     assert first_difference({"n": 181}, {"n": 182}) == "n"
     assert first_difference({"n": 10**15}, {"n": 10**15 + 1}) == "n"  # counts compare exactly
     assert first_difference({"a": True}, {"a": 1}) == "a"
+
+
+# ``before-issue-15``: written by prespec at commit 85b8b4f, before the rooms were rearranged
+# (issue 15): ``demo`` is ``prespec demo`` (locked and run); ``tour`` is plans/methods-tour.yaml
+# on the demo's data, locked, run, amended after that run (alpha 0.05 → 0.025) and run again;
+# ``safety`` is ``python -m prespec.safety_demo`` (a family over event terms), locked, run and
+# rehearsed. Each must verify against its registered fingerprint and recompute identically.
+BEFORE_15 = FIXTURES / "before-issue-15"
+STUDIES_15 = {
+    # folder: (plan file, data file, fingerprints of its locked versions, run reports)
+    "demo": ("wound-dressing.yaml", "data/wound-dressing.csv",
+             ["sha256:7f1707a66696d7cb2301f395720e7f624fce4f13b8bd0d9a6c13f8c8f4a615ac"], 1),
+    "tour": ("methods-tour.yaml", "data/wound-dressing.csv",
+             ["sha256:2c6b68cc3c720ef6b89c2435dedbe18764406850ef132c2149bcb7ab30ed389d",
+              "sha256:3203204587b43c36273feb7378abc3d12c3dc6bc88ca31eb33e1e9f919e0d591"], 2),
+    "safety": ("safety-review.yaml", "safety-review.csv",
+               ["sha256:a9ad4a412b45f68eb171f68e72fa1e66e9a1fa8b2b363b0a2875c3a7bec5a22d"], 1),
+}
+
+
+@pytest.fixture(params=sorted(STUDIES_15))
+def study_15(request: pytest.FixtureRequest, tmp_path: Path) -> tuple[Path, Path, list[str], int]:
+    name = request.param
+    plan_name, data_name, prints, runs = STUDIES_15[name]
+    folder = tmp_path / name
+    shutil.copytree(BEFORE_15 / name, folder)
+    return folder / plan_name, folder / data_name, prints, runs
+
+
+def test_studies_before_issue_15_keep_their_fingerprints(
+        study_15: tuple[Path, Path, list[str], int]) -> None:
+    plan, _, prints, _ = study_15
+    assert load_plan(plan).fingerprint == prints[-1]
+    lock = json.loads(plan.with_suffix(".lock.json").read_text("utf-8"))
+    assert [v["fingerprint"] for v in lock["versions"]] == prints
+
+
+def test_studies_before_issue_15_verify_against_their_first_fingerprint(
+        study_15: tuple[Path, Path, list[str], int],
+        capsys: pytest.CaptureFixture[str]) -> None:
+    plan, _, prints, runs = study_15
+    code = cli.main(["verify", str(plan), "--expect", prints[0]])
+    out = capsys.readouterr().out.splitlines()
+    assert code == 0, out
+    assert out[0].startswith("ok    audit log: ") and out[0].endswith("head matches")
+    verdicts = [line for line in out if line.split()[:2] in (["ok", "run"], ["off", "run"])]
+    assert len(verdicts) == runs
+    if len(prints) == 1:  # locked once, before its run: the run was the locked analysis
+        assert out[-1] == "verified: files intact; the run was the locked analysis"
+    else:  # amended after the first run: the second run is not the locked analysis
+        assert verdicts[0].startswith("ok    run 1") and verdicts[1].startswith("off   run 2")
+        assert out[-1] == ("files intact; 1 of 2 runs was not the locked analysis: run 2 "
+                           "(amended after unblinding)")
+
+
+def test_studies_before_issue_15_recompute_identically(
+        study_15: tuple[Path, Path, list[str], int]) -> None:
+    plan, data, _, runs = study_15
+    res = api.verify(plan, rerun=data)
+    assert res.passed[-1] == (f"rerun: {runs} report(s) recomputed from {data.name}, every "
+                              "result identical (numbers to 1e-12 relative)")
