@@ -15,8 +15,9 @@ from collections import defaultdict
 from pathlib import Path
 
 import prespec.report as report_pkg  # publish.py imports from it lazily, at each call
-from prespec import api, execute
+from prespec import api
 from prespec.report import render
+from prespec.workflow import execute
 
 timings: dict[str, list[float]] = defaultdict(list)
 

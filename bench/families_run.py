@@ -4,7 +4,7 @@ An invented safety data set: two gels of 200 participants and 1,000 adverse-even
 body systems, one row per participant and term (400,000 rows), the family tested by Fisher's
 exact test and flagged by the double FDR. It times, in one process and on the same data:
 
-- the preparation of every level (``prespec.families.prepare_run``);
+- the preparation of every level (``prespec.analysis.families.prepare_run``);
 - the statistics of the family (``analyse_family``) with the array Fisher test
   (``prespec.stats.fisherarray.fisher_many``) and, as the baseline, member by member through
   the ordinary machinery (``use_array=False``), and whether the two agree on every p-value;
@@ -26,9 +26,9 @@ from pathlib import Path
 import numpy as np
 
 from prespec import api
-from prespec.families import analyse_family, prepare_run
+from prespec.analysis.families import analyse_family, prepare_run
+from prespec.demo.safety import PLAN_TEXT, safety_frame
 from prespec.plan import load_plan
-from prespec.safety_demo import PLAN_TEXT, safety_frame
 
 
 def terms(count: int, seed: int = 1) -> dict[str, dict[str, tuple[float, float]]]:

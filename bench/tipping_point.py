@@ -1,6 +1,6 @@
 """The time of a tipping-point grid of 200 × 200 missing outcomes, against a per-cell loop.
 
-The grid of ``prespec.sensitivity.tipping_point`` is computed on whole arrays: closed forms
+The grid of ``prespec.analysis.sensitivity.tipping_point`` is computed on whole arrays: closed forms
 for the chi-square, z and margin tests, and for Fisher's exact test one hypergeometric law per
 anti-diagonal with its tails accumulated in log space and the two-sided cut found by a binary
 search run on every cell at once. The baseline is the obvious loop: the scalar library test
@@ -22,7 +22,7 @@ from types import SimpleNamespace
 
 import numpy as np
 
-from prespec.sensitivity import Observed, tipping_point
+from prespec.analysis.sensitivity import Observed, tipping_point
 from prespec.stats import farrington_manning, fisher_exact, pearson_chi_square
 
 CASES: dict[str, tuple[dict[str, object], Callable[[int, int, int, int], float]]] = {

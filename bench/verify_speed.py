@@ -19,8 +19,8 @@ from pathlib import Path
 
 from prespec import api, audit
 from prespec.audit.log import entry_hash, entry_line, head_line
-from prespec.demo import PLAN_TEXT
-from prespec.manifest import write_manifest
+from prespec.audit.manifest import write_manifest
+from prespec.demo.wound import PLAN_TEXT
 
 
 def build(folder: Path, entries: int) -> Path:

@@ -51,7 +51,7 @@ def main() -> None:
     parser.add_argument("--smoke", action="store_true", help="2,000 columns, one run")
     args = parser.parse_args()
     columns, repeat = (2_000, 1) if args.smoke else (args.columns, args.repeat)
-    from prespec.demo import PLAN_TEXT, demo_data
+    from prespec.demo.wound import PLAN_TEXT, demo_data
 
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)

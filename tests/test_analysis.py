@@ -13,7 +13,7 @@ import scipy.stats
 from statsmodels.stats.multitest import multipletests
 from statsmodels.stats.proportion import confint_proportions_2indep, proportions_ztest
 
-from prespec.analysis import analyse, interval_level
+from prespec.analysis.hypotheses import analyse, interval_level
 from prespec.data import GroupCounts, OutcomeCounts, Prepared
 from prespec.plan import Plan, load_plan
 
@@ -268,7 +268,7 @@ def test_zero_width_stratified_interval_gets_a_note(function: str, strata: list,
                                                     limit: float) -> None:
     """The note is written wherever an estimate enters the results, and the report's notes
     table shows it."""
-    from prespec.analysis import estimate_json
+    from prespec.analysis.hypotheses import estimate_json
     from prespec.report import sections
     from prespec.stats import stratified
 

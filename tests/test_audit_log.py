@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 from prespec import audit
-from prespec.canonical import canonical_json
+from prespec.common.canonical import canonical_json
 from prespec.errors import IntegrityStop
 
 

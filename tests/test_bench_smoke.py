@@ -18,6 +18,6 @@ def test_the_wide_header_benchmark_runs_at_its_smoke_size() -> None:
     assert done.returncode == 0, done.stdout + done.stderr
     assert done.stdout.startswith("wide file: 2,000 columns, ")
     analysed = re.findall(r"analysed (\d+)", done.stdout)
-    # the demo data: 601 rows, 19 outside the population, 1 unknown group (prespec.demo)
+    # the demo data: 601 rows, 19 outside the population, 1 unknown group (prespec.demo.wound)
     assert analysed == ["581", "581"], done.stdout
     assert "peak memory wide / narrow: " in done.stdout

@@ -9,7 +9,7 @@ import pytest
 from test_plan_validate import CASES, Bad, _line_of
 
 from prespec import cli
-from prespec.demo import PLAN_TEXT
+from prespec.demo.wound import PLAN_TEXT
 
 
 def write_case(folder: Path, case: Bad) -> Path:
@@ -113,7 +113,7 @@ def test_a_run_in_another_environment_is_recorded(tmp_path: Path, capsys: pytest
                                                   monkeypatch: pytest.MonkeyPatch) -> None:
     import prespec.report
     from prespec import api
-    from prespec.demo import demo_data
+    from prespec.demo.wound import demo_data
 
     monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
     plan, data = tmp_path / "p.yaml", tmp_path / "d.csv"

@@ -27,7 +27,7 @@ from typing import Any
 import pytest
 
 from prespec import api, audit, cli
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, IntegrityStop
 from tests.test_crash import (  # noqa: F401 - quick_report: the fixture, for every test here
     _write_bytes_via,
@@ -325,9 +325,9 @@ def test_a_run_that_outlives_an_amend_is_not_recorded(tmp_path: Path,
     study = make_base(tmp_path / "s", "run")
     plan = study / "trial.yaml"
     before = contents(study)
-    import prespec.publish
+    import prespec.workflow.publish
 
-    real = prespec.publish.build_report
+    real = prespec.workflow.publish.build_report
 
     def build_then_amend(folder: Path, results: dict[str, Any], **kw: Any) -> Any:
         built = real(folder, results, **kw)
@@ -335,10 +335,10 @@ def test_a_run_that_outlives_an_amend_is_not_recorded(tmp_path: Path,
         api.amend(plan, reason="while a run computed", actor="bo")
         return built
 
-    monkeypatch.setattr(prespec.publish, "build_report", build_then_amend)
+    monkeypatch.setattr(prespec.workflow.publish, "build_report", build_then_amend)
     with pytest.raises(IntegrityStop, match="the lock changed while this ran"):
         api.run(plan, study / "data.csv", actor="ana")
-    monkeypatch.setattr(prespec.publish, "build_report", real)
+    monkeypatch.setattr(prespec.workflow.publish, "build_report", real)
     assert [e["action"] for e in entries_of(study)] == ["lock", "run", "amend"]
     changed = contents(study)
     assert {k for k in changed if k not in before} == set()  # no report folder left
@@ -386,12 +386,12 @@ def test_ctrl_c_in_the_command_is_one_line(tmp_path: Path, monkeypatch: pytest.M
                                            capsys: pytest.CaptureFixture[str]) -> None:
     study = make_base(tmp_path / "s", "run")
     before = contents(study)
-    import prespec.publish
+    import prespec.workflow.publish
 
     def interrupted(*args: Any, **kwargs: Any) -> Any:
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(prespec.publish, "build_report", interrupted)
+    monkeypatch.setattr(prespec.workflow.publish, "build_report", interrupted)
     status = cli.main(["run", str(study / "trial.yaml"), str(study / "data.csv")])
     assert status == 130
     assert capsys.readouterr().err == ("prespec: interrupted; prespec verify shows the state "

@@ -28,10 +28,10 @@ from typing import Any
 
 import pytest
 
-import prespec.publish
 import prespec.report
+import prespec.workflow.publish
 from prespec import api, audit
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import IntegrityStop
 
 STEPS = ("write", "fsync", "replace", "rename", "mkdir", "ftruncate")
@@ -230,15 +230,15 @@ def test_a_kill_between_the_log_entry_and_the_rename_is_completed_by_the_next_ru
         locked_study: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     study = tmp_path / "s"
     shutil.copytree(locked_study, study)
-    real_move = prespec.publish.move_into_place
+    real_move = prespec.workflow.publish.move_into_place
 
     def killed(*args: Any) -> None:
         raise Killed("after the log entry")
 
-    monkeypatch.setattr(prespec.publish, "move_into_place", killed)
+    monkeypatch.setattr(prespec.workflow.publish, "move_into_place", killed)
     with pytest.raises(Killed):
         run_once(study)
-    monkeypatch.setattr(prespec.publish, "move_into_place", real_move)
+    monkeypatch.setattr(prespec.workflow.publish, "move_into_place", real_move)
     last = audit.read_log(audit.log_path(study / "trial.yaml"))[-1]
     folder = study / last["details"]["report"]
     assert folder.is_dir() and not any(folder.iterdir())  # named, reserved, still empty

@@ -14,7 +14,7 @@ from prespec.data import read_data
 from prespec.data.engines.base import DataSource
 from prespec.data.engines.pipeline import count_source
 from prespec.data.read import COLUMNS_SHOWN, listed
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import DataError
 from prespec.plan import load_plan
 from prespec.plan.model import Plan

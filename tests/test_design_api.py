@@ -15,9 +15,9 @@ import pytest
 
 import prespec.report
 from prespec import api, audit, cli
-from prespec.canonical import canonical_json, sha256_tag
-from prespec.demo import PLAN_TEXT as DEMO_PLAN
-from prespec.demo import demo_data
+from prespec.common.canonical import canonical_json, sha256_tag
+from prespec.demo.wound import PLAN_TEXT as DEMO_PLAN
+from prespec.demo.wound import demo_data
 from prespec.design import samplesize
 from prespec.errors import BadInput
 from prespec.plan import load_plan

@@ -11,7 +11,7 @@ import pytest
 from scipy import stats
 
 from prespec.design import exactpower, samplesize
-from prespec.design.report import alpha_shares, design_document, size_plan
+from prespec.design.document import alpha_shares, design_document, size_plan
 from prespec.errors import BadInput
 from prespec.plan import load_plan
 from prespec.stats import proportions, single

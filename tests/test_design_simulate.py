@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from prespec.analysis import analyse
+from prespec.analysis.hypotheses import analyse
 from prespec.design import exactpower
-from prespec.design.report import design_document, scenarios_of
+from prespec.design.document import design_document, scenarios_of
 from prespec.design.simulate import Decider, as_prepared, draw, null_holds, simulate
 from prespec.errors import BadInput
 from prespec.plan import load_plan

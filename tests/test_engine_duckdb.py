@@ -21,7 +21,7 @@ from prespec.data.engines.compiler import compile_counts, quote_identifier
 from prespec.data.engines.duckdb_engine import DuckDBEngine
 from prespec.data.engines.pipeline import blinded_rows, count_source
 from prespec.data.engines.request import count_request
-from prespec.demo import demo_data
+from prespec.demo.wound import demo_data
 from prespec.errors import DataError
 from prespec.plan import load_plan
 

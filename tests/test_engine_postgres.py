@@ -27,7 +27,7 @@ from prespec.data.engines.fingerprint import frame_row_hash
 from prespec.data.engines.pipeline import count_source
 from prespec.data.engines.request import count_request
 from prespec.data.engines.sql import SqlEngine, column_kind, database_url
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, DataError
 from prespec.plan import load_plan
 

@@ -17,7 +17,7 @@ from prespec.data.engines.choose import AUTO_PANDAS_LIMIT, auto_engine
 from prespec.data.engines.duckdb_engine import DuckDBEngine
 from prespec.data.engines.fingerprint import frame_row_hash
 from prespec.data.engines.request import count_request
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.plan import load_plan
 
 

@@ -16,14 +16,14 @@ import pandas as pd
 import pytest
 from services import spark_fixture  # noqa: F401 - the fixture spark
 
-from prespec.canonical import file_sha256
+from prespec.common.canonical import file_sha256
 from prespec.data import prepare, read_data
 from prespec.data.engines.base import DataSource
 from prespec.data.engines.fingerprint import frame_row_hash
 from prespec.data.engines.pipeline import count_source
 from prespec.data.engines.request import count_request
 from prespec.data.engines.spark import spark_message
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import DataError
 from prespec.plan import load_plan
 

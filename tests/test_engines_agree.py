@@ -2,7 +2,7 @@
 
 The engines: pandas (the reference: ``prepare`` on the full frame, as before engines existed),
 duckdb (the file), sql (the same rows in a PostgreSQL table, through ``tests/services.py``)
-and spark (the file through PySpark). Two data sets: the demo's (``prespec.demo``) and a
+and spark (the file through PySpark). Two data sets: the demo's (``prespec.demo.wound``) and a
 hostile one written below (blanks, whitespace, numbers as ``1`` and ``1.0``, unexpected
 groups, unmapped outcome values, filters on numbers and on text, ``is_missing``, strata, an
 estimand with intercurrent events, a value shaped like an SQL injection). The expected
@@ -29,16 +29,16 @@ from services import (  # noqa: F401 - the fixtures postgres and spark
 
 from prespec import api
 from prespec.audit import log_path, read_log
+from prespec.common.environment import environment
 from prespec.data import read_data
 from prespec.data.engines import pipeline
 from prespec.data.engines.base import DataSource
 from prespec.data.engines.fingerprint import frame_row_hash
 from prespec.data.engines.pipeline import count_source
 from prespec.data.engines.request import count_request
-from prespec.demo import PLAN_TEXT, demo_data
-from prespec.environment import environment
-from prespec.execute import compute_results
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.plan import load_plan
+from prespec.workflow.execute import compute_results
 
 ENGINES = ("pandas", "duckdb", "sql", "spark")
 INJECTION = "x'; DROP TABLE t; --"

@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 import scipy.stats
 
-from prespec.analysis import analyse
+from prespec.analysis.hypotheses import analyse
 from prespec.data import prepare, read_data
 from prespec.errors import DataError
 from prespec.plan import load_plan

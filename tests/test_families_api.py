@@ -11,8 +11,8 @@ import pytest
 
 from prespec import api
 from prespec.audit import log as audit_log
+from prespec.demo.safety import write_safety_demo
 from prespec.errors import BadInput, IntegrityStop
-from prespec.safety_demo import write_safety_demo
 
 
 def test_an_override_marks_the_family_and_a_rerun_reproduces_it(tmp_path: Path) -> None:
@@ -121,7 +121,7 @@ def test_the_safety_demo_module_writes_its_plan_and_data_and_says_where(
     import subprocess
     import sys
 
-    from prespec import safety_demo
+    from prespec.demo import safety as safety_demo
 
     folder = tmp_path / "gel"
     assert safety_demo.main([str(folder)]) == 0
@@ -137,11 +137,11 @@ def test_the_safety_demo_module_writes_its_plan_and_data_and_says_where(
     got = capsys.readouterr()
     assert got.out == "" and got.err == (
         f"prespec: {folder}: exists and holds other files; choose an empty folder\n")
-    # run as `python -m prespec.safety_demo` (the default folder, in the working directory)
+    # run as `python -m prespec.demo.safety` (the default folder, in the working directory)
     import prespec
 
     env = {**os.environ, "PYTHONPATH": str(Path(prespec.__file__).parents[1])}
-    done = subprocess.run([sys.executable, "-m", "prespec.safety_demo"], cwd=tmp_path, env=env,
+    done = subprocess.run([sys.executable, "-m", "prespec.demo.safety"], cwd=tmp_path, env=env,
                           capture_output=True, text=True, timeout=120, check=False)
     assert done.returncode == 0, done.stderr
     assert (tmp_path / "safety-demo" / "safety-review.csv").is_file()

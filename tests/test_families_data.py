@@ -7,10 +7,10 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
+from prespec.analysis.families import prepare_run
 from prespec.data import families as data_families
 from prespec.data.families import family_data
 from prespec.errors import DataError
-from prespec.families import prepare_run
 from prespec.plan import load_plan
 
 PLAN = """\
@@ -211,9 +211,9 @@ def test_a_repeated_column_name_is_refused_as_every_engine_refuses_it(tmp_path: 
     """A plan with families is read by pandas alone; a header naming two columns 'gel' (one
     spaced and capitalised) is refused as the engines refuse it (prespec.data.engines.columns),
     not counted from whichever column pandas keeps."""
+    from prespec.common.environment import environment
     from prespec.data.engines.base import DataSource
-    from prespec.environment import environment
-    from prespec.execute import compute_results
+    from prespec.workflow.execute import compute_results
 
     plan, _, data = setup(tmp_path, BASE)
     header, rest = data.read_text().split("\n", 1)

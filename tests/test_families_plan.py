@@ -8,10 +8,10 @@ from pathlib import Path
 import pytest
 
 from prespec import api
+from prespec.demo.safety import PLAN_TEXT, TERMS
 from prespec.errors import PlanError
 from prespec.plan import load_plan, plan_from_resolved
 from prespec.plan import vocabulary as v
-from prespec.safety_demo import PLAN_TEXT, TERMS
 
 PLAN = """\
 prespec: 1

@@ -9,11 +9,11 @@ from typing import Any
 
 import pytest
 
-from prespec.families import analyse_family, prepare_run
+from prespec.analysis.families import analyse_family, prepare_run
+from prespec.demo.safety import PLAN_TEXT, safety_frame
 from prespec.plan import load_plan
 from prespec.report import families as report
 from prespec.report.figures import write_figures
-from prespec.safety_demo import PLAN_TEXT, safety_frame
 
 
 def family(tmp_path: Path, method: str = "double-fdr") -> dict[str, Any]:

@@ -14,12 +14,12 @@ from scipy import stats as sps
 from statsmodels.stats.multitest import multipletests
 from statsmodels.stats.proportion import confint_proportions_2indep, proportions_ztest
 
-from prespec.analysis import compute_hypothesis
+from prespec.analysis.families import analyse_family, bh_threshold, prepare_run
+from prespec.analysis.hypotheses import compute_hypothesis
+from prespec.common.departures import Note
 from prespec.data import prepare
-from prespec.departures import Note
-from prespec.families import analyse_family, bh_threshold, prepare_run
+from prespec.demo.safety import safety_frame
 from prespec.plan import load_plan
-from prespec.safety_demo import safety_frame
 from prespec.stats.doublefdr import double_fdr
 
 PLAN = """\

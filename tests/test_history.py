@@ -9,9 +9,9 @@ import pytest
 
 import prespec.report
 from prespec import api, audit, cli
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.audit.history import Change, plan_changes, show
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput
-from prespec.history import Change, plan_changes, show
 from prespec.plan import load_plan
 
 

@@ -17,12 +17,13 @@ from pathlib import Path
 
 import pytest
 
-from prespec import api, audit, cli, shown
+from prespec import api, audit, cli
+from prespec.analysis.families import analyse_family, prepare_run
+from prespec.common import shown
+from prespec.demo.safety import safety_frame
 from prespec.errors import IntegrityStop
-from prespec.families import analyse_family, prepare_run
 from prespec.plan import load_plan
 from prespec.report import families as report_families
-from prespec.safety_demo import safety_frame
 
 RLO = "\u202e"  # right-to-left override
 LINK = '=HYPERLINK("http://127.0.0.1:9/x","click")'
@@ -151,7 +152,7 @@ def test_the_run_tables_neutralise_formulas_and_keep_numbers(study: Path) -> Non
 
 
 def test_a_negative_number_in_a_csv_stays_a_number(tmp_path: Path) -> None:
-    from prespec.publish import _write_tables
+    from prespec.workflow.publish import _write_tables
 
     results = {"groups": {"o": [{"group": "-x", "events": 1, "total": 2, "missing": 0,
                                   "proportion": 0.5, "ci": [-0.05, 1.0], "ci_method": "=w",

@@ -11,14 +11,14 @@ from types import SimpleNamespace
 import pytest
 
 from prespec import cli
+from prespec.common.departures import FOUND_SHOWN, Departure, capped_found, listed
 from prespec.data import prepare, read_data
 from prespec.data.families import _merged_departures
 from prespec.data.prepare import Prepared
-from prespec.demo import PLAN_TEXT, demo_data
-from prespec.departures import FOUND_SHOWN, Departure, capped_found, listed
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import DataError, PlanError
 from prespec.plan import load_plan
-from prespec.verify import _comparable, _found_capped
+from prespec.workflow.verify import _comparable, _found_capped
 
 
 def _plan(id_column: str = "pid") -> SimpleNamespace:

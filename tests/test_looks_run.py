@@ -19,8 +19,8 @@ from statsmodels.stats.proportion import proportions_ztest
 
 import prespec.report
 from prespec import api, audit
+from prespec.analysis.looks import look_problem
 from prespec.errors import BadInput
-from prespec.looks import look_problem
 from prespec.stats import sequential
 
 PLAN = """\

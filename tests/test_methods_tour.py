@@ -19,7 +19,7 @@ from statsmodels.stats.contingency_tables import StratifiedTable
 
 import prespec.report
 from prespec import api
-from prespec.demo import demo_data
+from prespec.demo.wound import demo_data
 from prespec.stats.graphical import graphical_adjust
 
 TOUR = Path(__file__).parent.parent / "plans" / "methods-tour.yaml"

@@ -29,7 +29,7 @@ import pytest
 
 import prespec.report
 from prespec import api, audit
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import IntegrityStop
 
 PLAN = "trial.yaml"

@@ -18,7 +18,7 @@ import pytest
 import prespec.report
 from prespec import api, cli
 from prespec.plan import load_plan
-from prespec.verify import first_difference
+from prespec.workflow.verify import first_difference
 
 FIXTURES = Path(__file__).parent / "fixtures" / "studies"
 V1 = "sha256:7f1707a66696d7cb2301f395720e7f624fce4f13b8bd0d9a6c13f8c8f4a615ac"
@@ -93,7 +93,7 @@ def test_numbers_agree_to_a_relative_1e_12_and_nothing_else_moves() -> None:
 # ``before-issue-15``: written by prespec at commit 85b8b4f, before the rooms were rearranged
 # (issue 15): ``demo`` is ``prespec demo`` (locked and run); ``tour`` is plans/methods-tour.yaml
 # on the demo's data, locked, run, amended after that run (alpha 0.05 → 0.025) and run again;
-# ``safety`` is ``python -m prespec.safety_demo`` (a family over event terms), locked, run and
+# ``safety`` is ``python -m prespec.demo.safety`` (a family over event terms), locked, run and
 # rehearsed. Each must verify against its registered fingerprint and recompute identically.
 BEFORE_15 = FIXTURES / "before-issue-15"
 STUDIES_15 = {

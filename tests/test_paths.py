@@ -15,7 +15,7 @@ import pytest
 
 import prespec.report
 from prespec import api, audit
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput
 
 
@@ -139,7 +139,7 @@ def test_a_plan_name_that_gives_no_report_folder_is_refused(tmp_path: Path, name
 
 def test_a_link_planted_while_the_run_computes_is_refused(tmp_path: Path,
                                                           monkeypatch: pytest.MonkeyPatch) -> None:
-    from prespec import publish
+    from prespec.workflow import publish
 
     plan, data = _study(tmp_path / "study")
     api.lock(plan)

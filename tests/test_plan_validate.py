@@ -343,7 +343,7 @@ def test_an_unavailable_test_is_refused_by_name(tmp_path: Path,
 
 
 def test_every_known_name_runs() -> None:
-    from prespec import methods
+    from prespec.analysis import methods
     from prespec.stats import ADJUSTMENT_METHODS
 
     for kind in v.KINDS:

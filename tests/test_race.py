@@ -23,7 +23,7 @@ from pathlib import Path
 import pytest
 
 from prespec import api, audit
-from prespec.demo import PLAN_TEXT
+from prespec.demo.wound import PLAN_TEXT
 from prespec.errors import PrespecError
 
 # the true failures a reader may meet while the plan is being amended

@@ -18,8 +18,10 @@ import pytest
 from statsmodels.stats.proportion import proportion_confint
 
 import prespec.report
-from prespec import api, audit, cli, methods, rehearsal
+from prespec import api, audit, cli
+from prespec.analysis import methods
 from prespec.errors import BadInput, DataError
+from prespec.workflow import rehearse as rehearsal
 
 PLAN = """\
 prespec: 1

@@ -12,7 +12,7 @@ from typing import Any
 import pandas as pd
 import pytest
 
-from prespec import dictionary
+from prespec.data import dictionary
 from prespec.errors import DataError
 from prespec.plan import load_plan
 

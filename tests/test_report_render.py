@@ -414,7 +414,7 @@ def test_multiplicity_table_and_graphical_settings() -> None:
 
 
 def test_caution_falls_back_when_missing() -> None:
-    from prespec.caution import CAUTION as PACKAGE_CAUTION
+    from prespec.common.caution import CAUTION as PACKAGE_CAUTION
 
     assert html.escape(PACKAGE_CAUTION) in sections.caution({})
 

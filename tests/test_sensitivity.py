@@ -19,11 +19,11 @@ from statsmodels.stats.proportion import confint_proportions_2indep
 
 import prespec.report
 from prespec import api, audit
-from prespec.analysis import analyse
+from prespec.analysis.hypotheses import analyse
+from prespec.analysis.sensitivity import extreme_imputation, impute, observed
 from prespec.data import GroupCounts, prepare, read_data
 from prespec.errors import PlanError
 from prespec.plan import load_plan
-from prespec.sensitivity import extreme_imputation, impute, observed
 from prespec.stats import proportions, tables
 
 

@@ -14,9 +14,9 @@ from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PublicKey
 import prespec.report
 from prespec import api, audit, cli
 from prespec.audit.log import entry_hash, entry_line, head_line, signing_message
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.audit.signing import signature_problem
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, IntegrityStop
-from prespec.signing import signature_problem
 
 
 @pytest.fixture(autouse=True)

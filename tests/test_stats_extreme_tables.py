@@ -214,7 +214,7 @@ def test_likelihood_ratio_matches_60_digits(events: list[int], totals: list[int]
 def test_likelihood_ratio_twins_agree_on_extreme_tables(
         events: list[int], totals: list[int]) -> None:
     """The power simulation's and the tipping-point grid's array forms give the scalar p."""
-    from prespec import sensitivity
+    from prespec.analysis import sensitivity
 
     want = likelihood_ratio(events, totals).p_value
     design = arraytests.likelihood_ratio(np.array([events]), np.array(totals))

@@ -10,11 +10,11 @@ import pytest
 import prespec.report
 from prespec import api, audit, cli
 from prespec.audit.log import entry_hash, entry_line, head_line
-from prespec.canonical import file_sha256
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.audit.manifest import write_manifest
+from prespec.common.canonical import file_sha256
+from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import IntegrityStop
-from prespec.manifest import write_manifest
-from prespec.verify import first_difference
+from prespec.workflow.verify import first_difference
 
 
 @pytest.fixture(autouse=True)
@@ -115,13 +115,13 @@ def test_a_report_whose_design_power_left_out_the_far_tail_still_verifies(
         study: tuple[Path, Path], monkeypatch: pytest.MonkeyPatch) -> None:
     # A report written when the power of a two-sided test counted one tail only (its design
     # entry has no "two_sided_power" key) must keep verifying under --rerun.
-    import prespec.execute
-    import prespec.verify
+    import prespec.workflow.execute
+    import prespec.workflow.verify
 
     plan, data = study
-    current = prespec.execute.design_entry
+    current = prespec.workflow.execute.design_entry
     with monkeypatch.context() as m:
-        m.setattr(prespec.execute, "design_entry",
+        m.setattr(prespec.workflow.execute, "design_entry",
                   lambda p, kind, hyps: current(p, kind, hyps, both_tails=False))
         old = api.run(plan, data, out=plan.parent / "old").results
     new = api.run(plan, data, out=plan.parent / "new").results
@@ -133,7 +133,7 @@ def test_a_report_whose_design_power_left_out_the_far_tail_still_verifies(
     assert api.verify(plan, rerun=data).passed[-1] == (
         "rerun: 2 report(s) recomputed from data.csv, every result identical (numbers to 1e-12 relative)")
     with monkeypatch.context() as m:  # without the old rule, the old report would not verify
-        m.setattr(prespec.verify, "_design_as_written", lambda stored, again, model: None)
+        m.setattr(prespec.workflow.verify, "_design_as_written", lambda stored, again, model: None)
         with pytest.raises(IntegrityStop, match=r"rerun old: design\.hypotheses\[0\]\."
                                                 r"power_at_achieved differs"):
             api.verify(plan, rerun=data, report="old")

@@ -10,8 +10,8 @@ import pytest
 
 import prespec.report
 from prespec import api, audit, cli
-from prespec.demo import PLAN_TEXT, demo_data
-from prespec.verify import run_verdicts
+from prespec.demo.wound import PLAN_TEXT, demo_data
+from prespec.workflow.verify import run_verdicts
 
 
 @pytest.fixture(autouse=True)

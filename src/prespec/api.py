@@ -16,15 +16,16 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from . import audit
+from prespec import audit
+from prespec.analysis.families import declared_members, ordinary_plan
+from prespec.common.departures import Departure, Note
+from prespec.common.environment import differences, environment
+from prespec.workflow.execute import check_out_folder, compute_results, default_folder
+from prespec.workflow.publish import RunOutcome, complete_interrupted, publish
+
 from .audit.lockfile import complete_pending, version_digest, write_pending
-from .departures import Departure, Note
-from .environment import differences, environment
 from .errors import BadInput, IntegrityStop, plain_os_error, raise_recorded
-from .execute import check_out_folder, compute_results, default_folder
-from .families import declared_members, ordinary_plan
 from .plan import LoadedPlan, fingerprint, json_schema, load_plan, plan_from_resolved, summary
-from .publish import RunOutcome, complete_interrupted, publish
 
 __all__ = [
     "CheckResult",
@@ -188,7 +189,7 @@ def _finish_stopped_writes(plan: Path) -> list[dict[str, Any]]:
 def _signer(sign: str | Path | None) -> audit.log.Signer | None:
     if sign is None:
         return None
-    from .signing import signer
+    from prespec.audit.signing import signer
 
     return signer(sign)
 
@@ -265,7 +266,7 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
     after a run on the data is recorded as ``amended-after-unblinding`` in the amend entry,
     and ``warn(message)`` is called with a warning before anything is written.
     """
-    from .history import plan_changes
+    from prespec.audit.history import plan_changes
 
     if not reason or not reason.strip():
         raise BadInput("amend: --reason must say why the plan changed")
@@ -414,7 +415,7 @@ def mark_overrides(results: dict[str, Any], changes: list[dict[str, Any]]) -> No
 
 
 def _show(value: Any) -> str:
-    from .history import show
+    from prespec.audit.history import show
 
     return show(value)
 
@@ -493,7 +494,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
                 deviations.append(Departure("amended-after-unblinding", d.get("detail", ""),
                                             d.get("expected"), d.get("found")))
     runs = [e for e in entries if e.get("action") == "run"]
-    from .looks import look_details, look_run
+    from prespec.analysis.looks import look_details, look_run
 
     looks = look_run(model, entries, fp, look)
     out_path = Path(out) if out is not None else default_folder(loaded.path, "run")
@@ -519,7 +520,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
 def procedures(model: Any) -> dict[str, str]:
     """The multiplicity procedure of each family of hypotheses that a run adjusts: ``main``
     (the plan's ``multiplicity``) and ``<id> pairwise`` (a hypothesis's ``then``)."""
-    from .analysis import MAIN_FAMILY
+    from prespec.analysis.hypotheses import MAIN_FAMILY
 
     main = model.multiplicity
     out = {MAIN_FAMILY: main if isinstance(main, str) else str(main.method)}
@@ -541,8 +542,9 @@ def rehearse(plan: str | Path, data: str | Path | None = None, *,
     data dictionary only, and the log records a ``rehearse`` entry. The lock is not touched.
     ``data`` and ``engine`` as in ``run``; no engine's query names the group column.
     """
+    from prespec.workflow.rehearse import NOTE_DIFFERS_FROM_LOCK, NOTE_NOT_LOCKED, compute_rehearsal
+
     from .data.engines.sources import check_source, resolve_source
-    from .rehearsal import NOTE_DIFFERS_FROM_LOCK, NOTE_NOT_LOCKED, compute_rehearsal
 
     loaded = load_plan(Path(plan))
     source, source_notes = resolve_source(loaded.path, loaded.model, data)
@@ -608,7 +610,8 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
     document (SPEC.md, "Design and interim looks"). ``progress(scenario, done, total)`` is
     called after each chunk of simulated trials.
     """
-    from .canonical import canonical_json, sha256_tag
+    from prespec.common.canonical import canonical_json, sha256_tag
+
     from .design import design_document
     from .design.planned import designed_n_line, load_for_design, refuse_unsimulated
 
@@ -698,7 +701,7 @@ def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | N
     ``key``: a public key file; every lock and amend entry must carry its valid signature.
     ``strict``: the warnings (things in the report folders no recorded run wrote) fail.
     """
-    from .verify import verify_all
+    from prespec.workflow.verify import verify_all
 
     with audit.guard.hold(Path(plan).parent, exclusive=False):  # no writer half way
         return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
@@ -710,7 +713,7 @@ def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | N
 def history(plan: str | Path, *, from_version: int | None = None,
             to_version: int | None = None) -> Any:
     """The locked versions of a plan and the changes in meaning between two of them."""
-    from .history import history as _history
+    from prespec.audit.history import history as _history
 
     with audit.guard.hold(Path(plan).parent, exclusive=False):
         return _history(plan, from_version=from_version, to_version=to_version)
@@ -718,14 +721,14 @@ def history(plan: str | Path, *, from_version: int | None = None,
 
 def new_key(name: str | Path) -> Any:
     """Write an Ed25519 key pair ``NAME.key`` (mode 0600) and ``NAME.pub``."""
-    from .signing import new_key as _new_key
+    from prespec.audit.signing import new_key as _new_key
 
     return _new_key(name)
 
 
 def demo(folder: str | Path = "prespec-demo", *, actor: str | None = None) -> Path:
     """Write the invented demo study, lock and run it; return the path of report.html."""
-    from .demo import write_demo
+    from prespec.demo.wound import write_demo
 
     plan_path, data_path = write_demo(Path(folder))
     lock(plan_path, actor=actor)

@@ -10,9 +10,10 @@ import sys
 from collections.abc import Sequence
 from typing import Any
 
-from . import __version__, api
+from prespec import __version__, api
+from prespec.common.shown import console, console_lines, json_text
+
 from .errors import BadInput, PrespecError
-from .shown import console, console_lines, json_text
 
 
 def print(*values: object, **options: Any) -> None:  # the builtin's name, on purpose

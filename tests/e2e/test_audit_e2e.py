@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from prespec.demo import PLAN_TEXT, demo_data
+from prespec.demo.wound import PLAN_TEXT, demo_data
 
 PRESPEC = [sys.executable, "-m", "prespec"]
 

@@ -97,7 +97,7 @@ def test_lock_again_is_a_no_op_and_a_change_points_to_amend(demo: Path, tmp_path
 
 
 def test_bad_plan_is_one_line_exit_2_nothing_written(tmp_path: Path) -> None:
-    from prespec.demo import PLAN_TEXT
+    from prespec.demo.wound import PLAN_TEXT
 
     plan = tmp_path / "p.yaml"
     plan.write_text(PLAN_TEXT.replace("compare: [negative-pressure, gauze]",
@@ -114,7 +114,7 @@ def test_bad_plan_is_one_line_exit_2_nothing_written(tmp_path: Path) -> None:
 
 
 def test_run_without_lock_needs_a_reason(tmp_path: Path) -> None:
-    from prespec.demo import write_demo
+    from prespec.demo.wound import write_demo
 
     plan, data = write_demo(tmp_path / "s")
     refused = cli("run", str(plan), str(data), cwd=tmp_path)
@@ -200,7 +200,7 @@ def test_verify_command_names_the_failure(demo: Path, tmp_path: Path) -> None:
 
 def test_the_methods_tour_runs_to_a_report(tmp_path: Path) -> None:
     """plans/methods-tour.yaml names every kind of comparison; its report renders them all."""
-    from prespec.demo import demo_data
+    from prespec.demo.wound import demo_data
 
     root = Path(__file__).parents[2]
     shutil.copy(root / "plans" / "methods-tour.yaml", tmp_path / "tour.yaml")

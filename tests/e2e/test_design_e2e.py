@@ -11,8 +11,8 @@ from pathlib import Path
 
 import pytest
 
-from prespec.demo import PLAN_TEXT as DEMO_PLAN
-from prespec.demo import demo_data
+from prespec.demo.wound import PLAN_TEXT as DEMO_PLAN
+from prespec.demo.wound import demo_data
 
 # The demo plan without its own design section; these tests add the design they need.
 PLAN_TEXT = re.sub(r"^design:\n(?:  .*\n)+", "", DEMO_PLAN, flags=re.MULTILINE)

@@ -1,6 +1,6 @@
 """A family through the command, as a user runs it: lock, run, verify, rehearse (subprocess).
 
-The data are the invented hand-gel safety review of ``prespec.safety_demo``: two gels of 200
+The data are the invented hand-gel safety review of ``prespec.demo.safety``: two gels of 200
 participants, 30 terms in 3 body systems, one row per participant and term.
 """
 
@@ -19,7 +19,7 @@ from typing import Any
 import pandas as pd
 import pytest
 
-from prespec.safety_demo import TERMS, safety_frame, write_safety_demo
+from prespec.demo.safety import TERMS, safety_frame, write_safety_demo
 
 PRESPEC = [sys.executable, "-m", "prespec"]
 CHROMIUM = Path("/usr/bin/chromium")

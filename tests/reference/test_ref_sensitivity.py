@@ -1,7 +1,7 @@
 """Reference checks of the tipping-point grid: every cell recomputed directly by scipy and
 statsmodels on its completed 2×2 table, and the boundary of a small case worked by hand.
 
-The grid of ``prespec.sensitivity`` is computed on whole arrays (closed forms, and Fisher's
+The grid of ``prespec.analysis.sensitivity`` is computed on whole arrays (closed forms, and Fisher's
 exact test by one hypergeometric law per anti-diagonal); here each cell's table is handed to
 the library function on its own, so the two share nothing but the counts.
 """
@@ -17,8 +17,8 @@ import pytest
 import scipy.stats
 from statsmodels.stats import proportion as sm_proportion
 
-from prespec import sensitivity
-from prespec.sensitivity import Observed, grid_p_values, tipping_point, tipping_point_json
+from prespec.analysis import sensitivity
+from prespec.analysis.sensitivity import Observed, grid_p_values, tipping_point, tipping_point_json
 from prespec.stats.margins import farrington_manning
 
 REL = 1e-9

@@ -6,9 +6,10 @@ import json
 from pathlib import Path
 from typing import Any
 
-from ..canonical import canonical_json, sha256_tag
+from prespec.common.canonical import canonical_json, sha256_tag
+from prespec.common.shown import json_text
+
 from ..errors import IntegrityStop
-from ..shown import json_text
 from .files import fsync_dir, replace_atomically
 
 VERSION_KEYS = ("version", "fingerprint", "plan", "plan_file_sha256", "previous", "reason", "at",
@@ -51,7 +52,7 @@ def latest(doc: dict[str, Any]) -> dict[str, Any]:
 
 def lock_bytes(doc: dict[str, Any]) -> bytes:
     """The exact bytes prespec writes for a lock document (hidden characters as ``\\u``
-    escapes, :func:`prespec.shown.json_text`)."""
+    escapes, :func:`prespec.common.shown.json_text`)."""
     return (json_text(doc, indent=2) + "\n").encode("utf-8")
 
 

@@ -19,9 +19,10 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from ..canonical import canonical_json, sha256_hex
+from prespec.common.canonical import canonical_json, sha256_hex
+from prespec.common.shown import json_text
+
 from ..errors import IntegrityStop
-from ..shown import json_text
 from . import guard
 from .files import fsync_dir, replace_atomically
 
@@ -29,7 +30,7 @@ GENESIS = "0" * 64
 ACTIONS = frozenset({"lock", "amend", "run", "rehearse", "design", "look"})
 ENTRY_KEYS = ("seq", "at", "actor", "action", "plan", "data", "details", "deviations", "prev")
 # An optional key, only on lock and amend entries: an Ed25519 signature of the entry's content
-# (see ``prespec.signing``). It sits before ``hash``, so the chain hash covers it as well.
+# (see ``prespec.audit.signing``). It sits before ``hash``, so the chain hash covers it as well.
 SIGNATURE_KEY = "signature"
 SIGNED_ACTIONS = frozenset({"lock", "amend"})
 
@@ -38,7 +39,7 @@ def entry_line(entry: dict[str, Any]) -> bytes:
     """The exact bytes prespec writes for one entry: its JSON in key order, and a newline.
 
     Bidi controls, C1 controls and line separators in a value are written as ``\\uNNNN``
-    escapes (:func:`prespec.shown.json_text`), so that the raw log shows them."""
+    escapes (:func:`prespec.common.shown.json_text`), so that the raw log shows them."""
     return json_text(entry, sort_keys=False).encode("utf-8") + b"\n"
 
 

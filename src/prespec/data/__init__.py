@@ -1,7 +1,8 @@
 """Reading data, matching values, and reducing rows to count tables."""
 
-from ..canonical import file_sha256
-from ..matching import ValueSet, as_number, as_text, is_blank, value_key
+from prespec.common.canonical import file_sha256
+from prespec.common.matching import ValueSet, as_number, as_text, is_blank, value_key
+
 from .prepare import (
     GroupCounts,
     HypothesisCounts,

@@ -4,7 +4,7 @@ Each level's rows are a complete analysis set for that level (one row per unit, 
 saying whether the unit had the event), so the usual preparation runs on them unchanged: the
 population filter, the group check, the outcome mapping and missing rule, the id check and
 the sample-size check (:func:`prespec.data.prepare.prepare`). Every column is carried along
-untouched, a weight column too. Levels match by the matching rule (``prespec.matching``).
+untouched, a weight column too. Levels match by the matching rule (``prespec.common.matching``).
 Rows whose level is blank are left out with a note; with declared levels, rows holding another
 level are left out as the departure ``undeclared-level`` and a declared level without rows is
 a note (its member is reported with no data). A level belongs to one group of ``within``:
@@ -23,9 +23,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..departures import Departure, Note
+from prespec.common.departures import Departure, Note
+from prespec.common.matching import as_text, is_blank, value_key
+
 from ..errors import DataError
-from ..matching import as_text, is_blank, value_key
 from ..plan.families import declared, member_id
 from .prepare import Prepared, _per_unique, prepare
 from .read import missing_column

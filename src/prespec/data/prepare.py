@@ -17,9 +17,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..departures import Departure, Note
+from prespec.common.departures import Departure, Note
+from prespec.common.matching import ValueSet, as_number, as_text, is_blank
+
 from ..errors import DataError
-from ..matching import ValueSet, as_number, as_text, is_blank
 from .read import missing_column
 
 _SHOW = 5  # how many offending values an error message lists

@@ -18,7 +18,8 @@ from typing import Any
 import pandas as pd
 import pyarrow as pa
 
-from ..departures import listed
+from prespec.common.departures import listed
+
 from ..errors import DataError
 
 #: How many column names a missing-column message lists before "… and N more".

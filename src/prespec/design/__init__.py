@@ -7,7 +7,7 @@ Public interface: :func:`design_document` and :func:`design_text` (``prespec des
 (whole trials on arrays).
 """
 
-from prespec.design.report import (
+from prespec.design.document import (
     alpha_shares,
     design_document,
     design_text,

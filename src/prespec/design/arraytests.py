@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from prespec import methods
+from prespec.analysis import methods
 from prespec.design.exactpower import FisherTables, binomial_p_values
 from prespec.stats.proportions import deviance_terms
 

@@ -3,7 +3,7 @@
 maximum inflation of the sample size and the expected sample size under the null and under
 the design's assumed rates.
 
-The fixed-sample size is the one :mod:`prespec.design.report` computes; a group-sequential
+The fixed-sample size is the one :mod:`prespec.design.document` computes; a group-sequential
 design needs ``inflation`` times that information at the last look (Jennison & Turnbull 2000,
 ch. 2 and 7); the expected sizes are the expected information over the fixed one, times the
 fixed size (the futility boundary followed when there is one, as a trial that stops for

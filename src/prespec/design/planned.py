@@ -38,9 +38,9 @@ def _needs_designed_n(raw: Any) -> list[str] | None:
 def designed_sizes(plan: Any) -> dict[str, int]:
     """Per group, the largest analysed size any ordinary hypothesis is designed to need: its
     maximum size under interim looks, else its fixed-sample size."""
+    from prespec.analysis.families import ordinary_plan
+    from prespec.design.document import size_plan
     from prespec.design.looks import looks_design
-    from prespec.design.report import size_plan
-    from prespec.families import ordinary_plan
 
     sized_plan = ordinary_plan(plan)
     sized, _ = size_plan(sized_plan)
@@ -97,7 +97,7 @@ def designed_n_line(sizes: dict[str, int]) -> str:
 def refuse_unsimulated(path: Path, plan: Any) -> None:
     """Refuse ``--simulate`` for a plan it does not cover (a stratified test: the simulation
     draws one rate per group, with no strata), as a one-line error at the plan's line."""
-    from prespec.families import is_family
+    from prespec.analysis.families import is_family
     from prespec.plan.locate import Issue, Locator
 
     for i, hyp in enumerate(plan.hypotheses):

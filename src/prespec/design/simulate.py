@@ -24,7 +24,7 @@ from typing import Any
 
 import numpy as np
 
-from prespec.analysis import MAIN_FAMILY, follow_ups
+from prespec.analysis.hypotheses import MAIN_FAMILY, follow_ups
 from prespec.design import arraymultiplicity
 from prespec.design.arraytests import ArrayTest, array_test, smallest_expected
 from prespec.errors import BadInput

@@ -14,8 +14,8 @@ from typing import Any
 import rfc8785
 from pydantic import ValidationError
 
+from prespec.common.matching import value_key
 from prespec.errors import PlanError
-from prespec.matching import value_key
 from prespec.plan.locate import Issue, Locator
 from prespec.plan.messages import issue_from_pydantic
 from prespec.plan.model import (

@@ -10,7 +10,7 @@ discovery rate (Mehrotra and Heyse 2004) at ``flag_level``, outside the plan's c
 multiplicity, which stays over the ordinary hypotheses.
 
 This module holds the defaults (filled in before validation) and the rules across keys; the
-data side is :mod:`prespec.data.families`, the statistics :mod:`prespec.families`.
+data side is :mod:`prespec.data.families`, the statistics :mod:`prespec.analysis.families`.
 """
 
 from __future__ import annotations

@@ -12,7 +12,7 @@ import re
 from collections.abc import Iterator
 from typing import Any
 
-from prespec.matching import value_key
+from prespec.common.matching import value_key
 from prespec.plan import vocabulary as v
 from prespec.plan.families import family_issues
 from prespec.plan.locate import Issue

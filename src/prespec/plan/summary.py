@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
+from prespec.common.shown import console
 from prespec.plan.families import family_words
 from prespec.plan.model import Condition, Hypothesis, Plan
 from prespec.plan.yamlread import show
-from prespec.shown import console
 
 
 def _num(value: float | None) -> str:
@@ -60,7 +60,7 @@ def _sides(plan: Plan, hyp: Hypothesis) -> list[str]:
 
 
 def _then(plan: Plan, hyp: Hypothesis) -> str:
-    from prespec.analysis import follow_ups
+    from prespec.analysis.hypotheses import follow_ups
 
     assert hyp.then is not None
     subs = follow_ups(hyp, plan)  # what the run tests, so the words cannot drift from it

@@ -13,7 +13,7 @@ import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from prespec.shown import visible
+from prespec.common.shown import visible
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from prespec.common.shown import csv_writer
 from prespec.report.canvas import FIGURES, GUIDE, INK, LINE, new_figure, safe_stem, shorten
 from prespec.report.markup import QUIET_STYLE, esc, fields, plural
 from prespec.report.tablenames import family_table
@@ -37,7 +38,6 @@ from prespec.report.values import (
     number,
     text,
 )
-from prespec.shown import csv_writer
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure

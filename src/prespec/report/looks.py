@@ -2,7 +2,7 @@
 adjusted inference and the repeated confidence intervals, with the boundary figure.
 
 Nothing is computed here: every number is the one ``results.json`` holds in a hypothesis's
-``looks`` block (written by :mod:`prespec.looks`). The figure ``figures/looks-<id>.png`` plots
+``looks`` block (written by :mod:`prespec.analysis.looks`). The figure ``figures/looks-<id>.png`` plots
 the efficacy boundary (both sides for a two-sided test) and the futility boundary against the
 information fraction, with the observed z of this and of the earlier looks.
 """

@@ -12,7 +12,7 @@ from __future__ import annotations
 import html
 from collections.abc import Iterable, Mapping, Sequence
 
-from prespec.shown import visible
+from prespec.common.shown import visible
 
 BOX = "border:2px solid {c};background:{b};padding:0.6em 0.9em;margin:0.8em 0;"
 CAUTION_STYLE = BOX.format(c="#7a4b00", b="#fff6e0")

@@ -20,8 +20,8 @@ from typing import Any
 import nbformat
 from nbformat import NotebookNode
 
+from prespec.common.shown import visible
 from prespec.errors import PrespecError
-from prespec.shown import visible
 
 TEMPLATE = Path(__file__).with_name("template.ipynb")
 

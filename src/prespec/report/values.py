@@ -15,9 +15,9 @@ import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from prespec.caution import CAUTION
+from prespec.common.caution import CAUTION
+from prespec.common.shown import visible  # noqa: F401  (one rule for every output; kept here by name)
 from prespec.errors import PrespecError
-from prespec.shown import visible  # noqa: F401  (one rule for every output; kept here by name)
 
 #: What the report shows for a null (not computable) value.
 NULL = "—"

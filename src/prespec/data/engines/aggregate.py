@@ -17,7 +17,8 @@ from typing import Any, ClassVar
 import numpy as np
 import pandas as pd
 
-from ...canonical import file_sha256
+from prespec.common.canonical import file_sha256
+
 from ...errors import DataError
 from ..read import missing_column
 from . import columns

@@ -23,7 +23,8 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from ...matching import as_number, as_text
+from prespec.common.matching import as_number, as_text
+
 from .base import KEEP_COLUMN, WEIGHT_COLUMN, ColumnMap, CountRequest, Filter
 from .columns import UTF8_HEX_PATTERN
 

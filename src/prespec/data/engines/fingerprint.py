@@ -16,7 +16,8 @@ from typing import Any
 
 import pandas as pd
 
-from ...matching import as_text, is_blank
+from prespec.common.matching import as_text, is_blank
+
 from .base import CountRequest
 from .compiler import FIELD_SEPARATOR
 

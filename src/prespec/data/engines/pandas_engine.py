@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import pandas as pd
 
-from ...canonical import file_sha256
+from prespec.common.canonical import file_sha256
+
 from ...errors import DataError
 from ..read import read_data
 from . import columns

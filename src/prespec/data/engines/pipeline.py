@@ -59,7 +59,7 @@ def blinded_rows(plan: Any, source: DataSource, *, engine: str = "auto") -> Blin
             data_hash = eng.file_hash() or eng.row_hash(request, eng.relation(request), kinds)
         else:
             query = None
-            from ...canonical import file_sha256
+            from prespec.common.canonical import file_sha256
 
             data_hash = file_sha256(source.path)
         return BlindedRows(frame, data_hash, eng.name, query)

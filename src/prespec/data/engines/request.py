@@ -5,7 +5,8 @@ from __future__ import annotations
 from collections import Counter
 from typing import Any
 
-from ...matching import ValueSet, as_text
+from prespec.common.matching import ValueSet, as_text
+
 from ..prepare import read_columns
 from .base import ColumnMap, CountRequest, Filter
 

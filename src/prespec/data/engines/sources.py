@@ -13,8 +13,9 @@ import os
 from pathlib import Path
 from typing import Any
 
-from ...canonical import file_sha256
-from ...departures import Note
+from prespec.common.canonical import file_sha256
+from prespec.common.departures import Note
+
 from ...errors import BadInput, DataError, PlanError
 from .base import DataSource, expand_glob
 

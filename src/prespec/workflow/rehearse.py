@@ -10,7 +10,7 @@ computed on that allocation and rendered into a temporary folder that is deleted
 What the rehearsal writes is pooled over the groups and so depends on no allocation: the
 overall event rate of each outcome with its Wilson interval, the missingness, the population
 counts, the departures that do not depend on the groups, whether each hypothesis executed,
-and the data dictionary (:mod:`prespec.dictionary`).
+and the data dictionary (:mod:`prespec.data.dictionary`).
 """
 
 from __future__ import annotations
@@ -26,18 +26,24 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .analysis import analyse, compute_hypothesis, follow_ups
-from .caution import CAUTION
-from .data import Prepared
-from .data.engines.base import DataSource
-from .data.families import FamilyData
-from .departures import Departure, Note
-from .dictionary import data_dictionary, uses, write_dictionary_csv
-from .errors import BadInput
-from .execute import build_results, family_file, provenance, with_engine
-from .families import analyse_families, ordinary_plan, prepare_run, rehearsal_families, templates
-from .shown import csv_writer
-from .stats import intervals
+from prespec.analysis.families import (
+    analyse_families,
+    ordinary_plan,
+    prepare_run,
+    rehearsal_families,
+    templates,
+)
+from prespec.analysis.hypotheses import analyse, compute_hypothesis, follow_ups
+from prespec.common.caution import CAUTION
+from prespec.common.departures import Departure, Note
+from prespec.common.shown import csv_writer
+from prespec.data import Prepared
+from prespec.data.dictionary import data_dictionary, uses, write_dictionary_csv
+from prespec.data.engines.base import DataSource
+from prespec.data.families import FamilyData
+from prespec.errors import BadInput
+from prespec.stats import intervals
+from prespec.workflow.execute import build_results, family_file, provenance, with_engine
 
 #: The name of the rehearsal's pooled table in ``tables/``.
 POOLED_TABLE = "pooled.csv"
@@ -239,7 +245,7 @@ def _hypothesis_rows(plan: Any, executed: dict[str, Executed],
 def _dummy_looks(plan: Any, hypotheses: list[dict[str, Any]], notes: list[Note]) -> None:
     """The step of interim looks on the dummy allocation, as the final analysis with no
     earlier looks (the rehearsal has no log of looks); its departures are discarded."""
-    from .looks import LookRun, apply_looks, number_of_looks
+    from prespec.analysis.looks import LookRun, apply_looks, number_of_looks
 
     count = number_of_looks(plan)
     if count is not None:
@@ -254,7 +260,7 @@ def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any], full: A
 
     ``plan`` holds the ordinary hypotheses; the families of ``full`` run on ``family_data``
     (each family's id is marked as executed or not)."""
-    from .publish import build_report
+    from prespec.workflow.publish import build_report
 
     notes: list[Note] = []
     families: list[dict[str, Any]] = []
@@ -310,8 +316,8 @@ def compute_rehearsal(
     """Read the data without the group column, rehearse the run, and build the pooled
     results.json document of a rehearsal (not written). ``source`` (default: the file
     ``data_path``) is read by ``engine``; no engine is asked for the group column."""
-    from .data.engines.pipeline import blinded_rows
-    from .data.engines.sources import data_file_field, data_files_field, file_stamps
+    from prespec.data.engines.pipeline import blinded_rows
+    from prespec.data.engines.sources import data_file_field, data_files_field, file_stamps
 
     if source is None:
         source = DataSource("file", str(data_path), str(data_path))

@@ -36,9 +36,9 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from .departures import Departure, Note
-from .errors import BadInput
-from .plan.looks import CLASSICAL, CLASSICAL_TOLERANCE, planned_total, sides
+from prespec.common.departures import Departure, Note
+from prespec.errors import BadInput
+from prespec.plan.looks import CLASSICAL, CLASSICAL_TOLERANCE, planned_total, sides
 
 #: The decisions of a look.
 DECISIONS: tuple[str, ...] = (
@@ -182,7 +182,7 @@ def _finite(x: float | None) -> float | None:
 
 def observe(events: list[int], totals: list[int]) -> dict[str, float | None]:
     """θ̂ = p_a − p_b, the pooled z and the information I = 1 / var₀(θ̂) of a 2×2 table."""
-    from .stats.proportions import two_proportion_z
+    from prespec.stats.proportions import two_proportion_z
 
     (x1, x2), (n1, n2) = events, totals
     if n1 <= 0 or n2 <= 0:
@@ -203,7 +203,7 @@ def _bounds_for(
 ) -> Any:
     """The planned boundaries and those at ``fractions``, at ``alpha`` (default the plan's);
     futility with the drift of the planned design."""
-    from .stats.sequential import boundaries
+    from prespec.stats.sequential import boundaries
 
     looks = hyp.looks
     fut = looks.futility
@@ -238,7 +238,7 @@ def hypothesis_look(
     decision is the procedure's, and ``p_adjusted`` is null. The repeated confidence
     intervals and the adjusted inference stay at the plan's alpha (intervals are never
     adjusted for multiplicity)."""
-    from .analysis import interval_level
+    from prespec.analysis.hypotheses import interval_level
 
     looks = hyp.looks
     table = entry["table"]
@@ -387,7 +387,7 @@ def _decide(hyp: Any, z: float | None, b: float | None, direction: int, run: Loo
 def _repeated(values: list[dict[str, Any]], numbers: list[int],
               bound_z: list[float]) -> list[dict[str, Any]]:
     """The repeated confidence interval of every look (Jennison & Turnbull 1989)."""
-    from .stats.sequential import repeated_ci
+    from prespec.stats.sequential import repeated_ci
 
     out = []
     for j, h in enumerate(values):
@@ -405,7 +405,7 @@ def _adjusted(hyp: Any, zs: list[Any], infos: list[Any], bounds: Any, direction:
     """The stage-wise inference on the scale oriented so that the crossing is upward: the
     direction of benefit for a one-sided test, the sign of the last z for a two-sided one
     (its boundaries are symmetric), turned back to the first-minus-second scale."""
-    from .stats.sequential import stagewise_inference
+    from prespec.stats.sequential import stagewise_inference
 
     if sides(hyp) == 2:
         direction = -1 if float(zs[-1]) < 0 else 1
@@ -446,7 +446,7 @@ def family(plan: Any) -> list[Any] | None:
 
 
 def _graph_of(plan: Any, members: list[Any]) -> tuple[str, list[float], list[list[float]]]:
-    from .stats.graphlooks import family_graph
+    from prespec.stats.graphlooks import family_graph
 
     mult = plan.multiplicity
     if isinstance(mult, str):
@@ -481,8 +481,8 @@ def graph_decisions(
     """The graphical procedure over the looks so far (Maurer & Bretz 2013): per member, its
     level at the end of this look (at rejection, for a rejected one) and the look of its
     rejection. A member without looks is tested once, at the final analysis, by its p-value."""
-    from .stats.graphlooks import graph_over_looks
-    from .stats.sequential import boundaries
+    from prespec.stats.graphlooks import graph_over_looks
+    from prespec.stats.sequential import boundaries
 
     method, weights, transitions = _graph_of(plan, members)
     series = {h.id: _series(plan, h, entries[h.id], run) for h in members if h.looks is not None}

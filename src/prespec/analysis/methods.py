@@ -11,8 +11,8 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from .errors import DataError
-from .stats import (
+from prespec.errors import DataError
+from prespec.stats import (
     exact,
     intervals,
     margins,
@@ -22,7 +22,7 @@ from .stats import (
     stratified,
     trend,
 )
-from .stats.results import Estimate, TestResult
+from prespec.stats.results import Estimate, TestResult
 
 Strata = Sequence[tuple[int, int, int, int]]
 

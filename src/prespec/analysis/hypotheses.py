@@ -12,11 +12,11 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from . import methods, sensitivity
-from .data import Prepared
-from .departures import Note
-from .stats import graphical, multiplicity, tables
-from .stats.results import TestResult
+from prespec.analysis import methods, sensitivity
+from prespec.common.departures import Note
+from prespec.data import Prepared
+from prespec.stats import graphical, multiplicity, tables
+from prespec.stats.results import TestResult
 
 MAIN_FAMILY = "main"
 
@@ -504,7 +504,7 @@ def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[N
 
 def group_summaries(plan: Any, prepared: Prepared) -> dict[str, list[dict[str, Any]]]:
     """Per outcome and group: events, total, missing, proportion and its Wilson interval."""
-    from .stats import intervals
+    from prespec.stats import intervals
 
     level = 1.0 - plan.alpha
     out: dict[str, list[dict[str, Any]]] = {}

@@ -1,7 +1,7 @@
 """The statistics of families: one comparison per level, flagged by a false discovery rate.
 
 Each member of a family is the family's template run on one level's rows with the ordinary
-machinery (:func:`prespec.analysis.compute_hypothesis`: sparse switch, test, risk difference
+machinery (:func:`prespec.analysis.hypotheses.compute_hypothesis`: sparse switch, test, risk difference
 with its interval). For ``fisher-exact`` without a sparse switch the p-values of all members
 are computed at once by :func:`prespec.stats.fisherarray.fisher_many`, giving the same
 numbers. The members are then flagged by Benjamini–Hochberg over the whole
@@ -26,16 +26,21 @@ from typing import Any
 
 import pandas as pd
 
-from . import methods
-from .analysis import compute_hypothesis, estimate_json, finite_or_note, interval_level
-from .data import Prepared, prepare
-from .data.families import FamilyData, Level, family_data
-from .departures import Note
-from .plan.families import family_column, is_family, member_id
-from .stats import multiplicity
-from .stats.doublefdr import double_fdr
-from .stats.exact import TIE_TOLERANCE
-from .stats.fisherarray import fisher_many
+from prespec.analysis import methods
+from prespec.analysis.hypotheses import (
+    compute_hypothesis,
+    estimate_json,
+    finite_or_note,
+    interval_level,
+)
+from prespec.common.departures import Note
+from prespec.data import Prepared, prepare
+from prespec.data.families import FamilyData, Level, family_data
+from prespec.plan.families import family_column, is_family, member_id
+from prespec.stats import multiplicity
+from prespec.stats.doublefdr import double_fdr
+from prespec.stats.exact import TIE_TOLERANCE
+from prespec.stats.fisherarray import fisher_many
 
 Progress = Callable[[str, int, int], None]
 

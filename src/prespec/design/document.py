@@ -18,7 +18,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from prespec.caution import CAUTION
+from prespec.common.caution import CAUTION
 from prespec.design import exactpower, samplesize
 from prespec.design.simulate import Progress, simulate
 from prespec.errors import BadInput

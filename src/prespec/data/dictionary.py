@@ -20,10 +20,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .data.prepare import cell_predicate
-from .data.read import missing_column
-from .matching import ValueSet, as_text, is_blank
-from .shown import csv_writer
+from prespec.common.matching import ValueSet, as_text, is_blank
+from prespec.common.shown import csv_writer
+from prespec.data.prepare import cell_predicate
+from prespec.data.read import missing_column
 
 #: At most this many values are listed per column; the rest are counted in ``more``.
 MAX_VALUES = 50

@@ -15,13 +15,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from . import audit
-from .errors import raise_recorded
-from .execute import check_out_folder, check_report_place
-from .families import family_details
-from .manifest import write_manifest
-from .report.tablenames import TABLES, groups_table, hypothesis_table
-from .shown import csv_writer, json_text
+from prespec import audit
+from prespec.analysis.families import family_details
+from prespec.audit.manifest import write_manifest
+from prespec.common.shown import csv_writer, json_text
+from prespec.errors import raise_recorded
+from prespec.report.tablenames import TABLES, groups_table, hypothesis_table
+from prespec.workflow.execute import check_out_folder, check_report_place
 
 
 @dataclass(frozen=True)
@@ -63,7 +63,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
     tables = folder / TABLES
     tables.mkdir()
     if results.get("kind") == "rehearsal":  # pooled figures and the data dictionary only
-        from .rehearsal import write_rehearsal_tables
+        from prespec.workflow.rehearse import write_rehearsal_tables
 
         write_rehearsal_tables(tables, results)
         return
@@ -77,7 +77,7 @@ def _write_tables(folder: Path, results: dict[str, Any]) -> None:
                             r["missing"], r["proportion"], r["ci"][0], r["ci"][1],
                             r["ci_method"], r["level"]])
     if results.get("families"):
-        from .report.families import write_family_tables
+        from prespec.report.families import write_family_tables
 
         write_family_tables(folder, results)
     for h in results["hypotheses"]:
@@ -106,7 +106,7 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
 
     Nothing is left behind when any step fails: the temporary folder is removed.
     """
-    from .report import render_notebook, write_figures  # heavy imports, only when reporting
+    from prespec.report import render_notebook, write_figures  # heavy imports, only when reporting
 
     folder.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=partial_prefix(folder), dir=folder.parent))
@@ -132,7 +132,7 @@ def move_into_place(tmp: Path, folder: Path, manifest: str | None = None) -> Non
     With ``manifest``, a temporary folder already moved by another process (see
     :func:`complete_interrupted`) is accepted when the folder holds that manifest.
     """
-    from .canonical import file_sha256
+    from prespec.common.canonical import file_sha256
 
     try:
         os.replace(tmp, folder)
@@ -231,7 +231,7 @@ def pending_report(plan_path: Path, entry: dict[str, Any]) -> Pending | None:
     """The temporary folder holding the report of ``entry`` if the run stopped before its
     rename: the named folder is empty (or absent) and exactly one temporary sibling has the
     manifest the log recorded."""
-    from .canonical import file_sha256
+    from prespec.common.canonical import file_sha256
 
     details = entry.get("details")
     if not isinstance(details, dict) or not isinstance(details.get("report"), str):

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path, PurePosixPath
 
-from .canonical import file_sha256
+from prespec.common.canonical import file_sha256
 
 MANIFEST = "manifest.json"
 

@@ -17,17 +17,17 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from . import audit
-from .api import VerifyResult, apply_overrides, mark_overrides
-from .audit.lockfile import logged_pending, pending_path, version_digest
-from .canonical import file_sha256
-from .departures import capped_found
-from .errors import IntegrityStop, PrespecError
-from .families import declared_members, member_ids
-from .looks import look_problem, look_run
-from .manifest import check_manifest
-from .plan import fingerprint, load_plan, plan_from_resolved
-from .publish import PARTIAL, pending_report
+from prespec import audit
+from prespec.analysis.families import declared_members, member_ids
+from prespec.analysis.looks import look_problem, look_run
+from prespec.api import VerifyResult, apply_overrides, mark_overrides
+from prespec.audit.lockfile import logged_pending, pending_path, version_digest
+from prespec.audit.manifest import check_manifest
+from prespec.common.canonical import file_sha256
+from prespec.common.departures import capped_found
+from prespec.errors import IntegrityStop, PrespecError
+from prespec.plan import fingerprint, load_plan, plan_from_resolved
+from prespec.workflow.publish import PARTIAL, pending_report
 
 
 class VerifyFailure(IntegrityStop):
@@ -81,7 +81,7 @@ def _check_signatures(entries: list[dict[str, Any]], key: Path | None,
     signed = [e for e in entries if audit.log.SIGNATURE_KEY in e]
     if key is None and not signed:
         return
-    from .signing import key_id, load_public, signature_problem
+    from prespec.audit.signing import key_id, load_public, signature_problem
 
     try:
         public = load_public(key) if key is not None else None
@@ -705,8 +705,8 @@ def _look_of(entries: list[dict[str, Any]], entry: dict[str, Any], model: Any) -
 def _design_as_written(stored: dict[str, Any], again: dict[str, Any], model: Any) -> None:
     """A design entry written before the power of a two-sided test counted its far tail is
     recomputed the same way, so that such a report keeps verifying."""
-    from .design.report import BOTH_TAILS_KEY
-    from .execute import design_entry
+    from prespec.design.document import BOTH_TAILS_KEY
+    from prespec.workflow.execute import design_entry
 
     design = stored.get("design")
     if isinstance(design, dict) and BOTH_TAILS_KEY not in design and again.get("design"):
@@ -717,7 +717,7 @@ def _design_as_written(stored: dict[str, Any], again: dict[str, Any], model: Any
 def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None,
            found: dict[str, Path], data: Path, report: str | None,
            result: VerifyResult) -> None:
-    from .execute import compute_results
+    from prespec.workflow.execute import compute_results
 
     if not data.is_file():
         raise _fail(result, f"rerun: {data}: no such data file")

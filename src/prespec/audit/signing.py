@@ -30,8 +30,8 @@ from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives import serialization
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
 
-from .audit.log import SIGNATURE_KEY, Signer, signing_message
-from .errors import BadInput
+from prespec.audit.log import SIGNATURE_KEY, Signer, signing_message
+from prespec.errors import BadInput
 
 ALGORITHM = "ed25519"
 

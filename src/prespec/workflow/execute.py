@@ -11,15 +11,15 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from . import audit
-from .analysis import analyse, group_summaries
-from .caution import CAUTION
-from .data import Prepared, file_sha256, read_data
-from .data.engines.base import DataSource
-from .data.prepare import read_columns
-from .departures import Departure, Note
-from .errors import BadInput
-from .families import analyse_families, ordinary_plan, prepare_run, templates
+from prespec import audit
+from prespec.analysis.families import analyse_families, ordinary_plan, prepare_run, templates
+from prespec.analysis.hypotheses import analyse, group_summaries
+from prespec.common.caution import CAUTION
+from prespec.common.departures import Departure, Note
+from prespec.data import Prepared, file_sha256, read_data
+from prespec.data.engines.base import DataSource
+from prespec.data.prepare import read_columns
+from prespec.errors import BadInput
 
 
 def default_folder(plan_path: Path, kind: str) -> Path:
@@ -117,7 +117,7 @@ def design_entry(plan: Any, kind: str, hypotheses: list[dict[str, Any]], *,
     """Planned versus achieved: the design's n per group for each hypothesis and, in a run,
     the analysed n of its table (a rehearsal shows no group's size). ``both_tails=False``:
     as written before the power of a two-sided test counted its far tail."""
-    from .design import planned_vs_achieved
+    from prespec.design import planned_vs_achieved
 
     achieved = None
     if kind == "run":
@@ -149,13 +149,13 @@ def compute_results(
     ``source`` (default: the file ``data_path``) is reduced by ``engine`` (``auto``: by the
     source's kind and size); the engine and its query are recorded in the document;
     ``counting(percent)`` reports a long reduction. ``looks`` (a
-    :class:`prespec.looks.LookRun`) makes it the run of an interim look or of the final
+    :class:`prespec.analysis.looks.LookRun`) makes it the run of an interim look or of the final
     analysis of a plan with looks (``looks.py``). Family templates (``over``) are run per level
-    (:mod:`prespec.families`) and listed under ``families``; ``progress(what, done, total)`` is
+    (:mod:`prespec.analysis.families`) and listed under ``families``; ``progress(what, done, total)`` is
     called as a family's levels are prepared."""
-    from .data.engines.columns import check_file
-    from .data.engines.pipeline import count_source
-    from .data.engines.sources import data_file_field, data_files_field, file_stamps
+    from prespec.data.engines.columns import check_file
+    from prespec.data.engines.pipeline import count_source
+    from prespec.data.engines.sources import data_file_field, data_files_field, file_stamps
 
     if source is None:
         source = DataSource("file", str(data_path), str(data_path))
@@ -196,7 +196,7 @@ def compute_results(
     hypotheses, stat_notes = analyse(ordinary_plan(plan), prepared)
     notes.extend(stat_notes)
     if looks is not None:
-        from .looks import apply_looks
+        from prespec.analysis.looks import apply_looks
 
         deviations.extend(apply_looks(plan, hypotheses, looks, notes))
     families = analyse_families(plan, family_data, notes)
@@ -233,7 +233,7 @@ def with_engine(results: dict[str, Any], engine: str, query: str | None,
     """``engine`` beside the provenance fields, the versions it counted with
     (``engine_library``), and the ``query`` it sent (None for pandas); for a glob, first
     ``data_files``: every file read with its SHA-256 (``sources.data_files_field``)."""
-    from .data.engines.choose import engine_library
+    from prespec.data.engines.choose import engine_library
 
     out: dict[str, Any] = {}
     for key, value in results.items():

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import BadInput
+from prespec.errors import BadInput
 
 PLAN_NAME = "wound-dressing.yaml"
 DATA_NAME = "data/wound-dressing.csv"

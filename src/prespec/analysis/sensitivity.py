@@ -35,10 +35,10 @@ from typing import Any
 import numpy as np
 from scipy import special, stats
 
-from .data import GroupCounts
-from .plan import vocabulary
-from .stats.proportions import FISHER_TIE_TOLERANCE, deviance_terms
-from .stats.ratios import ratio_discriminant
+from prespec.data import GroupCounts
+from prespec.plan import vocabulary
+from prespec.stats.proportions import FISHER_TIE_TOLERANCE, deviance_terms
+from prespec.stats.ratios import ratio_discriminant
 
 #: Tests whose tipping-point grid is computed here, on arrays (see the module docstring).
 GRID_TESTS: frozenset[str] = frozenset({

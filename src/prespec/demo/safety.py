@@ -110,7 +110,7 @@ DEFAULT_FOLDER = "safety-demo"
 
 
 def main(argv: list[str] | None = None) -> int:
-    """``python -m prespec.safety_demo [FOLDER]``: write the plan and its data into FOLDER
+    """``python -m prespec.demo.safety [FOLDER]``: write the plan and its data into FOLDER
     (default ``safety-demo``), print their paths and the commands that lock and run them.
     A folder holding other files is refused, so nothing is overwritten."""
     import argparse
@@ -118,7 +118,7 @@ def main(argv: list[str] | None = None) -> int:
     from prespec.errors import BadInput
 
     parser = argparse.ArgumentParser(
-        prog="python -m prespec.safety_demo",
+        prog="python -m prespec.demo.safety",
         description="Write the invented hand-gel safety review (a plan with a family over 30 "
                     "adverse-event terms, and its data) into a folder.")
     parser.add_argument("folder", nargs="?", default=DEFAULT_FOLDER,

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from . import audit
-from .errors import BadInput
+from prespec import audit
+from prespec.errors import BadInput
 
 ARROW = "→"
 
