@@ -12,6 +12,8 @@ from pathlib import Path
 import pytest
 
 import prespec.report
+import prespec.workflow.rehearse
+import prespec.workflow.run
 from prespec import api, audit
 from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, IntegrityStop, PrespecError
@@ -123,8 +125,8 @@ def test_environment_change_is_recorded(study: tuple[Path, Path],
                                         monkeypatch: pytest.MonkeyPatch) -> None:
     plan, data = study
     api.lock(plan)
-    real = api.environment()
-    monkeypatch.setattr(api, "environment", lambda: {**real, "scipy": "0.0-other"})
+    real = prespec.workflow.run.environment()
+    monkeypatch.setattr(prespec.workflow.run, "environment", lambda: {**real, "scipy": "0.0-other"})
     out = api.run(plan, data, out=plan.parent / "r")
     (dev,) = [d for d in out.results["deviations"] if d["code"] == "environment-differs-from-lock"]
     assert dev["expected"] == f"scipy {real['scipy']}" and dev["found"] == "scipy 0.0-other"
@@ -202,7 +204,8 @@ def test_runs_in_the_same_second_get_numbered_folders(study: tuple[Path, Path],
     plan, data = study
     api.lock(plan)
     fixed = plan.parent / "reports" / "trial" / "20270101T000000Z-run"
-    monkeypatch.setattr(api, "default_folder", lambda p, kind: fixed)
+    for step in (prespec.workflow.run, prespec.workflow.rehearse):  # each names its folder
+        monkeypatch.setattr(step, "default_folder", lambda p, kind: fixed)
     names = [api.run(plan, data).folder.name for _ in range(3)]
     assert names == ["20270101T000000Z-run", "20270101T000000Z-run-2", "20270101T000000Z-run-3"]
     assert len(api.verify(plan).passed) == 4

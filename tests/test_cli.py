@@ -112,7 +112,6 @@ def test_bad_data_exit_2_and_nothing_written(tmp_path: Path,
 def test_a_run_in_another_environment_is_recorded(tmp_path: Path, capsys: pytest.CaptureFixture[str],
                                                   monkeypatch: pytest.MonkeyPatch) -> None:
     import prespec.report
-    from prespec import api
     from prespec.demo.wound import demo_data
 
     monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
@@ -120,8 +119,8 @@ def test_a_run_in_another_environment_is_recorded(tmp_path: Path, capsys: pytest
     plan.write_text(PLAN_TEXT)
     data.write_text(demo_data())
     assert cli.main(["lock", str(plan)]) == 0
-    real = api.environment()
-    monkeypatch.setattr(api, "environment", lambda: {**real, "python": "3.99.0",
+    real = prespec.workflow.run.environment()
+    monkeypatch.setattr(prespec.workflow.run, "environment", lambda: {**real, "python": "3.99.0",
                                                      "statsmodels": "0.1"})
     capsys.readouterr()
     assert cli.main(["run", str(plan), str(data), "--out", str(tmp_path / "r")]) == 0

@@ -26,6 +26,8 @@ from typing import Any
 
 import pytest
 
+import prespec.workflow.rehearse
+import prespec.workflow.run
 from prespec import api, audit, cli
 from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, IntegrityStop
@@ -228,7 +230,8 @@ def again(study: Path, command: str, logged_before: int) -> None:
 def test_every_step_fails_cleanly(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
                                   command: str, error: str) -> None:
     fixed = Path("reports") / "trial" / "20270101T000000Z-step"  # the same steps every time
-    monkeypatch.setattr(api, "default_folder", lambda plan, kind: plan.parent / fixed)
+    for step in (prespec.workflow.run, prespec.workflow.rehearse):  # each names its folder
+        monkeypatch.setattr(step, "default_folder", lambda plan, kind: plan.parent / fixed)
     base = make_base(tmp_path / "base", command)
     probe = tmp_path / "probe"
     shutil.copytree(base, probe)

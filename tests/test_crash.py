@@ -30,6 +30,8 @@ import pytest
 
 import prespec.report
 import prespec.workflow.publish
+import prespec.workflow.rehearse
+import prespec.workflow.run
 from prespec import api, audit
 from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import IntegrityStop
@@ -200,7 +202,8 @@ def test_a_run_stopped_at_every_step_leaves_a_verifiable_folder(
         locked_study: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
         out: str | None) -> None:
     fixed = Path("reports") / "trial" / "20270101T000000Z-run"  # the same steps every time
-    monkeypatch.setattr(api, "default_folder", lambda plan, kind: plan.parent / fixed)
+    for step in (prespec.workflow.run, prespec.workflow.rehearse):  # each names its folder
+        monkeypatch.setattr(step, "default_folder", lambda plan, kind: plan.parent / fixed)
     probe = tmp_path / "probe"
     shutil.copytree(locked_study, probe)
     with crashing(monkeypatch, Crash(probe, None, None)) as counted:

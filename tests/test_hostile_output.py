@@ -152,13 +152,13 @@ def test_the_run_tables_neutralise_formulas_and_keep_numbers(study: Path) -> Non
 
 
 def test_a_negative_number_in_a_csv_stays_a_number(tmp_path: Path) -> None:
-    from prespec.workflow.publish import _write_tables
+    from prespec.report.tables import write_tables
 
     results = {"groups": {"o": [{"group": "-x", "events": 1, "total": 2, "missing": 0,
                                   "proportion": 0.5, "ci": [-0.05, 1.0], "ci_method": "=w",
                                   "level": 0.95}]},
                "hypotheses": []}
-    _write_tables(tmp_path, results)
+    write_tables(tmp_path, results)
     (path,) = (tmp_path / "tables").iterdir()
     row = _rows(path)[1]
     assert row == ["'-x", "1", "1", "2", "0", "0.5", "-0.05", "1.0", "'=w", "0.95"]

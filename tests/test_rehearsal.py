@@ -21,6 +21,7 @@ import prespec.report
 from prespec import api, audit, cli
 from prespec.analysis import methods
 from prespec.errors import BadInput, DataError
+from prespec.report.tables import POOLED_HEADER
 from prespec.workflow import rehearse as rehearsal
 
 PLAN = """\
@@ -231,7 +232,7 @@ def test_rehearsal_tables_are_the_pooled_table_and_the_dictionary(
                                                                     "pooled.csv"]
     assert not (folder / "figures").exists()  # no per-group proportions, no estimates
     pooled = list(csv.reader((folder / "tables" / "pooled.csv").open()))
-    assert pooled[0] == rehearsal.POOLED_HEADER
+    assert pooled[0] == POOLED_HEADER
     assert pooled[1][:5] == ["infection", "12", "24", "36", "4"]
     dictionary = list(csv.DictReader((folder / "tables" / "data-dictionary.csv").open()))
     assert [(r["column"], r["value"], r["count"], r["meaning"]) for r in dictionary] == [

@@ -15,6 +15,7 @@ import pytest
 from prespec.data import dictionary
 from prespec.errors import DataError
 from prespec.plan import load_plan
+from prespec.report import tables
 
 PLAN = """\
 prespec: 1
@@ -175,9 +176,9 @@ def test_parquet_nulls_are_blank(tmp_path: Path) -> None:
 def test_csv_layout(tmp_path: Path) -> None:
     doc = dictionary.data_dictionary(frame(), plan_model(tmp_path), "data.csv")
     out = tmp_path / "dd.csv"
-    dictionary.write_dictionary_csv(out, doc)
+    tables.write_dictionary_csv(out, doc)
     rows = list(csv.reader(out.open()))
-    assert rows[0] == dictionary.DICTIONARY_HEADER
+    assert rows[0] == tables.DICTIONARY_HEADER
     assert rows[1] == ["pid", "data.id", "8", "0", "0", "", "", ""]
     assert ["withdrawn", "data.include[2]", "1", "7", "", "(blank)", "7", "passes filter"] in rows
     assert ["healed", "outcomes.healed.column", "4", "1", "", "2", "1", "unmapped"] in rows
@@ -186,6 +187,6 @@ def test_csv_layout(tmp_path: Path) -> None:
     many = {"columns": [{"column": "c", "role": "r", "distinct": 60, "blank": 0,
                          "values": [{"value": "v", "count": 3, "meaning": None}],
                          "more": 59, "more_count": 77}]}
-    dictionary.write_dictionary_csv(out, many)
+    tables.write_dictionary_csv(out, many)
     assert list(csv.reader(out.open()))[-1] == ["c", "r", "60", "0", "", "(59 more values)",
                                                 "77", ""]

@@ -15,6 +15,7 @@ from typing import Any
 from prespec.analysis import methods, sensitivity
 from prespec.common.departures import Note
 from prespec.data import Prepared
+from prespec.plan.followups import follow_ups
 from prespec.stats import graphical, multiplicity, tables
 from prespec.stats.results import TestResult
 
@@ -441,29 +442,6 @@ def _decide_margins(entries: list[dict[str, Any]], plan: Any) -> None:
         if decided is None and e["p_value"] is not None:  # exploratory: the nominal decision
             decided = e["p_value"] <= plan.alpha
         e["margin_check"] = _margin_check(source, e["estimate"], decided)
-
-
-def follow_ups(hyp: Any, plan: Any) -> list[Any]:
-    """The pairwise hypotheses of ``then``: each arm against the reference, or every pair."""
-    groups = list(plan.data.groups)
-    if hyp.then.pairwise == "reference":
-        ref = plan.data.reference
-        pairs = [(g, ref) for g in groups if g != ref]
-    else:
-        pairs = [(groups[j], groups[i]) for i in range(len(groups))
-                 for j in range(i + 1, len(groups))]
-    return [
-        hyp.model_copy(update={
-            "id": f"{hyp.id}:{a}-vs-{b}",
-            "title": f"{a} vs {b} (follow-up of {hyp.id})",
-            "compare": [a, b],
-            "measure": "risk-difference",
-            "interval": "newcombe",
-            "then": None,
-            "monte_carlo": None,
-        })
-        for a, b in pairs
-    ]
 
 
 def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[Note]]:

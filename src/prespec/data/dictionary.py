@@ -21,7 +21,6 @@ import numpy as np
 import pandas as pd
 
 from prespec.common.matching import ValueSet, as_text, is_blank
-from prespec.common.shown import csv_writer
 from prespec.data.prepare import cell_predicate
 from prespec.data.read import missing_column
 
@@ -217,23 +216,3 @@ def data_dictionary(frame: pd.DataFrame, plan: Any, source: str | Path) -> dict[
     return {"rows": len(frame.index), "counted_over": "all rows read",
             "group_column": {"column": group, "read": False}, "columns": columns}
 
-
-DICTIONARY_HEADER = ["column", "role", "distinct", "blank", "duplicates", "value", "count",
-                     "meaning"]
-
-
-def write_dictionary_csv(path: Path, dictionary: dict[str, Any]) -> None:
-    """One row per listed value; ``(blank)`` for blank cells, ``(N more values)`` for the rest."""
-    with open(path, "w", newline="", encoding="utf-8") as fh:
-        w = csv_writer(fh)
-        w.writerow(DICTIONARY_HEADER)
-        for col in dictionary["columns"]:
-            head = [col["column"], col["role"], col["distinct"], col["blank"],
-                    col.get("duplicates", "")]
-            if not col["values"] and not col["more"]:
-                w.writerow([*head, "", "", ""])
-            for v in col["values"]:
-                shown = "(blank)" if v["value"] is None else v["value"]
-                w.writerow([*head, shown, v["count"], v["meaning"] or ""])
-            if col["more"]:
-                w.writerow([*head, f"({col['more']} more values)", col["more_count"], ""])

@@ -445,8 +445,6 @@ def _pm(value: float | None, se: float | None) -> str:
 
 def designed_n_text(doc: dict[str, Any]) -> str | None:
     """The note on sizes put in for a missing data.planned_n (printed once, near the top)."""
-    from prespec.design.planned import designed_n_line
-
     sizes = doc.get("planned_n_from_design")
     return designed_n_line(sizes) if sizes else None
 
@@ -542,3 +540,40 @@ def planned_vs_achieved(plan: Any, achieved: dict[str, dict[str, int]] | None, *
     if both_tails:
         entry[BOTH_TAILS_KEY] = "both tails"
     return entry
+
+
+def design_summary(plan: Any) -> list[str]:
+    """The design section and the sample sizes it gives (``prespec design`` has the detail)."""
+    from prespec.plan.summary import number as _num  # the same numbers as the summary
+
+    design = plan.design
+    assert design is not None
+    rates = ", ".join(f"{g} {_num(p)}" for g, p in design.assumed.items())
+    allocation = ":".join(_num(design.allocation[g]) for g in plan.data.groups) \
+        if design.allocation else "equal"
+    lines = [f"Design:        power {_num(design.power)} at assumed rates {rates}; allocation "
+             f"{allocation}; dropout {_num(design.dropout)}"
+             + ("; continuity-corrected 2×2 formula" if design.continuity else "")]
+    for name, scenario in design.scenarios.items():
+        shown = ", ".join(f"{g} {_num(p)}" for g, p in scenario.items())
+        lines.append(f"  scenario {name}: {shown}")
+    lines.append("  scenario global-null: every group at the pooled assumed rate (added)")
+    sized, rule = size_plan(plan)
+    lines.append(f"  sample size per hypothesis, at {rule}:")
+    for h in sized:
+        if h.n_per_group is None:
+            lines.append(f"    {h.id}: not computable ({'; '.join(h.notes) or 'no size'})")
+            continue
+        n = ", ".join(f"{g} {v}" for g, v in h.n_per_group.items())
+        enrol = ", ".join(str(v) for v in (h.n_enrol_per_group or {}).values())
+        lines.append(f"    {h.id} (alpha {h.alpha:.4g}): analysed {n}; to enrol {enrol}")
+    return lines
+
+
+def designed_n_line(sizes: dict[str, int]) -> str:
+    """The sentence design prints when it put the designed sizes in for data.planned_n."""
+    shown = ", ".join(f"{g} {n}" for g, n in sizes.items())
+    return (f"data.planned_n is not in the plan: the interim looks and the power below use the "
+            f"designed analysed sizes per group ({shown}), the largest any hypothesis needs; "
+            "write them into data.planned_n before locking (a look's information fraction is "
+            "the analysed total over this planned total)")

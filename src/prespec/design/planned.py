@@ -85,15 +85,6 @@ def load_for_design(path: Path) -> tuple[LoadedPlan, dict[str, int] | None]:
             raise refused from None
 
 
-def designed_n_line(sizes: dict[str, int]) -> str:
-    """The sentence design prints when it put the designed sizes in for data.planned_n."""
-    shown = ", ".join(f"{g} {n}" for g, n in sizes.items())
-    return (f"data.planned_n is not in the plan: the interim looks and the power below use the "
-            f"designed analysed sizes per group ({shown}), the largest any hypothesis needs; "
-            "write them into data.planned_n before locking (a look's information fraction is "
-            "the analysed total over this planned total)")
-
-
 def refuse_unsimulated(path: Path, plan: Any) -> None:
     """Refuse ``--simulate`` for a plan it does not cover (a stratified test: the simulation
     draws one rate per group, with no strata), as a one-line error at the plan's line."""

@@ -24,10 +24,11 @@ from typing import Any
 
 import numpy as np
 
-from prespec.analysis.hypotheses import MAIN_FAMILY, follow_ups
+from prespec.analysis.hypotheses import MAIN_FAMILY
 from prespec.design import arraymultiplicity
 from prespec.design.arraytests import ArrayTest, array_test, smallest_expected
 from prespec.errors import BadInput
+from prespec.plan.followups import follow_ups
 
 #: Trials per chunk: with a handful of groups and hypotheses, a few megabytes of arrays.
 CHUNK = 20_000

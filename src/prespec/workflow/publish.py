@@ -18,9 +18,9 @@ from typing import Any
 from prespec import audit
 from prespec.analysis.families import family_details
 from prespec.audit.manifest import write_manifest
-from prespec.common.shown import csv_writer, json_text
-from prespec.errors import raise_recorded
-from prespec.report.tablenames import TABLES, groups_table, hypothesis_table
+from prespec.audit.record import commit_entry
+from prespec.common.shown import json_text
+from prespec.report.tables import write_tables
 from prespec.workflow.execute import check_out_folder, check_report_place
 
 
@@ -59,39 +59,6 @@ def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:
             candidate = out.with_name(f"{out.name}-{n}")
 
 
-def _write_tables(folder: Path, results: dict[str, Any]) -> None:
-    tables = folder / TABLES
-    tables.mkdir()
-    if results.get("kind") == "rehearsal":  # pooled figures and the data dictionary only
-        from prespec.workflow.rehearse import write_rehearsal_tables
-
-        write_rehearsal_tables(tables, results)
-        return
-    for outcome, rows in results["groups"].items():
-        with open(folder / groups_table(outcome), "w", newline="", encoding="utf-8") as fh:
-            w = csv_writer(fh)
-            w.writerow(["group", "events", "no_events", "total", "missing", "proportion",
-                        "ci_low", "ci_high", "ci_method", "level"])
-            for r in rows:
-                w.writerow([r["group"], r["events"], r["total"] - r["events"], r["total"],
-                            r["missing"], r["proportion"], r["ci"][0], r["ci"][1],
-                            r["ci_method"], r["level"]])
-    if results.get("families"):
-        from prespec.report.families import write_family_tables
-
-        write_family_tables(folder, results)
-    for h in results["hypotheses"]:
-        t = h["table"]
-        expected = h["expected"] or [[None, None]] * len(t["groups"])
-        with open(folder / hypothesis_table(h["id"]), "w", newline="", encoding="utf-8") as fh:
-            w = csv_writer(fh)
-            w.writerow(["group", "events", "no_events", "total", "expected_events",
-                        "expected_no_events"])
-            for g, e, n, (ee, en) in zip(t["groups"], t["events"], t["totals"], expected,
-                                         strict=True):
-                w.writerow([g, e, n - e, n, ee, en])
-
-
 PARTIAL = ".partial-"
 
 
@@ -114,7 +81,7 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
     try:
         text = json_text(results, indent=2, allow_nan=False) + "\n"
         (tmp / "results.json").write_text(text, encoding="utf-8")
-        _write_tables(tmp, results)
+        write_tables(tmp, results)
         write_figures(results, tmp)
         if render:
             render_notebook(tmp)
@@ -178,43 +145,27 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
         clean(None)
         raise
     report_rel = Path(os.path.relpath(folder.resolve(), plan_path.parent.resolve())).as_posix()
-    log = audit.log_path(plan_path)
     with audit.guard.hold(plan_path.parent, exclusive=True):
-        size = audit.log.log_size(log)
-        try:
-            if before_entry is not None:
-                before_entry()
-                size = audit.log.log_size(log)
-            entry = audit.append(
-                log,
-                audit.head_path(plan_path),
-                actor=results["actor"],
-                action=action,
-                plan=results["plan"],
-                data=results["data"],
-                details={"report": report_rel, "manifest": manifest, **(details or {}),
-                         **({"data_files": results["data_files"]} if "data_files" in results
-                            else {}),
-                         **family_details(results),
-                         **({"engine": results["engine"],
-                             "engine_library": results.get("engine_library"),
-                             "query": results.get("query")} if "engine" in results else {})},
-                deviations=results["deviations"],
-            )
-        except BaseException as exc:
-            if audit.log.log_size(log) == size:  # no entry: the run never counted
-                clean(tmp)
-                raise
-            if isinstance(exc, Exception):  # the entry is in: finish what is left, if we can
-                try:
-                    move_into_place(tmp, folder, manifest)
-                except OSError:
-                    pass
-            raise_recorded(exc, plan_path.parent, f"the {action} was recorded in {log.name} "
-                           f"and its report is complete ({report_rel}); the next prespec "
-                           "command completes what is left")
-            raise  # pragma: no cover - raise_recorded always raises
-        move_into_place(tmp, folder, manifest)
+        entry = commit_entry(
+            plan_path,
+            actor=results["actor"],
+            action=action,
+            fingerprint=results["plan"],
+            data=results["data"],
+            details={"report": report_rel, "manifest": manifest, **(details or {}),
+                     **({"data_files": results["data_files"]} if "data_files" in results
+                        else {}),
+                     **family_details(results),
+                     **({"engine": results["engine"],
+                         "engine_library": results.get("engine_library"),
+                         "query": results.get("query")} if "engine" in results else {})},
+            deviations=results["deviations"],
+            before=before_entry,
+            undo=lambda: clean(tmp),
+            finish=lambda: move_into_place(tmp, folder, manifest),
+            recorded=(f"the {action} was recorded in {audit.log_path(plan_path).name} and its "
+                      f"report is complete ({report_rel}); the next prespec command completes "
+                      "what is left"))
     return RunOutcome(folder, results, entry)
 
 

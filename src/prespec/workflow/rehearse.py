@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from prespec import audit
 from prespec.analysis.families import (
     analyse_families,
     ordinary_plan,
@@ -33,22 +34,34 @@ from prespec.analysis.families import (
     rehearsal_families,
     templates,
 )
-from prespec.analysis.hypotheses import analyse, compute_hypothesis, follow_ups
+from prespec.analysis.hypotheses import analyse, compute_hypothesis
 from prespec.common.caution import CAUTION
 from prespec.common.departures import Departure, Note
-from prespec.common.shown import csv_writer
+from prespec.common.environment import environment
 from prespec.data import Prepared
-from prespec.data.dictionary import data_dictionary, uses, write_dictionary_csv
+from prespec.data.dictionary import data_dictionary, uses
 from prespec.data.engines.base import DataSource
 from prespec.data.families import FamilyData
 from prespec.errors import BadInput
+from prespec.plan import load_plan
+from prespec.plan.followups import follow_ups
 from prespec.stats import intervals
-from prespec.workflow.execute import build_results, family_file, provenance, with_engine
-
-#: The name of the rehearsal's pooled table in ``tables/``.
-POOLED_TABLE = "pooled.csv"
-#: The name of the data dictionary in ``tables/``.
-DICTIONARY_TABLE = "data-dictionary.csv"
+from prespec.workflow.base import (
+    check_out_path,
+    environment_departures,
+    finish_stopped_writes,
+    plain_errors,
+    resolve_actor,
+    still_as_read,
+)
+from prespec.workflow.execute import (
+    build_results,
+    default_folder,
+    family_file,
+    provenance,
+    with_engine,
+)
+from prespec.workflow.publish import RunOutcome
 
 # The codes of the rehearsal's own notes.
 NOTE_NOT_LOCKED = "rehearsal-without-lock"
@@ -384,17 +397,51 @@ def compute_rehearsal(
     }
 
 
-POOLED_HEADER = ["outcome", "events", "no_events", "total", "missing", "rate", "ci_low",
-                 "ci_high", "ci_method", "level"]
+@plain_errors
+def rehearse(plan: str | Path, data: str | Path | None = None, *,
+             out: str | Path | None = None, actor: str | None = None,
+             engine: str = "auto") -> RunOutcome:
+    """A blinded dry run of the plan file on ``data``: the group column is never read.
 
+    The plan may be locked or not (a missing or changed lock is a note, never a stop). The
+    run is computed on a random dummy allocation and its report rendered and discarded; the
+    report folder (default ``reports/<stem>/<time>-rehearsal``) holds pooled figures and the
+    data dictionary only, and the log records a ``rehearse`` entry. The lock is not touched.
+    ``data`` and ``engine`` as in ``run``; no engine's query names the group column.
+    """
+    from prespec.data.engines.sources import check_source, resolve_source
+    from prespec.workflow.publish import publish
 
-def write_rehearsal_tables(tables: Path, results: dict[str, Any]) -> None:
-    """The rehearsal's only tables: the pooled figures and the data dictionary."""
-    with open(tables / POOLED_TABLE, "w", newline="", encoding="utf-8") as fh:
-        w = csv_writer(fh)
-        w.writerow(POOLED_HEADER)
-        for outcome, p in results["pooled"].items():
-            w.writerow([outcome, p["events"], p["total"] - p["events"], p["total"],
-                        p["missing"], p["rate"], p["ci"][0], p["ci"][1], p["ci_method"],
-                        p["level"]])
-    write_dictionary_csv(tables / DICTIONARY_TABLE, results["data_dictionary"])
+    loaded = load_plan(Path(plan))
+    source, source_notes = resolve_source(loaded.path, loaded.model, data)
+    check_source(source)
+    with audit.guard.hold(loaded.path.parent, exclusive=True):  # the files as one state
+        entries = finish_stopped_writes(loaded.path)
+        doc = audit.read_lock(audit.lock_path(loaded.path))
+    deviations: list[Departure] = []
+    notes: list[Note] = []
+    version = None
+    env = environment()
+    notes.extend(source_notes)
+    if doc is None:
+        notes.append(Note(NOTE_NOT_LOCKED, "the plan is not locked: a rehearsal needs no lock, "
+                          "but lock the plan before the run on unblinded data"))
+    elif audit.latest(doc).get("fingerprint") != loaded.fingerprint:
+        notes.append(Note(NOTE_DIFFERS_FROM_LOCK, "the plan file differs in meaning from its "
+                          f"lock (version {audit.latest(doc).get('version')}); the plan file was "
+                          "rehearsed; amend the lock before the run on unblinded data"))
+    else:
+        last = audit.latest(doc)
+        version = int(last["version"])
+        deviations.extend(environment_departures(last, env))
+    out_path = Path(out) if out is not None else default_folder(loaded.path, "rehearsal")
+    if out is not None:
+        check_out_path(loaded.path, out_path)
+    results = compute_rehearsal(
+        plan_path=loaded.path, plan=loaded.model, fingerprint=loaded.fingerprint,
+        version=version, data_path=None, actor=resolve_actor(actor), environment=env,
+        deviations=deviations, notes=notes, source=source, engine=engine,
+    )
+    in_force = audit.latest(doc)["fingerprint"] if doc is not None else None
+    return publish(loaded.path, out_path, results, numbered=out is None, action="rehearse",
+                   before_entry=lambda: still_as_read(loaded.path, in_force, entries, False))

@@ -13,21 +13,39 @@ import math
 import os
 import re
 import stat
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from prespec import audit
 from prespec.analysis.families import declared_members, member_ids
 from prespec.analysis.looks import look_problem, look_run
-from prespec.api import VerifyResult, apply_overrides, mark_overrides
 from prespec.audit.lockfile import logged_pending, pending_path, version_digest
 from prespec.audit.manifest import check_manifest
 from prespec.common.canonical import file_sha256
 from prespec.common.departures import capped_found
 from prespec.errors import IntegrityStop, PrespecError
 from prespec.plan import fingerprint, load_plan, plan_from_resolved
+from prespec.workflow.base import plain_errors
+from prespec.workflow.overrides import apply_overrides, mark_overrides
 from prespec.workflow.publish import PARTIAL, pending_report
+
+
+@dataclass
+class VerifyResult:
+    passed: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    #: one ``verify.RunVerdict`` per run and look of the log: the locked analysis, or why not
+    runs: list[Any] = field(default_factory=list)
+    #: the last line: true of the files and of every run
+    summary: str = ""
+
+    @property
+    def departed(self) -> list[Any]:
+        """The runs that were not the locked analysis."""
+        return [r for r in self.runs if not r.locked]
+    # things in the report folders that no recorded run wrote; failures under ``strict``
+    warnings: list[str] = field(default_factory=list)
 
 
 class VerifyFailure(IntegrityStop):
@@ -764,3 +782,20 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
                         f"{json.dumps(_lookup(right, where))}")
     result.passed.append(f"rerun: {len(runs)} report(s) recomputed from {data.name}, every "
                          "result identical (numbers to 1e-12 relative)")
+
+
+@plain_errors
+def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,
+           report: str | None = None, key: str | Path | None = None,
+           strict: bool = False) -> VerifyResult:
+    """Check the lock, the log and every report the log names, from the files alone.
+
+    ``expect``: the fingerprint registered elsewhere at lock time. ``rerun``: a data file;
+    every run report made from it (or only ``report``) is recomputed and must be identical.
+    ``key``: a public key file; every lock and amend entry must carry its valid signature.
+    ``strict``: the warnings (things in the report folders no recorded run wrote) fail.
+    """
+    with audit.guard.hold(Path(plan).parent, exclusive=False):  # no writer half way
+        return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
+                          report=report, key=Path(key) if key else None,
+                          strict=strict)

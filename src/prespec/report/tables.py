@@ -1,0 +1,84 @@
+"""The CSV tables of a report folder (``tables/``), written from results.json alone: the
+groups per outcome, each hypothesis's counts and expected counts, the families' members; for a
+rehearsal, the pooled figures and the data dictionary only. Every cell goes through
+``common.shown.csv_writer`` (never a formula)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from prespec.common.shown import csv_writer
+from prespec.report.tablenames import TABLES, groups_table, hypothesis_table
+
+#: The name of the rehearsal's pooled table in ``tables/``.
+POOLED_TABLE = "pooled.csv"
+#: The name of the data dictionary in ``tables/``.
+DICTIONARY_TABLE = "data-dictionary.csv"
+
+DICTIONARY_HEADER = ["column", "role", "distinct", "blank", "duplicates", "value", "count",
+                     "meaning"]
+
+
+def write_dictionary_csv(path: Path, dictionary: dict[str, Any]) -> None:
+    """One row per listed value; ``(blank)`` for blank cells, ``(N more values)`` for the rest."""
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv_writer(fh)
+        w.writerow(DICTIONARY_HEADER)
+        for col in dictionary["columns"]:
+            head = [col["column"], col["role"], col["distinct"], col["blank"],
+                    col.get("duplicates", "")]
+            if not col["values"] and not col["more"]:
+                w.writerow([*head, "", "", ""])
+            for v in col["values"]:
+                shown = "(blank)" if v["value"] is None else v["value"]
+                w.writerow([*head, shown, v["count"], v["meaning"] or ""])
+            if col["more"]:
+                w.writerow([*head, f"({col['more']} more values)", col["more_count"], ""])
+
+
+POOLED_HEADER = ["outcome", "events", "no_events", "total", "missing", "rate", "ci_low",
+                 "ci_high", "ci_method", "level"]
+
+
+def write_rehearsal_tables(tables: Path, results: dict[str, Any]) -> None:
+    """The rehearsal's only tables: the pooled figures and the data dictionary."""
+    with open(tables / POOLED_TABLE, "w", newline="", encoding="utf-8") as fh:
+        w = csv_writer(fh)
+        w.writerow(POOLED_HEADER)
+        for outcome, p in results["pooled"].items():
+            w.writerow([outcome, p["events"], p["total"] - p["events"], p["total"],
+                        p["missing"], p["rate"], p["ci"][0], p["ci"][1], p["ci_method"],
+                        p["level"]])
+    write_dictionary_csv(tables / DICTIONARY_TABLE, results["data_dictionary"])
+
+
+def write_tables(folder: Path, results: dict[str, Any]) -> None:
+    tables = folder / TABLES
+    tables.mkdir()
+    if results.get("kind") == "rehearsal":  # pooled figures and the data dictionary only
+        write_rehearsal_tables(tables, results)
+        return
+    for outcome, rows in results["groups"].items():
+        with open(folder / groups_table(outcome), "w", newline="", encoding="utf-8") as fh:
+            w = csv_writer(fh)
+            w.writerow(["group", "events", "no_events", "total", "missing", "proportion",
+                        "ci_low", "ci_high", "ci_method", "level"])
+            for r in rows:
+                w.writerow([r["group"], r["events"], r["total"] - r["events"], r["total"],
+                            r["missing"], r["proportion"], r["ci"][0], r["ci"][1],
+                            r["ci_method"], r["level"]])
+    if results.get("families"):
+        from prespec.report.families import write_family_tables
+
+        write_family_tables(folder, results)
+    for h in results["hypotheses"]:
+        t = h["table"]
+        expected = h["expected"] or [[None, None]] * len(t["groups"])
+        with open(folder / hypothesis_table(h["id"]), "w", newline="", encoding="utf-8") as fh:
+            w = csv_writer(fh)
+            w.writerow(["group", "events", "no_events", "total", "expected_events",
+                        "expected_no_events"])
+            for g, e, n, (ee, en) in zip(t["groups"], t["events"], t["totals"], expected,
+                                         strict=True):
+                w.writerow([g, e, n - e, n, ee, en])

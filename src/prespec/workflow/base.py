@@ -1,0 +1,110 @@
+"""What every step of the workflow shares: who acts, the one-line errors of a full disk or a
+refused file, the stopped writes completed before a step reads the study's files, the lock
+still in force when a step records, and where a report folder may go."""
+
+from __future__ import annotations
+
+import functools
+import getpass
+import os
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+from prespec import audit
+from prespec.audit.record import settle
+from prespec.common.departures import Departure
+from prespec.common.environment import differences
+from prespec.errors import BadInput, IntegrityStop, plain_os_error
+from prespec.workflow.execute import check_out_folder
+from prespec.workflow.publish import complete_interrupted
+
+
+def resolve_actor(actor: str | None) -> str:
+    """``--actor``, else ``PRESPEC_ACTOR``, else the login name."""
+    if actor:
+        return actor
+    if env := os.environ.get("PRESPEC_ACTOR"):
+        return env
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # pragma: no cover - no passwd entry
+        return "unknown"
+
+
+def plain_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """A full disk (``no space left on PATH``) or a file that may not be read or written
+    (``PATH: permission denied``) is a one-line error, exit status 2, never a traceback."""
+
+    @functools.wraps(fn)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        try:
+            return fn(*args, **kwargs)
+        except OSError as exc:
+            plan = args[0] if args else kwargs.get("plan", ".")
+            plain = plain_os_error(exc, Path(plan).parent)
+            if plain is None:
+                raise
+            raise plain from None
+
+    return wrapper
+
+
+def finish_stopped_writes(plan: Path) -> list[dict[str, Any]]:
+    """Check the log, then complete a head write, a lock write or a report rename that a stop
+    interrupted; the log's entries. Holds the folder's lock exclusively: the caller keeps it
+    while it reads the lock and the log to decide what to do."""
+    with audit.guard.hold(plan.parent, exclusive=True):
+        entries = settle(plan)
+        complete_interrupted(plan, entries)
+        return entries
+
+
+def still_as_read(plan: Path, in_force: str | None, entries: list[dict[str, Any]],
+                  runs_matter: bool) -> None:
+    """Called under the folder's lock just before a run's log entry: the lock must still hold
+    the version the run started from (an amend while it computed would make the report claim
+    a version no longer in force), and for a plan with looks, no other run or look may have
+    been recorded meanwhile (the look numbers and boundaries were taken from the log)."""
+    now = finish_stopped_writes(plan)
+    doc = audit.read_lock(audit.lock_path(plan))
+    latest = audit.latest(doc) if doc is not None else None
+    if (latest["fingerprint"] if latest else None) != in_force:
+        raise IntegrityStop(
+            f"{plan}: the lock changed while this ran (now version "
+            f"{latest['version'] if latest else None}); nothing was recorded; run it again")
+    if runs_matter and [e for e in now if e.get("action") in ("run", "look")] != \
+            [e for e in entries if e.get("action") in ("run", "look")]:
+        raise IntegrityStop(f"{plan}: another run or look of this plan was recorded while this "
+                            "one ran; nothing was recorded; run it again")
+
+
+def environment_departures(record: dict[str, Any], env: dict[str, str]) -> list[Departure]:
+    """``environment-differs-from-lock`` when a version differs from the lock version's."""
+    diffs = differences(record.get("environment") or {}, env)
+    if not diffs:
+        return []
+    return [Departure(
+        "environment-differs-from-lock",
+        "versions differ from those recorded at lock time: "
+        + ", ".join(f"{n} {a} → {b}" for n, a, b in diffs),
+        "; ".join(f"{n} {a}" for n, a, _ in diffs),
+        "; ".join(f"{n} {b}" for n, _, b in diffs))]
+
+
+def check_out_path(plan_path: Path, out: Path) -> None:
+    """``--out`` must be a new or empty plain folder: no link, not a file. Outside the plan's
+    folder it must sit in an existing folder the user can write (no parents are made there)."""
+    check_out_folder(out)
+    if out.is_symlink():
+        raise BadInput(f"{out}: is a symbolic link; give a plain folder")
+    here = plan_path.parent.resolve()
+    target = out.parent.resolve() / out.name
+    inside = here in target.parents
+    parent = out.parent
+    if not inside:
+        if not parent.is_dir() or parent.is_symlink():
+            raise BadInput(f"{out}: outside the plan's folder, the report folder must go into "
+                           "an existing plain folder")
+        if not os.access(parent, os.W_OK | os.X_OK):
+            raise BadInput(f"{out}: cannot write into {parent}")
