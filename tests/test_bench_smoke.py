@@ -5,10 +5,14 @@ own lines from the output; times are printed by the benchmarks, never asserted h
 
 from __future__ import annotations
 
+import importlib.util
 import re
 import subprocess
 import sys
 from pathlib import Path
+from types import ModuleType
+
+import pytest
 
 BENCH = Path(__file__).resolve().parents[1] / "bench"
 
@@ -89,6 +93,36 @@ def test_the_demo_phases_benchmark_times_every_phase() -> None:
         "phases together", "whole demo (in process)"}, out
     assert float(shares["whole demo (in process)"]) == 100.0
     assert 0 < float(shares["phases together"]) <= 100.0
+
+
+def demo_phases_module() -> ModuleType:
+    """bench/demo_phases.py loaded without running it (it wraps nothing until main)."""
+    spec = importlib.util.spec_from_file_location("demo_phases_bench", BENCH / "demo_phases.py")
+    assert spec is not None and spec.loader is not None
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def test_the_demo_phases_benchmark_stops_on_a_phase_it_lost() -> None:
+    bench = demo_phases_module()
+    for label, _, _ in bench.PHASES:
+        if label != "statistics":  # as if analyse had moved and the run no longer met it
+            bench.timings[label].append(0.01)
+    bench.timings[bench.WHOLE].append(1.0)
+    with pytest.raises(SystemExit, match=r"not timed once per demo .*: statistics \(0 times\)"):
+        bench.check(1)
+
+
+def test_the_demo_phases_benchmark_stops_on_phases_longer_than_the_whole() -> None:
+    bench = demo_phases_module()
+    for label, _, _ in bench.PHASES:  # six top-level phases of 0.2 s in a demo of 1 s
+        bench.timings[label].append(0.2)
+    bench.timings[bench.WHOLE].append(1.0)
+    with pytest.raises(SystemExit, match=r"the phases add up to 1\.200 s, more than the whole"):
+        bench.check(1)
+    bench.timings[bench.WHOLE][0] = 1.3
+    bench.check(1)  # within the whole: no complaint
 
 
 def test_the_engine_benchmark_agrees_with_scipy_statsmodels_and_the_floor() -> None:
