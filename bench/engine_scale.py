@@ -21,13 +21,13 @@ Goals: (1) at least 2x faster than (2), with a peak memory under 1.5 GB; (3) wit
 ``resource.getrusage(RUSAGE_CHILDREN).ru_maxrss`` of a fresh parent that ran only it. Each
 measurement is repeated (``--repeat``, the runs interleaved), the fastest kept and every
 run's time printed; the machine is shared, so the
-ratios matter more than the seconds. Before anything is printed, the answers are checked
+ratios matter more than the seconds. Before the table is printed, the answers are checked
 against each other: the run's statistics and p-values against the plain script's (scipy,
 statsmodels; 1e-9 relative), the rows the API reduction read and analysed against the run's,
 and the rows and H1's counts of the floor against the run's.
 
-Run by hand, never from the tests (about 5 to 10 minutes on 2 shared cores; the first run also
-writes the 0.7 GB file):
+The full size is run by hand (about 5 to 10 minutes on 2 shared cores; the first run also
+writes the 0.7 GB file); the tests run the smoke size:
     .venv/bin/python bench/engine_scale.py [--rows 20000000] [--repeat 3]
     .venv/bin/python bench/engine_scale.py --smoke   # 20,000 rows in a temporary folder, once
 """
@@ -245,7 +245,8 @@ def check(found: dict[str, dict], results: dict[str, Any]) -> None:
         raise SystemExit("the answers differ: " + "; ".join(problems))
     print(f"checked: the run's statistics and p-values equal the plain script's (scipy, "
           f"statsmodels) to {TOLERANCE:g} relative; the API reduction and the floor count the "
-          f"run's {population['analysed']:,} analysed rows, the floor H1's events and totals")
+          f"run's {population['analysed']:,} analysed rows, and the floor finds H1's events and "
+          "totals")
 
 
 def main() -> None:

@@ -8,7 +8,7 @@ search run on every cell at once. The baseline is the obvious loop: the scalar l
 (``--sample``, or every cell with ``--full``) and scaled to the whole grid; before anything is
 timed, the grid is checked against the loop on those cells.
 
-Run by hand, never from the tests (about 10 s with the default sample on 2 shared cores):
+Run by hand (about 10 s with the default sample on 2 shared cores; the tests run --smoke):
     .venv/bin/python bench/tipping_point.py [--missing 200] [--complete 400] [--sample 4000]
     .venv/bin/python bench/tipping_point.py --smoke   # a 21 × 21 grid, every cell checked
 """

@@ -130,7 +130,7 @@ def test_the_engine_benchmark_agrees_with_scipy_statsmodels_and_the_floor() -> N
     (analysed,) = numbers(r"the run's ([\d,]+) analysed rows", out)
     assert "checked: the run's statistics and p-values equal the plain script's (scipy, " \
            "statsmodels) to 1e-09 relative" in out
-    assert "the floor H1's events and totals" in out
+    assert "and the floor finds H1's events and totals" in out
     assert numbers(r"rows read ([\d,]+), analysed ([\d,]+); engine duckdb", out) == \
         [20_000, analysed]
     assert 15_000 < analysed < 20_000  # ages 16-90 drawn, 18-85 analysed
