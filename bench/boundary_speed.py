@@ -10,9 +10,12 @@ grid with Simpson's rule. Two baselines are measured in the same run:
   of P(continue to k − 1, |Z_k| > b).
 
 Each route is timed (best of ``--repeat``), and its largest boundary difference from the
-recursion at r = 64 is printed beside it, so a speed ratio is never bought with accuracy.
+recursion at r = 64 is printed beside it, so a speed ratio is never bought with accuracy. The
+run stops unless the recursion at its default grid and the multivariate normal route are within
+1e-6 of it, and the naive grid (a coarse baseline) within 1e-3.
 
 Run: .venv/bin/python bench/boundary_speed.py [--repeat 5] [--step 0.002]
+     .venv/bin/python bench/boundary_speed.py --smoke   # once each, naive step 0.01
 """
 
 from __future__ import annotations
@@ -29,6 +32,8 @@ from prespec.stats.sequential import boundaries, spent
 
 ALPHA = 0.05
 NAME = "lan-demets-obrien-fleming"
+CLOSE = 1e-6  # the recursion at its default grid, and the multivariate normal route, vs r = 64
+NAIVE_CLOSE = 1e-3  # the naive uniform grid: the same boundaries, coarsely
 
 
 def _best(fn: Callable[[], object], repeat: int) -> tuple[float, object]:
@@ -100,7 +105,10 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeat", type=int, default=5)
     parser.add_argument("--step", type=float, default=0.002)
+    parser.add_argument("--smoke", action="store_true", help="each route once, step 0.01")
     args = parser.parse_args()
+    if args.smoke:
+        args.repeat, args.step = 1, 0.01
 
     t10 = np.arange(1, 11) / 10.0
     ref10 = np.array(boundaries(list(t10), alpha=ALPHA, sides=2, efficacy=NAME, r=64).z)
@@ -130,6 +138,14 @@ def main() -> None:
     print(f"{'4 looks: multivariate normal + brentq':<44}{mvn_s:>10.4f}{err_mvn:>12.1e}")
     print(f"ratio, 10 looks, naive grid / recursion: {naive_s / ours10_s:.1f}x")
     print(f"ratio, 4 looks, multivariate normal / recursion: {mvn_s / ours4_s:.1f}x")
+    far = [label for label, err, limit in (
+        ("10 looks: recursion", err_ours10, CLOSE), ("4 looks: recursion", err_ours4, CLOSE),
+        ("4 looks: multivariate normal", err_mvn, CLOSE),
+        ("10 looks: naive grid", err_naive, NAIVE_CLOSE)) if not err <= limit]
+    if far:
+        raise SystemExit("boundaries away from the r = 64 recursion: " + ", ".join(far))
+    print(f"checked: the recursion and the multivariate normal route within {CLOSE:g} of the "
+          f"r = 64 recursion, the naive grid within {NAIVE_CLOSE:g}")
 
 
 if __name__ == "__main__":

@@ -15,10 +15,13 @@ agresti-caffo, miettinen-nurminen):
 The intervals of all outcomes of one (n1, n2) are computed at once with numpy (the
 Miettinen–Nurminen limits by a vectorised bisection of the same bounded score function that
 ``prespec.stats.intervals`` searches with brentq); before anything is timed, the vectorised
-limits are checked against the library functions on every outcome of a few group sizes.
+limits are checked against the library functions on every outcome of a few group sizes, and
+the coverage sum (one einsum per group sizes) against the plain double sum over the outcomes,
+with ``scipy.stats.binom.pmf`` and the library's intervals, at a few parameter points.
 
-Run by hand, never from the tests (about 3 to 5 minutes on 2 shared cores):
+Run by hand (about 3 to 5 minutes on 2 shared cores):
     .venv/bin/python bench/coverage.py [--points 9200] [--seed 1998] [--n-min 10 --n-max 100]
+    .venv/bin/python bench/coverage.py --smoke   # both checks, the grid, 100 points on 10..30
 """
 
 from __future__ import annotations
@@ -184,6 +187,26 @@ def check_against_library(sizes: list[tuple[int, int]], level: float = 0.95) -> 
     return worst
 
 
+def check_coverage_sum(n1: int, n2: int, points: list[tuple[float, float]],
+                       level: float = 0.95) -> float:
+    """Largest difference between :func:`coverage` and the plain sum over every outcome of
+    binom.pmf(x1) * binom.pmf(x2) * [the library's interval contains p1 - p2]."""
+    einsum = coverage(intervals(n1, n2, level), n1, n2, np.array([a for a, _ in points]),
+                      np.array([b for _, b in points]))
+    limits = {m: {(x1, x2): LIBRARY[m](x1, n1, x2, n2, level) for x1 in range(n1 + 1)
+                  for x2 in range(n2 + 1)} for m in METHODS}
+    worst = 0.0
+    for k, (p1, p2) in enumerate(points):
+        delta = p1 - p2
+        for m in METHODS:
+            plain = sum(
+                float(stats.binom.pmf(x1, n1, p1) * stats.binom.pmf(x2, n2, p2))
+                for (x1, x2), e in limits[m].items()
+                if e.low <= delta + 1e-12 and delta - 1e-12 <= e.high)  # coverage()'s slack
+            worst = max(worst, abs(plain - float(einsum[m][k])))
+    return worst
+
+
 def coverage(
     table: dict[str, tuple[np.ndarray, np.ndarray]],
     n1: int,
@@ -253,12 +276,22 @@ def main() -> None:
     parser.add_argument("--level", type=float, default=0.95)
     parser.add_argument("--n-min", type=int, default=10, help="smallest group size drawn")
     parser.add_argument("--n-max", type=int, default=100, help="largest group size drawn")
+    parser.add_argument("--smoke", action="store_true",
+                        help="the checks, the grid and 100 random points with n on 10..30")
     args = parser.parse_args()
+    if args.smoke:
+        args.points, args.n_min, args.n_max = 100, 10, 30
     start = time.perf_counter()
     worst = check_against_library([(1, 1), (1, 7), (10, 20), (23, 9)], args.level)
     print(f"vectorised limits vs prespec.stats.intervals, every outcome: max |diff| {worst:.1e}")
     if worst > 1e-9:
         raise SystemExit("the vectorised intervals do not match the library: stopping")
+    summed = check_coverage_sum(10, 20, [(0.05, 0.05), (0.3, 0.1), (0.5, 0.5), (0.95, 0.7)],
+                                args.level)
+    print(f"coverage by einsum vs the plain sum with scipy.stats.binom.pmf, n1 = 10, n2 = 20: "
+          f"max |diff| {summed:.1e}")
+    if summed > 1e-12:
+        raise SystemExit("the coverage sum does not match the plain sum: stopping")
     print()
     grid_report(args.level)
     if not 1 <= args.n_min <= args.n_max:

@@ -1,29 +1,48 @@
-"""Wall time of `prespec demo`, split into its phases: lock, computation, notebook, HTML.
+"""Wall time of `prespec demo`, split into its phases: lock, data, statistics, figures, notebook,
+HTML.
 
-Run by hand: `.venv/bin/python bench/demo_phases.py [REPEATS]`. Each phase is timed by
-wrapping the function that does it; the sum is compared with the whole command's time in
-the same run (the ratio shows how much the split leaves out: start-up, imports, hashing).
+Each phase is timed by wrapping the function that does it, wherever prespec has bound it (the
+module that defines it and every module that imported it by name), so a function that moves
+keeps its timer. The sum of the phases is compared with the whole demo's time in the same run
+(the ratio shows how much the split leaves out: results.json, hashing, the log, the folder).
+Every phase must be timed once per demo and the phases cannot add up to more than the whole;
+if a refactoring renames or bypasses one of the functions below, the benchmark stops with the
+phase it lost instead of printing a split that leaves it out.
+
+    .venv/bin/python bench/demo_phases.py [--repeat 3]
+    .venv/bin/python bench/demo_phases.py --smoke        # one demo
 """
 
 from __future__ import annotations
 
+import argparse
+import importlib
 import statistics
 import sys
 import tempfile
 import time
 from collections import defaultdict
+from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
-import prespec.report as report_pkg  # publish.py imports from it lazily, at each call
-from prespec import api
-from prespec.report import render
-from prespec.workflow import execute
+# (label, module, function). A "  " label is a part of the phase above it, not added to the sum.
+PHASES = [
+    ("lock", "prespec.api", "lock"),
+    ("data: read and reduce to counts", "prespec.data.engines.pipeline", "count_source"),
+    ("  of which mapping and population", "prespec.data.prepare", "prepare"),
+    ("statistics", "prespec.analysis.hypotheses", "analyse"),
+    ("figures", "prespec.report.figures", "write_figures"),
+    ("notebook execution (papermill)", "prespec.report.render", "_execute"),
+    ("HTML export (nbconvert)", "prespec.report.render", "_to_html"),
+]
+WHOLE = "whole demo (in process)"
 
 timings: dict[str, list[float]] = defaultdict(list)
 
 
-def timed(name: str, fn):  # type: ignore[no-untyped-def]
-    def wrapper(*args, **kwargs):  # type: ignore[no-untyped-def]
+def timed(name: str, fn: Callable[..., Any]) -> Callable[..., Any]:
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
         start = time.perf_counter()
         try:
             return fn(*args, **kwargs)
@@ -32,27 +51,74 @@ def timed(name: str, fn):  # type: ignore[no-untyped-def]
     return wrapper
 
 
-api.lock = timed("lock", api.lock)
-execute.analyse = timed("computation: statistics", execute.analyse)
-execute.prepare = timed("computation: data to counts", execute.prepare)
-execute.read_data = timed("computation: reading data", execute.read_data)
-report_pkg.write_figures = timed("figures", report_pkg.write_figures)
-render._execute = timed("notebook execution (papermill)", render._execute)
-render._to_html = timed("HTML export (nbconvert)", render._to_html)
+def wrap_everywhere(label: str, module: str, name: str) -> int:
+    """Replace the function ``module.name`` by its timed wrapper in every loaded prespec module
+    that holds it; the number of bindings replaced."""
+    original = getattr(importlib.import_module(module), name)
+    wrapper = timed(label, original)
+    replaced = 0
+    for mod_name, mod in list(sys.modules.items()):
+        if mod_name.split(".")[0] != "prespec" or mod is None:
+            continue
+        for attr, value in list(vars(mod).items()):
+            if value is original:
+                setattr(mod, attr, wrapper)
+                replaced += 1
+    return replaced
 
 
-def main(repeats: int) -> None:
+def install() -> None:
+    # every module on the demo's path loaded first, so their imported names are wrapped too
+    for module in ("prespec.api", "prespec.workflow.execute", "prespec.workflow.publish",
+                   "prespec.report", "prespec.data.engines.pipeline"):
+        importlib.import_module(module)
+    for label, module, name in PHASES:
+        wrap_everywhere(label, module, name)
+
+
+def check(repeats: int) -> None:
+    """Every phase timed once per demo; the top-level phases within the whole."""
+    lost = [label for label, _, _ in PHASES if len(timings[label]) != repeats]
+    if lost:
+        raise SystemExit("phases not timed once per demo (renamed or bypassed?): "
+                         + "; ".join(f"{label.strip()} ({len(timings[label])} times)"
+                                     for label in lost))
+    for k in range(repeats):
+        top = sum(timings[label][k] for label, _, _ in PHASES if not label.startswith(" "))
+        if top > timings[WHOLE][k]:
+            raise SystemExit(f"demo {k + 1}: the phases add up to {top:.3f} s, more than the "
+                             f"whole {timings[WHOLE][k]:.3f} s (a phase counted twice?)")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--smoke", action="store_true", help="one demo")
+    args = parser.parse_args()
+    repeats = 1 if args.smoke else args.repeat
+    install()
+    from prespec import api
+
     for _ in range(repeats):
         with tempfile.TemporaryDirectory() as tmp:
             start = time.perf_counter()
-            api.demo(Path(tmp) / "demo")
-            timings["whole demo (in process)"].append(time.perf_counter() - start)
-    width = max(map(len, timings))
-    whole = statistics.median(timings["whole demo (in process)"])
-    for name, values in timings.items():
-        med = statistics.median(values)
-        print(f"{name:<{width}}  median {med * 1000:8.1f} ms  ({med / whole:6.1%} of the demo)")
+            page = api.demo(Path(tmp) / "demo")
+            timings[WHOLE].append(time.perf_counter() - start)
+            if not page.is_file():
+                raise SystemExit(f"the demo wrote no report: {page}")
+    check(repeats)
+    whole = statistics.median(timings[WHOLE])
+    width = max(len(label) for label, _, _ in PHASES)
+    print(f"{repeats} demo(s); median of each phase and its share of the whole demo")
+    for label, _, _ in PHASES:
+        med = statistics.median(timings[label])
+        print(f"{label:<{width}}  {med * 1000:8.1f} ms  {med / whole:6.1%}")
+    top = statistics.median(
+        [sum(timings[label][k] for label, _, _ in PHASES if not label.startswith(" "))
+         for k in range(repeats)])
+    print(f"{'phases together':<{width}}  {top * 1000:8.1f} ms  {top / whole:6.1%}")
+    print(f"{WHOLE:<{width}}  {whole * 1000:8.1f} ms  {1:6.1%}")
 
 
 if __name__ == "__main__":
-    main(int(sys.argv[1]) if len(sys.argv) > 1 else 3)
+    main()
