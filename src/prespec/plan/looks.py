@@ -66,7 +66,8 @@ class _Model(BaseModel):
 class Futility(_Model):
     """A non-binding futility boundary from a beta spending function."""
 
-    spending: Literal[FUTILITY]  # type: ignore[valid-type]
+    spending: Literal[FUTILITY] = Field(  # type: ignore[valid-type]
+        description="the beta spending function")
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")
     binding: bool = Field(default=False, description="only false (non-binding) is supported")
 
@@ -83,7 +84,8 @@ class Looks(_Model):
     efficacy: Literal[EFFICACY] = Field(  # type: ignore[valid-type]
         description="the efficacy spending function or classical boundary")
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")
-    futility: Futility | None = None
+    futility: Futility | None = Field(default=None, description="an optional non-binding "
+                                      "futility boundary")
 
     def planned_fractions(self) -> list[float]:
         """The planned information fractions (from ``sizes`` when those are given)."""
