@@ -1,8 +1,8 @@
 """Interim looks in the plan: the ``looks:`` mapping of a hypothesis and its rules.
 
 ``looks`` names the planned information fractions (or the planned cumulative total sizes), the
-efficacy spending function and an optional non-binding futility boundary (SPEC.md, "Design and
-interim looks"). The model is declared here and used by :class:`prespec.plan.model.Hypothesis`;
+efficacy spending function and an optional non-binding futility boundary (docs/plan-format.md,
+"How the keys combine"). The model is declared here and used by :class:`prespec.plan.model.Hypothesis`;
 :func:`looks_issues` checks the rules across keys, and calls the boundary maths on the planned
 looks so that a plan the maths refuses is refused at ``check``.
 

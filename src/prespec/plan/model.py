@@ -1,6 +1,7 @@
 """The plan model, declared once: validation and the JSON Schema both come from it.
 
-The models accept the whole vocabulary of format version 1 (SPEC.md) and check types; the rules
+The models accept the whole vocabulary of format version 1 (docs/plan-format.md) and check
+types; the rules
 across keys are in :mod:`prespec.plan.rules`. Defaults that depend on other keys (the
 reference group, the measure and the interval) are filled in before validation, so a validated
 model is always resolved.
@@ -380,7 +381,8 @@ def kind_of(compare: Any) -> str | None:
 
 
 def default_measure(kind: str | None, test: Any) -> str | None:
-    """The default measure for a compare kind and test (SPEC.md, "How the keys combine")."""
+    """The default measure for a compare kind and test (docs/plan-format.md, "What each kind of
+    `compare` takes")."""
     measures = v.MEASURES_BY_KIND.get(kind or "", ())
     if not measures:
         return None
