@@ -1,7 +1,7 @@
 """Loading a plan: the good plan, defaults, the YAML 1.2 core schema, lines, schema, summary.
 
-The plan is the invented wound-dressing trial of docs/plan-format.md, restricted to what this
-release runs.
+The plan is the invented wound-dressing trial of docs/plan-format.md, restricted to what
+this release runs.
 """
 
 from __future__ import annotations

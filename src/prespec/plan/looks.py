@@ -2,9 +2,10 @@
 
 ``looks`` names the planned information fractions (or the planned cumulative total sizes), the
 efficacy spending function and an optional non-binding futility boundary (docs/plan-format.md,
-"How the keys combine"). The model is declared here and used by :class:`prespec.plan.model.Hypothesis`;
-:func:`looks_issues` checks the rules across keys, and calls the boundary maths on the planned
-looks so that a plan the maths refuses is refused at ``check``.
+"How the keys combine"). The model is declared here and used by
+:class:`prespec.plan.model.Hypothesis`; :func:`looks_issues` checks the rules across keys,
+and calls the boundary maths on the planned looks so that a plan the maths refuses is refused
+at ``check``.
 
 Which hypotheses may have looks: a confirmatory (primary or secondary) superiority comparison
 of two groups whose test gives a signed z on the risk-difference scale: ``two-proportion-z``,

@@ -1,10 +1,9 @@
 """The plan model, declared once: validation and the JSON Schema both come from it.
 
 The models accept the whole vocabulary of format version 1 (docs/plan-format.md) and check
-types; the rules
-across keys are in :mod:`prespec.plan.rules`. Defaults that depend on other keys (the
-reference group, the measure and the interval) are filled in before validation, so a validated
-model is always resolved.
+types; the rules across keys are in :mod:`prespec.plan.rules`. Defaults that depend on other
+keys (the reference group, the measure and the interval) are filled in before validation, so a
+validated model is always resolved.
 """
 
 from __future__ import annotations

@@ -1,9 +1,9 @@
 """The names of the plan format, and which of them this version of prespec can run.
 
 Every name of the plan format (docs/plan-format.md) is *known*: the plan model accepts it and
-checks its rules. Only the
-*available* names run in this release; a known but unavailable name is refused with its own
-message. A later issue makes a method available by adding its name to an ``AVAILABLE_*`` set.
+checks its rules. Only the *available* names run in this release; a known but unavailable name
+is refused with its own message. A later issue makes a method available by adding its name to
+an ``AVAILABLE_*`` set.
 
 Compare kinds: ``pair`` is ``compare: [a, b]``, ``single`` is ``compare: [a]``, ``all`` is the
 k-group comparison and ``trend`` the ordered one.
