@@ -100,9 +100,10 @@ def test_the_generator_rewrites_only_between_its_markers(tmp_path: Path) -> None
 
 def test_the_departure_codes_in_docs_are_those_of_the_code() -> None:
     rows = _table_codes(_section(DOCS / "departures.md", "Departure codes"))
-    assert set(rows) == set(DEPARTURE_CODES), (
+    codes = set(DEPARTURE_CODES)
+    assert set(rows) == codes, (
         "docs/departures.md lists other departure codes than DEPARTURE_CODES: missing "
-        f"{sorted(set(DEPARTURE_CODES) - set(rows))}, extra {sorted(set(rows) - set(DEPARTURE_CODES))}")
+        f"{sorted(codes - set(rows))}, extra {sorted(set(rows) - codes)}")
     stopping = {code for code, cells in rows.items() if cells[1] == "yes"}
     assert stopping == set(STOPPING)
     assert {cells[1] for cells in rows.values()} == {"yes", "no"}
