@@ -125,9 +125,13 @@ def _note_codes() -> tuple[set[str], list[str]]:
     for path, tree in trees.items():
         for node in ast.walk(tree):
             if not (isinstance(node, ast.Call) and isinstance(node.func, ast.Name)
-                    and node.func.id == "Note" and node.args):
+                    and node.func.id == "Note"):
                 continue
-            arg = node.args[0]
+            given = [k.value for k in node.keywords if k.arg == "code"]
+            arg = node.args[0] if node.args else given[0] if given else None
+            if arg is None:
+                unknown.append(f"{path.relative_to(ROOT)}:{node.lineno}: Note without a code")
+                continue
             text = ast.unparse(arg)
             if isinstance(arg, ast.Constant) and isinstance(arg.value, str):
                 codes.add(arg.value)
