@@ -202,3 +202,10 @@ def test_the_readme_links_the_docs() -> None:
     for name in ("plan-format.md", "files.md", "departures.md", "verify.md"):
         assert f"(docs/{name})" in readme
         assert (DOCS / name).is_file()
+
+
+def test_the_source_files_docs_name_exist() -> None:
+    named = {m for page in DOCS.glob("*.md")
+             for m in re.findall(r"`(src/prespec/[\w/]+\.py)`", page.read_text("utf-8"))}
+    assert named, "docs/ names no source file"
+    assert [n for n in sorted(named) if not (ROOT / n).is_file()] == []
