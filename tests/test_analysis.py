@@ -63,7 +63,7 @@ def test_each_hypothesis_gets_its_table_and_method(tmp_path: Path) -> None:
     z, p = proportions_ztest([12, 30], [90, 100], alternative="smaller")
     assert h2["statistic"] == pytest.approx(z, rel=1e-9)
     assert h2["p_value"] == pytest.approx(p, rel=1e-9)
-    # one-sided: the interval is at 1 - 2 alpha (SPEC.md), Wald as asked
+    # one-sided: the interval is at 1 - 2 alpha (docs/plan-format.md), Wald as asked
     low, high = confint_proportions_2indep(12, 90, 30, 100, method="wald", compare="diff",
                                            alpha=0.10)
     assert h2["estimate"]["level"] == pytest.approx(0.90)
@@ -138,7 +138,7 @@ def test_not_computable_is_null_with_a_note(tmp_path: Path) -> None:
 
 
 def test_interval_levels() -> None:
-    # SPEC.md: 1 - alpha two-sided; 1 - 2 alpha one-sided or with a margin
+    # docs/plan-format.md: 1 - alpha two-sided; 1 - 2 alpha one-sided or with a margin
     assert interval_level(0.05, "two-sided", "superiority") == pytest.approx(0.95)
     assert interval_level(0.025, "greater", "superiority") == pytest.approx(0.95)
     assert interval_level(0.05, "two-sided", "equivalence") == pytest.approx(0.90)

@@ -28,7 +28,7 @@ def test_entries_chain_and_hash(tmp_path: Path) -> None:
     assert [e["seq"] for e in entries] == [1, 2, 3]
     assert entries[0]["prev"] == "0" * 64
     assert entries[1]["prev"] == entries[0]["hash"]
-    # The hash is SHA-256 over the RFC 8785 form of the entry without "hash" (SPEC.md).
+    # The hash is SHA-256 over the RFC 8785 form of the entry without "hash" (docs/files.md).
     body = {k: v for k, v in entries[2].items() if k != "hash"}
     assert entries[2]["hash"] == hashlib.sha256(canonical_json(body)).hexdigest()
     assert audit.read_log(tmp_path / "p.audit.jsonl") == entries

@@ -53,7 +53,7 @@ def test_value_matching_rule() -> None:
     values = ValueSet([1, "yes"])
     assert "1" in values and "1.0" in values and " 1 " in values and 1.0 in values
     assert "yes" in values and " yes " in values
-    assert "Yes" not in values  # case-sensitive (SPEC.md)
+    assert "Yes" not in values  # case-sensitive (docs/plan-format.md, "Reading the data")
     assert "" not in values and None not in values and "01x" not in values
     assert is_blank("  ") and is_blank(None) and is_blank(float("nan")) and not is_blank("0")
 

@@ -1,6 +1,7 @@
 """Loading a plan: the good plan, defaults, the YAML 1.2 core schema, lines, schema, summary.
 
-The plan is the invented wound-dressing trial of SPEC.md, restricted to what this release runs.
+The plan is the invented wound-dressing trial of docs/plan-format.md, restricted to what
+this release runs.
 """
 
 from __future__ import annotations
@@ -266,7 +267,7 @@ def test_conditions_give_their_operator(tmp_path: Path) -> None:
 
 
 def test_value_key_matches_text_and_numbers() -> None:
-    # SPEC.md "Reading the data": 1, "1" and 1.0 agree; text is exact after trimming.
+    # docs/plan-format.md, "Reading the data": 1, "1" and 1.0 agree; text is exact after trimming.
     assert value_key(1) == value_key("1") == value_key(1.0) == value_key(" 1.0 ")
     assert value_key("yes") == value_key(" yes ")
     assert value_key("Yes") != value_key("yes")

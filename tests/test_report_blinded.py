@@ -1,10 +1,10 @@
 """Tests of the blinded rehearsal's report and of the data dictionary
 (src/prespec/report/blinded.py and the rehearsal paths of sections.py and figures.py).
 
-The rehearsal below is invented (the wound-dressing scenario of SPEC.md) in the shape of the
-results.json contract. The report computes nothing; the tests check that it shows the pooled
-figures, the hypotheses and the data dictionary, and that no number of any group reaches the
-page or the figures folder, even when results.json wrongly carries one. The notebook is
+The rehearsal below is invented (the wound-dressing scenario of docs/plan-format.md) in the
+shape of the results.json contract. The report computes nothing; the tests check that it shows
+the pooled figures, the hypotheses and the data dictionary, and that no number of any group
+reaches the page or the figures folder, even when results.json wrongly carries one. The notebook is
 executed once in this module.
 """
 

@@ -1,7 +1,8 @@
 """Tests of the report's figures (src/prespec/report/figures.py) and of its value formatting.
 
-The results below are invented (the wound-dressing scenario of SPEC.md); the report computes
-nothing, so the tests check that what is drawn and shown is what results.json holds.
+The results below are invented (the wound-dressing scenario of docs/plan-format.md); the
+report computes nothing, so the tests check that what is drawn and shown is what results.json
+holds.
 """
 
 from __future__ import annotations

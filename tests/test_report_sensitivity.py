@@ -1,10 +1,11 @@
 """Tests of the report's estimands, sensitivity analyses, tipping-point figure and design
 section (src/prespec/report/estimand.py, sensitivity.py, tipping.py, design.py).
 
-The results are invented (the wound-dressing scenario of SPEC.md). The report computes no
-statistic, so the tests check that what is shown and drawn is what results.json holds; the
-invented tipping-point p-values are computed here with a vectorised Pearson chi-square that is
-first checked against ``scipy.stats.chi2_contingency``, so that the grids look like real ones.
+The results are invented (the wound-dressing scenario of docs/plan-format.md). The report
+computes no statistic, so the tests check that what is shown and drawn is what results.json
+holds; the invented tipping-point p-values are computed here with a vectorised Pearson
+chi-square that is first checked against ``scipy.stats.chi2_contingency``, so that the grids
+look like real ones.
 The notebook is executed once in this module, on a run that carries every new field.
 """
 

@@ -60,7 +60,7 @@ def test_a_signed_lock_and_amend_verify_with_the_key(tmp_path: Path, keys: Path)
     assert isinstance(public, Ed25519PublicKey)
     public.verify(base64.b64decode(sig["value"]), signing_message(lock_entry))
     assert signing_message(lock_entry).startswith(b"prespec entry signature v1\n")
-    # the chain hash covers the signature too (SPEC: all of the entry but hash)
+    # the chain hash covers the signature too (docs/files.md: all of the entry but hash)
     assert entry_hash(lock_entry) == lock_entry["hash"]
     res = api.verify(plan, key=made.public)
     assert res.passed[1] == f"signatures: all 2 lock/amend entries signed by {made.key_id}"

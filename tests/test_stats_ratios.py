@@ -88,7 +88,8 @@ def test_woolf_by_hand() -> None:
     [(0, 10, 3, 12), (5, 5, 3, 12), (4, 10, 0, 12), (4, 10, 12, 12), (0, 1, 0, 1), (1, 1, 1, 1)],
 )
 def test_a_zero_cell_adds_one_half_to_every_cell(counts: tuple[int, int, int, int]) -> None:
-    # SPEC: when any cell is zero, 0.5 is added to every cell, for the estimate and the
+    # docs/files.md, "results.json": when any cell is zero, 0.5 is added to every cell, for the
+    # estimate and the
     # interval, and the note says so; the groups then have n + 1 participants
     x1, n1, x2, n2 = counts
     a, b, c, d = x1 + 0.5, n1 - x1 + 0.5, x2 + 0.5, n2 - x2 + 0.5

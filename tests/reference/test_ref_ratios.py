@@ -85,7 +85,7 @@ def test_katz_matches_statsmodels_after_the_same_adjustment(level: float) -> Non
     # statsmodels.stats.proportion.confint_proportions_2indep(..., compare="ratio",
     # method="log") on the counts after our adjustment (x + 0.5, n + 1 when a cell is 0).
     # Its own method="log-adjusted" adds 0.5 to the counts and only 0.5 to the totals, a
-    # different rule from the SPEC's "0.5 to every cell", so it is not the reference here.
+    # different rule from docs/files.md's "0.5 to every cell", so it is not the reference here.
     for x1, n1, x2, n2 in _random_pairs(seed=71, count=300):
         e = katz_ratio(x1, n1, x2, n2, level)
         c1, m1, c2, m2 = (

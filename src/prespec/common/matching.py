@@ -1,8 +1,8 @@
 """How a data cell is compared with a value written in the plan: one rule for the whole tool.
 
-SPEC.md: blank is an empty or whitespace-only cell, or a null; values match as exact text after
-trimming, or by numeric equality when both sides are numbers (so ``1``, ``"1"`` and ``1.0``
-agree); comparisons are case-sensitive.
+docs/plan-format.md, "Reading the data": blank is an empty or whitespace-only cell, or a null;
+values match as exact text after trimming, or by numeric equality when both sides are numbers
+(so ``1``, ``"1"`` and ``1.0`` agree); comparisons are case-sensitive.
 """
 
 from __future__ import annotations

@@ -454,7 +454,8 @@ def _classify_outcome(
     blank_error: bool = True,
     where: str | None = None,
 ) -> np.ndarray:
-    """Per row: "event", "no-event", "blank" or "unmapped"; departures and errors as SPEC.md.
+    """Per row: "event", "no-event", "blank" or "unmapped"; departures and errors as
+    docs/plan-format.md, "Reading the data".
 
     ``column`` reads another column by the outcome's values (a while-on-treatment outcome,
     named by ``where``); ``blank_error=False`` leaves blanks under ``missing: error`` to be

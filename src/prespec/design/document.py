@@ -377,7 +377,7 @@ def size_plan(plan: Any) -> tuple[list[HypothesisDesign], str]:
 def design_document(plan: Any, *, where: str = "plan", fingerprint: str | None = None,
                     simulate_trials: int | None = None, seed: int | None = None,
                     progress: Progress | None = None) -> dict[str, Any]:
-    """The design document of a validated plan (SPEC.md, "Design and interim looks")."""
+    """The design document of a validated plan (docs/files.md, "Design output")."""
     design = _require(plan, where)
     sized, rule = size_plan(plan)
     doc: dict[str, Any] = {

@@ -1,10 +1,11 @@
 """Interim looks in the plan: the ``looks:`` mapping of a hypothesis and its rules.
 
 ``looks`` names the planned information fractions (or the planned cumulative total sizes), the
-efficacy spending function and an optional non-binding futility boundary (SPEC.md, "Design and
-interim looks"). The model is declared here and used by :class:`prespec.plan.model.Hypothesis`;
-:func:`looks_issues` checks the rules across keys, and calls the boundary maths on the planned
-looks so that a plan the maths refuses is refused at ``check``.
+efficacy spending function and an optional non-binding futility boundary (docs/plan-format.md,
+"How the keys combine"). The model is declared here and used by
+:class:`prespec.plan.model.Hypothesis`; :func:`looks_issues` checks the rules across keys,
+and calls the boundary maths on the planned looks so that a plan the maths refuses is refused
+at ``check``.
 
 Which hypotheses may have looks: a confirmatory (primary or secondary) superiority comparison
 of two groups whose test gives a signed z on the risk-difference scale: ``two-proportion-z``,
@@ -66,7 +67,8 @@ class _Model(BaseModel):
 class Futility(_Model):
     """A non-binding futility boundary from a beta spending function."""
 
-    spending: Literal[FUTILITY]  # type: ignore[valid-type]
+    spending: Literal[FUTILITY] = Field(  # type: ignore[valid-type]
+        description="the beta spending function")
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")
     binding: bool = Field(default=False, description="only false (non-binding) is supported")
 
@@ -83,7 +85,8 @@ class Looks(_Model):
     efficacy: Literal[EFFICACY] = Field(  # type: ignore[valid-type]
         description="the efficacy spending function or classical boundary")
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")
-    futility: Futility | None = None
+    futility: Futility | None = Field(default=None, description="an optional non-binding "
+                                      "futility boundary")
 
     def planned_fractions(self) -> list[float]:
         """The planned information fractions (from ``sizes`` when those are given)."""

@@ -1,9 +1,9 @@
 """The plan model, declared once: validation and the JSON Schema both come from it.
 
-The models accept the whole vocabulary of format version 1 (SPEC.md) and check types; the rules
-across keys are in :mod:`prespec.plan.rules`. Defaults that depend on other keys (the
-reference group, the measure and the interval) are filled in before validation, so a validated
-model is always resolved.
+The models accept the whole vocabulary of format version 1 (docs/plan-format.md) and check
+types; the rules across keys are in :mod:`prespec.plan.rules`. Defaults that depend on other
+keys (the reference group, the measure and the interval) are filled in before validation, so a
+validated model is always resolved.
 """
 
 from __future__ import annotations
@@ -149,12 +149,17 @@ class _Model(BaseModel):
 class Condition(_Model):
     """One population filter on a column; exactly one operator is given."""
 
-    column: str
-    in_: list[Scalar] | None = Field(default=None, alias="in")
-    not_in: list[Scalar] | None = None
-    equals: Scalar | None = None
+    column: str = Field(description="the column the condition reads")
+    in_: list[Scalar] | None = Field(default=None, alias="in",
+                                     description="the row is kept when its value is one of these")
+    not_in: list[Scalar] | None = Field(
+        default=None, description="the row is kept when its value is none of these (a blank "
+        "value fails)")
+    equals: Scalar | None = Field(default=None, description="the row is kept when its value "
+                                  "equals this")
     between: list[Number] | None = Field(default=None, description="[low, high], inclusive")
-    is_missing: bool | None = None
+    is_missing: bool | None = Field(default=None, description="true: keep the rows whose value "
+                                    "is blank; false: keep the others")
 
     OPERATORS: ClassVar[tuple[tuple[str, str], ...]] = (
         ("in", "in_"),
@@ -205,9 +210,14 @@ class DataSpec(_Model):
     id: str = Field(description="unique unit id column")
     group: str = Field(description="the column that holds the group")
     groups: list[str] = Field(description="allowed group levels, in display order")
-    reference: str | None = Field(default=None, description="default comparator; first group")
-    include: list[Condition] = Field(default=[], description="every condition must hold")
-    planned_n: dict[str, Annotated[int, Field(gt=0)]] | None = None
+    reference: str | None = Field(default=None, description="the default comparator of "
+                                  "pairwise follow-ups; left out, the first of groups")
+    include: list[Condition] = Field(default=[], description="the analysis population: the "
+                                     "conditions every row must meet; a blank value fails all "
+                                     "but is_missing")
+    planned_n: dict[str, Annotated[int, Field(gt=0)]] | None = Field(
+        default=None, description="planned analysed size per group; an analysed total below it "
+        "is the departure sample-size-shortfall")
     source: Annotated[str | None, BeforeValidator(_data_source)] = Field(
         default=None, description="the data: a file path or glob inside the plan's folder "
         "(relative to it), or an SQLAlchemy URL without a password")
@@ -249,10 +259,11 @@ class DataSpec(_Model):
 class Outcome(_Model):
     """A binary outcome: the column and the values that count as event and as no event."""
 
-    column: str
-    event: list[Scalar]
-    no_event: list[Scalar]
-    missing: MissingRule = Field(description="what a blank outcome counts as")
+    column: str = Field(description="the column holding the outcome")
+    event: list[Scalar] = Field(description="the values that count as the event")
+    no_event: list[Scalar] = Field(description="the values that count as no event")
+    missing: MissingRule = Field(description="what a blank outcome counts as: left out "
+                                 "(exclude), an event, no event, or bad input (error)")
     favourable: Literal["event", "no-event"] | None = Field(
         default=None,
         description="which value is the good one; needed by worst-case and best-case "
@@ -263,22 +274,27 @@ class Outcome(_Model):
 class Sparse(_Model):
     """A pre-specified switch of test when the smallest expected count is below a bound."""
 
-    min_expected: Annotated[float, Field(gt=0), BeforeValidator(_not_bool)]
-    test: TestName
+    min_expected: Annotated[float, Field(gt=0), BeforeValidator(_not_bool)] = Field(
+        description="the switch fires when the smallest expected count (row total × column "
+        "total / grand total) is below this")
+    test: TestName = Field(description="the test used instead; it keeps the alternative")
 
 
 class Then(_Model):
     """Follow-up pairwise comparisons after a rejected k-group hypothesis (gatekeeping)."""
 
-    pairwise: Pairwise
-    multiplicity: MultiplicityName
+    pairwise: Pairwise = Field(description="reference: each group against data.reference; "
+                               "all: every pair of groups")
+    multiplicity: MultiplicityName = Field(description="the adjustment over the follow-ups")
 
 
 class MonteCarlo(_Model):
     """A Monte Carlo p-value for an exact k-group test."""
 
-    tables: Annotated[int, Field(gt=0, le=v.MAX_MONTE_CARLO_TABLES)]
-    seed: Annotated[int, Field(ge=0)]
+    tables: Annotated[int, Field(gt=0, le=v.MAX_MONTE_CARLO_TABLES)] = Field(
+        description="how many random tables are drawn")
+    seed: Annotated[int, Field(ge=0)] = Field(description="the seed of the draw, so that the "
+                                              "p-value can be recomputed")
 
 
 class Intercurrent(_Model):
@@ -287,7 +303,10 @@ class Intercurrent(_Model):
     event: str = Field(description="what happened, in words")
     column: str = Field(description="the column that says whether it happened")
     happened: list[Scalar] = Field(description="the values of the column meaning it happened")
-    strategy: Literal["treatment-policy", "composite", "while-on-treatment"]
+    strategy: Literal["treatment-policy", "composite", "while-on-treatment"] = Field(
+        description="treatment-policy: the outcome as observed; composite: the event decides "
+        "the outcome (counts_as); while-on-treatment: the outcome before the event "
+        "(outcome_column)")
     counts_as: Literal["event", "no-event"] | None = Field(
         default=None, description="composite: what the intercurrent event counts as"
     )
@@ -303,7 +322,8 @@ class Estimand(_Model):
 
     population: str | None = Field(default=None, description="in words")
     variable: str | None = Field(default=None, description="in words")
-    intercurrent: list[Intercurrent] = []
+    intercurrent: list[Intercurrent] = Field(default=[], description="the intercurrent "
+                                             "events and their strategies")
 
 
 SensitivityName = Literal["worst-case", "best-case", "tipping-point"]
@@ -313,12 +333,16 @@ class Design(_Model):
     """What the sample size is planned on: assumed rates, power, allocation and dropout."""
 
     assumed: dict[str, Probability] = Field(description="assumed event rate per group")
-    power: Probability
+    power: Probability = Field(description="the target power of each hypothesis")
     allocation: dict[str, Annotated[float, Field(gt=0), BeforeValidator(_not_bool)]] | None = (
-        Field(default=None, description="relative group sizes; default equal")
+        Field(default=None, description="relative group sizes; left out, equal (lock writes "
+              "1 for every group)")
     )
-    dropout: Annotated[float, Field(ge=0, lt=1), BeforeValidator(_not_bool)] = 0.0
-    continuity: bool = False
+    dropout: Annotated[float, Field(ge=0, lt=1), BeforeValidator(_not_bool)] = Field(
+        default=0.0, description="the share of units expected to give no outcome; the sizes "
+        "to enrol are divided by 1 − dropout")
+    continuity: bool = Field(default=False, description="continuity correction in the 2×2 "
+                             "sample-size formula")
     scenarios: dict[str, dict[str, Probability]] = Field(
         default={}, description="named rate sets for --simulate; global-null is always added"
     )
@@ -327,9 +351,12 @@ class Design(_Model):
 class GraphicalMultiplicity(_Model):
     """The graphical procedure: initial weights and transition weights between hypotheses."""
 
-    method: Literal["graphical"]
-    weights: dict[str, Number]
-    transitions: dict[str, dict[str, Number]] = {}
+    method: Literal["graphical"] = Field(description="graphical")
+    weights: dict[str, Number] = Field(description="the initial share of alpha per hypothesis "
+                                       "id, each in [0, 1], summing to at most 1")
+    transitions: dict[str, dict[str, Number]] = Field(
+        default={}, description="per hypothesis id, the share of its level passed to each "
+        "other hypothesis when it is rejected; each row sums to at most 1, no self-transition")
 
 
 def _multiplicity_tag(value: Any) -> str:
@@ -353,7 +380,8 @@ def kind_of(compare: Any) -> str | None:
 
 
 def default_measure(kind: str | None, test: Any) -> str | None:
-    """The default measure for a compare kind and test (SPEC.md, "How the keys combine")."""
+    """The default measure for a compare kind and test (docs/plan-format.md, "What each kind of
+    `compare` takes")."""
     measures = v.MEASURES_BY_KIND.get(kind or "", ())
     if not measures:
         return None
@@ -374,28 +402,53 @@ def default_interval(kind: str | None, test: Any, measure: Any) -> str | None:
 class Hypothesis(_Model):
     """One pre-specified comparison."""
 
-    id: str
-    title: str | None = None
-    outcome: str
+    id: str = Field(description="unique; no space, ':', '[' or ']' (kept for derived ids)")
+    title: str | None = Field(default=None, description="shown in the report")
+    outcome: str = Field(description="the name of one of outcomes")
     compare: Annotated[
         list[str] | Literal["all", "trend"], BeforeValidator(_compare)
     ] = Field(description="[a, b] (first vs second), [a], all or trend")
-    test: TestName
-    alternative: Alternative = "two-sided"
-    comparison: ComparisonName = "superiority"
-    margin: Annotated[float | list[float] | None, BeforeValidator(_margin)] = None
-    measure: MeasureName | None = None
-    interval: IntervalName | None = None
-    continuity: bool = False
-    sparse: Sparse | None = None
-    role: Role = "primary"
-    null_rate: Probability | None = None
-    strata: list[str] | None = None
-    scores: list[Number] | None = None
-    then: Then | None = None
-    monte_carlo: MonteCarlo | None = None
-    estimand: Estimand | None = None
-    sensitivity: list[SensitivityName] | None = None
+    test: TestName = Field(description="never defaulted: it is what is pre-specified; "
+                           "docs/plan-format.md lists which tests go with which compare")
+    alternative: Alternative = Field(
+        default="two-sided", description="greater / less: the first group's proportion is "
+        "larger / smaller (for trend, greater: rising with the score)")
+    comparison: ComparisonName = Field(
+        default="superiority", description="non-inferiority needs a one-sided alternative and "
+        "a margin; equivalence takes margin: [low, high] (two one-sided tests)")
+    margin: Annotated[float | list[float] | None, BeforeValidator(_margin)] = Field(
+        default=None, description="non-inferiority: on the measure's scale, on the far side of "
+        "no difference; equivalence: [low, high]")
+    measure: MeasureName | None = Field(
+        default=None, description="left out: the first measure of the compare kind (the odds "
+        "ratio under cochran-mantel-haenszel); none for all and trend")
+    interval: IntervalName | None = Field(
+        default=None, description="left out: the first interval of the measure (the stratified "
+        "one under cochran-mantel-haenszel)")
+    continuity: bool = Field(default=False, description="the continuity-corrected statistic "
+                             "(2×2 pearson-chi-square and cochran-mantel-haenszel only)")
+    sparse: Sparse | None = Field(default=None, description="a pre-specified switch of test "
+                                  "for sparse tables; a note when it fires, not a departure")
+    role: Role = Field(default="primary", description="exploratory hypotheses are outside the "
+                       "multiplicity family and reported with their nominal p-value (families "
+                       "default to exploratory)")
+    null_rate: Probability | None = Field(default=None, description="compare [a]: the rate "
+                                          "under the null hypothesis; required there")
+    strata: list[str] | None = Field(default=None, description="the stratification columns of "
+                                     "cochran-mantel-haenszel (required by it, used only by it)")
+    scores: list[Number] | None = Field(
+        default=None, description="trend: one distinct number per group in data.groups order; "
+        "left out, 0, 1, …")
+    then: Then | None = Field(default=None, description="compare all: follow-up pairwise "
+                              "comparisons, tested only if this hypothesis is rejected")
+    monte_carlo: MonteCarlo | None = Field(
+        default=None, description="fisher-exact on compare all: a Monte Carlo p-value instead "
+        "of full enumeration")
+    estimand: Estimand | None = Field(default=None, description="the estimand's attributes "
+                                      "(ICH E9(R1)), stated in the report before the result")
+    sensitivity: list[SensitivityName] | None = Field(
+        default=None, description="analyses of the missing outcomes reported beside the "
+        "result; worst-case and best-case need outcomes.<name>.favourable")
     looks: Looks | None = Field(default=None, description="interim analyses of this hypothesis")
     # A family (a template expanded over the levels of a column): prespec.plan.families.
     over: str | None = Field(default=None, description=FAMILY_DOC["over"])
@@ -445,14 +498,20 @@ class Plan(_Model):
     prespec: Annotated[Literal[1], BeforeValidator(_format_version)] = Field(
         description="format version"
     )
-    title: str
-    protocol: str | None = None
-    data: DataSpec
-    outcomes: dict[str, Outcome]
-    alpha: Probability
-    multiplicity: Multiplicity
-    hypotheses: list[Hypothesis]
-    design: Design | None = None
+    title: str = Field(description="the study's title, shown in the report")
+    protocol: str | None = Field(default=None, description="free text, such as the protocol "
+                                 "number")
+    data: DataSpec = Field(description="the columns, the groups and the analysis population")
+    outcomes: dict[str, Outcome] = Field(description="the binary outcomes, by name")
+    alpha: Probability = Field(description="the significance level; intervals are at "
+                               "1 − alpha (1 − 2·alpha one-sided and with a margin)")
+    multiplicity: Multiplicity = Field(
+        description="the adjustment over the non-exploratory hypotheses: a name, or a mapping "
+        "for graphical")
+    hypotheses: list[Hypothesis] = Field(description="the pre-specified comparisons, in order "
+                                         "(the order fixed-sequence tests them in)")
+    design: Design | None = Field(default=None, description="what prespec design sizes the "
+                                  "study on; part of the fingerprint")
 
     @model_validator(mode="before")
     @classmethod

@@ -1,4 +1,4 @@
-"""The rules across keys of a typed plan (SPEC.md, "How the keys combine").
+"""The rules across keys of a typed plan (docs/plan-format.md, "How the keys combine").
 
 :func:`format_issues` checks a plan against format version 1 as a whole; :func:`availability_issues`
 then refuses what format version 1 knows but this version of prespec cannot run yet. Each yields

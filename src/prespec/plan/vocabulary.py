@@ -1,8 +1,9 @@
 """The names of the plan format, and which of them this version of prespec can run.
 
-Every name SPEC.md defines is *known*: the plan model accepts it and checks its rules. Only the
-*available* names run in this release; a known but unavailable name is refused with its own
-message. A later issue makes a method available by adding its name to an ``AVAILABLE_*`` set.
+Every name of the plan format (docs/plan-format.md) is *known*: the plan model accepts it and
+checks its rules. Only the *available* names run in this release; a known but unavailable name
+is refused with its own message. A later issue makes a method available by adding its name to
+an ``AVAILABLE_*`` set.
 
 Compare kinds: ``pair`` is ``compare: [a, b]``, ``single`` is ``compare: [a]``, ``all`` is the
 k-group comparison and ``trend`` the ordered one.
@@ -22,7 +23,7 @@ KIND_LABELS: dict[str, str] = {
     "trend": "trend",
 }
 
-# Tests, per compare kind (SPEC.md, "How the keys combine").
+# Tests, per compare kind (docs/plan-format.md, "What each kind of `compare` takes").
 KNOWN_TESTS_BY_KIND: dict[str, frozenset[str]] = {
     "pair": frozenset(
         {
@@ -151,7 +152,7 @@ KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
 )
 AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
 
-# Keys of later parts of the format (SPEC.md, "Later parts", "Design and interim looks"):
+# Keys of later parts of the format (none at present; docs/plan-format.md lists every key):
 # named so that a plan using them is told they are not available yet, not that they are unknown.
 LATER_KEYS: dict[str, frozenset[str]] = {
     "plan": frozenset(),

@@ -22,7 +22,7 @@ def design(plan: str | Path, *, simulate: int | None = None, seed: int | None = 
     """Sample size and power per hypothesis of the plan file as written; with ``simulate``,
     the operating characteristics of the plan's whole decision rule over that many trials per
     scenario (``seed``: default 1). Appends a ``design`` entry to the log; returns the design
-    document (SPEC.md, "Design and interim looks"). ``progress(scenario, done, total)`` is
+    document (docs/files.md, "Design output"). ``progress(scenario, done, total)`` is
     called after each chunk of simulated trials.
     """
     from prespec.common.canonical import canonical_json, sha256_tag

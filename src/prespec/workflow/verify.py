@@ -1,6 +1,6 @@
 """``prespec verify``: re-derive every hash from the files alone and trust nothing stored.
 
-The order of the checks follows SPEC.md, "What verify checks"; the first failure stops
+The order of the checks is docs/verify.md, "The checks, in order"; the first failure stops
 with exit status 3 and names what does not match. Things that are not failures but that a
 monitor should know of (a run stopped before its last rename, temporary folders left by a
 killed run) are returned as notes.
