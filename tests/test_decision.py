@@ -32,10 +32,7 @@ REL = 1e-12
 HEAD = """\
 prespec: 1
 title: Invented dressing trial, one decision rule
-data:
-  id: participant
-  group: arm
-  groups: [gauze, alginate, foam]
+data: {id: participant, group: arm, groups: [gauze, alginate, foam]}
 outcomes:
   infection: {column: infected, event: [1], no_event: [0], missing: exclude}
   healed: {column: healed, event: [1], no_event: [0], missing: exclude}
