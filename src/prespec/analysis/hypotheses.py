@@ -3,9 +3,9 @@
 This module computes each hypothesis's entry of results.json (test, estimate, interval,
 margins) and writes down the plan's decisions as ``decision.py`` makes them (sparse switch,
 multiplicity, gatekeeping: the rule the design simulation and the tipping point also decide
-by); ``methods.py`` maps names to the pure functions of ``stats``. Beside each result it writes the estimand in words and the pre-specified
-sensitivity analyses of missing outcomes (``sensitivity.py``), which never replace it. It
-neither reads files nor writes anything.
+by); ``methods.py`` maps names to the pure functions of ``stats``. Beside each result it
+writes the estimand in words and the pre-specified sensitivity analyses of missing outcomes
+(``sensitivity.py``), which never replace it. It neither reads files nor writes anything.
 """
 
 from __future__ import annotations

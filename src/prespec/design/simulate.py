@@ -157,11 +157,10 @@ class Decider:
             columns.append(decision.sparse_fires(c.unit.hyp, smallest))
         return np.column_stack(columns)
 
-    def p_values(self, counts: dict[str, np.ndarray],
-                 fired: np.ndarray | None = None) -> np.ndarray:
+    def p_values(self, counts: dict[str, np.ndarray]) -> np.ndarray:
         """Raw p-values, trials × units, each by the test chosen for its trial (the sparse
         switch of ``decision``; nan: not computable)."""
-        fired = self.fired(counts) if fired is None else fired
+        fired = self.fired(counts)
         columns = []
         for k, c in enumerate(self._compiled):
             events = counts[c.unit.hyp.outcome][:, list(c.unit.groups)]
