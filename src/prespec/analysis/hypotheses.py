@@ -1,10 +1,11 @@
 """The statistics of one run: each hypothesis of the plan computed on its count table.
 
-This module knows the plan's vocabulary and the order of the decisions (sparse switch, test,
-estimate, multiplicity, gatekeeping); ``methods.py`` maps names to the pure functions of
-``stats``. Beside each result it writes the estimand in words and the pre-specified
-sensitivity analyses of missing outcomes (``sensitivity.py``), which never replace it. It
-neither reads files nor writes anything.
+This module computes each hypothesis's entry of results.json (test, estimate, interval,
+margins) and writes down the plan's decisions as ``decision.py`` makes them (sparse switch,
+multiplicity, gatekeeping: the rule the design simulation and the tipping point also decide
+by); ``methods.py`` maps names to the pure functions of ``stats``. Beside each result it
+writes the estimand in words and the pre-specified sensitivity analyses of missing outcomes
+(``sensitivity.py``), which never replace it. It neither reads files nor writes anything.
 """
 
 from __future__ import annotations
@@ -12,14 +13,15 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from prespec.analysis import methods, sensitivity
+import numpy as np
+
+from prespec.analysis import decision, methods, sensitivity
+from prespec.analysis.decision import MAIN_FAMILY
 from prespec.common.departures import Note
 from prespec.data import Prepared
 from prespec.plan.followups import follow_ups
-from prespec.stats import graphical, multiplicity, tables
+from prespec.stats import tables
 from prespec.stats.results import TestResult
-
-MAIN_FAMILY = "main"
 
 
 def finite_or_note(value: float | None, what: str, notes: list[Note]) -> float | None:
@@ -63,19 +65,19 @@ def _table(hyp: Any, plan: Any, prepared: Prepared,
 
 
 def _rule(hyp: Any, table: methods.Table) -> dict[str, Any] | None:
-    sparse = hyp.sparse
-    if sparse is None:
+    """The ``rule`` of an entry: the sparse switch where it fired (``decision``), else None."""
+    if not decision.has_sparse_switch(hyp):
         return None
     smallest = tables.smallest_expected(table.events, table.totals)
-    if smallest < sparse.min_expected:
-        return {
-            "switch": "sparse",
-            "min_expected": sparse.min_expected,
-            "smallest_expected": smallest,
-            "from": hyp.test,
-            "to": sparse.test,
-        }
-    return None
+    if not decision.sparse_fires(hyp, smallest):
+        return None
+    return {
+        "switch": "sparse",
+        "min_expected": hyp.sparse.min_expected,
+        "smallest_expected": smallest,
+        "from": hyp.test,
+        "to": decision.test_chosen(hyp, True),
+    }
 
 
 def _margin_check(hyp: Any, est: dict[str, Any] | None, decided: bool | None
@@ -132,7 +134,7 @@ def _blank_entry(hyp: Any, plan: Any, groups: list[str], table: methods.Table) -
         "rule": None,
         "parent": None,
         "gate": None,
-        "family": None if hyp.role == "exploratory" else MAIN_FAMILY,
+        "family": decision.family_of(hyp),
         "estimand": None,
         "sensitivity": None,
     }
@@ -174,7 +176,7 @@ def _primary(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note],
     if hyp.kind != "single":
         expected = tables.expected_counts(table.events, table.totals)
         entry["expected"] = [[float(a), float(b)] for a, b in expected]
-    rule = _rule(hyp, table) if hyp.kind != "single" else None
+    rule = _rule(hyp, table)
     run_as = hyp.model_copy(update={"test": rule["to"]}) if rule else hyp
     if rule:
         entry["rule"] = rule
@@ -366,7 +368,7 @@ def _extreme_case(hyp: Any, plan: Any, prepared: Prepared, analysis: str, source
     p = result["p_value"]
     return {"analysis": analysis, "imputed": imputed,
             "table": {"groups": groups, "events": events, "totals": totals}, **result,
-            "reject_nominal": None if p is None else bool(p <= plan.alpha)}
+            "reject_nominal": None if p is None else bool(decision.rejects(p, plan.alpha))}
 
 
 def _tipping(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any], source: str,
@@ -378,7 +380,7 @@ def _tipping(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any], sou
     a, b = (sensitivity.observed(counts.of(g), rule) for g in groups)
     grid = sensitivity.tipping_point(a, b, hyp, plan.alpha)
     primary = entry["p_value"]
-    primary_rejects = None if primary is None else bool(primary <= plan.alpha)
+    primary_rejects = None if primary is None else bool(decision.rejects(primary, plan.alpha))
     if primary_rejects is None:
         notes.append(Note("not-computable", f"{hyp.id} tipping-point: the primary p-value is "
                           "not computable; the grid is compared with 'not rejected'"))
@@ -402,34 +404,35 @@ def _sensitivity(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any],
     return out
 
 
-def _adjusted(raw: list[float], method: Any, ids: list[str]) -> list[float]:
-    if isinstance(method, str):
-        return multiplicity.adjust(raw, method)
-    weights = [float(method.weights.get(i, 0.0)) for i in ids]
-    transitions = [[float(method.transitions.get(a, {}).get(b, 0.0)) for b in ids] for a in ids]
-    return graphical.graphical_adjust(raw, weights, transitions)
-
-
-def adjust_family(entries: list[dict[str, Any]], method: Any, alpha: float,
-                  notes: list[Note], label: str) -> None:
-    """Fill ``p_adjusted`` and ``reject`` over one family of hypotheses, in plan order.
-
-    A p-value that could not be computed enters the adjustment as 1 (it can never be
-    rejected, and it does not make the others easier to reject); a note says so.
-    """
+def _family_notes(entries: list[dict[str, Any]], method: Any, label: str,
+                  notes: list[Note]) -> None:
+    """A note for each entry of an adjusted family without a p-value: it enters as 1."""
     name = method if isinstance(method, str) else method.method
-    raw = []
     for e in entries:
         if e["p_value"] is None:
             notes.append(Note("not-computable", f"{e['id']}: no p-value; it enters {name} "
                               f"({label}) as 1"))
-        raw.append(1.0 if e["p_value"] is None else e["p_value"])
-    adjusted = _adjusted(raw, method, [e["id"] for e in entries]) if entries else []
-    for e, p_adj in zip(entries, adjusted, strict=True):
-        if e["p_value"] is None:
+
+
+def _decide(entries: list[dict[str, Any]], plan: Any) -> decision.Decision:
+    """Fill ``p_adjusted``, ``reject`` and ``gate`` of every entry by the plan's rule
+    (``decision.decide``, one row): exploratory entries keep null, an entry without a p-value
+    too unless a closed gate decided it (not rejected)."""
+    units = [decision.Unit(e["id"], e["family"], e["parent"]) for e in entries]
+    raw = [np.nan if e["p_value"] is None else e["p_value"] for e in entries]
+    decided = decision.decide(plan, units, np.array([raw], dtype=float))
+    for k, e in enumerate(entries):
+        if e["family"] is None:
             continue
-        e["p_adjusted"] = float(p_adj)
-        e["reject"] = bool(p_adj <= alpha)
+        if e["parent"] is not None:
+            e["gate"] = "open" if decided.gate_open[0, k] else "closed"
+            if e["gate"] == "closed":
+                e["reject"] = False
+                continue
+        if e["p_value"] is not None:
+            e["p_adjusted"] = float(decided.adjusted[0, k])
+            e["reject"] = bool(decided.reject[0, k])
+    return decided
 
 
 def _decide_margins(entries: list[dict[str, Any]], plan: Any) -> None:
@@ -440,42 +443,47 @@ def _decide_margins(entries: list[dict[str, Any]], plan: Any) -> None:
             continue
         decided = e["reject"]
         if decided is None and e["p_value"] is not None:  # exploratory: the nominal decision
-            decided = e["p_value"] <= plan.alpha
+            decided = bool(decision.rejects(e["p_value"], plan.alpha))
         e["margin_check"] = _margin_check(source, e["estimate"], decided)
 
 
 def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[Note]]:
-    """Every hypothesis of the plan, adjusted for multiplicity, with the gated follow-ups."""
+    """Every hypothesis of the plan, adjusted for multiplicity, with the gated follow-ups.
+
+    The decisions are those of ``decision.decide`` on the one table of the run; the notes
+    keep their order: the plan's hypotheses, the main family's adjustment, then each parent's
+    follow-ups and their adjustment or closed gate.
+    """
     notes: list[Note] = []
     entries = [compute_hypothesis(h, plan, prepared, notes) for h in plan.hypotheses]
-    main = [e for e in entries if e["role"] != "exploratory"]
-    adjust_family(main, plan.multiplicity, plan.alpha, notes, "the main family")
     out: list[dict[str, Any]] = []
+    later: list[tuple[Any, int, list[dict[str, Any]], list[Note]]] = []
     for hyp, entry in zip(plan.hypotheses, entries, strict=True):
+        at = len(out)
         out.append(entry)
         if hyp.then is None:
             continue
-        family = f"{hyp.id} pairwise"
+        own: list[Note] = []
         follow = []
         for sub in follow_ups(hyp, plan):
-            e = compute_hypothesis(sub, plan, prepared, notes, source=hyp.id)
+            e = compute_hypothesis(sub, plan, prepared, own, source=hyp.id)
             e["parent"] = hyp.id
-            e["family"] = None if hyp.role == "exploratory" else family
+            e["family"] = decision.family_of(sub, hyp)
             follow.append(e)
+        out.extend(follow)
+        later.append((hyp, at, follow, own))
+    decided = _decide(out, plan)
+    _family_notes([e for e in out if e["family"] == MAIN_FAMILY], plan.multiplicity,
+                  "the main family", notes)
+    for hyp, at, follow, own in later:
+        notes.extend(own)
         if hyp.role == "exploratory":
-            out.extend(follow)
             continue
-        gate_open = entry["reject"] is True
-        for e in follow:
-            e["gate"] = "open" if gate_open else "closed"
-        if gate_open:
-            adjust_family(follow, hyp.then.multiplicity, plan.alpha, notes, family)
+        if decided.reject[0, at]:  # the gate of its follow-ups is open
+            _family_notes(follow, hyp.then.multiplicity, f"{hyp.id} pairwise", notes)
         else:
-            for e in follow:
-                e["reject"] = False
             notes.append(Note("gate-closed", f"{hyp.id} was not rejected, so its pairwise "
                               "follow-ups are not tested (their p-values are nominal)"))
-        out.extend(follow)
     _decide_margins(out, plan)
     return out, notes
 

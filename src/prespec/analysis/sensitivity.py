@@ -35,6 +35,7 @@ from typing import Any
 import numpy as np
 from scipy import special, stats
 
+from prespec.analysis import decision
 from prespec.data import GroupCounts
 from prespec.plan import vocabulary
 from prespec.stats.proportions import FISHER_TIE_TOLERANCE, deviance_terms
@@ -422,28 +423,27 @@ class TippingPoint:
 def tipping_point(a: Observed, b: Observed, hyp: Any, alpha: float) -> TippingPoint:
     """The p-value and decision at ``alpha`` of the hypothesis's test at every completion.
 
-    Every table has the full totals n = complete + missing; x1 = e1 + i, x2 = e2 + j. A
-    pre-specified sparse switch (``hyp.sparse``) is applied cell by cell, on each cell's
-    smallest expected count.
+    Every table has the full totals n = complete + missing; x1 = e1 + i, x2 = e2 + j. The
+    plan's rule (``decision``) decides each cell as it decides the run: the pre-specified
+    sparse switch on the cell's smallest expected count, the test it chooses, and the
+    decision at the nominal ``alpha``.
     """
     n1, n2 = a.total + a.missing, b.total + b.missing
-    i = np.arange(a.missing + 1)[:, None]
-    j = np.arange(b.missing + 1)[None, :]
-    x1, x2 = a.events + i, b.events + j
     shape = (a.missing + 1, b.missing + 1)
+    i, j = np.indices(shape)
+    x1, x2 = a.events + i, b.events + j
     switched = np.zeros(shape, dtype=bool)
     if n1 == 0 or n2 == 0:
         p = np.full(shape, np.nan)
     else:
-        p = np.broadcast_to(grid_p_values(hyp.test, x1, n1, x2, n2, hyp), shape).copy()
-        sparse = getattr(hyp, "sparse", None)
-        if sparse is not None:
-            switched = np.broadcast_to(
-                smallest_expected_grid(x1, n1, x2, n2) < sparse.min_expected, shape).copy()
-            if switched.any():
-                other = np.broadcast_to(grid_p_values(sparse.test, x1, n1, x2, n2, hyp), shape)
-                p = np.where(switched, other, p)
-    reject = np.where(np.isnan(p), False, p <= alpha)
+        if decision.has_sparse_switch(hyp):
+            switched = decision.sparse_fires(hyp, smallest_expected_grid(x1, n1, x2, n2))
+
+        def p_of(test: str, where: np.ndarray) -> np.ndarray:
+            return grid_p_values(test, x1[where], n1, x2[where], n2, hyp)
+
+        p = decision.chosen_p_values(hyp, switched, p_of)
+    reject = decision.rejects(p, alpha)
     point = None
     if a.total > 0 and b.total > 0:
         point = (a.missing * a.events / a.total, b.missing * b.events / b.total)

@@ -109,8 +109,11 @@ def graphical_adjust(p: np.ndarray, weights: Sequence[float],
             ratio = np.where(w > 0.0, p / w, np.inf)
         ratio = np.where(active, ratio, np.inf)
         j = np.argmin(ratio, axis=1)
+        # where every hypothesis left has weight 0, argmin may point at one already taken:
+        # those left keep 1 (as the scalar procedure gives them), the taken one its value
+        taken = active[rows, j]
         previous = np.minimum(1.0, np.maximum(ratio[rows, j], previous))
-        adjusted[rows, j] = previous
+        adjusted[rows, j] = np.where(taken, previous, adjusted[rows, j])
         active[rows, j] = False
         g_out = g[rows, j, :]  # g[j, h]
         g_in = g[rows, :, j]  # g[h, j]

@@ -18,6 +18,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
+from prespec.analysis import decision
 from prespec.common.caution import CAUTION
 from prespec.design import exactpower, samplesize
 from prespec.design.simulate import Progress, simulate
@@ -300,7 +301,7 @@ def size_hypothesis(plan: Any, hyp: Any, share: AlphaShare) -> HypothesisDesign:
                                  "passes to it, so it has no alpha of its own to be sized at"),))
     method = _method(plan, hyp, share.alpha, rates, shares)
     notes.extend(method.notes)
-    if hyp.sparse is not None and hyp.kind != "single":
+    if decision.has_sparse_switch(hyp):
         notes.append(f"sized for {hyp.test}; the sparse switch to {hyp.sparse.test} (expected "
                      f"count below {hyp.sparse.min_expected:g}) is in --simulate")
     n_per_group = enrol = power = None

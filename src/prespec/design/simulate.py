@@ -3,9 +3,10 @@
 Each simulated trial draws every group's events from its assumed rate (the group sizes fixed
 at the analysed sizes) and is decided by the plan's full rule: the pre-specified test of each
 hypothesis, its sparse switch applied trial by trial, the multiplicity procedure over the main
-family, and the gated pairwise follow-ups with their own adjustment. The count tables are
-arrays (trials × groups), drawn in chunks so that memory stays bounded; tests and
-adjustments run on whole arrays (``arraytests``, ``arraymultiplicity``).
+family, and the gated pairwise follow-ups with their own adjustment: the rule of
+``analysis.decision``, the one the run decides by, here on many trials at once. The count
+tables are arrays (trials × groups), drawn in chunks so that memory stays bounded; the tests
+run on whole arrays (``arraytests``).
 
 What is reported per scenario: the family-wise error rate (the probability of rejecting at
 least one true null among the non-exploratory hypotheses, follow-ups included), the false
@@ -24,8 +25,8 @@ from typing import Any
 
 import numpy as np
 
-from prespec.analysis.hypotheses import MAIN_FAMILY
-from prespec.design import arraymultiplicity
+from prespec.analysis import decision
+from prespec.analysis.decision import MAIN_FAMILY
 from prespec.design.arraytests import ArrayTest, array_test, smallest_expected
 from prespec.errors import BadInput
 from prespec.plan.followups import follow_ups
@@ -48,6 +49,10 @@ class Unit:
     parent: str | None
     groups: tuple[int, ...]  # indices into data.groups, in compare order
 
+    def rule_unit(self) -> decision.Unit:
+        """The unit as ``decision.decide`` sees it."""
+        return decision.Unit(self.id, self.family, self.parent)
+
 
 def units_of(plan: Any) -> list[Unit]:
     """The hypotheses in the order of results.json: each followed by its follow-ups."""
@@ -55,13 +60,13 @@ def units_of(plan: Any) -> list[Unit]:
     out = []
     for hyp in plan.hypotheses:
         groups = names if hyp.kind in ("all", "trend") else list(hyp.compare)
-        family = None if hyp.role == "exploratory" else MAIN_FAMILY
-        out.append(Unit(hyp.id, hyp, family, None, tuple(names.index(g) for g in groups)))
+        out.append(Unit(hyp.id, hyp, decision.family_of(hyp), None,
+                        tuple(names.index(g) for g in groups)))
         if hyp.then is None:
             continue
         for sub in follow_ups(hyp, plan):
-            out.append(Unit(sub.id, sub, None if family is None else f"{hyp.id} pairwise",
-                            hyp.id, tuple(names.index(g) for g in sub.compare)))
+            out.append(Unit(sub.id, sub, decision.family_of(sub, hyp), hyp.id,
+                            tuple(names.index(g) for g in sub.compare)))
     return out
 
 
@@ -104,9 +109,7 @@ def null_holds(hyp: Any, rates: list[float], sizes: list[int]) -> bool:
 class _Compiled:
     unit: Unit
     totals: np.ndarray
-    main: ArrayTest
-    switch: ArrayTest | None
-    min_expected: float | None
+    tests: dict[str, ArrayTest]  # the planned test and, with a sparse switch, the other
 
 
 class Decider:
@@ -115,7 +118,8 @@ class Decider:
     ``decide(counts)`` takes, per outcome, an integer array (trials × groups in data.groups
     order) of events and returns a boolean array (trials × units) of rejections: the main
     family adjusted by the plan's multiplicity, exploratory hypotheses at their nominal level,
-    follow-ups only where their parent is rejected. ``per_table`` lists the tests that run
+    follow-ups only where their parent is rejected (``decision.decide``; ``decisions(counts)``
+    gives the adjusted p-values and gates as well). ``per_table`` lists the tests that run
     once per distinct table instead of on arrays.
     """
 
@@ -131,66 +135,53 @@ class Decider:
                                "simulated from one assumed rate per group; leave out --simulate "
                                "or simulate a plan without it")
             totals = np.array([sizes[plan.data.groups[i]] for i in unit.groups], dtype=np.int64)
-            main, arrays = array_test(hyp, hyp.test, totals)
-            if not arrays:
-                self.per_table.append(f"{unit.id}: {hyp.test}")
-            switch, bound = None, None
-            if hyp.sparse is not None and hyp.kind != "single":
-                switch, arrays = array_test(hyp, hyp.sparse.test, totals)
-                bound = float(hyp.sparse.min_expected)
+            tests = {}
+            chosen = [(hyp.test, "")]
+            if decision.has_sparse_switch(hyp):
+                chosen.append((decision.test_chosen(hyp, True), " (sparse switch)"))
+            for test, why in chosen:
+                tests[test], arrays = array_test(hyp, test, totals)
                 if not arrays:
-                    self.per_table.append(f"{unit.id}: {hyp.sparse.test} (sparse switch)")
-            self._compiled.append(_Compiled(unit, totals, main, switch, bound))
+                    self.per_table.append(f"{unit.id}: {test}{why}")
+            self._compiled.append(_Compiled(unit, totals, tests))
 
-    def p_values(self, counts: dict[str, np.ndarray]) -> np.ndarray:
-        """Raw p-values, trials × units, after each trial's sparse switch (nan: not
-        computable)."""
+    def fired(self, counts: dict[str, np.ndarray]) -> np.ndarray:
+        """Where each unit's sparse switch fires, trials × units (``decision``)."""
+        trials = next(iter(counts.values())).shape[0]
         columns = []
         for c in self._compiled:
-            events = counts[c.unit.hyp.outcome][:, list(c.unit.groups)]
-            p = np.asarray(c.main(events), dtype=float)
-            if c.switch is not None and c.min_expected is not None:
-                fired = smallest_expected(events, c.totals) < c.min_expected
-                if fired.any():
-                    p = p.copy()
-                    p[fired] = c.switch(events[fired])
-            columns.append(p)
+            smallest = np.full(trials, np.inf)
+            if decision.has_sparse_switch(c.unit.hyp):
+                events = counts[c.unit.hyp.outcome][:, list(c.unit.groups)]
+                smallest = smallest_expected(events, c.totals)
+            columns.append(decision.sparse_fires(c.unit.hyp, smallest))
         return np.column_stack(columns)
 
-    def _adjusted(self, p: np.ndarray, method: Any, ids: list[str]) -> np.ndarray:
-        if isinstance(method, str):
-            return arraymultiplicity.adjust(p, method)
-        weights = [float(method.weights.get(i, 0.0)) for i in ids]
-        transitions = [[float(method.transitions.get(a, {}).get(b, 0.0)) for b in ids]
-                       for a in ids]
-        return arraymultiplicity.graphical_adjust(p, weights, transitions)
+    def p_values(self, counts: dict[str, np.ndarray]) -> np.ndarray:
+        """Raw p-values, trials × units, each by the test chosen for its trial (the sparse
+        switch of ``decision``; nan: not computable)."""
+        fired = self.fired(counts)
+        columns = []
+        for k, c in enumerate(self._compiled):
+            events = counts[c.unit.hyp.outcome][:, list(c.unit.groups)]
+
+            def p_of(test: str, where: np.ndarray, c: _Compiled = c,
+                     events: np.ndarray = events) -> np.ndarray:
+                if test not in c.tests:
+                    c.tests[test] = array_test(c.unit.hyp, test, c.totals)[0]
+                return np.asarray(c.tests[test](events[where]), dtype=float)
+
+            columns.append(decision.chosen_p_values(c.unit.hyp, fired[:, k], p_of))
+        return np.column_stack(columns)
+
+    def decisions(self, counts: dict[str, np.ndarray]) -> decision.Decision:
+        """The plan's decisions on these trials (``decision.decide``)."""
+        return decision.decide(self.plan, [u.rule_unit() for u in self.units],
+                               self.p_values(counts))
 
     def decide(self, counts: dict[str, np.ndarray]) -> np.ndarray:
-        raw = self.p_values(counts)
-        computable = ~np.isnan(raw)
-        filled = np.where(computable, raw, 1.0)  # as analysis.adjust_family: enters as 1
-        alpha = self.plan.alpha
-        reject = np.zeros(raw.shape, dtype=bool)
-        index = {u.id: i for i, u in enumerate(self.units)}
-        families: dict[str, list[int]] = {}
-        for i, u in enumerate(self.units):
-            if u.family is None:
-                reject[:, i] = computable[:, i] & (raw[:, i] <= alpha)
-            else:
-                families.setdefault(u.family, []).append(i)
-        main = families.pop(MAIN_FAMILY, [])
-        if main:
-            adjusted = self._adjusted(filled[:, main], self.plan.multiplicity,
-                                      [self.units[i].id for i in main])
-            reject[:, main] = computable[:, main] & (adjusted <= alpha)
-        for members in families.values():
-            parent = self.units[members[0]].parent
-            assert parent is not None
-            gate = reject[:, index[parent]]
-            method = self.plan.hypothesis(parent).then.multiplicity
-            adjusted = arraymultiplicity.adjust(filled[:, members], method)
-            reject[:, members] = gate[:, None] & computable[:, members] & (adjusted <= alpha)
-        return reject
+        """The rejections, trials × units."""
+        return self.decisions(counts).reject
 
 
 @dataclass(frozen=True)
