@@ -14,10 +14,26 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
+from typing import Any, Literal, get_args
 
 import pytest
+from pydantic import BaseModel, Field
 
-from prespec.plan import fingerprint, load_plan, plan_from_resolved, resolve
+from prespec.plan import (
+    Hypothesis,
+    Outcome,
+    Plan,
+    Sparse,
+    Then,
+    fingerprint,
+    load_plan,
+    plan_from_resolved,
+    resolve,
+)
+from prespec.plan.canonical_form import Canonical, CanonicalModel, default_of
+from prespec.plan.looks import Looks
+from prespec.plan.model import DataSpec
+from prespec.plan.yamlread import parse_plan_yaml, read_plan_bytes
 
 ROOT = Path(__file__).parent.parent
 FROZEN = Path(__file__).parent / "fixtures" / "plans"
@@ -110,3 +126,189 @@ def test_a_plan_locked_by_an_earlier_version_rebuilds_to_what_its_lock_stores(
     plan = plan_from_resolved(version["plan"], source=name)
     assert resolve(plan) == version["plan"]
     assert fingerprint(resolve(plan)) == version["fingerprint"]
+
+
+# --- the declaration ---------------------------------------------------------------------------
+
+def plan_models(model: type[BaseModel] = Plan) -> dict[str, type[BaseModel]]:
+    """Every model reachable from ``model`` through its fields' types, by class name."""
+    found: dict[str, type[BaseModel]] = {}
+
+    def visit(tp: Any) -> None:
+        if isinstance(tp, type) and issubclass(tp, BaseModel) and tp.__name__ not in found:
+            found[tp.__name__] = tp
+            for info in tp.model_fields.values():
+                visit(info.annotation)
+        for arg in get_args(tp):
+            visit(arg)
+
+    visit(model)
+    return found
+
+
+# The keys written whatever their value: those that fingerprints were first taken over. The set
+# is closed; a key added to the plan goes into if_set (left out at its default).
+ALWAYS = {
+    "Plan": ("prespec", "title", "protocol", "data", "outcomes", "alpha", "multiplicity",
+             "hypotheses", "design"),
+    "DataSpec": ("id", "group", "groups", "reference", "include", "planned_n"),
+    "Condition": ("column", "in_", "not_in", "equals", "between", "is_missing"),
+    "Outcome": ("column", "event", "no_event", "missing", "favourable"),
+    "GraphicalMultiplicity": ("method", "weights", "transitions"),
+    "Hypothesis": ("id", "title", "outcome", "compare", "test", "alternative", "comparison",
+                   "margin", "measure", "interval", "continuity", "sparse", "role", "null_rate",
+                   "strata", "scores", "then", "monte_carlo", "estimand", "sensitivity"),
+    "Sparse": ("min_expected", "test"),
+    "Then": ("pairwise", "multiplicity"),
+    "MonteCarlo": ("tables", "seed"),
+    "Estimand": ("population", "variable", "intercurrent"),
+    "Intercurrent": ("event", "column", "happened", "strategy", "counts_as", "outcome_column"),
+    "Looks": ("fractions", "sizes", "efficacy", "gamma", "futility"),
+    "Futility": ("spending", "gamma", "binding"),
+    "Design": ("assumed", "power", "allocation", "dropout", "continuity", "scenarios"),
+}
+# The keys left out at their default, and that default: what a plan without the key means.
+# A released default never changes.
+LEFT_OUT_AT_DEFAULT = {
+    ("DataSpec", "source"): None,
+    ("DataSpec", "table"): None,
+    ("DataSpec", "password_from"): None,
+    ("Hypothesis", "looks"): None,
+    ("Hypothesis", "over"): None,
+    # the family keys: written in full on a family (over given), else left out at None
+    ("Hypothesis", "within"): None,
+    ("Hypothesis", "levels"): None,
+    ("Hypothesis", "flag_method"): None,
+    ("Hypothesis", "flag_level"): None,
+    ("Hypothesis", "group_level"): None,
+    ("Hypothesis", "members"): None,
+}
+
+
+def test_the_keys_always_written_are_the_first_releases() -> None:
+    models = plan_models()
+    assert set(models) == set(ALWAYS)
+    for name, model in models.items():
+        form = model.CANONICAL
+        assert form is not None and form.always == ALWAYS[name], (
+            f"{name}: a key added to the plan must be declared if_set (left out at its "
+            "default), or every plan's fingerprint moves")
+
+
+def test_the_keys_left_out_at_their_default_and_their_defaults() -> None:
+    declared = {}
+    for name, model in plan_models().items():
+        form = model.CANONICAL
+        for key in (*form.if_set, *form.with_key):
+            declared[(name, key)] = default_of(model, key)
+    assert declared == LEFT_OUT_AT_DEFAULT
+    hypothesis = Hypothesis.CANONICAL
+    assert dict(hypothesis.with_key) == {key: "over" for key in
+                                         ("within", "levels", "flag_method", "flag_level",
+                                          "group_level", "members")}
+
+
+def test_a_family_writes_its_keys_and_an_ordinary_hypothesis_leaves_them_out() -> None:
+    resolved = load_plan(FROZEN / "family-beside-ordinary.yaml").resolved
+    ordinary, family = resolved["hypotheses"]
+    assert not {"over", "within", "levels", "flag_method", "flag_level", "group_level",
+                "members", "looks"} & set(ordinary)
+    assert {k: family[k] for k in ("over", "within", "levels", "flag_method", "flag_level",
+                                   "group_level", "members")} == {
+        "over": "worst_term", "within": None, "levels": None,
+        "flag_method": "benjamini-hochberg", "flag_level": 0.05, "group_level": None,
+        "members": None}
+    assert "looks" not in family
+    data = load_plan(FROZEN / "source-database.yaml").resolved["data"]
+    assert (data["source"], data["table"], data["password_from"]) == (
+        "postgresql://ana@db.example/trial", "visits", "TRIAL_DB_PASSWORD")
+    assert not {"source", "table", "password_from"} & set(resolved["data"])
+
+
+def test_a_field_not_declared_fails_when_the_model_is_made() -> None:
+    with pytest.raises(TypeError, match=r"^_Outcome.label: not declared in _Outcome.CANONICAL; "
+                                        r"a key added to the plan enters the fingerprint only "
+                                        r"when it differs from its default: add it to if_set"):
+        class _Outcome(Outcome):
+            label: str | None = None
+    with pytest.raises(TypeError, match=r"^_Hypothesis.CANONICAL: sponsor is not a field"):
+        class _Hypothesis(Hypothesis):
+            CANONICAL = Hypothesis.CANONICAL.adding(if_set=("sponsor",))
+    with pytest.raises(TypeError, match=r"^_Sparse.CANONICAL: note has no default, so it "
+                                        r"cannot be left out; declare it in always"):
+        class _Sparse(Sparse):
+            CANONICAL = Sparse.CANONICAL.adding(if_set=("note",))
+            note: str
+    with pytest.raises(TypeError, match=r"^_Then.CANONICAL: multiplicity is declared more"):
+        class _Then(Then):
+            CANONICAL = Then.CANONICAL.adding(if_set=("multiplicity",))
+    with pytest.raises(TypeError, match=r"^_Fresh: declare CANONICAL"):
+        class _Fresh(CanonicalModel):
+            size: int = 1
+
+
+# --- a key added later -------------------------------------------------------------------------
+
+class LooksLater(Looks):
+    CANONICAL = Looks.CANONICAL.adding(if_set=("information",))
+    information: Literal["observed", "planned"] = "observed"
+
+
+class HypothesisLater(Hypothesis):
+    CANONICAL = Hypothesis.CANONICAL.adding(if_set=("confirmatory_note", "stop_early"))
+    confirmatory_note: str | None = None
+    stop_early: bool = False
+    looks: LooksLater | None = None
+
+
+class OutcomeLater(Outcome):
+    CANONICAL = Outcome.CANONICAL.adding(if_set=("label",))
+    label: str | None = None
+
+
+class DataLater(DataSpec):
+    CANONICAL = DataSpec.CANONICAL.adding(if_set=("weights",))
+    weights: dict[str, float] = Field(default={})
+
+
+class PlanLater(Plan):
+    CANONICAL = Plan.CANONICAL.adding(if_set=("sponsor",))
+    sponsor: str | None = None
+    data: DataLater
+    outcomes: dict[str, OutcomeLater]
+    hypotheses: list[HypothesisLater]
+
+
+def raw_plan(path: Path) -> dict[str, Any]:
+    return parse_plan_yaml(read_plan_bytes(path, str(path)), str(path)).data
+
+
+def later_fingerprint(raw: dict[str, Any], model: type[Plan] = PlanLater) -> str:
+    return fingerprint(resolve(model.model_validate(raw)))
+
+
+@pytest.mark.parametrize("name", list(GOLDEN))
+def test_keys_added_later_leave_every_fingerprint_unchanged(name: str) -> None:
+    raw = raw_plan(golden_path(name))
+    assert later_fingerprint(raw) == GOLDEN[name]
+    # and a plan that uses one of them has another fingerprint, which holds that key
+    used = {**raw, "hypotheses": [{**raw["hypotheses"][0], "stop_early": True},
+                                  *raw["hypotheses"][1:]]}
+    assert later_fingerprint(used) != GOLDEN[name]
+    assert resolve(PlanLater.model_validate(used))["hypotheses"][0]["stop_early"] is True
+    assert later_fingerprint({**raw, "sponsor": "Invented Foundation"}) != GOLDEN[name]
+
+
+def test_a_key_added_later_as_always_would_move_every_fingerprint() -> None:
+    # why the kinds matter: the same new key, declared always, moves the fingerprint
+    class OutcomeAlways(Outcome):
+        CANONICAL = Canonical(always=(*Outcome.CANONICAL.always, "label"))
+        label: str | None = None
+
+    class PlanAlways(Plan):
+        outcomes: dict[str, OutcomeAlways]
+
+    for name in ("plans/wound-dressing.yaml", "looks-holm.yaml"):
+        raw = raw_plan(golden_path(name))
+        assert later_fingerprint(raw, PlanAlways) != GOLDEN[name]
+        assert later_fingerprint(raw, Plan) == GOLDEN[name]

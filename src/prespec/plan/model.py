@@ -12,19 +12,18 @@ import difflib
 from typing import Annotated, Any, ClassVar, Literal
 
 from pydantic import (
-    BaseModel,
     BeforeValidator,
     ConfigDict,
     Discriminator,
     Field,
     Tag,
-    model_serializer,
     model_validator,
 )
 from pydantic_core import PydanticCustomError
 
 from prespec.plan import vocabulary as v
-from prespec.plan.families import FAMILY_DOC, family_defaults, without_family_keys
+from prespec.plan.canonical_form import Canonical, CanonicalModel
+from prespec.plan.families import FAMILY_DOC, family_defaults
 from prespec.plan.looks import Looks
 from prespec.plan.yamlread import describe, show
 
@@ -142,7 +141,7 @@ def _multiplicity(value: Any) -> Any:
     raise problem(f"expected a multiplicity name or a mapping, found {describe(value)}")
 
 
-class _Model(BaseModel):
+class _Model(CanonicalModel):
     model_config = ConfigDict(extra="forbid", frozen=True, strict=True, allow_inf_nan=False)
 
 
@@ -155,6 +154,9 @@ class Condition(_Model):
     equals: Scalar | None = None
     between: list[Number] | None = Field(default=None, description="[low, high], inclusive")
     is_missing: bool | None = None
+
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("column", "in_", "not_in", "equals", "between", "is_missing"))
 
     OPERATORS: ClassVar[tuple[tuple[str, str], ...]] = (
         ("in", "in_"),
@@ -215,15 +217,10 @@ class DataSpec(_Model):
     password_from: Annotated[str | None, BeforeValidator(_env_name)] = Field(
         default=None, description="the environment variable that holds the database password")
 
-    @model_serializer(mode="wrap")
-    def _without_unused_source(self, handler: Any) -> Any:
-        """A plan without a data source resolves as before these keys existed (its
-        fingerprint unchanged)."""
-        out = handler(self)
-        for key in ("source", "table", "password_from"):
-            if isinstance(out, dict) and out.get(key) is None:
-                out.pop(key, None)
-        return out
+    # a plan without a data source resolves as before these keys existed
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("id", "group", "groups", "reference", "include", "planned_n"),
+        if_set=("source", "table", "password_from"))
 
     @model_validator(mode="after")
     def _source_keys(self) -> DataSpec:
@@ -259,12 +256,17 @@ class Outcome(_Model):
         "sensitivity analyses",
     )
 
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("column", "event", "no_event", "missing", "favourable"))
+
 
 class Sparse(_Model):
     """A pre-specified switch of test when the smallest expected count is below a bound."""
 
     min_expected: Annotated[float, Field(gt=0), BeforeValidator(_not_bool)]
     test: TestName
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("min_expected", "test"))
 
 
 class Then(_Model):
@@ -273,12 +275,16 @@ class Then(_Model):
     pairwise: Pairwise
     multiplicity: MultiplicityName
 
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("pairwise", "multiplicity"))
+
 
 class MonteCarlo(_Model):
     """A Monte Carlo p-value for an exact k-group test."""
 
     tables: Annotated[int, Field(gt=0, le=v.MAX_MONTE_CARLO_TABLES)]
     seed: Annotated[int, Field(ge=0)]
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("tables", "seed"))
 
 
 class Intercurrent(_Model):
@@ -297,13 +303,19 @@ class Intercurrent(_Model):
         "intercurrent event",
     )
 
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("event", "column", "happened", "strategy", "counts_as", "outcome_column"))
+
 
 class Estimand(_Model):
     """The estimand in the attributes of ICH E9(R1); the summary measure is the `measure`."""
 
     population: str | None = Field(default=None, description="in words")
     variable: str | None = Field(default=None, description="in words")
-    intercurrent: list[Intercurrent] = []
+    intercurrent: list[Intercurrent] = Field(default=[])
+
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("population", "variable", "intercurrent"))
 
 
 SensitivityName = Literal["worst-case", "best-case", "tipping-point"]
@@ -323,13 +335,18 @@ class Design(_Model):
         default={}, description="named rate sets for --simulate; global-null is always added"
     )
 
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("assumed", "power", "allocation", "dropout", "continuity", "scenarios"))
+
 
 class GraphicalMultiplicity(_Model):
     """The graphical procedure: initial weights and transition weights between hypotheses."""
 
     method: Literal["graphical"]
     weights: dict[str, Number]
-    transitions: dict[str, dict[str, Number]] = {}
+    transitions: dict[str, dict[str, Number]] = Field(default={})
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("method", "weights", "transitions"))
 
 
 def _multiplicity_tag(value: Any) -> str:
@@ -407,6 +424,15 @@ class Hypothesis(_Model):
     group_level: Probability | None = Field(default=None, description=FAMILY_DOC["group_level"])
     members: list[str] | None = Field(default=None, description=FAMILY_DOC["members"])
 
+    # an ordinary hypothesis resolves as before families and looks existed; a family writes
+    # all its keys
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("id", "title", "outcome", "compare", "test", "alternative", "comparison",
+                "margin", "measure", "interval", "continuity", "sparse", "role", "null_rate",
+                "strata", "scores", "then", "monte_carlo", "estimand", "sensitivity"),
+        if_set=("looks", "over"),
+        with_key={key: "over" for key in v.FAMILY_KEYS if key != "over"})
+
     @model_validator(mode="before")
     @classmethod
     def _default_estimate(cls, data: Any) -> Any:
@@ -419,15 +445,6 @@ class Hypothesis(_Model):
         if out.get("interval") is None:
             out["interval"] = default_interval(kind, test, out["measure"])
         return out
-
-    @model_serializer(mode="wrap")
-    def _family_keys_on_families_only(self, handler: Any) -> Any:
-        # an ordinary hypothesis dumps (and so fingerprints) as it did before families
-        # and without `looks` when it has none (plans without looks fingerprint as before)
-        dumped = without_family_keys(handler(self), self.over is None)
-        if isinstance(dumped, dict) and dumped.get("looks", 0) is None:
-            del dumped["looks"]
-        return dumped
 
     @property
     def kind(self) -> Literal["pair", "single", "all", "trend"]:
@@ -453,6 +470,10 @@ class Plan(_Model):
     multiplicity: Multiplicity
     hypotheses: list[Hypothesis]
     design: Design | None = None
+
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("prespec", "title", "protocol", "data", "outcomes", "alpha", "multiplicity",
+                "hypotheses", "design"))
 
     @model_validator(mode="before")
     @classmethod
