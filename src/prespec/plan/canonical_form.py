@@ -50,16 +50,6 @@ class Canonical:
     def names(self) -> list[str]:
         return [*self.always, *self.if_set, *self.with_key]
 
-    def kind(self, name: str) -> str:
-        """``always``, ``if_set`` or ``with_key`` for a declared field."""
-        if name in self.always:
-            return "always"
-        if name in self.if_set:
-            return "if_set"
-        if name in self.with_key:
-            return "with_key"
-        raise KeyError(name)
-
 
 class CanonicalModel(BaseModel):
     """A plan model whose dump is its canonical form; subclasses with fields declare
