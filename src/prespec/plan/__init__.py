@@ -99,12 +99,18 @@ def plan_from_resolved(resolved: dict[str, Any], source: str = "lock") -> Plan:
 
 
 def resolve(plan: Plan) -> dict[str, Any]:
-    """The plan as a JSON-able dict with YAML key names and every default written in."""
+    """The plan's canonical form: a JSON-able dict with YAML key names, every key of the first
+    release written in (defaults included), a key added later only when it differs from its
+    default (the declaration: :mod:`prespec.plan.canonical_form`). The lock stores it and the
+    fingerprint is taken over it."""
     return plan.model_dump(mode="json", by_alias=True)
 
 
 def fingerprint(resolved: dict[str, Any]) -> str:
     """``sha256:`` and the hex SHA-256 of the RFC 8785 canonical JSON of ``resolved``.
+
+    Taken over the stored dict as it is, so a lock version's fingerprint is recomputed from the
+    lock alone, whatever the models of this version declare.
 
     Reference: Rundgren, Jordan, Erdtman, RFC 8785, JSON Canonicalization Scheme (2020).
     """

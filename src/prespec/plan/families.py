@@ -239,10 +239,3 @@ def family_words(hyp: Any) -> str:
     return (f"family over {hyp.over}{grouped} ({found}); flagged by {hyp.flag_method} at "
             f"{level}")
 
-
-def without_family_keys(dumped: Any, ordinary: bool) -> Any:
-    """A dumped hypothesis without its empty family keys when it is ordinary: a plan without
-    families resolves, and so fingerprints, as it did before families existed."""
-    if not ordinary or not isinstance(dumped, dict):
-        return dumped
-    return {k: val for k, val in dumped.items() if not (k in v.FAMILY_KEYS and val is None)}

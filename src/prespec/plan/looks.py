@@ -23,11 +23,12 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Iterator
-from typing import Annotated, Any, Literal
+from typing import Annotated, Any, ClassVar, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
+from pydantic import BeforeValidator, ConfigDict, Field
 from pydantic_core import PydanticCustomError
 
+from prespec.plan.canonical_form import Canonical, CanonicalModel
 from prespec.plan.locate import Issue
 from prespec.plan.vocabulary import MAX_LOOKS
 from prespec.plan.yamlread import KeyPath, show
@@ -60,7 +61,7 @@ Real = Annotated[float, BeforeValidator(_not_bool)]
 Fraction = Annotated[float, Field(gt=0, le=1), BeforeValidator(_not_bool)]
 
 
-class _Model(BaseModel):
+class _Model(CanonicalModel):
     model_config = ConfigDict(extra="forbid", frozen=True, strict=True, allow_inf_nan=False)
 
 
@@ -71,6 +72,8 @@ class Futility(_Model):
         description="the beta spending function")
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")
     binding: bool = Field(default=False, description="only false (non-binding) is supported")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("spending", "gamma", "binding"))
 
 
 class Looks(_Model):
@@ -87,6 +90,9 @@ class Looks(_Model):
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")
     futility: Futility | None = Field(default=None, description="an optional non-binding "
                                       "futility boundary")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("fractions", "sizes", "efficacy", "gamma", "futility"))
 
     def planned_fractions(self) -> list[float]:
         """The planned information fractions (from ``sizes`` when those are given)."""

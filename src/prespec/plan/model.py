@@ -12,19 +12,18 @@ import difflib
 from typing import Annotated, Any, ClassVar, Literal
 
 from pydantic import (
-    BaseModel,
     BeforeValidator,
     ConfigDict,
     Discriminator,
     Field,
     Tag,
-    model_serializer,
     model_validator,
 )
 from pydantic_core import PydanticCustomError
 
 from prespec.plan import vocabulary as v
-from prespec.plan.families import FAMILY_DOC, family_defaults, without_family_keys
+from prespec.plan.canonical_form import Canonical, CanonicalModel
+from prespec.plan.families import FAMILY_DOC, family_defaults
 from prespec.plan.looks import Looks
 from prespec.plan.yamlread import describe, show
 
@@ -142,7 +141,7 @@ def _multiplicity(value: Any) -> Any:
     raise problem(f"expected a multiplicity name or a mapping, found {describe(value)}")
 
 
-class _Model(BaseModel):
+class _Model(CanonicalModel):
     model_config = ConfigDict(extra="forbid", frozen=True, strict=True, allow_inf_nan=False)
 
 
@@ -160,6 +159,9 @@ class Condition(_Model):
     between: list[Number] | None = Field(default=None, description="[low, high], inclusive")
     is_missing: bool | None = Field(default=None, description="true: keep the rows whose value "
                                     "is blank; false: keep the others")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("column", "in_", "not_in", "equals", "between", "is_missing"))
 
     OPERATORS: ClassVar[tuple[tuple[str, str], ...]] = (
         ("in", "in_"),
@@ -225,15 +227,10 @@ class DataSpec(_Model):
     password_from: Annotated[str | None, BeforeValidator(_env_name)] = Field(
         default=None, description="the environment variable that holds the database password")
 
-    @model_serializer(mode="wrap")
-    def _without_unused_source(self, handler: Any) -> Any:
-        """A plan without a data source resolves as before these keys existed (its
-        fingerprint unchanged)."""
-        out = handler(self)
-        for key in ("source", "table", "password_from"):
-            if isinstance(out, dict) and out.get(key) is None:
-                out.pop(key, None)
-        return out
+    # a plan without a data source resolves as before these keys existed
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("id", "group", "groups", "reference", "include", "planned_n"),
+        if_set=("source", "table", "password_from"))
 
     @model_validator(mode="after")
     def _source_keys(self) -> DataSpec:
@@ -270,6 +267,9 @@ class Outcome(_Model):
         "sensitivity analyses",
     )
 
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("column", "event", "no_event", "missing", "favourable"))
+
 
 class Sparse(_Model):
     """A pre-specified switch of test when the smallest expected count is below a bound."""
@@ -279,6 +279,8 @@ class Sparse(_Model):
         "total / grand total) is below this")
     test: TestName = Field(description="the test used instead; it keeps the alternative")
 
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("min_expected", "test"))
+
 
 class Then(_Model):
     """Follow-up pairwise comparisons after a rejected k-group hypothesis (gatekeeping)."""
@@ -286,6 +288,8 @@ class Then(_Model):
     pairwise: Pairwise = Field(description="reference: each group against data.reference; "
                                "all: every pair of groups")
     multiplicity: MultiplicityName = Field(description="the adjustment over the follow-ups")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("pairwise", "multiplicity"))
 
 
 class MonteCarlo(_Model):
@@ -295,6 +299,8 @@ class MonteCarlo(_Model):
         description="how many random tables are drawn")
     seed: Annotated[int, Field(ge=0)] = Field(description="the seed of the draw, so that the "
                                               "p-value can be recomputed")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("tables", "seed"))
 
 
 class Intercurrent(_Model):
@@ -316,6 +322,9 @@ class Intercurrent(_Model):
         "intercurrent event",
     )
 
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("event", "column", "happened", "strategy", "counts_as", "outcome_column"))
+
 
 class Estimand(_Model):
     """The estimand in the attributes of ICH E9(R1); the summary measure is the `measure`."""
@@ -324,6 +333,9 @@ class Estimand(_Model):
     variable: str | None = Field(default=None, description="in words")
     intercurrent: list[Intercurrent] = Field(default=[], description="the intercurrent "
                                              "events and their strategies")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("population", "variable", "intercurrent"))
 
 
 SensitivityName = Literal["worst-case", "best-case", "tipping-point"]
@@ -347,6 +359,9 @@ class Design(_Model):
         default={}, description="named rate sets for --simulate; global-null is always added"
     )
 
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("assumed", "power", "allocation", "dropout", "continuity", "scenarios"))
+
 
 class GraphicalMultiplicity(_Model):
     """The graphical procedure: initial weights and transition weights between hypotheses."""
@@ -357,6 +372,8 @@ class GraphicalMultiplicity(_Model):
     transitions: dict[str, dict[str, Number]] = Field(
         default={}, description="per hypothesis id, the share of its level passed to each "
         "other hypothesis when it is rejected; each row sums to at most 1, no self-transition")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("method", "weights", "transitions"))
 
 
 def _multiplicity_tag(value: Any) -> str:
@@ -460,6 +477,15 @@ class Hypothesis(_Model):
     group_level: Probability | None = Field(default=None, description=FAMILY_DOC["group_level"])
     members: list[str] | None = Field(default=None, description=FAMILY_DOC["members"])
 
+    # an ordinary hypothesis resolves as before families and looks existed; a family writes
+    # all its keys
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("id", "title", "outcome", "compare", "test", "alternative", "comparison",
+                "margin", "measure", "interval", "continuity", "sparse", "role", "null_rate",
+                "strata", "scores", "then", "monte_carlo", "estimand", "sensitivity"),
+        if_set=("looks", "over"),
+        with_key={key: "over" for key in v.FAMILY_KEYS if key != "over"})
+
     @model_validator(mode="before")
     @classmethod
     def _default_estimate(cls, data: Any) -> Any:
@@ -472,15 +498,6 @@ class Hypothesis(_Model):
         if out.get("interval") is None:
             out["interval"] = default_interval(kind, test, out["measure"])
         return out
-
-    @model_serializer(mode="wrap")
-    def _family_keys_on_families_only(self, handler: Any) -> Any:
-        # an ordinary hypothesis dumps (and so fingerprints) as it did before families
-        # and without `looks` when it has none (plans without looks fingerprint as before)
-        dumped = without_family_keys(handler(self), self.over is None)
-        if isinstance(dumped, dict) and dumped.get("looks", 0) is None:
-            del dumped["looks"]
-        return dumped
 
     @property
     def kind(self) -> Literal["pair", "single", "all", "trend"]:
@@ -512,6 +529,10 @@ class Plan(_Model):
                                          "(the order fixed-sequence tests them in)")
     design: Design | None = Field(default=None, description="what prespec design sizes the "
                                   "study on; part of the fingerprint")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(
+        always=("prespec", "title", "protocol", "data", "outcomes", "alpha", "multiplicity",
+                "hypotheses", "design"))
 
     @model_validator(mode="before")
     @classmethod
