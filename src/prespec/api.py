@@ -18,6 +18,7 @@ from typing import Any
 
 from prespec import audit
 from prespec.analysis.families import declared_members, ordinary_plan
+from prespec.analysis.results import finish
 from prespec.common.departures import Departure, Note
 from prespec.common.environment import differences, environment
 from prespec.workflow.execute import check_out_folder, compute_results, default_folder
@@ -95,8 +96,23 @@ def _load_for_lock(plan: str | Path) -> LoadedPlan:
     return loaded
 
 
-def schema() -> dict[str, Any]:
-    return json_schema()
+SCHEMAS = ("plan", "results", "log-entry")
+
+
+def schema(of: str = "plan") -> dict[str, Any]:
+    """The JSON Schema (draft 2020-12) of a plan, of a results.json or of one audit log entry,
+    each from its models."""
+    if of == "plan":
+        return json_schema()
+    if of == "results":
+        from prespec.analysis.results import json_schema as results_schema
+
+        return results_schema()
+    if of == "log-entry":
+        from prespec.audit.entries import json_schema as entry_schema
+
+        return entry_schema()
+    raise BadInput(f"schema --of: {of!r} is not one of {', '.join(SCHEMAS)}")
 
 
 @dataclass(frozen=True)
@@ -388,32 +404,6 @@ def apply_overrides(resolved: dict[str, Any], overrides: Mapping[str, Any]
     return plan, changed
 
 
-def _affected(hypothesis: dict[str, Any], changes: list[dict[str, Any]]) -> bool:
-    """Whether an override reaches this hypothesis's result."""
-    hid = str(hypothesis.get("id"))
-    for change in changes:
-        key = change["key"]
-        if key.startswith("hypotheses."):
-            owner = key.split(".")[1]
-            if hid == owner or hid.startswith(owner + ":"):
-                return True
-        elif key == "multiplicity":
-            if hypothesis.get("role") != "exploratory":
-                return True
-        else:  # alpha: every decision and interval level
-            return True
-    return False
-
-
-def mark_overrides(results: dict[str, Any], changes: list[dict[str, Any]]) -> None:
-    """Add ``overrides`` and each hypothesis's ``pre_specified`` to a results document."""
-    results["overrides"] = [dict(c) for c in changes]
-    for hyp in results["hypotheses"]:
-        hyp["pre_specified"] = not _affected(hyp, changes)
-    for fam in results.get("families") or []:  # outside the plan's multiplicity
-        fam["pre_specified"] = not _affected({"id": fam["id"], "role": "exploratory"}, changes)
-
-
 def _show(value: Any) -> str:
     from prespec.audit.history import show
 
@@ -507,7 +497,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
         previous_data=runs[-1].get("data") if runs and looks is None else None,
         looks=looks, progress=progress, source=source, engine=engine, counting=counting,
     )
-    mark_overrides(results, changes)
+    results = finish(results, changes)  # the overrides and each result's pre_specified
     action = "look" if look is not None else "run"
     in_force = record["fingerprint"] if record is not None else None
     outcome = publish(loaded.path, out_path, results, numbered=out is None, action=action,

@@ -18,6 +18,7 @@ from pydantic import Discriminator, Field, RootModel, Tag
 
 from prespec.common.records import (
     LENIENT,
+    TAG,
     Count,
     DataFile,
     Departure,
@@ -172,11 +173,11 @@ class TippingPoint(Part):
 
 def _analysis(value: Any) -> str:
     kind = value.get("analysis") if isinstance(value, dict) else getattr(value, "analysis", "")
-    return "tipping" if kind == "tipping-point" else "extreme"
+    return TAG + ("tipping" if kind == "tipping-point" else "extreme")
 
 
 Sensitivity = Annotated[
-    Annotated[TippingPoint, Tag("tipping")] | Annotated[ExtremeCase, Tag("extreme")],
+    Annotated[TippingPoint, Tag(TAG + "tipping")] | Annotated[ExtremeCase, Tag(TAG + "extreme")],
     Discriminator(_analysis),
 ]
 
@@ -321,7 +322,7 @@ class Hypothesis(Part):
     sensitivity: list[Sensitivity] | None = None
     looks: Looks | None = None  # only for a hypothesis with interim looks
     graph: GraphLevel | None = None  # the final analysis of a graph over looks
-    pre_specified: Flag | None = None  # set by :func:`mark_overrides`
+    pre_specified: Flag | None = None  # set by :func:`finish`
 
 
 class GroupRow(Part):
@@ -554,11 +555,11 @@ class RehearsalResults(Provenance):
 
 def _kind(value: Any) -> str:
     kind = value.get("kind") if isinstance(value, dict) else getattr(value, "kind", None)
-    return "rehearsal" if kind == "rehearsal" else "run"
+    return TAG + ("rehearsal" if kind == "rehearsal" else "run")
 
 
 Document = Annotated[
-    Annotated[RunResults, Tag("run")] | Annotated[RehearsalResults, Tag("rehearsal")],
+    Annotated[RunResults, Tag(TAG + "run")] | Annotated[RehearsalResults, Tag(TAG + "rehearsal")],
     Discriminator(_kind),
 ]
 
@@ -567,11 +568,45 @@ class Results(RootModel[Document]):
     """A results document: a run's or a rehearsal's, told apart by ``kind``."""
 
 
-def finish(results: dict[str, Any]) -> dict[str, Any]:
-    """The results document as it is written: ``results`` checked against the models (a key
-    or a value the contract does not hold is a programming error, raised here before anything
-    is written) and dumped through them."""
-    return Results.model_validate(results).root.dumped()
+def reached_by(ident: str, role: str | None, overrides: list[Override]) -> bool:
+    """Whether a command-line override reaches the result of hypothesis ``ident``: one on
+    the hypothesis (or on the hypothesis a follow-up or member belongs to, ``H3:a-vs-b``),
+    ``multiplicity`` for a hypothesis in the main family, ``alpha`` for every one."""
+    for change in overrides:
+        key = change.key
+        if key.startswith("hypotheses."):
+            owner = key.split(".")[1]
+            if ident == owner or ident.startswith(owner + ":"):
+                return True
+        elif key == "multiplicity":
+            if role != "exploratory":
+                return True
+        else:  # alpha: every decision and interval level
+            return True
+    return False
+
+
+def finish(results: dict[str, Any], overrides: list[dict[str, Any]] | None = None
+           ) -> dict[str, Any]:
+    """The results document as it is written, assembled and checked here alone.
+
+    ``results`` (from ``workflow/execute.py`` or ``workflow/rehearse.py``) is checked against
+    the models: a key or a value the contract does not hold is a programming error, raised
+    before anything is written. With ``overrides`` (a run's command-line changes, each
+    ``{"key", "locked", "used"}``; ``[]`` for none), the run's ``overrides`` are set and each
+    hypothesis's and family's ``pre_specified`` (a family lies outside the plan's
+    multiplicity). The document is the models' dump: the writers' keys, order and values.
+    """
+    doc = Results.model_validate(results).root
+    if overrides is not None:
+        if not isinstance(doc, RunResults):
+            raise ValueError("only a run's results take overrides")
+        doc.overrides = [Override.model_validate(o) for o in overrides]
+        for hyp in doc.hypotheses:
+            hyp.pre_specified = not reached_by(hyp.id, hyp.role, doc.overrides)
+        for fam in doc.families or []:
+            fam.pre_specified = not reached_by(fam.id, "exploratory", doc.overrides)
+    return doc.dumped()
 
 
 def read_results(doc: Any) -> RunResults | RehearsalResults:

@@ -10,7 +10,7 @@ what ``details`` holds depends on the action:
   members and the engine (:class:`ReportDetails`);
 - ``design``: the sizes and the simulated operating characteristics (:class:`DesignDetails`).
 
-:func:`check_details` checks the details of an entry before ``log.append`` writes it; verify
+:func:`check_parts` checks the details and departures of an entry before ``log.append`` writes it; verify
 reads entries through :func:`read_entry`, leniently (keys of another prespec are ignored).
 ``prespec schema --of log-entry`` prints the JSON Schema of :class:`LogEntry`.
 """
@@ -23,6 +23,7 @@ from pydantic import Discriminator, Field, RootModel, Tag
 
 from prespec.common.records import (
     LENIENT,
+    TAG,
     Count,
     DataFile,
     Departure,
@@ -154,24 +155,28 @@ DETAILS: dict[str, type[Part]] = {"lock": VersionDetails, "amend": VersionDetail
 
 def _family(value: Any) -> str:
     action = value.get("action") if isinstance(value, dict) else getattr(value, "action", None)
-    return {"lock": "version", "amend": "version", "design": "design"}.get(str(action), "report")
+    return TAG + {"lock": "version", "amend": "version", "design": "design"}.get(str(action),
+                                                                              "report")
 
 
 class LogEntry(RootModel[Annotated[
-    Annotated[VersionEntry, Tag("version")] | Annotated[ReportEntry, Tag("report")]
-    | Annotated[DesignEntry, Tag("design")],
+    Annotated[VersionEntry, Tag(TAG + "version")] | Annotated[ReportEntry, Tag(TAG + "report")]
+    | Annotated[DesignEntry, Tag(TAG + "design")],
     Discriminator(_family),
 ]]):
     """One line of the audit log: the envelope, and the details of its action."""
 
 
-def check_details(action: str, details: dict[str, Any]) -> None:
-    """Raise ``ValueError`` unless ``details`` are what an ``action`` entry holds: checked
-    before the entry is written, so that no entry the models cannot read enters a log."""
+def check_parts(action: str, details: dict[str, Any], deviations: list[dict[str, Any]]) -> None:
+    """Raise ``ValueError`` unless ``details`` are what an ``action`` entry holds and each
+    departure is one: checked before the entry is written, so that no entry the models cannot
+    read enters a log."""
     model = DETAILS.get(action)
     if model is None:
         raise ValueError(f"unknown log action {action!r}")
     model.model_validate(details)
+    for deviation in deviations:
+        Departure.model_validate(deviation)
 
 
 def read_entry(entry: Any) -> VersionEntry | ReportEntry | DesignEntry:

@@ -18,6 +18,7 @@ from pydantic import (
     StrictFloat,
     StrictInt,
     StrictStr,
+    ValidationError,
     ValidationInfo,
     WithJsonSchema,
     model_validator,
@@ -31,6 +32,9 @@ Text = StrictStr
 Flag = StrictBool
 #: ``[low, high]``; a limit that could not be computed is null
 Interval = list[Number | None]
+
+#: What the tags of a union of models begin with (they are not keys of the document).
+TAG = "~"
 
 #: The validation context key that reads a record leniently (unknown keys ignored).
 LENIENT = "lenient"
@@ -79,6 +83,19 @@ class DataFile(Part):
 
     path: Text
     sha256: Text
+
+
+def first_problem(exc: ValidationError) -> str:
+    """The first problem of a failed validation in one line: ``hypotheses[0].p_value: Input
+    should be a valid number``."""
+    error = exc.errors(include_url=False)[0]
+    where = ""
+    for part in error["loc"]:
+        if isinstance(part, int):
+            where += f"[{part}]"
+        elif not str(part).startswith(TAG):
+            where += f".{part}" if where else str(part)
+    return f"{where or '(the whole document)'}: {error['msg']}"
 
 
 def draft_2020_12(schema: dict[str, Any], title: str) -> dict[str, Any]:

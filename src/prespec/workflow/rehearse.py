@@ -34,6 +34,7 @@ from prespec.analysis.families import (
     templates,
 )
 from prespec.analysis.hypotheses import analyse, compute_hypothesis, follow_ups
+from prespec.analysis.results import finish
 from prespec.common.caution import CAUTION
 from prespec.common.departures import Departure, Note
 from prespec.common.shown import csv_writer
@@ -359,7 +360,7 @@ def compute_rehearsal(
     all_notes += _missing_notes(plan, pooled)
     all_notes += [n for n in prepared.notes if n.code in _POOLED_NOTE_CODES]
     all_notes += step_notes
-    return {
+    return finish({
         **with_engine(provenance(kind="rehearsal", plan=plan, fingerprint=fingerprint,
                                  version=version, data_hash=data_hash, data_file=data_file,
                                  actor=actor, environment=environment), read.engine, read.query,
@@ -381,7 +382,7 @@ def compute_rehearsal(
         "deviations": [d.to_json() for d in all_deviations],
         "notes": [n.to_json() for n in all_notes],
         "caution": CAUTION,
-    }
+    })
 
 
 POOLED_HEADER = ["outcome", "events", "no_events", "total", "missing", "rate", "ci_low",
