@@ -10,7 +10,7 @@ what ``details`` holds depends on the action:
   members and the engine (:class:`ReportDetails`);
 - ``design``: the sizes and the simulated operating characteristics (:class:`DesignDetails`).
 
-:func:`check_parts` checks the details and departures of an entry before ``log.append`` writes it; verify
+:func:`checked` builds the details of an entry through its model before it is written; verify
 reads entries through :func:`read_entry`, leniently (keys of another prespec are ignored).
 ``prespec schema --of log-entry`` prints the JSON Schema of :class:`LogEntry`.
 """
@@ -167,16 +167,17 @@ class LogEntry(RootModel[Annotated[
     """One line of the audit log: the envelope, and the details of its action."""
 
 
-def check_parts(action: str, details: dict[str, Any], deviations: list[dict[str, Any]]) -> None:
-    """Raise ``ValueError`` unless ``details`` are what an ``action`` entry holds and each
-    departure is one: checked before the entry is written, so that no entry the models cannot
-    read enters a log."""
+def checked(action: str, details: dict[str, Any], deviations: list[dict[str, Any]]
+            ) -> dict[str, Any]:
+    """The ``details`` of an ``action`` entry built through their model (the same keys, order
+    and values), after checking them and each departure: a key or a value the models do not
+    hold is a programming error, raised before the entry is written."""
     model = DETAILS.get(action)
     if model is None:
         raise ValueError(f"unknown log action {action!r}")
-    model.model_validate(details)
     for deviation in deviations:
         Departure.model_validate(deviation)
+    return model.model_validate(details).dumped()
 
 
 def read_entry(entry: Any) -> VersionEntry | ReportEntry | DesignEntry:

@@ -18,6 +18,7 @@ from typing import Any
 from prespec import audit
 from prespec.analysis.families import family_details
 from prespec.analysis.results import finish
+from prespec.audit import entries
 from prespec.audit.manifest import write_manifest
 from prespec.common.shown import csv_writer, json_text
 from prespec.errors import raise_recorded
@@ -193,13 +194,15 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
                 action=action,
                 plan=results["plan"],
                 data=results["data"],
-                details={"report": report_rel, "manifest": manifest, **(details or {}),
-                         **({"data_files": results["data_files"]} if "data_files" in results
-                            else {}),
-                         **family_details(results),
-                         **({"engine": results["engine"],
-                             "engine_library": results.get("engine_library"),
-                             "query": results.get("query")} if "engine" in results else {})},
+                details=entries.checked(action, {
+                    "report": report_rel, "manifest": manifest, **(details or {}),
+                    **({"data_files": results["data_files"]} if "data_files" in results
+                       else {}),
+                    **family_details(results),
+                    **({"engine": results["engine"],
+                        "engine_library": results.get("engine_library"),
+                        "query": results.get("query")} if "engine" in results else {})},
+                    results["deviations"]),
                 deviations=results["deviations"],
             )
         except BaseException as exc:
