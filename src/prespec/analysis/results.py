@@ -1,15 +1,20 @@
 """The results document (``results.json``), declared once as typed models.
 
-A run's document and a rehearsal's are assembled and checked here by one function,
-:func:`finish`: the pieces computed by ``hypotheses``, ``looks``, ``families`` and
-``sensitivity`` go through these models, and what is written is the models' dump, in the order
-and with the values the writers produced (keys never set stay absent, so an old document and a
-new one of the same analysis are byte for byte the same). The report and ``verify`` read a
-document through :func:`read_results`, which accepts the keys an earlier prespec left out and
-ignores keys it does not know, so that every old report keeps loading. ``prespec schema --of
-results`` prints the JSON Schema of :class:`Results`. The contract in words: docs/files.md.
-"""
+Who writes what: ``hypotheses.analyse`` computes each hypothesis's entry and the decision of its
+family (``p_adjusted``, ``reject``: the plan's multiplicity, a gated follow-up family);
+``looks.apply_looks`` then decides instead for a hypothesis with interim looks or in a graph
+over the looks (it adds ``looks`` or ``graph``); ``families``, ``sensitivity`` and the design
+add their parts; ``workflow/execute.py`` and ``workflow/rehearse.py`` put the document
+together. One function, :func:`finish`, makes it the document that is written: it checks it
+against these models, sets the run's ``overrides`` and each result's ``pre_specified``, and
+returns the models' dump, in the order and with the values the writers produced (keys never
+set stay absent, so that a document and its dump are byte for byte the same).
 
+``verify`` reads a document through :func:`read_results`, which accepts the keys an earlier
+prespec left out and ignores keys it does not know, so that every old report keeps loading.
+(The report reads results.json on its own, defensively, naming the key path of any problem.)
+``prespec schema --of results`` prints the JSON Schema of :class:`Results`.
+"""
 from __future__ import annotations
 
 from typing import Annotated, Any, Literal

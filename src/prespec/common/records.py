@@ -61,8 +61,8 @@ class Part(BaseModel):
 
 
 class Departure(Part):
-    """A departure from the plan (docs/departures.md): its code, in words, what the plan
-    expected and what was found; ``accepted`` holds the --accept-deviation reason."""
+    """A departure from the plan (the codes: ``common/departures.py``): its code, in words,
+    what the plan expected and what was found; ``accepted``: the --accept-deviation reason."""
 
     code: Text
     detail: Text
