@@ -621,6 +621,13 @@ def read_results(doc: Any) -> RunResults | RehearsalResults:
     return Results.model_validate(doc, context={LENIENT: True}).root
 
 
+def read_provenance(doc: Any) -> Provenance:
+    """Only the fields that open a results document (what ran, on what, by whom), read like
+    :func:`read_results`: what ``verify`` compares with the log for every report, at a cost
+    that does not grow with the document."""
+    return Provenance.model_validate(doc, context={LENIENT: True})
+
+
 def json_schema() -> dict[str, Any]:
     """The JSON Schema (draft 2020-12) of a results document, from the models."""
     return draft_2020_12(Results.model_json_schema(by_alias=True, mode="validation"),

@@ -18,7 +18,7 @@ from typing import Any
 from prespec import audit
 from prespec.analysis.families import family_details
 from prespec.analysis.results import finish
-from prespec.audit import entries
+from prespec.audit import entries as log_entries
 from prespec.audit.manifest import write_manifest
 from prespec.common.shown import csv_writer, json_text
 from prespec.errors import raise_recorded
@@ -194,7 +194,7 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
                 action=action,
                 plan=results["plan"],
                 data=results["data"],
-                details=entries.checked(action, {
+                details=log_entries.checked(action, {
                     "report": report_rel, "manifest": manifest, **(details or {}),
                     **({"data_files": results["data_files"]} if "data_files" in results
                        else {}),

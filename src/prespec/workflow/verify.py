@@ -22,7 +22,7 @@ from pydantic import ValidationError
 from prespec import audit
 from prespec.analysis.families import declared_members, member_ids
 from prespec.analysis.looks import look_problem, look_run
-from prespec.analysis.results import RunResults, finish, read_results
+from prespec.analysis.results import RunResults, finish, read_provenance, read_results
 from prespec.api import VerifyResult, apply_overrides
 from prespec.audit.entries import read_entry
 from prespec.audit.lockfile import logged_pending, pending_path, version_digest
@@ -283,7 +283,7 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         except (OSError, UnicodeDecodeError, json.JSONDecodeError, TypeError):
             raise _fail(result, f"report {rel}: results.json is missing or unreadable") from None
         try:
-            read = read_results(doc)
+            read = read_provenance(doc)
         except ValidationError as exc:
             raise _fail(result, f"report {rel}: results.json is not a results document: "
                         f"{first_problem(exc)}") from None
