@@ -615,7 +615,7 @@ def finish(results: dict[str, Any], overrides: list[dict[str, Any]] | None = Non
 
 
 def read_results(doc: Any) -> RunResults | RehearsalResults:
-    """A results document read back (report, verify): keys an earlier prespec did not write
+    """A results document read back (``verify --rerun``): keys an earlier prespec did not write
     take their defaults, keys it does not know are ignored. Raises ``ValidationError`` for a
     document that is not one (a value of the wrong type, a required key missing)."""
     return Results.model_validate(doc, context={LENIENT: True}).root
