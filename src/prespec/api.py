@@ -15,7 +15,16 @@ from typing import Any
 from prespec.audit.signing import new_key as _new_key
 from prespec.workflow.base import resolve_actor
 from prespec.workflow.design import design
-from prespec.workflow.lock import CheckResult, LockResult, amend, check, history, lock, schema
+from prespec.workflow.lock import (
+    SCHEMAS,
+    CheckResult,
+    LockResult,
+    amend,
+    check,
+    history,
+    lock,
+    schema,
+)
 from prespec.workflow.overrides import apply_overrides
 from prespec.workflow.publish import RunOutcome
 from prespec.workflow.rehearse import rehearse
@@ -23,6 +32,7 @@ from prespec.workflow.run import run
 from prespec.workflow.verify import VerifyResult, verify
 
 __all__ = [
+    "SCHEMAS",
     "CheckResult",
     "LockResult",
     "RunOutcome",

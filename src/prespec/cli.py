@@ -39,7 +39,10 @@ def _parser() -> argparse.ArgumentParser:
 
     c = add("check", "validate a plan; print its summary and fingerprint; write nothing")
     c.add_argument("plan")
-    add("schema", "print the JSON Schema of the plan format")
+    c = add("schema", "print the JSON Schema of the plan format, of results.json or of an "
+            "audit log entry")
+    c.add_argument("--of", choices=api.SCHEMAS, default="plan",
+                   help="which schema (default: plan)")
     c = add("lock", "resolve defaults and lock the plan before unblinding", writes=True)
     c.add_argument("plan")
     c.add_argument("--sign", metavar="KEY", help="sign the lock entry with this private key")
@@ -240,7 +243,7 @@ def _dispatch(args: argparse.Namespace) -> int:
         print(f"lock: {res.lock_status}")
         print(f"fingerprint: {res.loaded.fingerprint}")
     elif args.command == "schema":
-        print(json.dumps(api.schema(), indent=2))
+        print(json.dumps(api.schema(args.of), indent=2))
     elif args.command == "lock":
         res = api.lock(args.plan, actor=args.actor, sign=args.sign)
         if res.created:

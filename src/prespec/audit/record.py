@@ -15,6 +15,7 @@ from typing import Any
 
 from prespec.errors import raise_recorded
 
+from .entries import checked
 from .files import fsync_dir, head_path, lock_path, log_path
 from .lockfile import complete_pending, read_lock, version_digest, write_pending
 from .log import Signer, append, check_chain, check_head, log_size, read_log, repair_head
@@ -44,11 +45,14 @@ def commit_entry(plan: Path, *, actor: str, action: str, fingerprint: str,
     ``before()`` may still refuse the entry (it raises); ``undo()`` removes what the step made
     when no entry was written; ``finish()`` completes the step once the entry is in (when it
     fails, the entry stays and the next command completes it; ``recorded`` says what was
-    recorded, for the one-line error of a full disk).
+    recorded, for the one-line error of a full disk). The details and departures are built
+    through the entry's model (``audit.entries``): a key or value it does not hold is refused
+    before anything is written.
     """
     log = log_path(plan)
     size = log_size(log)
     try:
+        details = checked(action, details, deviations or [])  # the entry's model, or no entry
         if before is not None:
             before()
             size = log_size(log)

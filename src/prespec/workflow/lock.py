@@ -62,8 +62,23 @@ def check(plan: str | Path) -> CheckResult:
     return CheckResult(loaded, text, _lock_status(loaded), source)
 
 
-def schema() -> dict[str, Any]:
-    return json_schema()
+SCHEMAS = ("plan", "results", "log-entry")
+
+
+def schema(of: str = "plan") -> dict[str, Any]:
+    """The JSON Schema (draft 2020-12) of a plan, of a results.json or of one audit log entry,
+    each from its models."""
+    if of == "plan":
+        return json_schema()
+    if of == "results":
+        from prespec.analysis.results import json_schema as results_schema
+
+        return results_schema()
+    if of == "log-entry":
+        from prespec.audit.entries import json_schema as entry_schema
+
+        return entry_schema()
+    raise BadInput(f"schema --of: {of!r} is not one of {', '.join(SCHEMAS)}")
 
 
 def _load_for_lock(plan: str | Path) -> LoadedPlan:

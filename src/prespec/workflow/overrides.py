@@ -60,32 +60,6 @@ def apply_overrides(resolved: dict[str, Any], overrides: Mapping[str, Any]
     return plan, changed
 
 
-def _affected(hypothesis: dict[str, Any], changes: list[dict[str, Any]]) -> bool:
-    """Whether an override reaches this hypothesis's result."""
-    hid = str(hypothesis.get("id"))
-    for change in changes:
-        key = change["key"]
-        if key.startswith("hypotheses."):
-            owner = key.split(".")[1]
-            if hid == owner or hid.startswith(owner + ":"):
-                return True
-        elif key == "multiplicity":
-            if hypothesis.get("role") != "exploratory":
-                return True
-        else:  # alpha: every decision and interval level
-            return True
-    return False
-
-
-def mark_overrides(results: dict[str, Any], changes: list[dict[str, Any]]) -> None:
-    """Add ``overrides`` and each hypothesis's ``pre_specified`` to a results document."""
-    results["overrides"] = [dict(c) for c in changes]
-    for hyp in results["hypotheses"]:
-        hyp["pre_specified"] = not _affected(hyp, changes)
-    for fam in results.get("families") or []:  # outside the plan's multiplicity
-        fam["pre_specified"] = not _affected({"id": fam["id"], "role": "exploratory"}, changes)
-
-
 def _show(value: Any) -> str:
     from prespec.audit.history import show
 

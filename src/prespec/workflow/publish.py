@@ -17,6 +17,7 @@ from typing import Any
 
 from prespec import audit
 from prespec.analysis.families import family_details
+from prespec.analysis.results import finish
 from prespec.audit.manifest import write_manifest
 from prespec.audit.record import commit_entry
 from prespec.common.shown import json_text
@@ -79,7 +80,7 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
     tmp = Path(tempfile.mkdtemp(prefix=partial_prefix(folder), dir=folder.parent))
     tmp.chmod(0o755)  # mkdtemp makes it private; a report folder is an ordinary folder
     try:
-        text = json_text(results, indent=2, allow_nan=False) + "\n"
+        text = json_text(finish(results), indent=2, allow_nan=False) + "\n"
         (tmp / "results.json").write_text(text, encoding="utf-8")
         write_tables(tmp, results)
         write_figures(results, tmp)

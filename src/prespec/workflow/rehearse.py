@@ -35,6 +35,7 @@ from prespec.analysis.families import (
     templates,
 )
 from prespec.analysis.hypotheses import analyse, compute_hypothesis
+from prespec.analysis.results import finish
 from prespec.common.caution import CAUTION
 from prespec.common.departures import Departure, Note
 from prespec.common.environment import environment
@@ -372,7 +373,7 @@ def compute_rehearsal(
     all_notes += _missing_notes(plan, pooled)
     all_notes += [n for n in prepared.notes if n.code in _POOLED_NOTE_CODES]
     all_notes += step_notes
-    return {
+    return finish({
         **with_engine(provenance(kind="rehearsal", plan=plan, fingerprint=fingerprint,
                                  version=version, data_hash=data_hash, data_file=data_file,
                                  actor=actor, environment=environment), read.engine, read.query,
@@ -394,7 +395,7 @@ def compute_rehearsal(
         "deviations": [d.to_json() for d in all_deviations],
         "notes": [n.to_json() for n in all_notes],
         "caution": CAUTION,
-    }
+    })
 
 
 @plain_errors

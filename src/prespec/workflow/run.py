@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any
 
 from prespec import audit
+from prespec.analysis.results import finish
 from prespec.common.departures import Departure, Note
 from prespec.common.environment import environment
 from prespec.errors import BadInput, IntegrityStop
@@ -26,7 +27,7 @@ from prespec.workflow.base import (
     still_as_read,
 )
 from prespec.workflow.execute import compute_results, default_folder
-from prespec.workflow.overrides import apply_overrides, mark_overrides, override_departures
+from prespec.workflow.overrides import apply_overrides, override_departures
 from prespec.workflow.publish import RunOutcome, publish
 
 
@@ -128,7 +129,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
         previous_data=runs[-1].get("data") if runs and looks is None else None,
         looks=looks, progress=progress, source=source, engine=engine, counting=counting,
     )
-    mark_overrides(results, changes)
+    results = finish(results, changes)  # the overrides and each result's pre_specified
     action = "look" if look is not None else "run"
     in_force = record["fingerprint"] if record is not None else None
     outcome = publish(loaded.path, out_path, results, numbered=out is None, action=action,

@@ -17,17 +17,22 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from pydantic import ValidationError
+
 from prespec import audit
 from prespec.analysis.families import declared_members, member_ids
 from prespec.analysis.looks import look_problem, look_run
+from prespec.analysis.results import RunResults, finish, read_provenance, read_results
+from prespec.audit.entries import read_entry
 from prespec.audit.lockfile import logged_pending, pending_path, version_digest
 from prespec.audit.manifest import check_manifest
 from prespec.common.canonical import file_sha256
 from prespec.common.departures import capped_found
+from prespec.common.records import first_problem
 from prespec.errors import IntegrityStop, PrespecError
 from prespec.plan import fingerprint, load_plan, plan_from_resolved
 from prespec.workflow.base import plain_errors
-from prespec.workflow.overrides import apply_overrides, mark_overrides
+from prespec.workflow.overrides import apply_overrides
 from prespec.workflow.publish import PARTIAL, pending_report
 
 
@@ -79,6 +84,12 @@ def _check_log(plan: Path, result: VerifyResult) -> list[dict[str, Any]]:
         note = audit.check_head(entries, head)
     except IntegrityStop as exc:
         raise _fail(result, str(exc)) from None
+    for entry in entries:  # each entry holds what its action's entries hold
+        try:
+            read_entry(entry)
+        except ValidationError as exc:
+            raise _fail(result, f"{log.name}: entry {entry['seq']} ({entry['action']}): "
+                        f"{first_problem(exc)}") from None
     if log.exists() or head.exists():
         result.passed.append(
             f"audit log: {_entries(len(entries))}, sequence, links and hashes intact; head "
@@ -289,15 +300,20 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
                 raise TypeError
         except (OSError, UnicodeDecodeError, json.JSONDecodeError, TypeError):
             raise _fail(result, f"report {rel}: results.json is missing or unreadable") from None
-        if doc.get("plan") != entry["plan"]:
-            raise _fail(result, f"report {rel}: results.json names plan {doc.get('plan')}, "
+        try:
+            read = read_provenance(doc)
+        except ValidationError as exc:
+            raise _fail(result, f"report {rel}: results.json is not a results document: "
+                        f"{first_problem(exc)}") from None
+        if read.plan != entry["plan"]:
+            raise _fail(result, f"report {rel}: results.json names plan {read.plan}, "
                         f"the log {entry['plan']}")
-        if doc.get("data") != entry["data"]:
-            raise _fail(result, f"report {rel}: results.json names data {doc.get('data')}, "
+        if read.data != entry["data"]:
+            raise _fail(result, f"report {rel}: results.json names data {read.data}, "
                         f"the log {entry['data']}")
         expected_kind = "rehearsal" if entry["action"] == "rehearse" else "run"
-        if doc.get("kind") != expected_kind:
-            raise _fail(result, f"report {rel}: results.json is a {doc.get('kind')!r} report, "
+        if read.kind != expected_kind:
+            raise _fail(result, f"report {rel}: results.json is a {read.kind!r} report, "
                         f"the log records a {entry['action']}")
         if member_ids(doc) != entry["details"].get("families", {}):
             raise _fail(result, f"report {rel}: its family members differ from those its log "
@@ -619,9 +635,9 @@ MOMENT_CODES = frozenset({"data-changed-since-last-run", "environment-differs-fr
                           "run-without-lock", "override", "plan-file-reformatted"})
 
 
-def _plan_for(plan: Path, doc: dict[str, Any] | None, results: dict[str, Any], rel: str,
+def _plan_for(plan: Path, doc: dict[str, Any] | None, results: RunResults, rel: str,
               result: VerifyResult) -> Any:
-    fp = results.get("plan")
+    fp = results.plan
     held = [v for v in (doc or {}).get("versions", []) if v.get("fingerprint") == fp]
     if held:
         resolved, source = held[0]["plan"], audit.lock_path(plan).name
@@ -633,8 +649,7 @@ def _plan_for(plan: Path, doc: dict[str, Any] | None, results: dict[str, Any], r
         if loaded.fingerprint != fp:
             raise _fail(result, f"rerun {rel}: no lock version or plan file holds plan {fp}")
         resolved, source = loaded.resolved, plan.name
-    overrides = {o["key"]: o["used"] for o in results.get("overrides") or []
-                 if isinstance(o, dict) and "key" in o and "used" in o}
+    overrides = {o.key: o.used for o in results.overrides or []}
     try:
         if overrides:
             resolved, _ = apply_overrides(resolved, overrides)
@@ -757,18 +772,21 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
     for entry in runs:
         rel = entry["details"]["report"]
         stored = json.loads((found[rel] / "results.json").read_text("utf-8"))
-        model = _plan_for(plan, doc, stored, rel, result)
+        kept = read_results(stored)  # a run's, as _check_reports found
+        if not isinstance(kept, RunResults):
+            raise _fail(result, f"rerun {rel}: results.json is not a run's")
+        model = _plan_for(plan, doc, kept, rel, result)
         try:
             again = compute_results(
-                plan_path=plan, plan=model, fingerprint=stored.get("plan"),
-                version=stored.get("plan_version"), data_path=data,
-                actor=str(stored.get("actor")), environment=stored.get("environment") or {},
+                plan_path=plan, plan=model, fingerprint=kept.plan,
+                version=kept.plan_version, data_path=data,
+                actor=kept.actor, environment=kept.environment,
                 deviations=[], notes=[], previous_data=None,
                 looks=_look_of(entries, entry, model))
         except PrespecError as exc:
             raise _fail(result, f"rerun {rel}: the recomputation failed: {exc}") from None
-        if "overrides" in stored:
-            mark_overrides(again, [o for o in stored["overrides"] or [] if isinstance(o, dict)])
+        if kept.overrides is not None:
+            again = finish(again, [o.dumped() for o in kept.overrides])
         _design_as_written(stored, again, model)
         again = json.loads(json.dumps(again, allow_nan=False))  # as written to results.json
         keys = [k for k in [*stored, *(k for k in again if k not in stored)]

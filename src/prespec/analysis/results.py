@@ -1,0 +1,634 @@
+"""The results document (``results.json``), declared once as typed models.
+
+Who writes what: ``hypotheses.analyse`` computes each hypothesis's entry and the decision of its
+family (``p_adjusted``, ``reject``: the plan's multiplicity, a gated follow-up family);
+``looks.apply_looks`` then decides instead for a hypothesis with interim looks or in a graph
+over the looks (it adds ``looks`` or ``graph``); ``families``, ``sensitivity`` and the design
+add their parts; ``workflow/execute.py`` and ``workflow/rehearse.py`` put the document
+together. One function, :func:`finish`, makes it the document that is written: it checks it
+against these models, sets the run's ``overrides`` and each result's ``pre_specified``, and
+returns the models' dump, in the order and with the values the writers produced (keys never
+set stay absent, so that a document and its dump are byte for byte the same).
+
+``verify`` reads a document through :func:`read_results`, which accepts the keys an earlier
+prespec left out and ignores keys it does not know, so that every old report keeps loading.
+(The report reads results.json on its own, defensively, naming the key path of any problem.)
+``prespec schema --of results`` prints the JSON Schema of :class:`Results`.
+"""
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from pydantic import Discriminator, Field, RootModel, Tag
+
+from prespec.common.records import (
+    LENIENT,
+    TAG,
+    Count,
+    DataFile,
+    Departure,
+    Flag,
+    Interval,
+    NoteEntry,
+    Number,
+    Part,
+    Text,
+    draft_2020_12,
+)
+
+# --- shared pieces ---
+
+class Table(Part):
+    """A count table: per group (in the order compared) its events and analysed total."""
+
+    groups: list[Text]
+    events: list[Count]
+    totals: list[Count]
+
+
+class Estimate(Part):
+    """The measure, its value and interval (``ci``), the interval's method and level."""
+
+    measure: Text
+    value: Number | None
+    ci: Interval
+    ci_method: Text
+    level: Number
+    note: Text | None = None  # an adjustment the interval made (absent in a family member)
+
+
+class Rule(Part):
+    """The pre-specified sparse switch, when it applied."""
+
+    switch: Literal["sparse"]
+    min_expected: Number
+    smallest_expected: Number
+    from_: Text = Field(alias="from")
+    to: Text
+
+
+class Population(Part):
+    rows_read: Count
+    excluded_by_filter: Count
+    excluded_group: Count
+    analysed: Count
+
+
+class GraphMultiplicity(Part):
+    """The plan's graphical procedure, as the plan resolves it."""
+
+    method: Literal["graphical"]
+    weights: dict[Text, Number]
+    transitions: dict[Text, dict[Text, Number]]
+
+
+class Override(Part):
+    """A command-line change to the locked analysis: the key, the locked and the used value."""
+
+    key: Text
+    locked: Any
+    used: Any
+
+
+# --- a hypothesis of a run ---
+
+class MarginCheck(Part):
+    interval_excludes_margin: Flag
+    agrees_with_test: Flag | None
+
+
+class Homogeneity(Part):
+    """Breslow–Day with Tarone's correction over the strata."""
+
+    test: Text
+    statistic: Number | None
+    df: Number | None
+    p_value: Number | None
+
+
+class MonteCarlo(Part):
+    tables: Count
+    seed: Count
+    standard_error: Number | None
+
+
+class StratumTable(Part):
+    stratum: dict[Text, Any]
+    events: list[Count]
+    totals: list[Count]
+
+
+class IntercurrentEvent(Part):
+    event: Text
+    column: Text
+    strategy: Text
+    counts_as: Text | None
+    outcome_column: Text | None
+    affected: Count
+
+
+class Estimand(Part):
+    """The estimand's attributes (ICH E9(R1)) and one paragraph in words."""
+
+    population: Text
+    variable: Text
+    intercurrent: list[IntercurrentEvent]
+    summary: Text | None
+    text: Text
+
+
+class CompleteCounts(Part):
+    events: list[Count]
+    totals: list[Count]
+
+
+class ExtremeCase(Part):
+    """A worst-case or best-case analysis: every missing outcome imputed one way per group."""
+
+    analysis: Literal["worst-case", "best-case"]
+    imputed: dict[Text, Text]
+    table: Table
+    test: Text
+    statistic: Number | None
+    df: Number | None
+    p_value: Number | None
+    estimate: Estimate | None
+    rule: Rule | None
+    reject_nominal: Flag | None
+
+
+class TippingPoint(Part):
+    """The tipping-point grid: p-values over every imputation of the missing outcomes."""
+
+    analysis: Literal["tipping-point"]
+    groups: list[Text]
+    missing: list[Count]
+    complete: CompleteCounts
+    alpha: Number
+    test: Text
+    p_values: list[list[Number | None]]
+    observed_point: list[Number] | None  # the observed rates (the grid axes are counts)
+    primary_rejects: Flag | None
+    cells_changing: Count
+    boundary: list[list[Count | None]]
+    cells: Count
+    cells_not_computable: Count
+    cells_switched: Count
+
+
+def _analysis(value: Any) -> str:
+    kind = value.get("analysis") if isinstance(value, dict) else getattr(value, "analysis", "")
+    return TAG + ("tipping" if kind == "tipping-point" else "extreme")
+
+
+Sensitivity = Annotated[
+    Annotated[TippingPoint, Tag(TAG + "tipping")] | Annotated[ExtremeCase, Tag(TAG + "extreme")],
+    Discriminator(_analysis),
+]
+
+
+class GraphLevel(Part):
+    """A hypothesis's place in the graphical procedure run over the interim looks."""
+
+    method: Text
+    initial_level: Number
+    level: Number
+    rejected_at: Count | None
+    order: Count | None
+
+
+class Boundary(Part):
+    """The efficacy (and futility) boundary at one look, at the information observed."""
+
+    look: Count
+    fraction: Number
+    observed_fraction: Number
+    z: Number | None
+    nominal_p: Number | None
+    alpha_spent: Number
+    futility_z: Number | None
+    beta_spent: Number | None
+
+
+class PlannedBoundary(Part):
+    look: Count
+    fraction: Number
+    z: Number | None
+    nominal_p: Number | None
+    alpha_spent: Number
+
+
+class LookHistory(Part):
+    """An earlier look of the hypothesis, as its log entry recorded it."""
+
+    look: Count
+    analysed: Count | None
+    fraction: Number | None
+    z: Number | None
+    information: Number | None
+    estimate: Number | None
+    crossed: Flag | None
+
+
+class RepeatedInterval(Part):
+    look: Count
+    estimate: Number | None
+    ci: Interval
+    level: Number
+
+
+class AdjustedInference(Part):
+    """The inference adjusted for stopping at a look (stage-wise ordering)."""
+
+    measure: Text
+    ordering: Text
+    p_value: Number | None
+    estimate: Number | None
+    ci: Interval
+    level: Number
+    look: Count
+
+
+class Futility(Part):
+    spending: Text
+    gamma: Number | None
+    binding: Flag
+
+
+class Looks(Part):
+    """This look of a hypothesis with interim looks: boundaries, decision and history."""
+
+    look: Count
+    of: Count
+    efficacy: Text
+    gamma: Number | None
+    futility: Futility | None
+    sides: Literal[1, 2]
+    direction: Literal[-1, 1]
+    planned_fractions: list[Number]
+    planned_total: Count
+    analysed: Count
+    observed_fraction: Number | None
+    z: Number | None
+    information: Number | None
+    estimate: Number | None
+    boundary: Number | None
+    futility_boundary: Number | None
+    crossed: Flag
+    decision: Text
+    boundaries: list[Boundary]
+    planned_boundaries: list[PlannedBoundary]
+    history: list[LookHistory]
+    adjusted: AdjustedInference | None
+    repeated_ci: list[RepeatedInterval]
+    scale: Text
+    graph: GraphLevel | None
+
+
+class Hypothesis(Part):
+    """One hypothesis of the plan, or a follow-up (``parent``), as a run computed it.
+
+    ``p_adjusted`` and ``reject`` are the decision of its family (the plan's multiplicity, a
+    gated follow-up family, or the boundaries of its interim looks); ``pre_specified`` is false
+    when a command-line override reached the result."""
+
+    id: Text
+    title: Text | None
+    role: Text
+    kind: Text
+    outcome: Text
+    compare: list[Text] | Text
+    alternative: Text
+    comparison: Text
+    margin: Number | list[Number] | None
+    null_rate: Number | None
+    scores: list[Number] | None
+    strata: list[Text] | None
+    planned_test: Text
+    test: Text
+    continuity: Flag | None
+    statistic: Number | None
+    df: Number | None
+    p_value: Number | None
+    p_adjusted: Number | None
+    reject: Flag | None
+    estimate: Estimate | None
+    table: Table
+    expected: list[list[Number]] | None
+    strata_tables: list[StratumTable] | None
+    homogeneity: Homogeneity | None
+    monte_carlo: MonteCarlo | None
+    margin_check: MarginCheck | None
+    rule: Rule | None
+    parent: Text | None
+    gate: Literal["open", "closed"] | None
+    family: Text | None
+    estimand: Estimand | None = None  # added after the first results documents
+    sensitivity: list[Sensitivity] | None = None
+    looks: Looks | None = None  # only for a hypothesis with interim looks
+    graph: GraphLevel | None = None  # the final analysis of a graph over looks
+    pre_specified: Flag | None = None  # set by :func:`finish`
+
+
+class GroupRow(Part):
+    """One group's events, total, missing and proportion with its Wilson interval."""
+
+    group: Text
+    events: Count
+    total: Count
+    missing: Count
+    proportion: Number | None
+    ci: Interval
+    ci_method: Text
+    level: Number
+
+
+# --- families (``over``) ---
+
+class Member(Part):
+    """One member of a family: a level of the ``over`` column, compared like its template."""
+
+    id: Text
+    level: Text | Number
+    group: Text | None
+    table: Table
+    estimate: Estimate | None
+    test: Text
+    statistic: Number | None
+    df: Number | None
+    p_value: Number | None
+    p_adjusted: Number | None
+    p_group: Number | None
+    flagged: Flag
+    rule: Rule | None
+    rows: Count
+
+
+class FamilyGroup(Part):
+    group: Text
+    members: Count
+    p_group: Number
+    flagged: Flag
+    members_flagged: Count
+
+
+class Family(Part):
+    """A family of hypotheses over the levels of a column, flagged by its own procedure."""
+
+    id: Text
+    title: Text | None
+    outcome: Text
+    compare: list[Text]
+    over: Text
+    within: Text | None
+    declared: Flag
+    method: Text
+    level: Number
+    group_level: Number | None
+    planned_test: Text
+    alternative: Text
+    measure: Text | None
+    interval: Text | None
+    ci_level: Number
+    threshold: Number | None
+    groups: list[FamilyGroup] | None
+    left_out: Count
+    members: list[Member]
+    members_total: Count
+    members_flagged: Count
+    members_without_data: Count
+    pre_specified: Flag | None = None
+
+
+# --- the design's planned versus achieved sizes ---
+
+class DesignHypothesis(Part):
+    id: Text
+    alpha: Number | None
+    method: Text | None
+    n_per_group: dict[Text, Count] | None
+    n_enrol_per_group: dict[Text, Count] | None
+    achieved_per_group: dict[Text, Count] | None
+    power_at_achieved: Number | None
+
+
+class Design(Part):
+    """Planned versus achieved: the design's sizes per hypothesis and the power achieved."""
+
+    rule: Text | None
+    power: Number
+    dropout: Number
+    assumed: dict[Text, Number]
+    hypotheses: list[DesignHypothesis]
+    two_sided_power: Text | None = None  # absent in a report written before both tails
+
+
+# --- the documents ---
+
+class Provenance(Part):
+    """The fields that open every results document: what ran, on what, by whom, with what."""
+
+    prespec: Literal[1]
+    kind: Literal["run", "rehearsal"]
+    title: Text
+    protocol: Text | None
+    plan: Text
+    plan_version: Count | None
+    data: Text
+    data_file: Text
+    data_files: list[DataFile] | None = None  # a glob: every file read
+    engine: Text | None = None  # added with the engines
+    engine_library: Text | None = None
+    query: Text | None = None
+    created: Text
+    actor: Text
+    alpha: Number
+    multiplicity: Text | GraphMultiplicity
+    environment: dict[Text, Text]
+
+
+class RunResults(Provenance):
+    """``results.json`` of a run (or an interim look) on the data."""
+
+    kind: Literal["run"]
+    population: Population
+    groups: dict[Text, list[GroupRow]]
+    hypotheses: list[Hypothesis]
+    deviations: list[Departure]
+    notes: list[NoteEntry]
+    caution: Text
+    design: Design | None = None
+    families: list[Family] | None = None
+    overrides: list[Override] | None = None
+
+
+class PooledOutcome(Part):
+    """One outcome over all analysed rows of a rehearsal (no group is known)."""
+
+    events: Count
+    total: Count
+    missing: Count
+    rate: Number | None
+    ci: Interval
+    ci_method: Text
+    level: Number
+
+
+class RehearsedHypothesis(Part):
+    """Whether one hypothesis's computation ran on the dummy allocation, and what stopped it."""
+
+    id: Text
+    title: Text | None
+    role: Text
+    outcome: Text
+    compare: list[Text] | Text
+    test: Text
+    parent: Text | None
+    executed: Flag
+    problem: Text | None
+
+
+class RehearsedMember(Part):
+    id: Text
+    level: Text | Number
+    group: Text | None
+    events: Count
+    total: Count
+    missing: Count
+
+
+class RehearsedFamily(Part):
+    id: Text
+    title: Text | None
+    over: Text
+    within: Text | None
+    declared: Flag
+    method: Text
+    level: Number
+    members: list[RehearsedMember]
+    executed: Flag
+    problem: Text | None
+
+
+class DictionaryValue(Part):
+    value: Text | None  # null: the blank cells
+    count: Count
+    meaning: Text | None
+
+
+class DictionaryColumn(Part):
+    column: Text
+    role: Text
+    distinct: Count
+    blank: Count
+    values: list[DictionaryValue]
+    more: Count
+    more_count: Count
+    duplicates: Count | None = None
+
+
+class GroupColumn(Part):
+    column: Text
+    read: Literal[False]
+
+
+class DataDictionary(Part):
+    """The columns the plan reads, their values and what the plan makes of each."""
+
+    rows: Count
+    counted_over: Text
+    group_column: GroupColumn
+    columns: list[DictionaryColumn]
+
+
+class RehearsalResults(Provenance):
+    """``results.json`` of a rehearsal: blinded, pooled figures only."""
+
+    kind: Literal["rehearsal"]
+    blinded: Literal[True]
+    population: Population
+    planned_total: Count | None
+    analysed_total: Count
+    pooled: dict[Text, PooledOutcome]
+    hypotheses: list[RehearsedHypothesis]
+    families: list[RehearsedFamily] | None = None
+    data_dictionary: DataDictionary
+    deviations: list[Departure]
+    notes: list[NoteEntry]
+    caution: Text
+
+
+def _kind(value: Any) -> str:
+    kind = value.get("kind") if isinstance(value, dict) else getattr(value, "kind", None)
+    return TAG + ("rehearsal" if kind == "rehearsal" else "run")
+
+
+Document = Annotated[
+    Annotated[RunResults, Tag(TAG + "run")] | Annotated[RehearsalResults, Tag(TAG + "rehearsal")],
+    Discriminator(_kind),
+]
+
+
+class Results(RootModel[Document]):
+    """A results document: a run's or a rehearsal's, told apart by ``kind``."""
+
+
+def reached_by(ident: str, role: str | None, overrides: list[Override]) -> bool:
+    """Whether a command-line override reaches the result of hypothesis ``ident``: one on
+    the hypothesis (or on the hypothesis a follow-up or member belongs to, ``H3:a-vs-b``),
+    ``multiplicity`` for a hypothesis in the main family, ``alpha`` for every one."""
+    for change in overrides:
+        key = change.key
+        if key.startswith("hypotheses."):
+            owner = key.split(".")[1]
+            if ident == owner or ident.startswith(owner + ":"):
+                return True
+        elif key == "multiplicity":
+            if role != "exploratory":
+                return True
+        else:  # alpha: every decision and interval level
+            return True
+    return False
+
+
+def finish(results: dict[str, Any], overrides: list[dict[str, Any]] | None = None
+           ) -> dict[str, Any]:
+    """The results document as it is written, assembled and checked here alone.
+
+    ``results`` (from ``workflow/execute.py`` or ``workflow/rehearse.py``) is checked against
+    the models: a key or a value the contract does not hold is a programming error, raised
+    before anything is written. With ``overrides`` (a run's command-line changes, each
+    ``{"key", "locked", "used"}``; ``[]`` for none), the run's ``overrides`` are set and each
+    hypothesis's and family's ``pre_specified`` (a family lies outside the plan's
+    multiplicity). The document is the models' dump: the writers' keys, order and values.
+    """
+    doc = Results.model_validate(results).root
+    if overrides is not None:
+        if not isinstance(doc, RunResults):
+            raise ValueError("only a run's results take overrides")
+        doc.overrides = [Override.model_validate(o) for o in overrides]
+        for hyp in doc.hypotheses:
+            hyp.pre_specified = not reached_by(hyp.id, hyp.role, doc.overrides)
+        for fam in doc.families or []:
+            fam.pre_specified = not reached_by(fam.id, "exploratory", doc.overrides)
+    return doc.dumped()
+
+
+def read_results(doc: Any) -> RunResults | RehearsalResults:
+    """A results document read back (``verify --rerun``): keys an earlier prespec did not write
+    take their defaults, keys it does not know are ignored. Raises ``ValidationError`` for a
+    document that is not one (a value of the wrong type, a required key missing)."""
+    return Results.model_validate(doc, context={LENIENT: True}).root
+
+
+def read_provenance(doc: Any) -> Provenance:
+    """Only the fields that open a results document (what ran, on what, by whom), read like
+    :func:`read_results`: what ``verify`` compares with the log for every report, at a cost
+    that does not grow with the document."""
+    return Provenance.model_validate(doc, context={LENIENT: True})
+
+
+def json_schema() -> dict[str, Any]:
+    """The JSON Schema (draft 2020-12) of a results document, from the models."""
+    return draft_2020_12(Results.model_json_schema(by_alias=True, mode="validation"),
+                         "prespec results.json")
