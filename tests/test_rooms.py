@@ -153,3 +153,22 @@ def test_the_walk_sees_a_cycle_and_an_upward_import() -> None:
     made_up = {"prespec.plan.a": {"prespec.design.b"}, "prespec.design.b": {"prespec.plan.a"}}
     assert cycles(made_up) == [["prespec.design.b", "prespec.plan.a"]]
     assert ORDER.index(room("prespec.design.b")) > ORDER.index(room("prespec.plan.a"))
+
+
+def test_check_loads_neither_analysis_nor_design_nor_report() -> None:
+    """``prespec check`` of a plan without a design section reads the plan: the facade loads
+    each step on first use, so the analysis, design and report rooms stay unloaded."""
+    import subprocess
+    import sys
+
+    plan = SRC.parent.parent / "plans" / "methods-tour.yaml"
+    code = ("import contextlib, io, sys\n"
+            "from prespec import cli\n"
+            "with contextlib.redirect_stdout(io.StringIO()):\n"
+            f"    assert cli.main(['check', {str(plan)!r}]) == 0\n"
+            "print(' '.join(sorted({m.split('.')[1] for m in sys.modules "
+            "if m.startswith('prespec.')})))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    loaded = set(out.stdout.split())
+    assert "plan" in loaded and "workflow" in loaded
+    assert loaded.isdisjoint({"analysis", "design", "report"}), sorted(loaded)

@@ -16,8 +16,6 @@ from prespec.audit.record import settle
 from prespec.common.departures import Departure
 from prespec.common.environment import differences
 from prespec.errors import BadInput, IntegrityStop, plain_os_error
-from prespec.workflow.execute import check_out_folder
-from prespec.workflow.publish import complete_interrupted
 
 
 def resolve_actor(actor: str | None) -> str:
@@ -54,6 +52,8 @@ def finish_stopped_writes(plan: Path) -> list[dict[str, Any]]:
     """Check the log, then complete a head write, a lock write or a report rename that a stop
     interrupted; the log's entries. Holds the folder's lock exclusively: the caller keeps it
     while it reads the lock and the log to decide what to do."""
+    from prespec.workflow.publish import complete_interrupted
+
     with audit.guard.hold(plan.parent, exclusive=True):
         entries = settle(plan)
         complete_interrupted(plan, entries)
@@ -95,6 +95,8 @@ def environment_departures(record: dict[str, Any], env: dict[str, str]) -> list[
 def check_out_path(plan_path: Path, out: Path) -> None:
     """``--out`` must be a new or empty plain folder: no link, not a file. Outside the plan's
     folder it must sit in an existing folder the user can write (no parents are made there)."""
+    from prespec.workflow.execute import check_out_folder
+
     check_out_folder(out)
     if out.is_symlink():
         raise BadInput(f"{out}: is a symbolic link; give a plain folder")

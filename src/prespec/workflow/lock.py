@@ -14,7 +14,6 @@ from pathlib import Path
 from typing import Any
 
 from prespec import audit
-from prespec.analysis.families import declared_members
 from prespec.audit.record import record_version
 from prespec.common.departures import Departure
 from prespec.common.environment import environment
@@ -52,12 +51,13 @@ def _lock_status(loaded: LoadedPlan) -> str:
 def check(plan: str | Path) -> CheckResult:
     """Validate a plan; nothing is written. ``data.source`` must be inside its folder."""
     from prespec.data.engines.sources import describe_source
-    from prespec.design.document import design_summary
 
     loaded = load_plan(Path(plan))
     source = describe_source(loaded.path, loaded.model)
     text = summary(loaded.model)
     if loaded.model.design is not None:  # the sizes it gives (``prespec design`` has the detail)
+        from prespec.design.document import design_summary
+
         text = "\n".join([text, *design_summary(loaded.model)])
     return CheckResult(loaded, text, _lock_status(loaded), source)
 
@@ -110,6 +110,8 @@ def _write_version(loaded: LoadedPlan, record: dict[str, Any], action: str, acto
                    changes: list[str] | None = None) -> None:
     """Record the version through ``audit.record``; the entry also names what changed in
     meaning (amend) and the members each family declares."""
+    from prespec.analysis.families import declared_members
+
     details = {**({"changes": changes} if changes is not None else {}),
                **declared_members(record["plan"])}
     record_version(loaded.path, record, action=action, actor=actor, deviations=deviations,
