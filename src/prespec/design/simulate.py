@@ -5,7 +5,7 @@ at the analysed sizes) and is decided by the plan's full rule: the pre-specified
 hypothesis, its sparse switch applied trial by trial, the multiplicity procedure over the main
 family, and the gated pairwise follow-ups with their own adjustment. The count tables are
 arrays (trials × groups), drawn in chunks so that memory stays bounded; tests and
-adjustments run on whole arrays (``arraytests``, ``arraymultiplicity``).
+adjustments run on whole arrays (``arraytests``; the array kernels of ``prespec.stats``).
 
 What is reported per scenario: the family-wise error rate (the probability of rejecting at
 least one true null among the non-exploratory hypotheses, follow-ups included), the false
@@ -25,9 +25,11 @@ from typing import Any
 import numpy as np
 
 from prespec.analysis import MAIN_FAMILY, follow_ups
-from prespec.design import arraymultiplicity
-from prespec.design.arraytests import ArrayTest, array_test, smallest_expected
+from prespec.design.arraytests import ArrayTest, array_test
 from prespec.errors import BadInput
+from prespec.stats.graphical import graphical_adjust_many
+from prespec.stats.multiplicity import adjust_many
+from prespec.stats.tables import smallest_expected_many
 
 #: Trials per chunk: with a handful of groups and hypotheses, a few megabytes of arrays.
 CHUNK = 20_000
@@ -149,7 +151,7 @@ class Decider:
             events = counts[c.unit.hyp.outcome][:, list(c.unit.groups)]
             p = np.asarray(c.main(events), dtype=float)
             if c.switch is not None and c.min_expected is not None:
-                fired = smallest_expected(events, c.totals) < c.min_expected
+                fired = smallest_expected_many(events, c.totals) < c.min_expected
                 if fired.any():
                     p = p.copy()
                     p[fired] = c.switch(events[fired])
@@ -158,11 +160,11 @@ class Decider:
 
     def _adjusted(self, p: np.ndarray, method: Any, ids: list[str]) -> np.ndarray:
         if isinstance(method, str):
-            return arraymultiplicity.adjust(p, method)
+            return adjust_many(p, method)
         weights = [float(method.weights.get(i, 0.0)) for i in ids]
         transitions = [[float(method.transitions.get(a, {}).get(b, 0.0)) for b in ids]
                        for a in ids]
-        return arraymultiplicity.graphical_adjust(p, weights, transitions)
+        return graphical_adjust_many(p, weights, transitions)
 
     def decide(self, counts: dict[str, np.ndarray]) -> np.ndarray:
         raw = self.p_values(counts)
@@ -187,7 +189,7 @@ class Decider:
             assert parent is not None
             gate = reject[:, index[parent]]
             method = self.plan.hypothesis(parent).then.multiplicity
-            adjusted = arraymultiplicity.adjust(filled[:, members], method)
+            adjusted = adjust_many(filled[:, members], method)
             reject[:, members] = gate[:, None] & computable[:, members] & (adjusted <= alpha)
         return reject
 

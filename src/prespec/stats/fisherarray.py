@@ -413,24 +413,44 @@ def fisher_many(a: object, b: object, c: object, d: object, *, alternative: str 
     Third Berkeley Symposium on Mathematical Statistics and Probability 1956;4:135–148 (the
     conditional maximum likelihood estimate).
     """
+    p, estimate = _fisher(a, b, c, d, alternative, tie_tolerance, estimate=True)
+    return FisherMany(_frozen(p), _frozen(estimate))
+
+
+def fisher_p_values(a: object, b: object, c: object, d: object, *,
+                    alternative: str = "two-sided",
+                    tie_tolerance: float = SCIPY_TIE_TOLERANCE) -> np.ndarray:
+    """The p-values of :func:`fisher_many` alone (no odds ratios), a new array of the input's
+    shape: the one Fisher's exact test of prespec. :func:`prespec.stats.fisher_exact` is its
+    one-table case with ``tie_tolerance=1e-7``; the tipping-point grid and the exact power of
+    the design call it on arrays of tables with the same tolerance."""
+    return _fisher(a, b, c, d, alternative, tie_tolerance, estimate=False)[0]
+
+
+def _fisher(a: object, b: object, c: object, d: object, alternative: str, tie_tolerance: float,
+            *, estimate: bool) -> tuple[np.ndarray, np.ndarray]:
+    """(p-values, conditional MLE odds ratios or nan when ``estimate`` is false), shaped as
+    the input."""
     cells = _cells(a, b, c, d)
     alt = _checks.alternative(alternative)
     tolerance = _tie_tolerance(tie_tolerance)
     shape = cells[0].shape
     tables, inverse = _distinct(cells)
     p = np.ones(tables.shape[0])
-    estimate = np.full(tables.shape[0], math.nan)
+    odds = np.full(tables.shape[0], math.nan)
     live = np.flatnonzero(~_degenerate(tables))
     if live.size:
         sub = tables[live]
-        start = _start(*(sub[:, i].astype(float) for i in range(4)))
+        start = _start(*(sub[:, i].astype(float) for i in range(4))) if estimate else None
         for members, s, rows, at in _by_margins(sub):
             p[live[members]] = _p_values(s, rows, at, alt, tolerance)
+            if start is None:
+                continue
             for part in _table_chunks(members.size, s.w.shape[1]):
-                estimate[live[members[part]]] = _conditional_mle(
+                odds[live[members[part]]] = _conditional_mle(
                     s, rows[part], at[part], start[members[part]]
                 )
-    return FisherMany(_frozen(p[inverse].reshape(shape)), _frozen(estimate[inverse].reshape(shape)))
+    return p[inverse].reshape(shape), odds[inverse].reshape(shape)
 
 
 def _frozen(array: np.ndarray) -> np.ndarray:

@@ -83,11 +83,6 @@ def remove_hypothesis(j: int, active: list[int], w: np.ndarray, g: np.ndarray) -
     g[:, :] = new_g
 
 
-def _ratio(p: float, w: float) -> float:
-    """p / w, infinite when the weight is 0 (a hypothesis at level 0 cannot be rejected)."""
-    return p / w if w > 0.0 else math.inf
-
-
 def graphical_adjust(
     p_values: Sequence[float], weights: Sequence[float], transitions: Sequence[Sequence[float]]
 ) -> list[float]:
@@ -100,7 +95,7 @@ def graphical_adjust(
     <= alpha (see :func:`graphical_rejections`). A hypothesis whose weight stays 0 gets 1.
     Weights must lie in [0, 1] and sum to at most 1; the transition matrix must be m × m with
     entries in [0, 1], a zero diagonal and rows summing to at most 1 (each sum within 1e-12).
-    Empty input gives [].
+    Empty input gives []. The one-row case of :func:`graphical_adjust_many`.
 
     References
     ----------
@@ -111,14 +106,48 @@ def graphical_adjust(
     Statistics 1979;6:65–70.
     """
     p, w, g = build_graph(p_values, weights, transitions)
-    active = list(range(p.size))
-    adjusted = [1.0] * p.size
-    previous = 0.0
-    while active:
-        j = min(active, key=lambda i: _ratio(float(p[i]), float(w[i])))  # the first of equals
-        previous = min(1.0, max(_ratio(float(p[j]), float(w[j])), previous))
-        adjusted[j] = previous
-        remove_hypothesis(j, active, w, g)
+    return [float(v) for v in graphical_adjust_many(p[None, :], w, g)[0]]
+
+
+def graphical_adjust_many(p: np.ndarray, weights: Sequence[float] | np.ndarray,
+                          transitions: Sequence[Sequence[float]] | np.ndarray) -> np.ndarray:
+    """:func:`graphical_adjust` on each row of an array of p-values (one family per row, as
+    the design simulation draws them), the graph shared by every row.
+
+    m steps, each taking in every row the hypothesis with the smallest p/w among those left
+    (the first of equals; the first left when all of them have weight 0), then passing its
+    weight on along the graph as :func:`remove_hypothesis` does. The weights and transitions
+    are not validated here (:func:`build_graph` does it for :func:`graphical_adjust`).
+    """
+    p = np.asarray(p, dtype=float)
+    t, m = p.shape
+    w = np.tile(np.asarray(weights, dtype=float), (t, 1))
+    g = np.tile(np.asarray(transitions, dtype=float).reshape(1, m, m), (t, 1, 1))
+    active = np.ones((t, m), dtype=bool)
+    adjusted = np.ones((t, m))
+    previous = np.zeros(t)
+    rows = np.arange(t)
+    for _ in range(m):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            ratio = np.where(w > 0.0, p / w, np.inf)  # weight 0: never rejected
+        ratio = np.where(active, ratio, np.inf)
+        j = np.argmin(ratio, axis=1)
+        # every hypothesis left has weight 0: take the first left (not one already taken)
+        j = np.where(np.isinf(ratio[rows, j]), np.argmax(active, axis=1), j)
+        previous = np.minimum(1.0, np.maximum(ratio[rows, j], previous))
+        adjusted[rows, j] = previous
+        active[rows, j] = False
+        g_out = g[rows, j, :]  # g[j, h]
+        g_in = g[rows, :, j]  # g[h, j]
+        w_j = w[rows, j]
+        w = np.where(active, w + w_j[:, None] * g_out, w)
+        loop = g_in * g_out
+        with np.errstate(divide="ignore", invalid="ignore"):
+            new_g = (g + g_in[:, :, None] * g_out[:, None, :]) / (1.0 - loop)[:, :, None]
+        keep = active[:, :, None] & active[:, None, :] & (loop < 1.0)[:, :, None]
+        keep &= ~np.eye(m, dtype=bool)[None, :, :]
+        g = np.where(keep, new_g, 0.0)
+        w[rows, j] = 0.0
     return adjusted
 
 
