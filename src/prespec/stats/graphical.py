@@ -68,19 +68,35 @@ def remove_hypothesis(j: int, active: list[int], w: np.ndarray, g: np.ndarray) -
     """Remove rejected hypothesis j: pass its weight on and update the graph, in place.
 
     Bretz et al. 2009, Algorithm 1, step 2: w_l ← w_l + w_j·g_jl and, for l ≠ k,
-    g_lk ← (g_lk + g_lj·g_jk) / (1 − g_lj·g_jl), or 0 when g_lj·g_jl = 1.
+    g_lk ← (g_lk + g_lj·g_jk) / (1 − g_lj·g_jl), or 0 when g_lj·g_jl = 1. The one-graph case
+    of :func:`_pass_on_many`.
     """
     active.remove(j)
-    new_g = np.zeros_like(g)
-    for h in active:
-        w[h] += w[j] * g[j, h]
-        loop = g[h, j] * g[j, h]
-        if loop < 1.0:
-            for k in active:
-                if k != h:
-                    new_g[h, k] = (g[h, k] + g[h, j] * g[j, k]) / (1.0 - loop)
-    w[j] = 0.0
-    g[:, :] = new_g
+    left = np.zeros((1, w.size), dtype=bool)
+    left[0, active] = True
+    new_w, new_g = _pass_on_many(w[None, :], g[None, :, :], left, np.array([j]))
+    w[:] = new_w[0]
+    g[:, :] = new_g[0]
+
+
+def _pass_on_many(w: np.ndarray, g: np.ndarray, active: np.ndarray, j: np.ndarray
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Remove hypothesis j[r] from graph r of each row (weights T × m, transitions T × m × m,
+    ``active`` the hypotheses left once j is removed): the new weights and transitions."""
+    rows = np.arange(w.shape[0])
+    m = w.shape[1]
+    g_out = g[rows, j, :]  # g[j, h]
+    g_in = g[rows, :, j]  # g[h, j]
+    w_j = w[rows, j]
+    w = np.where(active, w + w_j[:, None] * g_out, w)
+    loop = g_in * g_out
+    with np.errstate(divide="ignore", invalid="ignore"):
+        new_g = (g + g_in[:, :, None] * g_out[:, None, :]) / (1.0 - loop)[:, :, None]
+    keep = active[:, :, None] & active[:, None, :] & (loop < 1.0)[:, :, None]
+    keep &= ~np.eye(m, dtype=bool)[None, :, :]
+    w = w.copy()
+    w[rows, j] = 0.0
+    return w, np.where(keep, new_g, 0.0)
 
 
 def graphical_adjust(
@@ -116,7 +132,7 @@ def graphical_adjust_many(p: np.ndarray, weights: Sequence[float] | np.ndarray,
 
     m steps, each taking in every row the hypothesis with the smallest p/w among those left
     (the first of equals; the first left when all of them have weight 0), then passing its
-    weight on along the graph as :func:`remove_hypothesis` does. The weights and transitions
+    weight on along the graph (:func:`_pass_on_many`, as :func:`remove_hypothesis`). The weights and transitions
     are not validated here (:func:`build_graph` does it for :func:`graphical_adjust`).
     """
     p = np.asarray(p, dtype=float)
@@ -137,17 +153,7 @@ def graphical_adjust_many(p: np.ndarray, weights: Sequence[float] | np.ndarray,
         previous = np.minimum(1.0, np.maximum(ratio[rows, j], previous))
         adjusted[rows, j] = previous
         active[rows, j] = False
-        g_out = g[rows, j, :]  # g[j, h]
-        g_in = g[rows, :, j]  # g[h, j]
-        w_j = w[rows, j]
-        w = np.where(active, w + w_j[:, None] * g_out, w)
-        loop = g_in * g_out
-        with np.errstate(divide="ignore", invalid="ignore"):
-            new_g = (g + g_in[:, :, None] * g_out[:, None, :]) / (1.0 - loop)[:, :, None]
-        keep = active[:, :, None] & active[:, None, :] & (loop < 1.0)[:, :, None]
-        keep &= ~np.eye(m, dtype=bool)[None, :, :]
-        g = np.where(keep, new_g, 0.0)
-        w[rows, j] = 0.0
+        w, g = _pass_on_many(w, g, active, j)
     return adjusted
 
 
