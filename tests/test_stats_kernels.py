@@ -293,6 +293,7 @@ STATSMODELS_NAMES = {"bonferroni": "bonferroni", "sidak": "sidak", "holm": "holm
                      "benjamini-hochberg": "fdr_bh", "benjamini-yekutieli": "fdr_by"}
 
 
+@pytest.mark.filterwarnings("ignore:divide by zero encountered in log1p:RuntimeWarning")
 @pytest.mark.parametrize("method", sorted(multiplicity.ADJUSTMENT_METHODS))
 def test_adjust_many_rows_are_adjust(method: str) -> None:
     rng = np.random.default_rng(7)
