@@ -1,9 +1,9 @@
 """The time of a tipping-point grid of 200 × 200 missing outcomes, against a per-cell loop.
 
-The grid of ``prespec.analysis.sensitivity.tipping_point`` is computed on whole arrays: closed forms
-for the chi-square, z and margin tests, and for Fisher's exact test one hypergeometric law per
-anti-diagonal with its tails accumulated in log space and the two-sided cut found by a binary
-search run on every cell at once. The baseline is the obvious loop: the scalar library test
+The grid of ``prespec.analysis.sensitivity.tipping_point`` is computed on whole arrays by the tests'
+array kernels in ``prespec.stats`` (for Fisher's exact test ``fisherarray.fisher_p_values``:
+one hypergeometric law per anti-diagonal, its two-sided cut found by a binary search run on
+every cell at once). The baseline is the obvious loop: the scalar library test
 (``prespec.stats``) called on each cell's table. The loop is timed on a random sample of cells
 (``--sample``, or every cell with ``--full``) and scaled to the whole grid; before anything is
 timed, the grid is checked against the loop on those cells.

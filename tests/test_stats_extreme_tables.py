@@ -15,12 +15,12 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from prespec.design import arraytests
-from prespec.stats.fisherarray import fisher_many
-from prespec.stats.proportions import fisher_exact, likelihood_ratio
+from prespec.design.exactpower import FisherTables
+from prespec.stats.fisherarray import fisher_many, fisher_p_values
+from prespec.stats.proportions import fisher_exact, likelihood_ratio, likelihood_ratio_many
 from prespec.stats.single import BINOMIAL_TIE_TOLERANCE, binomial_exact
 from prespec.stats.stratified import breslow_day_tarone
-from prespec.stats.tails import binomial_tail, hypergeometric_tail
+from prespec.stats.tails import binomial_tail
 
 # --- exact references ------------------------------------------------------------------------
 
@@ -133,14 +133,17 @@ def test_fisher_on_large_tables_matches_exact_fractions(
     assert float(many.p_value[0]) == pytest.approx(want, rel=1e-12, abs=0.0)
 
 
-def test_hypergeometric_tail_helper_on_both_sides_of_the_mode() -> None:
+def test_fisher_one_sided_tails_on_both_sides_of_the_mode() -> None:
+    """The hypergeometric tails of the one Fisher kernel (70 events among 200, 90 of them in
+    the first group), on the whole support at once, against exact fractions."""
     low, counts, whole = _hypergeometric_counts(200, 70, 90)
-    for x in range(low, low + len(counts), 7):
-        at = x - low
-        assert hypergeometric_tail(x, 200, 70, 90, upper=True) == pytest.approx(
-            sum(counts[at:]) / whole, rel=1e-13, abs=0.0)
-        assert hypergeometric_tail(x, 200, 70, 90, upper=False) == pytest.approx(
-            sum(counts[: at + 1]) / whole, rel=1e-13, abs=0.0)
+    x1 = np.arange(low, low + len(counts))
+    cells = (x1, 90 - x1, 70 - x1, 40 + x1)
+    upper = fisher_p_values(*cells, alternative="greater", tie_tolerance=1e-7)
+    lower = fisher_p_values(*cells, alternative="less", tie_tolerance=1e-7)
+    for at in range(len(counts)):
+        assert upper[at] == pytest.approx(sum(counts[at:]) / whole, rel=1e-13, abs=0.0)
+        assert lower[at] == pytest.approx(sum(counts[: at + 1]) / whole, rel=1e-13, abs=0.0)
 
 
 # --- Breslow–Day–Tarone near the edge of the support -----------------------------------------
@@ -213,11 +216,12 @@ def test_likelihood_ratio_matches_60_digits(events: list[int], totals: list[int]
                                              and max(t[1]) < 2**31])
 def test_likelihood_ratio_twins_agree_on_extreme_tables(
         events: list[int], totals: list[int]) -> None:
-    """The power simulation's and the tipping-point grid's array forms give the scalar p."""
+    """The array kernel (used by the power simulation and the tipping-point grid) gives the
+    scalar p, of which it is the one-table case."""
     from prespec.analysis import sensitivity
 
     want = likelihood_ratio(events, totals).p_value
-    design = arraytests.likelihood_ratio(np.array([events]), np.array(totals))
+    design = likelihood_ratio_many(np.array([events]), np.array(totals))[1]
     assert float(design[0]) == pytest.approx(want, rel=1e-13, abs=0.0)
     grid = sensitivity._likelihood_ratio(
         np.array([events[0]]), totals[0], np.array([events[1]]), totals[1],
@@ -228,10 +232,8 @@ def test_likelihood_ratio_twins_agree_on_extreme_tables(
 @pytest.mark.parametrize("x1, n1, x2, n2, alternative", FISHER_LARGE)
 def test_design_fisher_twin_agrees_on_large_tables(
         x1: int, n1: int, x2: int, n2: int, alternative: str) -> None:
-    """The exact-power enumeration's p-values (design.exactpower.fisher_row) are the scalar
+    """The exact-power enumeration's p-values (design.exactpower.FisherTables) are the scalar
     test's on the same tables (they were 5e-10 apart for N > 1e5, log-gamma based)."""
-    from prespec.design.exactpower import fisher_row
-
-    low, p = fisher_row(x1 + x2, n1, n2, alternative)
+    low, p = FisherTables(n1, n2, alternative).row(x1 + x2)
     want = fisher_exact(x1, n1, x2, n2, alternative=alternative).p_value
     assert float(p[x1 - low]) == pytest.approx(want, rel=1e-12, abs=0.0)

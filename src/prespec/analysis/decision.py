@@ -30,6 +30,9 @@ from typing import Any
 
 import numpy as np
 
+from prespec.stats.graphical import graphical_adjust_many
+from prespec.stats.multiplicity import adjust_many
+
 #: The family of the plan's non-exploratory hypotheses, adjusted by its ``multiplicity``.
 MAIN_FAMILY = "main"
 
@@ -123,15 +126,11 @@ class Decision:
 def adjusted_p_values(p: np.ndarray, method: Any, ids: Sequence[str]) -> np.ndarray:
     """Adjusted p-values of each row (a family in plan order) by a named method or the
     graphical procedure (weights and transitions looked up by id; absent ones are 0)."""
-    # The array kernels of stats.multiplicity and stats.graphical; imported here while they
-    # live in design/ (issue 15 item 3 moves them into stats/).
-    from prespec.design import arraymultiplicity
-
     if isinstance(method, str):
-        return arraymultiplicity.adjust(p, method)
+        return adjust_many(p, method)
     weights = [float(method.weights.get(i, 0.0)) for i in ids]
     transitions = [[float(method.transitions.get(a, {}).get(b, 0.0)) for b in ids] for a in ids]
-    return arraymultiplicity.graphical_adjust(p, weights, transitions)
+    return graphical_adjust_many(p, weights, transitions)
 
 
 def decide(plan: Any, units: Sequence[Unit], raw: Any) -> Decision:

@@ -1,8 +1,9 @@
 """Exact power of Fisher's exact test and the exact binomial test, by enumeration.
 
-The p-values are computed on arrays of tables (the same rules as ``prespec.stats``: the
-two-sided p-value sums the probabilities of every outcome no more probable than the observed
-one, within a relative 1e-7 for ties), so the same code serves the simulation of whole trials.
+The p-values are those of the tests' array kernels in ``prespec.stats`` (Fisher's
+:func:`~prespec.stats.fisherarray.fisher_p_values`, of which the run's ``fisher_exact`` is the
+one-table case; :func:`~prespec.stats.single.binomial_exact_all`), on every outcome at once, so
+the same code serves the simulation of whole trials.
 The power is the sum, over every outcome, of its probability under the assumed rates times
 whether the test rejects it. Outcomes beyond 1e-12 of each tail of each group's binomial law
 are left out (their total probability, below 4e-12, is a bound on the error).
@@ -21,47 +22,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from prespec.stats.fisherarray import fisher_p_values
 from prespec.stats.proportions import FISHER_TIE_TOLERANCE
-from prespec.stats.single import BINOMIAL_TIE_TOLERANCE
-from prespec.stats.tails import hypergeometric_pmf
+from prespec.stats.single import binomial_exact_all
 
 #: Probability left out of each tail of each group's binomial law in an enumeration.
 TAIL = 1e-12
-
-
-def _two_sided(prob: np.ndarray, tolerance: float) -> np.ndarray:
-    """For each outcome of one discrete law, the sum of the probabilities of the outcomes no
-    more probable than it (within the relative ``tolerance``)."""
-    order = np.sort(prob)
-    cumulative = np.cumsum(order)
-    at = np.searchsorted(order, prob * (1.0 + tolerance), side="right") - 1
-    return np.minimum(1.0, cumulative[at])
-
-
-def fisher_row(t: int, n1: int, n2: int, alternative: str) -> tuple[int, np.ndarray]:
-    """Fisher's p-values for every table with t events in all, groups of n1 and n2.
-
-    Returns (lowest x1, p-values for x1 = lowest, …, min(t, n1)). Conditional on the margins
-    x1 is hypergeometric; ``greater`` sums the upper tail, ``less`` the lower one.
-
-    References
-    ----------
-    Fisher RA. On the interpretation of chi-square from contingency tables, and the
-    calculation of P. Journal of the Royal Statistical Society 1922;85:87–94.
-    Agresti A. A survey of exact inference for contingency tables. Statistical Science
-    1992;7:131–177 (the two-sided rule by probability ordering).
-    """
-    low, high = max(0, t - n2), min(t, n1)
-    # the point probabilities as ``stats.tails`` forms them (Loader's ratio of binomials), so
-    # that the p-values agree with ``stats.proportions.fisher_exact`` for large totals too
-    prob = hypergeometric_pmf(np.arange(low, high + 1), n1 + n2, t, n1)
-    if alternative == "greater":
-        p = np.cumsum(prob[::-1])[::-1]
-    elif alternative == "less":
-        p = np.cumsum(prob)
-    else:
-        p = _two_sided(prob, FISHER_TIE_TOLERANCE)
-    return low, np.minimum(1.0, p)
 
 
 class FisherTables:
@@ -76,16 +42,31 @@ class FisherTables:
         self._rows: dict[int, tuple[int, np.ndarray]] = {}
         self._kept, self._keep = 0, keep
 
-    def row(self, t: int) -> tuple[int, np.ndarray]:
-        got = self._rows.get(t)
-        if got is None:
-            got = fisher_row(t, self.n1, self.n2, self.alternative)
+    def _compute(self, totals: list[int]) -> list[tuple[int, np.ndarray]]:
+        """The rows of these totals, computed in one call of the Fisher kernel (for a total t
+        the tables x1 = lowest, …, min(t, n1), x2 = t − x1), and kept while at most ``keep``
+        values are kept (all rows are forgotten when one more would pass it)."""
+        n1, n2 = self.n1, self.n2
+        lows = [max(0, t - n2) for t in totals]
+        sizes = [min(t, n1) - low + 1 for t, low in zip(totals, lows, strict=True)]
+        x1 = np.concatenate([np.arange(low, low + size)
+                             for low, size in zip(lows, sizes, strict=True)])
+        x2 = np.repeat(np.asarray(totals, dtype=np.int64), sizes) - x1
+        p = fisher_p_values(x1, n1 - x1, x2, n2 - x2, alternative=self.alternative,
+                            tie_tolerance=FISHER_TIE_TOLERANCE)
+        rows = list(zip(lows, np.split(p, np.cumsum(sizes)[:-1]), strict=True))
+        for t, got in zip(totals, rows, strict=True):
             if self._kept + got[1].size > self._keep:
                 self._rows.clear()
                 self._kept = 0
             self._rows[t] = got
             self._kept += got[1].size
-        return got
+        return rows
+
+    def row(self, t: int) -> tuple[int, np.ndarray]:
+        """(lowest x1, p-values for x1 = lowest, …, min(t, n1)) of the tables with t events."""
+        got = self._rows.get(t)
+        return got if got is not None else self._compute([t])[0]
 
     def p_values(self, x1: np.ndarray, x2: np.ndarray) -> np.ndarray:
         x1 = np.asarray(x1, dtype=np.int64)
@@ -93,31 +74,21 @@ class FisherTables:
         out = np.empty(x1.shape, dtype=float)
         totals, inverse = np.unique(t, return_inverse=True)
         inverse = inverse.reshape(t.shape)
-        for i, total in enumerate(totals.tolist()):
-            low, p = self.row(int(total))
+        rows: dict[int, tuple[int, np.ndarray]] = {}
+        missing = []
+        for value in totals.tolist():
+            got = self._rows.get(int(value))
+            if got is None:
+                missing.append(int(value))
+            else:
+                rows[int(value)] = got
+        if missing:
+            rows.update(zip(missing, self._compute(missing), strict=True))
+        for i, value in enumerate(totals.tolist()):
+            low, p = rows[int(value)]
             where = inverse == i
             out[where] = p[x1[where] - low]
         return out
-
-
-def binomial_p_values(n: int, null_rate: float, alternative: str) -> np.ndarray:
-    """The exact binomial test's p-value for each x = 0, …, n (``stats.single.binomial_exact``
-    rules: the tails for one-sided alternatives, small p-values for two-sided).
-
-    References
-    ----------
-    Clopper CJ, Pearson ES. Biometrika 1934;26:404–413.
-    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, chapter 1.
-    """
-    x = np.arange(n + 1)
-    if alternative == "greater":
-        p = stats.binom.sf(x - 1, n, null_rate)
-    elif alternative == "less":
-        p = stats.binom.cdf(x, n, null_rate)
-    else:
-        p = _two_sided(stats.binom.pmf(x, n, null_rate), BINOMIAL_TIE_TOLERANCE)
-        p[np.isclose(x, n * null_rate, rtol=0, atol=0)] = 1.0
-    return np.minimum(1.0, p)
 
 
 def _range(n: int, p: float) -> np.ndarray:
@@ -142,7 +113,7 @@ def fisher_power(p1: float, p2: float, n1: int, n2: int, level: float, alternati
 def binomial_power(p: float, null_rate: float, n: int, level: float, alternative: str) -> float:
     """Exact power of the exact binomial test of p = null_rate at ``level``: Σ Bin(x; n, p) over
     the outcomes x it rejects."""
-    reject = binomial_p_values(n, null_rate, alternative) <= level
+    reject = binomial_exact_all(n, null_rate, alternative) <= level
     return float(np.sum(stats.binom.pmf(np.arange(n + 1), n, p)[reject]))
 
 

@@ -27,9 +27,10 @@ import numpy as np
 
 from prespec.analysis import decision
 from prespec.analysis.decision import MAIN_FAMILY
-from prespec.design.arraytests import ArrayTest, array_test, smallest_expected
+from prespec.design.arraytests import ArrayTest, array_test
 from prespec.errors import BadInput
 from prespec.plan.followups import follow_ups
+from prespec.stats.tables import smallest_expected_many
 
 #: Trials per chunk: with a handful of groups and hypotheses, a few megabytes of arrays.
 CHUNK = 20_000
@@ -153,7 +154,7 @@ class Decider:
             smallest = np.full(trials, np.inf)
             if decision.has_sparse_switch(c.unit.hyp):
                 events = counts[c.unit.hyp.outcome][:, list(c.unit.groups)]
-                smallest = smallest_expected(events, c.totals)
+                smallest = smallest_expected_many(events, c.totals)
             columns.append(decision.sparse_fires(c.unit.hyp, smallest))
         return np.column_stack(columns)
 

@@ -328,12 +328,31 @@ def _start(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray) -> np.nda
 # --- the work, by distinct table -----------------------------------------------------------
 
 
+#: Bits of one margin in the sort keys (every margin is at most MAX_TOTAL < 2^21).
+_BITS = 21
+assert MAX_TOTAL < 1 << _BITS
+
+
+def _margin_keys(n1: np.ndarray, n2: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """One int64 per (n1, n2, m), ordered as the triples are lexicographically."""
+    return (n1 << (2 * _BITS)) | (n2 << _BITS) | m
+
+
 def _distinct(cells: tuple[np.ndarray, ...]) -> tuple[np.ndarray, np.ndarray]:
-    """The distinct tables (rows a, b, c, d) and, per input table, the index of its own."""
-    stacked = np.stack([x.ravel() for x in cells], axis=1)
-    if stacked.shape[0] == 0:
-        return stacked.reshape(0, 4), np.zeros(0, dtype=np.int64)
-    tables, inverse = np.unique(stacked, axis=0, return_inverse=True)
+    """The distinct tables (rows a, b, c, d) and, per input table, the index of its own.
+
+    A table is its margins and a: both are sorted as int64 keys (a sort of rows of four
+    columns costs several times more)."""
+    a, b, c, d = (x.ravel() for x in cells)
+    if a.size == 0:
+        return np.zeros((0, 4), dtype=np.int64), np.zeros(0, dtype=np.int64)
+    margins, which = np.unique(_margin_keys(a + b, c + d, a + c), return_inverse=True)
+    keys, inverse = np.unique((which.ravel() << _BITS) | a, return_inverse=True)
+    mask = (1 << _BITS) - 1
+    key = margins[keys >> _BITS]
+    n1, n2, m = key >> (2 * _BITS), (key >> _BITS) & mask, key & mask
+    first = keys & mask
+    tables = np.stack([first, n1 - first, m - first, n2 - m + first], axis=1)
     return tables, inverse.ravel()
 
 
@@ -342,9 +361,10 @@ def _by_margins(tables: np.ndarray
     """Per chunk of distinct margins: (table indices, supports, support row, index of a),
     one chunk at a time so that only one chunk's supports are held."""
     a, b, c, d = tables.T
-    margins = np.stack([a + b, c + d, a + c], axis=1)
-    unique, which = np.unique(margins, axis=0, return_inverse=True)
+    keys, which = np.unique(_margin_keys(a + b, c + d, a + c), return_inverse=True)
     which = which.ravel()
+    mask = (1 << _BITS) - 1
+    unique = np.stack([keys >> (2 * _BITS), (keys >> _BITS) & mask, keys & mask], axis=1)
     chunks = _chunks(unique)
     chunk_of, position = np.empty(unique.shape[0], np.int64), np.empty(unique.shape[0], np.int64)
     for k, chunk in enumerate(chunks):
@@ -413,24 +433,44 @@ def fisher_many(a: object, b: object, c: object, d: object, *, alternative: str 
     Third Berkeley Symposium on Mathematical Statistics and Probability 1956;4:135–148 (the
     conditional maximum likelihood estimate).
     """
+    p, estimate = _fisher(a, b, c, d, alternative, tie_tolerance, estimate=True)
+    return FisherMany(_frozen(p), _frozen(estimate))
+
+
+def fisher_p_values(a: object, b: object, c: object, d: object, *,
+                    alternative: str = "two-sided",
+                    tie_tolerance: float = SCIPY_TIE_TOLERANCE) -> np.ndarray:
+    """The p-values of :func:`fisher_many` alone (no odds ratios), a new array of the input's
+    shape: the one Fisher's exact test of prespec. :func:`prespec.stats.fisher_exact` is its
+    one-table case with ``tie_tolerance=1e-7``; the tipping-point grid and the exact power of
+    the design call it on arrays of tables with the same tolerance."""
+    return _fisher(a, b, c, d, alternative, tie_tolerance, estimate=False)[0]
+
+
+def _fisher(a: object, b: object, c: object, d: object, alternative: str, tie_tolerance: float,
+            *, estimate: bool) -> tuple[np.ndarray, np.ndarray]:
+    """(p-values, conditional MLE odds ratios or nan when ``estimate`` is false), shaped as
+    the input."""
     cells = _cells(a, b, c, d)
     alt = _checks.alternative(alternative)
     tolerance = _tie_tolerance(tie_tolerance)
     shape = cells[0].shape
     tables, inverse = _distinct(cells)
     p = np.ones(tables.shape[0])
-    estimate = np.full(tables.shape[0], math.nan)
+    odds = np.full(tables.shape[0], math.nan)
     live = np.flatnonzero(~_degenerate(tables))
     if live.size:
         sub = tables[live]
-        start = _start(*(sub[:, i].astype(float) for i in range(4)))
+        start = _start(*(sub[:, i].astype(float) for i in range(4))) if estimate else None
         for members, s, rows, at in _by_margins(sub):
             p[live[members]] = _p_values(s, rows, at, alt, tolerance)
+            if start is None:
+                continue
             for part in _table_chunks(members.size, s.w.shape[1]):
-                estimate[live[members[part]]] = _conditional_mle(
+                odds[live[members[part]]] = _conditional_mle(
                     s, rows[part], at[part], start[members[part]]
                 )
-    return FisherMany(_frozen(p[inverse].reshape(shape)), _frozen(estimate[inverse].reshape(shape)))
+    return p[inverse].reshape(shape), odds[inverse].reshape(shape)
 
 
 def _frozen(array: np.ndarray) -> np.ndarray:

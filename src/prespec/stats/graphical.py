@@ -68,24 +68,35 @@ def remove_hypothesis(j: int, active: list[int], w: np.ndarray, g: np.ndarray) -
     """Remove rejected hypothesis j: pass its weight on and update the graph, in place.
 
     Bretz et al. 2009, Algorithm 1, step 2: w_l ← w_l + w_j·g_jl and, for l ≠ k,
-    g_lk ← (g_lk + g_lj·g_jk) / (1 − g_lj·g_jl), or 0 when g_lj·g_jl = 1.
+    g_lk ← (g_lk + g_lj·g_jk) / (1 − g_lj·g_jl), or 0 when g_lj·g_jl = 1. The one-graph case
+    of :func:`_pass_on_many`.
     """
     active.remove(j)
-    new_g = np.zeros_like(g)
-    for h in active:
-        w[h] += w[j] * g[j, h]
-        loop = g[h, j] * g[j, h]
-        if loop < 1.0:
-            for k in active:
-                if k != h:
-                    new_g[h, k] = (g[h, k] + g[h, j] * g[j, k]) / (1.0 - loop)
-    w[j] = 0.0
-    g[:, :] = new_g
+    left = np.zeros((1, w.size), dtype=bool)
+    left[0, active] = True
+    new_w, new_g = _pass_on_many(w[None, :], g[None, :, :], left, np.array([j]))
+    w[:] = new_w[0]
+    g[:, :] = new_g[0]
 
 
-def _ratio(p: float, w: float) -> float:
-    """p / w, infinite when the weight is 0 (a hypothesis at level 0 cannot be rejected)."""
-    return p / w if w > 0.0 else math.inf
+def _pass_on_many(w: np.ndarray, g: np.ndarray, active: np.ndarray, j: np.ndarray
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Remove hypothesis j[r] from graph r of each row (weights T × m, transitions T × m × m,
+    ``active`` the hypotheses left once j is removed): the new weights and transitions."""
+    rows = np.arange(w.shape[0])
+    m = w.shape[1]
+    g_out = g[rows, j, :]  # g[j, h]
+    g_in = g[rows, :, j]  # g[h, j]
+    w_j = w[rows, j]
+    w = np.where(active, w + w_j[:, None] * g_out, w)
+    loop = g_in * g_out
+    with np.errstate(divide="ignore", invalid="ignore"):
+        new_g = (g + g_in[:, :, None] * g_out[:, None, :]) / (1.0 - loop)[:, :, None]
+    keep = active[:, :, None] & active[:, None, :] & (loop < 1.0)[:, :, None]
+    keep &= ~np.eye(m, dtype=bool)[None, :, :]
+    w = w.copy()
+    w[rows, j] = 0.0
+    return w, np.where(keep, new_g, 0.0)
 
 
 def graphical_adjust(
@@ -100,7 +111,7 @@ def graphical_adjust(
     <= alpha (see :func:`graphical_rejections`). A hypothesis whose weight stays 0 gets 1.
     Weights must lie in [0, 1] and sum to at most 1; the transition matrix must be m × m with
     entries in [0, 1], a zero diagonal and rows summing to at most 1 (each sum within 1e-12).
-    Empty input gives [].
+    Empty input gives []. The one-row case of :func:`graphical_adjust_many`.
 
     References
     ----------
@@ -111,14 +122,38 @@ def graphical_adjust(
     Statistics 1979;6:65–70.
     """
     p, w, g = build_graph(p_values, weights, transitions)
-    active = list(range(p.size))
-    adjusted = [1.0] * p.size
-    previous = 0.0
-    while active:
-        j = min(active, key=lambda i: _ratio(float(p[i]), float(w[i])))  # the first of equals
-        previous = min(1.0, max(_ratio(float(p[j]), float(w[j])), previous))
-        adjusted[j] = previous
-        remove_hypothesis(j, active, w, g)
+    return [float(v) for v in graphical_adjust_many(p[None, :], w, g)[0]]
+
+
+def graphical_adjust_many(p: np.ndarray, weights: Sequence[float] | np.ndarray,
+                          transitions: Sequence[Sequence[float]] | np.ndarray) -> np.ndarray:
+    """:func:`graphical_adjust` on each row of an array of p-values (one family per row, as
+    the design simulation draws them), the graph shared by every row.
+
+    m steps, each taking in every row the hypothesis with the smallest p/w among those left
+    (the first of equals; the first left when all of them have weight 0), then passing its
+    weight on along the graph (:func:`_pass_on_many`, as :func:`remove_hypothesis`). The weights and transitions
+    are not validated here (:func:`build_graph` does it for :func:`graphical_adjust`).
+    """
+    p = np.asarray(p, dtype=float)
+    t, m = p.shape
+    w = np.tile(np.asarray(weights, dtype=float), (t, 1))
+    g = np.tile(np.asarray(transitions, dtype=float).reshape(1, m, m), (t, 1, 1))
+    active = np.ones((t, m), dtype=bool)
+    adjusted = np.ones((t, m))
+    previous = np.zeros(t)
+    rows = np.arange(t)
+    for _ in range(m):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            ratio = np.where(w > 0.0, p / w, np.inf)  # weight 0: never rejected
+        ratio = np.where(active, ratio, np.inf)
+        j = np.argmin(ratio, axis=1)
+        # every hypothesis left has weight 0: take the first left (not one already taken)
+        j = np.where(np.isinf(ratio[rows, j]), np.argmax(active, axis=1), j)
+        previous = np.minimum(1.0, np.maximum(ratio[rows, j], previous))
+        adjusted[rows, j] = previous
+        active[rows, j] = False
+        w, g = _pass_on_many(w, g, active, j)
     return adjusted
 
 

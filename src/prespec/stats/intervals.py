@@ -228,6 +228,77 @@ def _polish(x1: int, n1: int, x2: int, n2: int, delta: float, p2: float) -> floa
     return p2
 
 
+def difference_mle_many(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int,
+                        delta: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`difference_mle` on arrays of events (x1, x2 broadcast; n1, n2 and delta fixed):
+    the closed-form cubic root of Farrington and Manning (1990) and Newton steps against
+    rounding, the same arithmetic as the scalar (its array twin; a test holds them together).
+    """
+    if delta <= -1.0 or delta >= 1.0:
+        shape = np.broadcast(x1, x2).shape
+        return np.full(shape, 0.0 if delta <= -1.0 else 1.0), \
+            np.full(shape, 1.0 if delta <= -1.0 else 0.0)
+    p1, p2 = x1 / n1, x2 / n2
+    theta = n2 / n1
+    a = 1.0 + theta
+    b = -(1.0 + theta + p1 + theta * p2 + delta * (theta + 2.0))
+    c = delta * delta + delta * (2.0 * p1 + theta + 1.0) + p1 + theta * p2
+    d = -p1 * delta * (1.0 + delta)
+    shift = b / (3.0 * a)
+    v = shift**3 - b * c / (6.0 * a * a) + d / (2.0 * a)
+    u = np.copysign(np.sqrt(np.maximum(0.0, shift * shift - c / (3.0 * a))), v)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cosine = np.clip(v / u**3, -1.0, 1.0)
+        root = np.where(u == 0.0, -shift,
+                        2.0 * u * np.cos((math.pi + np.arccos(cosine)) / 3.0) - shift)
+    root = np.minimum(min(1.0, 1.0 + delta), np.maximum(max(0.0, delta), root))
+    t2 = _polish_many(x1, n1, x2, n2, delta, np.clip(root - delta, 0.0, 1.0))
+    return np.clip(t2 + delta, 0.0, 1.0), t2
+
+
+def _log_likelihood_many(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, p1: np.ndarray,
+                         p2: np.ndarray) -> np.ndarray:
+    total = np.zeros(np.broadcast(x1, x2, p1).shape)
+    for count, p in ((x1, p1), (n1 - x1, 1.0 - p1), (x2, p2), (n2 - x2, 1.0 - p2)):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            term = np.where(p > 0.0, count * np.log(np.where(p > 0.0, p, 1.0)), -np.inf)
+        total = total + np.where(count > 0, term, 0.0)
+    return total
+
+
+def _polish_many(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, delta: float,
+                 p2: np.ndarray) -> np.ndarray:
+    """Up to four Newton steps on the log-likelihood in p2, each kept only while the
+    likelihood does not fall (:func:`_polish`, on arrays)."""
+    low, high = max(0.0, -delta), min(1.0, 1.0 - delta)
+    best = _log_likelihood_many(x1, n1, x2, n2, p2 + delta, p2)
+    active = np.ones(best.shape, dtype=bool)
+    x1, x2 = np.broadcast_to(x1, best.shape), np.broadcast_to(x2, best.shape)
+    for _ in range(4):
+        p1 = p2 + delta
+        terms = ((x1, p1, 1.0), (n1 - x1, 1.0 - p1, -1.0), (x2, p2, 1.0),
+                 (n2 - x2, 1.0 - p2, -1.0))
+        blocked = np.zeros(best.shape, dtype=bool)
+        gradient = np.zeros(best.shape)
+        curvature = np.zeros(best.shape)
+        for count, p, sign in terms:
+            blocked |= (count > 0) & (p <= 0.0)
+            safe = np.where(p > 0.0, p, 1.0)
+            gradient = gradient + np.where(count > 0, sign * count / safe, 0.0)
+            curvature = curvature - np.where(count > 0, count / (safe * safe), 0.0)
+        active &= ~blocked & (gradient != 0.0) & (curvature != 0.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = np.clip(p2 - gradient / np.where(curvature != 0.0, curvature, 1.0),
+                           low, high)
+        value = _log_likelihood_many(x1, n1, x2, n2, step + delta, step)
+        active &= (step != p2) & ~(value < best)
+        if not active.any():
+            break
+        p2 = np.where(active, step, p2)
+        best = np.where(active, value, best)
+    return p2
+
+
 def _mn_difference_share(x1: int, n1: int, x2: int, n2: int, delta: float) -> float:
     """Z/sqrt(1 + Z²) for the Miettinen–Nurminen score statistic Z at p1 − p2 = delta.
 

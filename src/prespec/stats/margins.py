@@ -1,5 +1,8 @@
 """Tests against a margin: non-inferiority (one-sided) and equivalence (two one-sided tests).
 
+Each scalar test has its array twin beside it (``*_many``: events as arrays, for the
+tipping-point grid and the design simulation), the same arithmetic, held together by a test.
+
 The null hypothesis is p1 − p2 = margin (measure ``risk-difference``) or p1/p2 = margin
 (``risk-ratio``). ``greater`` means H1: p1 − p2 > margin (or p1/p2 > margin), ``less`` the
 reverse, ``two-sided`` either. Odds-ratio margins are not supported.
@@ -8,11 +11,14 @@ reverse, ``two-sided`` either. Odds-ratio margins are not supported.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
+
+import numpy as np
 
 from prespec.stats import _checks
-from prespec.stats._normal import normal_p_value
-from prespec.stats.intervals import difference_constrained_mle
-from prespec.stats.ratios import ratio_constrained_mle
+from prespec.stats._normal import normal_p_value, normal_p_values
+from prespec.stats.intervals import difference_constrained_mle, difference_mle_many
+from prespec.stats.ratios import ratio_constrained_mle, ratio_mle_many
 from prespec.stats.results import TestResult
 
 MEASURES: tuple[str, ...] = ("risk-difference", "risk-ratio")
@@ -145,3 +151,59 @@ def tost(lower: TestResult, upper: TestResult) -> TestResult:
     p_values = (lower.p_value, upper.p_value)
     p = math.nan if any(math.isnan(v) for v in p_values) else max(p_values)
     return TestResult(lower.method, None, None, p, "two-sided")
+
+
+# --- the array twins: x1, x2 broadcastable integer arrays, n1, n2 fixed totals -------------
+
+#: An array z statistic at a margin: (x1, n1, x2, n2, margin, measure) -> z.
+MarginStatistic = Callable[[np.ndarray, int, np.ndarray, int, float, str], np.ndarray]
+
+
+def _z_many(numerator: np.ndarray, variance: np.ndarray) -> np.ndarray:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(variance > 0.0, numerator / np.sqrt(variance), np.nan)
+
+
+def farrington_manning_z_many(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, margin: float,
+                              measure: str) -> np.ndarray:
+    """The z of :func:`farrington_manning` on arrays of tables (not validated)."""
+    x1, x2 = np.asarray(x1), np.asarray(x2)
+    if measure == "risk-difference":
+        t1, t2 = difference_mle_many(x1, n1, x2, n2, margin)
+        numerator = (x1 * n2 - x2 * n1) / (n1 * n2) - margin
+        variance = t1 * (1.0 - t1) / n1 + t2 * (1.0 - t2) / n2
+    else:
+        t1, t2 = ratio_mle_many(x1, n1, x2, n2, margin)
+        numerator = (x1 * n2 - margin * x2 * n1) / (n1 * n2)
+        variance = t1 * (1.0 - t1) / n1 + margin * margin * t2 * (1.0 - t2) / n2
+    return _z_many(numerator, variance)
+
+
+def wald_margin_z_many(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, margin: float,
+                       measure: str) -> np.ndarray:
+    """The z of :func:`wald_margin_z` on arrays of tables (not validated)."""
+    x1, x2 = np.asarray(x1), np.asarray(x2)
+    if measure == "risk-difference":
+        p1, p2 = x1 / n1, x2 / n2
+        numerator = (x1 * n2 - x2 * n1) / (n1 * n2) - margin
+        return _z_many(numerator, p1 * (1.0 - p1) / n1 + p2 * (1.0 - p2) / n2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_ratio = np.log(x1) - math.log(n1) - np.log(x2) + math.log(n2)
+        variance = 1.0 / x1 - 1.0 / n1 + 1.0 / x2 - 1.0 / n2
+    z = _z_many(log_ratio - math.log(margin), variance)
+    return np.where((x1 == 0) | (x2 == 0), np.nan, z)
+
+
+def margin_p_values(statistic: MarginStatistic, x1: np.ndarray, n1: int, x2: np.ndarray,
+                    n2: int, *, comparison: str, margin: float | tuple[float, float],
+                    measure: str, alternative: str) -> np.ndarray:
+    """P-values of a test at the margin on arrays of tables: one-sided for non-inferiority
+    (``alternative``), and for equivalence (margin (low, high)) the two one-sided tests of
+    :func:`tost`, the larger p-value (nan if either is)."""
+    if comparison == "equivalence":
+        low, high = margin  # type: ignore[misc]
+        lower = normal_p_values(statistic(x1, n1, x2, n2, low, measure), "greater")
+        upper = normal_p_values(statistic(x1, n1, x2, n2, high, measure), "less")
+        return np.maximum(lower, upper)  # nan if either is nan
+    z = statistic(x1, n1, x2, n2, margin, measure)  # type: ignore[arg-type]
+    return normal_p_values(z, alternative)

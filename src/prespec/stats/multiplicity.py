@@ -2,7 +2,9 @@
 
 :func:`adjust` returns adjusted p-values in input order, capped at 1: hypothesis i is
 rejected at family-wise level alpha (or, for the two false-discovery-rate methods, at FDR
-level alpha) exactly when its adjusted p-value is <= alpha.
+level alpha) exactly when its adjusted p-value is <= alpha. Each method is written once, on
+an array of families (one per row: :func:`adjust_many`, used by the design simulation for its
+simulated trials); :func:`adjust` is its one-row case.
 """
 
 from __future__ import annotations
@@ -13,6 +15,7 @@ from numbers import Real
 
 import numpy as np
 
+#: An adjustment on an array of families: one row per family, one column per hypothesis.
 Adjuster = Callable[[np.ndarray], np.ndarray]
 
 
@@ -21,28 +24,40 @@ def _none(p: np.ndarray) -> np.ndarray:
 
 
 def _bonferroni(p: np.ndarray) -> np.ndarray:
-    return p * p.size
+    return p * p.shape[1]
 
 
 def _sidak(p: np.ndarray) -> np.ndarray:
     # 1 - (1 - p)^m, written so that small p keep their precision; p = 1 gives log 0 = -inf
     # and so exactly 1, which is right, hence the silenced warning
     with np.errstate(divide="ignore"):
-        return -np.expm1(p.size * np.log1p(-p))
+        return -np.expm1(p.shape[1] * np.log1p(-p))
+
+
+def _sorted(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The stable ascending order of each row, and the rows sorted by it."""
+    order = np.argsort(p, axis=1, kind="stable")
+    return order, np.take_along_axis(p, order, axis=1)
+
+
+def _unsort(sorted_values: np.ndarray, order: np.ndarray) -> np.ndarray:
+    result = np.empty_like(sorted_values)
+    np.put_along_axis(result, order, sorted_values, axis=1)
+    return result
 
 
 def _holm(p: np.ndarray) -> np.ndarray:
-    order = np.argsort(p, kind="stable")
-    m = p.size
-    stepped = np.maximum.accumulate((m - np.arange(m)) * p[order])
+    order, s = _sorted(p)
+    m = p.shape[1]
+    stepped = np.maximum.accumulate((m - np.arange(m)) * s, axis=1)
     return _unsort(np.minimum(stepped, 1.0), order)
 
 
 def _hochberg(p: np.ndarray) -> np.ndarray:
-    order = np.argsort(p, kind="stable")
-    m = p.size
-    scaled = (m - np.arange(m)) * p[order]
-    stepped = np.minimum.accumulate(scaled[::-1])[::-1]
+    order, s = _sorted(p)
+    m = p.shape[1]
+    scaled = (m - np.arange(m)) * s
+    stepped = np.minimum.accumulate(scaled[:, ::-1], axis=1)[:, ::-1]
     return _unsort(stepped, order)
 
 
@@ -50,23 +65,23 @@ def _hommel(p: np.ndarray) -> np.ndarray:
     # Wright (1992): for each subset size j, the smallest Simes-type value among the j largest
     # p-values bounds the adjusted p of those j hypotheses from below, and of each of the
     # others through min(j * p_i, that value).
-    order = np.argsort(p, kind="stable")
-    s = p[order]
-    m = s.size
+    order, s = _sorted(p)
+    m = p.shape[1]
     adjusted = s.copy()
     for j in range(m, 1, -1):
-        largest = s[m - j :]
-        simes = float(np.min(j * largest / np.arange(1, j + 1)))
-        adjusted[m - j :] = np.maximum(adjusted[m - j :], simes)
-        adjusted[: m - j] = np.maximum(adjusted[: m - j], np.minimum(j * s[: m - j], simes))
+        largest = s[:, m - j :]
+        simes = np.min(j * largest / np.arange(1, j + 1), axis=1)[:, None]
+        adjusted[:, m - j :] = np.maximum(adjusted[:, m - j :], simes)
+        adjusted[:, : m - j] = np.maximum(adjusted[:, : m - j],
+                                          np.minimum(j * s[:, : m - j], simes))
     return _unsort(adjusted, order)
 
 
 def _step_up_fdr(p: np.ndarray, factor: float) -> np.ndarray:
-    order = np.argsort(p, kind="stable")
-    m = p.size
-    scaled = factor * m * p[order] / np.arange(1, m + 1)
-    stepped = np.minimum.accumulate(scaled[::-1])[::-1]
+    order, s = _sorted(p)
+    m = p.shape[1]
+    scaled = factor * m * s / np.arange(1, m + 1)
+    stepped = np.minimum.accumulate(scaled[:, ::-1], axis=1)[:, ::-1]
     return _unsort(stepped, order)
 
 
@@ -75,20 +90,14 @@ def _benjamini_hochberg(p: np.ndarray) -> np.ndarray:
 
 
 def _benjamini_yekutieli(p: np.ndarray) -> np.ndarray:
-    return _step_up_fdr(p, float(np.sum(1.0 / np.arange(1, p.size + 1))))
+    return _step_up_fdr(p, float(np.sum(1.0 / np.arange(1, p.shape[1] + 1))))
 
 
 def _fixed_sequence(p: np.ndarray) -> np.ndarray:
     # Hypotheses are tested in the given order at the full alpha, stopping at the first that
     # is not rejected; the adjusted p-value is the running maximum in that order (Maurer,
     # Hothorn and Lehmacher 1995; Westfall and Krishen, J Stat Plan Inference 2001).
-    return np.maximum.accumulate(p)
-
-
-def _unsort(sorted_values: np.ndarray, order: np.ndarray) -> np.ndarray:
-    result = np.empty_like(sorted_values)
-    result[order] = sorted_values
-    return result
+    return np.maximum.accumulate(p, axis=1)
 
 
 _ADJUSTERS: dict[str, Adjuster] = {
@@ -146,5 +155,19 @@ def adjust(p_values: Sequence[float], method: str) -> list[float]:
             raise ValueError(f"p_values[{i}] must be in [0, 1], got {value!r}")
     if not values:
         return []
-    adjusted = _ADJUSTERS[method](np.asarray(values, dtype=float))
-    return [float(v) for v in np.minimum(adjusted, 1.0)]
+    return [float(v) for v in adjust_many(np.asarray([values], dtype=float), method)[0]]
+
+
+def adjust_many(p: np.ndarray, method: str) -> np.ndarray:
+    """:func:`adjust` on each row of an array (one family per row, the hypotheses in columns,
+    in plan order), capped at 1: the array kernel of which :func:`adjust` is the one-row case.
+
+    The p-values are not validated (the caller's are p-values by construction; a nan stays
+    nan). Raises ValueError for an unknown method.
+    """
+    if method not in _ADJUSTERS:
+        raise ValueError(f"{method!r} is not a known adjustment method")
+    p = np.asarray(p, dtype=float)
+    if p.shape[1] == 0:
+        return p.copy()
+    return np.minimum(_ADJUSTERS[method](p), 1.0)

@@ -3,22 +3,24 @@
 Every function takes counts (events and group totals), validates them, and returns a
 :class:`~prespec.stats.results.TestResult`. One-sided alternatives refer to the first group's
 proportion: ``greater`` means p1 > p2, ``less`` means p1 < p2.
+
+Each test is written once, on arrays of tables (``*_many``: one table per row, every table with
+the same group totals, as the design simulation and the tipping-point grid hold them); the
+scalar function validates one table and is the one-row case. Fisher's exact test is
+:func:`prespec.stats.fisherarray.fisher_p_values`.
 """
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from prespec.stats import _checks
-from prespec.stats._normal import normal_p_value
+from prespec.stats._normal import chi_square_p_values, normal_p_values
+from prespec.stats.fisherarray import fisher_p_values
 from prespec.stats.results import TestResult
-from prespec.stats.tables import expected_counts
-from prespec.stats.tails import hypergeometric_tail
 
 #: Relative tolerance for tables as probable as the observed one in the two-sided Fisher test.
 FISHER_TIE_TOLERANCE = 1e-7
@@ -57,23 +59,49 @@ def pearson_chi_square(
         raise ValueError(f"the continuity correction applies to 2 groups only, got {k}")
     if alt != "two-sided" and k != 2:
         raise ValueError(f"a one-sided alternative needs exactly 2 groups, got {k}")
-    df = k - 1
-    method = "pearson-chi-square"
-    expected = expected_counts(ev, tot)
-    if np.any(expected == 0.0):
-        return TestResult(method, math.nan, df, math.nan, alt)
-    observed = np.column_stack([np.asarray(ev, float), np.asarray(tot, float) - ev])
-    deviation = np.abs(observed - expected)
+    x2, p = pearson_many(np.asarray([ev]), np.asarray(tot), continuity=continuity,
+                         alternative=alt)
+    return TestResult("pearson-chi-square", float(x2[0]), k - 1, float(p[0]), alt)
+
+
+def _exact_integers(totals: np.ndarray) -> type:
+    """The dtype in which products of counts of these totals are exact: int64 while the grand
+    total is below 2^31, Python integers beyond."""
+    return np.int64 if int(np.sum(totals)) < 2**31 else object
+
+
+def pearson_many(events: np.ndarray, totals: np.ndarray, *, continuity: bool,
+                 alternative: str) -> tuple[np.ndarray, np.ndarray]:
+    """(X², p) of :func:`pearson_chi_square` for each table: ``events`` T × k, ``totals`` k.
+
+    Expected counts are row × column / grand total, the statistic sums (|O − E| − 0.5·Yates)²/E
+    over the 2k cells; both are ``nan`` where an expected count is 0. A one-sided alternative
+    (k = 2) refers sign(p1 − p2)·sqrt(X²) to the standard normal. Not validated.
+    """
+    events = np.asarray(events)
+    totals = np.asarray(totals)
+    rows = totals.astype(float)
+    grand = float(totals.sum())
+    column_events = events.sum(axis=1).astype(float)
+    column_other = grand - column_events
+    e_ev = rows[None, :] * column_events[:, None] / grand
+    e_non = rows[None, :] * column_other[:, None] / grand
+    d_ev = np.abs(events.astype(float) - e_ev)
+    d_non = np.abs((totals[None, :] - events).astype(float) - e_non)
     if continuity:
-        deviation = np.maximum(deviation - 0.5, 0.0)
-    x2 = float(np.sum(deviation**2 / expected))
-    if alt == "two-sided":
-        p = float(stats.chi2.sf(x2, df))
-    else:
-        # sign of p1 - p2, exactly, from the integer cross product
-        sign = float(np.sign(ev[0] * tot[1] - ev[1] * tot[0]))
-        p = normal_p_value(sign * math.sqrt(x2), alt)
-    return TestResult(method, x2, df, p, alt)
+        d_ev, d_non = np.maximum(d_ev - 0.5, 0.0), np.maximum(d_non - 0.5, 0.0)
+    undefined = (e_ev == 0.0).any(axis=1) | (e_non == 0.0).any(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        terms = np.stack([d_ev**2 / e_ev, d_non**2 / e_non], axis=2)
+    x2 = np.where(undefined, np.nan, terms.reshape(terms.shape[0], -1).sum(axis=1))
+    if alternative == "two-sided":
+        return x2, chi_square_p_values(x2, totals.size - 1)
+    # the sign of p1 − p2, exactly, from the integer cross product
+    exact = _exact_integers(totals)
+    first, second = events[:, 0].astype(exact), events[:, 1].astype(exact)
+    cross = first * int(totals[1]) - second * int(totals[0])
+    sign = np.sign(cross.astype(float))
+    return x2, normal_p_values(sign * np.sqrt(x2), alternative)
 
 
 def two_proportion_z(
@@ -94,13 +122,22 @@ def two_proportion_z(
     x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
     x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
     alt = _checks.alternative(alternative)
-    method = "two-proportion-z"
+    z, p = two_proportion_z_many(np.asarray([[x1, x2]]), np.asarray([n1, n2]), alt)
+    return TestResult("two-proportion-z", float(z[0]), None, float(p[0]), alt)
+
+
+def two_proportion_z_many(events: np.ndarray, totals: np.ndarray,
+                          alternative: str) -> tuple[np.ndarray, np.ndarray]:
+    """(z, p) of :func:`two_proportion_z` for each table: ``events`` T × 2, ``totals`` 2;
+    ``nan`` where the pooled standard error is 0. Not validated."""
+    events = np.asarray(events)
+    x1, x2 = events[:, 0].astype(float), events[:, 1].astype(float)
+    n1, n2 = float(totals[0]), float(totals[1])
     pooled = (x1 + x2) / (n1 + n2)
     variance = pooled * (1.0 - pooled) * (1.0 / n1 + 1.0 / n2)
-    if variance <= 0.0:
-        return TestResult(method, math.nan, None, math.nan, alt)
-    z = (x1 / n1 - x2 / n2) / math.sqrt(variance)
-    return TestResult(method, z, None, normal_p_value(z, alt), alt)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(variance > 0.0, (x1 / n1 - x2 / n2) / np.sqrt(variance), np.nan)
+    return z, normal_p_values(z, alternative)
 
 
 def fisher_exact(
@@ -125,38 +162,9 @@ def fisher_exact(
     x1, n1 = _checks.events_of_total("x1", x1, "n1", n1)
     x2, n2 = _checks.events_of_total("x2", x2, "n2", n2)
     alt = _checks.alternative(alternative)
-    method = "fisher-exact"
-    population, events = n1 + n2, x1 + x2
-    law = stats.hypergeom(population, events, n1)
-    if alt == "greater":
-        p = hypergeometric_tail(x1, population, events, n1, upper=True)
-    elif alt == "less":
-        p = hypergeometric_tail(x1, population, events, n1, upper=False)
-    else:
-        p = _fisher_two_sided(x1, law, max(0, events - n2), min(events, n1))
-    return TestResult(method, None, None, min(1.0, p), alt)
-
-
-def _fisher_two_sided(x1: int, law: stats.rv_discrete, low: int, high: int) -> float:
-    """Sum of the probabilities of tables no more probable than x1, over support [low, high]."""
-    support = np.arange(low, high + 1)
-    log_p = law.logpmf(support)
-    limit = log_p[x1 - low] + math.log1p(FISHER_TIE_TOLERANCE)
-    counted = log_p <= limit
-    mode = int(np.argmax(log_p))
-    if counted[mode]:
-        return 1.0  # the observed table is as probable as the most probable one
-    # The hypergeometric law is unimodal, so the counted tables are the two tails.
-    below = np.flatnonzero(counted[:mode])
-    above = np.flatnonzero(counted[mode + 1 :])
-    population, events, drawn = (int(v) for v in law.args)
-    p = 0.0
-    if below.size:
-        p += hypergeometric_tail(int(support[below[-1]]), population, events, drawn, upper=False)
-    if above.size:
-        p += hypergeometric_tail(int(support[mode + 1 + above[0]]), population, events, drawn,
-                                 upper=True)
-    return p
+    p = fisher_p_values(x1, n1 - x1, x2, n2 - x2, alternative=alt,
+                        tie_tolerance=FISHER_TIE_TOLERANCE)
+    return TestResult("fisher-exact", None, None, float(p), alt)
 
 
 def deviance_terms(observed: Any, row: Any, column: Any, total: Any) -> np.ndarray:
@@ -205,14 +213,25 @@ def likelihood_ratio(
     alt = _checks.alternative(alternative)
     if alt != "two-sided":
         raise ValueError(f"the likelihood-ratio test is two-sided only, got {alt!r}")
-    df = len(ev) - 1
-    method = "likelihood-ratio"
-    expected = expected_counts(ev, tot)
-    if np.any(expected == 0.0):
-        return TestResult(method, math.nan, df, math.nan, alt)
-    events_total, grand = sum(ev), sum(tot)
-    rows = [[t, t] for t in tot]
-    observed = [[e, t - e] for e, t in zip(ev, tot, strict=True)]
-    columns = [[events_total, grand - events_total]] * len(ev)
-    g2 = math.fsum(deviance_terms(observed, rows, columns, grand).ravel())
-    return TestResult(method, g2, df, float(stats.chi2.sf(g2, df)), alt)
+    g2, p = likelihood_ratio_many(np.asarray([ev]), np.asarray(tot))
+    return TestResult("likelihood-ratio", float(g2[0]), len(ev) - 1, float(p[0]), alt)
+
+
+def likelihood_ratio_many(events: np.ndarray, totals: np.ndarray
+                          ) -> tuple[np.ndarray, np.ndarray]:
+    """(G², p) of :func:`likelihood_ratio` for each table: ``events`` T × k, ``totals`` k,
+    the cells' shares summed as the non-negative :func:`deviance_terms`; ``nan`` at a zero
+    column margin. Not validated."""
+    exact = _exact_integers(totals)
+    events = np.asarray(events).astype(exact)
+    totals = np.asarray(totals).astype(exact)
+    grand = int(totals.sum())
+    column = events.sum(axis=1)[:, None]
+    undefined = np.asarray((column[:, 0] == 0) | (column[:, 0] == grand), dtype=bool)
+    safe = np.where(undefined[:, None], 1, column)  # a margin of 0 or all: any valid value
+    with np.errstate(divide="ignore", invalid="ignore"):
+        terms = (deviance_terms(events, totals[None, :], safe, grand)
+                 + deviance_terms(totals[None, :] - events, totals[None, :], grand - safe,
+                                  grand))
+    g2 = np.where(undefined, np.nan, terms.sum(axis=1).astype(float))
+    return g2, chi_square_p_values(g2, totals.size - 1)

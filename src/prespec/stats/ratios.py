@@ -170,6 +170,19 @@ def ratio_discriminant(x1: Any, n1: Any, x2: Any, n2: Any, ratio: float) -> Any:
     return spread * spread + 4.0 * ratio * (n1 - x1) * (n2 - x2)
 
 
+def ratio_mle_many(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int,
+                   ratio: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`ratio_mle` on arrays of events (x1, x2 broadcast; n1, n2 and ratio fixed): the
+    quadratic's smaller root with the discriminant of :func:`ratio_discriminant` (a sum that
+    does not cancel); the scalar's array twin, held to it by a test."""
+    b = -(n1 * ratio + x1 + n2 + x2 * ratio)
+    c = (x1 + x2).astype(float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        root = 2.0 * c / (-b + np.sqrt(ratio_discriminant(x1, n1, x2, n2, ratio)))
+    p2 = np.minimum(np.minimum(1.0, root), math.inf if ratio == 0.0 else 1.0 / ratio)
+    return np.minimum(1.0, ratio * p2), p2
+
+
 def _odds_ratio_mle(x1: int, n1: int, x2: int, n2: int, odds_ratio: float) -> tuple[float, float]:
     """Maximum likelihood estimates (p̃1, p̃2) of two proportions with odds ratio ψ; see
     ``odds_ratio_cells``."""

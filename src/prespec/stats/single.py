@@ -15,7 +15,7 @@ import numpy as np
 from scipy import stats
 
 from prespec.stats import _checks
-from prespec.stats._normal import normal_p_value
+from prespec.stats._normal import normal_p_values
 from prespec.stats.results import Estimate, TestResult
 from prespec.stats.tails import binomial_tail
 
@@ -62,6 +62,34 @@ def binomial_exact(x: int, n: int, null_rate: float, *, alternative: str) -> Tes
     return TestResult("binomial-exact", None, None, min(1.0, p), alt)
 
 
+def binomial_exact_all(n: int, null_rate: float, alternative: str) -> np.ndarray:
+    """The p-value of :func:`binomial_exact` for every outcome x = 0, …, n at once (the
+    exact power of the design sums over them): the tails by scipy.stats.binom.sf and .cdf, and
+    for two-sided each outcome's sum of the point probabilities no more probable than its own
+    (within the same relative 1e-7, from the same scipy.stats.binom.pmf), 1 at x = n·p0. The
+    scalar's array twin, held to it by a test (the scalar sums its tails to full relative
+    precision far into them; here the tails are scipy's). Not validated.
+
+    References
+    ----------
+    Clopper CJ, Pearson ES. Biometrika 1934;26:404–413.
+    Agresti A. Categorical Data Analysis, 3rd ed. Wiley, 2013, chapter 1.
+    """
+    x = np.arange(n + 1)
+    if alternative == "greater":
+        p = stats.binom.sf(x - 1, n, null_rate)
+    elif alternative == "less":
+        p = stats.binom.cdf(x, n, null_rate)
+    else:
+        prob = stats.binom.pmf(x, n, null_rate)
+        order = np.sort(prob)
+        cumulative = np.cumsum(order)
+        at = np.searchsorted(order, prob * (1.0 + BINOMIAL_TIE_TOLERANCE), side="right") - 1
+        p = cumulative[at]
+        p[np.isclose(x, n * null_rate, rtol=0, atol=0)] = 1.0
+    return np.minimum(1.0, p)
+
+
 def _binomial_two_sided(x: int, n: int, rate: float, law: stats.rv_discrete) -> float:
     """Method of small p-values: the observed tail plus the far outcomes no more probable."""
     mean = n * rate
@@ -96,9 +124,16 @@ def one_proportion_z(x: int, n: int, null_rate: float, *, alternative: str) -> T
     x, n = _checks.events_of_total("x", x, "n", n)
     rate = _null_rate(null_rate)
     alt = _checks.alternative(alternative)
-    z = (x / n - rate) / math.sqrt(rate * (1.0 - rate) / n)
-    p = normal_p_value(z, alt)
-    return TestResult("one-proportion-z", z, None, p, alt)
+    z, p = one_proportion_z_many(np.asarray([x]), n, rate, alt)
+    return TestResult("one-proportion-z", float(z[0]), None, float(p[0]), alt)
+
+
+def one_proportion_z_many(x: np.ndarray, n: int, null_rate: float,
+                          alternative: str) -> tuple[np.ndarray, np.ndarray]:
+    """(z, p) of :func:`one_proportion_z` for each number of events in ``x`` (of ``n``); the
+    scalar is its one-element case. Not validated."""
+    z = (np.asarray(x) / n - null_rate) / np.sqrt(null_rate * (1.0 - null_rate) / n)
+    return z, normal_p_values(z, alternative)
 
 
 def _beta_limits(

@@ -27,5 +27,23 @@ def expected_counts(events: Sequence[int], totals: Sequence[int]) -> np.ndarray:
 
 
 def smallest_expected(events: Sequence[int], totals: Sequence[int]) -> float:
-    """The smallest expected count of the k×2 table (see :func:`expected_counts`)."""
-    return float(expected_counts(events, totals).min())
+    """The smallest expected count of the k×2 table (see :func:`expected_counts`): the
+    one-table case of :func:`smallest_expected_many`."""
+    ev, tot = _checks.table(events, totals)
+    return float(smallest_expected_many(np.asarray([ev]), np.asarray(tot))[0])
+
+
+def smallest_expected_many(events: np.ndarray, totals: np.ndarray) -> np.ndarray:
+    """The smallest expected count of each k×2 table: ``events`` holds one table per row
+    (T × k), every table with the group ``totals`` (k).
+
+    The smallest of the cells row × column / grand total is the smallest row total times the
+    smaller column total over the grand total (each product and quotient rounds monotonically,
+    so this is exactly the smallest of the cells of :func:`expected_counts`). Not validated.
+    """
+    events = np.asarray(events)
+    totals = np.asarray(totals)
+    grand = float(totals.sum())
+    column_events = events.sum(axis=1).astype(float)
+    column_other = grand - column_events
+    return float(totals.min()) * np.minimum(column_events, column_other) / grand

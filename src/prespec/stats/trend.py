@@ -9,7 +9,7 @@ from numbers import Real
 import numpy as np
 
 from prespec.stats import _checks
-from prespec.stats._normal import normal_p_value
+from prespec.stats._normal import normal_p_values
 from prespec.stats.results import TestResult
 
 
@@ -63,15 +63,24 @@ def cochran_armitage(
     ev, tot = _checks.table(events, totals)
     alt = _checks.alternative(alternative)
     s = _scores(scores, len(ev))
-    method = "cochran-armitage-trend"
-    x = np.asarray(ev, dtype=float)
-    n = np.asarray(tot, dtype=float)
+    z, p = cochran_armitage_many(np.asarray([ev]), np.asarray(tot), s, alt)
+    return TestResult("cochran-armitage-trend", float(z[0]), None, float(p[0]), alt)
+
+
+def cochran_armitage_many(events: np.ndarray, totals: np.ndarray, scores: np.ndarray,
+                          alternative: str) -> tuple[np.ndarray, np.ndarray]:
+    """(z, p) of :func:`cochran_armitage` for each table: ``events`` T × k, ``totals`` and
+    ``scores`` k; ``nan`` where the variance is 0. Not validated; the scalar is its one-table
+    case."""
+    s = np.asarray(scores, dtype=float)
+    x = np.asarray(events).astype(float)
+    n = np.asarray(totals).astype(float)
     population = float(n.sum())
-    pooled = float(x.sum()) / population
+    pooled = x.sum(axis=1) / population
     spread = float(np.sum(n * s * s) - np.sum(n * s) ** 2 / population)
     variance = pooled * (1.0 - pooled) * spread
-    if variance <= 0.0:
-        return TestResult(method, math.nan, None, math.nan, alt)
-    z = float(np.sum(s * (x - n * pooled))) / math.sqrt(variance)
-    p = normal_p_value(z, alt)
-    return TestResult(method, z, None, p, alt)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(variance > 0.0,
+                     (s[None, :] * (x - n[None, :] * pooled[:, None])).sum(axis=1)
+                     / np.sqrt(variance), np.nan)
+    return z, normal_p_values(z, alternative)
