@@ -26,12 +26,15 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from prespec.stats.graphical import graphical_adjust_many
 from prespec.stats.multiplicity import adjust_many
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 #: The family of the plan's non-exploratory hypotheses, adjusted by its ``multiplicity``.
 MAIN_FAMILY = "main"
@@ -45,7 +48,7 @@ def has_sparse_switch(hyp: Any) -> bool:
     return getattr(hyp, "sparse", None) is not None and getattr(hyp, "kind", None) != "single"
 
 
-def sparse_fires(hyp: Any, smallest: Any) -> np.ndarray:
+def sparse_fires(hyp: Hypothesis, smallest: Any) -> np.ndarray:
     """Where the pre-specified switch applies: the smallest expected count (row total ×
     column total / grand total, one per table) is below ``sparse.min_expected``. A boolean
     array of the shape of ``smallest``; False everywhere for a hypothesis without a switch."""
@@ -55,7 +58,7 @@ def sparse_fires(hyp: Any, smallest: Any) -> np.ndarray:
     return smallest < hyp.sparse.min_expected
 
 
-def test_chosen(hyp: Any, fired: bool) -> str:
+def test_chosen(hyp: Hypothesis, fired: bool) -> str:
     """The test that runs: the switched-to test where the switch fired, else the planned one."""
     return hyp.sparse.test if fired else hyp.test
 
@@ -98,7 +101,7 @@ class Unit:
     parent: str | None = None
 
 
-def family_of(hyp: Any, parent: Any = None) -> str | None:
+def family_of(hyp: Hypothesis, parent: Any = None) -> str | None:
     """The family of a plan hypothesis, or of a follow-up of ``parent``: None when it (or its
     parent) is exploratory."""
     if parent is None:
@@ -133,7 +136,7 @@ def adjusted_p_values(p: np.ndarray, method: Any, ids: Sequence[str]) -> np.ndar
     return graphical_adjust_many(p, weights, transitions)
 
 
-def decide(plan: Any, units: Sequence[Unit], raw: Any) -> Decision:
+def decide(plan: Plan, units: Sequence[Unit], raw: Any) -> Decision:
     """The plan's decisions on raw p-values (rows × units, nan: not computable).
 
     The main family is adjusted by ``plan.multiplicity``; each follow-up family by its parent's

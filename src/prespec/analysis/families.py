@@ -22,7 +22,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
@@ -42,16 +42,19 @@ from prespec.stats.doublefdr import double_fdr
 from prespec.stats.exact import TIE_TOLERANCE
 from prespec.stats.fisherarray import fisher_many
 
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
+
 Progress = Callable[[str, int, int], None]
 
 
-def ordinary_plan(plan: Any) -> Any:
+def ordinary_plan(plan: Plan) -> Any:
     """The plan without its family templates (what the ordinary machinery runs)."""
     return plan.model_copy(update={"hypotheses": [h for h in plan.hypotheses
                                                   if not is_family(h)]})
 
 
-def templates(plan: Any) -> list[Any]:
+def templates(plan: Plan) -> list[Any]:
     """The family templates of the plan, in plan order."""
     return [h for h in plan.hypotheses if is_family(h)]
 
@@ -98,7 +101,7 @@ def _tick(progress: Progress | None, hyp_id: str) -> Callable[[int, int], None] 
     return tick
 
 
-def _member(hyp: Any, level: Level) -> Any:
+def _member(hyp: Hypothesis, level: Level) -> Any:
     """The template as an ordinary hypothesis on one level."""
     return hyp.model_copy(update={"id": member_id(hyp.id, level.value), "over": None,
                                   "within": None, "levels": None, "members": None,
@@ -106,7 +109,7 @@ def _member(hyp: Any, level: Level) -> Any:
                                   "group_level": None})
 
 
-def _empty_member(hyp: Any, plan: Any, level: Level) -> dict[str, Any]:
+def _empty_member(hyp: Hypothesis, plan: Any, level: Level) -> dict[str, Any]:
     return {"id": member_id(hyp.id, level.value), "level": level.value, "group": level.group,
             "table": {"groups": list(hyp.compare), "events": [0, 0], "totals": [0, 0]},
             "estimate": None, "test": hyp.test, "statistic": None, "df": None,
@@ -125,7 +128,7 @@ def _from_entry(entry: dict[str, Any], level: Level) -> dict[str, Any]:
             "rows": len(level.rows)}
 
 
-def members(plan: Any, hyp: Any, data: FamilyData, notes: list[Note], *,
+def members(plan: Any, hyp: Hypothesis, data: FamilyData, notes: list[Note], *,
             use_array: bool = True) -> list[dict[str, Any]]:
     """Every member's table, test and estimate, before the flagging.
 
@@ -144,7 +147,7 @@ def members(plan: Any, hyp: Any, data: FamilyData, notes: list[Note], *,
     return out
 
 
-def _members_array(plan: Any, hyp: Any, data: FamilyData,
+def _members_array(plan: Plan, hyp: Hypothesis, data: FamilyData,
                    notes: list[Note]) -> list[dict[str, Any]]:
     """Fisher's exact test for every member at once, the estimate member by member."""
     import numpy as np
@@ -196,7 +199,7 @@ def bh_threshold(p: list[float], level: float) -> float:
     return max(k, 1) * level / m if m else level
 
 
-def flag(hyp: Any, rows: list[dict[str, Any]], notes: list[Note]) -> dict[str, Any]:
+def flag(hyp: Hypothesis, rows: list[dict[str, Any]], notes: list[Note]) -> dict[str, Any]:
     """Fill ``p_adjusted``, ``p_group`` and ``flagged`` of each member; the family's summary.
 
     A member without a p-value enters the adjustment as 1 (it is never flagged and makes no
@@ -236,7 +239,7 @@ def flag(hyp: Any, rows: list[dict[str, Any]], notes: list[Note]) -> dict[str, A
     return summary
 
 
-def analyse_family(plan: Any, hyp: Any, data: FamilyData, notes: list[Note], *,
+def analyse_family(plan: Plan, hyp: Hypothesis, data: FamilyData, notes: list[Note], *,
                    use_array: bool = True) -> dict[str, Any]:
     """The ``families`` entry of results.json for one template."""
     own: list[Note] = []

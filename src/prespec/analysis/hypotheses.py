@@ -11,7 +11,7 @@ writes the estimand in words and the pre-specified sensitivity analyses of missi
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -22,6 +22,9 @@ from prespec.data import Prepared
 from prespec.plan.followups import follow_ups
 from prespec.stats import tables
 from prespec.stats.results import TestResult
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 
 def finite_or_note(value: float | None, what: str, notes: list[Note]) -> float | None:
@@ -42,11 +45,11 @@ def interval_level(alpha: float, alternative: str, comparison: str) -> float:
     return 1.0 - 2.0 * alpha
 
 
-def _groups_of(hyp: Any, plan: Any) -> list[str]:
+def _groups_of(hyp: Hypothesis, plan: Plan) -> list[str]:
     return list(plan.data.groups) if hyp.kind in ("all", "trend") else list(hyp.compare)
 
 
-def _table(hyp: Any, plan: Any, prepared: Prepared,
+def _table(hyp: Hypothesis, plan: Any, prepared: Prepared,
            source: str | None = None) -> tuple[methods.Table, list[dict] | None]:
     """The hypothesis's count table (its own under an estimand: ``source`` names the
     hypothesis of the plan whose counts it uses, itself unless it is a follow-up)."""
@@ -64,7 +67,7 @@ def _table(hyp: Any, plan: Any, prepared: Prepared,
     return methods.Table(events, totals, strata), shown
 
 
-def _rule(hyp: Any, table: methods.Table) -> dict[str, Any] | None:
+def _rule(hyp: Hypothesis, table: methods.Table) -> dict[str, Any] | None:
     """The ``rule`` of an entry: the sparse switch where it fired (``decision``), else None."""
     if not decision.has_sparse_switch(hyp):
         return None
@@ -80,7 +83,7 @@ def _rule(hyp: Any, table: methods.Table) -> dict[str, Any] | None:
     }
 
 
-def _margin_check(hyp: Any, est: dict[str, Any] | None, decided: bool | None
+def _margin_check(hyp: Hypothesis, est: dict[str, Any] | None, decided: bool | None
                   ) -> dict[str, Any] | None:
     """Whether the interval excludes the margin on the side of benefit, and agrees with the test."""
     if hyp.comparison == "superiority" or est is None or None in est["ci"]:
@@ -99,7 +102,7 @@ def _margin_check(hyp: Any, est: dict[str, Any] | None, decided: bool | None
     }
 
 
-def _blank_entry(hyp: Any, plan: Any, groups: list[str], table: methods.Table) -> dict[str, Any]:
+def _blank_entry(hyp: Hypothesis, plan: Any, groups: list[str], table: methods.Table) -> dict[str, Any]:
     scores = hyp.scores
     if hyp.kind == "trend" and scores is None:
         scores = list(range(len(groups)))
@@ -147,7 +150,7 @@ def _test_json(result: TestResult, what: str, notes: list[Note]) -> dict[str, An
             "p_value": finite_or_note(result.p_value, f"{what} p-value", notes)}
 
 
-def compute_hypothesis(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note], *,
+def compute_hypothesis(hyp: Hypothesis, plan: Any, prepared: Prepared, notes: list[Note], *,
                        source: str | None = None) -> dict[str, Any]:
     """One hypothesis's entry of results.json, before the multiplicity adjustment.
 
@@ -162,7 +165,7 @@ def compute_hypothesis(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note
     return entry
 
 
-def _primary(hyp: Any, plan: Any, prepared: Prepared, notes: list[Note],
+def _primary(hyp: Hypothesis, plan: Plan, prepared: Prepared, notes: list[Note],
              source: str) -> dict[str, Any]:
     groups = _groups_of(hyp, plan)
     table, strata_shown = _table(hyp, plan, prepared, source)
@@ -257,7 +260,7 @@ def _condition_words(cond: Any) -> str:
     return f"{cond.column} {'in' if op == 'in' else 'not in'} [{values}]"
 
 
-def _population_words(plan: Any, groups: list[str]) -> str:
+def _population_words(plan: Plan, groups: list[str]) -> str:
     shown = " and ".join(groups) if len(groups) <= 2 else ", ".join(groups)
     words = f"the analysed participants of {shown}"
     if plan.data.include:
@@ -275,7 +278,7 @@ def _strategy_words(ice: Any) -> str:
     return "a treatment-policy strategy (the outcome as observed, whether or not it happened)"
 
 
-def _summary_words(hyp: Any, groups: list[str]) -> str:
+def _summary_words(hyp: Hypothesis, groups: list[str]) -> str:
     if hyp.kind == "pair" and hyp.measure in _SUMMARY_WORDS:
         words, joint = _SUMMARY_WORDS[hyp.measure]
         return f"{words} ({groups[0]} {joint} {groups[1]})"
@@ -286,7 +289,7 @@ def _summary_words(hyp: Any, groups: list[str]) -> str:
     return "none (a test of equal proportions across the groups)"
 
 
-def estimand_entry(hyp: Any, plan: Any, prepared: Prepared,
+def estimand_entry(hyp: Hypothesis, plan: Plan, prepared: Prepared,
                    source: str | None = None) -> dict[str, Any] | None:
     """The ``estimand`` of an entry: its attributes, how often each intercurrent event
     happened (pooled over the compared groups) and one paragraph in words; None when the
@@ -324,7 +327,7 @@ def estimand_entry(hyp: Any, plan: Any, prepared: Prepared,
 
 # --- sensitivity analyses of missing outcomes ---
 
-def _test_on(hyp: Any, plan: Any, table: methods.Table, notes: list[Note],
+def _test_on(hyp: Hypothesis, plan: Plan, table: methods.Table, notes: list[Note],
              who: str) -> dict[str, Any]:
     """The hypothesis's own test (with its sparse switch) and estimate on another table."""
     out: dict[str, Any] = {"test": hyp.test, "statistic": None, "df": None, "p_value": None,
@@ -344,7 +347,7 @@ def _test_on(hyp: Any, plan: Any, table: methods.Table, notes: list[Note],
     return out
 
 
-def _extreme_case(hyp: Any, plan: Any, prepared: Prepared, analysis: str, source: str,
+def _extreme_case(hyp: Hypothesis, plan: Plan, prepared: Prepared, analysis: str, source: str,
                   notes: list[Note]) -> dict[str, Any]:
     """Worst case or best case: every missing outcome of each group imputed one way."""
     groups = _groups_of(hyp, plan)
@@ -371,7 +374,7 @@ def _extreme_case(hyp: Any, plan: Any, prepared: Prepared, analysis: str, source
             "reject_nominal": None if p is None else bool(decision.rejects(p, plan.alpha))}
 
 
-def _tipping(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any], source: str,
+def _tipping(hyp: Hypothesis, plan: Plan, prepared: Prepared, entry: dict[str, Any], source: str,
              notes: list[Note]) -> dict[str, Any]:
     """The tipping-point grid at the nominal alpha, against the primary nominal decision."""
     groups = _groups_of(hyp, plan)
@@ -392,7 +395,7 @@ def _tipping(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any], sou
     return out
 
 
-def _sensitivity(hyp: Any, plan: Any, prepared: Prepared, entry: dict[str, Any],
+def _sensitivity(hyp: Hypothesis, plan: Any, prepared: Prepared, entry: dict[str, Any],
                  notes: list[Note], source: str) -> list[dict[str, Any]]:
     """The pre-specified sensitivity analyses of missing outcomes, in the plan's order."""
     out = []
@@ -435,7 +438,7 @@ def _decide(entries: list[dict[str, Any]], plan: Any) -> decision.Decision:
     return decided
 
 
-def _decide_margins(entries: list[dict[str, Any]], plan: Any) -> None:
+def _decide_margins(entries: list[dict[str, Any]], plan: Plan) -> None:
     for e in entries:
         hyp = plan.hypothesis(e["parent"]) if e["parent"] else None
         source = hyp if hyp is not None else plan.hypothesis(e["id"])
@@ -447,7 +450,7 @@ def _decide_margins(entries: list[dict[str, Any]], plan: Any) -> None:
         e["margin_check"] = _margin_check(source, e["estimate"], decided)
 
 
-def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[Note]]:
+def analyse(plan: Plan, prepared: Prepared) -> tuple[list[dict[str, Any]], list[Note]]:
     """Every hypothesis of the plan, adjusted for multiplicity, with the gated follow-ups.
 
     The decisions are those of ``decision.decide`` on the one table of the run; the notes
@@ -488,7 +491,7 @@ def analyse(plan: Any, prepared: Prepared) -> tuple[list[dict[str, Any]], list[N
     return out, notes
 
 
-def group_summaries(plan: Any, prepared: Prepared) -> dict[str, list[dict[str, Any]]]:
+def group_summaries(plan: Plan, prepared: Prepared) -> dict[str, list[dict[str, Any]]]:
     """Per outcome and group: events, total, missing, proportion and its Wilson interval."""
     from prespec.stats import intervals
 

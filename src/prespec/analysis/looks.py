@@ -34,11 +34,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.common.departures import Departure, Note
 from prespec.errors import BadInput
 from prespec.plan.looks import CLASSICAL, CLASSICAL_TOLERANCE, planned_total, sides
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 #: The decisions of a look.
 DECISIONS: tuple[str, ...] = (
@@ -81,7 +84,7 @@ class LookRun:
         return self.look == self.of
 
 
-def number_of_looks(plan: Any) -> int | None:
+def number_of_looks(plan: Plan) -> int | None:
     """The number of looks the plan names (the same for every hypothesis with looks), or None."""
     for hyp in plan.hypotheses:
         if hyp.looks is not None:
@@ -161,7 +164,7 @@ def order_departures(run: LookRun) -> list[Departure]:
     return out
 
 
-def _direction(plan: Any, hyp: Any) -> int:
+def _direction(plan: Plan, hyp: Hypothesis) -> int:
     """+1 when benefit is a higher first-group proportion, −1 when lower: the alternative, or
     for a two-sided test the design's assumed rates (+1 without them)."""
     if hyp.alternative == "greater":
@@ -199,7 +202,7 @@ def _fmt(x: float) -> str:
 
 
 def _bounds_for(
-    plan: Any, hyp: Any, fractions: list[float], final: bool, alpha: float | None = None
+    plan: Plan, hyp: Hypothesis, fractions: list[float], final: bool, alpha: float | None = None
 ) -> Any:
     """The planned boundaries and those at ``fractions``, at ``alpha`` (default the plan's);
     futility with the drift of the planned design."""
@@ -223,8 +226,8 @@ def _bounds_for(
 
 
 def hypothesis_look(
-    plan: Any,
-    hyp: Any,
+    plan: Plan,
+    hyp: Hypothesis,
     entry: dict[str, Any],
     run: LookRun,
     notes: list[Note],
@@ -359,7 +362,7 @@ def _boundary_rows(numbers: list[int], index: list[int], observed: list[float], 
     return rows
 
 
-def _decide(hyp: Any, z: float | None, b: float | None, direction: int, run: LookRun,
+def _decide(hyp: Hypothesis, z: float | None, b: float | None, direction: int, run: LookRun,
             graph: dict[str, Any] | None, decide: Any, last: int,
             notes: list[Note]) -> tuple[bool | None, str]:
     """Whether the efficacy boundary is crossed (the graph's rejection under a procedure), and
@@ -400,7 +403,7 @@ def _repeated(values: list[dict[str, Any]], numbers: list[int],
     return out
 
 
-def _adjusted(hyp: Any, zs: list[Any], infos: list[Any], bounds: Any, direction: int,
+def _adjusted(hyp: Hypothesis, zs: list[Any], infos: list[Any], bounds: Any, direction: int,
               level: float, run: LookRun, notes: list[Note]) -> dict[str, Any] | None:
     """The stage-wise inference on the scale oriented so that the crossing is upward: the
     direction of benefit for a one-sided test, the sign of the last z for a two-sided one
@@ -435,7 +438,7 @@ def _check_fractions(hid: str, numbers: list[int], used: list[float], run: LookR
                        f"final analysis (--look {run.of})")
 
 
-def family(plan: Any) -> list[Any] | None:
+def family(plan: Plan) -> list[Any] | None:
     """The hypotheses of the multiplicity family when the procedure must run over the looks
     (a method other than ``none``, more than one member, some with looks); else None."""
     method = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
@@ -445,7 +448,7 @@ def family(plan: Any) -> list[Any] | None:
     return members
 
 
-def _graph_of(plan: Any, members: list[Any]) -> tuple[str, list[float], list[list[float]]]:
+def _graph_of(plan: Plan, members: list[Any]) -> tuple[str, list[float], list[list[float]]]:
     from prespec.stats.graphlooks import family_graph
 
     mult = plan.multiplicity
@@ -458,7 +461,7 @@ def _graph_of(plan: Any, members: list[Any]) -> tuple[str, list[float], list[lis
 
 
 def _series(
-    plan: Any, hyp: Any, entry: dict[str, Any], run: LookRun
+    plan: Any, hyp: Hypothesis, entry: dict[str, Any], run: LookRun
 ) -> tuple[list[int], list[float], list[float | None]]:
     """The look numbers observed, the fractions the boundaries use, and the z statistics."""
     total = planned_total(plan, hyp)
@@ -476,7 +479,7 @@ def _series(
 
 
 def graph_decisions(
-    plan: Any, members: list[Any], entries: dict[str, dict[str, Any]], run: LookRun
+    plan: Plan, members: list[Any], entries: dict[str, dict[str, Any]], run: LookRun
 ) -> dict[str, dict[str, Any]]:
     """The graphical procedure over the looks so far (Maurer & Bretz 2013): per member, its
     level at the end of this look (at rejection, for a rejected one) and the look of its
@@ -494,7 +497,7 @@ def graph_decisions(
             cache[key] = _crosses(members[i], level, k)
         return cache[key]
 
-    def _crosses(hyp: Any, level: float, k: int) -> bool:
+    def _crosses(hyp: Hypothesis, level: float, k: int) -> bool:
         if hyp.looks is None:
             p = entries[hyp.id].get("p_value")
             return run.final and k == run.look and p is not None and p <= level
@@ -533,7 +536,7 @@ def graph_decisions(
 
 
 def apply_looks(
-    plan: Any, hypotheses: list[dict[str, Any]], run: LookRun, notes: list[Note]
+    plan: Plan, hypotheses: list[dict[str, Any]], run: LookRun, notes: list[Note]
 ) -> list[Departure]:
     """Add the ``looks`` block to every hypothesis with looks; at an interim look, the
     hypotheses without looks are shown but not tested. With a multiplicity family, the

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.errors import DataError
 from prespec.stats import (
@@ -23,6 +23,9 @@ from prespec.stats import (
     trend,
 )
 from prespec.stats.results import Estimate, TestResult
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis
 
 Strata = Sequence[tuple[int, int, int, int]]
 
@@ -49,7 +52,7 @@ class TestOutcome:
 def _margin_test(fn: Callable[..., TestResult]) -> Callable[[Table, Any], TestResult]:
     """A test at a margin: one-sided for non-inferiority, two one-sided tests for equivalence."""
 
-    def run(table: Table, hyp: Any) -> TestResult:
+    def run(table: Table, hyp: Hypothesis) -> TestResult:
         measure = hyp.measure
         if hyp.comparison == "equivalence":
             low, high = hyp.margin
@@ -61,13 +64,13 @@ def _margin_test(fn: Callable[..., TestResult]) -> Callable[[Table, Any], TestRe
     return run
 
 
-def _two_proportion_z(table: Table, hyp: Any) -> TestResult:
+def _two_proportion_z(table: Table, hyp: Hypothesis) -> TestResult:
     if hyp.comparison != "superiority":
         return _margin_test(margins.wald_margin_z)(table, hyp)
     return proportions.two_proportion_z(*table.pair, alternative=hyp.alternative)
 
 
-def _fisher(table: Table, hyp: Any) -> TestOutcome:
+def _fisher(table: Table, hyp: Hypothesis) -> TestOutcome:
     if len(table.events) == 2:
         return TestOutcome(proportions.fisher_exact(*table.pair, alternative=hyp.alternative))
     mc = hyp.monte_carlo
@@ -86,7 +89,7 @@ def _fisher(table: Table, hyp: Any) -> TestOutcome:
 def _sized(fn: Callable[..., TestResult]) -> Callable[[Table, Any], TestResult]:
     """An unconditional exact test, which refuses groups too large to hold every table."""
 
-    def run(table: Table, hyp: Any) -> TestResult:
+    def run(table: Table, hyp: Hypothesis) -> TestResult:
         try:
             return fn(*table.pair, alternative=hyp.alternative)
         except ValueError as exc:  # the counts are valid here: the groups are too large
@@ -165,7 +168,7 @@ STRATIFIED_ESTIMATES: dict[str, Callable[[Strata, float], Estimate]] = {
 }
 
 
-def estimate(hyp: Any, table: Table, level: float) -> Estimate | None:
+def estimate(hyp: Hypothesis, table: Table, level: float) -> Estimate | None:
     """The hypothesis's measure with its pre-specified interval, or None when it has none."""
     if hyp.measure is None:
         return None

@@ -28,7 +28,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -49,6 +49,9 @@ from prespec.stats.proportions import (
     two_proportion_z_many,
 )
 from prespec.stats.tables import smallest_expected_many
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis
 
 #: Tests whose tipping-point grid is computed here, on arrays (see the module docstring).
 GRID_TESTS: frozenset[str] = frozenset({
@@ -107,7 +110,7 @@ def _as_tables(x1: np.ndarray, x2: np.ndarray) -> tuple[np.ndarray, tuple[int, .
     return np.stack([b1.ravel(), b2.ravel()], axis=1), b1.shape
 
 
-def _pearson(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Any) -> np.ndarray:
+def _pearson(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Hypothesis) -> np.ndarray:
     events, shape = _as_tables(x1, x2)
     _, p = pearson_many(events, np.array([n1, n2]), continuity=bool(hyp.continuity),
                         alternative=hyp.alternative)
@@ -120,14 +123,14 @@ def _likelihood_ratio(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int,
     return likelihood_ratio_many(events, np.array([n1, n2]))[1].reshape(shape)
 
 
-def _z_pooled(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Any) -> np.ndarray:
+def _z_pooled(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Hypothesis) -> np.ndarray:
     if hyp.comparison != "superiority":
         return _margin(wald_margin_z_many)(x1, n1, x2, n2, hyp)
     events, shape = _as_tables(x1, x2)
     return two_proportion_z_many(events, np.array([n1, n2]), hyp.alternative)[1].reshape(shape)
 
 
-def _fisher(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Any) -> np.ndarray:
+def _fisher(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Hypothesis) -> np.ndarray:
     x1, x2 = np.broadcast_arrays(x1, x2)
     return fisher_p_values(x1, n1 - x1, x2, n2 - x2, alternative=hyp.alternative,
                            tie_tolerance=FISHER_TIE_TOLERANCE)
@@ -137,7 +140,7 @@ def _margin(statistic: MarginStatistic) -> Callable[..., np.ndarray]:
     """A test at the margin: one-sided for non-inferiority, two one-sided tests (the larger
     p-value, nan if either is) for equivalence, as ``methods._margin_test``."""
 
-    def run(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Any) -> np.ndarray:
+    def run(x1: np.ndarray, n1: int, x2: np.ndarray, n2: int, hyp: Hypothesis) -> np.ndarray:
         return margin_p_values(statistic, x1, n1, x2, n2, comparison=hyp.comparison,
                                margin=hyp.margin, measure=hyp.measure,
                                alternative=hyp.alternative)
@@ -198,7 +201,7 @@ class TippingPoint:
     observed_point: tuple[float, float] | None
 
 
-def tipping_point(a: Observed, b: Observed, hyp: Any, alpha: float) -> TippingPoint:
+def tipping_point(a: Observed, b: Observed, hyp: Hypothesis, alpha: float) -> TippingPoint:
     """The p-value and decision at ``alpha`` of the hypothesis's test at every completion.
 
     Every table has the full totals n = complete + missing; x1 = e1 + i, x2 = e2 + j. The

@@ -15,7 +15,7 @@ from __future__ import annotations
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -23,6 +23,9 @@ import pandas as pd
 from prespec.common.matching import ValueSet, as_text, is_blank
 from prespec.data.prepare import cell_predicate
 from prespec.data.read import missing_column
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Plan
 
 #: At most this many values are listed per column; the rest are counted in ``more``.
 MAX_VALUES = 50
@@ -123,7 +126,7 @@ def _keyed(values: list[Any]) -> tuple[str, ...]:
     return tuple(sorted(as_text(v) for v in values))
 
 
-def uses(plan: Any) -> list[_Use]:
+def uses(plan: Plan) -> list[_Use]:
     """Every column the plan reads, with its role, in the order of the plan (group excluded)."""
     spec = plan.data
     out = [_Use(spec.id, "data.id", ("id",), None)]
@@ -198,7 +201,7 @@ def _summary(use: _Use, role: str, column: pd.Series) -> ColumnSummary:
                          sum(r.count for r in rest))
 
 
-def data_dictionary(frame: pd.DataFrame, plan: Any, source: str | Path) -> dict[str, Any]:
+def data_dictionary(frame: pd.DataFrame, plan: Plan, source: str | Path) -> dict[str, Any]:
     """The ``data_dictionary`` of a rehearsal's results.json, from the rows as read.
 
     ``frame`` must not hold the group column: it is named here but never counted.

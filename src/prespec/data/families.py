@@ -18,7 +18,7 @@ from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -30,6 +30,9 @@ from ..errors import DataError
 from ..plan.families import declared, member_id
 from .prepare import Prepared, _per_unique, prepare
 from .read import missing_column
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 _SHOW = 5
 _ROWS = re.compile(r"\(rows ([0-9][0-9, ]*)\)")
@@ -77,7 +80,7 @@ def _labels(column: pd.Series) -> np.ndarray:
     return _per_unique(column, lambda c: None if is_blank(c) else as_text(c))
 
 
-def _member_plan(plan: Any, hyp: Any) -> Any:
+def _member_plan(plan: Plan, hyp: Hypothesis) -> Any:
     """The plan that one level is prepared under: the family's outcome, no hypotheses."""
     return plan.model_copy(update={"hypotheses": [],
                                    "outcomes": {hyp.outcome: plan.outcomes[hyp.outcome]}})
@@ -94,7 +97,7 @@ def _remap(exc: DataError, rows: np.ndarray, offset: int, where: str) -> DataErr
     return DataError(f"{head}: {where}: {tail}" if sep else text)
 
 
-def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
+def family_data(frame: pd.DataFrame, plan: Plan, hyp: Hypothesis, source: str | Path,
                 progress: Callable[[int, int], None] | None = None) -> FamilyData:
     """Split ``frame`` by the levels of ``hyp.over`` and prepare each level's rows."""
     source = str(source)
@@ -151,7 +154,7 @@ def family_data(frame: pd.DataFrame, plan: Any, hyp: Any, source: str | Path,
 
 
 def _check_ids_within(frame: pd.DataFrame, id_column: str, by_level: np.ndarray,
-                      bounds: np.ndarray, order: list[str], hyp: Any, source: str,
+                      bounds: np.ndarray, order: list[str], hyp: Hypothesis, source: str,
                       offset: int) -> None:
     """Unit ids: none blank, none repeated within a level (the rows of each level are one
     analysis set); checked for every level at once, the first level at fault named."""
@@ -184,7 +187,7 @@ def _check_ids_within(frame: pd.DataFrame, id_column: str, by_level: np.ndarray,
                     f"{'; '.join(shown)}" + (f"; and {more} more" if more > 0 else ""))
 
 
-def _levels(frame: pd.DataFrame, labels: np.ndarray, blank: np.ndarray, hyp: Any,
+def _levels(frame: pd.DataFrame, labels: np.ndarray, blank: np.ndarray, hyp: Hypothesis,
             source: str, offset: int, deviations: list[Departure]
             ) -> tuple[list[str], dict[str, str | None], np.ndarray]:
     """The levels in order, each level's group, and the rows kept (level known, not blank)."""
@@ -216,7 +219,7 @@ def _levels(frame: pd.DataFrame, labels: np.ndarray, blank: np.ndarray, hyp: Any
     return values, groups_of, keep
 
 
-def _term_group_pairs(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray, hyp: Any
+def _term_group_pairs(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray, hyp: Hypothesis
                       ) -> tuple[np.ndarray, np.ndarray, dict[str, set[str | None]]]:
     """Per kept row its level and group text (None when blank); per level the groups seen."""
     within = _labels(frame[hyp.within])
@@ -232,7 +235,7 @@ def _term_group_pairs(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray,
 
 
 def _check_declared_groups(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray,
-                           groups_of: dict[str, str | None], hyp: Any, source: str,
+                           groups_of: dict[str, str | None], hyp: Hypothesis, source: str,
                            offset: int) -> None:
     labels, within, seen = _term_group_pairs(frame, labels, keep, hyp)
     for term in (t for t, _ in declared(hyp.levels)):
@@ -245,7 +248,7 @@ def _check_declared_groups(frame: pd.DataFrame, labels: np.ndarray, keep: np.nda
                     f"{hyp.within!r} puts it under {group!r} (rows {_lines(bad, offset)})")
 
 
-def _groups_from_data(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray, hyp: Any,
+def _groups_from_data(frame: pd.DataFrame, labels: np.ndarray, keep: np.ndarray, hyp: Hypothesis,
                       source: str, offset: int) -> dict[str, str | None]:
     labels, within, seen = _term_group_pairs(frame, labels, keep, hyp)
     out: dict[str, str | None] = {}

@@ -12,7 +12,7 @@ from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -22,6 +22,9 @@ from prespec.common.matching import ValueSet, as_number, as_text, is_blank
 
 from ..errors import DataError
 from .read import missing_column
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 _SHOW = 5  # how many offending values an error message lists
 # A frame with this column is weighted: each row stands for that many source rows (an engine's
@@ -221,7 +224,7 @@ def _check_ids(frame: pd.DataFrame, id_column: str, source: str, line_offset: in
         )
 
 
-def needed_columns(plan: Any) -> dict[str, str]:
+def needed_columns(plan: Plan) -> dict[str, str]:
     """Every column the reduction reads, in first-use order, with the plan key that names it."""
     spec = plan.data
     needed = {spec.id: "data.id", spec.group: "data.group"}
@@ -242,7 +245,7 @@ def needed_columns(plan: Any) -> dict[str, str]:
     return needed
 
 
-def read_columns(plan: Any, *, blinded: bool = False) -> dict[str, str]:
+def read_columns(plan: Plan, *, blinded: bool = False) -> dict[str, str]:
     """Every column a run reads from the data, with the plan key that names it: those of
     ``needed_columns`` and each family's ``over`` and ``within``; ``blinded`` (a rehearsal):
     without the group column."""
@@ -257,7 +260,7 @@ def read_columns(plan: Any, *, blinded: bool = False) -> dict[str, str]:
     return columns
 
 
-def prepare(frame: pd.DataFrame, plan: Any, source: str | Path, *,
+def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
             locate: Callable[[np.ndarray], list[str]] | None = None,
             check_ids: bool = True) -> Prepared:
     """Reduce ``frame`` to count tables as ``plan`` (a validated plan model) prescribes.
@@ -374,7 +377,7 @@ def _intercurrent(hyp: Any) -> list[Any]:
     return list(estimand.intercurrent) if estimand is not None else []
 
 
-def _blanks_matter(plan: Any, name: str) -> bool:
+def _blanks_matter(plan: Plan, name: str) -> bool:
     """Whether a blank outcome under ``missing: error`` is bad input in the plain counts.
 
     It is unless every hypothesis on the outcome has an estimand whose strategies may decide
@@ -387,7 +390,7 @@ def _blanks_matter(plan: Any, name: str) -> bool:
     )
 
 
-def _hypothesis_counts(frame: pd.DataFrame, hyp: Any, plan: Any, plain: np.ndarray,
+def _hypothesis_counts(frame: pd.DataFrame, hyp: Hypothesis, plan: Plan, plain: np.ndarray,
                        group_col: np.ndarray, rows: np.ndarray, source: str, at: _Rows,
                        deviations: list[Departure], notes: list[Note]) -> HypothesisCounts:
     """The hypothesis's counts after its estimand's strategies (ICH E9(R1)).

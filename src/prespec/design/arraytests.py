@@ -11,7 +11,7 @@ from rates per group alone and is refused by the caller.
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -22,10 +22,13 @@ from prespec.stats.proportions import likelihood_ratio_many, pearson_many, two_p
 from prespec.stats.single import binomial_exact_all, one_proportion_z_many
 from prespec.stats.trend import cochran_armitage_many
 
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis
+
 ArrayTest = Callable[[np.ndarray], np.ndarray]
 
 
-def wald_margin(events: np.ndarray, totals: np.ndarray, hyp: Any) -> np.ndarray:
+def wald_margin(events: np.ndarray, totals: np.ndarray, hyp: Hypothesis) -> np.ndarray:
     """The margin test by the Wald z (non-inferiority, or two one-sided tests)."""
     return margin_p_values(wald_margin_z_many, events[:, 0], int(totals[0]), events[:, 1],
                            int(totals[1]), comparison=hyp.comparison, margin=hyp.margin,
@@ -36,7 +39,7 @@ class PerTable:
     """A test the pipeline runs by its own function, called once per distinct table and kept
     for later chunks."""
 
-    def __init__(self, hyp: Any, totals: np.ndarray) -> None:
+    def __init__(self, hyp: Hypothesis, totals: np.ndarray) -> None:
         self.hyp, self.totals = hyp, [int(t) for t in totals]
         self.function = methods.TESTS[hyp.test]
         self.known: dict[tuple[int, ...], float] = {}
@@ -62,14 +65,14 @@ ON_ARRAYS = {
 }
 
 
-def on_arrays(hyp: Any, test: str) -> bool:
+def on_arrays(hyp: Hypothesis, test: str) -> bool:
     """Whether ``test`` for this hypothesis has an array form."""
     if hyp.kind == "pair" and hyp.comparison != "superiority":
         return test == "two-proportion-z"
     return test in ON_ARRAYS.get(hyp.kind, set())
 
 
-def array_test(hyp: Any, test: str, totals: np.ndarray) -> tuple[ArrayTest, bool]:
+def array_test(hyp: Hypothesis, test: str, totals: np.ndarray) -> tuple[ArrayTest, bool]:
     """The function of the events array (T, k) that gives the p-values of ``test`` for this
     hypothesis, and whether it is an array form (False: once per distinct table)."""
     hyp = hyp.model_copy(update={"test": test})

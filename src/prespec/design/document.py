@@ -16,13 +16,16 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.analysis import decision
 from prespec.common.caution import CAUTION
 from prespec.design import exactpower, samplesize
 from prespec.design.simulate import Progress, simulate
 from prespec.errors import BadInput
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 DEFAULT_SEED = 1
 GLOBAL_NULL = "global-null"
@@ -42,7 +45,7 @@ def _fmt(x: float) -> str:
     return f"{x:.4g}"
 
 
-def alpha_shares(plan: Any) -> tuple[dict[str, AlphaShare], str]:
+def alpha_shares(plan: Plan) -> tuple[dict[str, AlphaShare], str]:
     """The alpha each hypothesis is sized at, by id, and the rule in one sentence."""
     alpha = float(plan.alpha)
     family = [h.id for h in plan.hypotheses if h.role != "exploratory"]
@@ -124,11 +127,11 @@ class _Method:
     late: list[str] = field(default_factory=list)  # notes that computing a size or power adds
 
 
-def _groups(plan: Any, hyp: Any) -> list[str]:
+def _groups(plan: Plan, hyp: Hypothesis) -> list[str]:
     return list(plan.data.groups) if hyp.kind in ("all", "trend") else list(hyp.compare)
 
 
-def _direction_ok(hyp: Any, rates: list[float]) -> bool:
+def _direction_ok(hyp: Hypothesis, rates: list[float]) -> bool:
     """Whether the assumed rates lie on the side of a one-sided superiority alternative."""
     if hyp.alternative == "two-sided" or hyp.comparison != "superiority":
         return True
@@ -143,7 +146,7 @@ def _direction_ok(hyp: Any, rates: list[float]) -> bool:
     return diff > 0 if hyp.alternative == "greater" else diff < 0
 
 
-def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: float,
+def _pair_method(plan: Plan, hyp: Hypothesis, alpha: float, rates: list[float], ratio: float,
                  both_tails: bool = True) -> _Method:
     design = plan.design
     p1, p2 = rates
@@ -223,7 +226,7 @@ def _pair_method(plan: Any, hyp: Any, alpha: float, rates: list[float], ratio: f
         tuple(notes))
 
 
-def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
+def _method(plan: Plan, hyp: Hypothesis, alpha: float, rates: list[float],
             shares: list[float], both_tails: bool = True) -> _Method:
     """How one hypothesis is sized and its power computed. ``both_tails=False`` leaves the far
     tail out of a two-sided test's normal-approximation power, as prespec once did: only to
@@ -277,7 +280,7 @@ def _method(plan: Any, hyp: Any, alpha: float, rates: list[float],
         lambda n: samplesize.k_group_power(rates, n, alpha), notes)
 
 
-def _sides(hyp: Any, alpha: float) -> str:
+def _sides(hyp: Hypothesis, alpha: float) -> str:
     if hyp.kind == "all":
         return "k-group chi-square"
     if hyp.comparison == "equivalence":
@@ -287,7 +290,7 @@ def _sides(hyp: Any, alpha: float) -> str:
     return f"one-sided ({hyp.alternative})"
 
 
-def size_hypothesis(plan: Any, hyp: Any, share: AlphaShare) -> HypothesisDesign:
+def size_hypothesis(plan: Plan, hyp: Hypothesis, share: AlphaShare) -> HypothesisDesign:
     """The sample size per group and the power at data.planned_n of one hypothesis."""
     design = plan.design
     groups = _groups(plan, hyp)
@@ -328,7 +331,7 @@ def size_hypothesis(plan: Any, hyp: Any, share: AlphaShare) -> HypothesisDesign:
                             tuple(notes))
 
 
-def scenarios_of(plan: Any) -> dict[str, dict[str, float]]:
+def scenarios_of(plan: Plan) -> dict[str, dict[str, float]]:
     """The assumed rates, the design's scenarios, and the global null: every group at the
     allocation-weighted mean of the assumed rates."""
     design = plan.design
@@ -344,7 +347,7 @@ def scenarios_of(plan: Any) -> dict[str, dict[str, float]]:
     return out
 
 
-def simulation_sizes(plan: Any, sized: list[HypothesisDesign]) -> tuple[dict[str, int], str]:
+def simulation_sizes(plan: Plan, sized: list[HypothesisDesign]) -> tuple[dict[str, int], str]:
     """The analysed group sizes to simulate: data.planned_n, else the largest size any
     hypothesis needs per group."""
     groups = list(plan.data.groups)
@@ -362,20 +365,20 @@ def simulation_sizes(plan: Any, sized: list[HypothesisDesign]) -> tuple[dict[str
         "the largest design size per group over the hypotheses"
 
 
-def _require(plan: Any, where: str) -> Any:
+def _require(plan: Plan, where: str) -> Any:
     if plan.design is None:
         raise BadInput(f"{where}: the plan has no design section; add design: {{assumed: "
                        "{group: rate, ...}, power: 0.8}")
     return plan.design
 
 
-def size_plan(plan: Any) -> tuple[list[HypothesisDesign], str]:
+def size_plan(plan: Plan) -> tuple[list[HypothesisDesign], str]:
     """Every hypothesis of the plan sized, and the alpha rule in words."""
     shares, rule = alpha_shares(plan)
     return [size_hypothesis(plan, h, shares[h.id]) for h in plan.hypotheses], rule
 
 
-def design_document(plan: Any, *, where: str = "plan", fingerprint: str | None = None,
+def design_document(plan: Plan, *, where: str = "plan", fingerprint: str | None = None,
                     simulate_trials: int | None = None, seed: int | None = None,
                     progress: Progress | None = None) -> dict[str, Any]:
     """The design document of a validated plan (docs/files.md, "Design output")."""
@@ -506,7 +509,7 @@ def design_text(doc: dict[str, Any]) -> str:
 BOTH_TAILS_KEY = "two_sided_power"
 
 
-def planned_vs_achieved(plan: Any, achieved: dict[str, dict[str, int]] | None, *,
+def planned_vs_achieved(plan: Plan, achieved: dict[str, dict[str, int]] | None, *,
                         both_tails: bool = True) -> dict[str, Any] | None:
     """For results.json: per hypothesis the alpha it was sized at, the design's analysed n per
     group (``n_per_group``, before dropout) and n to enrol (after it), the achieved analysed n
@@ -543,7 +546,7 @@ def planned_vs_achieved(plan: Any, achieved: dict[str, dict[str, int]] | None, *
     return entry
 
 
-def design_summary(plan: Any) -> list[str]:
+def design_summary(plan: Plan) -> list[str]:
     """The design section and the sample sizes it gives (``prespec design`` has the detail)."""
     from prespec.plan.summary import number as _num  # the same numbers as the summary
 

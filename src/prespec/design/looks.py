@@ -13,12 +13,15 @@ futility would). The maths is :func:`prespec.stats.sequential.design`.
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.plan.looks import sides
 
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
-def looks_design(plan: Any, hyp: Any, alpha: float,
+
+def looks_design(plan: Plan, hyp: Hypothesis, alpha: float,
                  n_per_group: dict[str, int] | None) -> dict[str, Any] | None:
     """The design figures of one hypothesis's looks at its alpha share, or None."""
     from prespec.stats.sequential import design
@@ -57,7 +60,7 @@ def looks_design(plan: Any, hyp: Any, alpha: float,
     return out
 
 
-def add_looks(plan: Any, doc: dict[str, Any]) -> None:
+def add_looks(plan: Plan, doc: dict[str, Any]) -> None:
     """Add ``boundaries`` and the sequential figures to each design entry with looks."""
     by_id = {h.id: h for h in plan.hypotheses}
     for entry in doc["hypotheses"]:

@@ -9,11 +9,14 @@ so, and the plan must carry those sizes in ``data.planned_n`` before it is locke
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.errors import PlanError
 from prespec.plan import LoadedPlan, load_plan
 from prespec.plan.yamlread import parse_plan_yaml, read_plan_bytes
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Plan
 
 
 def _needs_designed_n(raw: Any) -> list[str] | None:
@@ -35,7 +38,7 @@ def _needs_designed_n(raw: Any) -> list[str] | None:
     return list(groups)
 
 
-def designed_sizes(plan: Any) -> dict[str, int]:
+def designed_sizes(plan: Plan) -> dict[str, int]:
     """Per group, the largest analysed size any ordinary hypothesis is designed to need: its
     maximum size under interim looks, else its fixed-sample size."""
     from prespec.analysis.families import ordinary_plan
@@ -85,7 +88,7 @@ def load_for_design(path: Path) -> tuple[LoadedPlan, dict[str, int] | None]:
             raise refused from None
 
 
-def refuse_unsimulated(path: Path, plan: Any) -> None:
+def refuse_unsimulated(path: Path, plan: Plan) -> None:
     """Refuse ``--simulate`` for a plan it does not cover (a stratified test: the simulation
     draws one rate per group, with no strata), as a one-line error at the plan's line."""
     from prespec.analysis.families import is_family

@@ -21,7 +21,7 @@ import math
 import zlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -31,6 +31,9 @@ from prespec.design.arraytests import ArrayTest, array_test
 from prespec.errors import BadInput
 from prespec.plan.followups import follow_ups
 from prespec.stats.tables import smallest_expected_many
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 #: Trials per chunk: with a handful of groups and hypotheses, a few megabytes of arrays.
 CHUNK = 20_000
@@ -55,7 +58,7 @@ class Unit:
         return decision.Unit(self.id, self.family, self.parent)
 
 
-def units_of(plan: Any) -> list[Unit]:
+def units_of(plan: Plan) -> list[Unit]:
     """The hypotheses in the order of results.json: each followed by its follow-ups."""
     names = list(plan.data.groups)
     out = []
@@ -71,7 +74,7 @@ def units_of(plan: Any) -> list[Unit]:
     return out
 
 
-def null_holds(hyp: Any, rates: list[float], sizes: list[int]) -> bool:
+def null_holds(hyp: Hypothesis, rates: list[float], sizes: list[int]) -> bool:
     """Whether the hypothesis's null is true at these rates (of its groups, compare order).
 
     Pairs: p_a = p_b (two-sided), p_a <= p_b (greater), p_a >= p_b (less); margins: the
@@ -124,7 +127,7 @@ class Decider:
     once per distinct table instead of on arrays.
     """
 
-    def __init__(self, plan: Any, sizes: dict[str, int]) -> None:
+    def __init__(self, plan: Plan, sizes: dict[str, int]) -> None:
         self.plan = plan
         self.units = units_of(plan)
         self.per_table: list[str] = []
@@ -237,7 +240,7 @@ def draw(rng: np.random.Generator, plan: Any, outcomes: list[str], rates: np.nda
             for name in outcomes}
 
 
-def simulate(plan: Any, *, scenarios: dict[str, dict[str, float]], sizes: dict[str, int],
+def simulate(plan: Plan, *, scenarios: dict[str, dict[str, float]], sizes: dict[str, int],
              trials: int, seed: int, chunk: int = CHUNK,
              progress: Progress | None = None) -> tuple[list[ScenarioResult], Decider]:
     """Simulate ``trials`` whole trials per scenario and decide each by the plan's rule."""
@@ -307,7 +310,7 @@ def _result(name: str, rates: dict[str, float], sizes: dict[str, int], decider: 
                           mc_se, tuple(nulls))
 
 
-def as_prepared(plan: Any, counts: dict[str, np.ndarray], sizes: dict[str, int],
+def as_prepared(plan: Plan, counts: dict[str, np.ndarray], sizes: dict[str, int],
                 trial: int) -> Any:
     """One simulated trial as the pipeline's ``Prepared`` counts, for ``analysis.analyse``
     (used to check that the arrays decide as the pipeline does)."""

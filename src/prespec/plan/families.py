@@ -16,11 +16,14 @@ data side is :mod:`prespec.data.families`, the statistics :mod:`prespec.analysis
 from __future__ import annotations
 
 from collections.abc import Iterator
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.plan import vocabulary as v
 from prespec.plan.locate import Issue
 from prespec.plan.yamlread import KeyPath, show
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 FAMILY_DOC: dict[str, str] = {
     "over": "makes the hypothesis a family: it runs once per level of this column (e.g. "
@@ -100,7 +103,7 @@ def is_family(hyp: Any) -> bool:
     return getattr(hyp, "over", None) is not None
 
 
-def family_column(plan: Any) -> str | None:
+def family_column(plan: Plan) -> str | None:
     """The ``over`` column when every hypothesis is a family over that one column, else None
     (unit ids are then checked within each level instead of overall)."""
     columns = {h.over for h in plan.hypotheses}
@@ -109,7 +112,7 @@ def family_column(plan: Any) -> str | None:
     return None
 
 
-def family_issues(plan: Any, hyp: Any, path: KeyPath) -> Iterator[Issue]:
+def family_issues(plan: Any, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     """The rules of one hypothesis's family keys (nothing for an ordinary hypothesis)."""
     if hyp.over is None:
         for key in v.FAMILY_KEYS[1:]:
@@ -124,7 +127,7 @@ def family_issues(plan: Any, hyp: Any, path: KeyPath) -> Iterator[Issue]:
     yield from _levels_issues(hyp, path)
 
 
-def _column_issues(plan: Any, hyp: Any, path: KeyPath) -> Iterator[Issue]:
+def _column_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     data = plan.data
     for key in ("over", "within"):
         column = getattr(hyp, key)
@@ -141,7 +144,7 @@ def _column_issues(plan: Any, hyp: Any, path: KeyPath) -> Iterator[Issue]:
                     "the column that groups its levels")
 
 
-def _method_issues(hyp: Any, path: KeyPath) -> Iterator[Issue]:
+def _method_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     if hyp.flag_method is None:
         yield Issue((*path, "flag_method"), "is required for a family (over): "
                     f"{' or '.join(v.FLAG_METHODS)}", line_path=path)
@@ -154,7 +157,7 @@ def _method_issues(hyp: Any, path: KeyPath) -> Iterator[Issue]:
                     at_key=True)
 
 
-def _shape_issues(hyp: Any, path: KeyPath) -> Iterator[Issue]:
+def _shape_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     if hyp.kind != "pair":
         yield Issue((*path, "compare"), "a family compares two groups: compare: [a, b]")
         return
@@ -181,7 +184,7 @@ def _shape_issues(hyp: Any, path: KeyPath) -> Iterator[Issue]:
                     "multiplicity; leave role out (it is exploratory)")
 
 
-def _levels_issues(hyp: Any, path: KeyPath) -> Iterator[Issue]:
+def _levels_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     levels = hyp.levels
     where: KeyPath = (*path, "levels")
     if levels is not None:
@@ -227,7 +230,7 @@ def _declared_issues(levels: list[str] | dict[str, list[str]], where: KeyPath
             seen.setdefault(term, group)
 
 
-def family_words(hyp: Any) -> str:
+def family_words(hyp: Hypothesis) -> str:
     """The family part of ``prespec check``'s summary line of a hypothesis."""
     grouped = f" within {hyp.within}" if hyp.within else ""
     n = len(hyp.members or [])

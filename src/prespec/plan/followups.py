@@ -3,10 +3,13 @@ or every pair. The plan's summary words them and the run tests them from this on
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 
-def follow_ups(hyp: Any, plan: Any) -> list[Any]:
+def follow_ups(hyp: Hypothesis, plan: Plan) -> list[Any]:
     """The pairwise hypotheses of ``then``: each arm against the reference, or every pair."""
     groups = list(plan.data.groups)
     if hyp.then.pairwise == "reference":

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Iterator
-from typing import Annotated, Any, ClassVar, Literal
+from typing import TYPE_CHECKING, Annotated, Any, ClassVar, Literal
 
 from pydantic import BeforeValidator, ConfigDict, Field
 from pydantic_core import PydanticCustomError
@@ -32,6 +32,9 @@ from prespec.plan.canonical_form import Canonical, CanonicalModel
 from prespec.plan.locate import Issue
 from prespec.plan.vocabulary import MAX_LOOKS
 from prespec.plan.yamlread import KeyPath, show
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 #: The efficacy spending functions and classical boundaries (the maths module's names).
 EFFICACY: tuple[str, ...] = ("lan-demets-obrien-fleming", "lan-demets-pocock",
@@ -115,7 +118,7 @@ def looks_words(looks: Looks) -> str:
     return words
 
 
-def planned_total(plan: Any, hyp: Any) -> int | None:
+def planned_total(plan: Plan, hyp: Hypothesis) -> int | None:
     """The planned total size of a hypothesis's two groups: the last of ``looks.sizes``, else
     the sum of their ``data.planned_n``; None when neither is given."""
     if hyp.looks is not None and hyp.looks.sizes:
@@ -127,7 +130,7 @@ def planned_total(plan: Any, hyp: Any) -> int | None:
     return None
 
 
-def sides(hyp: Any) -> int:
+def sides(hyp: Hypothesis) -> int:
     """2 for a two-sided alternative (alpha / 2 per side), else 1."""
     return 2 if hyp.alternative == "two-sided" else 1
 
@@ -136,7 +139,7 @@ def _increasing(values: list[float]) -> bool:
     return all(b > a for a, b in itertools.pairwise(values))
 
 
-def looks_issues(plan: Any, hyp: Any, path: KeyPath) -> Iterator[Issue]:
+def looks_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     """Every breach of the rules of one hypothesis's ``looks``."""
     looks = hyp.looks
     if looks is None:
@@ -182,7 +185,7 @@ def looks_issues(plan: Any, hyp: Any, path: KeyPath) -> Iterator[Issue]:
                         at_key=True)
 
 
-def _schedule_issues(plan: Any, hyp: Any, where: KeyPath) -> Iterator[Issue]:
+def _schedule_issues(plan: Plan, hyp: Hypothesis, where: KeyPath) -> Iterator[Issue]:
     looks = hyp.looks
     if (looks.fractions is None) == (looks.sizes is None):
         yield Issue(where, "give either fractions (planned information fractions) or sizes "
@@ -236,7 +239,7 @@ def _spending_issues(name: str, gamma: float | None, where: KeyPath,
                     at_key=True)
 
 
-def plan_looks_issues(plan: Any) -> Iterator[Issue]:
+def plan_looks_issues(plan: Plan) -> Iterator[Issue]:
     """Rules across hypotheses: one number of looks, and in a multiplicity family of more than
     one hypothesis a procedure that runs over the looks, without gated follow-ups."""
     with_looks = [
@@ -282,7 +285,7 @@ def plan_looks_issues(plan: Any) -> Iterator[Issue]:
             )
 
 
-def all_looks_issues(plan: Any) -> Iterator[Issue]:
+def all_looks_issues(plan: Plan) -> Iterator[Issue]:
     """The rules of every hypothesis's looks, then across them; only when all hold, the planned
     boundaries (so that a rule, not the maths, names a plain mistake)."""
     found = [issue for i, hyp in enumerate(plan.hypotheses)
@@ -294,7 +297,7 @@ def all_looks_issues(plan: Any) -> Iterator[Issue]:
     yield from boundary_issues(plan)
 
 
-def boundary_issues(plan: Any) -> Iterator[Issue]:
+def boundary_issues(plan: Plan) -> Iterator[Issue]:
     """The planned boundaries of every valid schedule, computed; a refusal of the maths is an
     issue at the hypothesis's ``looks``."""
     from prespec.stats.sequential import boundaries

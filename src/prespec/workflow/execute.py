@@ -9,7 +9,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec import audit
 from prespec.analysis.families import analyse_families, ordinary_plan, prepare_run, templates
@@ -20,6 +20,9 @@ from prespec.data import Prepared, file_sha256, read_data
 from prespec.data.engines.base import DataSource
 from prespec.data.prepare import read_columns
 from prespec.errors import BadInput
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Plan
 
 
 def default_folder(plan_path: Path, kind: str) -> Path:
@@ -54,7 +57,7 @@ def check_out_folder(out: Path) -> None:
         raise BadInput(f"{out}: the report folder must not exist yet or be empty")
 
 
-def provenance(*, kind: str, plan: Any, fingerprint: str, version: int | None,
+def provenance(*, kind: str, plan: Plan, fingerprint: str, version: int | None,
                data_hash: str, data_file: str, actor: str,
                environment: dict[str, str]) -> dict[str, Any]:
     """The fields that open every results document: what ran, on what, by whom, with what."""
@@ -79,7 +82,7 @@ def provenance(*, kind: str, plan: Any, fingerprint: str, version: int | None,
 def build_results(
     *,
     kind: str,
-    plan: Any,
+    plan: Plan,
     fingerprint: str,
     version: int | None,
     data_hash: str,

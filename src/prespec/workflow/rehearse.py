@@ -21,7 +21,7 @@ import shutil
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -63,6 +63,9 @@ from prespec.workflow.execute import (
     with_engine,
 )
 from prespec.workflow.publish import RunOutcome
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Hypothesis, Plan
 
 # The codes of the rehearsal's own notes.
 NOTE_NOT_LOCKED = "rehearsal-without-lock"
@@ -106,7 +109,7 @@ class Executed:
     problem: str | None
 
 
-def blinded_frame(frame: pd.DataFrame, plan: Any, plan_file: str) -> pd.DataFrame:
+def blinded_frame(frame: pd.DataFrame, plan: Plan, plan_file: str) -> pd.DataFrame:
     """The rows without the group column; a plan that reads the group column elsewhere is
     bad input, since a rehearsal must not read it."""
     group = plan.data.group
@@ -166,7 +169,7 @@ def pooled_outcomes(prepared: Prepared, level: float) -> list[Pooled]:
     return out
 
 
-def _missing_notes(plan: Any, pooled: list[Pooled]) -> list[Note]:
+def _missing_notes(plan: Plan, pooled: list[Pooled]) -> list[Note]:
     action = {"exclude": "left out of the analysis", "event": "counted as events",
               "no-event": "counted as no event", "error": "an error"}
     notes = []
@@ -179,7 +182,7 @@ def _missing_notes(plan: Any, pooled: list[Pooled]) -> list[Note]:
     return notes
 
 
-def _shortfalls(plan: Any, pooled: list[Pooled]) -> tuple[list[Departure], int | None]:
+def _shortfalls(plan: Plan, pooled: list[Pooled]) -> tuple[list[Departure], int | None]:
     planned_n = plan.data.planned_n
     if not planned_n:
         return [], None
@@ -194,7 +197,7 @@ def _shortfalls(plan: Any, pooled: list[Pooled]) -> tuple[list[Departure], int |
     return found, planned
 
 
-def _diagnose(plan: Any, prepared: Prepared) -> list[Executed]:
+def _diagnose(plan: Plan, prepared: Prepared) -> list[Executed]:
     """Compute each hypothesis and follow-up on its own, to name the ones that fail."""
     out = []
     for hyp in plan.hypotheses:
@@ -212,7 +215,7 @@ def _shown(values: Any) -> str:
     return "[" + ", ".join(json.dumps(v, ensure_ascii=False) for v in values or []) + "]"
 
 
-def would_not_compute(hyp: Any, plan: Any, prepared: Prepared) -> str | None:
+def would_not_compute(hyp: Hypothesis, plan: Plan, prepared: Prepared) -> str | None:
     """Why a hypothesis would have no result in the run, from pooled figures only (no unit
     in the population, or none analysed for its outcome), or None. The dummy allocation
     cannot change these: they hold whatever the groups."""
@@ -237,7 +240,7 @@ def would_not_compute(hyp: Any, plan: Any, prepared: Prepared) -> str | None:
     return f"outcome {hyp.outcome!r}: no unit analysed"
 
 
-def _hypothesis_rows(plan: Any, executed: dict[str, Executed],
+def _hypothesis_rows(plan: Plan, executed: dict[str, Executed],
                      prepared: Prepared | None = None) -> list[dict[str, Any]]:
     """One row per hypothesis and follow-up; one that executed but would have no result in
     the run (``would_not_compute``) is marked as not executed, with the reason."""
@@ -316,7 +319,7 @@ def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any], full: A
 def compute_rehearsal(
     *,
     plan_path: Path,
-    plan: Any,
+    plan: Plan,
     fingerprint: str,
     version: int | None,
     data_path: Path | None,

@@ -10,7 +10,7 @@ from __future__ import annotations
 import dataclasses
 from collections.abc import Callable, Mapping
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec import audit
 from prespec.analysis.results import finish
@@ -29,6 +29,9 @@ from prespec.workflow.base import (
 from prespec.workflow.execute import compute_results, default_folder
 from prespec.workflow.overrides import apply_overrides, override_departures
 from prespec.workflow.publish import RunOutcome, publish
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Plan
 
 
 def _plan_in_force(loaded: LoadedPlan, accept: str | None) -> tuple[Any, str, int | None,
@@ -139,7 +142,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     return dataclasses.replace(outcome, procedures=procedures(model))
 
 
-def procedures(model: Any) -> dict[str, str]:
+def procedures(model: Plan) -> dict[str, str]:
     """The multiplicity procedure of each family of hypotheses that a run adjusts: ``main``
     (the plan's ``multiplicity``) and ``<id> pairwise`` (a hypothesis's ``then``)."""
     from prespec.analysis.hypotheses import MAIN_FAMILY

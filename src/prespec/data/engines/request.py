@@ -3,15 +3,18 @@
 from __future__ import annotations
 
 from collections import Counter
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.common.matching import ValueSet, as_text
 
 from ..prepare import read_columns
 from .base import ColumnMap, CountRequest, Filter
 
+if TYPE_CHECKING:
+    from prespec.plan.model import Plan
 
-def _grouped_uses(plan: Any, blinded: bool) -> Counter[str]:
+
+def _grouped_uses(plan: Plan, blinded: bool) -> Counter[str]:
     """How many parts of the plan read each column of the weighted frame (filters aside)."""
     uses: Counter[str] = Counter()
     if not blinded:
@@ -40,7 +43,7 @@ def _outcome_map(column: str, outcome: Any) -> ColumnMap | None:
                               (as_text(no_event), tuple(outcome.no_event))))
 
 
-def count_request(plan: Any, source: str, *, blinded: bool = False,
+def count_request(plan: Plan, source: str, *, blinded: bool = False,
                   unique_within: tuple[str, ...] = ()) -> CountRequest:
     """What an engine must read for ``plan``: the group column and each outcome column read
     by that one use alone are mapped to canonical values, every other column stays raw.

@@ -11,13 +11,16 @@ from __future__ import annotations
 import glob
 import os
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING
 
 from prespec.common.canonical import file_sha256
 from prespec.common.departures import Note
 
 from ...errors import BadInput, DataError, PlanError
 from .base import DataSource, expand_glob
+
+if TYPE_CHECKING:
+    from prespec.plan.model import Plan
 
 NOTE_DATA_OVER_SOURCE = "data-argument-over-source"
 
@@ -50,7 +53,7 @@ def _outside(folder: Path, target: Path) -> bool:
     return not target.resolve().is_relative_to(folder)
 
 
-def check_declared_source(plan_path: Path, plan: Any, files: list[str] | None = None) -> None:
+def check_declared_source(plan_path: Path, plan: Plan, files: list[str] | None = None) -> None:
     """``data.source`` (a file or a glob) must resolve inside the plan's folder, after
     symbolic links; so must each file of ``files`` (a glob's matches, when read). A database
     URL is not a path and is not checked here."""
@@ -80,7 +83,7 @@ def check_declared_source(plan_path: Path, plan: Any, files: list[str] | None = 
                                 "must be inside its folder")
 
 
-def resolve_source(plan_path: Path, plan: Any, data: str | Path | None
+def resolve_source(plan_path: Path, plan: Plan, data: str | Path | None
                    ) -> tuple[DataSource, list[Note]]:
     """The data source of a run or rehearsal, and a note when DATA overrides ``data.source``.
 
@@ -110,7 +113,7 @@ def resolve_source(plan_path: Path, plan: Any, data: str | Path | None
     return source, notes
 
 
-def describe_source(plan_path: Path, plan: Any) -> str:
+def describe_source(plan_path: Path, plan: Plan) -> str:
     """What ``prespec check`` says about the data a run would read without DATA."""
     declared = getattr(plan.data, "source", None)
     if declared is None:
