@@ -3,20 +3,39 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path, PurePosixPath
+import os
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
 
-from .canonical import file_sha256
+from .canonical import file_sha256, sha256_tag
 
 MANIFEST = "manifest.json"
 
 
+def _walk(folder: str, prefix: str = "") -> Iterator[tuple[str, os.DirEntry[str]]]:
+    """Everything under ``folder`` with its POSIX path relative to it, as ``rglob("*")``
+    finds it (links are not followed into; an unreadable folder is skipped), from one
+    ``scandir`` per folder: the entry's type comes with it, so no file is stat'ed twice."""
+    try:
+        with os.scandir(folder) as listing:
+            found = list(listing)
+    except (FileNotFoundError, NotADirectoryError, PermissionError):
+        return
+    for entry in found:
+        rel = prefix + entry.name
+        yield rel, entry
+        if entry.is_dir(follow_symlinks=False):
+            yield from _walk(entry.path, rel + "/")
+
+
+def _files(found: list[tuple[str, os.DirEntry[str]]]) -> list[str]:
+    return sorted(rel for rel, entry in found if rel != MANIFEST and entry.is_file())
+
+
 def folder_files(folder: Path) -> list[str]:
     """Every regular file under ``folder`` except the manifest, as sorted POSIX paths."""
-    return sorted(
-        p.relative_to(folder).as_posix()
-        for p in folder.rglob("*")
-        if p.is_file() and p.relative_to(folder).as_posix() != MANIFEST
-    )
+    return _files(list(_walk(str(folder))))
 
 
 def build_manifest(folder: Path) -> dict[str, object]:
@@ -31,10 +50,22 @@ def write_manifest(folder: Path) -> str:
 
 
 def _plain_name(name: str) -> bool:
-    """A relative path inside the folder: no absolute path, no ``..``, no empty part."""
-    parts = PurePosixPath(name).parts
-    return bool(parts) and not name.startswith("/") and "\\" not in name \
-        and all(p not in ("", ".", "..") for p in parts) and PurePosixPath(*parts).as_posix() == name
+    """A relative path inside the folder, in its one normal form: not absolute, no ``\\``,
+    no ``.``, ``..`` or empty part (so no ``//`` and no trailing ``/`` either)."""
+    return bool(name) and not name.startswith("/") and "\\" not in name \
+        and all(p not in ("", ".", "..") for p in name.split("/"))
+
+
+@dataclass(frozen=True)
+class FolderCheck:
+    """What :func:`check_folder` found: the first way the folder differs from its manifest
+    (None when every file matches), the ``sha256:`` of ``manifest.json`` as it was read, and
+    the bytes of the files asked for, as they were hashed (so that what is read next is what
+    was checked, and nothing is read twice)."""
+
+    problem: str | None
+    manifest: str | None = None
+    kept: dict[str, bytes] = field(default_factory=dict)
 
 
 def check_manifest(folder: Path) -> str | None:
@@ -43,31 +74,49 @@ def check_manifest(folder: Path) -> str | None:
     Links are refused (a report folder holds plain files and folders only), and so are
     manifest names that point outside the folder.
     """
+    return check_folder(folder).problem
+
+
+def check_folder(folder: Path, keep: tuple[str, ...] = ()) -> FolderCheck:
+    """:func:`check_manifest`, keeping the manifest's digest and the bytes of the files
+    named in ``keep`` (those the manifest lists) for the caller."""
     path = folder / MANIFEST
     if folder.is_symlink():
-        return "the report folder is a symbolic link"
-    links = sorted(p.relative_to(folder).as_posix() for p in folder.rglob("*") if p.is_symlink())
+        return FolderCheck("the report folder is a symbolic link")
+    found = list(_walk(str(folder)))
+    links = sorted(rel for rel, entry in found if entry.is_symlink())
     if links:
-        return f"{links[0]} is a symbolic link (a report holds plain files only)"
+        return FolderCheck(f"{links[0]} is a symbolic link (a report holds plain files only)")
     if not path.is_file():
-        return "manifest.json is missing"
+        return FolderCheck("manifest.json is missing")
+    raw = path.read_bytes()
     try:
-        listed = json.loads(path.read_text("utf-8"))["files"]
+        listed = json.loads(raw.decode("utf-8"))["files"]
         if not isinstance(listed, dict) or not all(isinstance(v, str) for v in listed.values()):
             raise TypeError
     except (UnicodeDecodeError, json.JSONDecodeError, KeyError, TypeError):
-        return "manifest.json is not readable"
+        return FolderCheck("manifest.json is not readable")
     outside = sorted(name for name in listed if not _plain_name(name))
     if outside:
-        return f"manifest.json names {outside[0]!r}, a path outside the report folder"
-    present = folder_files(folder)
+        return FolderCheck(f"manifest.json names {outside[0]!r}, a path outside the report "
+                           "folder")
+    present = _files(found)
     for name in present:
         if name not in listed:
-            return f"{name} is not in the manifest (added)"
+            return FolderCheck(f"{name} is not in the manifest (added)")
+    seen, kept = set(present), {}
     for name, digest in sorted(listed.items()):
         target = folder / name
-        if not target.is_file():
-            return f"{name} is in the manifest but missing"
-        if file_sha256(target) != digest:
-            return f"{name} does not match its manifest hash (changed)"
-    return None
+        if name not in seen and not target.is_file():
+            return FolderCheck(f"{name} is in the manifest but missing")
+        try:
+            if name in keep:
+                kept[name] = target.read_bytes()
+                got = sha256_tag(kept[name])
+            else:
+                got = file_sha256(target)
+        except FileNotFoundError:  # removed since the folder was listed
+            return FolderCheck(f"{name} is in the manifest but missing")
+        if got != digest:
+            return FolderCheck(f"{name} does not match its manifest hash (changed)")
+    return FolderCheck(None, sha256_tag(raw), kept)

@@ -8,6 +8,7 @@ killed run) are returned as notes.
 
 from __future__ import annotations
 
+import errno
 import json
 import math
 import os
@@ -25,7 +26,7 @@ from .departures import capped_found
 from .errors import IntegrityStop, PrespecError
 from .families import declared_members, member_ids
 from .looks import look_problem, look_run
-from .manifest import check_manifest
+from .manifest import check_folder
 from .plan import fingerprint, load_plan, plan_from_resolved
 from .publish import PARTIAL, pending_report
 
@@ -237,7 +238,8 @@ def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult) -> t
     if not isinstance(rel, str) or not rel or Path(rel).is_absolute():
         raise _fail(result, f"{where}: no relative report path")
     folder = plan.parent / rel
-    if folder.is_dir() and not folder.is_symlink() and any(folder.iterdir()):
+    real_folder = _is_real_folder(folder)
+    if real_folder and _has_children(folder):
         return folder, rel
     pending = pending_report(plan, entry)
     if pending is not None:
@@ -246,9 +248,24 @@ def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult) -> t
             f"files are in {pending.partial.name} beside it (checked there); the next "
             "prespec run on this plan moves it")
         return pending.partial, rel
-    if folder.is_dir() and not folder.is_symlink():
+    if real_folder:
         raise _fail(result, f"{where}: report folder {rel} is empty")
     raise _fail(result, f"{where}: report folder {rel} is missing")
+
+
+def _is_real_folder(path: Path) -> bool:
+    """A folder, not a link to one (one ``lstat``)."""
+    try:
+        return stat.S_ISDIR(os.lstat(path).st_mode)
+    except OSError as exc:
+        if exc.errno in (errno.ENOENT, errno.ENOTDIR, errno.EBADF, errno.ELOOP):
+            return False  # as Path.is_dir() says no
+        raise
+
+
+def _has_children(folder: Path | str) -> bool:
+    with os.scandir(folder) as listing:
+        return any(True for _ in listing)
 
 
 def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
@@ -260,16 +277,16 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         folder, rel = _report_folder(plan, entry, result)
         if rel in found:
             raise _fail(result, f"log entry {entry['seq']}: names report {rel} a second time")
-        problem = check_manifest(folder)
-        if problem:
-            raise _fail(result, f"report {rel}: {problem}")
-        if file_sha256(folder / "manifest.json") != entry["details"].get("manifest"):
+        checked = check_folder(folder, keep=("results.json",))
+        if checked.problem:
+            raise _fail(result, f"report {rel}: {checked.problem}")
+        if checked.manifest != entry["details"].get("manifest"):
             raise _fail(result, f"report {rel}: manifest.json is not the one the log recorded")
-        try:
-            doc = json.loads((folder / "results.json").read_text("utf-8"))
+        try:  # the bytes just checked against the manifest
+            doc = json.loads(checked.kept["results.json"].decode("utf-8"))
             if not isinstance(doc, dict):
                 raise TypeError
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError, TypeError):
+        except (KeyError, UnicodeDecodeError, json.JSONDecodeError, TypeError):
             raise _fail(result, f"report {rel}: results.json is missing or unreadable") from None
         if doc.get("plan") != entry["plan"]:
             raise _fail(result, f"report {rel}: results.json names plan {doc.get('plan')}, "
@@ -335,17 +352,20 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
         if where.is_symlink():
             result.warnings.append(f"{_shown(plan, where)}: a symbolic link; report folders "
                                    "are real folders inside the study (not written by prespec)")
-    named = {Path(os.path.abspath(plan.parent / rel)) for rel in found}
-    in_use = {Path(os.path.abspath(p)) for p in found.values()}
+    # absolute, normalised paths as text: a set of 10,000 of them is cheap, of Paths not
+    here = os.path.abspath(plan.parent)
+    named = {os.path.abspath(os.path.join(here, rel)) for rel in found}
+    in_use = {os.path.abspath(p) for p in found.values()}
     # a plan named ``...yaml`` (stem ``..``) has no folder of its own under reports/
     own_abs = Path(os.path.abspath(own)) if plan.stem not in ("", ".", "..") else None
-    places = ({own_abs} if own_abs else set()) | {p.parent for p in named}
-    prefixes = {f".{p.name}{PARTIAL}" for p in named}
+    places = ({own_abs} if own_abs else set()) | {Path(os.path.dirname(p)) for p in named}
+    prefixes = {f".{os.path.basename(p)}{PARTIAL}" for p in named}
     for place in sorted(places):
         if not place.is_dir():
             continue
-        for child in sorted(place.iterdir()):
-            if child in named or child in in_use:
+        for name in sorted(os.listdir(place)):
+            child = place / name
+            if str(child) in named or str(child) in in_use:
                 continue
             rel = _shown(plan, child)
             mode = child.lstat().st_mode
@@ -354,7 +374,7 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
                 if place != own_abs and not any(child.name.startswith(p) for p in prefixes):
                     continue  # a folder chosen with --out: only the temporary folders of its
                     # named reports are looked at
-                _temporary_folder(plan, child, rel, found, result)
+                _temporary_folder(child, rel, named, result)
             elif place != own_abs:
                 continue
             elif not stat.S_ISDIR(mode):
@@ -373,16 +393,15 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
                                        "recorded run reserved it")
 
 
-def _temporary_folder(plan: Path, child: Path, rel: str, found: dict[str, Path],
-                      result: VerifyResult) -> None:
+def _temporary_folder(child: Path, rel: str, named: set[str], result: VerifyResult) -> None:
     """``.<name>.partial-*``: a run's leftover only when ``<name>``, the folder that run
     reserved, is beside it, empty and not named by the log (a run killed before its log entry
-    leaves both); otherwise it is planted or left by hand, and a warning."""
+    leaves both); otherwise it is planted or left by hand, and a warning. ``named``: the
+    absolute paths of the report folders the log names."""
     name = child.name[1:child.name.index(PARTIAL)]
     reserved = child.parent / name
-    logged = {Path(os.path.abspath(plan.parent / r)) for r in found}
     if (reserved.is_dir() and not reserved.is_symlink() and not any(reserved.iterdir())
-            and Path(os.path.abspath(reserved)) not in logged):
+            and os.path.abspath(reserved) not in named):
         result.notes.append(f"{rel}: a temporary folder left by a run that was stopped before "
                             f"its log entry (its reserved folder {name} is empty beside it); "
                             "not part of any report, safe to delete")
@@ -397,15 +416,15 @@ def _check_report_contents(found: dict[str, Path], result: VerifyResult) -> None
     an empty folder, a FIFO, socket or device; each a warning by name. (A link fails in
     ``check_manifest``; an extra plain file fails there too.)"""
     for rel, folder in sorted(found.items()):
-        for root, dirs, files in os.walk(folder):
+        top = str(folder)
+        for root, dirs, files in os.walk(top):
             dirs.sort()  # named in a stable order
-            here = Path(root)
             for name in sorted(dirs + files):
-                path = here / name
-                mode = path.lstat().st_mode
-                inner = path.relative_to(folder).as_posix()
+                path = os.path.join(root, name)
+                mode = os.lstat(path).st_mode
+                inner = path[len(top) + 1:]  # the path inside the report (POSIX)
                 if stat.S_ISDIR(mode):
-                    if not any(path.iterdir()):
+                    if not _has_children(path):
                         result.warnings.append(f"report {rel}: {inner}: an empty folder inside "
                                                "the report (not in its manifest)")
                 elif not stat.S_ISREG(mode) and not stat.S_ISLNK(mode):
@@ -476,11 +495,12 @@ def _override_text(dev: dict[str, Any]) -> str:
     return f"{key} {dev.get('expected')} → {dev.get('found')}"
 
 
-def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]],
-                 later_lock: dict[str, Any] | None) -> RunVerdict:
+def _run_verdict(number: int, entry: dict[str, Any], locks: list[dict[str, Any]],
+                 first_run: int | None, later_lock: dict[str, Any] | None) -> RunVerdict:
+    """The verdict on ``entry``, from the lock and amend entries before it (``locks``), the
+    seq of the first run or look before it, and the first lock entry after it."""
     devs = [d for d in entry.get("deviations") or [] if isinstance(d, dict)]
     codes = [str(d.get("code")) for d in devs]
-    locks = [e for e in before if e["action"] in ("lock", "amend")]
     in_force = locks[-1] if locks else None
     version = _version_of(in_force) if in_force is not None else None
     reasons: list[str] = []
@@ -505,7 +525,6 @@ def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]
                        + f" (override{_accepted(overrides[0])})")
         labels.append("overrides " + ", ".join(
             str(d.get("detail") or "").split(": ", 1)[0] for d in overrides))
-    first_run = next((e["seq"] for e in before if e["action"] in ("run", "look")), None)
     late = [e for e in locks if e["action"] == "amend" and (
         first_run is not None and e["seq"] > first_run or any(
             isinstance(d, dict) and d.get("code") == "amended-after-unblinding"
@@ -524,13 +543,19 @@ def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]
 
 
 def run_verdicts(entries: list[dict[str, Any]]) -> list[RunVerdict]:
-    """One verdict per run and look entry of the log, in log order."""
-    out = []
-    for index, entry in enumerate(e for e in entries if e["action"] in ("run", "look")):
-        later = next((e for e in entries if e["action"] == "lock" and e["seq"] > entry["seq"]),
-                     None)
-        out.append(_run_verdict(index + 1, entry,
-                                [e for e in entries if e["seq"] < entry["seq"]], later))
+    """One verdict per run and look entry of the log, in log order (one pass: the entries
+    before each are those earlier in the log, whose seq the chain check made 1, 2, …)."""
+    out: list[RunVerdict] = []
+    lock_entries = [e for e in entries if e["action"] == "lock"]
+    locks: list[dict[str, Any]] = []
+    first_run: int | None = None
+    for entry in entries:
+        if entry["action"] in ("lock", "amend"):
+            locks.append(entry)
+        elif entry["action"] in ("run", "look"):
+            later = next((e for e in lock_entries if e["seq"] > entry["seq"]), None)
+            out.append(_run_verdict(len(out) + 1, entry, locks, first_run, later))
+            first_run = entry["seq"] if first_run is None else first_run
     return out
 
 
