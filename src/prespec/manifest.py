@@ -30,6 +30,7 @@ def _walk(folder: str, prefix: str = "") -> Iterator[tuple[str, os.DirEntry[str]
 
 
 def _files(found: list[tuple[str, os.DirEntry[str]]]) -> list[str]:
+    """The regular files (links followed, as ``Path.is_file``) except the manifest, sorted."""
     return sorted(rel for rel, entry in found if rel != MANIFEST and entry.is_file())
 
 
@@ -66,6 +67,8 @@ class FolderCheck:
     problem: str | None
     manifest: str | None = None
     kept: dict[str, bytes] = field(default_factory=dict)
+    #: everything under the folder as the check found it (relative POSIX path, entry)
+    entries: tuple[tuple[str, os.DirEntry[str]], ...] = ()
 
 
 def check_manifest(folder: Path) -> str | None:
@@ -78,37 +81,47 @@ def check_manifest(folder: Path) -> str | None:
 
 
 def check_folder(folder: Path, keep: tuple[str, ...] = ()) -> FolderCheck:
-    """:func:`check_manifest`, keeping the manifest's digest and the bytes of the files
-    named in ``keep`` (those the manifest lists) for the caller."""
-    path = folder / MANIFEST
+    """:func:`check_manifest`, keeping the manifest's digest, the bytes of the files named in
+    ``keep`` (those the manifest lists) and the folder's entries for the caller."""
     if folder.is_symlink():
         return FolderCheck("the report folder is a symbolic link")
-    found = list(_walk(str(folder)))
+    found = tuple(_walk(str(folder)))
+    kept: dict[str, bytes] = {}
+    problem, raw = _against_manifest(folder, found, keep, kept)
+    return FolderCheck(problem, None if problem else sha256_tag(raw), kept if not problem else {},
+                       found)
+
+
+def _against_manifest(folder: Path, found: tuple[tuple[str, os.DirEntry[str]], ...],
+                      keep: tuple[str, ...], kept: dict[str, bytes]) -> tuple[str | None, bytes]:
+    """The first way the files ``found`` in ``folder`` differ from its manifest (or None),
+    and the manifest's bytes; the bytes of the files in ``keep`` go into ``kept``."""
     links = sorted(rel for rel, entry in found if entry.is_symlink())
     if links:
-        return FolderCheck(f"{links[0]} is a symbolic link (a report holds plain files only)")
-    if not path.is_file():
-        return FolderCheck("manifest.json is missing")
+        return f"{links[0]} is a symbolic link (a report holds plain files only)", b""
+    path = folder / MANIFEST
+    if not any(rel == MANIFEST and entry.is_file() for rel, entry in found) \
+            and not path.is_file():
+        return "manifest.json is missing", b""
     raw = path.read_bytes()
     try:
         listed = json.loads(raw.decode("utf-8"))["files"]
         if not isinstance(listed, dict) or not all(isinstance(v, str) for v in listed.values()):
             raise TypeError
     except (UnicodeDecodeError, json.JSONDecodeError, KeyError, TypeError):
-        return FolderCheck("manifest.json is not readable")
+        return "manifest.json is not readable", raw
     outside = sorted(name for name in listed if not _plain_name(name))
     if outside:
-        return FolderCheck(f"manifest.json names {outside[0]!r}, a path outside the report "
-                           "folder")
-    present = _files(found)
+        return f"manifest.json names {outside[0]!r}, a path outside the report folder", raw
+    present = _files(list(found))
     for name in present:
         if name not in listed:
-            return FolderCheck(f"{name} is not in the manifest (added)")
-    seen, kept = set(present), {}
+            return f"{name} is not in the manifest (added)", raw
+    seen = set(present)
     for name, digest in sorted(listed.items()):
         target = folder / name
         if name not in seen and not target.is_file():
-            return FolderCheck(f"{name} is in the manifest but missing")
+            return f"{name} is in the manifest but missing", raw
         try:
             if name in keep:
                 kept[name] = target.read_bytes()
@@ -116,7 +129,7 @@ def check_folder(folder: Path, keep: tuple[str, ...] = ()) -> FolderCheck:
             else:
                 got = file_sha256(target)
         except FileNotFoundError:  # removed since the folder was listed
-            return FolderCheck(f"{name} is in the manifest but missing")
+            return f"{name} is in the manifest but missing", raw
         if got != digest:
-            return FolderCheck(f"{name} does not match its manifest hash (changed)")
-    return FolderCheck(None, sha256_tag(raw), kept)
+            return f"{name} does not match its manifest hash (changed)", raw
+    return None, raw

@@ -26,7 +26,7 @@ from .departures import capped_found
 from .errors import IntegrityStop, PrespecError
 from .families import declared_members, member_ids
 from .looks import look_problem, look_run
-from .manifest import check_folder
+from .manifest import FolderCheck, check_folder
 from .plan import fingerprint, load_plan, plan_from_resolved
 from .publish import PARTIAL, pending_report
 
@@ -230,8 +230,10 @@ def _check_plan_file(plan: Path, doc: dict[str, Any], entries: list[dict[str, An
     result.passed.append("plan file: differs from its lock, recorded as an accepted departure")
 
 
-def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult) -> tuple[Path, str]:
-    """The folder holding the files of the report ``entry`` names, and its relative path."""
+def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult
+                   ) -> tuple[Path, str, FolderCheck]:
+    """The folder holding the files of the report ``entry`` names, its relative path, and
+    what :func:`check_folder` found in it (one walk, each file read once)."""
     where = f"log entry {entry['seq']} ({entry['action']})"
     details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
     rel = details.get("report")
@@ -239,18 +241,24 @@ def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult) -> t
         raise _fail(result, f"{where}: no relative report path")
     folder = plan.parent / rel
     real_folder = _is_real_folder(folder)
-    if real_folder and _has_children(folder):
-        return folder, rel
+    if real_folder:
+        checked = check_folder(folder, keep=_KEPT)
+        # an empty walk is an empty folder, or one it may not read: listing it again says
+        if checked.entries or _has_children(folder):
+            return folder, rel, checked
     pending = pending_report(plan, entry)
     if pending is not None:
         result.notes.append(
             f"report {rel}: complete, but its run stopped before moving it into place; its "
             f"files are in {pending.partial.name} beside it (checked there); the next "
             "prespec run on this plan moves it")
-        return pending.partial, rel
+        return pending.partial, rel, check_folder(pending.partial, keep=_KEPT)
     if real_folder:
         raise _fail(result, f"{where}: report folder {rel} is empty")
     raise _fail(result, f"{where}: report folder {rel} is missing")
+
+
+_KEPT = ("results.json",)  # read by verify after the manifest check, from the bytes it hashed
 
 
 def _is_real_folder(path: Path) -> bool:
@@ -269,15 +277,17 @@ def _has_children(folder: Path | str) -> bool:
 
 
 def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
-                   ) -> dict[str, Path]:
+                   ) -> tuple[dict[str, Path], dict[str, FolderCheck]]:
+    """Every report folder the log names against its manifest and its log entry: the
+    folders by their relative paths, and what was found in each."""
     found: dict[str, Path] = {}
+    walks: dict[str, FolderCheck] = {}
     for entry in entries:
         if entry["action"] not in ("run", "rehearse", "look"):
             continue
-        folder, rel = _report_folder(plan, entry, result)
+        folder, rel, checked = _report_folder(plan, entry, result)
         if rel in found:
             raise _fail(result, f"log entry {entry['seq']}: names report {rel} a second time")
-        checked = check_folder(folder, keep=("results.json",))
         if checked.problem:
             raise _fail(result, f"report {rel}: {checked.problem}")
         if checked.manifest != entry["details"].get("manifest"):
@@ -308,12 +318,13 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if problem:
             raise _fail(result, f"report {rel}: {problem}")
         found[rel] = folder
+        walks[rel] = checked
     result.passed.append(f"reports: {len(found)} folder(s) match their manifests and log entries")
     looked = [e for e in entries if isinstance(e["details"], dict) and "look" in e["details"]]
     if looked:
         result.passed.append(f"interim looks: {len(looked)} look(s) in the log, each report's "
                              "look, observed fractions, z statistics and history match the log")
-    return found
+    return found, walks
 
 
 _STOPPED_RUN_NAME = re.compile(r"\d{8}T\d{6}Z-(run|rehearsal)(-\d+)?")  # default_folder's
@@ -358,15 +369,17 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
     in_use = {os.path.abspath(p) for p in found.values()}
     # a plan named ``...yaml`` (stem ``..``) has no folder of its own under reports/
     own_abs = Path(os.path.abspath(own)) if plan.stem not in ("", ".", "..") else None
-    places = ({own_abs} if own_abs else set()) | {Path(os.path.dirname(p)) for p in named}
+    places = ({own_abs} if own_abs else set()) | {
+        Path(p) for p in {os.path.dirname(p) for p in named}}
     prefixes = {f".{os.path.basename(p)}{PARTIAL}" for p in named}
     for place in sorted(places):
         if not place.is_dir():
             continue
         for name in sorted(os.listdir(place)):
-            child = place / name
-            if str(child) in named or str(child) in in_use:
+            text = os.path.join(place, name)
+            if text in named or text in in_use:
                 continue
+            child = Path(text)
             rel = _shown(plan, child)
             mode = child.lstat().st_mode
             temporary = child.name.startswith(".") and PARTIAL in child.name
@@ -411,25 +424,31 @@ def _temporary_folder(child: Path, rel: str, named: set[str], result: VerifyResu
                            "names that report); not produced by a recorded run")
 
 
-def _check_report_contents(found: dict[str, Path], result: VerifyResult) -> None:
+def _check_report_contents(walks: dict[str, FolderCheck], result: VerifyResult) -> None:
     """Inside each named report: what its manifest cannot list (it lists plain files only):
-    an empty folder, a FIFO, socket or device; each a warning by name. (A link fails in
-    ``check_manifest``; an extra plain file fails there too.)"""
-    for rel, folder in sorted(found.items()):
-        top = str(folder)
-        for root, dirs, files in os.walk(top):
-            dirs.sort()  # named in a stable order
-            for name in sorted(dirs + files):
-                path = os.path.join(root, name)
-                mode = os.lstat(path).st_mode
-                inner = path[len(top) + 1:]  # the path inside the report (POSIX)
-                if stat.S_ISDIR(mode):
-                    if not _has_children(path):
+    an empty folder, a FIFO, socket or device; each a warning by name, in the order of a
+    top-down walk with names sorted. (A link fails in ``check_folder``; an extra plain file
+    fails there too.) From the walk ``check_folder`` made: no file is looked at again."""
+    for rel, checked in sorted(walks.items()):
+        inside: dict[str, list[tuple[str, os.DirEntry[str]]]] = {}
+        for inner, entry in checked.entries:
+            inside.setdefault(inner.rpartition("/")[0], []).append((inner, entry))
+        todo = [""]
+        while todo:
+            children = sorted(inside.get(todo.pop(), ()), key=lambda c: c[1].name)
+            folders = []
+            for inner, entry in children:
+                if entry.is_dir(follow_symlinks=False):
+                    folders.append(inner)
+                    # nothing under it in the walk: empty, or unreadable (listing it says)
+                    if inner not in inside and not _has_children(entry.path):
                         result.warnings.append(f"report {rel}: {inner}: an empty folder inside "
                                                "the report (not in its manifest)")
-                elif not stat.S_ISREG(mode) and not stat.S_ISLNK(mode):
-                    result.warnings.append(f"report {rel}: {inner}: {_kind_of(mode)} inside "
-                                           "the report (not in its manifest)")
+                elif not entry.is_file(follow_symlinks=False) and not entry.is_symlink():
+                    kind = _kind_of(entry.stat(follow_symlinks=False).st_mode)
+                    result.warnings.append(f"report {rel}: {inner}: {kind} inside the report "
+                                           "(not in its manifest)")
+            todo.extend(reversed(folders))  # the first folder's contents next, as os.walk
 
 
 def _check_strict(result: VerifyResult) -> None:
@@ -591,9 +610,9 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
     doc = _check_lock(plan, entries, result)
     if doc is not None:
         _check_plan_file(plan, doc, entries, result)
-    found = _check_reports(plan, entries, result)
+    found, walks = _check_reports(plan, entries, result)
     _check_leftovers(plan, found, result)
-    _check_report_contents(found, result)
+    _check_report_contents(walks, result)
     if expect is not None:
         first = next((e for e in entries if e["action"] == "lock"), None)
         if first is None:
