@@ -14,9 +14,8 @@ from typing import Any
 
 import pytest
 
-from prespec import api
 from prespec.manifest import _plain_name, check_folder, write_manifest
-from prespec.verify import _check_report_contents, _kind_of, run_verdicts
+from prespec.verify import _contents_warnings, _kind_of, run_verdicts
 
 
 def _walk_warnings(rel: str, folder: Path) -> list[str]:
@@ -49,11 +48,9 @@ def test_the_contents_warnings_come_from_the_one_walk_in_walk_order(tmp_path: Pa
     os.mkfifo(folder / "figures" / "b" / "pipe")
     os.mkfifo(folder / "0-pipe")
     write_manifest(folder)
-    checked = check_folder(folder)
-    result = api.VerifyResult()
-    _check_report_contents({"r1": checked}, result)
+    warnings = _contents_warnings("r1", check_folder(folder))
     expected = _walk_warnings("r1", folder)
-    assert result.warnings == expected
+    assert warnings == expected
     assert [w.split(": ")[1] for w in expected] == [
         "0-pipe", "z-empty", "figures/pipe", "figures/b/pipe", "figures/b/deep/deeper",
         "tables/empty"]
@@ -67,17 +64,21 @@ def test_a_report_file_is_read_once_and_the_bytes_read_are_the_bytes_hashed(
     (folder / "tables" / "t.csv").write_text("a,b\n")
     digest = write_manifest(folder)
     opened: list[str] = []
-    real = builtins.open
+    real, real_os = builtins.open, os.open
 
     def counting(file: Any, *args: Any, **kwargs: Any) -> Any:
         opened.append(Path(file).name)
         return real(file, *args, **kwargs)
 
+    def counting_os(file: Any, *args: Any, **kwargs: Any) -> Any:
+        opened.append(Path(file).name)
+        return real_os(file, *args, **kwargs)
+
     monkeypatch.setattr(builtins, "open", counting)
     monkeypatch.setattr(io, "open", counting)  # pathlib's
+    monkeypatch.setattr(os, "open", counting_os)
     checked = check_folder(folder, keep=("results.json",))
-    monkeypatch.setattr(builtins, "open", real)
-    monkeypatch.setattr(io, "open", real)
+    monkeypatch.undo()
     assert checked.problem is None and checked.manifest == digest
     assert checked.kept == {"results.json": b'{"kind": "run"}'}
     assert sorted(opened) == ["manifest.json", "results.json", "t.csv"]

@@ -237,12 +237,12 @@ def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult
     where = f"log entry {entry['seq']} ({entry['action']})"
     details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
     rel = details.get("report")
-    if not isinstance(rel, str) or not rel or Path(rel).is_absolute():
+    if not isinstance(rel, str) or not rel or os.path.isabs(rel):
         raise _fail(result, f"{where}: no relative report path")
     folder = plan.parent / rel
     real_folder = _is_real_folder(folder)
     if real_folder:
-        checked = check_folder(folder, keep=_KEPT)
+        checked = check_folder(folder, keep=_KEPT, not_a_link=True)
         # an empty walk is an empty folder, or one it may not read: listing it again says
         if checked.entries or _has_children(folder):
             return folder, rel, checked
@@ -277,11 +277,12 @@ def _has_children(folder: Path | str) -> bool:
 
 
 def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
-                   ) -> tuple[dict[str, Path], dict[str, FolderCheck]]:
+                   ) -> tuple[dict[str, Path], dict[str, list[str]]]:
     """Every report folder the log names against its manifest and its log entry: the
-    folders by their relative paths, and what was found in each."""
+    folders by their relative paths, and the warnings about what is inside each
+    (:func:`_contents_warnings`, taken from the same walk and added after the leftovers')."""
     found: dict[str, Path] = {}
-    walks: dict[str, FolderCheck] = {}
+    inside: dict[str, list[str]] = {}
     for entry in entries:
         if entry["action"] not in ("run", "rehearse", "look"):
             continue
@@ -318,13 +319,13 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if problem:
             raise _fail(result, f"report {rel}: {problem}")
         found[rel] = folder
-        walks[rel] = checked
+        inside[rel] = _contents_warnings(rel, checked)
     result.passed.append(f"reports: {len(found)} folder(s) match their manifests and log entries")
     looked = [e for e in entries if isinstance(e["details"], dict) and "look" in e["details"]]
     if looked:
         result.passed.append(f"interim looks: {len(looked)} look(s) in the log, each report's "
                              "look, observed fractions, z statistics and history match the log")
-    return found, walks
+    return found, inside
 
 
 _STOPPED_RUN_NAME = re.compile(r"\d{8}T\d{6}Z-(run|rehearsal)(-\d+)?")  # default_folder's
@@ -424,31 +425,32 @@ def _temporary_folder(child: Path, rel: str, named: set[str], result: VerifyResu
                            "names that report); not produced by a recorded run")
 
 
-def _check_report_contents(walks: dict[str, FolderCheck], result: VerifyResult) -> None:
-    """Inside each named report: what its manifest cannot list (it lists plain files only):
-    an empty folder, a FIFO, socket or device; each a warning by name, in the order of a
+def _contents_warnings(rel: str, checked: FolderCheck) -> list[str]:
+    """Inside a named report: what its manifest cannot list (it lists plain files only): an
+    empty folder, a FIFO, socket or device; each a warning by name, in the order of a
     top-down walk with names sorted. (A link fails in ``check_folder``; an extra plain file
     fails there too.) From the walk ``check_folder`` made: no file is looked at again."""
-    for rel, checked in sorted(walks.items()):
-        inside: dict[str, list[tuple[str, os.DirEntry[str]]]] = {}
-        for inner, entry in checked.entries:
-            inside.setdefault(inner.rpartition("/")[0], []).append((inner, entry))
-        todo = [""]
-        while todo:
-            children = sorted(inside.get(todo.pop(), ()), key=lambda c: c[1].name)
-            folders = []
-            for inner, entry in children:
-                if entry.is_dir(follow_symlinks=False):
-                    folders.append(inner)
-                    # nothing under it in the walk: empty, or unreadable (listing it says)
-                    if inner not in inside and not _has_children(entry.path):
-                        result.warnings.append(f"report {rel}: {inner}: an empty folder inside "
-                                               "the report (not in its manifest)")
-                elif not entry.is_file(follow_symlinks=False) and not entry.is_symlink():
-                    kind = _kind_of(entry.stat(follow_symlinks=False).st_mode)
-                    result.warnings.append(f"report {rel}: {inner}: {kind} inside the report "
-                                           "(not in its manifest)")
-            todo.extend(reversed(folders))  # the first folder's contents next, as os.walk
+    out: list[str] = []
+    inside: dict[str, list[tuple[str, os.DirEntry[str]]]] = {}
+    for inner, entry in checked.entries:
+        inside.setdefault(inner.rpartition("/")[0], []).append((inner, entry))
+    todo = [""]
+    while todo:
+        children = sorted(inside.get(todo.pop(), ()), key=lambda c: c[1].name)
+        folders = []
+        for inner, entry in children:
+            if entry.is_dir(follow_symlinks=False):
+                folders.append(inner)
+                # nothing under it in the walk: empty, or unreadable (listing it says)
+                if inner not in inside and not _has_children(entry.path):
+                    out.append(f"report {rel}: {inner}: an empty folder inside the report "
+                               "(not in its manifest)")
+            elif not entry.is_file(follow_symlinks=False) and not entry.is_symlink():
+                kind = _kind_of(entry.stat(follow_symlinks=False).st_mode)
+                out.append(f"report {rel}: {inner}: {kind} inside the report (not in its "
+                           "manifest)")
+        todo.extend(reversed(folders))  # the first folder's contents next, as os.walk
+    return out
 
 
 def _check_strict(result: VerifyResult) -> None:
@@ -610,9 +612,10 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
     doc = _check_lock(plan, entries, result)
     if doc is not None:
         _check_plan_file(plan, doc, entries, result)
-    found, walks = _check_reports(plan, entries, result)
+    found, inside = _check_reports(plan, entries, result)
     _check_leftovers(plan, found, result)
-    _check_report_contents(walks, result)
+    for rel in sorted(inside):
+        result.warnings.extend(inside[rel])
     if expect is not None:
         first = next((e for e in entries if e["action"] == "lock"), None)
         if first is None:

@@ -227,16 +227,16 @@ def _past_checked_prefix(data: bytes, log: Path
     entries, the last two (or the one) of them, and a SHA-256 over ``data``. None when there is
     no record, or it names no prefix of these bytes: the caller checks the whole chain.
 
-    The prefix must hash to the record's digest, hold exactly ``seq`` lines, and end with the
-    entry the record names, whole and hashing to its content; the entries after it must
-    continue its chain. A break after the prefix is an integrity stop, as in a full check.
+    The prefix must hash to the record's digest and end with the entry the record names,
+    whole and hashing to its content; the entries after it must continue its chain. A break
+    after the prefix is an integrity stop, as in a full check.
     """
     record = read_checked(checked_path(log))
     if record is None or record.size > len(data):
         return None
     view = memoryview(data)
     digest = hashlib.sha256(view[:record.size])
-    if digest.hexdigest() != record.sha256 or data.count(b"\n", 0, record.size) != record.seq:
+    if digest.hexdigest() != record.sha256:
         return None
     start = data.rfind(b"\n", 0, record.size - 1) + 1
     try:
