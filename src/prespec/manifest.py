@@ -34,10 +34,10 @@ def _read(path: str) -> bytes:
     cost on a small file, which verify reads twice per report)."""
     fd = os.open(path, os.O_RDONLY)
     try:
-        size = os.fstat(fd).st_size
-        parts = []
-        while block := os.read(fd, max(size + 1, 1 << 16)):
-            parts.append(block)
+        want = os.fstat(fd).st_size + 1  # one more than its size: a short read is the end
+        parts = [os.read(fd, want)]
+        while len(parts[-1]) == want:  # it grew since: read on to the end
+            parts.append(os.read(fd, want))
         return b"".join(parts)
     finally:
         os.close(fd)

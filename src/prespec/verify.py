@@ -319,7 +319,9 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if problem:
             raise _fail(result, f"report {rel}: {problem}")
         found[rel] = folder
-        inside[rel] = _contents_warnings(rel, checked)
+        warnings = _contents_warnings(rel, checked)
+        if warnings:
+            inside[rel] = warnings
     result.passed.append(f"reports: {len(found)} folder(s) match their manifests and log entries")
     looked = [e for e in entries if isinstance(e["details"], dict) and "look" in e["details"]]
     if looked:
@@ -431,6 +433,11 @@ def _contents_warnings(rel: str, checked: FolderCheck) -> list[str]:
     top-down walk with names sorted. (A link fails in ``check_folder``; an extra plain file
     fails there too.) From the walk ``check_folder`` made: no file is looked at again."""
     out: list[str] = []
+    folders = {inner for inner, entry in checked.entries if entry.is_dir(follow_symlinks=False)}
+    if folders <= {inner.rpartition("/")[0] for inner, _ in checked.entries} and all(
+            entry.is_file(follow_symlinks=False) or entry.is_symlink() or inner in folders
+            for inner, entry in checked.entries):
+        return out  # every folder holds something, and every other entry is a file or a link
     inside: dict[str, list[tuple[str, os.DirEntry[str]]]] = {}
     for inner, entry in checked.entries:
         inside.setdefault(inner.rpartition("/")[0], []).append((inner, entry))
