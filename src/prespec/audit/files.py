@@ -33,12 +33,14 @@ def fsync_dir(folder: Path) -> None:
         os.close(fd)
 
 
-def replace_atomically(path: Path, data: bytes) -> None:
+def replace_atomically(path: Path, data: bytes, *, durable: bool = True) -> None:
     """Write ``data`` to a temporary file beside ``path``, fsync it, then rename over ``path``.
 
     The file is created with mode 0666 less the umask, like every other file prespec writes,
     so that a monitor given read access to the study can read the lock and the head too.
     A failure at any step removes the temporary file; ``path`` is then as it was.
+    ``durable=False`` leaves out both fsyncs, for a file that may be lost or come back empty
+    after a power cut (a cache whose every use is checked against what it describes).
     """
     while True:
         tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}.tmp")
@@ -52,7 +54,8 @@ def replace_atomically(path: Path, data: bytes) -> None:
             view = memoryview(data)
             while view:
                 view = view[os.write(fd, view):]
-            os.fsync(fd)
+            if durable:
+                os.fsync(fd)
         finally:
             os.close(fd)
         os.replace(tmp, path)
@@ -62,4 +65,5 @@ def replace_atomically(path: Path, data: bytes) -> None:
         except FileNotFoundError:
             pass
         raise
-    fsync_dir(path.parent)
+    if durable:
+        fsync_dir(path.parent)

@@ -4,13 +4,16 @@ Each entry carries ``prev`` (the previous entry's ``hash``; 64 zeros for the fir
 ``hash``, the SHA-256 of the RFC 8785 form of the entry without ``hash``, so that any edit,
 deletion, reordering or insertion breaks the chain, the way a content-addressed history does.
 The head file records the last ``seq`` and ``hash`` so that a truncated log is detected too.
-Only this module writes the log.
+A third file, the record of the checked prefix (:mod:`prespec.audit.prefix`), lets an append
+check only the entries written since the last one, so that its cost does not grow with the
+log's entries. Only this module writes the log.
 """
 
 from __future__ import annotations
 
 import errno
 import fcntl
+import hashlib
 import json
 import os
 from collections.abc import Callable, Iterator
@@ -25,6 +28,7 @@ from prespec.common.shown import json_text
 from ..errors import IntegrityStop
 from . import guard
 from .files import fsync_dir, replace_atomically
+from .prefix import Checked, checked_path, read_checked, write_checked
 
 GENESIS = "0" * 64
 ACTIONS = frozenset({"lock", "amend", "run", "rehearse", "design", "look"})
@@ -73,14 +77,16 @@ def _locked(log: Path) -> Iterator[int]:
         os.close(fd)
 
 
-def parse_log(data: bytes, name: str) -> list[dict[str, Any]]:
-    """Parse the log's bytes into entries; an incomplete or unreadable line is an integrity stop."""
+def parse_log(data: bytes, name: str, *, first_line: int = 1) -> list[dict[str, Any]]:
+    """Parse the log's bytes into entries; an incomplete or unreadable line is an integrity stop.
+
+    ``first_line`` numbers the first line of ``data`` (the log's lines after a checked prefix)."""
     if not data:
         return []
     if not data.endswith(b"\n"):
         raise IntegrityStop(f"{name}: the last line is incomplete (no newline): the log was cut")
     entries = []
-    for number, line in enumerate(data.split(b"\n")[:-1], start=1):
+    for number, line in enumerate(data.split(b"\n")[:-1], start=first_line):
         try:
             entry = json.loads(line.decode("utf-8"))
         except (UnicodeDecodeError, json.JSONDecodeError) as exc:
@@ -135,7 +141,10 @@ def append(
 
     The existing chain is checked before anything is written: appending to a broken log
     would hide the break behind a valid-looking new entry, and a log whose last line is
-    incomplete is refused (the half entry is reported, never dropped). If the write itself
+    incomplete is refused (the half entry is reported, never dropped). The bytes that the
+    record of the checked prefix names are re-hashed as raw bytes, and only the entries after
+    them are parsed and checked; without a record that matches, the whole chain is (and the
+    record is written anew after the head). If the write itself
     fails, the log is cut back to its size before it, under the same lock. A head that lags
     one entry behind (an append stopped between the log and the head) is brought up to date.
     ``sign``, for lock and amend entries, returns the ``signature`` of the entry's content.
@@ -152,28 +161,36 @@ def append(
         existed = log.exists()
         with _locked(log) as fd:
             try:
-                entry = _write_entry(fd, log, head, actor=actor, action=action, plan=plan,
-                                     data=data, details=details, deviations=deviations, at=at,
-                                     sign=sign)
+                entry, checked = _write_entry(fd, log, head, actor=actor, action=action,
+                                              plan=plan, data=data, details=details,
+                                              deviations=deviations, at=at, sign=sign)
             except BaseException:
                 if not existed and os.fstat(fd).st_size == 0:
                     log.unlink(missing_ok=True)  # a first entry that failed leaves no log
                 raise
             fsync_dir(log.parent)
             replace_atomically(head, head_line(entry))
+            write_checked(checked_path(log), checked)
     return entry
 
 
 def _write_entry(fd: int, log: Path, head: Path, *, actor: str, action: str, plan: str,
                  data: str | None, details: dict[str, Any] | None,
                  deviations: list[dict[str, Any]] | None, at: str | None,
-                 sign: Signer | None) -> dict[str, Any]:
-    """Check the chain and the head, then write and fsync the next entry (see ``append``)."""
+                 sign: Signer | None) -> tuple[dict[str, Any], Checked]:
+    """Check the chain and the head, then write and fsync the next entry (see ``append``);
+    the entry, and the record of the log's bytes up to and with it, all checked."""
     size = os.fstat(fd).st_size
-    existing = parse_log(os.pread(fd, size, 0), log.name) if size else []
-    check_chain(existing, log.name)
-    check_head(existing, head)
-    last = existing[-1] if existing else None
+    raw = os.pread(fd, size, 0) if size else b""
+    checked = _past_checked_prefix(raw, log)
+    if checked is None:  # no usable record: the whole chain, as verify checks it
+        existing = parse_log(raw, log.name)
+        check_chain(existing, log.name)
+        count, tail, digest = len(existing), existing[-2:], hashlib.sha256(raw)
+    else:
+        count, tail, digest = checked
+    _check_head_tail(head, count, tail)
+    last = tail[-1] if tail else None
     entry: dict[str, Any] = {
         "seq": (last["seq"] + 1) if last else 1,
         "at": at or utc_now(),
@@ -200,13 +217,50 @@ def _write_entry(fd: int, log: Path, head: Path, *, actor: str, action: str, pla
         os.ftruncate(fd, size)  # no half entry left behind by a failure we see
         os.fsync(fd)
         raise
-    return entry
+    digest.update(line)
+    return entry, Checked(size + len(line), digest.hexdigest(), entry["seq"], entry["hash"])
 
 
-def check_chain(entries: list[dict[str, Any]], name: str) -> None:
-    """Raise IntegrityStop at the first entry whose seq, prev, keys or hash do not hold."""
-    prev = GENESIS
-    for index, entry in enumerate(entries, start=1):
+def _past_checked_prefix(data: bytes, log: Path
+                         ) -> tuple[int, list[dict[str, Any]], Any] | None:
+    """Check the log's bytes ``data`` against the record of its checked prefix
+    (:mod:`prespec.audit.prefix`) and the entries after that prefix one by one: the number of
+    entries, the last two (or the one) of them, and a SHA-256 over ``data``. None when there is
+    no record, or it names no prefix of these bytes: the caller checks the whole chain.
+
+    The prefix must hash to the record's digest and end with the entry the record names,
+    whole and hashing to its content; the entries after it must continue its chain. A break
+    after the prefix is an integrity stop, as in a full check.
+    """
+    record = read_checked(checked_path(log))
+    if record is None or record.size > len(data):
+        return None
+    view = memoryview(data)
+    digest = hashlib.sha256(view[:record.size])
+    if digest.hexdigest() != record.sha256:
+        return None
+    start = data.rfind(b"\n", 0, record.size - 1) + 1
+    try:
+        (last,) = parse_log(data[start:record.size], log.name, first_line=record.seq)
+        check_chain([last], log.name, first_seq=record.seq, prev=last.get("prev", GENESIS))
+    except IntegrityStop:
+        return None
+    if last["hash"] != record.hash:
+        return None
+    rest = parse_log(data[record.size:], log.name, first_line=record.seq + 1)
+    check_chain(rest, log.name, first_seq=record.seq + 1, prev=record.hash)
+    digest.update(view[record.size:])
+    # the entry before ``last`` is named by its ``prev`` (for a head that lags one behind)
+    before = [{"seq": record.seq - 1, "hash": last["prev"]}] if record.seq > 1 else []
+    return record.seq + len(rest), [*before, last, *rest][-2:], digest
+
+
+def check_chain(entries: list[dict[str, Any]], name: str, *, first_seq: int = 1,
+                prev: str = GENESIS) -> None:
+    """Raise IntegrityStop at the first entry whose seq, prev, keys or hash do not hold.
+
+    ``first_seq`` and ``prev`` continue a chain whose earlier entries were checked already."""
+    for index, entry in enumerate(entries, start=first_seq):
         where = f"{name}: entry {index}"
         missing = [k for k in (*ENTRY_KEYS, "hash") if k not in entry]
         if missing:
@@ -250,16 +304,22 @@ def check_head(entries: list[dict[str, Any]], head: Path) -> str | None:
     append stopped between its two writes leaves: accepted, and returned as a note. Anyone
     able to write the folder could rewrite the head anyway, so this weakens nothing.
     """
+    return _check_head_tail(head, len(entries), entries[-2:])
+
+
+def _check_head_tail(head: Path, count: int, tail: list[dict[str, Any]]) -> str | None:
+    """``check_head`` from the number of entries and the last two of them (``seq`` and
+    ``hash`` are all it reads), so that an append past a checked prefix can ask it too."""
     doc = read_head(head)
     if doc is None:
-        if len(entries) == 1:
+        if count == 1:
             return HEAD_LAGS
-        if entries:
-            raise IntegrityStop(f"{head.name}: missing, but the log has {len(entries)} entries")
+        if count:
+            raise IntegrityStop(f"{head.name}: missing, but the log has {count} entries")
         return None
-    if not entries:
+    if not count:
         raise IntegrityStop(f"{head.name}: names entry {doc['seq']} but the log is empty or gone")
-    last = entries[-1]
+    last = tail[-1]
     if doc["seq"] == last["seq"] and doc["hash"] == last["hash"]:
         return None
     if doc["seq"] > last["seq"]:
@@ -267,8 +327,8 @@ def check_head(entries: list[dict[str, Any]], head: Path) -> str | None:
             f"{head.name}: names entry {doc['seq']} but the log ends at {last['seq']} "
             "(entries removed from the end)"
         )
-    if len(entries) >= 2 and doc["seq"] == entries[-2]["seq"] \
-            and doc["hash"] == entries[-2]["hash"]:
+    if count >= 2 and len(tail) >= 2 and doc["seq"] == tail[-2]["seq"] \
+            and doc["hash"] == tail[-2]["hash"]:
         return HEAD_LAGS
     raise IntegrityStop(f"{head.name}: does not match the last entry of the log")
 

@@ -8,6 +8,7 @@ killed run) are returned as notes.
 
 from __future__ import annotations
 
+import errno
 import json
 import math
 import os
@@ -25,7 +26,7 @@ from prespec.analysis.looks import look_problem, look_run
 from prespec.analysis.results import RunResults, finish, read_provenance, read_results
 from prespec.audit.entries import read_entry
 from prespec.audit.lockfile import logged_pending, pending_path, version_digest
-from prespec.audit.manifest import check_manifest
+from prespec.audit.manifest import FolderCheck, check_folder
 from prespec.common.canonical import file_sha256
 from prespec.common.departures import capped_found
 from prespec.common.records import first_problem
@@ -258,47 +259,74 @@ def _check_plan_file(plan: Path, doc: dict[str, Any], entries: list[dict[str, An
     result.passed.append("plan file: differs from its lock, recorded as an accepted departure")
 
 
-def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult) -> tuple[Path, str]:
-    """The folder holding the files of the report ``entry`` names, and its relative path."""
+def _report_folder(plan: Path, entry: dict[str, Any], result: VerifyResult
+                   ) -> tuple[Path, str, FolderCheck]:
+    """The folder holding the files of the report ``entry`` names, its relative path, and
+    what :func:`check_folder` found in it (one walk, each file read once)."""
     where = f"log entry {entry['seq']} ({entry['action']})"
     details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
     rel = details.get("report")
-    if not isinstance(rel, str) or not rel or Path(rel).is_absolute():
+    if not isinstance(rel, str) or not rel or os.path.isabs(rel):
         raise _fail(result, f"{where}: no relative report path")
     folder = plan.parent / rel
-    if folder.is_dir() and not folder.is_symlink() and any(folder.iterdir()):
-        return folder, rel
+    real_folder = _is_real_folder(folder)
+    if real_folder:
+        checked = check_folder(folder, keep=_KEPT, not_a_link=True)
+        # an empty walk is an empty folder, or one it may not read: listing it again says
+        if checked.entries or _has_children(folder):
+            return folder, rel, checked
     pending = pending_report(plan, entry)
     if pending is not None:
         result.notes.append(
             f"report {rel}: complete, but its run stopped before moving it into place; its "
             f"files are in {pending.partial.name} beside it (checked there); the next "
             "prespec run on this plan moves it")
-        return pending.partial, rel
-    if folder.is_dir() and not folder.is_symlink():
+        return pending.partial, rel, check_folder(pending.partial, keep=_KEPT)
+    if real_folder:
         raise _fail(result, f"{where}: report folder {rel} is empty")
     raise _fail(result, f"{where}: report folder {rel} is missing")
 
 
+_KEPT = ("results.json",)  # read by verify after the manifest check, from the bytes it hashed
+
+
+def _is_real_folder(path: Path) -> bool:
+    """A folder, not a link to one (one ``lstat``)."""
+    try:
+        return stat.S_ISDIR(os.lstat(path).st_mode)
+    except OSError as exc:
+        if exc.errno in (errno.ENOENT, errno.ENOTDIR, errno.EBADF, errno.ELOOP):
+            return False  # as Path.is_dir() says no
+        raise
+
+
+def _has_children(folder: Path | str) -> bool:
+    with os.scandir(folder) as listing:
+        return any(True for _ in listing)
+
+
 def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResult
-                   ) -> dict[str, Path]:
+                   ) -> tuple[dict[str, Path], dict[str, list[str]]]:
+    """Every report folder the log names against its manifest and its log entry: the
+    folders by their relative paths, and the warnings about what is inside each
+    (:func:`_contents_warnings`, taken from the same walk and added after the leftovers')."""
     found: dict[str, Path] = {}
+    inside: dict[str, list[str]] = {}
     for entry in entries:
         if entry["action"] not in ("run", "rehearse", "look"):
             continue
-        folder, rel = _report_folder(plan, entry, result)
+        folder, rel, checked = _report_folder(plan, entry, result)
         if rel in found:
             raise _fail(result, f"log entry {entry['seq']}: names report {rel} a second time")
-        problem = check_manifest(folder)
-        if problem:
-            raise _fail(result, f"report {rel}: {problem}")
-        if file_sha256(folder / "manifest.json") != entry["details"].get("manifest"):
+        if checked.problem:
+            raise _fail(result, f"report {rel}: {checked.problem}")
+        if checked.manifest != entry["details"].get("manifest"):
             raise _fail(result, f"report {rel}: manifest.json is not the one the log recorded")
-        try:
-            doc = json.loads((folder / "results.json").read_text("utf-8"))
+        try:  # the bytes just checked against the manifest
+            doc = json.loads(checked.kept["results.json"].decode("utf-8"))
             if not isinstance(doc, dict):
                 raise TypeError
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError, TypeError):
+        except (KeyError, UnicodeDecodeError, json.JSONDecodeError, TypeError):
             raise _fail(result, f"report {rel}: results.json is missing or unreadable") from None
         try:
             read = read_provenance(doc)
@@ -325,12 +353,15 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if problem:
             raise _fail(result, f"report {rel}: {problem}")
         found[rel] = folder
+        warnings = _contents_warnings(rel, checked)
+        if warnings:
+            inside[rel] = warnings
     result.passed.append(f"reports: {len(found)} folder(s) match their manifests and log entries")
     looked = [e for e in entries if isinstance(e["details"], dict) and "look" in e["details"]]
     if looked:
         result.passed.append(f"interim looks: {len(looked)} look(s) in the log, each report's "
                              "look, observed fractions, z statistics and history match the log")
-    return found
+    return found, inside
 
 
 _STOPPED_RUN_NAME = re.compile(r"\d{8}T\d{6}Z-(run|rehearsal)(-\d+)?")  # default_folder's
@@ -369,18 +400,23 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
         if where.is_symlink():
             result.warnings.append(f"{_shown(plan, where)}: a symbolic link; report folders "
                                    "are real folders inside the study (not written by prespec)")
-    named = {Path(os.path.abspath(plan.parent / rel)) for rel in found}
-    in_use = {Path(os.path.abspath(p)) for p in found.values()}
+    # absolute, normalised paths as text: a set of 10,000 of them is cheap, of Paths not
+    here = os.path.abspath(plan.parent)
+    named = {os.path.abspath(os.path.join(here, rel)) for rel in found}
+    in_use = {os.path.abspath(p) for p in found.values()}
     # a plan named ``...yaml`` (stem ``..``) has no folder of its own under reports/
     own_abs = Path(os.path.abspath(own)) if plan.stem not in ("", ".", "..") else None
-    places = ({own_abs} if own_abs else set()) | {p.parent for p in named}
-    prefixes = {f".{p.name}{PARTIAL}" for p in named}
+    places = ({own_abs} if own_abs else set()) | {
+        Path(p) for p in {os.path.dirname(p) for p in named}}
+    prefixes = {f".{os.path.basename(p)}{PARTIAL}" for p in named}
     for place in sorted(places):
         if not place.is_dir():
             continue
-        for child in sorted(place.iterdir()):
-            if child in named or child in in_use:
+        for name in sorted(os.listdir(place)):
+            text = os.path.join(place, name)
+            if text in named or text in in_use:
                 continue
+            child = Path(text)
             rel = _shown(plan, child)
             mode = child.lstat().st_mode
             temporary = child.name.startswith(".") and PARTIAL in child.name
@@ -388,7 +424,7 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
                 if place != own_abs and not any(child.name.startswith(p) for p in prefixes):
                     continue  # a folder chosen with --out: only the temporary folders of its
                     # named reports are looked at
-                _temporary_folder(plan, child, rel, found, result)
+                _temporary_folder(child, rel, named, result)
             elif place != own_abs:
                 continue
             elif not stat.S_ISDIR(mode):
@@ -407,16 +443,15 @@ def _check_leftovers(plan: Path, found: dict[str, Path], result: VerifyResult) -
                                        "recorded run reserved it")
 
 
-def _temporary_folder(plan: Path, child: Path, rel: str, found: dict[str, Path],
-                      result: VerifyResult) -> None:
+def _temporary_folder(child: Path, rel: str, named: set[str], result: VerifyResult) -> None:
     """``.<name>.partial-*``: a run's leftover only when ``<name>``, the folder that run
     reserved, is beside it, empty and not named by the log (a run killed before its log entry
-    leaves both); otherwise it is planted or left by hand, and a warning."""
+    leaves both); otherwise it is planted or left by hand, and a warning. ``named``: the
+    absolute paths of the report folders the log names."""
     name = child.name[1:child.name.index(PARTIAL)]
     reserved = child.parent / name
-    logged = {Path(os.path.abspath(plan.parent / r)) for r in found}
     if (reserved.is_dir() and not reserved.is_symlink() and not any(reserved.iterdir())
-            and Path(os.path.abspath(reserved)) not in logged):
+            and os.path.abspath(reserved) not in named):
         result.notes.append(f"{rel}: a temporary folder left by a run that was stopped before "
                             f"its log entry (its reserved folder {name} is empty beside it); "
                             "not part of any report, safe to delete")
@@ -426,25 +461,37 @@ def _temporary_folder(plan: Path, child: Path, rel: str, found: dict[str, Path],
                            "names that report); not produced by a recorded run")
 
 
-def _check_report_contents(found: dict[str, Path], result: VerifyResult) -> None:
-    """Inside each named report: what its manifest cannot list (it lists plain files only):
-    an empty folder, a FIFO, socket or device; each a warning by name. (A link fails in
-    ``check_manifest``; an extra plain file fails there too.)"""
-    for rel, folder in sorted(found.items()):
-        for root, dirs, files in os.walk(folder):
-            dirs.sort()  # named in a stable order
-            here = Path(root)
-            for name in sorted(dirs + files):
-                path = here / name
-                mode = path.lstat().st_mode
-                inner = path.relative_to(folder).as_posix()
-                if stat.S_ISDIR(mode):
-                    if not any(path.iterdir()):
-                        result.warnings.append(f"report {rel}: {inner}: an empty folder inside "
-                                               "the report (not in its manifest)")
-                elif not stat.S_ISREG(mode) and not stat.S_ISLNK(mode):
-                    result.warnings.append(f"report {rel}: {inner}: {_kind_of(mode)} inside "
-                                           "the report (not in its manifest)")
+def _contents_warnings(rel: str, checked: FolderCheck) -> list[str]:
+    """Inside a named report: what its manifest cannot list (it lists plain files only): an
+    empty folder, a FIFO, socket or device; each a warning by name, in the order of a
+    top-down walk with names sorted. (A link fails in ``check_folder``; an extra plain file
+    fails there too.) From the walk ``check_folder`` made: no file is looked at again."""
+    out: list[str] = []
+    folders = {inner for inner, entry in checked.entries if entry.is_dir(follow_symlinks=False)}
+    if folders <= {inner.rpartition("/")[0] for inner, _ in checked.entries} and all(
+            entry.is_file(follow_symlinks=False) or entry.is_symlink() or inner in folders
+            for inner, entry in checked.entries):
+        return out  # every folder holds something, and every other entry is a file or a link
+    inside: dict[str, list[tuple[str, os.DirEntry[str]]]] = {}
+    for inner, entry in checked.entries:
+        inside.setdefault(inner.rpartition("/")[0], []).append((inner, entry))
+    todo = [""]
+    while todo:
+        children = sorted(inside.get(todo.pop(), ()), key=lambda c: c[1].name)
+        folders = []
+        for inner, entry in children:
+            if entry.is_dir(follow_symlinks=False):
+                folders.append(inner)
+                # nothing under it in the walk: empty, or unreadable (listing it says)
+                if inner not in inside and not _has_children(entry.path):
+                    out.append(f"report {rel}: {inner}: an empty folder inside the report "
+                               "(not in its manifest)")
+            elif not entry.is_file(follow_symlinks=False) and not entry.is_symlink():
+                kind = _kind_of(entry.stat(follow_symlinks=False).st_mode)
+                out.append(f"report {rel}: {inner}: {kind} inside the report (not in its "
+                           "manifest)")
+        todo.extend(reversed(folders))  # the first folder's contents next, as os.walk
+    return out
 
 
 def _check_strict(result: VerifyResult) -> None:
@@ -510,11 +557,12 @@ def _override_text(dev: dict[str, Any]) -> str:
     return f"{key} {dev.get('expected')} → {dev.get('found')}"
 
 
-def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]],
-                 later_lock: dict[str, Any] | None) -> RunVerdict:
+def _run_verdict(number: int, entry: dict[str, Any], locks: list[dict[str, Any]],
+                 first_run: int | None, later_lock: dict[str, Any] | None) -> RunVerdict:
+    """The verdict on ``entry``, from the lock and amend entries before it (``locks``), the
+    seq of the first run or look before it, and the first lock entry after it."""
     devs = [d for d in entry.get("deviations") or [] if isinstance(d, dict)]
     codes = [str(d.get("code")) for d in devs]
-    locks = [e for e in before if e["action"] in ("lock", "amend")]
     in_force = locks[-1] if locks else None
     version = _version_of(in_force) if in_force is not None else None
     reasons: list[str] = []
@@ -539,7 +587,6 @@ def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]
                        + f" (override{_accepted(overrides[0])})")
         labels.append("overrides " + ", ".join(
             str(d.get("detail") or "").split(": ", 1)[0] for d in overrides))
-    first_run = next((e["seq"] for e in before if e["action"] in ("run", "look")), None)
     late = [e for e in locks if e["action"] == "amend" and (
         first_run is not None and e["seq"] > first_run or any(
             isinstance(d, dict) and d.get("code") == "amended-after-unblinding"
@@ -558,13 +605,19 @@ def _run_verdict(number: int, entry: dict[str, Any], before: list[dict[str, Any]
 
 
 def run_verdicts(entries: list[dict[str, Any]]) -> list[RunVerdict]:
-    """One verdict per run and look entry of the log, in log order."""
-    out = []
-    for index, entry in enumerate(e for e in entries if e["action"] in ("run", "look")):
-        later = next((e for e in entries if e["action"] == "lock" and e["seq"] > entry["seq"]),
-                     None)
-        out.append(_run_verdict(index + 1, entry,
-                                [e for e in entries if e["seq"] < entry["seq"]], later))
+    """One verdict per run and look entry of the log, in log order (one pass: the entries
+    before each are those earlier in the log, whose seq the chain check made 1, 2, …)."""
+    out: list[RunVerdict] = []
+    lock_entries = [e for e in entries if e["action"] == "lock"]
+    locks: list[dict[str, Any]] = []
+    first_run: int | None = None
+    for entry in entries:
+        if entry["action"] in ("lock", "amend"):
+            locks.append(entry)
+        elif entry["action"] in ("run", "look"):
+            later = next((e for e in lock_entries if e["seq"] > entry["seq"]), None)
+            out.append(_run_verdict(len(out) + 1, entry, locks, first_run, later))
+            first_run = entry["seq"] if first_run is None else first_run
     return out
 
 
@@ -600,9 +653,10 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
     doc = _check_lock(plan, entries, result)
     if doc is not None:
         _check_plan_file(plan, doc, entries, result)
-    found = _check_reports(plan, entries, result)
+    found, inside = _check_reports(plan, entries, result)
     _check_leftovers(plan, found, result)
-    _check_report_contents(found, result)
+    for rel in sorted(inside):
+        result.warnings.extend(inside[rel])
     if expect is not None:
         first = next((e for e in entries if e["action"] == "lock"), None)
         if first is None:
