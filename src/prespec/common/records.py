@@ -40,6 +40,10 @@ TAG = "~"
 LENIENT = "lenient"
 
 
+#: The keys each model knows (aliases where given), computed once per model.
+_KNOWN: dict[type, frozenset[str]] = {}
+
+
 class Part(BaseModel):
     """A part of a record: unknown keys are refused as it is written; as it is read with
     ``context={LENIENT: True}``, the keys of an earlier or later prespec it does not know are
@@ -51,8 +55,12 @@ class Part(BaseModel):
     @classmethod
     def _known_keys_only(cls, data: Any, info: ValidationInfo) -> Any:
         if isinstance(data, dict) and info.context and info.context.get(LENIENT):
-            known = {f.alias or name for name, f in cls.model_fields.items()}
-            return {k: v for k, v in data.items() if k in known}
+            known = _KNOWN.get(cls)
+            if known is None:
+                known = _KNOWN[cls] = frozenset(f.alias or name
+                                                for name, f in cls.model_fields.items())
+            if not known.issuperset(data):
+                return {k: v for k, v in data.items() if k in known}
         return data
 
     def dumped(self) -> dict[str, Any]:
