@@ -85,19 +85,12 @@ class FolderCheck:
     entries: tuple[tuple[str, os.DirEntry[str]], ...] = ()
 
 
-def check_manifest(folder: Path) -> str | None:
-    """The first way ``folder`` differs from its manifest, or None when every file matches.
-
-    Links are refused (a report folder holds plain files and folders only), and so are
-    manifest names that point outside the folder.
-    """
-    return check_folder(folder).problem
-
-
 def check_folder(folder: Path, keep: tuple[str, ...] = (), *, not_a_link: bool = False
                  ) -> FolderCheck:
-    """:func:`check_manifest`, keeping the manifest's digest, the bytes of the files named in
-    ``keep`` (those the manifest lists) and the folder's entries for the caller.
+    """How ``folder`` differs from its manifest (the first way, or None when every file
+    matches; links are refused, and so are manifest names that point outside the folder),
+    keeping the manifest's digest, the bytes of the files named in ``keep`` (those the manifest
+    lists) and the folder's entries for the caller.
     ``not_a_link``: the caller has just seen (``lstat``) that ``folder`` is a real folder."""
     if not not_a_link and folder.is_symlink():
         return FolderCheck("the report folder is a symbolic link")
