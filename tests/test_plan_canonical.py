@@ -182,6 +182,13 @@ LEFT_OUT_AT_DEFAULT = {
     ("Hypothesis", "flag_level"): None,
     ("Hypothesis", "group_level"): None,
     ("Hypothesis", "members"): None,
+    # covariate adjustment and the stratified score test: written only by the tests using them
+    ("Hypothesis", "covariates"): None,
+    ("Hypothesis", "variance"): None,
+    ("Hypothesis", "randomisation_strata"): None,
+    ("Hypothesis", "covariate_missing"): None,
+    ("Hypothesis", "fallback"): None,
+    ("Hypothesis", "weights"): None,
 }
 
 

@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from prespec.analysis import decision, methods, sensitivity
+from prespec.analysis import adjusted, decision, methods, sensitivity
 from prespec.analysis.decision import MAIN_FAMILY
 from prespec.common.departures import Note
 from prespec.data import Prepared
@@ -55,6 +55,10 @@ def _table(hyp: Hypothesis, plan: Any, prepared: Prepared,
     hypothesis of the plan whose counts it uses, itself unless it is a follow-up)."""
     groups = _groups_of(hyp, plan)
     source = source or hyp.id
+    units = prepared.units.get(source) if getattr(hyp, "covariates", None) is not None else None
+    if units is not None:  # a covariate-adjusted test: the units it analyses
+        events, totals = units.table()
+        return methods.Table(events, totals, units=units), None
     events, totals = prepared.counts_for(source, hyp.outcome).table(groups)
     if not hyp.strata:
         return methods.Table(events, totals), None
@@ -140,6 +144,8 @@ def _blank_entry(hyp: Hypothesis, plan: Any, groups: list[str], table: methods.T
         "family": decision.family_of(hyp),
         "estimand": None,
         "sensitivity": None,
+        "adjusted": None,
+        "stratified": None,
     }
 
 
@@ -179,6 +185,9 @@ def _primary(hyp: Hypothesis, plan: Plan, prepared: Prepared, notes: list[Note],
     if hyp.kind != "single":
         expected = tables.expected_counts(table.events, table.totals)
         entry["expected"] = [[float(a), float(b)] for a, b in expected]
+    level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
+    if table.units is not None:
+        return _adjusted(hyp, table, level, entry, notes)
     rule = _rule(hyp, table)
     run_as = hyp.model_copy(update={"test": rule["to"]}) if rule else hyp
     if rule:
@@ -194,7 +203,9 @@ def _primary(hyp: Hypothesis, plan: Plan, prepared: Prepared, notes: list[Note],
         mc = outcome.monte_carlo
         mc["standard_error"] = finite_or_note(mc["standard_error"], f"{hyp.id}: the Monte Carlo "
                                        "standard error", notes)
-    if table.strata is not None:
+    if table.strata is not None and run_as.test == "stratified-score":
+        entry["stratified"] = adjusted.stratified_json(table.strata, run_as)
+    if table.strata is not None and run_as.test == "cochran-mantel-haenszel":
         het = methods.homogeneity(table)
         if het is not None:
             entry["homogeneity"] = {"test": het.method, **{
@@ -204,9 +215,25 @@ def _primary(hyp: Hypothesis, plan: Plan, prepared: Prepared, notes: list[Note],
                 notes.append(Note("homogeneity", f"{hyp.id}: Breslow–Day test with Tarone's "
                                   f"correction over {len(table.strata)} strata, p = "
                                   f"{entry['homogeneity']['p_value']:.4g}"))
-    level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
     entry["estimate"] = estimate_json(methods.estimate(hyp, table, level), level, hyp.id,
                                        notes)
+    return entry
+
+
+def _adjusted(hyp: Hypothesis, table: methods.Table, level: float, entry: dict[str, Any],
+              notes: list[Note]) -> dict[str, Any]:
+    """A covariate-adjusted entry: the working model's marginal effect, or the fallback."""
+    counts = methods.Table(table.events, table.totals)
+
+    def unadjusted(run_as: Any) -> tuple[TestResult, Any]:
+        return (methods.TESTS[run_as.test](counts, run_as).result,
+                methods.estimate(run_as, counts, level))
+
+    ran, result, est, entry["adjusted"] = adjusted.run_adjusted(hyp, table.units, level,
+                                                               notes, unadjusted)
+    entry.update(_test_json(result, f"{hyp.id}: the", notes))
+    entry["test"] = ran
+    entry["estimate"] = estimate_json(est, level, hyp.id, notes)
     return entry
 
 

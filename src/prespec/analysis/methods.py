@@ -11,6 +11,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from prespec.analysis import adjusted
 from prespec.errors import DataError
 from prespec.stats import (
     exact,
@@ -32,11 +33,13 @@ Strata = Sequence[tuple[int, int, int, int]]
 
 @dataclass(frozen=True)
 class Table:
-    """What a test needs: the groups' events and totals, and the strata when stratified."""
+    """What a test needs: the groups' events and totals, the strata when stratified, and the
+    analysed units (``data.prepare.Units``) of a covariate-adjusted test."""
 
     events: list[int]
     totals: list[int]
     strata: list[tuple[int, int, int, int]] | None = None
+    units: Any = None
 
     @property
     def pair(self) -> tuple[int, int, int, int]:
@@ -121,6 +124,10 @@ TESTS: dict[str, Callable[[Table, Any], TestOutcome]] = {
         )
     ),
     "farrington-manning": _plain(_margin_test(margins.farrington_manning)),
+    "stratified-score": _plain(lambda t, h: adjusted.stratified_score(t.strata or [], h)),
+    # the test alone (hypotheses.py runs the whole adjusted analysis, with its fallback)
+    "g-computation": _plain(
+        lambda t, h: adjusted.adjusted_test(adjusted.fit(h, t.units, 0.95), h)),
     "cochran-armitage-trend": _plain(
         lambda t, h: trend.cochran_armitage(
             t.events, t.totals, scores=h.scores, alternative=h.alternative
@@ -174,6 +181,8 @@ def estimate(hyp: Hypothesis, table: Table, level: float) -> Estimate | None:
         return None
     if hyp.kind == "single":
         return SINGLE_INTERVALS[hyp.interval](table.events[0], table.totals[0], level)
+    if table.strata is not None and hyp.test == "stratified-score":
+        return adjusted.stratified_estimate(table.strata, hyp, level)
     if table.strata is not None:
         return STRATIFIED_ESTIMATES[hyp.measure](table.strata, level)
     return PAIR_INTERVALS[hyp.measure][hyp.interval](*table.pair, level)

@@ -28,6 +28,8 @@ DEPARTURE_CODES: dict[str, str] = {
     "look-off-plan": "a look with classical boundaries away from its planned information "
                      "fraction, where those boundaries do not hold",
     "undeclared-level": "rows of a family whose level is not one of its declared levels",
+    "missing-covariate": "units of a covariate-adjusted hypothesis left out for a blank "
+                         "covariate",
 }
 
 # Departures that stop a run (exit 3) unless the user accepts them with a reason.

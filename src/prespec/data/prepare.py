@@ -92,6 +92,34 @@ class HypothesisCounts:
 
 
 @dataclass(frozen=True)
+class Units:
+    """The analysed units of a covariate-adjusted hypothesis (test g-computation).
+
+    One entry per row of the frame read, each standing for ``weights`` source rows (1 from
+    the pandas engine; an aggregating engine's count of the distinct combination). Units
+    with a blank covariate or randomisation stratum are left out (``missing_covariate``).
+    """
+
+    hypothesis: str
+    groups: tuple[str, str]  # (a, b): the first group of compare is "treated"
+    outcome: np.ndarray  # 1.0 event, 0.0 no event (after the missing rule and the estimand)
+    treated: np.ndarray  # 1.0 for the first group of compare, 0.0 for the second
+    covariates: tuple[tuple[str, str, np.ndarray], ...]  # (column, kind, values)
+    weights: np.ndarray  # int64
+    strata: np.ndarray | None  # randomisation stratum label of each unit, or None
+    missing_covariate: dict[str, dict[str, int]]  # per group, per column: units left out
+
+    def table(self) -> tuple[list[int], list[int]]:
+        """Events and totals of the two groups over these units."""
+        events, totals = [], []
+        for flag in (1.0, 0.0):
+            mine = self.treated == flag
+            events.append(int(self.weights[mine & (self.outcome == 1.0)].sum()))
+            totals.append(int(self.weights[mine].sum()))
+        return events, totals
+
+
+@dataclass(frozen=True)
 class Prepared:
     rows_read: int
     excluded_by_filter: int
@@ -104,6 +132,8 @@ class Prepared:
     strata: dict[tuple[str, tuple[str, ...]], tuple[Stratum, ...]] = field(default_factory=dict)
     # per hypothesis id whose estimand names intercurrent events: its own counts
     by_hypothesis: dict[str, HypothesisCounts] = field(default_factory=dict)
+    # per covariate-adjusted hypothesis id: its analysed units
+    units: dict[str, Units] = field(default_factory=dict)
 
     def counts_for(self, hyp_id: str, outcome: str) -> OutcomeCounts:
         """The counts a hypothesis is analysed on: its own under an estimand, else the plain."""
@@ -237,6 +267,11 @@ def needed_columns(plan: Plan) -> dict[str, str]:
         for column in columns:
             needed.setdefault(column, f"hypotheses.{hyp_id}.strata")
     for hyp in plan.hypotheses:
+        for column in getattr(hyp, "covariates", None) or {}:
+            needed.setdefault(column, f"hypotheses.{hyp.id}.covariates")
+        for column in getattr(hyp, "randomisation_strata", None) or []:
+            needed.setdefault(column, f"hypotheses.{hyp.id}.randomisation_strata")
+    for hyp in plan.hypotheses:
         for j, ice in enumerate(_intercurrent(hyp), start=1):
             where = f"hypotheses.{hyp.id}.estimand.intercurrent[{j}]"
             needed.setdefault(ice.column, f"{where}.column")
@@ -339,10 +374,16 @@ def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
                      plan.outcomes[key[0]].missing, notes, at)
         for key in stratified
     }
+    own_kinds: dict[str, np.ndarray] = {}
     by_hypothesis = {
         hyp.id: _hypothesis_counts(frame, hyp, plan, kinds[hyp.outcome], group_col,
-                                   analysed_rows, source, at, deviations, notes)
+                                   analysed_rows, source, at, deviations, notes, own_kinds)
         for hyp in with_events
+    }
+    units = {
+        hyp.id: _units(frame, hyp, plan, own_kinds.get(hyp.id, kinds[hyp.outcome]), group_col,
+                       analysed_rows, source, at, deviations)
+        for hyp in plan.hypotheses if getattr(hyp, "covariates", None) is not None
     }
     if spec.planned_n:
         for name, counts in outcomes.items():
@@ -368,6 +409,7 @@ def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
         notes=tuple(notes),
         strata=strata,
         by_hypothesis=by_hypothesis,
+        units=units,
     )
 
 
@@ -392,7 +434,8 @@ def _blanks_matter(plan: Plan, name: str) -> bool:
 
 def _hypothesis_counts(frame: pd.DataFrame, hyp: Hypothesis, plan: Plan, plain: np.ndarray,
                        group_col: np.ndarray, rows: np.ndarray, source: str, at: _Rows,
-                       deviations: list[Departure], notes: list[Note]) -> HypothesisCounts:
+                       deviations: list[Departure], notes: list[Note],
+                       kinds_out: dict[str, np.ndarray] | None = None) -> HypothesisCounts:
     """The hypothesis's counts after its estimand's strategies (ICH E9(R1)).
 
     Row by row, the first intercurrent event listed that happened decides: treatment-policy
@@ -433,6 +476,8 @@ def _hypothesis_counts(frame: pd.DataFrame, hyp: Hypothesis, plan: Plan, plain: 
             f"blank in {at.count(still_blank)} analysed rows that no intercurrent event "
             f"decides ({at.where(still_blank)}); missing: error"
         )
+    if kinds_out is not None:
+        kinds_out[hyp.id] = kind
     tally = _tally(name, kind, group_col, rows, groups, outcome.missing, at)
     if any(ice.strategy != "treatment-policy" for ice in _intercurrent(hyp)):
         _missing_note(name, outcome.missing, tally, notes, who=f"{hyp.id} (after its "
@@ -576,4 +621,90 @@ def _strata(frame: pd.DataFrame, key: tuple[str, tuple[str, ...]], kind: np.ndar
         Stratum(tuple(v.split("\x1f")),
                 _tally(name, kind, group_col, rows & (combined == v), groups, missing, at))
         for v in values
+    )
+
+
+def _units(frame: pd.DataFrame, hyp: Hypothesis, plan: Plan, kind: np.ndarray,
+           group_col: np.ndarray, rows: np.ndarray, source: str, at: _Rows,
+           deviations: list[Departure]) -> Units:
+    """The analysed units of a g-computation hypothesis: its two groups, the outcome after
+    the missing rule (and the estimand's strategies), each covariate read by its kind.
+
+    A blank covariate or randomisation-stratum cell leaves the unit out with the departure
+    ``missing-covariate`` (``covariate_missing: error``: bad input); a numeric covariate
+    holding anything but a number is bad input.
+    """
+    missing = plan.outcomes[hyp.outcome].missing
+    a, b = hyp.compare
+    counted = np.isin(kind, ["event", "no-event"])
+    if missing in ("event", "no-event"):
+        counted = np.isin(kind, ["event", "no-event", "blank", "unmapped"])
+    event = (kind == "event") | (missing == "event") & np.isin(kind, ["blank", "unmapped"])
+    mine = rows & counted & ((group_col == a) | (group_col == b))
+    where = f"hypotheses.{hyp.id}"
+    blank_by: dict[str, np.ndarray] = {}
+    columns: list[tuple[str, str, np.ndarray]] = []
+    for column, ckind in hyp.covariates.items():
+        cells = frame[column]
+        blank = _per_unique(cells, is_blank).astype(bool)
+        blank_by[column] = blank
+        if ckind == "numeric":
+            values = _per_unique(cells, lambda c: np.nan if is_blank(c) else as_number(c))
+            values = np.array([np.nan if v is None else v for v in values], dtype=float)
+            bad = mine & ~blank & np.isnan(values)
+            if bad.any():
+                raise DataError(
+                    f"{source}: {where}.covariates.{column}: column {column!r} is numeric "
+                    f"in the plan and holds values that are not numbers: "
+                    f"{_listing(at.found(cells, bad))} ({at.where(bad)})")
+        else:
+            values = _per_unique(cells, lambda c: "" if is_blank(c) else as_text(c))
+        columns.append((column, ckind, values))
+    strata_labels = None
+    if hyp.randomisation_strata:
+        parts = []
+        for column in hyp.randomisation_strata:
+            cells = frame[column]
+            blank_by.setdefault(column, _per_unique(cells, is_blank).astype(bool))
+            parts.append(_per_unique(cells, lambda c: "" if is_blank(c) else as_text(c)))
+        strata_labels = np.array(["\x1f".join(x) for x in zip(*parts, strict=True)],
+                                 dtype=object)
+    any_blank = np.zeros(len(rows), dtype=bool)
+    for blank in blank_by.values():
+        any_blank |= blank
+    left_out = mine & any_blank
+    missing_covariate: dict[str, dict[str, int]] = {}
+    if left_out.any():
+        per_column = {c: at.count(mine & blank) for c, blank in blank_by.items()
+                      if (mine & blank).any()}
+        if hyp.covariate_missing == "error":
+            shown = ", ".join(f"{c!r} ({n})" for c, n in per_column.items())
+            raise DataError(f"{source}: {where}: blank covariates in "
+                            f"{_rows(at.count(left_out))} analysed rows: {shown} "
+                            f"({at.where(left_out)}); covariate_missing: error")
+        for g in (a, b):
+            counts = {c: at.count(mine & blank & (group_col == g))
+                      for c, blank in blank_by.items()}
+            missing_covariate[g] = {c: n for c, n in counts.items() if n}
+        per_group = {g: at.count(left_out & (group_col == g)) for g in (a, b)}
+        deviations.append(Departure(
+            "missing-covariate",
+            f"{hyp.id}: {_rows(at.count(left_out))} with a blank covariate left out of the "
+            f"adjusted analysis; per group: "
+            + ", ".join(f"{g} {n}" for g, n in per_group.items())
+            + "; per column: " + ", ".join(f"{c} {n}" for c, n in per_column.items()),
+            "every analysed unit with its covariates",
+            ", ".join(f"{g}: {n} left out" for g, n in per_group.items())))
+    use = mine & ~any_blank
+    weights = (at.weights[use] if at.weights is not None
+               else np.ones(int(use.sum()), dtype=np.int64))
+    return Units(
+        hypothesis=hyp.id,
+        groups=(a, b),
+        outcome=event[use].astype(float),
+        treated=(group_col[use] == a).astype(float),
+        covariates=tuple((c, k, v[use]) for c, k, v in columns),
+        weights=np.asarray(weights, dtype=np.int64),
+        strata=None if strata_labels is None else strata_labels[use],
+        missing_covariate=missing_covariate,
     )

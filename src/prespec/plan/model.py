@@ -37,6 +37,10 @@ Role = Literal[v.ROLES]  # type: ignore[valid-type]
 MissingRule = Literal[v.MISSING_RULES]  # type: ignore[valid-type]
 Pairwise = Literal[v.PAIRWISE]  # type: ignore[valid-type]
 FlagMethod = Literal[v.FLAG_METHODS]  # type: ignore[valid-type]
+CovariateKind = Literal[v.COVARIATE_KINDS]  # type: ignore[valid-type]
+VarianceName = Literal[v.VARIANCES]  # type: ignore[valid-type]
+CovariateMissing = Literal[v.COVARIATE_MISSING]  # type: ignore[valid-type]
+StratumWeights = Literal[v.STRATUM_WEIGHTS]  # type: ignore[valid-type]
 
 
 def problem(message: str) -> PydanticCustomError:
@@ -398,21 +402,23 @@ def kind_of(compare: Any) -> str | None:
 
 def default_measure(kind: str | None, test: Any) -> str | None:
     """The default measure for a compare kind and test (docs/plan-format.md, "What each kind of
-    `compare` takes")."""
+    `compare` takes"): a test with its own intervals names its first measure."""
     measures = v.MEASURES_BY_KIND.get(kind or "", ())
     if not measures:
         return None
-    if test in v.STRATIFIED_TESTS:
-        return v.STRATIFIED_DEFAULT_MEASURE
+    if test in v.OWN_INTERVALS:
+        return next(iter(v.OWN_INTERVALS[test]))
     return measures[0]
 
 
 def default_interval(kind: str | None, test: Any, measure: Any) -> str | None:
-    """The default interval for a measure, the stratified one under a stratified test."""
+    """The default interval for a measure: the test's own first one under a test that brings
+    its own (the stratified one under cochran-mantel-haenszel)."""
     if kind not in ("pair", "single") or measure not in v.INTERVALS_BY_MEASURE:
         return None
-    if test in v.STRATIFIED_TESTS:
-        return v.STRATIFIED_INTERVALS.get(measure)
+    if test in v.OWN_INTERVALS:
+        own = v.OWN_INTERVALS[test].get(measure)
+        return own[0] if own else None
     return v.INTERVALS_BY_MEASURE[measure][0]
 
 
@@ -476,6 +482,29 @@ class Hypothesis(_Model):
     flag_level: Probability | None = Field(default=None, description=FAMILY_DOC["flag_level"])
     group_level: Probability | None = Field(default=None, description=FAMILY_DOC["group_level"])
     members: list[str] | None = Field(default=None, description=FAMILY_DOC["members"])
+    # Covariate adjustment (test: g-computation) and the stratified score test.
+    covariates: dict[str, CovariateKind] | None = Field(
+        default=None, description="g-computation: the baseline covariates of the working "
+        "model, column: numeric or categorical (a categorical one is coded by indicators, its "
+        "first level in sorted order the reference)")
+    variance: VarianceName | None = Field(
+        default=None, description="g-computation: ye (Ye, Shao, Yi and Zhao 2023; the "
+        "default) or ge (Ge et al. 2011, delta method over the HC0 sandwich)")
+    randomisation_strata: list[str] | None = Field(
+        default=None, description="g-computation with variance ye: the columns randomisation "
+        "was stratified by (permuted blocks within strata); the variance then takes the "
+        "stratified-randomisation form")
+    covariate_missing: CovariateMissing | None = Field(
+        default=None, description="g-computation: a unit with a blank covariate is left out "
+        "with the departure missing-covariate (exclude, the default), or is bad input (error)")
+    fallback: TestName | None = Field(
+        default=None, description="g-computation: the unadjusted test run when the working "
+        "model fails (no convergence, separation, collinear covariates), with a note; left "
+        "out, two-proportion-z")
+    weights: StratumWeights | None = Field(
+        default=None, description="stratified-score: the weights of the strata, cmh "
+        "(n1·n2/(n1 + n2), the default) or miettinen-nurminen (inverse variance at the "
+        "restricted estimates)")
 
     # an ordinary hypothesis resolves as before families and looks existed; a family writes
     # all its keys
@@ -483,7 +512,8 @@ class Hypothesis(_Model):
         always=("id", "title", "outcome", "compare", "test", "alternative", "comparison",
                 "margin", "measure", "interval", "continuity", "sparse", "role", "null_rate",
                 "strata", "scores", "then", "monte_carlo", "estimand", "sensitivity"),
-        if_set=("looks", "over"),
+        if_set=("looks", "over", "covariates", "variance", "randomisation_strata",
+                "covariate_missing", "fallback", "weights"),
         with_key={key: "over" for key in v.FAMILY_KEYS if key != "over"})
 
     @model_validator(mode="before")
@@ -497,6 +527,12 @@ class Hypothesis(_Model):
             out["measure"] = default_measure(kind, test)
         if out.get("interval") is None:
             out["interval"] = default_interval(kind, test, out["measure"])
+        if test in v.ADJUSTED_TESTS:
+            out.setdefault("variance", "ye")
+            out.setdefault("covariate_missing", "exclude")
+            out.setdefault("fallback", v.DEFAULT_FALLBACK)
+        if test == "stratified-score":
+            out.setdefault("weights", "cmh")
         return out
 
     @property

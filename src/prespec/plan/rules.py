@@ -253,6 +253,9 @@ def _sensitivity_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[
                 and outcome.favourable is None:
             yield Issue((*where, j), f"{name} needs outcomes.{hyp.outcome}.favourable "
                         "(event or no-event) to know which value is the worse one")
+        if name in ("worst-case", "best-case") and hyp.test in v.ADJUSTED_TESTS:
+            yield Issue((*where, j), f"{name} imputes a count table, and '{hyp.test}' fits a "
+                        "working model to each unit's covariates; leave it out")
         if name == "tipping-point":
             for test in (hyp.test, hyp.sparse.test if hyp.sparse else None):
                 if test in v.NO_TIPPING_POINT_TESTS:
@@ -401,26 +404,29 @@ def _estimate_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
         yield Issue((*path, "measure"), f"'{hyp.measure}' is not a measure for compare {label} "
                     f"(measures for {label}: {', '.join(measures)})")
         return
-    if hyp.test in v.STRATIFIED_TESTS:
-        allowed: tuple[str, ...] = (v.STRATIFIED_INTERVALS[hyp.measure],)
+    own = v.OWN_INTERVALS.get(hyp.test)
+    if own is not None and hyp.measure not in own:
+        yield Issue((*path, "measure"), f"'{hyp.measure}' is not a measure of '{hyp.test}' "
+                    f"(measures: {', '.join(own)})")
+        return
+    if own is not None:
+        allowed: tuple[str, ...] = own[hyp.measure]
         under = f"{hyp.measure} under '{hyp.test}'"
     else:
         allowed = v.INTERVALS_BY_MEASURE[hyp.measure]
         under = hyp.measure
     if hyp.interval not in allowed:
         hint = ""
-        owner = _measure_of_interval(str(hyp.interval), hyp.test in v.STRATIFIED_TESTS)
+        owner = _measure_of_interval(str(hyp.interval), own)
         if owner and owner != hyp.measure and owner in measures:
             hint = f"; '{hyp.interval}' is an interval for {owner} (set measure: {owner})"
         yield Issue((*path, "interval"), f"'{hyp.interval}' is not an interval for {under} "
                     f"(intervals: {', '.join(allowed)}){hint}")
 
 
-def _measure_of_interval(interval: str, stratified: bool) -> str | None:
-    if stratified:
-        owners = [m for m, i in v.STRATIFIED_INTERVALS.items() if i == interval]
-    else:
-        owners = [m for m, ints in v.INTERVALS_BY_MEASURE.items() if interval in ints]
+def _measure_of_interval(interval: str, own: dict[str, tuple[str, ...]] | None) -> str | None:
+    table = own if own is not None else v.INTERVALS_BY_MEASURE
+    owners = [m for m, ints in table.items() if interval in ints]
     return owners[0] if len(owners) == 1 else None
 
 
@@ -441,6 +447,10 @@ def _option_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue
         if hyp.test in v.STRATIFIED_TESTS:
             yield Issue((*path, "sparse"), f"a sparse switch does not apply to '{hyp.test}': "
                         "the switched test would ignore the strata")
+        if hyp.test in v.ADJUSTED_TESTS:
+            yield Issue((*path, "sparse"), f"a sparse switch does not apply to '{hyp.test}'; "
+                        "its fallback key names the test run when the working model fails",
+                        at_key=True)
     if kind == "single":
         if hyp.null_rate is None:
             yield Issue((*path, "null_rate"), "is required for compare [a] (the rate under the "
@@ -450,6 +460,7 @@ def _option_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue
     stratified = {hyp.test, hyp.sparse.test if hyp.sparse else ""} & v.STRATIFIED_TESTS
     if hyp.strata is not None:
         yield from _strata_issues(plan, hyp.strata, bool(stratified), (*path, "strata"))
+    yield from _adjusted_issues(plan, hyp, path)
     if hyp.then is not None and kind != "all":
         yield Issue((*path, "then"), f"follow-up comparisons apply to compare: all, not {label}",
                     at_key=True)
@@ -460,6 +471,59 @@ def _option_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue
     if hyp.monte_carlo is not None and not fisher_k:
         yield Issue((*path, "monte_carlo"), "a Monte Carlo p-value applies only to fisher-exact "
                     "on compare: all", at_key=True)
+
+
+def _other_column(plan: Plan, column: str, path: KeyPath, what: str) -> Iterator[Issue]:
+    """A column named by a covariate key must be a column other than the id, group, outcome."""
+    outcome_columns = {o.column for o in plan.outcomes.values()}
+    if not column.strip():
+        yield Issue(path, "must name a column")
+    elif column == plan.data.group:
+        yield Issue(path, f"{show(column)} is the group column; {what} are other columns")
+    elif column == plan.data.id:
+        yield Issue(path, f"{show(column)} is the unit id column (data.id); {what} are other "
+                    "columns")
+    elif column in outcome_columns:
+        yield Issue(path, f"{show(column)} is an outcome column; {what} are baseline columns")
+
+
+def _adjusted_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    """The keys of g-computation, used only by it, and the weights of stratified-score."""
+    adjusted = hyp.test in v.ADJUSTED_TESTS
+    for key in ("covariates", "variance", "randomisation_strata", "covariate_missing",
+                "fallback"):
+        if getattr(hyp, key) is not None and not adjusted:
+            yield Issue((*path, key), f"is used only with test: {', '.join(sorted(v.ADJUSTED_TESTS))}",
+                        at_key=True)
+    if hyp.weights is not None and hyp.test != "stratified-score":
+        yield Issue((*path, "weights"), "is used only with test: stratified-score", at_key=True)
+    if not adjusted:
+        return
+    if hyp.covariates is None:
+        yield Issue((*path, "test"), f"'{hyp.test}' needs covariates: {{column: numeric or "
+                    "categorical, ...}} on the hypothesis ({} for none)")
+    for column in hyp.covariates or {}:
+        yield from _other_column(plan, column, (*path, "covariates", column), "covariates")
+    if hyp.randomisation_strata is not None:
+        where: KeyPath = (*path, "randomisation_strata")
+        if hyp.variance != "ye":
+            yield Issue(where, "the stratified-randomisation form is that of variance: ye; "
+                        "leave randomisation_strata out with variance: ge", at_key=True)
+        if not hyp.randomisation_strata:
+            yield Issue(where, "must name at least one column")
+        for j, column in enumerate(hyp.randomisation_strata):
+            yield from _other_column(plan, column, (*where, j), "randomisation strata")
+            if column in hyp.randomisation_strata[:j]:
+                yield Issue((*where, j), f"{show(column)} is listed twice")
+    fallback = hyp.fallback
+    if fallback is not None:
+        where = (*path, "fallback")
+        if fallback not in v.FALLBACK_TESTS:
+            tests = ", ".join(sorted(v.FALLBACK_TESTS))
+            yield Issue(where, f"'{fallback}' cannot be the fallback of '{hyp.test}' (an "
+                        f"unadjusted test of two groups: {tests})")
+        else:
+            yield from _test_issues(hyp, fallback, where)
 
 
 def _strata_issues(plan: Plan, strata: list[str], stratified: bool,

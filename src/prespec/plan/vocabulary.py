@@ -35,6 +35,8 @@ KNOWN_TESTS_BY_KIND: dict[str, frozenset[str]] = {
             "boschloo-exact",
             "cochran-mantel-haenszel",
             "farrington-manning",
+            "stratified-score",
+            "g-computation",
         }
     ),
     "single": frozenset({"binomial-exact", "one-proportion-z"}),
@@ -61,9 +63,12 @@ CONTINUITY_TESTS_BY_KIND: dict[str, frozenset[str]] = {
     "all": frozenset(),
     "trend": frozenset(),
 }
-STRATIFIED_TESTS: frozenset[str] = frozenset({"cochran-mantel-haenszel"})
+STRATIFIED_TESTS: frozenset[str] = frozenset({"cochran-mantel-haenszel", "stratified-score"})
+# The covariate-adjusted test: a working model fitted on the units, not on a count table.
+ADJUSTED_TESTS: frozenset[str] = frozenset({"g-computation"})
 # Tests for non-inferiority and equivalence (with a margin), and those used only there.
-MARGIN_TESTS: frozenset[str] = frozenset({"farrington-manning", "two-proportion-z"})
+MARGIN_TESTS: frozenset[str] = frozenset({"farrington-manning", "two-proportion-z",
+                                          "stratified-score", "g-computation"})
 MARGIN_ONLY_TESTS: frozenset[str] = frozenset({"farrington-manning"})
 # Tests a tipping-point sensitivity analysis refuses, and why (the others are on arrays).
 NO_TIPPING_POINT_TESTS: dict[str, str] = {
@@ -74,6 +79,10 @@ NO_TIPPING_POINT_TESTS: dict[str, str] = {
     "cochran-mantel-haenszel": "the number of events among a group's missing does not say "
                                "in which strata they fall, so the stratified grid is not "
                                "defined",
+    "stratified-score": "the number of events among a group's missing does not say in which "
+                        "strata they fall, so the stratified grid is not defined",
+    "g-computation": "the working model needs each unit's covariates, and a grid of imputed "
+                     "counts does not say which units the imputed events fall on",
 }
 
 # Measures, per kind; the first is the default (CMH defaults to the odds ratio).
@@ -100,8 +109,22 @@ STRATIFIED_INTERVALS: dict[str, str] = {
     "risk-ratio": "greenland-robins",
     "risk-difference": "sato",
 }
+# Tests that bring their own measures and intervals: per measure (the first is the default
+# measure), the intervals that go with it (the first is the default).
+OWN_INTERVALS: dict[str, dict[str, tuple[str, ...]]] = {
+    "cochran-mantel-haenszel": {m: (i,) for m, i in STRATIFIED_INTERVALS.items()},
+    "stratified-score": {
+        "risk-difference": ("stratified-miettinen-nurminen", "stratified-newcombe"),
+    },
+    "g-computation": {
+        "risk-difference": ("g-computation",),
+        "risk-ratio": ("g-computation",),
+        "odds-ratio": ("g-computation",),
+    },
+}
 KNOWN_INTERVALS: frozenset[str] = frozenset().union(
-    *map(frozenset, INTERVALS_BY_MEASURE.values()), STRATIFIED_INTERVALS.values()
+    *map(frozenset, INTERVALS_BY_MEASURE.values()),
+    *(frozenset(i for ints in own.values() for i in ints) for own in OWN_INTERVALS.values()),
 )
 AVAILABLE_INTERVALS: frozenset[str] = KNOWN_INTERVALS
 
@@ -148,6 +171,12 @@ KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
         "estimand",
         "sensitivity",
         "looks",
+        "covariates",
+        "variance",
+        "randomisation_strata",
+        "covariate_missing",
+        "fallback",
+        "weights",
     }
 )
 AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
@@ -163,8 +192,19 @@ LATER_KEYS: dict[str, frozenset[str]] = {
 # Families (a hypothesis template with `over`): how the members are flagged, and the tests a
 # family member may use (two groups; no strata, no margin).
 FLAG_METHODS: tuple[str, ...] = ("benjamini-hochberg", "double-fdr")
-FAMILY_TESTS: frozenset[str] = KNOWN_TESTS_BY_KIND["pair"] - {"cochran-mantel-haenszel",
-                                                              "farrington-manning"}
+FAMILY_TESTS: frozenset[str] = KNOWN_TESTS_BY_KIND["pair"] - {
+    "cochran-mantel-haenszel", "farrington-manning", "stratified-score", "g-computation"}
+
+# Covariate adjustment (test: g-computation): the kinds of covariate, the variances, what a
+# blank covariate does, and the tests a failed working model may fall back to.
+COVARIATE_KINDS: tuple[str, ...] = ("numeric", "categorical")
+VARIANCES: tuple[str, ...] = ("ye", "ge")
+COVARIATE_MISSING: tuple[str, ...] = ("exclude", "error")
+FALLBACK_TESTS: frozenset[str] = KNOWN_TESTS_BY_KIND["pair"] - {
+    "cochran-mantel-haenszel", "stratified-score", "g-computation"}
+DEFAULT_FALLBACK = "two-proportion-z"
+# Stratified score test (test: stratified-score): the weights of the strata.
+STRATUM_WEIGHTS: tuple[str, ...] = ("cmh", "miettinen-nurminen")
 FAMILY_KEYS: tuple[str, ...] = ("over", "within", "levels", "flag_method", "flag_level",
                                 "group_level", "members")
 
