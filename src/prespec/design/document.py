@@ -146,6 +146,18 @@ def _direction_ok(hyp: Hypothesis, rates: list[float]) -> bool:
     return diff > 0 if hyp.alternative == "greater" else diff < 0
 
 
+def _own_sizing_notes(hyp: Hypothesis) -> tuple[str, ...]:
+    """What the sizes of a stratified or covariate-adjusted test assume."""
+    if hyp.test in ("cochran-mantel-haenszel", "stratified-score"):
+        return ((f"{hyp.test}: sized as an unstratified comparison, assuming the same rates "
+                "in every stratum"),)
+    if hyp.test == "g-computation":
+        return (("g-computation: sized as the unadjusted comparison, which is conservative: "
+                "adjustment for prognostic baseline covariates loses no power asymptotically "
+                "and usually gains some"),)
+    return ()
+
+
 def _pair_method(plan: Plan, hyp: Hypothesis, alpha: float, rates: list[float], ratio: float,
                  both_tails: bool = True) -> _Method:
     design = plan.design
@@ -153,7 +165,8 @@ def _pair_method(plan: Plan, hyp: Hypothesis, alpha: float, rates: list[float], 
     side = alpha / 2.0 if hyp.alternative == "two-sided" else alpha
     two = hyp.alternative == "two-sided" and both_tails
     if hyp.comparison != "superiority":
-        score = hyp.test == "farrington-manning"
+        score = hyp.test in ("farrington-manning", "stratified-score")
+        own = _own_sizing_notes(hyp)
         name = ("Farrington–Manning score test (Farrington and Manning 1990)" if score else
                 "Wald z with the unpooled variance (Blackwelder 1982)")
         if hyp.comparison == "equivalence":
@@ -165,7 +178,7 @@ def _pair_method(plan: Plan, hyp: Hypothesis, alpha: float, rates: list[float], 
                                                  score=score).n,
                 lambda n: samplesize.equivalence_power(p1, p2, n[0], n[1], alpha, low=low,
                                                        high=high, measure=hyp.measure,
-                                                       score=score))
+                                                       score=score), own)
         return _Method(
             f"{name}, margin {hyp.margin:g} on the {hyp.measure} scale",
             lambda: samplesize.margin_n(p1, p2, alpha, design.power, margin=hyp.margin,
@@ -173,7 +186,7 @@ def _pair_method(plan: Plan, hyp: Hypothesis, alpha: float, rates: list[float], 
                                         ratio=ratio, score=score).n,
             lambda n: samplesize.margin_power(p1, p2, n[0], n[1], alpha, margin=hyp.margin,
                                               measure=hyp.measure, alternative=hyp.alternative,
-                                              score=score))
+                                              score=score), own)
     if hyp.test == "fisher-exact":
         late: list[str] = []
         above = (f"above {FISHER_LIMIT} per group the exact enumeration gives way to the "
@@ -206,9 +219,8 @@ def _pair_method(plan: Plan, hyp: Hypothesis, alpha: float, rates: list[float], 
                      "correction (its exact power is not enumerated); unconditional exact "
                      "tests come close to it")
         cc = False
-    elif hyp.test == "cochran-mantel-haenszel":
-        notes.append("cochran-mantel-haenszel: sized as an unstratified comparison, assuming "
-                     "the same rates in every stratum")
+    elif hyp.test in ("cochran-mantel-haenszel", "stratified-score", "g-computation"):
+        notes.extend(_own_sizing_notes(hyp))
     elif hyp.test == "likelihood-ratio":
         notes.append("likelihood-ratio: sized by the normal approximation of the equivalent "
                      "score test (asymptotically the same power)")

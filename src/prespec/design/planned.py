@@ -103,3 +103,11 @@ def refuse_unsimulated(path: Path, plan: Plan) -> None:
                           "--simulate (the sizes assume the same rates in every stratum)",
                           at_key=True)
             raise Locator(str(path), doc.data, doc.lines, doc.key_lines).error(issue)
+        if hyp.test == "g-computation":
+            doc = parse_plan_yaml(read_plan_bytes(path, str(path)), str(path))
+            issue = Issue(("hypotheses", i, "covariates"),
+                          "a covariate-adjusted test (g-computation) cannot be simulated: "
+                          "--simulate draws one assumed rate per group, and the plan gives no "
+                          "distribution of the covariates; leave out --simulate (the sizes "
+                          "are those of the unadjusted comparison)", at_key=True)
+            raise Locator(str(path), doc.data, doc.lines, doc.key_lines).error(issue)

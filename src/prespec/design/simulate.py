@@ -138,6 +138,10 @@ class Decider:
                 raise BadInput(f"hypotheses.{hyp.id}: a stratified test ({hyp.test}) cannot be "
                                "simulated from one assumed rate per group; leave out --simulate "
                                "or simulate a plan without it")
+            if hyp.test == "g-computation":
+                raise BadInput(f"hypotheses.{hyp.id}: a covariate-adjusted test (g-computation) "
+                               "cannot be simulated from one assumed rate per group; leave out "
+                               "--simulate or simulate a plan without it")
             totals = np.array([sizes[plan.data.groups[i]] for i in unit.groups], dtype=np.int64)
             tests = {}
             chosen = [(hyp.test, "")]

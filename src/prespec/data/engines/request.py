@@ -24,6 +24,12 @@ def _grouped_uses(plan: Plan, blinded: bool) -> Counter[str]:
     for hyp in plan.hypotheses:
         for column in hyp.strata or []:
             uses[column] += 1
+        # a covariate-adjusted hypothesis: its covariates and randomisation strata stay raw,
+        # so the reduction is one row per distinct (group, outcome, covariates) with its count
+        for column in getattr(hyp, "covariates", None) or {}:
+            uses[column] += 1
+        for column in getattr(hyp, "randomisation_strata", None) or []:
+            uses[column] += 1
         estimand = getattr(hyp, "estimand", None)
         for ice in estimand.intercurrent if estimand is not None else []:
             uses[ice.column] += 1
