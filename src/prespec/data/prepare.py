@@ -91,7 +91,7 @@ class HypothesisCounts:
     strata: tuple[Stratum, ...] | None = None
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Units:
     """The analysed units of a covariate-adjusted hypothesis (test g-computation).
 
@@ -108,6 +108,25 @@ class Units:
     weights: np.ndarray  # int64
     strata: np.ndarray | None  # randomisation stratum label of each unit, or None
     missing_covariate: dict[str, dict[str, int]]  # per group, per column: units left out
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Units):
+            return NotImplemented
+        same = (self.hypothesis, self.groups, self.missing_covariate) == (
+            other.hypothesis, other.groups, other.missing_covariate)
+        arrays = [(self.outcome, other.outcome), (self.treated, other.treated),
+                  (self.weights, other.weights)]
+        if (self.strata is None) != (other.strata is None) or len(self.covariates) != len(
+                other.covariates):
+            return False
+        if self.strata is not None:
+            arrays.append((self.strata, other.strata))
+        for (c1, k1, v1), (c2, k2, v2) in zip(self.covariates, other.covariates, strict=True):
+            same = same and (c1, k1) == (c2, k2)
+            arrays.append((v1, v2))
+        return same and all(x.shape == y.shape and bool((x == y).all()) for x, y in arrays)
+
+    __hash__ = None  # type: ignore[assignment]
 
     def table(self) -> tuple[list[int], list[int]]:
         """Events and totals of the two groups over these units."""
@@ -698,13 +717,37 @@ def _units(frame: pd.DataFrame, hyp: Hypothesis, plan: Plan, kind: np.ndarray,
     use = mine & ~any_blank
     weights = (at.weights[use] if at.weights is not None
                else np.ones(int(use.sum()), dtype=np.int64))
+    return _canonical_units(
+        hyp.id, (a, b), event[use].astype(float), (group_col[use] == a).astype(float),
+        [(c, k, vals[use]) for c, k, vals in columns], np.asarray(weights, dtype=np.int64),
+        None if strata_labels is None else strata_labels[use], missing_covariate)
+
+
+def _canonical_units(hyp_id: str, groups: tuple[str, str], outcome: np.ndarray,
+                     treated: np.ndarray, covariates: list[tuple[str, str, np.ndarray]],
+                     weights: np.ndarray, strata: np.ndarray | None,
+                     missing_covariate: dict[str, dict[str, int]]) -> Units:
+    """The units as one row per distinct (group, outcome, covariates, stratum) with its
+    count, sorted: the same arrays whichever engine read the rows, so the working model is
+    fitted on identical numbers everywhere."""
+    frame = pd.DataFrame({"treated": treated, "outcome": outcome})
+    for j, (_, kind, values) in enumerate(covariates):
+        frame[f"c{j}"] = values.astype(float if kind == "numeric" else str)
+    if strata is not None:
+        frame["stratum"] = strata.astype(str)
+    keys = list(frame.columns)
+    frame["weight"] = weights
+    if len(frame.index):
+        frame = frame.groupby(keys, sort=True, as_index=False)["weight"].sum()
     return Units(
-        hypothesis=hyp.id,
-        groups=(a, b),
-        outcome=event[use].astype(float),
-        treated=(group_col[use] == a).astype(float),
-        covariates=tuple((c, k, v[use]) for c, k, v in columns),
-        weights=np.asarray(weights, dtype=np.int64),
-        strata=None if strata_labels is None else strata_labels[use],
+        hypothesis=hyp_id,
+        groups=groups,
+        outcome=frame["outcome"].to_numpy(dtype=float),
+        treated=frame["treated"].to_numpy(dtype=float),
+        covariates=tuple(
+            (c, k, frame[f"c{j}"].to_numpy(dtype=float if k == "numeric" else object))
+            for j, (c, k, _) in enumerate(covariates)),
+        weights=frame["weight"].to_numpy(dtype=np.int64),
+        strata=None if strata is None else frame["stratum"].to_numpy(dtype=object),
         missing_covariate=missing_covariate,
     )

@@ -115,6 +115,7 @@ def main(argv: list[str] | None = None) -> int:
     A folder holding other files is refused, so nothing is overwritten."""
     import argparse
 
+    from prespec.demo import refuse_other_files
     from prespec.errors import BadInput
 
     parser = argparse.ArgumentParser(
@@ -126,14 +127,7 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     folder = Path(args.folder)
     try:
-        if folder.exists():
-            if not folder.is_dir():
-                raise BadInput(f"{folder}: exists and is not a folder")
-            plan = folder / PLAN_NAME
-            earlier = plan.is_file() and plan.read_text("utf-8") == PLAN_TEXT
-            others = [p for p in folder.iterdir() if p.name not in (PLAN_NAME, DATA_NAME)]
-            if others or (plan.exists() and not earlier):
-                raise BadInput(f"{folder}: exists and holds other files; choose an empty folder")
+        refuse_other_files(folder, PLAN_NAME, DATA_NAME, PLAN_TEXT)
         plan, data = write_safety_demo(folder)
     except (BadInput, OSError) as exc:
         print(f"prespec: {exc}", file=sys.stderr)
