@@ -285,6 +285,89 @@ class Looks(Part):
     graph: GraphLevel | None
 
 
+# --- a covariate-adjusted (g-computation) or stratified risk difference ---
+
+class Covariate(Part):
+    """A baseline covariate of the working model, as the plan declares it."""
+
+    column: Text = Field(description="The data column.")
+    kind: Literal["numeric", "categorical"] = Field(
+        description="numeric: one term; categorical: one indicator per level but the reference.")
+    levels: list[Text | Number] | None = Field(
+        description="A categorical covariate's levels in sorted order; null for a numeric one.")
+    reference: Text | Number | None = Field(
+        description="The reference level (the first in sorted order); null for a numeric one.")
+
+
+class MarginalRisk(Part):
+    """One group's marginal (standardised) risk: every analysed unit's predicted risk under
+    that group, averaged."""
+
+    group: Text = Field(description="The group.")
+    risk: Number | None = Field(description="The standardised risk.")
+    standard_error: Number | None = Field(description="Its standard error, by the variance used.")
+
+
+class ModelTerm(Part):
+    term: Text = Field(description="intercept, group, a numeric covariate, or column=level.")
+    coefficient: Number | None = Field(description="The maximum-likelihood coefficient (logit).")
+    standard_error: Number | None = Field(description="Its model-based standard error.")
+
+
+class ConditionalOddsRatio(Part):
+    """The group's odds ratio given the covariates: exp of the group coefficient, from the
+    working model. It is not the effect tested (that is marginal)."""
+
+    value: Number | None = Field(description="exp(group coefficient).")
+    ci: Interval = Field(description="Its interval [low, high].")
+    level: Number = Field(description="The interval's level.")
+
+
+class WorkingModel(Part):
+    """The logistic working model: outcome ~ group indicator + covariates."""
+
+    terms: list[ModelTerm] = Field(description="The terms in the model's order.")
+    conditional_odds_ratio: ConditionalOddsRatio = Field(
+        description="The group's odds ratio conditional on the covariates.")
+    iterations: Count | None = Field(description="Iterations of the fit.")
+
+
+class Fallback(Part):
+    """The pre-specified test that ran because the working model failed."""
+
+    test: Text = Field(description="The fallback test that ran (unadjusted).")
+    reason: Text = Field(description="Why the model failed (separation, non-convergence …).")
+
+
+class Adjusted(Part):
+    """What a g-computation hypothesis adds: the covariates, the variance and why it holds,
+    the units left out, the marginal risks and the working model (both null after a
+    fallback), and the fallback."""
+
+    covariates: list[Covariate] = Field(description="The covariates in the plan's order.")
+    variance: Literal["ye", "ge"] = Field(description="The plan's variance key.")
+    variance_method: Text = Field(description="The variance in words, with its source.")
+    why_valid: Text = Field(
+        description="Why the variance stays valid when the working model is wrong.")
+    randomisation_strata: list[Text] | None = Field(
+        description="The columns randomisation was stratified by; null: simple randomisation.")
+    missing_covariate: dict[Text, Count] = Field(
+        description="Per group, the units left out for a missing covariate.")
+    risks: list[MarginalRisk] | None = Field(
+        description="The two marginal risks, in the order compared; null after a fallback.")
+    model: WorkingModel | None = Field(description="The working model; null after a fallback.")
+    fallback: Fallback | None = Field(
+        description="Set when the model failed and the pre-specified fallback test ran.")
+
+
+class Stratified(Part):
+    """The weighting of a stratified-score hypothesis's common risk difference."""
+
+    weights: Literal["cmh", "miettinen-nurminen"] = Field(description="The plan's weights key.")
+    stratum_weights: list[Number] = Field(
+        description="Each stratum's weight, aligned with strata_tables.")
+
+
 class Hypothesis(Part):
     """One hypothesis of the plan, or a follow-up (``parent``), as a run computed it.
 
@@ -327,6 +410,10 @@ class Hypothesis(Part):
     sensitivity: list[Sensitivity] | None = None
     looks: Looks | None = None  # only for a hypothesis with interim looks
     graph: GraphLevel | None = None  # the final analysis of a graph over looks
+    adjusted: Adjusted | None = Field(
+        default=None, description="test g-computation: the covariate-adjusted analysis.")
+    stratified: Stratified | None = Field(
+        default=None, description="test stratified-score: the weighting over the strata.")
     pre_specified: Flag | None = None  # set by :func:`finish`
 
 
@@ -541,6 +628,43 @@ class DataDictionary(Part):
     columns: list[DictionaryColumn]
 
 
+class CovariateSummary(Part):
+    """A numeric covariate over all analysed units of a rehearsal (no group is known)."""
+
+    mean: Number | None
+    sd: Number | None
+    min: Number | None
+    median: Number | None
+    max: Number | None
+
+
+class CovariateLevel(Part):
+    level: Text | Number = Field(description="A level of a categorical covariate.")
+    count: Count = Field(description="Its units, all groups together.")
+
+
+class RehearsedCovariate(Part):
+    """A covariate of an adjusted hypothesis on the rehearsal's data, pooled over groups."""
+
+    hypothesis: Text = Field(description="The hypothesis whose working model uses it.")
+    column: Text = Field(description="The data column.")
+    kind: Literal["numeric", "categorical"] = Field(description="As the plan declares it.")
+    analysed: Count = Field(description="Units with a value.")
+    missing: Count = Field(description="Units without one.")
+    summary: CovariateSummary | None = Field(
+        description="A numeric covariate's distribution; null for a categorical one.")
+    levels: list[CovariateLevel] | None = Field(
+        description="A categorical covariate's levels and counts; null for a numeric one.")
+
+
+class ModelCheck(Part):
+    """Whether an adjusted hypothesis's working model fitted on the dummy allocation."""
+
+    hypothesis: Text = Field(description="The hypothesis.")
+    fits: Flag = Field(description="Whether the working model fitted.")
+    reason: Text | None = Field(description="Why not, when it did not.")
+
+
 class RehearsalResults(Provenance):
     """``results.json`` of a rehearsal: blinded, pooled figures only."""
 
@@ -552,6 +676,11 @@ class RehearsalResults(Provenance):
     pooled: dict[Text, PooledOutcome]
     hypotheses: list[RehearsedHypothesis]
     families: list[RehearsedFamily] | None = None
+    covariates: list[RehearsedCovariate] | None = Field(
+        default=None, description="The covariates of adjusted hypotheses, pooled over groups.")
+    model_checks: list[ModelCheck] | None = Field(
+        default=None, description="Each adjusted hypothesis's working model on the dummy "
+        "allocation.")
     data_dictionary: DataDictionary
     deviations: list[Departure]
     notes: list[NoteEntry]

@@ -14,6 +14,7 @@ import re
 from collections.abc import Mapping
 from typing import Any
 
+from prespec.errors import PrespecError
 from prespec.report.markup import (
     BLINDED_STYLE,
     DEPARTURE_STYLE,
@@ -38,7 +39,8 @@ from prespec.report.values import (
 
 #: What a rehearsal's hypotheses must not carry: any of these not null is group-level.
 HYPOTHESIS_LEAKS = ("statistic", "p_value", "p_adjusted", "reject", "estimate", "table",
-                    "expected", "strata_tables", "sensitivity", "homogeneity")
+                    "expected", "strata_tables", "sensitivity", "homogeneity", "adjusted",
+                    "stratified")
 #: Top-level fields a rehearsal must not carry.
 TOP_LEAKS = ("groups",)
 #: What a rehearsal's design entries must not carry (their planned sizes are the plan's).
@@ -134,6 +136,102 @@ def pooled(results: Mapping[str, Any]) -> str:
     out.append(table(["Outcome", "Events", "Total", "Missing", "Pooled rate", "Interval",
                       "Level, method"], body, numeric=range(1, 5), cls="prespec-pooled"))
     out.append("<p>Every figure here pools all groups: a rehearsal reads no group column.</p>")
+    return "".join(out)
+
+
+# --- the covariates of adjusted hypotheses and their working models -------------------------
+
+def _summary_number(value: float | None) -> str:
+    """A covariate's mean, SD or quantile: up to 6 significant digits, 61.2 -> ``61.2``."""
+    return NULL if value is None else f"{value:.6g}"
+
+
+def _covariate_rows(results: Mapping[str, Any]) -> tuple[list[list[str]], list[list[str]]]:
+    """(numeric rows, categorical rows) of the rehearsal's ``covariates``."""
+    numeric: list[list[str]] = []
+    categorical: list[list[str]] = []
+    for k, raw in enumerate(items(results.get("covariates"), "covariates")):
+        at = f"covariates[{k}]"
+        cov = mapping(raw, at)
+        head = [text(cov.get("hypothesis"), f"{at}.hypothesis"),
+                text(cov.get("column"), f"{at}.column")]
+        counts = [fmt_thousands(number(cov.get("analysed"), f"{at}.analysed")),
+                  fmt_thousands(number(cov.get("missing"), f"{at}.missing"))]
+        if cov.get("summary") is not None:
+            summary = mapping(cov["summary"], f"{at}.summary")
+            numeric.append([*head, *counts, *(
+                _summary_number(number(summary.get(key), f"{at}.summary.{key}"))
+                for key in ("mean", "sd", "min", "median", "max"))])
+        levels = items(cov.get("levels"), f"{at}.levels")
+        for j, raw_level in enumerate(levels):
+            l_at = f"{at}.levels[{j}]"
+            level = mapping(raw_level, l_at)
+            categorical.append([*head, *(counts if j == 0 else ["", ""]),
+                                shown_value(level.get("level"), f"{l_at}.level"),
+                                fmt_thousands(number(level.get("count"), f"{l_at}.count"))])
+        if cov.get("summary") is None and not levels:
+            kind = text(cov.get("kind"), f"{at}.kind", default="")
+            target = categorical if kind == "categorical" else numeric
+            target.append([*head, *counts, *([NULL] * (2 if target is categorical else 5))])
+    return numeric, categorical
+
+
+def _model_check_rows(results: Mapping[str, Any]) -> tuple[list[list[str]], dict[int, str],
+                                                           list[str]]:
+    rows: list[list[str]] = []
+    marks: dict[int, str] = {}
+    failed: list[str] = []
+    for k, raw in enumerate(items(results.get("model_checks"), "model_checks")):
+        at = f"model_checks[{k}]"
+        check = mapping(raw, at)
+        hid = text(check.get("hypothesis"), f"{at}.hypothesis")
+        fits = check.get("fits")
+        if not isinstance(fits, bool):
+            raise PrespecError(f"results.json: {at}.fits: expected true or false, found "
+                               f"{fits!r}")
+        if not fits:
+            marks[len(rows)] = FLAG_ROW_STYLE
+            failed.append(hid)
+        rows.append([hid, "yes" if fits else "no",
+                     text(check.get("reason"), f"{at}.reason", default=NULL)])
+    return rows, marks, failed
+
+
+def covariates(results: Mapping[str, Any]) -> str:
+    """A rehearsal's covariates of adjusted hypotheses (missingness and distribution, all
+    groups together) and whether each working model fitted on the dummy allocation, or ``""``
+    when results.json holds neither."""
+    if not is_rehearsal(results):
+        return ""
+    if results.get("covariates") is None and results.get("model_checks") is None:
+        return ""
+    out = ["<h2>Covariates of the adjusted analyses, all groups together</h2>",
+           ("<p>The baseline covariates the working models use, over all analysed units: how "
+            "many have a value, how many miss one, and how the values are spread. A unit with "
+            "a missing covariate is left out of the adjusted analysis, or stops the run, as "
+            "the plan says. None of these figures belongs to a group.</p>")]
+    numeric, categorical = _covariate_rows(results)
+    if numeric:
+        out.append(table(["Hypothesis", "Covariate", "Analysed", "Missing", "Mean", "SD",
+                          "Minimum", "Median", "Maximum"], numeric, numeric=range(2, 9),
+                         cls="prespec-covariates-numeric", caption="Numeric covariates"))
+    if categorical:
+        out.append(table(["Hypothesis", "Covariate", "Analysed", "Missing", "Level", "Units"],
+                         categorical, numeric=(2, 3, 5), cls="prespec-covariates-categorical",
+                         caption="Categorical covariates"))
+    if not numeric and not categorical:
+        out.append("<p>results.json lists no covariates.</p>")
+    rows, marks, failed = _model_check_rows(results)
+    if rows:
+        out.append("<h3>Working models on the dummy allocation</h3>")
+        if failed:
+            words = (f"The working model did not fit for {', '.join(failed)} on the dummy "
+                     "allocation (the reason is in the table). If it fails so on the real "
+                     "allocation, the run uses the plan's pre-specified fallback test instead.")
+            out.append(f'<div class="prespec-model-failed" style="{DEPARTURE_STYLE}">'
+                       f"{esc(words)}</div>")
+        out.append(table(["Hypothesis", "Working model fitted", "Reason"], rows,
+                         cls="prespec-model-checks", row_styles=marks))
     return "".join(out)
 
 

@@ -12,7 +12,7 @@ import json
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from prespec.report import blinded, design
+from prespec.report import adjusted, blinded, design
 from prespec.report.estimand import estimand_block
 from prespec.report.figures import (
     DIFFERENCES,
@@ -623,13 +623,16 @@ def hypothesis_parts(
         parts.append(_not_prespecified_box(hyp, hid, results or {}))
     method = multiplicity_name(results) if results is not None else NULL
     parts.append(fields(_definition_rows(hyp, where, method)))
+    parts.append(adjusted.fallback_box(hyp, where))  # a failed working model: said first
     parts.append(estimand_block(hyp, where))  # the estimand in words, before the result
     if hyp.get("table") is not None:
         parts.append(count_table(hyp["table"], hyp.get("expected"), where, hyp.get("scores")))
     if hyp.get("strata_tables") is not None:
         parts.append(strata_tables(hyp, where))
+    parts.append(adjusted.inputs_block(hyp, where))  # covariates, units left out, risks
     parts.append(fields(result_rows(hyp, where)))
-    parts += [p for p in (_disagreement(hyp, where), monte_carlo_line(hyp, where),
+    parts += [p for p in (adjusted.variance_line(hyp, where), adjusted.model_block(hyp, where),
+                          _disagreement(hyp, where), monte_carlo_line(hyp, where),
                           homogeneity_line(hyp, where)) if p]
     if is_exploratory(hyp):
         parts.append(
@@ -699,10 +702,14 @@ def _stratum_label(raw: object, where: str) -> str:
 
 
 def strata_tables(hyp: Mapping[str, Any], where: str) -> str:
-    """One small table of events, non-events and total per group for each stratum."""
+    """One small table of events, non-events and total per group for each stratum; for a
+    stratified-score test, each with its weight and the weighting named in words."""
     groups = items(mapping(hyp.get("table") or {}, f"{where}.table").get("groups"),
                    f"{where}.table.groups")
+    weights = adjusted.stratum_weights(hyp, where)  # a stratified-score test's weights
     out = ['<div class="prespec-strata"><p>Counts in each stratum:</p>']
+    if weights is not None:
+        out.append(adjusted.weighting_line(hyp, where))
     for i, raw in enumerate(items(hyp.get("strata_tables"), f"{where}.strata_tables")):
         at = f"{where}.strata_tables[{i}]"
         entry = mapping(raw, at)
@@ -719,6 +726,8 @@ def strata_tables(hyp: Mapping[str, Any], where: str) -> str:
             body.append([text(group, f"{where}.table.groups[{j}]"),
                          fmt_count(ev), fmt_count(non), fmt_count(tot)])
         label = _stratum_label(entry.get("stratum") or {}, f"{at}.stratum")
+        if weights is not None:
+            label += adjusted.weight_caption(weights[i])
         out.append(table(["Group", "Events", "Non-events", "Total"], body, numeric=(1, 2, 3),
                          cls="prespec-stratum", caption=f"Stratum: {label}"))
     out.append("</div>")
@@ -864,7 +873,7 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
     df = number(hyp.get("df"), f"{where}.df")
     if df is not None:
         statistic += f" (df {fmt_count(df)})"
-    rows.append(("Statistic", statistic))
+    rows.append((adjusted.statistic_label(hyp, where), statistic))
     p = fmt_p(number(hyp.get("p_value"), f"{where}.p_value"))
     if is_exploratory(hyp):
         rows.append(("Nominal p-value (exploratory)", p))
@@ -1013,8 +1022,9 @@ def blinded_banner(results: Mapping[str, Any]) -> str:
 
 
 def pooled(results: Mapping[str, Any]) -> str:
-    """The pooled figures per outcome of a rehearsal, or ``""``."""
-    return blinded.pooled(results)
+    """The pooled figures per outcome of a rehearsal, then the covariates of its adjusted
+    hypotheses and their working models on the dummy allocation, or ``""``."""
+    return blinded.pooled(results) + blinded.covariates(results)
 
 
 def data_dictionary(results: Mapping[str, Any]) -> str:

@@ -4,15 +4,17 @@ One rule, used for every table a run writes:
 
 - ``tables/groups-<outcome>.csv``: the groups of one outcome;
 - ``tables/<hypothesis id>.csv``: the table of one hypothesis (follow-ups included);
-- ``tables/family-<family id>.csv``: the members of one family.
+- ``tables/family-<family id>.csv``: the members of one family;
+- ``tables/model-<hypothesis id>.csv``: the working model and the marginal risks of one
+  covariate-adjusted (g-computation) hypothesis.
 
 A label is written as it is when made of ASCII letters, digits, ``_``, ``.`` and ``-``; every
 other byte of its UTF-8 form is percent-encoded (``%2B``, ``%2F``, ``%20``, ``%25`` for ``%``
 itself), and so is a leading ``.`` (no hidden file, never ``.`` or ``..``). So ``H+1``, ``H/1``
 and ``H_1`` give ``H%2B1.csv``, ``H%2F1.csv`` and ``H_1.csv``, and
 ``urllib.parse.unquote`` gives the label back. A hypothesis id that would begin like the other
-two kinds (``groups-…``, ``family-…``) has that ``-`` encoded (``groups%2Dx.csv``), so the three
-kinds never share a name. A stem longer than ``MAX_STEM`` bytes (file systems stop at 255) is
+other kinds (``groups-…``, ``family-…``, ``model-…``) has that ``-`` encoded
+(``groups%2Dx.csv``), so the kinds never share a name. A stem longer than ``MAX_STEM`` bytes (file systems stop at 255) is
 cut and ends in ``~`` and 16 hex digits of the label's SHA-256: unique still, but no longer
 reversible; no plan label of ordinary length comes near it.
 """
@@ -26,7 +28,7 @@ from urllib.parse import unquote
 TABLES = "tables"
 MAX_STEM = 200
 _SAFE = frozenset((string.ascii_letters + string.digits + "_.-").encode("ascii"))
-_KIND_PREFIXES = ("groups-", "family-")
+_KIND_PREFIXES = ("groups-", "family-", "model-")
 
 
 def encode_label(label: str) -> str:
@@ -60,7 +62,7 @@ def groups_table(outcome: str) -> str:
 
 
 def hypothesis_table(hypothesis_id: str) -> str:
-    """``tables/<hypothesis id>.csv``; never the name of a groups or family table."""
+    """``tables/<hypothesis id>.csv``; never the name of a table of another kind."""
     stem = encode_label(hypothesis_id)
     for prefix in _KIND_PREFIXES:
         if stem.startswith(prefix):
@@ -71,3 +73,8 @@ def hypothesis_table(hypothesis_id: str) -> str:
 def family_table(family_id: str) -> str:
     """``tables/family-<family id>.csv``."""
     return f"{TABLES}/{_bounded('family-' + encode_label(family_id), family_id)}.csv"
+
+
+def model_table(hypothesis_id: str) -> str:
+    """``tables/model-<hypothesis id>.csv``: an adjusted hypothesis's working model."""
+    return f"{TABLES}/{_bounded('model-' + encode_label(hypothesis_id), hypothesis_id)}.csv"

@@ -1,6 +1,7 @@
 """The CSV tables of a report folder (``tables/``), written from results.json alone: the
-groups per outcome, each hypothesis's counts and expected counts, the families' members; for a
-rehearsal, the pooled figures and the data dictionary only. Every cell goes through
+groups per outcome, each hypothesis's counts and expected counts, the working model and the
+marginal risks of each covariate-adjusted hypothesis, the families' members; for a rehearsal,
+the pooled figures and the data dictionary only. Every cell goes through
 ``common.shown.csv_writer`` (never a formula)."""
 
 from __future__ import annotations
@@ -9,7 +10,7 @@ from pathlib import Path
 from typing import Any
 
 from prespec.common.shown import csv_writer
-from prespec.report.tablenames import TABLES, groups_table, hypothesis_table
+from prespec.report.tablenames import TABLES, groups_table, hypothesis_table, model_table
 
 #: The name of the rehearsal's pooled table in ``tables/``.
 POOLED_TABLE = "pooled.csv"
@@ -53,6 +54,28 @@ def write_rehearsal_tables(tables: Path, results: dict[str, Any]) -> None:
     write_dictionary_csv(tables / DICTIONARY_TABLE, results["data_dictionary"])
 
 
+MODEL_HEADER = ["part", "name", "value", "standard_error", "ci_low", "ci_high", "level"]
+
+
+def write_model_csv(path: Path, adjusted: dict[str, Any]) -> None:
+    """An adjusted hypothesis's working model and marginal risks, one row each: ``term`` rows
+    (coefficient and its standard error on the log-odds scale), the ``conditional-odds-ratio``
+    of the group given the covariates (with its interval), then the ``marginal-risk`` rows."""
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv_writer(fh)
+        w.writerow(MODEL_HEADER)
+        model = adjusted.get("model")
+        if model is not None:
+            for t in model["terms"]:
+                w.writerow(["term", t["term"], t["coefficient"], t["standard_error"], "", "",
+                            ""])
+            cor = model["conditional_odds_ratio"]
+            w.writerow(["conditional-odds-ratio", "group", cor["value"], "", cor["ci"][0],
+                        cor["ci"][1], cor["level"]])
+        for r in adjusted.get("risks") or []:
+            w.writerow(["marginal-risk", r["group"], r["risk"], r["standard_error"], "", "", ""])
+
+
 def write_tables(folder: Path, results: dict[str, Any]) -> None:
     tables = folder / TABLES
     tables.mkdir()
@@ -82,3 +105,6 @@ def write_tables(folder: Path, results: dict[str, Any]) -> None:
             for g, e, n, (ee, en) in zip(t["groups"], t["events"], t["totals"], expected,
                                          strict=True):
                 w.writerow([g, e, n - e, n, ee, en])
+        adjusted = h.get("adjusted")
+        if adjusted is not None and (adjusted.get("model") or adjusted.get("risks")):
+            write_model_csv(folder / model_table(h["id"]), adjusted)  # none after a fallback
