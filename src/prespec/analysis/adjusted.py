@@ -29,11 +29,11 @@ if TYPE_CHECKING:
 #: How each variance is named in the report, and why it holds when the model is wrong.
 VARIANCE_WORDS = {
     "ye": ("Ye, Shao, Yi and Zhao (2023)",
-           ("it is built from each group's residuals and predictions without assuming that "
+           ("It is built from each group's residuals and predictions without assuming that "
             "the working model is true, so the interval and the test keep their level when "
             "the model is wrong; randomisation is all it relies on")),
     "ge": ("Ge et al. (2011), the delta method over the HC0 sandwich covariance",
-           ("the sandwich covariance of the coefficients does not rely on the working model "
+           ("The sandwich covariance of the coefficients does not rely on the working model "
             "being true; it treats the covariates as fixed and leaves out their sampling "
             "variation, so it can be a little narrow or wide")),
 }

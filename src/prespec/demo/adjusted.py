@@ -69,7 +69,7 @@ hypotheses:
 """
 
 # centre -> (patients, shift of the log odds of pneumonia); invented
-CENTRES = {"harbour": (200, 0.0), "hill": (160, 0.3), "river": (150, -0.2), "valley": (170, 0.1)}
+CENTRES = {"harbour": (212, 0.0), "hill": (172, 0.3), "river": (160, -0.2), "valley": (176, 0.1)}
 
 
 def adjusted_frame(seed: int = SEED) -> pd.DataFrame:

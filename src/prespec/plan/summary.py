@@ -88,6 +88,18 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
                      f"{number(hyp.sparse.min_expected)}")
     if hyp.strata:
         parts.append(f"strata {', '.join(hyp.strata)}")
+    if hyp.weights is not None:
+        parts.append(f"weights {hyp.weights}")
+    if hyp.covariates is not None:
+        shown = ", ".join(f"{console(c)} ({k})" for c, k in hyp.covariates.items()) or "none"
+        parts.append(f"covariates {shown}")
+        variance = f"variance {hyp.variance}"
+        if hyp.randomisation_strata:
+            variance += (" (randomisation stratified by "
+                         + ", ".join(map(console, hyp.randomisation_strata)) + ")")
+        parts.append(variance)
+        parts.append(f"a blank covariate: {hyp.covariate_missing}")
+        parts.append(f"fallback {hyp.fallback} if the working model fails")
     if hyp.looks is not None:
         from prespec.plan.looks import looks_words
 
