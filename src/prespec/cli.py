@@ -205,6 +205,13 @@ def _print_rehearsal(res: dict[str, Any]) -> None:
         state = ("executes" if hyp["executed"] else problem if problem.startswith(
             "would not compute") else f"FAILS: {problem}")
         print(f"{hyp['id']}: {hyp['test']}, {state}")
+    for check in res.get("model_checks") or []:
+        blanks = ", ".join(f"{c['column']} {c['missing']}" for c in res["covariates"]
+                           if c["hypothesis"] == check["hypothesis"])
+        fits = ("fits" if check["fits"] else
+                f"does NOT fit ({check['reason']}); the run would use its fallback")
+        print(f"{check['hypothesis']}: the working model {fits} on the dummy allocation; "
+              f"blank covariates (pooled): {blanks}")
     columns = res["data_dictionary"]["columns"]
     print(f"data dictionary: {len(columns)} column use(s) in tables/data-dictionary.csv")
 

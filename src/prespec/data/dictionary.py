@@ -141,6 +141,12 @@ def uses(plan: Plan) -> list[_Use]:
     for hyp in plan.hypotheses:
         for column in hyp.strata or []:
             out.append(_Use(column, f"hypotheses.{hyp.id}.strata", ("strata",), _plain_meaning))
+        for column in getattr(hyp, "covariates", None) or {}:  # a covariate: its values as read
+            out.append(_Use(column, f"hypotheses.{hyp.id}.covariates", ("strata",),
+                            _plain_meaning))
+        for column in getattr(hyp, "randomisation_strata", None) or []:
+            out.append(_Use(column, f"hypotheses.{hyp.id}.randomisation_strata", ("strata",),
+                            _plain_meaning))
         for key in ("over", "within"):  # a family's level and group columns
             if getattr(hyp, key, None):
                 out.append(_Use(getattr(hyp, key), f"hypotheses.{hyp.id}.{key}", ("strata",),

@@ -316,6 +316,59 @@ def _dummy_run(*, plan: Any, prepared: Prepared, common: dict[str, Any], full: A
     return executed, notes
 
 
+def _numeric_summary(values: np.ndarray, weights: np.ndarray) -> dict[str, float] | None:
+    units = np.repeat(values.astype(float), weights)
+    if not len(units):
+        return None
+    return {"mean": float(units.mean()),
+            "sd": float(units.std(ddof=1)) if len(units) > 1 else None,
+            "min": float(units.min()), "median": float(np.median(units)),
+            "max": float(units.max())}
+
+
+def covariate_figures(frame: pd.DataFrame, plan: Plan, source: str, prepared: Prepared
+                      ) -> tuple[list[dict[str, Any]] | None, list[dict[str, Any]] | None]:
+    """Per covariate-adjusted hypothesis: each covariate's missingness and distribution pooled
+    over the groups, and whether its working model fits on the dummy allocation (never a
+    risk, never a coefficient); (None, None) when the plan adjusts nothing.
+
+    The pooled units are those of the hypothesis with every row given its first group, so
+    they are the whole analysed population whatever the dummy allocation; a summary is over
+    the units with every covariate recorded."""
+    from prespec.analysis.adjusted import fit
+    from prespec.data.prepare import prepare
+    from prespec.stats.adjusted import ModelFailure
+
+    ordinary = ordinary_plan(plan)
+    adjusted = [h for h in ordinary.hypotheses if h.covariates is not None]
+    if not adjusted:
+        return None, None
+    figures: list[dict[str, Any]] = []
+    checks: list[dict[str, Any]] = []
+    for hyp in adjusted:
+        everyone = frame.assign(**{plan.data.group: hyp.compare[0]})
+        units = prepare(everyone, ordinary, source).units[hyp.id]
+        missing = units.missing_covariate.get(hyp.compare[0], {})
+        analysed = int(units.weights.sum())
+        for column, kind, values in units.covariates:
+            row: dict[str, Any] = {"hypothesis": hyp.id, "column": column, "kind": kind,
+                                   "analysed": analysed, "missing": missing.get(column, 0),
+                                   "summary": None, "levels": None}
+            if kind == "numeric":
+                row["summary"] = _numeric_summary(values, units.weights)
+            else:
+                row["levels"] = [{"level": str(level),
+                                  "count": int(units.weights[values == level].sum())}
+                                 for level in sorted(set(values))]
+            figures.append(row)
+        try:
+            fit(hyp, prepared.units[hyp.id], 0.95)
+            checks.append({"hypothesis": hyp.id, "fits": True, "reason": None})
+        except ModelFailure as exc:
+            checks.append({"hypothesis": hyp.id, "fits": False, "reason": str(exc)})
+    return figures, checks
+
+
 def compute_rehearsal(
     *,
     plan_path: Path,
@@ -352,6 +405,7 @@ def compute_rehearsal(
     frame = frame.assign(**{plan.data.group: dummy_allocation(
         len(frame.index), groups, plan.data.planned_n, _fresh_generator())})
     prepared, family_data = prepare_run(frame, plan, source_name)
+    covariates, model_checks = covariate_figures(frame, plan, source_name, prepared)
     del frame  # the dummy labels go no further than the dummy run
 
     level = 1.0 - plan.alpha
@@ -395,6 +449,8 @@ def compute_rehearsal(
         **({"families": rehearsal_families(plan, family_data, executed)}
            if family_data else {}),
         "data_dictionary": dictionary,
+        **({"covariates": covariates, "model_checks": model_checks} if covariates is not None
+           else {}),
         "deviations": [d.to_json() for d in all_deviations],
         "notes": [n.to_json() for n in all_notes],
         "caution": CAUTION,
