@@ -36,6 +36,8 @@ from prespec.data.engines.base import DataSource
 from prespec.data.engines.fingerprint import frame_row_hash
 from prespec.data.engines.pipeline import count_source
 from prespec.data.engines.request import count_request
+from prespec.demo.adjusted import PLAN_TEXT as ADJUSTED_PLAN
+from prespec.demo.adjusted import adjusted_frame
 from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.plan import load_plan
 from prespec.workflow.execute import compute_results
@@ -128,8 +130,10 @@ def study(tmp_path_factory: pytest.TempPathFactory, postgres: PostgresServer) ->
     """Both data sets as CSV files and as PostgreSQL tables of text columns."""
     folder = tmp_path_factory.mktemp("agree")
     sets = {}
+    adjusted = adjusted_frame().to_csv(index=False, lineterminator="\n")
     for name, plan_text, csv_text in (("demo", PLAN_TEXT, demo_data()),
-                                      ("hostile", HOSTILE_PLAN, _csv_text(HOSTILE_ROWS))):
+                                      ("hostile", HOSTILE_PLAN, _csv_text(HOSTILE_ROWS)),
+                                      ("adjusted", ADJUSTED_PLAN, adjusted)):
         (folder / name).mkdir()
         plan_path = folder / name / "plan.yaml"
         plan_path.write_text(plan_text, encoding="utf-8")
@@ -187,7 +191,7 @@ def outcomes(study: dict[str, Any], postgres: PostgresServer, spark: Any
     return done
 
 
-@pytest.mark.parametrize("name", ["demo", "hostile"])
+@pytest.mark.parametrize("name", ["demo", "hostile", "adjusted"])
 @pytest.mark.parametrize("engine", ENGINES[1:])
 def test_counts_departures_and_notes_equal_pandas(outcomes: dict[tuple[str, str], Any],
                                                    name: str, engine: str) -> None:
@@ -197,7 +201,7 @@ def test_counts_departures_and_notes_equal_pandas(outcomes: dict[tuple[str, str]
     assert counted.prepared == reference.prepared  # every count, stratum, departure, note
 
 
-@pytest.mark.parametrize("name", ["demo", "hostile"])
+@pytest.mark.parametrize("name", ["demo", "hostile", "adjusted"])
 @pytest.mark.parametrize("engine", ENGINES[1:])
 def test_results_equal_pandas(outcomes: dict[tuple[str, str], Any], name: str,
                               engine: str) -> None:
@@ -208,6 +212,26 @@ def test_results_equal_pandas(outcomes: dict[tuple[str, str], Any], name: str,
                                                                       sort_keys=True), key
     assert results["engine"] == engine and reference["engine"] == "pandas"
     assert reference["query"] is None and "GROUP BY" in results["query"]
+
+
+def test_the_adjusted_primary_and_stratified_secondary_ran_on_every_engine(
+        outcomes: dict[tuple[str, str], Any]) -> None:
+    """The covariate-adjusted primary fitted its working model (no fallback) and the
+    stratified secondary weighted its four centres, on the grouped rows of every engine; the
+    SQL engines fetched one row per distinct (group, outcome, covariates), not every row."""
+    for engine in ENGINES:
+        counted, results = outcomes[("adjusted", engine)]
+        h1, h2 = results["hypotheses"]
+        assert h1["test"] == "g-computation" and h1["adjusted"]["fallback"] is None, engine
+        assert [t["term"] for t in h1["adjusted"]["model"]["terms"]] == [
+            "intercept", "group", "age", "frail", "centre=hill", "centre=river",
+            "centre=valley"], engine
+        assert h2["test"] == "stratified-score", engine
+        assert len(h2["stratified"]["stratum_weights"]) == 4, engine
+        assert [d["code"] for d in results["deviations"]] == ["missing-covariate"], engine
+        units = counted.prepared.units["H1"]
+        assert int(units.weights.sum()) == sum(h1["table"]["totals"]), engine
+        assert len(units.weights) < int(units.weights.sum()), engine  # grouped
 
 
 def test_the_hostile_counts_are_the_hand_counts(outcomes: dict[tuple[str, str], Any]) -> None:

@@ -699,7 +699,7 @@ def _units(frame: pd.DataFrame, hyp: Hypothesis, plan: Plan, kind: np.ndarray,
         if hyp.covariate_missing == "error":
             shown = ", ".join(f"{c!r} ({n})" for c, n in per_column.items())
             raise DataError(f"{source}: {where}: blank covariates in "
-                            f"{_rows(at.count(left_out))} analysed rows: {shown} "
+                            f"{_rows(at.count(left_out))} analysed: {shown} "
                             f"({at.where(left_out)}); covariate_missing: error")
         for g in (a, b):
             counts = {c: at.count(mine & blank & (group_col == g))
