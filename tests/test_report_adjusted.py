@@ -163,7 +163,7 @@ def test_the_working_model_is_a_table_of_terms_coefficients_and_errors() -> None
     ]
     shown = _text(page)
     assert ("Working model: logistic regression of infection on the group indicator and the "
-            "covariates (maximum likelihood, 5 iterations); coefficients on the log-odds scale"
+            "covariates (maximum likelihood, 5 iterations); coefficients on the log-odds scale."
             in shown)
 
 
@@ -192,7 +192,8 @@ def test_the_marginal_risks_effect_interval_and_z_are_shown() -> None:
     page = _page(adjusted_entry())
     assert _cells(page, "prespec-marginal-risks") == [
         ["negative-pressure", "0.1013", "0.0211"], ["gauze", "0.1977", "0.0281"]]
-    assert "Marginal (standardised) risks" in _text(page)
+    assert ("Marginal (standardised) risks: each analysed unit's risk predicted by the working "
+            "model under the group, averaged over all analysed units.") in _text(page)
     rows = _fields(page)
     assert rows["Estimate (risk difference)"] == "-0.0963"
     assert rows["Interval (95% g-computation)"] == "(-0.1651, -0.0275)"
@@ -207,7 +208,8 @@ def test_the_covariates_with_their_reference_level_and_the_units_left_out() -> N
     assert _cells(page, "prespec-covariates") == [
         ["age", "numeric", "—", "—"], ["site", "categorical", "north, south", "north"]]
     shown = _text(page)
-    assert ("Randomisation stratified by site. Left out for a missing covariate: "
+    assert ("A categorical covariate enters the model by one indicator per level but the "
+            "reference. Randomisation stratified by site. Left out for a missing covariate: "
             "negative-pressure 2, gauze 1 (3 units in all). The counts above are of the units "
             "analysed.") in shown
     hyp = adjusted_entry()
@@ -553,3 +555,10 @@ def test_a_rehearsal_with_covariates_goes_through_the_models() -> None:
     doc["covariates"][0]["summary"]["mode"] = 60
     with pytest.raises(ValidationError):
         finish(doc)
+
+
+def test_the_data_dictionary_names_covariate_roles_in_words() -> None:
+    assert blinded.role_words("hypotheses.H1.covariates.age") == "covariate age of H1"
+    assert (blinded.role_words("hypotheses.H1.randomisation_strata")
+            == "randomisation strata of H1")
+    assert blinded.role_words("hypotheses.H1.strata") == "strata of H1"
