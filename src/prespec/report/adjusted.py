@@ -135,19 +135,21 @@ def inputs_block(hyp: Mapping[str, Any], where: str) -> str:
     at = f"{where}.adjusted"
     rows = _covariate_rows(adj, at)
     parts = [f'<div class="prespec-adjusted" style="{ADJUSTED_STYLE}">']
+    words = []
     if rows:
         parts.append(table(["Covariate", "Kind", "Levels", "Reference level"], rows,
-                           cls="prespec-covariates",
-                           caption="Covariates of the working model (a categorical covariate "
-                                   "enters by one indicator per level but the reference)"))
+                           cls="prespec-covariates", caption="Covariates of the working model"))
+        words.append("A categorical covariate enters the model by one indicator per level "
+                     "but the reference.")
     else:
-        parts.append("<p>The working model has no covariates.</p>")
+        words.append("The working model has no covariates.")
     strata = [text(s, f"{at}.randomisation_strata[{k}]")
               for k, s in enumerate(items(adj.get("randomisation_strata"),
                                           f"{at}.randomisation_strata"))]
-    randomised = (f"Randomisation stratified by {', '.join(strata)}." if strata
-                  else "Simple randomisation (not stratified).")
-    parts.append(f"<p>{esc(randomised)} {esc(left_out_sentence(adj, at))}</p>")
+    words.append(f"Randomisation stratified by {', '.join(strata)}." if strata
+                 else "Simple randomisation (not stratified).")
+    words.append(left_out_sentence(adj, at))
+    parts.append(f'<p class="prespec-adjusted-inputs">{esc(" ".join(words))}</p>')
     parts.append(risks_table(adj, at))
     parts.append("</div>")
     return "".join(parts)
@@ -165,10 +167,11 @@ def risks_table(adj: Mapping[str, Any], at: str) -> str:
         rows.append([text(risk.get("group"), f"{r_at}.group"),
                      fmt_estimate(number(risk.get("risk"), f"{r_at}.risk")),
                      fmt_estimate(number(risk.get("standard_error"), f"{r_at}.standard_error"))])
-    return table(["Group", "Marginal risk", "Standard error"], rows, numeric=(1, 2),
-                 cls="prespec-marginal-risks",
-                 caption="Marginal (standardised) risks: each analysed unit's predicted risk "
-                         "under the group, averaged over all analysed units")
+    words = ("Marginal (standardised) risks: each analysed unit's risk predicted by the "
+             "working model under the group, averaged over all analysed units.")
+    return (f"<p>{esc(words)}</p>"
+            + table(["Group", "Marginal risk", "Standard error"], rows, numeric=(1, 2),
+                    cls="prespec-marginal-risks"))
 
 
 def variance_line(hyp: Mapping[str, Any], where: str) -> str:
@@ -207,11 +210,12 @@ def model_block(hyp: Mapping[str, Any], where: str) -> str:
     fitted = ("maximum likelihood" if iterations is None
               else f"maximum likelihood, {fmt_count(iterations)} iterations")
     outcome = text(hyp.get("outcome"), f"{where}.outcome", default="the outcome")
-    caption = (f"Working model: logistic regression of {outcome} on the group indicator and the "
-               f"covariates ({fitted}); coefficients on the log-odds scale")
+    words = (f"Working model: logistic regression of {outcome} on the group indicator and the "
+             f"covariates ({fitted}); coefficients on the log-odds scale.")
     parts = [f'<div class="prespec-working-model" style="{ADJUSTED_STYLE}">',
+             f"<p>{esc(words)}</p>",
              table(["Term", "Coefficient", "Standard error"], rows, numeric=(1, 2),
-                   cls="prespec-model-terms", caption=caption)]
+                   cls="prespec-model-terms")]
     if model.get("conditional_odds_ratio") is not None:
         parts.append(_conditional(hyp, where, model["conditional_odds_ratio"]))
     parts.append("</div>")

@@ -243,6 +243,8 @@ _ROLE_PATTERNS: list[tuple[re.Pattern[str], str]] = [
     (re.compile(r"data\.include\[(\d+)\]"), "population filter {0}"),
     (re.compile(r"outcomes\.(.+)\.column"), "outcome “{0}”"),
     (re.compile(r"hypotheses\.(.+?)\.strata"), "strata of {0}"),
+    (re.compile(r"hypotheses\.(.+?)\.randomisation_strata"), "randomisation strata of {0}"),
+    (re.compile(r"hypotheses\.(.+?)\.covariates\.(.+)"), "covariate {1} of {0}"),
     (re.compile(r"hypotheses\.(.+?)\.estimand\.intercurrent\[(\d+)\]\.column"),
      "intercurrent event {1} of {0}"),
     (re.compile(r"hypotheses\.(.+?)\.estimand\.intercurrent\[(\d+)\]\.outcome_column"),

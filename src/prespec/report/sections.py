@@ -707,9 +707,10 @@ def strata_tables(hyp: Mapping[str, Any], where: str) -> str:
     groups = items(mapping(hyp.get("table") or {}, f"{where}.table").get("groups"),
                    f"{where}.table.groups")
     weights = adjusted.stratum_weights(hyp, where)  # a stratified-score test's weights
-    out = ['<div class="prespec-strata"><p>Counts in each stratum:</p>']
+    out = ['<div class="prespec-strata">']
     if weights is not None:
         out.append(adjusted.weighting_line(hyp, where))
+    out.append("<p>Counts in each stratum:</p>")
     for i, raw in enumerate(items(hyp.get("strata_tables"), f"{where}.strata_tables")):
         at = f"{where}.strata_tables[{i}]"
         entry = mapping(raw, at)

@@ -12,11 +12,11 @@ A label is written as it is when made of ASCII letters, digits, ``_``, ``.`` and
 other byte of its UTF-8 form is percent-encoded (``%2B``, ``%2F``, ``%20``, ``%25`` for ``%``
 itself), and so is a leading ``.`` (no hidden file, never ``.`` or ``..``). So ``H+1``, ``H/1``
 and ``H_1`` give ``H%2B1.csv``, ``H%2F1.csv`` and ``H_1.csv``, and
-``urllib.parse.unquote`` gives the label back. A hypothesis id that would begin like the other
-other kinds (``groups-…``, ``family-…``, ``model-…``) has that ``-`` encoded
-(``groups%2Dx.csv``), so the kinds never share a name. A stem longer than ``MAX_STEM`` bytes (file systems stop at 255) is
-cut and ends in ``~`` and 16 hex digits of the label's SHA-256: unique still, but no longer
-reversible; no plan label of ordinary length comes near it.
+``urllib.parse.unquote`` gives the label back. A hypothesis id that would begin like one of
+the other kinds (``groups-…``, ``family-…``, ``model-…``) has that ``-`` encoded
+(``groups%2Dx.csv``), so the kinds never share a name. A stem longer than ``MAX_STEM`` bytes
+(file systems stop at 255) is cut and ends in ``~`` and 16 hex digits of the label's SHA-256:
+unique still, but no longer reversible; no plan label of ordinary length comes near it.
 """
 
 from __future__ import annotations
