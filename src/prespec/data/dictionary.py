@@ -142,7 +142,7 @@ def uses(plan: Plan) -> list[_Use]:
         for column in hyp.strata or []:
             out.append(_Use(column, f"hypotheses.{hyp.id}.strata", ("strata",), _plain_meaning))
         for column in getattr(hyp, "covariates", None) or {}:  # a covariate: its values as read
-            out.append(_Use(column, f"hypotheses.{hyp.id}.covariates", ("strata",),
+            out.append(_Use(column, f"hypotheses.{hyp.id}.covariates.{column}", ("strata",),
                             _plain_meaning))
         for column in getattr(hyp, "randomisation_strata", None) or []:
             out.append(_Use(column, f"hypotheses.{hyp.id}.randomisation_strata", ("strata",),

@@ -287,7 +287,7 @@ def needed_columns(plan: Plan) -> dict[str, str]:
             needed.setdefault(column, f"hypotheses.{hyp_id}.strata")
     for hyp in plan.hypotheses:
         for column in getattr(hyp, "covariates", None) or {}:
-            needed.setdefault(column, f"hypotheses.{hyp.id}.covariates")
+            needed.setdefault(column, f"hypotheses.{hyp.id}.covariates.{column}")
         for column in getattr(hyp, "randomisation_strata", None) or []:
             needed.setdefault(column, f"hypotheses.{hyp.id}.randomisation_strata")
     for hyp in plan.hypotheses:

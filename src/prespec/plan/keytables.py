@@ -147,11 +147,13 @@ def _names(names: Sequence[str]) -> str:
 def compare_table() -> str:
     """What each kind of ``compare`` takes: tests, measures and intervals (the first listed
     is the default), from the vocabulary the plan model checks against."""
+    own = "; ".join(
+        f"`{test}`: " + ", ".join(f"`{m}` → {_names(ints)}" for m, ints in by.items())
+        for test, by in v.OWN_INTERVALS.items())
     lines = ["### What each kind of `compare` takes", "",
-             "The first measure and the first interval listed are the defaults. Under "
-             "`cochran-mantel-haenszel` the measure defaults to "
-             f"`{v.STRATIFIED_DEFAULT_MEASURE}` and the interval is the stratified one: "
-             + "; ".join(f"`{m}`: `{i}`" for m, i in v.STRATIFIED_INTERVALS.items()) + ".", "",
+             "The first measure and the first interval listed are the defaults. These tests "
+             "bring their own measures and intervals (again the first listed is the "
+             f"default): {own}.", "",
              "| `compare` | tests | two-sided only | `continuity` | measure → intervals |",
              "| --- | --- | --- | --- | --- |"]
     for kind in v.KINDS:

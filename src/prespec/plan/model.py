@@ -443,11 +443,12 @@ class Hypothesis(_Model):
         default=None, description="non-inferiority: on the measure's scale, on the far side of "
         "no difference; equivalence: [low, high]")
     measure: MeasureName | None = Field(
-        default=None, description="left out: the first measure of the compare kind (the odds "
-        "ratio under cochran-mantel-haenszel); none for all and trend")
+        default=None, description="left out: the first measure of the compare kind (under a "
+        "test with its own measures, its first: the odds ratio under cochran-mantel-haenszel); "
+        "none for all and trend")
     interval: IntervalName | None = Field(
-        default=None, description="left out: the first interval of the measure (the stratified "
-        "one under cochran-mantel-haenszel)")
+        default=None, description="left out: the first interval of the measure (under a test "
+        "with its own intervals, its first: the stratified one under cochran-mantel-haenszel)")
     continuity: bool = Field(default=False, description="the continuity-corrected statistic "
                              "(2×2 pearson-chi-square and cochran-mantel-haenszel only)")
     sparse: Sparse | None = Field(default=None, description="a pre-specified switch of test "
@@ -458,7 +459,8 @@ class Hypothesis(_Model):
     null_rate: Probability | None = Field(default=None, description="compare [a]: the rate "
                                           "under the null hypothesis; required there")
     strata: list[str] | None = Field(default=None, description="the stratification columns of "
-                                     "cochran-mantel-haenszel (required by it, used only by it)")
+                                     "cochran-mantel-haenszel and stratified-score (required by "
+                                     "them, used only by them)")
     scores: list[Number] | None = Field(
         default=None, description="trend: one distinct number per group in data.groups order; "
         "left out, 0, 1, …")
