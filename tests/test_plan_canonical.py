@@ -41,6 +41,10 @@ STUDIES = Path(__file__).parent / "fixtures" / "studies"
 
 # sha256 of the RFC 8785 JSON of the resolved plan, by prespec c74a456  # computed, then frozen
 GOLDEN = {
+    "plans/adjusted-primary.yaml":
+        "sha256:7e18609b35a070d787488a412b93721e6b213b58c6790bd6b419877c4b340688",
+    "adjusted-every-key.yaml":
+        "sha256:9ba7f63c8a1798cb509d1aa554d0c15bd5f5d3d6348a41b1294ae48b4246a2fd",
     "plans/methods-tour.yaml":
         "sha256:2c6b68cc3c720ef6b89c2435dedbe18764406850ef132c2149bcb7ab30ed389d",
     "plans/safety-review.yaml":

@@ -144,8 +144,8 @@ def _blank_entry(hyp: Hypothesis, plan: Any, groups: list[str], table: methods.T
         "family": decision.family_of(hyp),
         "estimand": None,
         "sensitivity": None,
-        "adjusted": None,
-        "stratified": None,
+        # "adjusted" (g-computation) and "stratified" (stratified-score) are written only
+        # where they apply, so the reports of other tests keep the keys earlier ones wrote
     }
 
 
