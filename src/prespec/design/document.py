@@ -152,9 +152,9 @@ def _own_sizing_notes(hyp: Hypothesis) -> tuple[str, ...]:
         return ((f"{hyp.test}: sized as an unstratified comparison, assuming the same rates "
                 "in every stratum"),)
     if hyp.test == "g-computation":
-        return (("g-computation: sized as the unadjusted comparison, which is conservative: "
-                "adjustment for prognostic baseline covariates loses no power asymptotically "
-                "and usually gains some"),)
+        return (("g-computation: sized as the unadjusted comparison; adjustment for "
+                "prognostic baseline covariates usually gains power, so this size is usually "
+                "conservative"),)
     return ()
 
 
