@@ -272,8 +272,7 @@ def g_computation(
     p_a, p_b = float(w @ m_a / total), float(w @ m_b / total)
 
     if variance == "ge":
-        meat = design.T @ (design * (w * (y - fitted) ** 2)[:, None])
-        sandwich = bread @ meat @ bread
+        sandwich = _sandwich(design, y, fitted, w)
         gradient = np.vstack([(w * m_a * (1 - m_a)) @ design_a,
                               (w * m_b * (1 - m_b)) @ design_b]) / total
         cov = gradient @ sandwich @ gradient.T
@@ -436,6 +435,15 @@ def _information_inverse(design: np.ndarray, fitted: np.ndarray, w: np.ndarray) 
     """The inverse of the Fisher information: the model-based covariance of the coefficients."""
     information = design.T @ (design * (w * fitted * (1 - fitted))[:, None])
     return np.linalg.inv(information)
+
+
+def _sandwich(design: np.ndarray, y: np.ndarray, fitted: np.ndarray,
+              w: np.ndarray) -> np.ndarray:
+    """The HC0 sandwich covariance of the coefficients, A⁻¹ B A⁻¹ with
+    A = Σ_i w_i m_i(1 − m_i) d_i d_iᵀ and B = Σ_i w_i (y_i − m_i)² d_i d_iᵀ."""
+    bread = _information_inverse(design, fitted, w)
+    meat = design.T @ (design * (w * (y - fitted) ** 2)[:, None])
+    return bread @ meat @ bread
 
 
 def _moment(u: np.ndarray, v: np.ndarray, w: np.ndarray) -> float:
