@@ -94,7 +94,7 @@ def true_difference(effect: bool) -> float:
         for clinic, p_c in enumerate(CLINIC_SHARES):
             d, c = np.full_like(nodes, diabetic), np.full(len(nodes), clinic)
             gap = true_risk(1.0, nodes, d, c, effect) - true_risk(0.0, nodes, d, c, effect)
-            total += p_d * p_c * float(weights @ gap)
+            total += p_d * float(p_c) * float(weights @ gap)
     return total
 
 
@@ -195,7 +195,7 @@ def checks(rng: np.random.Generator, n: int, draws: int) -> list[str]:
                 sys.exit(f"check failed: quadrature {truth:.6f}, Monte Carlo {gap.mean():.6f} "
                          f"(standard error {error:.1e})")
         elif truth != 0.0:
-            sys.exit(f"check failed: the null truth is {truth!r}, not 0")
+            sys.exit(f"check failed: the null truth is {truth:.3g}, not 0")
     lines.append(f"checked: the true risk difference by quadrature equals a Monte Carlo "
                  f"average of {draws:,} draws within 4 standard errors; the null truth is 0")
     worst_value, worst_se = 0.0, 0.0
