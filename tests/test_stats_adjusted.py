@@ -169,3 +169,24 @@ def test_a_categorical_covariate_of_one_level_adds_no_term() -> None:
                                            ("age", "numeric", np.array([40.0, 50.0]))])
     assert names == ("age",) and levels == {"site": ("x",)}
     assert matrix.tolist() == [[40.0], [50.0]]
+
+
+def test_a_variance_that_is_not_positive_is_a_model_failure(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    """A guard for small samples: the variance of the effect must be positive to test."""
+    from prespec.stats import adjusted
+
+    monkeypatch.setattr(adjusted, "_ye_matrix", lambda *args: np.zeros((2, 2)))
+    with pytest.raises(ModelFailure, match=r"^the ye variance of the risk-ratio is not "
+                                           r"positive$"):
+        fitted("risk-ratio")
+
+
+def test_a_covariate_shifted_far_from_zero_changes_only_the_intercept() -> None:
+    """A calendar-like covariate (1e6 plus a spread of a few units) is neither constant nor
+    the intercept (the rank check centres the covariates), and the effect is unchanged."""
+    near = fitted()
+    far = g_computation(OUTCOME, TREATED, (1e6 + SCORE).reshape(-1, 1), ("score",))
+    assert far.value == pytest.approx(near.value, rel=1e-6)
+    assert far.model.terms[2].coefficient == pytest.approx(near.model.terms[2].coefficient,
+                                                           rel=1e-6)
