@@ -6,14 +6,18 @@ with the group set to the first group (a) and to the second (b); their means are
 risks p_a and p_b, and the effect is p_a − p_b, p_a / p_b or the marginal odds ratio
 [p_a/(1 − p_a)] / [p_b/(1 − p_b)]. Two variances of (p̂_a, p̂_b) are offered:
 
+- ``"ye"``: the variance of Ye et al. (2023), for the population (unconditional) effect
+  under simple randomisation, valid whether or not the working model is right; with
+  ``strata``, the form for stratified (permuted-block) randomisation.
 - ``"ge"``: the delta method over the HC0 sandwich covariance of the coefficients (Ge et al.
-  2011). It conditions on the covariates observed.
-- ``"ye"``: the variance of Ye, Shao, Yi and Zhao (2023), valid under simple randomisation
-  whether or not the working model is right; with ``strata``, their form for stratified
-  (permuted-block) randomisation.
+  2011). The sandwich keeps the coefficients' variance right under a wrong model, but the
+  observed covariates are held fixed: it leaves out the variance of the mean of
+  m_a(X) − m_b(X) over the population, so for the population effect it can understate the
+  variance when the effect differs between covariate patterns (the point Ye et al. 2023 make
+  in Statistical Theory and Related Fields; from memory).
 
-Both stay valid when the working model is wrong, which is why the estimate is the marginal
-effect and not the model's conditional odds ratio (reported beside it, labelled conditional).
+The estimate is the marginal effect, not the model's conditional odds ratio (reported beside
+it, labelled conditional): the marginal effect keeps its meaning when the model is wrong.
 
 Frequency weights let a caller pass one row per distinct (group, outcome, covariates)
 combination with its count: every moment and the fit then equal those of the expanded data.
