@@ -386,8 +386,7 @@ def _check_rank(design: np.ndarray, names: tuple[str, ...]) -> None:
 
 def _fit(y: np.ndarray, design: np.ndarray, w: np.ndarray,
          max_iterations: int) -> tuple[np.ndarray, int]:
-    """Maximum likelihood by statsmodels' IRLS, then one Newton step; the coefficients and the
-    IRLS iteration count."""
+    """Maximum likelihood by statsmodels' IRLS: the coefficients and the iteration count."""
     # imported here: statsmodels takes a while to load and only this path needs it
     from statsmodels.genmod import families
     from statsmodels.genmod.generalized_linear_model import GLM
@@ -445,7 +444,7 @@ def _check_separation(fitted: np.ndarray, t: np.ndarray, x: np.ndarray,
     if shared:
         where.append("all with " + ", ".join(shared))
     detail = f" ({'; '.join(where)})" if where else ""
-    raise ModelFailure(f"separation: a fitted risk is 0 or 1 for {count:g} of the {total:g} "
+    raise ModelFailure(f"separation: a fitted risk is 0 or 1 for {count:.0f} of the {total:.0f} "
                        f"analysed units{detail}")
 
 
