@@ -30,7 +30,7 @@ truth is exactly 0; that g-computation with no covariates equals the unadjusted 
 (1e-12) with Ye's and Ge's standard errors equal to the Wald standard error (1e-9 relative);
 and that the stratified randomisation balances every stratum to within 2 units.
 
-Run by hand (about 4 minutes on one core):
+Run by hand (2.5 to 4 minutes on one core):
     .venv/bin/python bench/adjusted_coverage.py [--trials 4000] [--n 400] [--seed 2023]
     .venv/bin/python bench/adjusted_coverage.py --smoke    # the checks and a 40-trial table
 """
