@@ -12,6 +12,7 @@ import sys
 from pathlib import Path
 from types import ModuleType
 
+import numpy as np
 import pytest
 
 BENCH = Path(__file__).resolve().parents[1] / "bench"
@@ -195,3 +196,47 @@ def test_the_verify_speed_benchmark_runs_at_its_smoke_size() -> None:
                         r"append at 10; goal <= 2x\)", lines[5]), lines[5]
     assert lines[-1] == ("checks: verify passed (199 reports, 199 locked runs); both logs "
                          "intact after the appends, each record naming its whole log")
+
+
+def test_the_adjusted_coverage_benchmark_checks_what_it_compares() -> None:
+    out = smoke("adjusted_coverage.py")
+    assert out.startswith("g-computation under a misspecified working model: 40 trials a "
+                          "scenario, 400 units a trial, seed 2023")
+    assert "checked: the true risk difference by quadrature equals a Monte Carlo average of " \
+           "100,000 draws within 4 standard errors; the null truth is 0" in out
+    value, se = numbers(r"unadjusted difference \(max \|diff\| (\S+)\) and its ye and ge "
+                        r"standard errors the Wald one \(max relative diff (\S+)\)", out)
+    assert value <= 1e-12 and se <= 1e-9, out
+    (worst,) = numbers(r"balance every stratum to within (\d+) unit", out)
+    assert worst <= 2
+    scenarios = re.findall(r"(?m)^(simple|stratified), (null|effect) \(true risk difference "
+                           r"([-+]\d\.\d{4})\)$", out)
+    assert [(a, b) for a, b, _ in scenarios] == [
+        ("simple", "null"), ("simple", "effect"), ("stratified", "null"),
+        ("stratified", "effect")]
+    truths = [float(t) for _, _, t in scenarios]
+    assert truths[0] == truths[2] == 0.0 and truths[1] == truths[3] < 0
+    rows = re.findall(r"(?m)^  ((?:unadjusted|g-computation)\D*?)\s+[01]\.\d{4} \(", out)
+    simple = ["unadjusted: pooled z / Wald", "unadjusted: Newcombe", "g-computation, ye",
+              "g-computation, ge"]
+    stratified = simple[:3] + ["g-computation, ye stratified", "g-computation, ge"]
+    assert rows == simple * 2 + stratified * 2, rows
+    assert len(re.findall(r"(?m)^  power gained by ", out)) == 2 + 3
+
+
+def test_the_adjusted_coverage_benchmark_stops_on_a_wrong_truth(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    spec = importlib.util.spec_from_file_location("adjusted_coverage_bench",
+                                                  BENCH / "adjusted_coverage.py")
+    assert spec is not None and spec.loader is not None
+    bench = importlib.util.module_from_spec(spec)
+    monkeypatch.setitem(sys.modules, "adjusted_coverage_bench", bench)  # for its dataclasses
+    spec.loader.exec_module(bench)
+    rng = np.random.default_rng(1)
+    right = bench.true_difference
+    monkeypatch.setattr(bench, "true_difference", lambda effect: right(effect) + 0.01)
+    with pytest.raises(SystemExit, match=r"^check failed: the null truth is 0\.01, not 0$"):
+        bench.checks(rng, 400, 20_000)
+    monkeypatch.setattr(bench, "true_difference", lambda effect: right(effect) + 0.01 * effect)
+    with pytest.raises(SystemExit, match=r"^check failed: quadrature -0\.0\d+, Monte Carlo "):
+        bench.checks(rng, 400, 20_000)

@@ -6,14 +6,18 @@ with the group set to the first group (a) and to the second (b); their means are
 risks p_a and p_b, and the effect is p_a − p_b, p_a / p_b or the marginal odds ratio
 [p_a/(1 − p_a)] / [p_b/(1 − p_b)]. Two variances of (p̂_a, p̂_b) are offered:
 
+- ``"ye"``: the variance of Ye et al. (2023), for the population (unconditional) effect
+  under simple randomisation, valid whether or not the working model is right; with
+  ``strata``, the form for stratified (permuted-block) randomisation.
 - ``"ge"``: the delta method over the HC0 sandwich covariance of the coefficients (Ge et al.
-  2011). It conditions on the covariates observed.
-- ``"ye"``: the variance of Ye, Shao, Yi and Zhao (2023), valid under simple randomisation
-  whether or not the working model is right; with ``strata``, their form for stratified
-  (permuted-block) randomisation.
+  2011). The sandwich keeps the coefficients' variance right under a wrong model, but the
+  observed covariates are held fixed: it leaves out the variance of the mean of
+  m_a(X) − m_b(X) over the population, so for the population effect it can understate the
+  variance when the effect differs between covariate patterns (the point Ye et al. 2023 make
+  in Statistical Theory and Related Fields; from memory).
 
-Both stay valid when the working model is wrong, which is why the estimate is the marginal
-effect and not the model's conditional odds ratio (reported beside it, labelled conditional).
+The estimate is the marginal effect, not the model's conditional odds ratio (reported beside
+it, labelled conditional): the marginal effect keeps its meaning when the model is wrong.
 
 Frequency weights let a caller pass one row per distinct (group, outcome, covariates)
 combination with its count: every moment and the fit then equal those of the expanded data.
@@ -62,8 +66,9 @@ SEPARATION_TOLERANCE = 1e-10
 class ModelFailure(ValueError):
     """The working model cannot be used; str(exc) is one line saying why (for the report's
     fallback note), e.g. "the working model did not converge in 100 iterations",
-    "separation: a fitted risk is 0 or 1 (covariate pattern ... )",
-    "the design is rank-deficient: covariate 'x' is constant among the analysed units"."""
+    "separation: a fitted risk is 0 or 1 for 82 of the 400 analysed units (all with
+    site=north)", "the design is rank-deficient: covariate 'x' is constant among the analysed
+    units"."""
 
 
 def design_matrix(
@@ -261,6 +266,8 @@ def g_computation(
     design = np.column_stack([np.ones(len(y)), t, x])
     _check_rank(design, tuple(names))
     beta, iterations = _fit(y, design, w, int(max_iterations))
+    _check_separation(special.expit(design @ beta), t, x, tuple(names), w)
+    beta = _newton_step(y, design, w, beta)
     fitted = special.expit(design @ beta)
     _check_separation(fitted, t, x, tuple(names), w)
     bread = _information_inverse(design, fitted, w)
@@ -272,8 +279,7 @@ def g_computation(
     p_a, p_b = float(w @ m_a / total), float(w @ m_b / total)
 
     if variance == "ge":
-        meat = design.T @ (design * (w * (y - fitted) ** 2)[:, None])
-        sandwich = bread @ meat @ bread
+        sandwich = _sandwich(design, y, fitted, w)
         gradient = np.vstack([(w * m_a * (1 - m_a)) @ design_a,
                               (w * m_b * (1 - m_b)) @ design_b]) / total
         cov = gradient @ sandwich @ gradient.T
@@ -357,8 +363,10 @@ def _binary(name: str, values: object) -> np.ndarray:
 def _check_rank(design: np.ndarray, names: tuple[str, ...]) -> None:
     """ModelFailure naming the first covariate that adds nothing to the intercept, the group
     and the covariates before it."""
-    norms = np.linalg.norm(design, axis=0)
-    scaled = design / np.where(norms > 0, norms, 1.0)
+    centred = design.copy()  # the covariates about their means: the same column space
+    centred[:, 2:] -= centred[:, 2:].mean(axis=0)
+    norms = np.linalg.norm(centred, axis=0)
+    scaled = centred / np.where(norms > 0, norms, 1.0)
     if np.linalg.matrix_rank(scaled) == design.shape[1]:
         return
     for j, name in enumerate(names):
@@ -378,8 +386,7 @@ def _check_rank(design: np.ndarray, names: tuple[str, ...]) -> None:
 
 def _fit(y: np.ndarray, design: np.ndarray, w: np.ndarray,
          max_iterations: int) -> tuple[np.ndarray, int]:
-    """Maximum likelihood by statsmodels' IRLS, then one Newton step; the coefficients and the
-    IRLS iteration count."""
+    """Maximum likelihood by statsmodels' IRLS: the coefficients and the iteration count."""
     # imported here: statsmodels takes a while to load and only this path needs it
     from statsmodels.genmod import families
     from statsmodels.genmod.generalized_linear_model import GLM
@@ -404,11 +411,20 @@ def _fit(y: np.ndarray, design: np.ndarray, w: np.ndarray,
         raise ModelFailure("separation: the working model predicts every outcome perfectly")
     if not result.converged or any(issubclass(c, ConvergenceWarning) for c in categories):
         raise ModelFailure(f"the working model did not converge in {max_iterations} iterations")
-    beta = np.asarray(result.params, dtype=float)
+    return np.asarray(result.params, dtype=float), int(result.fit_history["iteration"])
+
+
+def _newton_step(y: np.ndarray, design: np.ndarray, w: np.ndarray,
+                 beta: np.ndarray) -> np.ndarray:
+    """One Newton step of the log-likelihood from ``beta``: IRLS stops when the deviance
+    changes by less than 1e-8, and this step takes the coefficients from there to the maximum
+    to rounding error."""
     fitted = special.expit(design @ beta)
     score = design.T @ (w * (y - fitted))
-    step = np.linalg.solve(design.T @ (design * (w * fitted * (1 - fitted))[:, None]), score)
-    return beta + step, int(result.fit_history["iteration"])
+    try:
+        return beta + np.linalg.solve(_information(design, fitted, w), score)
+    except np.linalg.LinAlgError as exc:
+        raise ModelFailure(f"the working model could not be fitted: {exc}") from None
 
 
 def _check_separation(fitted: np.ndarray, t: np.ndarray, x: np.ndarray,
@@ -428,14 +444,27 @@ def _check_separation(fitted: np.ndarray, t: np.ndarray, x: np.ndarray,
     if shared:
         where.append("all with " + ", ".join(shared))
     detail = f" ({'; '.join(where)})" if where else ""
-    raise ModelFailure(f"separation: a fitted risk is 0 or 1 for {count:g} of the {total:g} "
+    raise ModelFailure(f"separation: a fitted risk is 0 or 1 for {count:.0f} of the {total:.0f} "
                        f"analysed units{detail}")
+
+
+def _information(design: np.ndarray, fitted: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """The Fisher information of the coefficients, Σ_i w_i m_i(1 − m_i) d_i d_iᵀ."""
+    return design.T @ (design * (w * fitted * (1 - fitted))[:, None])
 
 
 def _information_inverse(design: np.ndarray, fitted: np.ndarray, w: np.ndarray) -> np.ndarray:
     """The inverse of the Fisher information: the model-based covariance of the coefficients."""
-    information = design.T @ (design * (w * fitted * (1 - fitted))[:, None])
-    return np.linalg.inv(information)
+    return np.linalg.inv(_information(design, fitted, w))
+
+
+def _sandwich(design: np.ndarray, y: np.ndarray, fitted: np.ndarray,
+              w: np.ndarray) -> np.ndarray:
+    """The HC0 sandwich covariance of the coefficients, A⁻¹ B A⁻¹ with
+    A = Σ_i w_i m_i(1 − m_i) d_i d_iᵀ and B = Σ_i w_i (y_i − m_i)² d_i d_iᵀ."""
+    bread = _information_inverse(design, fitted, w)
+    meat = design.T @ (design * (w * (y - fitted) ** 2)[:, None])
+    return bread @ meat @ bread
 
 
 def _moment(u: np.ndarray, v: np.ndarray, w: np.ndarray) -> float:
