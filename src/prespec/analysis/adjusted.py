@@ -28,14 +28,17 @@ if TYPE_CHECKING:
 
 #: How each variance is named in the report, and why it holds when the model is wrong.
 VARIANCE_WORDS = {
-    "ye": ("Ye, Shao, Yi and Zhao (2023)",
+    "ye": ("Ye et al. (2023)",
            ("It is built from each group's residuals and predictions without assuming that "
-            "the working model is true, so the interval and the test keep their level when "
-            "the model is wrong; randomisation is all it relies on")),
+            "the working model is true, so the interval and the test keep their level for the "
+            "population-level effect when the model is wrong; randomisation is all it relies "
+            "on.")),
     "ge": ("Ge et al. (2011), the delta method over the HC0 sandwich covariance",
            ("The sandwich covariance of the coefficients does not rely on the working model "
-            "being true; it treats the covariates as fixed and leaves out their sampling "
-            "variation, so it can be a little narrow or wide")),
+            "being true, but the delta method holds the observed covariates fixed: it leaves "
+            "out their sampling variation and can understate the variance of the "
+            "population-level effect when the effect differs between covariate patterns "
+            "(variance ye does not).")),
 }
 
 

@@ -490,7 +490,7 @@ class Hypothesis(_Model):
         "model, column: numeric or categorical (a categorical one is coded by indicators, its "
         "first level in sorted order the reference)")
     variance: VarianceName | None = Field(
-        default=None, description="g-computation: ye (Ye, Shao, Yi and Zhao 2023; the "
+        default=None, description="g-computation: ye (Ye et al. 2023; the "
         "default) or ge (Ge et al. 2011, delta method over the HC0 sandwich)")
     randomisation_strata: list[str] | None = Field(
         default=None, description="g-computation with variance ye: the columns randomisation "
