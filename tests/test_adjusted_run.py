@@ -258,3 +258,18 @@ def test_the_rehearsal_shows_pooled_covariates_and_no_risk(study: tuple[Path, Pa
     assert results["model_checks"] == [{"hypothesis": "H1", "fits": True, "reason": None}]
     pooled = json.dumps([results["covariates"], results["model_checks"]])
     assert "risk" not in pooled and A not in pooled and B not in pooled
+
+
+def test_the_demo_command_writes_the_trial_and_refuses_a_folder_of_other_files(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from prespec.demo.adjusted import DATA_NAME, PLAN_NAME, main
+
+    folder = tmp_path / "demo"
+    assert main([str(folder)]) == 0
+    assert sorted(p.name for p in folder.iterdir()) == sorted([PLAN_NAME, DATA_NAME])
+    assert (folder / PLAN_NAME).read_text("utf-8") == PLAN_TEXT
+    assert main([str(folder)]) == 0  # its own files again: written over
+    (folder / "notes.txt").write_text("mine", "utf-8")
+    assert main([str(folder)]) == 2
+    assert "holds other files" in capsys.readouterr().err
+    assert (folder / "notes.txt").read_text("utf-8") == "mine"

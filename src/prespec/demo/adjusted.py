@@ -115,32 +115,15 @@ def write_adjusted_demo(folder: Path, seed: int = SEED) -> tuple[Path, Path]:
 
 def main(argv: list[str] | None = None) -> int:
     """``python -m prespec.demo.adjusted [FOLDER]``: write the plan and its data into FOLDER
-    (default ``adjusted-demo``), print their paths and the commands that lock and run them.
-    A folder holding other files is refused, so nothing is overwritten."""
-    import argparse
+    (default: ``DEFAULT_FOLDER``); see :func:`prespec.demo.write_demo_main`."""
+    from prespec.demo import write_demo_main
 
-    from prespec.demo import refuse_other_files
-    from prespec.errors import BadInput
-
-    parser = argparse.ArgumentParser(
-        prog="python -m prespec.demo.adjusted",
-        description="Write the invented early-mobilisation trial (a covariate-adjusted "
-                    "primary and a stratified secondary, and its data) into a folder.")
-    parser.add_argument("folder", nargs="?", default=DEFAULT_FOLDER,
-                        help=f"the folder to write into (default: {DEFAULT_FOLDER})")
-    args = parser.parse_args(argv)
-    folder = Path(args.folder)
-    try:
-        refuse_other_files(folder, PLAN_NAME, DATA_NAME, PLAN_TEXT)
-        plan, data = write_adjusted_demo(folder)
-    except (BadInput, OSError) as exc:
-        print(f"prespec: {exc}", file=sys.stderr)
-        return 2
-    print("Wrote the invented early-mobilisation trial (demonstration data, nothing real):")
-    print(f"  plan: {plan}")
-    print(f"  data: {data}")
-    print(f"Lock and run it: prespec lock {plan} && prespec run {plan} {data}")
-    return 0
+    return write_demo_main(
+        argv, module="adjusted", what="early-mobilisation trial",
+        description=("Write the invented early-mobilisation trial (a covariate-adjusted primary and "
+                     "a stratified secondary, and its data) into a folder."),
+        default_folder=DEFAULT_FOLDER, plan_name=PLAN_NAME, data_name=DATA_NAME,
+        plan_text=PLAN_TEXT, write=write_adjusted_demo)
 
 
 if __name__ == "__main__":

@@ -111,32 +111,15 @@ DEFAULT_FOLDER = "safety-demo"
 
 def main(argv: list[str] | None = None) -> int:
     """``python -m prespec.demo.safety [FOLDER]``: write the plan and its data into FOLDER
-    (default ``safety-demo``), print their paths and the commands that lock and run them.
-    A folder holding other files is refused, so nothing is overwritten."""
-    import argparse
+    (default: ``DEFAULT_FOLDER``); see :func:`prespec.demo.write_demo_main`."""
+    from prespec.demo import write_demo_main
 
-    from prespec.demo import refuse_other_files
-    from prespec.errors import BadInput
-
-    parser = argparse.ArgumentParser(
-        prog="python -m prespec.demo.safety",
-        description="Write the invented hand-gel safety review (a plan with a family over 30 "
-                    "adverse-event terms, and its data) into a folder.")
-    parser.add_argument("folder", nargs="?", default=DEFAULT_FOLDER,
-                        help=f"the folder to write into (default: {DEFAULT_FOLDER})")
-    args = parser.parse_args(argv)
-    folder = Path(args.folder)
-    try:
-        refuse_other_files(folder, PLAN_NAME, DATA_NAME, PLAN_TEXT)
-        plan, data = write_safety_demo(folder)
-    except (BadInput, OSError) as exc:
-        print(f"prespec: {exc}", file=sys.stderr)
-        return 2
-    print("Wrote the invented safety review (demonstration data, nothing real):")
-    print(f"  plan: {plan}")
-    print(f"  data: {data}")
-    print(f"Lock and run it: prespec lock {plan} && prespec run {plan} {data}")
-    return 0
+    return write_demo_main(
+        argv, module="safety", what="safety review",
+        description=("Write the invented hand-gel safety review (a plan with a family over 30 "
+                     "adverse-event terms, and its data) into a folder."),
+        default_folder=DEFAULT_FOLDER, plan_name=PLAN_NAME, data_name=DATA_NAME,
+        plan_text=PLAN_TEXT, write=write_safety_demo)
 
 
 if __name__ == "__main__":

@@ -151,9 +151,9 @@ def compare_table() -> str:
         f"`{test}`: " + ", ".join(f"`{m}` → {_names(ints)}" for m, ints in by.items())
         for test, by in v.OWN_INTERVALS.items())
     lines = ["### What each kind of `compare` takes", "",
-             "The first measure and the first interval listed are the defaults. These tests "
+             ("The first measure and the first interval listed are the defaults. These tests "
              "bring their own measures and intervals (again the first listed is the "
-             f"default): {own}.", "",
+             f"default): {own}."), "",
              "| `compare` | tests | two-sided only | `continuity` | measure → intervals |",
              "| --- | --- | --- | --- | --- |"]
     for kind in v.KINDS:
