@@ -195,9 +195,21 @@ def _cmh_estimate(series: _Series) -> float:
 
 
 def _estimate(series: _Series, weights: str) -> float:
-    """The root of Z(δ) = 0 (for the inverse-variance weights, the sign-changing one)."""
+    """The root of Z(δ) = 0 (for the inverse-variance weights, the sign-changing one).
+
+    The root is searched in one orientation of the groups, the same for a series and its
+    swap (the one whose sorted strata come first), so that swapping the groups negates the
+    estimate exactly.
+    """
     if weights == "cmh":
         return _cmh_estimate(series)
+    swapped = _swapped(series)
+    if sorted(swapped.rows) < sorted(series.rows):
+        return -_root(swapped, weights)
+    return _root(series, weights)
+
+
+def _root(series: _Series, weights: str) -> float:
     first = float(series.differences[0])
     if bool((series.differences == first).all()):
         return first  # every term d̂_h − δ is 0 there, whatever the weights
