@@ -38,27 +38,13 @@ from prespec.stats.stratified_difference import (
     stratified_score_test,
     stratum_weights,
 )
+from tests.reference.test_ref_intervals import (
+    NEWCOMBE_1998_TABLE_II_METHOD_6,  # Newcombe 1998, Table II, method 6; from memory
+    NEWCOMBE_1998_TABLE_II_METHOD_10,  # the same table, method 10; from memory
+)
 
 Stratum = tuple[int, int, int, int]
 LEVELS = (0.80, 0.90, 0.95, 0.99)
-
-# Newcombe RG. Statistics in Medicine 1998;17:873-890, Table II, 95 per cent limits of method 6
-# (Miettinen-Nurminen) and method 10 (hybrid Wilson score). # from memory
-NEWCOMBE_1998_METHOD_6 = [
-    ((56, 70, 48, 80), (0.0528, 0.3382)),
-    ((9, 10, 3, 10), (0.1700, 0.8406)),
-    ((6, 7, 2, 7), (0.0342, 0.8534)),
-    ((5, 56, 0, 29), (-0.0326, 0.1933)),
-    ((0, 10, 0, 20), (-0.1658, 0.2844)),
-    ((10, 10, 0, 20), (0.7156, 1.0000)),
-]
-NEWCOMBE_1998_METHOD_10 = [
-    ((56, 70, 48, 80), (0.0524, 0.3339)),
-    ((9, 10, 3, 10), (0.1705, 0.8090)),
-    ((6, 7, 2, 7), (0.0582, 0.8062)),
-    ((5, 56, 0, 29), (-0.0381, 0.1926)),
-    ((0, 10, 0, 20), (-0.1611, 0.2775)),
-]
 
 # One-table edge cases: zero cells, all-event groups, groups of one, both groups at an edge.
 EDGE_TABLES: list[Stratum] = [
@@ -188,7 +174,7 @@ def test_one_stratum_is_the_one_table_newcombe_interval(weights: str, level: flo
 
 
 @pytest.mark.parametrize("weights", WEIGHTS)
-@pytest.mark.parametrize(("table", "limits"), NEWCOMBE_1998_METHOD_6)
+@pytest.mark.parametrize(("table", "limits"), NEWCOMBE_1998_TABLE_II_METHOD_6)
 def test_one_stratum_reproduces_newcombe_method_6(
     weights: str, table: Stratum, limits: tuple[float, float]
 ) -> None:
@@ -197,7 +183,7 @@ def test_one_stratum_reproduces_newcombe_method_6(
 
 
 @pytest.mark.parametrize("weights", WEIGHTS)
-@pytest.mark.parametrize(("table", "limits"), NEWCOMBE_1998_METHOD_10)
+@pytest.mark.parametrize(("table", "limits"), NEWCOMBE_1998_TABLE_II_METHOD_10)
 def test_one_stratum_reproduces_newcombe_method_10(
     weights: str, table: Stratum, limits: tuple[float, float]
 ) -> None:
