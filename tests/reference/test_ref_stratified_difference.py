@@ -136,6 +136,8 @@ def _independent_interval(
     for level in levels:
         crit = float(scipy.stats.norm.isf((1 - level) / 2))
         inside = np.flatnonzero(np.abs(z) <= crit)
+        # the set {|Z| <= z} is one interval on the grid (the module docstring says so)
+        assert (np.diff(inside) == 1).all()
         first, last = int(inside[0]), int(inside[-1])
         low = optimize.brentq(lambda d, c=crit: scalar(d) - c, grid[first - 1], grid[first],
                               xtol=1e-15)

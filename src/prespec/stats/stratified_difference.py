@@ -29,13 +29,15 @@ module computes, whatever the paper's notation.
 - The test refers Z(delta) to the standard normal distribution.
 - The point estimate is the root of Z(δ) = 0. With the CMH weights it is the weighted mean
   Σ w_h d̂_h (the Mantel–Haenszel risk difference), computed from exact fractions.
-- The interval is {δ : |Z(δ)| <= z}, z = z_{(1+level)/2}. Its limits are the outermost
-  crossings, found on the bounded form S(δ) = T/sqrt(T² + D) (T the numerator, D the variance
-  of Z), which is continuous on [−1, 1]: S(−1) = 1 whenever some d̂_h > −1 (every Ṽ_h is 0
-  there, the numerator positive) and S(estimate) = 0. The lower limit is searched on a grid
+- The interval is {δ : |Z(δ)| <= z}, z = z_{(1+level)/2}. Its limits are crossings of |Z| = z,
+  found on the bounded form S(δ) = T/sqrt(T² + D) (T the numerator, D the variance of Z),
+  which is continuous on [−1, 1]: S(−1) = 1 whenever some d̂_h > −1 (every Ṽ_h is 0 there and
+  the numerator positive; for the inverse-variance weights, the limit as δ → −1) and
+  S(estimate) = 0. The lower limit is searched on a grid
   of 32 steps from −1 up to the estimate; the first grid point with S <= z/sqrt(1 + z²)
   closes a bracket whose left end has S above it, a sign change checked, not assumed, and
-  brentq finds the crossing in it. The upper limit is minus the lower limit of the swapped
+  brentq finds the crossing in it (the outermost one, unless Z crosses z twice between two
+  grid points; on every series tested |Z| <= z held on one interval). The upper limit is minus the lower limit of the swapped
   strata, so swapping the groups mirrors the interval exactly. With one stratum the statistic
   is the one-table Miettinen–Nurminen statistic and the interval is
   :func:`prespec.stats.intervals.miettinen_nurminen_difference`.
@@ -55,7 +57,8 @@ interval with the effective size 1/Σ_h w_h²/n_ih), and the limits for p̂1 −
 by Newcombe's square-and-add. The ``miettinen-nurminen`` weights are taken at the stratified
 score estimate (they then satisfy Σ w_h d̂_h = estimate); where they are undefined there
 (estimate 0 with a stratum of no or only events, or every d̂_h equal to −1 or to 1, with more
-than one stratum) the interval is ``nan`` with a note. With one stratum it is :func:`prespec.stats.intervals.newcombe_difference`.
+than one stratum) the interval is ``nan`` with a note. With one stratum it is
+:func:`prespec.stats.intervals.newcombe_difference`.
 
 References
 ----------
@@ -93,7 +96,7 @@ _GRID_STEPS = 32  # grid steps from -1 to the estimate, searched for the outermo
 _NEAR_ZERO = 1e-12  # where the sign of Z beside 0 is read, for strata of no or only events
 _DEGENERATE_NOTE = (
     "a stratum with no events or only events has zero restricted variance at a difference of"
-    " 0, so its inverse-variance weight is infinite there"
+    " 0, so its inverse-variance weight is infinite there and the score statistic at 0 is 0"
 )
 _UNDEFINED_NOTE = (
     "the inverse-variance weights are undefined at the estimate: a stratum's restricted"
