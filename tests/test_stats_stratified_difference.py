@@ -311,6 +311,8 @@ def test_properties_on_random_strata(strata: list[Stratum], weights: str) -> Non
     assert -1.0 <= score.low <= score.value <= score.high <= 1.0
     mirrored = stratified_score_interval(_swap_groups(strata), 0.95, weights=weights)
     assert (mirrored.low, mirrored.high) == (-score.high, -score.low)
+    if score.note is not None:  # the inverse-variance weights hold 0 (Z(0) = 0 by the limit)
+        assert weights == "miettinen-nurminen" and score.low <= 0.0 <= score.high
     newcombe = stratified_newcombe_interval(strata, 0.95, weights=weights)
     if not math.isnan(newcombe.value):
         assert -1.0 <= newcombe.low <= newcombe.value <= newcombe.high <= 1.0
