@@ -11,9 +11,12 @@ import scipy.stats
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from prespec.stats.intervals import difference_mle
 from prespec.stats.results import Estimate, TestResult
 from prespec.stats.stratified_difference import (
     WEIGHTS,
+    _landmarks,
+    _series,
     stratified_newcombe_interval,
     stratified_score_interval,
     stratified_score_test,
@@ -318,3 +321,24 @@ def test_properties_on_random_strata(strata: list[Stratum], weights: str) -> Non
         assert -1.0 <= newcombe.low <= newcombe.value <= newcombe.high <= 1.0
     w = stratum_weights(strata, weights=weights, delta=0.25)
     assert math.fsum(w) == pytest.approx(1.0, abs=1e-14)
+
+
+@pytest.mark.parametrize(
+    ("stratum", "kinks"),
+    [((0, 8, 1, 14), 1), ((2, 2, 30, 31), 1), ((3, 3, 0, 5), 1), ((0, 6, 4, 4), 1),
+     ((0, 10, 0, 20), 0), ((4, 9, 5, 11), 0)],
+)
+def test_landmarks_are_where_a_restricted_estimate_reaches_0_or_1(
+    stratum: Stratum, kinks: int
+) -> None:
+    # the search grid's extra points: 0, d̂ and each δ where the restricted MLE leaves 0 or 1
+    x1, n1, x2, n2 = stratum
+    points = _landmarks(_series([stratum])).tolist()
+    assert points[:2] == [0.0, (x1 * n2 - x2 * n1) / (n1 * n2)]
+    assert len(points) == 2 + kinks
+    for delta in points[2:]:
+        def edges(d: float) -> int:
+            return sum(p in (0.0, 1.0) for p in difference_mle(x1, n1, x2, n2, d))
+        # on one side the estimate is on the boundary, on the other not (the all-event group
+        # and the empty group keep theirs on both sides)
+        assert edges(delta - 1e-4) != edges(delta + 1e-4), delta

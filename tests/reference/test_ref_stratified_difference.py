@@ -63,7 +63,10 @@ SERIES: list[list[Stratum]] = [
     [(0, 10, 0, 10), (8, 20, 2, 20)],
     [(0, 25, 0, 24), (3, 25, 7, 26), (5, 30, 0, 0), (10, 10, 8, 10)],
     [(45, 50, 30, 50), (20, 22, 14, 25)],
-    # with the inverse-variance weights {|Z| <= z} is two intervals here: one around 1/31, the
+    # with the inverse-variance weights {|Z| <= z} is two intervals here: one of width 0.009
+    # around -0.046, where 0/8 vs 1/14's restricted estimate of the first group reaches 0
+    [(2, 2, 1, 30), (0, 8, 1, 14), (1, 2, 2, 38)],
+    # and here: one around 1/31, the
     # d̂ of the second stratum, whose Ṽ is small there
     [(1, 5, 14, 29), (2, 2, 30, 31), (9, 29, 16, 16)],
     # and here, one around 0
