@@ -114,7 +114,6 @@ def _z(strata: list[Stratum], weights: str, delta: np.ndarray) -> np.ndarray:
     used = [s for s in strata if s[1] > 0 and s[3] > 0]
     numerator = np.zeros_like(delta)
     variance = np.zeros_like(delta)
-    total_weight = np.zeros_like(delta)
     for x1, n1, x2, n2 in used:
         p1, p2 = _restricted_mle((x1, n1, x2, n2), delta)
         size = n1 + n2
@@ -122,7 +121,6 @@ def _z(strata: list[Stratum], weights: str, delta: np.ndarray) -> np.ndarray:
         w = np.full_like(delta, n1 * n2 / size) if weights == "cmh" else 1.0 / v
         numerator += w * (x1 / n1 - x2 / n2 - delta)
         variance += w * w * v
-        total_weight += w
     return numerator / np.sqrt(variance)  # the normalisation cancels
 
 
