@@ -273,3 +273,33 @@ def test_the_demo_command_writes_the_trial_and_refuses_a_folder_of_other_files(
     assert main([str(folder)]) == 2
     assert "holds other files" in capsys.readouterr().err
     assert (folder / "notes.txt").read_text("utf-8") == "mine"
+
+
+def test_an_undefined_inverse_variance_weight_is_said(tmp_path: Path) -> None:
+    """A stratum with no events in either group under miettinen-nurminen weights: the test
+    cannot reject at 0, and the run says why (the statistic and p-value are the module's)."""
+    plan = tmp_path / "plan.yaml"
+    plan.write_text("""\
+prespec: 1
+title: An invented stratified check
+data: {id: id, group: arm, groups: [t, c]}
+outcomes:
+  y: {column: y, event: [1], no_event: [0], missing: exclude}
+alpha: 0.05
+multiplicity: none
+hypotheses:
+  - {id: H1, outcome: y, compare: [t, c], test: stratified-score, strata: [site],
+     weights: miettinen-nurminen}
+""", encoding="utf-8")
+    rows = ([(f"A{i}", "t" if i % 2 else "c", "a", "0") for i in range(20)]
+            + [(f"B{i}", "t" if i % 2 else "c", "b", "1" if (i % 2 and i < 16) or i in (2, 4)
+                else "0") for i in range(40)])
+    data = tmp_path / "data.csv"
+    data.write_text("id,arm,site,y\n" + "".join(",".join(r) + "\n" for r in rows), "utf-8")
+    api.lock(plan, actor="ana")
+    results = _results(api.run(plan, data, actor="ana").folder)
+    h1 = results["hypotheses"][0]
+    assert (h1["statistic"], h1["p_value"]) == (0.0, 1.0)
+    assert h1["stratified"] == {"weights": "miettinen-nurminen",
+                                "stratum_weights": [None, None]}
+    assert "stratum-weight-undefined" in [n["code"] for n in results["notes"]]

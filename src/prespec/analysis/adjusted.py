@@ -11,6 +11,7 @@ Both write their own keys of the entry (``adjusted``, ``stratified``); the numbe
 
 from __future__ import annotations
 
+import math
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -169,9 +170,18 @@ def stratified_estimate(strata: list[tuple[int, int, int, int]], hyp: Any,
     return STRATIFIED_SCORE_INTERVALS[hyp.interval](strata, level, weights=hyp.weights or "cmh")
 
 
-def stratified_json(strata: list[tuple[int, int, int, int]], hyp: Any) -> dict[str, Any]:
+def stratified_json(strata: list[tuple[int, int, int, int]], hyp: Any,
+                    notes: list[Note]) -> dict[str, Any]:
     """The ``stratified`` key: the weighting and each stratum's normalised weight (at the
-    risk difference tested: 0, or the non-inferiority margin; under equivalence at 0)."""
+    risk difference tested: 0, or the non-inferiority margin; under equivalence at 0), with a
+    note where the miettinen-nurminen weights are not defined there."""
     weights = hyp.weights or "cmh"
     shares = sdiff.stratum_weights(strata, weights=weights, delta=_delta(hyp))
-    return {"weights": weights, "stratum_weights": [float(w) for w in shares]}
+    if not all(math.isfinite(w) for w in shares):
+        notes.append(Note("stratum-weight-undefined", f"{hyp.id}: at a risk difference of "
+                          f"{_delta(hyp):g} a stratum's restricted variance is 0 (no events, or "
+                          "only events, in both groups), so its miettinen-nurminen weight is "
+                          "infinite: the statistic there is 0 and the test cannot reject; "
+                          "cmh weights do not have this property"))
+    return {"weights": weights,
+            "stratum_weights": [float(w) if math.isfinite(w) else None for w in shares]}

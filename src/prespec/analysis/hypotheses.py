@@ -204,7 +204,7 @@ def _primary(hyp: Hypothesis, plan: Plan, prepared: Prepared, notes: list[Note],
         mc["standard_error"] = finite_or_note(mc["standard_error"], f"{hyp.id}: the Monte Carlo "
                                        "standard error", notes)
     if table.strata is not None and run_as.test == "stratified-score":
-        entry["stratified"] = adjusted.stratified_json(table.strata, run_as)
+        entry["stratified"] = adjusted.stratified_json(table.strata, run_as, notes)
     if table.strata is not None and run_as.test == "cochran-mantel-haenszel":
         het = methods.homogeneity(table)
         if het is not None:

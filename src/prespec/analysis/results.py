@@ -364,8 +364,10 @@ class Stratified(Part):
     """The weighting of a stratified-score hypothesis's common risk difference."""
 
     weights: Literal["cmh", "miettinen-nurminen"] = Field(description="The plan's weights key.")
-    stratum_weights: list[Number] = Field(
-        description="Each stratum's weight, aligned with strata_tables.")
+    stratum_weights: list[Number | None] = Field(
+        description="Each stratum's normalised weight at the risk difference tested, aligned "
+        "with strata_tables; null where the miettinen-nurminen weights are not defined there "
+        "(a restricted variance of 0).")
 
 
 class Hypothesis(Part):
