@@ -303,3 +303,24 @@ hypotheses:
     assert h1["stratified"] == {"weights": "miettinen-nurminen",
                                 "stratum_weights": [None, None]}
     assert "stratum-weight-undefined" in [n["code"] for n in results["notes"]]
+
+
+def test_overriding_the_adjusted_test_drops_its_own_keys_and_reruns(
+        study: tuple[Path, Path]) -> None:
+    """--test H1=two-proportion-z: the keys only g-computation uses no longer apply and its
+    interval becomes the measure's default; each change is an override departure, and
+    verify --rerun re-applies them and gets the same report."""
+    plan, data = study
+    api.lock(plan, actor="ana")
+    out = api.run(plan, data, actor="ana", overrides={"hypotheses.H1.test": "two-proportion-z"},
+                  accept_deviation="an unadjusted look, for comparison")
+    results = _results(out.folder)
+    assert [o["key"] for o in results["overrides"]] == [
+        "hypotheses.H1.test", "hypotheses.H1.covariates", "hypotheses.H1.variance",
+        "hypotheses.H1.randomisation_strata", "hypotheses.H1.covariate_missing",
+        "hypotheses.H1.fallback", "hypotheses.H1.interval"]
+    h1 = results["hypotheses"][0]
+    assert h1["test"] == "two-proportion-z" and "adjusted" not in h1
+    assert h1["estimate"]["ci_method"] == "newcombe" and h1["pre_specified"] is False
+    res = api.verify(plan, rerun=data)
+    assert [r.locked for r in res.runs] == [False]

@@ -24,6 +24,7 @@ from pydantic import ValidationError
 
 from prespec.analysis.results import Hypothesis, RehearsalResults, RunResults, finish, read_results
 from prespec.errors import PrespecError
+from prespec.report import adjusted as report_adjusted
 from prespec.report import blinded, sections
 from prespec.report.tablenames import hypothesis_table, model_table
 from prespec.report.tables import MODEL_HEADER, write_tables
@@ -35,9 +36,7 @@ except ImportError:  # tests collected as a package
     from tests.test_report_blinded import blinded_results
     from tests.test_report_figures import HOSTILE_ATTR, HOSTILE_SCRIPT, sample_results
 
-YE = "Ye, Shao, Yi and Zhao (2023), stratified randomisation by site"
-WHY = ("The variance is computed from the observed outcomes around the model's predictions, "
-       "so it stays consistent whether or not the logistic model is right.")
+YE = "Ye et al. (2023), stratified randomisation by site"
 
 
 def adjusted_entry() -> dict[str, Any]:
@@ -63,8 +62,6 @@ def adjusted_entry() -> dict[str, Any]:
                  "reference": "north"},
             ],
             "variance": "ye",
-            "variance_method": YE,
-            "why_valid": WHY,
             "randomisation_strata": ["site"],
             "missing_covariate": {"negative-pressure": 2, "gauze": 1},
             "risks": [
@@ -223,13 +220,20 @@ def test_the_covariates_with_their_reference_level_and_the_units_left_out() -> N
 def test_one_line_names_the_variance_and_why_it_is_valid() -> None:
     page = _page(adjusted_entry())
     lines = re.findall(r'<p class="prespec-variance">(.*?)</p>', page, re.DOTALL)
-    assert [_text(x) for x in lines] == [f"Variance (ye): {YE}. {WHY}"]
+    assert [_text(x) for x in lines] == [
+        f"Variance (ye): {YE}. {report_adjusted.VARIANCE_WORDS['ye'][1]}"]
     hyp = adjusted_entry()
-    hyp["adjusted"].update(variance="ge", variance_method="Ge et al. (2011), delta method "
-                           "over the HC0 sandwich covariance.")
+    hyp["adjusted"].update(variance="ge", randomisation_strata=None)
     line = _text(re.findall(r'<p class="prespec-variance">(.*?)</p>', _page(hyp), re.DOTALL)[0])
-    assert line.startswith("Variance (ge): Ge et al. (2011), delta method over the HC0 sandwich "
-                           "covariance. The variance")
+    assert line == ("Variance (ge): Ge et al. (2011), the delta method over the HC0 sandwich "
+                    "covariance. The sandwich covariance of the coefficients does not rely on "
+                    "the working model being true, but the delta method holds the observed "
+                    "covariates fixed: it leaves out their sampling variation and can understate "
+                    "the variance of the population-level effect when the effect differs between "
+                    "covariate patterns (variance ye does not).")
+    hyp["adjusted"].update(variance="ye")
+    line = _text(re.findall(r'<p class="prespec-variance">(.*?)</p>', _page(hyp), re.DOTALL)[0])
+    assert line.startswith("Variance (ye): Ye et al. (2023), simple randomisation. It is built")
 
 
 def test_the_parts_come_in_the_reading_order() -> None:
@@ -277,7 +281,7 @@ def test_adjusted_labels_are_escaped() -> None:
     hyp["adjusted"]["covariates"][1]["levels"] = [HOSTILE_SCRIPT, "south"]
     hyp["adjusted"]["covariates"][1]["reference"] = HOSTILE_SCRIPT
     hyp["adjusted"]["model"]["terms"][3]["term"] = f"site={HOSTILE_ATTR}"
-    hyp["adjusted"]["why_valid"] = HOSTILE_SCRIPT
+    hyp["adjusted"]["randomisation_strata"] = [HOSTILE_SCRIPT]
     page = _page(hyp)
     assert "<script>" not in page and "<img" not in page
     assert html.escape(HOSTILE_SCRIPT, quote=True) in page

@@ -27,22 +27,6 @@ if TYPE_CHECKING:
     from prespec.data.prepare import Units
     from prespec.plan.model import Hypothesis
 
-#: How each variance is named in the report, and why it holds when the model is wrong.
-VARIANCE_WORDS = {
-    "ye": ("Ye et al. (2023)",
-           ("It is built from each group's residuals and predictions without assuming that "
-            "the working model is true, so the interval and the test keep their level for the "
-            "population-level effect when the model is wrong; randomisation is all it relies "
-            "on.")),
-    "ge": ("Ge et al. (2011), the delta method over the HC0 sandwich covariance",
-           ("The sandwich covariance of the coefficients does not rely on the working model "
-            "being true, but the delta method holds the observed covariates fixed: it leaves "
-            "out their sampling variation and can understate the variance of the "
-            "population-level effect when the effect differs between covariate patterns "
-            "(variance ye does not).")),
-}
-
-
 # --- g-computation ---
 
 def fit(hyp: Hypothesis, units: Units, level: float) -> gcomp.Adjusted:
@@ -80,16 +64,9 @@ def _covariates_json(units: Units) -> list[dict[str, Any]]:
 def adjusted_json(hyp: Hypothesis, units: Units, model: gcomp.Adjusted | None,
                   fallback: dict[str, str] | None) -> dict[str, Any]:
     """The ``adjusted`` key of an entry: covariates, variance, risks, working model."""
-    name, why = VARIANCE_WORDS[hyp.variance]
-    method = name
-    if hyp.variance == "ye":
-        method += (", stratified randomisation by " + ", ".join(hyp.randomisation_strata)
-                   if hyp.randomisation_strata else ", simple randomisation")
     out: dict[str, Any] = {
         "covariates": _covariates_json(units),
         "variance": hyp.variance,
-        "variance_method": method,
-        "why_valid": why,
         "randomisation_strata": hyp.randomisation_strata,
         "missing_covariate": {g: sum(units.missing_covariate.get(g, {}).values())
                               for g in units.groups},

@@ -346,9 +346,6 @@ class Adjusted(Part):
 
     covariates: list[Covariate] = Field(description="The covariates in the plan's order.")
     variance: Literal["ye", "ge"] = Field(description="The plan's variance key.")
-    variance_method: Text = Field(description="The variance in words, with its source.")
-    why_valid: Text = Field(
-        description="Why the variance stays valid when the working model is wrong.")
     randomisation_strata: list[Text] | None = Field(
         description="The columns randomisation was stratified by; null: simple randomisation.")
     missing_covariate: dict[Text, Count] = Field(

@@ -174,20 +174,39 @@ def risks_table(adj: Mapping[str, Any], at: str) -> str:
                     cls="prespec-marginal-risks"))
 
 
+#: How each variance is named in the report, and what it holds when the working model is wrong.
+VARIANCE_WORDS = {
+    "ye": ("Ye et al. (2023)",
+           ("It is built from each group's residuals and predictions without assuming that the "
+           "working model is true, so the interval and the test keep their level for the "
+           "population-level effect when the model is wrong; randomisation is all it relies "
+           "on.")),
+    "ge": ("Ge et al. (2011), the delta method over the HC0 sandwich covariance",
+           ("The sandwich covariance of the coefficients does not rely on the working model "
+           "being true, but the delta method holds the observed covariates fixed: it leaves "
+           "out their sampling variation and can understate the variance of the "
+           "population-level effect when the effect differs between covariate patterns "
+           "(variance ye does not).")),
+}
+
+
 def variance_line(hyp: Mapping[str, Any], where: str) -> str:
-    """One line naming the variance of the adjusted effect and why it is valid when the
-    working model is wrong, or ``""`` when not adjusted or after a fallback."""
+    """One line naming the variance of the adjusted effect (with the randomisation it assumes)
+    and what it holds when the working model is wrong, or ``""`` when not adjusted or after a
+    fallback."""
     adj = _adjusted(hyp, where)
     if adj is None or adj.get("fallback") is not None:
         return ""
     at = f"{where}.adjusted"
-    method = text(adj.get("variance_method"), f"{at}.variance_method", default=NULL).strip()
     key = text(adj.get("variance"), f"{at}.variance", default="")
-    why = text(adj.get("why_valid"), f"{at}.why_valid", default="").strip()
-    line = f"Variance ({key}): " if key else "Variance: "
-    line += f"{method.rstrip('.')}."
-    if why:
-        line += f" {why}"
+    name, why = VARIANCE_WORDS.get(key, (NULL, ""))
+    if key == "ye":
+        strata = [text(s, f"{at}.randomisation_strata[{k}]")
+                  for k, s in enumerate(items(adj.get("randomisation_strata"),
+                                              f"{at}.randomisation_strata"))]
+        name += (", stratified randomisation by " + ", ".join(strata) if strata
+                 else ", simple randomisation")
+    line = (f"Variance ({key}): " if key else "Variance: ") + f"{name}. {why}".rstrip()
     return f'<p class="prespec-variance">{esc(line)}</p>'
 
 

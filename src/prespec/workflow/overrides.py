@@ -57,7 +57,50 @@ def apply_overrides(resolved: dict[str, Any], overrides: Mapping[str, Any]
             target["sparse"] = None
             changed.append({"key": key.rsplit(".", 1)[0] + ".sparse", "locked": sparse,
                             "used": None})
+        if name == "test":
+            changed += _leave_test(target, str(locked), value, key.rsplit(".", 1)[0])
     return plan, changed
+
+
+#: The keys only a test uses: they no longer apply when an override leaves it.
+_OWN_KEYS = {
+    "g-computation": ("covariates", "variance", "randomisation_strata", "covariate_missing",
+                      "fallback"),
+    "stratified-score": ("weights", "strata"),
+    "cochran-mantel-haenszel": ("strata",),
+}
+
+
+def _leave_test(target: dict[str, Any], old: str, new: Any, where: str
+                ) -> list[dict[str, Any]]:
+    """An override from ``old`` to ``new`` test: the keys only ``old`` used are dropped (a
+    stratified test keeps its strata for another stratified one), and a measure or interval
+    that ``new`` does not take becomes its default; each is listed as a change."""
+    from prespec.plan import vocabulary as v
+    from prespec.plan.model import default_interval, default_measure, kind_of
+
+    changes: list[dict[str, Any]] = []
+
+    def change(name: str, used: Any) -> None:
+        if target.get(name) != used:
+            changes.append({"key": f"{where}.{name}", "locked": target.get(name), "used": used})
+            target[name] = used
+
+    for name in _OWN_KEYS.get(old, ()):
+        if name == "strata" and new in v.STRATIFIED_TESTS:
+            continue
+        change(name, None)
+    kind = kind_of(target.get("compare"))
+    own = v.OWN_INTERVALS.get(new)
+    measures = tuple(own) if own else v.MEASURES_BY_KIND.get(kind or "", ())
+    if target.get("measure") is not None and target.get("measure") not in measures:
+        change("measure", default_measure(kind, new))
+    measure = target.get("measure")
+    if measure is not None:
+        intervals = (own or {}).get(measure) or v.INTERVALS_BY_MEASURE.get(measure, ())
+        if target.get("interval") not in intervals:
+            change("interval", default_interval(kind, new, measure))
+    return changes
 
 
 def _show(value: Any) -> str:
