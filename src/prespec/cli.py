@@ -245,6 +245,8 @@ def _reduction_bar() -> Any:
 def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "check":
         res = api.check(args.plan)
+        for line in res.warnings:
+            print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         print(res.summary)
         print(f"data: {res.source}")
         print(f"lock: {res.lock_status}")
@@ -253,6 +255,8 @@ def _dispatch(args: argparse.Namespace) -> int:
         print(json.dumps(api.schema(args.of), indent=2))
     elif args.command == "lock":
         res = api.lock(args.plan, actor=args.actor, sign=args.sign)
+        for line in res.warnings:
+            print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         if res.created:
             print(f"locked {args.plan} as version {res.version}")
             print(f"fingerprint: {res.fingerprint}")
@@ -275,6 +279,8 @@ def _dispatch(args: argparse.Namespace) -> int:
 
         res = api.amend(args.plan, reason=args.reason, actor=args.actor, sign=args.sign,
                         warn=warn)
+        for line in res.warnings:
+            print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         if res.created:
             print(f"amended {args.plan}: locked as version {res.version}"
                   + (" (after unblinding: recorded as amended-after-unblinding)" if warned

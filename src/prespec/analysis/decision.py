@@ -105,7 +105,7 @@ def family_of(hyp: Hypothesis, parent: Any = None) -> str | None:
     """The family of a plan hypothesis, or of a follow-up of ``parent``: None when it (or its
     parent) is exploratory."""
     if parent is None:
-        return None if hyp.role == "exploratory" else MAIN_FAMILY
+        return None if hyp.outside_multiplicity else MAIN_FAMILY
     return None if parent.role == "exploratory" else f"{parent.id} pairwise"
 
 

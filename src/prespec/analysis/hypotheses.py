@@ -15,10 +15,11 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from prespec.analysis import adjusted, decision, methods, sensitivity
+from prespec.analysis import adjusted, bayes, decision, methods, sensitivity
 from prespec.analysis.decision import MAIN_FAMILY
 from prespec.common.departures import Note
 from prespec.data import Prepared
+from prespec.plan import vocabulary as v
 from prespec.plan.followups import follow_ups
 from prespec.stats import tables
 from prespec.stats.results import TestResult
@@ -188,6 +189,9 @@ def _primary(hyp: Hypothesis, plan: Plan, prepared: Prepared, notes: list[Note],
     level = interval_level(plan.alpha, hyp.alternative, hyp.comparison)
     if table.units is not None:
         return _adjusted(hyp, table, level, entry, notes)
+    if hyp.test in v.BAYESIAN_TESTS:  # no p-value: the posterior probability and its rule
+        entry.update(bayes.run_bayes(hyp, plan, table.events, table.totals, notes))
+        return entry
     rule = _rule(hyp, table)
     run_as = hyp.model_copy(update={"test": rule["to"]}) if rule else hyp
     if rule:

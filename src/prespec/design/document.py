@@ -23,6 +23,7 @@ from prespec.common.caution import CAUTION
 from prespec.design import exactpower, samplesize
 from prespec.design.simulate import Progress, simulate
 from prespec.errors import BadInput
+from prespec.plan import vocabulary as v
 
 if TYPE_CHECKING:
     from prespec.plan.model import Hypothesis, Plan
@@ -48,7 +49,7 @@ def _fmt(x: float) -> str:
 def alpha_shares(plan: Plan) -> tuple[dict[str, AlphaShare], str]:
     """The alpha each hypothesis is sized at, by id, and the rule in one sentence."""
     alpha = float(plan.alpha)
-    family = [h.id for h in plan.hypotheses if h.role != "exploratory"]
+    family = [h.id for h in plan.hypotheses if not h.outside_multiplicity]
     m = max(1, len(family))
     method = plan.multiplicity
     name = method if isinstance(method, str) else "graphical"
@@ -83,7 +84,10 @@ def alpha_shares(plan: Plan) -> tuple[dict[str, AlphaShare], str]:
         level = alpha
         rule = "the full alpha (no multiplicity adjustment)"
     for hyp in plan.hypotheses:
-        if hyp.role == "exploratory":
+        if hyp.test in v.BAYESIAN_TESTS:
+            shares[hyp.id] = AlphaShare(alpha, "outside the multiplicity family (a Bayesian "
+                                        "rule; its type I error is shown against alpha)")
+        elif hyp.role == "exploratory":
             shares[hyp.id] = AlphaShare(alpha, "the full alpha, nominal (exploratory)")
         elif name == "graphical":
             weight = float(method.weights.get(hyp.id, 0.0))
@@ -302,8 +306,36 @@ def _sides(hyp: Hypothesis, alpha: float) -> str:
     return f"one-sided ({hyp.alternative})"
 
 
+def _bayesian_design(plan: Plan, hyp: Hypothesis, share: AlphaShare) -> HypothesisDesign:
+    """A Bayesian rule is not sized: its exact operating characteristics at data.planned_n
+    (the type I error maximised over the null boundary, against alpha, and the power at the
+    assumed rates) are its design."""
+    from prespec.analysis.bayes import operating_characteristics
+
+    sides = f"one-sided ({hyp.alternative}), Bayesian rule"
+    oc = operating_characteristics(hyp, plan)
+    method = ("exact operating characteristics of the rule (posterior probability >= "
+              f"{_fmt(hyp.threshold)}), by enumeration of every outcome of the binomials")
+    if oc is None:
+        return HypothesisDesign(hyp.id, share.alpha, sides, method, None, None, None, (
+            ("not computed: the operating characteristics are taken at data.planned_n, which "
+            "names no size for every compared group"),))
+    where = "" if oc["at_rate"] is None else f" (reached at a rate of {_fmt(oc['at_rate'])})"
+    notes = [(f"type I error at the planned sizes, maximised over the null boundary: "
+             f"{oc['type_one_error']:.4f}{where}; alpha {_fmt(plan.alpha)}"),
+             ("outside the frequentist multiplicity family; not sized (the rule's power at "
+             "data.planned_n is shown)")]
+    if oc["exceeds_alpha"]:
+        notes.insert(0, f"WARNING: the type I error {oc['type_one_error']:.4f} exceeds alpha "
+                     f"{_fmt(plan.alpha)}")
+    return HypothesisDesign(hyp.id, share.alpha, sides, method, None, None, oc["power"],
+                            tuple(notes))
+
+
 def size_hypothesis(plan: Plan, hyp: Hypothesis, share: AlphaShare) -> HypothesisDesign:
     """The sample size per group and the power at data.planned_n of one hypothesis."""
+    if hyp.test in v.BAYESIAN_TESTS:
+        return _bayesian_design(plan, hyp, share)
     design = plan.design
     groups = _groups(plan, hyp)
     rates = [float(design.assumed[g]) for g in groups]

@@ -260,7 +260,7 @@ def plan_looks_issues(plan: Plan) -> Iterator[Issue]:
                 "must plan the same number (--look K runs look K of each)",
                 at_key=True,
             )
-    family = [h for h in plan.hypotheses if h.role != "exploratory"]
+    family = [h for h in plan.hypotheses if not h.outside_multiplicity]
     method = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
     if method == "none" or len(family) < 2:
         return

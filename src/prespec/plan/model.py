@@ -367,6 +367,36 @@ class Design(_Model):
         always=("assumed", "power", "allocation", "dropout", "continuity", "scenarios"))
 
 
+class BetaByMean(_Model):
+    """A beta distribution given by its mean and its effective sample size n (a + b)."""
+
+    mean: Probability = Field(description="the mean, in (0, 1)")
+    n: Annotated[float, Field(gt=0), BeforeValidator(_not_bool)] = Field(
+        description="the effective sample size a + b, > 0")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("mean", "n"))
+
+
+Positive = Annotated[float, Field(gt=0), BeforeValidator(_not_bool)]
+BetaPrior = Annotated[list[Positive], Field(min_length=2, max_length=2)]
+
+
+def _priors(value: Any) -> Any:
+    """A prior given as {mean, n} is resolved into [a, b] = [mean·n, (1 − mean)·n] (at lock
+    the resolved plan holds the beta parameters); anything invalid is left for the model's
+    own message."""
+    if not isinstance(value, dict):
+        return value
+    out = {}
+    for group, prior in value.items():
+        if (isinstance(prior, dict) and set(prior) == {"mean", "n"}
+                and all(_is_number(prior[k]) for k in ("mean", "n"))
+                and 0 < prior["mean"] < 1 and prior["n"] > 0):
+            prior = [prior["mean"] * prior["n"], (1 - prior["mean"]) * prior["n"]]
+        out[group] = prior
+    return out
+
+
 class GraphicalMultiplicity(_Model):
     """The graphical procedure: initial weights and transition weights between hypotheses."""
 
@@ -407,7 +437,7 @@ def default_measure(kind: str | None, test: Any) -> str | None:
     if not measures:
         return None
     if test in v.OWN_INTERVALS:
-        return next(iter(v.OWN_INTERVALS[test]))
+        return next((m for m in v.OWN_INTERVALS[test] if m in measures), None)
     return measures[0]
 
 
@@ -507,6 +537,20 @@ class Hypothesis(_Model):
         default=None, description="stratified-score: the weights of the strata, cmh "
         "(n1·n2/(n1 + n2), the default) or miettinen-nurminen (inverse variance at the "
         "restricted estimates)")
+    # A Bayesian rule (test: posterior-probability).
+    prior: Annotated[dict[str, BetaPrior | BetaByMean] | None, BeforeValidator(_priors)] = Field(
+        default=None, description="posterior-probability: a Beta(a, b) prior per compared "
+        "group, [a, b] or {mean, n} (resolved into [a, b] at lock); left out, [1, 1] each")
+    threshold: Probability | None = Field(
+        default=None, description="posterior-probability: the rule is met when the posterior "
+        "probability reaches this; required")
+    credible: Probability | None = Field(
+        default=None, description="posterior-probability: the level of the equal-tailed "
+        "credible interval; left out, 0.95")
+    sceptical_prior: BetaByMean | None = Field(
+        default=None, description="posterior-probability: the sceptical prior of the "
+        "prior-sensitivity table, the same for every compared group (centred on no "
+        "difference); left out, docs/bayes.md says how it is chosen")
 
     # an ordinary hypothesis resolves as before families and looks existed; a family writes
     # all its keys
@@ -515,7 +559,8 @@ class Hypothesis(_Model):
                 "margin", "measure", "interval", "continuity", "sparse", "role", "null_rate",
                 "strata", "scores", "then", "monte_carlo", "estimand", "sensitivity"),
         if_set=("looks", "over", "covariates", "variance", "randomisation_strata",
-                "covariate_missing", "fallback", "weights"),
+                "covariate_missing", "fallback", "weights", "prior", "threshold", "credible",
+                "sceptical_prior"),
         with_key={key: "over" for key in v.FAMILY_KEYS if key != "over"})
 
     @model_validator(mode="before")
@@ -535,7 +580,18 @@ class Hypothesis(_Model):
             out.setdefault("fallback", v.DEFAULT_FALLBACK)
         if test == "stratified-score":
             out.setdefault("weights", "cmh")
+        if test in v.BAYESIAN_TESTS:
+            compare = data.get("compare")
+            if out.get("prior") is None and isinstance(compare, list) and all(
+                    isinstance(g, str) for g in compare):
+                out["prior"] = {g: [1, 1] for g in compare}
+            out.setdefault("credible", 0.95)
         return out
+
+    @property
+    def outside_multiplicity(self) -> bool:
+        """Exploratory hypotheses and Bayesian rules are outside the multiplicity family."""
+        return self.role == "exploratory" or self.test in v.BAYESIAN_TESTS
 
     @property
     def kind(self) -> Literal["pair", "single", "all", "trend"]:

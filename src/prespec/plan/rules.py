@@ -130,7 +130,10 @@ def _outcome_issues(plan: Plan) -> Iterator[Issue]:
                                 "numbers, and a value cannot count as both")
 
 
-def _outside_family(hyp_id: str) -> str:
+def _outside_family(hyp_id: str, bayesian: bool = False) -> str:
+    if bayesian:
+        return (f"{show(hyp_id)} is a Bayesian rule (posterior-probability), which is outside "
+                "the frequentist multiplicity family; leave it out")
     return (f"{show(hyp_id)} is exploratory, and exploratory hypotheses are outside the "
             "multiplicity family; give it a role of primary or secondary, or leave it out")
 
@@ -140,7 +143,8 @@ def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
     if isinstance(mult, str):
         return
     ids = [h.id for h in plan.hypotheses]
-    exploratory = {h.id for h in plan.hypotheses if h.role == "exploratory"}
+    exploratory = {h.id for h in plan.hypotheses if h.outside_multiplicity}
+    bayesian = {h.id for h in plan.hypotheses if h.test in v.BAYESIAN_TESTS}
     base: KeyPath = ("multiplicity",)
     total = 0.0
     for hyp_id, weight in mult.weights.items():
@@ -148,7 +152,8 @@ def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
             yield Issue((*base, "weights", hyp_id), _not_in("the hypothesis ids", hyp_id, ids),
                         at_key=True)
         elif hyp_id in exploratory:
-            yield Issue((*base, "weights", hyp_id), _outside_family(hyp_id), at_key=True)
+            yield Issue((*base, "weights", hyp_id), _outside_family(hyp_id, hyp_id in bayesian),
+                        at_key=True)
         if not 0 <= weight <= 1:
             yield Issue((*base, "weights", hyp_id), f"a weight must be in [0, 1], found "
                         f"{show(weight)}")
@@ -161,7 +166,7 @@ def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
         if source not in ids:
             yield Issue(path, _not_in("the hypothesis ids", source, ids), at_key=True)
         elif source in exploratory:
-            yield Issue(path, _outside_family(source), at_key=True)
+            yield Issue(path, _outside_family(source, source in bayesian), at_key=True)
         for target, weight in row.items():
             if target == source:
                 yield Issue((*path, target), f"{show(source)} cannot pass weight to itself",
@@ -170,7 +175,8 @@ def _multiplicity_issues(plan: Plan) -> Iterator[Issue]:
                 yield Issue((*path, target), _not_in("the hypothesis ids", target, ids),
                             at_key=True)
             elif target in exploratory:
-                yield Issue((*path, target), _outside_family(target), at_key=True)
+                yield Issue((*path, target), _outside_family(target, target in bayesian),
+                            at_key=True)
             if not 0 <= weight <= 1:
                 yield Issue((*path, target), f"a transition weight must be in [0, 1], found "
                             f"{show(weight)}")
@@ -334,6 +340,8 @@ def _test_issues(hyp: Hypothesis, test: str, path: KeyPath) -> Iterator[Issue]:
 
 def _comparison_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     comparison, margin = hyp.comparison, hyp.margin
+    if hyp.test in v.BAYESIAN_TESTS:
+        return  # its margin and comparison: _bayesian_issues
     if comparison == "superiority":
         if margin is not None:
             yield Issue((*path, "margin"), "a margin is used only with comparison: "
@@ -461,6 +469,7 @@ def _option_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue
     if hyp.strata is not None:
         yield from _strata_issues(plan, hyp.strata, bool(stratified), (*path, "strata"))
     yield from _adjusted_issues(plan, hyp, path)
+    yield from _bayesian_issues(plan, hyp, path)
     if hyp.then is not None and kind != "all":
         yield Issue((*path, "then"), f"follow-up comparisons apply to compare: all, not {label}",
                     at_key=True)
@@ -524,6 +533,51 @@ def _adjusted_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Iss
                         f"unadjusted test of two groups: {tests})")
         else:
             yield from _test_issues(hyp, fallback, where)
+
+
+def _bayesian_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    """The keys of a Bayesian rule (test: posterior-probability), used only by it."""
+    bayesian = hyp.test in v.BAYESIAN_TESTS
+    for key in ("prior", "threshold", "credible", "sceptical_prior"):
+        if getattr(hyp, key) is not None and not bayesian:
+            yield Issue((*path, key), "is used only with test: posterior-probability",
+                        at_key=True)
+    if not bayesian:
+        return
+    if hyp.alternative == "two-sided":
+        yield Issue((*path, "test"), "a posterior-probability rule is one-sided: set "
+                    "alternative: greater or less (the direction of success)")
+    if hyp.comparison != "superiority":
+        yield Issue((*path, "comparison"), "a posterior-probability rule takes its margin "
+                    "with comparison: superiority (Pr(p_a − p_b > margin)); leave comparison "
+                    "out", at_key=True)
+    if hyp.threshold is None:
+        yield Issue((*path, "test"), "posterior-probability needs threshold: the posterior "
+                    "probability at which the rule is met, e.g. 0.975")
+    if hyp.margin is not None:
+        if hyp.kind == "single":
+            yield Issue((*path, "margin"), "compare [a] takes null_rate, not a margin",
+                        at_key=True)
+        elif isinstance(hyp.margin, list) or not -1 < hyp.margin < 1:
+            yield Issue((*path, "margin"), "the margin of a posterior-probability rule is one "
+                        f"risk difference in (-1, 1), found {show(hyp.margin)}")
+    if hyp.prior is not None and isinstance(hyp.compare, list):
+        for group in hyp.prior:
+            if group not in hyp.compare:
+                yield Issue((*path, "prior", group), _not_in("the compared groups", group,
+                                                             list(hyp.compare)), at_key=True)
+        for group in hyp.compare:
+            if group not in hyp.prior:
+                yield Issue((*path, "prior"), f"gives no prior for {show(group)}; give one "
+                            "for each compared group", at_key=True)
+    for key, why in (("sparse", "a Bayesian rule has no sparse switch"),
+                     ("looks", ("interim looks of a Bayesian rule (predictive probability) are "
+                               "not available in this version of prespec")),
+                     ("sensitivity", ("the prior-sensitivity table is shown instead; analyses "
+                                     "of missing outcomes are not available for a Bayesian "
+                                     "rule in this version of prespec"))):
+        if getattr(hyp, key) is not None:
+            yield Issue((*path, key), why, at_key=True)
 
 
 def _strata_issues(plan: Plan, strata: list[str], stratified: bool,

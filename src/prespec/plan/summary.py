@@ -90,6 +90,14 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
         parts.append(f"strata {', '.join(hyp.strata)}")
     if hyp.weights is not None:
         parts.append(f"weights {hyp.weights}")
+    if hyp.prior is not None:
+        priors = ", ".join(f"{console(g)} Beta({number(a)}, {number(b)})"
+                           for g, (a, b) in hyp.prior.items())
+        parts.append(f"prior {priors}")
+        parts.append(f"rule met when the posterior probability reaches {number(hyp.threshold)}"
+                     if hyp.threshold is not None else "no threshold")
+        parts.append(f"{number(hyp.credible)} credible interval; outside the multiplicity "
+                     "family")
     if hyp.covariates is not None:
         shown = ", ".join(f"{console(c)} ({k})" for c, k in hyp.covariates.items()) or "none"
         parts.append(f"covariates {shown}")

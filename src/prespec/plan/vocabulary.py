@@ -37,9 +37,10 @@ KNOWN_TESTS_BY_KIND: dict[str, frozenset[str]] = {
             "farrington-manning",
             "stratified-score",
             "g-computation",
+            "posterior-probability",
         }
     ),
-    "single": frozenset({"binomial-exact", "one-proportion-z"}),
+    "single": frozenset({"binomial-exact", "one-proportion-z", "posterior-probability"}),
     "all": frozenset({"pearson-chi-square", "likelihood-ratio", "fisher-exact"}),
     "trend": frozenset({"cochran-armitage-trend"}),
 }
@@ -66,6 +67,9 @@ CONTINUITY_TESTS_BY_KIND: dict[str, frozenset[str]] = {
 STRATIFIED_TESTS: frozenset[str] = frozenset({"cochran-mantel-haenszel", "stratified-score"})
 # The covariate-adjusted test: a working model fitted on the units, not on a count table.
 ADJUSTED_TESTS: frozenset[str] = frozenset({"g-computation"})
+# Bayesian decision rules: outside the frequentist multiplicity, decided by a posterior
+# probability against a threshold.
+BAYESIAN_TESTS: frozenset[str] = frozenset({"posterior-probability"})
 # Tests for non-inferiority and equivalence (with a margin), and those used only there.
 MARGIN_TESTS: frozenset[str] = frozenset({"farrington-manning", "two-proportion-z",
                                           "stratified-score", "g-computation"})
@@ -83,6 +87,7 @@ NO_TIPPING_POINT_TESTS: dict[str, str] = {
                         "strata they fall, so the stratified grid is not defined",
     "g-computation": "the working model needs each unit's covariates, and a grid of imputed "
                      "counts does not say which units the imputed events fall on",
+    "posterior-probability": "a Bayesian rule has no p-value to compare across the grid",
 }
 
 # Measures, per kind; the first is the default (CMH defaults to the odds ratio).
@@ -120,6 +125,10 @@ OWN_INTERVALS: dict[str, dict[str, tuple[str, ...]]] = {
         "risk-difference": ("g-computation",),
         "risk-ratio": ("g-computation",),
         "odds-ratio": ("g-computation",),
+    },
+    "posterior-probability": {
+        "risk-difference": ("equal-tailed-credible",),
+        "proportion": ("equal-tailed-credible",),
     },
 }
 KNOWN_INTERVALS: frozenset[str] = frozenset().union(
@@ -177,6 +186,10 @@ KNOWN_HYPOTHESIS_OPTIONS: frozenset[str] = frozenset(
         "covariate_missing",
         "fallback",
         "weights",
+        "prior",
+        "threshold",
+        "credible",
+        "sceptical_prior",
     }
 )
 AVAILABLE_HYPOTHESIS_OPTIONS: frozenset[str] = KNOWN_HYPOTHESIS_OPTIONS
@@ -193,7 +206,8 @@ LATER_KEYS: dict[str, frozenset[str]] = {
 # family member may use (two groups; no strata, no margin).
 FLAG_METHODS: tuple[str, ...] = ("benjamini-hochberg", "double-fdr")
 FAMILY_TESTS: frozenset[str] = KNOWN_TESTS_BY_KIND["pair"] - {
-    "cochran-mantel-haenszel", "farrington-manning", "stratified-score", "g-computation"}
+    "cochran-mantel-haenszel", "farrington-manning", "stratified-score", "g-computation",
+    "posterior-probability"}
 
 # Covariate adjustment (test: g-computation): the kinds of covariate, the variances, what a
 # blank covariate does, and the tests a failed working model may fall back to.
@@ -201,7 +215,7 @@ COVARIATE_KINDS: tuple[str, ...] = ("numeric", "categorical")
 VARIANCES: tuple[str, ...] = ("ye", "ge")
 COVARIATE_MISSING: tuple[str, ...] = ("exclude", "error")
 FALLBACK_TESTS: frozenset[str] = KNOWN_TESTS_BY_KIND["pair"] - {
-    "cochran-mantel-haenszel", "stratified-score", "g-computation"}
+    "cochran-mantel-haenszel", "stratified-score", "g-computation", "posterior-probability"}
 DEFAULT_FALLBACK = "two-proportion-z"
 # Stratified score test (test: stratified-score): the weights of the strata.
 STRATUM_WEIGHTS: tuple[str, ...] = ("cmh", "miettinen-nurminen")

@@ -28,6 +28,7 @@ class CheckResult:
     summary: str
     lock_status: str
     source: str = ""  # the data a run reads without DATA (``sources.describe_source``)
+    warnings: tuple[str, ...] = ()  # e.g. a Bayesian rule whose type I error exceeds alpha
 
 
 @dataclass(frozen=True)
@@ -36,6 +37,7 @@ class LockResult:
     version: int
     created: bool  # False when the plan was already locked unchanged
     note: str | None = None
+    warnings: tuple[str, ...] = ()  # e.g. a Bayesian rule whose type I error exceeds alpha
 
 
 def _lock_status(loaded: LoadedPlan) -> str:
@@ -59,7 +61,20 @@ def check(plan: str | Path) -> CheckResult:
         from prespec.design.document import design_summary
 
         text = "\n".join([text, *design_summary(loaded.model)])
-    return CheckResult(loaded, text, _lock_status(loaded), source)
+    return CheckResult(loaded, text, _lock_status(loaded), source,
+                       tuple(_plan_warnings(loaded.model)))
+
+
+def _plan_warnings(plan: Any) -> list[str]:
+    """What a plan may intend but should be told: a Bayesian rule whose exact type I error at
+    the planned sizes exceeds alpha (loads the statistics only for such a plan)."""
+    from prespec.plan import vocabulary as v
+
+    if not any(h.test in v.BAYESIAN_TESTS for h in plan.hypotheses):
+        return []
+    from prespec.analysis.bayes import type_one_error_warnings
+
+    return type_one_error_warnings(plan)
 
 
 SCHEMAS = ("plan", "results", "log-entry")
@@ -166,7 +181,7 @@ def lock(plan: str | Path, *, actor: str | None = None,
     actor = resolve_actor(actor)
     record = _version_record(loaded, 1, None, None, actor)
     _write_version(loaded, record, "lock", actor, [], signer)
-    return LockResult(loaded.fingerprint, 1, True)
+    return LockResult(loaded.fingerprint, 1, True, warnings=tuple(_plan_warnings(loaded.model)))
 
 
 @plain_errors
@@ -214,7 +229,8 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
                  "verify reports every run of it as not the locked analysis")
     changes = [str(c) for c in plan_changes(last["plan"], loaded.resolved)]
     _write_version(loaded, record, "amend", actor, deviations, signer, changes)
-    return LockResult(loaded.fingerprint, version, True)
+    return LockResult(loaded.fingerprint, version, True,
+                      warnings=tuple(_plan_warnings(loaded.model)))
 
 
 @plain_errors
