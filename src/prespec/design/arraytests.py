@@ -17,6 +17,7 @@ import numpy as np
 
 from prespec.analysis import methods
 from prespec.design.exactpower import FisherTables
+from prespec.plan.vocabulary import BAYESIAN_TESTS
 from prespec.stats.margins import margin_p_values, wald_margin_z_many
 from prespec.stats.proportions import likelihood_ratio_many, pearson_many, two_proportion_z_many
 from prespec.stats.single import binomial_exact_all, one_proportion_z_many
@@ -56,6 +57,26 @@ class PerTable:
         return values[inverse.reshape(-1)]
 
 
+def bayesian_rule(hyp: Hypothesis, totals: np.ndarray) -> ArrayTest:
+    """A Bayesian rule on arrays: every outcome's decision is looked up in the rule's region
+    (``stats.bayes.rule_region``), and enters the decision as 0 where the rule is met and 1
+    elsewhere: outside the multiplicity family it is decided at its nominal level, so its
+    decision is exactly the rule's."""
+    from prespec.stats import bayes
+
+    groups = list(hyp.compare)
+    if hyp.kind == "single":
+        single = bayes.rule_region_single(
+            int(totals[0]), tuple(hyp.prior[groups[0]]), null_rate=float(hyp.null_rate),
+            alternative=hyp.alternative, threshold=float(hyp.threshold))
+        return lambda ev: np.where(single[ev[:, 0]], 0.0, 1.0)
+    region = bayes.rule_region(
+        int(totals[0]), int(totals[1]), tuple(hyp.prior[groups[0]]),
+        tuple(hyp.prior[groups[1]]), margin=float(hyp.margin or 0.0),
+        alternative=hyp.alternative, threshold=float(hyp.threshold))
+    return lambda ev: np.where(region[ev[:, 0], ev[:, 1]], 0.0, 1.0)
+
+
 #: Tests with an array form, by compare kind (the others run per distinct table).
 ON_ARRAYS = {
     "pair": {"pearson-chi-square", "likelihood-ratio", "two-proportion-z", "fisher-exact"},
@@ -67,6 +88,8 @@ ON_ARRAYS = {
 
 def on_arrays(hyp: Hypothesis, test: str) -> bool:
     """Whether ``test`` for this hypothesis has an array form."""
+    if test in BAYESIAN_TESTS:
+        return True
     if hyp.kind == "pair" and hyp.comparison != "superiority":
         return test == "two-proportion-z"
     return test in ON_ARRAYS.get(hyp.kind, set())
@@ -79,6 +102,8 @@ def array_test(hyp: Hypothesis, test: str, totals: np.ndarray) -> tuple[ArrayTes
     alt = hyp.alternative
     if not on_arrays(hyp, test):
         return PerTable(hyp, totals), False
+    if test in BAYESIAN_TESTS:
+        return bayesian_rule(hyp, totals), True
     if test == "pearson-chi-square":
         return (lambda ev: pearson_many(ev, totals, continuity=bool(hyp.continuity),
                                         alternative=alt)[1]), True

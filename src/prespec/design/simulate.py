@@ -94,8 +94,8 @@ def null_holds(hyp: Hypothesis, rates: list[float], sizes: list[int]) -> bool:
         reference = 0.0
     elif hyp.kind == "single":
         value, reference = rates[0], float(hyp.null_rate)
-    elif hyp.comparison == "superiority":
-        value, reference = rates[0] - rates[1], 0.0
+    elif hyp.comparison == "superiority":  # a Bayesian rule's margin is on this scale
+        value, reference = rates[0] - rates[1], float(getattr(hyp, "margin", None) or 0.0)
     else:
         value = rates[0] - rates[1] if hyp.measure == "risk-difference" else rates[0] / rates[1]
         if hyp.comparison == "equivalence":
