@@ -41,6 +41,10 @@ STUDIES = Path(__file__).parent / "fixtures" / "studies"
 
 # sha256 of the RFC 8785 JSON of the resolved plan, by prespec c74a456  # computed, then frozen
 GOLDEN = {
+    "plans/bayesian-secondary.yaml":
+        "sha256:79c23b9fbfe585b78756bafde46e907a52152a8f4d754987a01353af656779bb",
+    "bayes-every-key.yaml":
+        "sha256:68a661f1290323b568389c6e9b31c0d0d897bb2a33c7a8a3825733a0e442de81",
     "plans/adjusted-primary.yaml":
         "sha256:7e18609b35a070d787488a412b93721e6b213b58c6790bd6b419877c4b340688",
     "adjusted-every-key.yaml":
@@ -170,6 +174,9 @@ ALWAYS = {
     "Looks": ("fractions", "sizes", "efficacy", "gamma", "futility"),
     "Futility": ("spending", "gamma", "binding"),
     "Design": ("assumed", "power", "allocation", "dropout", "continuity", "scenarios"),
+    # issue 17: a model reached only through a new key (sceptical_prior), so its keys are all
+    # written whenever it is; no earlier plan holds it
+    "BetaByMean": ("mean", "n"),
 }
 # The keys left out at their default, and that default: what a plan without the key means.
 # A released default never changes.
@@ -193,6 +200,11 @@ LEFT_OUT_AT_DEFAULT = {
     ("Hypothesis", "covariate_missing"): None,
     ("Hypothesis", "fallback"): None,
     ("Hypothesis", "weights"): None,
+    # a Bayesian rule: written only by posterior-probability
+    ("Hypothesis", "prior"): None,
+    ("Hypothesis", "threshold"): None,
+    ("Hypothesis", "credible"): None,
+    ("Hypothesis", "sceptical_prior"): None,
 }
 
 

@@ -381,6 +381,16 @@ Positive = Annotated[float, Field(gt=0), BeforeValidator(_not_bool)]
 BetaPrior = Annotated[list[Positive], Field(min_length=2, max_length=2)]
 
 
+def _prior_tag(value: Any) -> str:
+    return "mean" if isinstance(value, (dict, BetaByMean)) else "beta"
+
+
+Prior = Annotated[
+    Annotated[BetaPrior, Tag("beta")] | Annotated[BetaByMean, Tag("mean")],
+    Discriminator(_prior_tag),
+]
+
+
 def _priors(value: Any) -> Any:
     """A prior given as {mean, n} is resolved into [a, b] = [mean·n, (1 − mean)·n] (at lock
     the resolved plan holds the beta parameters); anything invalid is left for the model's
@@ -538,7 +548,7 @@ class Hypothesis(_Model):
         "(n1·n2/(n1 + n2), the default) or miettinen-nurminen (inverse variance at the "
         "restricted estimates)")
     # A Bayesian rule (test: posterior-probability).
-    prior: Annotated[dict[str, BetaPrior | BetaByMean] | None, BeforeValidator(_priors)] = Field(
+    prior: Annotated[dict[str, Prior] | None, BeforeValidator(_priors)] = Field(
         default=None, description="posterior-probability: a Beta(a, b) prior per compared "
         "group, [a, b] or {mean, n} (resolved into [a, b] at lock); left out, [1, 1] each")
     threshold: Probability | None = Field(

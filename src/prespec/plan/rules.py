@@ -330,7 +330,8 @@ def _test_issues(hyp: Hypothesis, test: str, path: KeyPath) -> Iterator[Issue]:
     if test in v.MARGIN_ONLY_TESTS and hyp.comparison == "superiority":
         yield Issue(path, f"'{test}' tests non-inferiority or equivalence; set comparison "
                     "and margin, or choose another test")
-    if hyp.comparison != "superiority" and test not in v.MARGIN_TESTS:
+    if (hyp.comparison != "superiority" and test not in v.MARGIN_TESTS
+            and test not in v.BAYESIAN_TESTS):  # a Bayesian rule says why: _bayesian_issues
         tests = ", ".join(sorted(v.MARGIN_TESTS))
         yield Issue(path, f"'{test}' does not test {hyp.comparison} (tests with a margin: "
                     f"{tests})")
