@@ -162,6 +162,10 @@ def _hypothesis_line(hyp: dict[str, Any], procedures: dict[str, str], interim: b
     flag = "" if hyp.get("pre_specified", True) else " (not pre-specified: override)"
     head = f"{hyp['id']}: {hyp['test']}, "
     reject = hyp.get("reject")
+    if hyp.get("posterior_probability") is not None:  # a Bayesian rule: no p-value
+        met = "rule met" if reject else "rule not met"
+        return (f"{head}posterior probability {hyp['posterior_probability']:.4f}, threshold "
+                f"{hyp['threshold']:g} (outside the multiplicity family): {met}{flag}")
     if hyp.get("role") == "exploratory":
         return f"{head}nominal {shown}: exploratory, no decision{flag}"
     if hyp.get("gate") == "closed":
