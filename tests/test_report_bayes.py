@@ -345,6 +345,7 @@ def test_a_single_group_rule() -> None:
     shown = _fields(page)
     assert shown["Estimate (proportion, posterior mean)"] == "0.1111"
     assert shown["Rule's event"] == "p(negative-pressure) < 0.20"
+    assert shown["Rate compared with"] == "0.20" and "Null hypothesis" not in shown
     assert shown["Posterior probability"] == "0.9994"
     assert shown["Threshold"] == "0.95"
     assert shown["Rule (exploratory)"] == "rule met"
@@ -361,7 +362,9 @@ def test_the_multiplicity_section_keeps_a_bayesian_rule_outside() -> None:
     h4 = [_text(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row)]
     assert h4 == ["H4", "secondary", "—", "not adjusted (Bayesian rule)", "rule met"]
     assert ("H4: decided by a pre-specified Bayesian rule on a posterior probability, outside "
-            "the frequentist multiplicity adjustment") in _text(part)
+            "the frequentist multiplicity adjustment; the operating characteristics of each "
+            "rule are shown with it where the plan gives a design and planned sizes.") in (
+        _text(part))
     assert sections._family_label(bayes_entry(), "hypotheses.H4", "holm") == (
         "none (Bayesian rule)")
     explored = sections.multiplicity(run_results(single_entry()))
@@ -487,6 +490,8 @@ def test_the_forest_plot_marks_a_bayesian_estimate_as_credible() -> None:
     rows = {r.label.split("\n")[0]: r for r in _estimate_rows(res)}
     h4 = rows["H4 (Bayesian)"]
     assert h4.bayesian and not rows["H1"].bayesian
+    explored = _estimate_rows(run_results(single_entry()))[0]
+    assert explored.label.startswith("H7 (exploratory, Bayesian)\n") and explored.exploratory
     assert _estimate_label(h4) == "-0.0910\n(-0.1647, -0.0179) 95% credible"
     assert _estimate_label(rows["H1"]) == "-0.0940\n(-0.1700, -0.0190) 95%"
     fig = _draw(_DifferencesJob(list(rows.values())))
@@ -623,3 +628,31 @@ def test_the_new_keys_are_optional_and_described() -> None:
                  "OperatingPoint"):
         props = defs[name]["properties"]
         assert all(p.get("description") for p in props.values()), name
+
+
+# --- the whole report -------------------------------------------------------------------------
+
+
+def test_the_rendered_report_shows_the_rule_and_its_figures(tmp_path: Path) -> None:
+    """One notebook execution (seconds): the figures reach the page after their hypothesis."""
+    from prespec.report import render
+
+    res = run_results(sample_results()["hypotheses"][0], bayes_entry())
+    folder = tmp_path / "report"
+    folder.mkdir()
+    (folder / "results.json").write_text(json.dumps(res, indent=2) + "\n", encoding="utf-8")
+    write_figures(res, folder)
+    render.render_notebook(folder)
+    page = (folder / "report.html").read_text(encoding="utf-8")
+    words = _text(page)
+    assert "Posterior probability 0.9925" in words and "Threshold 0.975" in words
+    assert "Decision rule met" in words and "Decision reject H0" in words  # H4, then H1
+    images = re.findall(r'<img alt="([^"]*)" src="data:image/png;base64,', page)
+    alts = [html.unescape(a) for a in images]
+    assert alts.count("Posterior densities of H4, the region of the rule's event shaded "
+                      "(p(negative-pressure) − p(gauze) < 0.00); posterior probability "
+                      "0.9925") == 1
+    assert alts.count("Probability that the rule of H4 is met along the null boundary "
+                      "p(negative-pressure) = p(gauze) + 0.00, against alpha") == 1
+    density = next(i for i, a in enumerate(alts) if a.startswith("Posterior densities of H4"))
+    assert page.index(images[density]) > page.index("Prior sensitivity")

@@ -452,7 +452,7 @@ def sensitivity_table(b: Bayes) -> str:
                f"threshold {NULL if b.threshold is None else fmt_rate(b.threshold)}")
     words = ("So that a reader sees how much the conclusion rests on the prior. The decision "
              f"of {b.hid} is the one under the plan's prior, above.")
-    return (f"<p>{esc(words)}</p>"
+    return ("<h4>Prior sensitivity</h4>" + f"<p>{esc(words)}</p>"
             + table(["Prior", "Priors by group", "Posterior probability", "Rule",
                      "Posterior mean", f"{level}credible interval"], body, numeric=(2, 4, 5),
                     cls="prespec-bayes-sensitivity", caption=caption))
@@ -501,7 +501,7 @@ def operating_block(b: Bayes) -> str:
     words = (f"The probability that the rule is met, computed exactly over every outcome at "
              f"the planned sizes: its largest value along {_boundary_words(b)} is the type I "
              "error; its value at the design's assumed rates is the power.")
-    parts = [f"<h5>Operating characteristics of the rule</h5><p>{esc(words)}</p>",
+    parts = [f"<h4>Operating characteristics of the rule</h4><p>{esc(words)}</p>",
              fields(rows)]
     if oc.exceeds_alpha:
         warn = (f"The rule's maximised type I error {t1e} exceeds alpha {alpha}. A rule this "
@@ -589,6 +589,17 @@ def _shade(ax: Axes, xs: Sequence[float | None], ys: Sequence[float | None],
                     linewidth=0, label=label, interpolate=False)
 
 
+def _headroom(ax: Axes, ys: Sequence[float | None]) -> None:
+    """From 0 to a third above the highest point drawn, so that the legend finds room."""
+    top = max((y for y in ys if y is not None), default=0.0)
+    ax.set_ylim(0.0, top * 1.35 if top > 0 else 1.0)
+
+
+def _legend(ax: Axes) -> None:
+    ax.legend(loc="best", fontsize=9, labelcolor=LINE, frameon=True, facecolor="white",
+              edgecolor="none", framealpha=0.9)
+
+
 @dataclass(frozen=True)
 class BayesJob:
     """The posterior densities of one Bayesian hypothesis (and of its difference)."""
@@ -619,11 +630,11 @@ class BayesJob:
         spans = [v for v in views if v is not None]
         if spans:
             ax.set_xlim(max(0.0, min(v[0] for v in spans)), min(1.0, max(v[1] for v in spans)))
-        ax.set_ylim(bottom=0.0)
+        _headroom(ax, [y for _, ys in d.groups for y in ys])
         ax.set_xlabel("rate with the event")
         ax.set_ylabel("posterior density")
         ax.set_title(shorten(f"Posterior of each group: {b.hid}", 70), loc="left", color=INK)
-        ax.legend(loc="best", frameon=False, fontsize=9, labelcolor=LINE)
+        _legend(ax)
         if pair_:
             self._difference(axes[1])
         verdict = NULL if b.rule_met is None else (RULE_MET if b.rule_met else RULE_NOT_MET)
@@ -651,11 +662,11 @@ class BayesJob:
         view = _view(d.difference_x, d.difference, [margin])
         if view is not None:
             ax.set_xlim(max(-1.0, view[0]), min(1.0, view[1]))
-        ax.set_ylim(bottom=0.0)
+        _headroom(ax, d.difference)
         ax.set_xlabel(shorten(f"difference p({first}) − p({second})", 70))
         ax.set_ylabel("posterior density")
         ax.set_title("Posterior of the difference", loc="left", color=INK)
-        ax.legend(loc="best", frameon=False, fontsize=9, labelcolor=LINE)
+        _legend(ax)
 
 
 @dataclass(frozen=True)

@@ -279,9 +279,9 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
             ) if m is not None
         )
         bayesian = hyp.get("test") == "posterior-probability"
-        head = f"{hid} (exploratory)" if role == "exploratory" else hid
-        if bayesian:
-            head += " (Bayesian)"
+        kinds = [k for k, on in (("exploratory", role == "exploratory"),
+                                 ("Bayesian", bayesian)) if on]
+        head = f"{hid} ({', '.join(kinds)})" if kinds else hid
         if hyp.get("gate") == "closed":  # a follow-up behind a closed gate: said on line two
             title = f"not tested: {title}" if title else "not tested"
         rows.append(
@@ -370,10 +370,11 @@ class _DifferencesJob:
         if any_rate:
             handles.append(Line2D([], [], color=_NULL_RATE, linestyle=":", linewidth=1.6,
                                   label="null rate (H0)"))
-        if any(r.bayesian for r in self.rows):
+        bayesian = any(r.bayesian for r in self.rows)
+        if bayesian:  # a diamond: a credible interval, not a confidence interval
             handles.append(Line2D([], [], marker="D", color=INK, linestyle="none",
                                   label="Bayesian: posterior mean, credible interval"))
-        columns = len(handles) if len(handles) <= 4 else 3
+        columns = min(len(handles), 3) if bayesian else len(handles)  # its label is long
         fig.legend(handles=handles, loc="outside lower center", ncols=columns,
                    frameon=False, fontsize=9)
         return fig

@@ -554,7 +554,9 @@ def _definition_rows(
         ("Comparison", _compare_label(hyp, where)),
     ]
     rate = number(hyp.get("null_rate"), f"{where}.null_rate")
-    if rate is not None:
+    if rate is not None and bayes.is_bayesian(hyp):  # a rule on a posterior, not a test of H0
+        rows.append(("Rate compared with", fmt_rate(rate)))
+    elif rate is not None:
         rows.append(("Null hypothesis", f"H0: p = {fmt_rate(rate)}"))
     rows.append(("Alternative", text(hyp.get("alternative"), f"{where}.alternative", default=NULL)))
     kind = text(hyp.get("comparison"), f"{where}.comparison", default="")
@@ -1024,7 +1026,8 @@ def multiplicity(results: Mapping[str, Any]) -> str:
         if rules:
             words = (f"{', '.join(rules)}: decided by a pre-specified Bayesian rule on a "
                      "posterior probability, outside the frequentist multiplicity adjustment; "
-                     "the operating characteristics of each rule are shown with it.")
+                     "the operating characteristics of each rule are shown with it where the "
+                     "plan gives a design and planned sizes.")
             out.append(f'<p class="prespec-bayes-outside">{esc(words)}</p>')
     else:
         out.append("<p>No hypotheses were tested.</p>")
