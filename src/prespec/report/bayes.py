@@ -504,9 +504,9 @@ def operating_block(b: Bayes) -> str:
     parts = [f"<h4>Operating characteristics of the rule</h4><p>{esc(words)}</p>",
              fields(rows)]
     if oc.exceeds_alpha:
-        warn = (f"The rule's maximised type I error {t1e} exceeds alpha {alpha}. A rule this "
-                "permissive rejects a true null hypothesis more often than alpha allows; the "
-                "plan may intend it, and it was fixed before the data were seen.")
+        warn = (f"The rule's maximised type I error {t1e} exceeds alpha {alpha}: where the "
+                "null hypothesis holds, the rule can be met more often than alpha allows. The "
+                "plan may intend it; a reader should know it.")
         parts.append(f'<div class="prespec-bayes-exceeds" style="{EXCEEDS_STYLE}">'
                      f"<strong>Type I error above alpha.</strong> {esc(warn)}</div>")
     return "".join(parts)
@@ -589,10 +589,11 @@ def _shade(ax: Axes, xs: Sequence[float | None], ys: Sequence[float | None],
                     linewidth=0, label=label, interpolate=False)
 
 
-def _headroom(ax: Axes, ys: Sequence[float | None]) -> None:
-    """From 0 to a third above the highest point drawn, so that the legend finds room."""
+def _headroom(ax: Axes, ys: Sequence[float | None], entries: int) -> None:
+    """From 0 to above the highest point drawn, so that a legend of ``entries`` lines finds
+    room."""
     top = max((y for y in ys if y is not None), default=0.0)
-    ax.set_ylim(0.0, top * 1.35 if top > 0 else 1.0)
+    ax.set_ylim(0.0, top * (1.15 + 0.12 * entries) if top > 0 else 1.0)
 
 
 def _legend(ax: Axes) -> None:
@@ -630,7 +631,8 @@ class BayesJob:
         spans = [v for v in views if v is not None]
         if spans:
             ax.set_xlim(max(0.0, min(v[0] for v in spans)), min(1.0, max(v[1] for v in spans)))
-        _headroom(ax, [y for _, ys in d.groups for y in ys])
+        _headroom(ax, [y for _, ys in d.groups for y in ys],
+                  len(ax.get_legend_handles_labels()[0]))
         ax.set_xlabel("rate with the event")
         ax.set_ylabel("posterior density")
         ax.set_title(shorten(f"Posterior of each group: {b.hid}", 70), loc="left", color=INK)
@@ -662,7 +664,7 @@ class BayesJob:
         view = _view(d.difference_x, d.difference, [margin])
         if view is not None:
             ax.set_xlim(max(-1.0, view[0]), min(1.0, view[1]))
-        _headroom(ax, d.difference)
+        _headroom(ax, d.difference, len(ax.get_legend_handles_labels()[0]))
         ax.set_xlabel(shorten(f"difference p({first}) − p({second})", 70))
         ax.set_ylabel("posterior density")
         ax.set_title("Posterior of the difference", loc="left", color=INK)
