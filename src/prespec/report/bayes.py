@@ -29,6 +29,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from prespec.common.shown import csv_writer
 from prespec.errors import PrespecError
 from prespec.report.canvas import FIGURES, GUIDE, INK, LINE, new_figure, safe_stem, shorten
 from prespec.report.markup import ASIDE_STYLE, BOX, esc, fields, table
@@ -41,6 +42,7 @@ from prespec.report.values import (
     fmt_rate,
     items,
     mapping,
+    measure_label,
     number,
     pair,
     text,
@@ -356,8 +358,6 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
     if hyp.get("estimate") is not None:
         at = f"{where}.estimate"
         est = mapping(hyp["estimate"], at)
-        from prespec.report.values import measure_label
-
         measure = text(est.get("measure"), f"{at}.measure", default="estimate")
         low, high = pair(est.get("ci"), f"{at}.ci")
         level = number(est.get("level"), f"{at}.level")
@@ -754,8 +754,6 @@ def write_bayes_csv(path: Path, hyp: Mapping[str, Any]) -> None:
     and credible interval), then per prior-sensitivity analysis its ``sensitivity-prior`` rows
     (one per group) and its ``sensitivity`` row (``mean`` and ``n``: a sceptical prior's
     centre and effective sample size)."""
-    from prespec.common.shown import csv_writer
-
     bay = hyp["bayesian"]
     est = hyp.get("estimate") or {}
     ci = est.get("ci") or [None, None]

@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from prespec.common.shown import csv_writer
+from prespec.report.bayes import write_bayes_csv
 from prespec.report.tablenames import (
     TABLES,
     bayes_table,
@@ -116,6 +117,4 @@ def write_tables(folder: Path, results: dict[str, Any]) -> None:
         if adjusted is not None and (adjusted.get("model") or adjusted.get("risks")):
             write_model_csv(folder / model_table(h["id"]), adjusted)  # none after a fallback
         if h.get("bayesian") is not None:
-            from prespec.report.bayes import write_bayes_csv
-
             write_bayes_csv(folder / bayes_table(h["id"]), h)
