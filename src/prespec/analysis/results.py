@@ -367,12 +367,125 @@ class Stratified(Part):
         "(a restricted variance of 0).")
 
 
+# --- a Bayesian hypothesis (test posterior-probability) ---
+
+class BetaPrior(Part):
+    """One group's Beta(a, b) prior, as the lock resolved it."""
+
+    group: Text = Field(description="The group.")
+    a: Number = Field(description="The first Beta parameter.")
+    b: Number = Field(description="The second Beta parameter.")
+    mean: Number | None = Field(
+        description="The prior mean the plan gave (with n); null when given as [a, b].")
+    n: Number | None = Field(
+        description="The effective sample size the plan gave (with mean); null when given as "
+        "[a, b].")
+
+
+class BetaPosterior(Part):
+    """One group's conjugate Beta posterior."""
+
+    group: Text = Field(description="The group.")
+    a: Number = Field(description="a of the prior plus the events.")
+    b: Number = Field(description="b of the prior plus the non-events.")
+    mean: Number | None = Field(description="The posterior mean of the group's rate.")
+
+
+class BetaParameters(Part):
+    """One group's Beta(a, b) prior of a prior-sensitivity analysis."""
+
+    group: Text = Field(description="The group.")
+    a: Number = Field(description="The first Beta parameter.")
+    b: Number = Field(description="The second Beta parameter.")
+
+
+class Densities(Part):
+    """Points of the posterior densities, for the report's figure (evaluated by the analysis)."""
+
+    x: list[Number] = Field(description="The rates at which the group densities are given.")
+    groups: dict[Text, list[Number | None]] = Field(
+        description="Per group, its posterior density at each x.")
+    difference_x: list[Number] | None = Field(
+        default=None, description="A pair: the differences at which its density is given.")
+    difference: list[Number | None] | None = Field(
+        default=None, description="A pair: the posterior density of the difference p_a - p_b.")
+    region: Interval = Field(
+        description="[low, high]: the values (of the difference, or of the rate of a single "
+        "group) where the rule's event holds.")
+
+
+class BayesEstimate(Part):
+    """An estimate of a prior-sensitivity analysis: posterior mean and credible interval."""
+
+    value: Number | None = Field(description="The posterior mean.")
+    ci: Interval = Field(description="The equal-tailed credible interval [low, high].")
+
+
+class PriorSensitivity(Part):
+    """The same data under another prior: flat, sceptical, or the plan's."""
+
+    prior: Text = Field(description="flat, sceptical, or the plan's prior.")
+    priors: list[BetaParameters] = Field(description="The Beta prior of each group.")
+    posterior_probability: Number | None = Field(
+        description="The posterior probability of the rule's event under these priors.")
+    rule_met: Flag | None = Field(description="Whether it reaches the threshold.")
+    estimate: BayesEstimate | None = Field(description="Posterior mean and credible interval.")
+    centre: Number | None = Field(
+        default=None, description="sceptical: the common rate it is centred on.")
+    n: Number | None = Field(default=None, description="sceptical: its effective sample size.")
+
+
+class OperatingPoint(Part):
+    """The probability that the rule is met at one point of the null boundary."""
+
+    rate_a: Number = Field(description="The true rate of the first group.")
+    rate_b: Number | None = Field(description="The true rate of the second; null for one group.")
+    probability: Number | None = Field(description="The exact probability the rule is met.")
+
+
+class OperatingCharacteristics(Part):
+    """The rule's exact frequentist operating characteristics at the planned sizes."""
+
+    sizes: dict[Text, Count] = Field(description="The planned size of each group.")
+    alpha: Number = Field(description="The plan's alpha, against which the type I error is "
+                          "held.")
+    type_one_error: Number | None = Field(
+        description="The probability the rule is met, maximised over the null boundary.")
+    at_rate: Number | None = Field(description="Where on the null boundary the maximum lies.")
+    exceeds_alpha: Flag | None = Field(description="Whether type_one_error exceeds alpha.")
+    power: Number | None = Field(description="The probability the rule is met at the assumed "
+                                 "rates.")
+    assumed: dict[Text, Number] | None = Field(description="The design's assumed rates.")
+    curve: list[OperatingPoint] = Field(
+        description="The probability the rule is met along the null boundary.")
+
+
+class Bayesian(Part):
+    """What a posterior-probability hypothesis adds: priors, posteriors, the sentence, the
+    density points, the prior-sensitivity analyses and the operating characteristics."""
+
+    alternative: Literal["greater", "less"] = Field(
+        description="greater: the event is p_a - p_b > margin (or p > null_rate); less: below.")
+    margin: Number | None = Field(description="A pair: the margin of the difference.")
+    null_rate: Number | None = Field(description="One group: the rate it is compared with.")
+    prior: list[BetaPrior] = Field(description="Each group's prior, in the order compared.")
+    posterior: list[BetaPosterior] = Field(description="Each group's posterior, same order.")
+    statement: Text = Field(description="The result in one sentence, written by the analysis.")
+    densities: Densities | None = Field(description="Points of the densities for the figure.")
+    sensitivity: list[PriorSensitivity] = Field(
+        description="The same data under the flat, the sceptical and the plan's prior.")
+    operating_characteristics: OperatingCharacteristics | None = Field(
+        description="Null when the plan has no design or no planned_n.")
+
+
 class Hypothesis(Part):
     """One hypothesis of the plan, or a follow-up (``parent``), as a run computed it.
 
     ``p_adjusted`` and ``reject`` are the decision of its family (the plan's multiplicity, a
-    gated follow-up family, or the boundaries of its interim looks); ``pre_specified`` is false
-    when a command-line override reached the result."""
+    gated follow-up family, or the boundaries of its interim looks); for test
+    ``posterior-probability`` ``reject`` is the Bayesian rule met (``posterior_probability`` at
+    least ``threshold``) and the hypothesis is in no family. ``pre_specified`` is false when a
+    command-line override reached the result."""
 
     id: Text
     title: Text | None
@@ -413,6 +526,15 @@ class Hypothesis(Part):
         default=None, description="test g-computation: the covariate-adjusted analysis.")
     stratified: Stratified | None = Field(
         default=None, description="test stratified-score: the weighting over the strata.")
+    posterior_probability: Number | None = Field(
+        default=None, description="test posterior-probability: the posterior probability of "
+        "the rule's event.")
+    threshold: Number | None = Field(
+        default=None, description="test posterior-probability: the rule is met when the "
+        "posterior probability reaches it.")
+    bayesian: Bayesian | None = Field(
+        default=None, description="test posterior-probability: priors, posteriors, "
+        "prior sensitivity and operating characteristics.")
     pre_specified: Flag | None = None  # set by :func:`finish`
 
 

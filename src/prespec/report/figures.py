@@ -9,8 +9,13 @@ The report's figures:
   difference, 1 for a ratio, drawn on a log scale); margins (one, or low and high for
   equivalence) as dashed lines; the proportion of a single-group hypothesis in its own panel
   with a dotted line at its null rate; exploratory hypotheses drawn hollow and labelled as such;
+  a Bayesian hypothesis (test posterior-probability) drawn as a diamond, labelled "Bayesian",
+  its interval marked "credible" (the posterior mean and the equal-tailed credible interval,
+  not a confidence interval);
 - ``figures/tipping-<id>.png``: the decision map of a tipping-point analysis (drawn by
   :mod:`prespec.report.tipping`);
+- ``figures/bayes-<id>.png`` and ``figures/oc-<id>.png``: the posterior densities and the
+  operating characteristics of a Bayesian hypothesis (drawn by :mod:`prespec.report.bayes`);
 - ``figures/multiplicity-graph.png``: for the graphical procedure (Bretz et al., Statistics in
   Medicine 2009), the hypotheses as nodes on a circle with their initial weights, and an
   arrow with its weight for each transition.
@@ -134,6 +139,9 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     from prespec.report.looks import looks_jobs
 
     jobs += looks_jobs(results)
+    from prespec.report.bayes import bayes_jobs
+
+    jobs += bayes_jobs(results)
     if not blinded:
         from prespec.report.families import family_jobs
 
@@ -248,6 +256,7 @@ class _EstimateRow:
     exploratory: bool
     margins: tuple[float, ...]
     null_rate: float | None = None
+    bayesian: bool = False  # a posterior mean with a credible interval
 
 
 def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
@@ -269,7 +278,10 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
                 else [number(v, f"{where}.margin[{j}]") for j, v in enumerate(margin)]
             ) if m is not None
         )
-        head = f"{hid} (exploratory)" if role == "exploratory" else hid
+        bayesian = hyp.get("test") == "posterior-probability"
+        kinds = [k for k, on in (("exploratory", role == "exploratory"),
+                                 ("Bayesian", bayesian)) if on]
+        head = f"{hid} ({', '.join(kinds)})" if kinds else hid
         if hyp.get("gate") == "closed":  # a follow-up behind a closed gate: said on line two
             title = f"not tested: {title}" if title else "not tested"
         rows.append(
@@ -283,6 +295,7 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
                 exploratory=role == "exploratory",
                 margins=margins,
                 null_rate=number(hyp.get("null_rate"), f"{where}.null_rate"),
+                bayesian=bayesian,
             )
         )
     return rows
@@ -323,6 +336,8 @@ def _estimate_label(row: _EstimateRow) -> str:
     limits = fmt_interval(row.low, row.high)
     if row.level is not None:
         limits = f"{limits} {fmt_level(row.level)}"
+    if row.bayesian:
+        limits += " credible"
     return f"{fmt_estimate(row.value)}\n{limits}"
 
 
@@ -355,7 +370,12 @@ class _DifferencesJob:
         if any_rate:
             handles.append(Line2D([], [], color=_NULL_RATE, linestyle=":", linewidth=1.6,
                                   label="null rate (H0)"))
-        fig.legend(handles=handles, loc="outside lower center", ncols=len(handles),
+        bayesian = any(r.bayesian for r in self.rows)
+        if bayesian:  # a diamond: a credible interval, not a confidence interval
+            handles.append(Line2D([], [], marker="D", color=INK, linestyle="none",
+                                  label="Bayesian: posterior mean, credible interval"))
+        columns = min(len(handles), 3) if bayesian else len(handles)  # its label is long
+        fig.legend(handles=handles, loc="outside lower center", ncols=columns,
                    frameon=False, fontsize=9)
         return fig
 
@@ -374,7 +394,7 @@ class _DifferencesJob:
             _interval_line(ax, y, row.low, row.high, row.value)
             if row.value is not None:
                 face = "white" if row.exploratory else INK
-                marker = "o" if row.exploratory else "s"
+                marker = "D" if row.bayesian else ("o" if row.exploratory else "s")
                 ax.plot([row.value], [y], marker=marker, markersize=7, color=INK,
                         markerfacecolor=face, linestyle="none")
             for m in row.margins:

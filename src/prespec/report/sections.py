@@ -12,7 +12,7 @@ import json
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from prespec.report import adjusted, blinded, design
+from prespec.report import adjusted, bayes, blinded, design
 from prespec.report.estimand import estimand_block
 from prespec.report.figures import (
     DIFFERENCES,
@@ -343,13 +343,16 @@ def gate(hyp: Mapping[str, Any], where: str) -> str:
 def decision(hyp: Mapping[str, Any], where: str) -> str:
     """``reject H0``, ``do not reject H0``, or ``—`` when results.json gives none.
 
-    A follow-up comparison behind a closed gate was not tested, and says so.
+    A follow-up comparison behind a closed gate was not tested, and says so; a Bayesian
+    hypothesis shows ``rule met`` or ``rule not met``.
     """
     reject = hyp.get("reject")
     if reject is not None and not isinstance(reject, bool):
         raise_type(f"{where}.reject", "true, false or null", reject)
     if gate(hyp, where) == "closed":
         return "not tested (gate closed)"
+    if bayes.is_bayesian(hyp):  # the plan's rule on a posterior probability, not a test
+        return bayes.decision_words(hyp, where)
     if reject is None:
         return NULL
     return "reject H0" if reject else "do not reject H0"
@@ -551,7 +554,9 @@ def _definition_rows(
         ("Comparison", _compare_label(hyp, where)),
     ]
     rate = number(hyp.get("null_rate"), f"{where}.null_rate")
-    if rate is not None:
+    if rate is not None and bayes.is_bayesian(hyp):  # a rule on a posterior, not a test of H0
+        rows.append(("Rate compared with", fmt_rate(rate)))
+    elif rate is not None:
         rows.append(("Null hypothesis", f"H0: p = {fmt_rate(rate)}"))
     rows.append(("Alternative", text(hyp.get("alternative"), f"{where}.alternative", default=NULL)))
     kind = text(hyp.get("comparison"), f"{where}.comparison", default="")
@@ -630,11 +635,17 @@ def hypothesis_parts(
     if hyp.get("strata_tables") is not None:
         parts.append(strata_tables(hyp, where))
     parts.append(adjusted.inputs_block(hyp, where))  # covariates, units left out, risks
+    parts.append(bayes.inputs_block(hyp, where))  # priors and posteriors
     parts.append(fields(result_rows(hyp, where)))
+    bayes_html, bayes_figures = bayes.after_block(hyp, where)
+    parts.append(bayes_html)
     parts += [p for p in (adjusted.variance_line(hyp, where), adjusted.model_block(hyp, where),
                           _disagreement(hyp, where), monte_carlo_line(hyp, where),
                           homogeneity_line(hyp, where)) if p]
-    if is_exploratory(hyp):
+    if is_exploratory(hyp) and bayes.is_bayesian(hyp):
+        parts.append("<p><em>Exploratory: the rule's outcome is shown, and no decision is "
+                     "drawn from it.</em></p>")
+    elif is_exploratory(hyp):
         parts.append(
             "<p><em>Exploratory: the p-value is nominal, not adjusted for multiplicity, and "
             "no decision is drawn from it.</em></p>"
@@ -643,7 +654,7 @@ def hypothesis_parts(
     parts.append(extra)
     looks_html, looks_figures = looks_block(hyp, where)
     parts.append(looks_html)
-    figures = [*looks_figures, *figures]
+    figures = [*bayes_figures, *looks_figures, *figures]
     return '<div class="prespec-hyp">' + "".join(parts) + "</div>", figures
 
 
@@ -849,7 +860,10 @@ def _no_estimate(hyp: Mapping[str, Any], where: str) -> str | None:
 
 
 def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
-    """The estimate with its interval, the statistic and df, the p-values and the decision."""
+    """The estimate with its interval, the statistic and df, the p-values and the decision
+    (for a Bayesian hypothesis: the posterior probability, the threshold and the rule)."""
+    if bayes.is_bayesian(hyp):
+        return bayes.result_rows(hyp, where)
     rows: list[tuple[str, str]] = []
     if hyp.get("estimate") is not None:
         est = mapping(hyp["estimate"], f"{where}.estimate")
@@ -946,6 +960,8 @@ def _family_label(hyp: Mapping[str, Any], where: str, method: str) -> str:
     if hyp.get("family") is not None:
         family = text(hyp.get("family"), f"{where}.family")
         return f"main ({method})" if family == "main" else family
+    if bayes.is_bayesian(hyp):
+        return "none (Bayesian rule)"
     if is_exploratory(hyp):
         return "none (exploratory)"
     return f"main ({method})"
@@ -976,6 +992,7 @@ def multiplicity(results: Mapping[str, Any]) -> str:
     flat += [k for h, _, kids in _ordered(results) if h.get("_missing") for k in kids]
     with_family = any(h.get("family") is not None for h, _ in flat)
     body = []
+    rules: list[str] = []
     for hyp, pos in flat:
         hid = text(hyp.get("id"), f"{pos}.id")
         where = f"hypotheses.{hid}"
@@ -984,7 +1001,13 @@ def multiplicity(results: Mapping[str, Any]) -> str:
         if not is_prespecified(hyp, where):
             role += ", not pre-specified"
         family = [_family_label(hyp, where, method)] if with_family else []
-        if is_exploratory(hyp):
+        if bayes.is_bayesian(hyp):
+            shown = decision(hyp, where)
+            if is_exploratory(hyp):
+                shown = f"no decision ({shown}, exploratory)"
+            body.append([hid, role, *family, NULL, "not adjusted (Bayesian rule)", shown])
+            rules.append(hid)
+        elif is_exploratory(hyp):
             body.append([hid, role, *family, p, "not adjusted", "no decision"])
         else:
             adjusted = NULL if gate(hyp, where) == "closed" else fmt_p(
@@ -1000,6 +1023,12 @@ def multiplicity(results: Mapping[str, Any]) -> str:
                 "<p>Adjusted p-values are adjusted within their family: the main family by the "
                 "plan's method, each family of follow-up comparisons by its own.</p>"
             )
+        if rules:
+            words = (f"{', '.join(rules)}: decided by a pre-specified Bayesian rule on a "
+                     "posterior probability, outside the frequentist multiplicity adjustment; "
+                     "the operating characteristics of each rule are shown with it where the "
+                     "plan gives a design and planned sizes.")
+            out.append(f'<p class="prespec-bayes-outside">{esc(words)}</p>')
     else:
         out.append("<p>No hypotheses were tested.</p>")
     return "".join(out)

@@ -6,14 +6,16 @@ One rule, used for every table a run writes:
 - ``tables/<hypothesis id>.csv``: the table of one hypothesis (follow-ups included);
 - ``tables/family-<family id>.csv``: the members of one family;
 - ``tables/model-<hypothesis id>.csv``: the working model and the marginal risks of one
-  covariate-adjusted (g-computation) hypothesis.
+  covariate-adjusted (g-computation) hypothesis;
+- ``tables/bayes-<hypothesis id>.csv``: the priors, posteriors, posterior probability,
+  threshold and prior-sensitivity rows of one Bayesian (posterior-probability) hypothesis.
 
 A label is written as it is when made of ASCII letters, digits, ``_``, ``.`` and ``-``; every
 other byte of its UTF-8 form is percent-encoded (``%2B``, ``%2F``, ``%20``, ``%25`` for ``%``
 itself), and so is a leading ``.`` (no hidden file, never ``.`` or ``..``). So ``H+1``, ``H/1``
 and ``H_1`` give ``H%2B1.csv``, ``H%2F1.csv`` and ``H_1.csv``, and
 ``urllib.parse.unquote`` gives the label back. A hypothesis id that would begin like one of
-the other kinds (``groups-…``, ``family-…``, ``model-…``) has that ``-`` encoded
+the other kinds (``groups-…``, ``family-…``, ``model-…``, ``bayes-…``) has that ``-`` encoded
 (``groups%2Dx.csv``), so the kinds never share a name. A stem longer than ``MAX_STEM`` bytes
 (file systems stop at 255) is cut and ends in ``~`` and 16 hex digits of the label's SHA-256:
 unique still, but no longer reversible; no plan label of ordinary length comes near it.
@@ -28,7 +30,7 @@ from urllib.parse import unquote
 TABLES = "tables"
 MAX_STEM = 200
 _SAFE = frozenset((string.ascii_letters + string.digits + "_.-").encode("ascii"))
-_KIND_PREFIXES = ("groups-", "family-", "model-")
+_KIND_PREFIXES = ("groups-", "family-", "model-", "bayes-")
 
 
 def encode_label(label: str) -> str:
@@ -78,3 +80,8 @@ def family_table(family_id: str) -> str:
 def model_table(hypothesis_id: str) -> str:
     """``tables/model-<hypothesis id>.csv``: an adjusted hypothesis's working model."""
     return f"{TABLES}/{_bounded('model-' + encode_label(hypothesis_id), hypothesis_id)}.csv"
+
+
+def bayes_table(hypothesis_id: str) -> str:
+    """``tables/bayes-<hypothesis id>.csv``: a Bayesian hypothesis's priors and posteriors."""
+    return f"{TABLES}/{_bounded('bayes-' + encode_label(hypothesis_id), hypothesis_id)}.csv"

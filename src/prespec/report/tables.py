@@ -1,6 +1,7 @@
 """The CSV tables of a report folder (``tables/``), written from results.json alone: the
 groups per outcome, each hypothesis's counts and expected counts, the working model and the
-marginal risks of each covariate-adjusted hypothesis, the families' members; for a rehearsal,
+marginal risks of each covariate-adjusted hypothesis, the priors, posteriors and prior
+sensitivity of each Bayesian hypothesis, the families' members; for a rehearsal,
 the pooled figures and the data dictionary only. Every cell goes through
 ``common.shown.csv_writer`` (never a formula)."""
 
@@ -10,7 +11,14 @@ from pathlib import Path
 from typing import Any
 
 from prespec.common.shown import csv_writer
-from prespec.report.tablenames import TABLES, groups_table, hypothesis_table, model_table
+from prespec.report.bayes import write_bayes_csv
+from prespec.report.tablenames import (
+    TABLES,
+    bayes_table,
+    groups_table,
+    hypothesis_table,
+    model_table,
+)
 
 #: The name of the rehearsal's pooled table in ``tables/``.
 POOLED_TABLE = "pooled.csv"
@@ -108,3 +116,5 @@ def write_tables(folder: Path, results: dict[str, Any]) -> None:
         adjusted = h.get("adjusted")
         if adjusted is not None and (adjusted.get("model") or adjusted.get("risks")):
             write_model_csv(folder / model_table(h["id"]), adjusted)  # none after a fallback
+        if h.get("bayesian") is not None:
+            write_bayes_csv(folder / bayes_table(h["id"]), h)
