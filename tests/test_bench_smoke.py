@@ -240,3 +240,18 @@ def test_the_adjusted_coverage_benchmark_stops_on_a_wrong_truth(
     monkeypatch.setattr(bench, "true_difference", lambda effect: right(effect) + 0.01 * effect)
     with pytest.raises(SystemExit, match=r"^check failed: quadrature -0\.0\d+, Monte Carlo "):
         bench.checks(rng, 400, 20_000)
+
+
+def test_the_bayes_benchmark_agrees_with_the_loop_of_scipy_calls() -> None:
+    out = smoke("bayes_oc.py")
+    assert out.startswith("exact operating characteristics: 13 × 13 outcomes, 8 rate points "
+                          "on the null boundary p_a = p_b + 0; Beta(1, 1) priors")
+    met, cells, worst = numbers(r"checked: identical rule regions \(([\d,]+) of ([\d,]+) "
+                                r"outcomes meet the rule\) and curves within 1e-09 \(largest "
+                                r"difference (\S+)\)", out)
+    assert cells == 169 and 0 < met < cells and worst <= 1e-9, out
+    assert re.search(r"(?m)^prespec operating_characteristics\s+\d+\.\d+ s\s+1×$", out), out
+    assert re.search(r"(?m)^loop of scipy calls\s+\d+\.\d s\s+\d+×$", out), out
+    (error,) = numbers(r"type I error, the largest on the boundary: (0\.\d+) at", out)
+    assert 0 < error < 0.1
+    assert "goal" not in out  # no verdict on the goal at smoke size
