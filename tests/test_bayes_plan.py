@@ -12,7 +12,7 @@ from prespec.plan import load_plan
 
 HERE = Path(__file__).parents[1]
 EXAMPLE = (HERE / "plans" / "bayesian-secondary.yaml").read_text("utf-8")
-H2_PRIOR = "    prior: {alginate: [1, 1], gauze: {mean: 0.2, n: 40}}\n"
+H2_PRIOR = "    prior: {alginate: {mean: 0.2, n: 4}, gauze: {mean: 0.2, n: 4}}\n"
 
 
 def _write(tmp_path: Path, text: str) -> Path:
@@ -24,7 +24,7 @@ def _write(tmp_path: Path, text: str) -> Path:
 def test_a_prior_by_its_mean_is_resolved_into_beta_parameters(tmp_path: Path) -> None:
     resolved = load_plan(_write(tmp_path, EXAMPLE)).resolved
     h1, h2 = resolved["hypotheses"]
-    assert h2["prior"] == {"alginate": [1.0, 1.0], "gauze": [8.0, 32.0]}
+    assert h2["prior"] == {"alginate": [0.8, 3.2], "gauze": [0.8, 3.2]}
     assert {k: h2[k] for k in ("threshold", "credible", "measure", "interval", "alternative",
                                "comparison", "margin")} == {
         "threshold": 0.975, "credible": 0.95, "measure": "risk-difference",
@@ -33,7 +33,7 @@ def test_a_prior_by_its_mean_is_resolved_into_beta_parameters(tmp_path: Path) ->
     assert "sceptical_prior" not in h2
     assert not {"prior", "threshold", "credible", "sceptical_prior"} & set(h1)
     # written as the beta parameters, the plan has the same fingerprint
-    same = EXAMPLE.replace(H2_PRIOR, "    prior: {alginate: [1, 1], gauze: [8, 32]}\n")
+    same = EXAMPLE.replace(H2_PRIOR, "    prior: {alginate: [0.8, 3.2], gauze: [0.8, 3.2]}\n")
     assert load_plan(_write(tmp_path, same)).fingerprint == load_plan(
         _write(tmp_path, EXAMPLE)).fingerprint
 
@@ -69,7 +69,7 @@ CASES = [
     ("a negative beta parameter",
      EXAMPLE.replace(H2_PRIOR, "    prior: {alginate: [1, -1], gauze: [2, 8]}\n"),
      "prior: {alginate", "hypotheses.H2.prior.alginate[2]", "must be greater than 0"),
-    ("a mean of 1", EXAMPLE.replace("{mean: 0.2, n: 40}", "{mean: 1, n: 40}"),
+    ("a mean of 1", EXAMPLE.replace("gauze: {mean: 0.2, n: 4}", "gauze: {mean: 1, n: 4}"),
      "prior: {alginate", "hypotheses.H2.prior.gauze.mean", "must be less than 1"),
     ("a margin of 1", EXAMPLE.replace("    threshold: 0.975\n",
                                       "    threshold: 0.975\n    margin: 1\n"),

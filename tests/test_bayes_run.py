@@ -58,7 +58,7 @@ def test_the_bayesian_secondary_is_its_posterior_probability(study: tuple[Path, 
     assert h1["family"] == "main" and h1["p_adjusted"] == h1["p_value"]  # holm over H1 alone
     assert h2["family"] is None and h2["p_value"] is None and h2["p_adjusted"] is None
     (xa, xb), (na, nb) = h2["table"]["events"], h2["table"]["totals"]
-    post_a, post_b = (1 + xa, 1 + na - xa), (8 + xb, 32 + nb - xb)  # gauze: mean 0.2, n 40
+    post_a, post_b = (0.8 + xa, 3.2 + na - xa), (0.8 + xb, 3.2 + nb - xb)  # mean 0.2, n 4
     assert [(p["a"], p["b"]) for p in h2["bayesian"]["posterior"]] == [post_a, post_b]
     probability = _below(post_a, post_b, 0.0)  # alternative: less, margin 0
     assert h2["posterior_probability"] == pytest.approx(probability, abs=1e-9)
@@ -72,9 +72,9 @@ def test_the_bayesian_secondary_is_its_posterior_probability(study: tuple[Path, 
     flat, sceptical = h2["bayesian"]["sensitivity"]
     assert flat["prior"] == "flat" and flat["posterior_probability"] == pytest.approx(
         _below((1 + xa, 1 + na - xa), (1 + xb, 1 + nb - xb), 0.0), abs=1e-9)
-    # the sceptical prior left out: the mean of the prior means (0.5 and 0.2), a quarter of 180
-    assert (sceptical["centre"], sceptical["n"]) == (pytest.approx(0.35), 45.0)
-    centre = 0.35
+    # the sceptical prior left out: the mean of the prior means (0.2 and 0.2), a quarter of 180
+    assert (sceptical["centre"], sceptical["n"]) == (pytest.approx(0.2), 45.0)
+    centre = 0.2
     scept = (centre * 45 + xa, (1 - centre) * 45 + na - xa), (
         centre * 45 + xb, (1 - centre) * 45 + nb - xb)
     assert sceptical["posterior_probability"] == pytest.approx(_below(*scept, 0.0), abs=1e-9)
@@ -97,7 +97,7 @@ def test_the_operating_characteristics_are_the_rule_summed_over_every_outcome(
     # tests/reference/test_ref_bayes.py); its probabilities are summed here with scipy's pmfs
     from prespec.stats import bayes
 
-    region = bayes.rule_region(180, 180, (1.0, 1.0), (8.0, 32.0), margin=0.0,
+    region = bayes.rule_region(180, 180, (0.8, 3.2), (0.8, 3.2), margin=0.0,
                                alternative="less", threshold=0.975).astype(float)
     power = _exact_rule_probability(region, 180, 180, 0.14, 0.20)
     assert oc["power"] == pytest.approx(power, abs=1e-12)

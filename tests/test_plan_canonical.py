@@ -42,7 +42,7 @@ STUDIES = Path(__file__).parent / "fixtures" / "studies"
 # sha256 of the RFC 8785 JSON of the resolved plan, by prespec c74a456  # computed, then frozen
 GOLDEN = {
     "plans/bayesian-secondary.yaml":
-        "sha256:79c23b9fbfe585b78756bafde46e907a52152a8f4d754987a01353af656779bb",
+        "sha256:5852c50e315e1bca54fe5a4e4333246cc8a64c6e896def3993d9065ea38c4e23",
     "bayes-every-key.yaml":
         "sha256:68a661f1290323b568389c6e9b31c0d0d897bb2a33c7a8a3825733a0e442de81",
     "plans/adjusted-primary.yaml":

@@ -325,6 +325,8 @@ def _bayesian_design(plan: Plan, hyp: Hypothesis, share: AlphaShare) -> Hypothes
              f"{oc['type_one_error']:.4f}{where}; alpha {_fmt(plan.alpha)}"),
              ("outside the frequentist multiplicity family; not sized (the rule's power at "
              "data.planned_n is shown)")]
+    if oc["power"] is None:
+        notes.append("no power: the design's assumed rates do not name every compared group")
     if oc["exceeds_alpha"]:
         notes.insert(0, f"WARNING: the type I error {oc['type_one_error']:.4f} exceeds alpha "
                      f"{_fmt(plan.alpha)}")
@@ -517,6 +519,9 @@ def design_text(doc: dict[str, Any]) -> str:
             n = ", ".join(f"{g} {v}" for g, v in h["n_per_group"].items())
             e = ", ".join(f"{g} {v}" for g, v in h["n_enrol_per_group"].items())
             lines.append(f"      analysed n per group: {n}; to enrol: {e}")
+        elif "Bayesian rule" in h["sides"]:
+            lines.append("      not sized: a Bayesian rule has exact operating characteristics "
+                         "at data.planned_n instead")
         else:
             lines.append("      analysed n per group: not computable")
         shown = "no data.planned_n" if h["power"] is None else f"{h['power']:.4f}"
@@ -608,7 +613,12 @@ def design_summary(plan: Plan) -> list[str]:
     lines.append("  scenario global-null: every group at the pooled assumed rate (added)")
     sized, rule = size_plan(plan)
     lines.append(f"  sample size per hypothesis, at {rule}:")
+    bayesian = {h.id for h in plan.hypotheses if h.test in v.BAYESIAN_TESTS}
     for h in sized:
+        if h.id in bayesian:  # not sized: its operating characteristics at planned_n
+            power = "" if h.power is None else f"power at data.planned_n {h.power:.4f}; "
+            lines.append(f"    {h.id}: a Bayesian rule, not sized; {power}{'; '.join(h.notes)}")
+            continue
         if h.n_per_group is None:
             lines.append(f"    {h.id}: not computable ({'; '.join(h.notes) or 'no size'})")
             continue
