@@ -463,11 +463,11 @@ def _where_words(b: Bayes, oc: Operating) -> str:
         return ""
     groups = b.groups
     if b.single:
-        return f", at the true rate {fmt_rate(oc.at_rate)}"
+        return f", at the true rate {oc.at_rate:.4g}"
     if (b.margin or 0.0) == 0.0:
-        return f", where both groups' true rates are {fmt_rate(oc.at_rate)}"
+        return f", where both groups' true rates are {oc.at_rate:.4g}"
     second = groups[1] if len(groups) > 1 else "the second group"
-    return f", where the true rate of {second} is {fmt_rate(oc.at_rate)}"
+    return f", where the true rate of {second} is {oc.at_rate:.4g}"
 
 
 def _boundary_words(b: Bayes) -> str:
