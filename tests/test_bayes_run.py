@@ -138,3 +138,16 @@ def test_verify_recomputes_the_bayesian_run(study: tuple[Path, Path]) -> None:
     api.run(plan, data, actor="ana")
     res = api.verify(plan, rerun=data)
     assert [r.locked for r in res.runs] == [True]
+
+
+def test_the_commands_print_the_warning_on_stderr(study: tuple[Path, Path],
+                                                   capsys: pytest.CaptureFixture[str]) -> None:
+    from prespec.cli import main
+
+    plan, _ = study
+    plan.write_text(EXAMPLE.replace("threshold: 0.975", "threshold: 0.6"), encoding="utf-8")
+    for command in (["check", str(plan)], ["design", str(plan)], ["lock", str(plan)]):
+        assert main(command) == 0
+        err = capsys.readouterr().err
+        assert err.startswith("prespec: warning: hypotheses.H2: ") and "alpha 0.05" in err, \
+            command
