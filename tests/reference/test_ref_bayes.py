@@ -22,6 +22,7 @@ from scipy import integrate, stats
 
 from prespec.stats.bayes import (
     difference_cdf,
+    difference_pdf,
     operating_characteristics,
     operating_characteristics_single,
     posterior_difference,
@@ -342,3 +343,16 @@ def test_the_one_group_predictive_probability_equals_an_enumeration() -> None:
                if stats.beta.cdf(rate, prior[0] + x + y, prior[1] + (final - x - y)) >= 0.8)
     assert 0.05 < want < 0.95
     assert got == pytest.approx(want, rel=1e-12)
+
+
+@pytest.mark.parametrize(("post_a", "post_b", "d"), [
+    ((13, 29), (6, 36), 0.1), ((0.7, 2.3), (1.4, 0.9), -0.3), ((61, 41), (50, 52), 0.02),
+    ((2500, 2500), (2400, 2600), 0.03)])
+def test_the_density_of_the_difference_equals_quad(post_a: tuple, post_b: tuple,
+                                                   d: float) -> None:
+    law_a, law_b = stats.beta(*post_a), stats.beta(*post_b)
+    lo, hi = max(0.0, -d), min(1.0, 1.0 - d)
+    points = [float(p) for p in law_b.ppf([1e-6, 0.5, 1 - 1e-6]) if lo < p < hi]
+    want = integrate.quad(lambda y: law_a.pdf(y + d) * law_b.pdf(y), lo, hi, points=points,
+                          epsabs=0, epsrel=1e-12, limit=200)[0]  # scipy.integrate.quad
+    assert difference_pdf(d, post_a, post_b) == pytest.approx(want, rel=1e-9)
