@@ -32,8 +32,8 @@ PRIOR = (1.0, 1.0)
 
 def quad_probability(x_a: int, x_b: int, n: int, margin: float) -> float:
     """Pr(p_a − p_b > margin | data) by scipy.integrate.quad over scipy.stats.beta."""
-    aa, ba = PRIOR[0] + x_a, PRIOR[1] + n - x_a
-    ab, bb = PRIOR[0] + x_b, PRIOR[1] + n - x_b
+    aa, ba = PRIOR[0] + x_a, PRIOR[1] + (n - x_a)
+    ab, bb = PRIOR[0] + x_b, PRIOR[1] + (n - x_b)
     lo, hi = max(0.0, -margin), min(1.0, 1.0 - margin)
     below = stats.beta.cdf(lo, ab, bb) if margin < 0 else 0.0
     inside = integrate.quad(lambda y: stats.beta.pdf(y, ab, bb)

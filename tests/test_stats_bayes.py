@@ -8,6 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from prespec.stats import bayes
 from prespec.stats.bayes import (
     TIE_TOLERANCE,
     beta_from_mean,
@@ -47,6 +48,12 @@ def test_a_prior_from_its_mean_and_effective_size() -> None:
     (lambda: posterior_difference(1, 0, 0, 10, FLAT, FLAT), r"n_a must be >= 1, got 0"),
     (lambda: posterior_difference(1, 10, 3, 10, (0, 1), FLAT),
      r"prior_a parameters must be > 0, got \(0\.0, 1\.0\)"),
+    (lambda: posterior_difference(1, 10, 3, 10, FLAT, (0.01, 0.01)),
+     (r"prior_b parameters must be at least 0\.05 \(below it, part of the mass lies under the "
+     r"smallest floating-point number and the probabilities lose accuracy\), got "
+     r"\(0\.01, 0\.01\)")),
+    (lambda: beta_from_mean(0.01, 2), (r"the prior from its mean and n parameters must be at "
+                                      r"least 0\.05")),
     (lambda: posterior_difference(1, 10, 3, 10, FLAT, (1, 2, 3)),
      r"prior_b must be a pair \(a, b\) of Beta parameters"),
     (lambda: posterior_difference(1, 10, 3, 10, FLAT, (1, float("inf"))),
@@ -289,3 +296,16 @@ def test_the_density_of_the_difference_is_the_slope_of_its_distribution_function
     density = [difference_pdf(d, (0.5, 2.5), (1.5, 1.5)) for d in grid]
     assert np.trapezoid(density, grid) == pytest.approx(1.0, abs=2e-3)
     assert difference_pdf(1.0, post_a, post_b) == 0.0
+
+
+def test_a_skewed_posterior_is_integrated_again_over_the_other_group() -> None:
+    """Beta(47.05, 0.05) has the smaller variance, but its mass is piled at 1: over it, the rule
+    of twice the step disagrees, so the other route (over Beta(4094.05, 906.5)) is taken."""
+    args = [np.array([v]) for v in (4094.05, 906.5, 47.05, 0.05, 0.0)]
+    first, first_error = bayes._route(np.array([True]), *args)
+    other, other_error = bayes._route(np.array([False]), *args)
+    assert first_error[0] > bayes._SUSPECT > other_error[0]
+    fine = bayes._route(np.array([False]), *args, rule=bayes._FINE_RULE)[0]
+    got = posterior_difference(4094, 5000, 47, 47, (0.05, 0.5), (0.05, 0.05)).probability
+    assert got == other[0] and abs(got - fine[0]) <= 1e-14
+    assert abs(first[0] - fine[0]) > 1e-12  # the first route alone would have been off

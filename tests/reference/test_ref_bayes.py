@@ -22,6 +22,7 @@ from scipy import integrate, stats
 
 from prespec.stats.bayes import (
     difference_cdf,
+    difference_pdf,
     operating_characteristics,
     operating_characteristics_single,
     posterior_difference,
@@ -50,6 +51,9 @@ CASES = [
     (5000, 5000, 0, 5000, (0.5, 0.5), (0.5, 0.5), 0.999),
     (0, 5000, 5000, 5000, (1, 1), (1, 1), -0.999),
     (1000, 1000, 0, 1000, (1, 1), (1, 1), 0.99),
+    # Beta(4094.05, 906.5) against Beta(47.05, 0.05): the second is narrower by its variance
+    # but piled within an ulp of 1, so the first route's check sends it to the other
+    (4094, 5000, 47, 47, (0.05, 0.5), (0.05, 0.05), 0.0),
 ]
 
 
@@ -95,8 +99,8 @@ def quad_greater(post_a: tuple[float, float], post_b: tuple[float, float], m: fl
 
 def posteriors(case: tuple) -> tuple[tuple[float, float], tuple[float, float]]:
     x_a, n_a, x_b, n_b, prior_a, prior_b, _ = case
-    return ((prior_a[0] + x_a, prior_a[1] + n_a - x_a),
-            (prior_b[0] + x_b, prior_b[1] + n_b - x_b))
+    return ((prior_a[0] + x_a, prior_a[1] + (n_a - x_a)),
+            (prior_b[0] + x_b, prior_b[1] + (n_b - x_b)))
 
 
 @pytest.mark.parametrize("case", CASES)
@@ -113,15 +117,15 @@ def test_the_probability_equals_quad_over_scipy_beta(case: tuple) -> None:
 
 
 def test_a_prior_piling_mass_within_an_ulp_of_zero_equals_quad() -> None:
-    """Beta(0.05, 3.3) against Beta(0.2, 3.01): most of the mass lies below 1e-16, where a
-    quadrature in y sees nothing; quad is given points on a logarithmic scale."""
-    post_a, post_b = (0.05, 3.3), (0.2, 3.01)
+    """Beta(0.05, 3.3) against Beta(0.2, 3.05): most of the first's mass lies below 1e-16,
+    where a quadrature in y sees nothing; quad is given points on a logarithmic scale."""
+    post_a, post_b = (0.05, 3.3), (0.2, 3.05)
     law_a, law_b = stats.beta(*post_a), stats.beta(*post_b)
     points = np.concatenate([[0.0], np.logspace(-300, 0, 301)])
     want = sum(integrate.quad(lambda y: law_b.pdf(y) * law_a.sf(y), lo, hi, epsabs=1e-15,
                               epsrel=1e-13, limit=200)[0]
                for lo, hi in itertools.pairwise(points))  # scipy.integrate.quad
-    got = posterior_difference(0, 3, 0, 3, (0.05, 0.3), (0.2, 0.01)).probability
+    got = posterior_difference(0, 3, 0, 3, (0.05, 0.3), (0.2, 0.05)).probability
     assert abs(got - want) <= 1e-9, (got, want)
 
 
@@ -157,8 +161,8 @@ def exact_probability_greater(a1: int, b1: int, a2: int, b2: int) -> Fraction:
 ])
 def test_the_probability_equals_the_finite_sum_for_integer_parameters(
         x_a: int, n_a: int, x_b: int, n_b: int, prior_a: tuple, prior_b: tuple) -> None:
-    post_a = (prior_a[0] + x_a, prior_a[1] + n_a - x_a)
-    post_b = (prior_b[0] + x_b, prior_b[1] + n_b - x_b)
+    post_a = (prior_a[0] + x_a, prior_a[1] + (n_a - x_a))
+    post_b = (prior_b[0] + x_b, prior_b[1] + (n_b - x_b))
     want = float(exact_probability_greater(*post_a, *post_b))
     got = posterior_difference(x_a, n_a, x_b, n_b, prior_a, prior_b).probability
     assert abs(got - want) <= 1e-12, (got, want)
@@ -207,7 +211,7 @@ def test_the_credible_interval_solves_the_quad_distribution_function(case: tuple
     (7, 20, (1, 1), 0.2), (0, 30, (0.5, 0.5), 0.05), (30, 30, (0.5, 0.5), 0.95),
     (412, 5000, (2, 18), 0.08), (3, 9, (0.2, 0.4), 0.5)])
 def test_one_group_equals_scipy_beta(x: int, n: int, prior: tuple, rate: float) -> None:
-    law = stats.beta(prior[0] + x, prior[1] + n - x)
+    law = stats.beta(prior[0] + x, prior[1] + (n - x))
     greater = posterior_single(x, n, prior, null_rate=rate, credible=0.8)
     less = posterior_single(x, n, prior, null_rate=rate, alternative="less", credible=0.8)
     assert greater.probability == pytest.approx(law.sf(rate), rel=1e-12, abs=1e-300)  # beta.sf
@@ -239,8 +243,8 @@ def test_lee_liu_predictive_probability_example() -> None:
 
 def scipy_rule(x_a: int, n_a: int, x_b: int, n_b: int, prior_a: tuple, prior_b: tuple,
                m: float, alternative: str, threshold: float) -> bool:
-    post_a = (prior_a[0] + x_a, prior_a[1] + n_a - x_a)
-    post_b = (prior_b[0] + x_b, prior_b[1] + n_b - x_b)
+    post_a = (prior_a[0] + x_a, prior_a[1] + (n_a - x_a))
+    post_b = (prior_b[0] + x_b, prior_b[1] + (n_b - x_b))
     p = quad_greater(post_a, post_b, m)
     return (p if alternative == "greater" else 1.0 - p) >= threshold
 
@@ -291,7 +295,8 @@ def test_one_group_operating_characteristics_equal_a_loop_of_scipy_calls() -> No
     n, prior, rate = 25, (0.5, 0.5), 0.2
     oc = operating_characteristics_single(n, prior, null_rate=rate, alternative="greater",
                                           threshold=0.95, assumed=0.45, grid=5)
-    met = [x for x in range(n + 1) if stats.beta.sf(rate, prior[0] + x, prior[1] + n - x) >= 0.95]
+    met = [x for x in range(n + 1)
+           if stats.beta.sf(rate, prior[0] + x, prior[1] + (n - x)) >= 0.95]
     assert met == list(range(met[0], n + 1))
 
     def law(p: float) -> float:  # scipy.stats.binom.pmf over the outcomes meeting the rule
@@ -318,9 +323,10 @@ def test_the_predictive_probability_equals_an_enumeration() -> None:
     want = 0.0
     for y_a in range(final_a - n_a + 1):
         for y_b in range(final_b - n_b + 1):
-            weight = (beta_binomial(y_a, final_a - n_a, prior_a[0] + x_a, prior_a[1] + n_a - x_a)
+            weight = (beta_binomial(y_a, final_a - n_a, prior_a[0] + x_a,
+                                    prior_a[1] + (n_a - x_a))
                       * beta_binomial(y_b, final_b - n_b, prior_b[0] + x_b,
-                                      prior_b[1] + n_b - x_b))
+                                      prior_b[1] + (n_b - x_b)))
             if scipy_rule(x_a + y_a, final_a, x_b + y_b, final_b, prior_a, prior_b, m,
                           "greater", threshold):
                 want += weight
@@ -332,8 +338,21 @@ def test_the_one_group_predictive_probability_equals_an_enumeration() -> None:
     x, n, final, prior, rate = 4, 15, 35, (0.5, 0.5), 0.3
     got = predictive_probability_single(x, n, final, prior, null_rate=rate, alternative="less",
                                         threshold=0.8)
-    want = sum(beta_binomial(y, final - n, prior[0] + x, prior[1] + n - x)
+    want = sum(beta_binomial(y, final - n, prior[0] + x, prior[1] + (n - x))
                for y in range(final - n + 1)
-               if stats.beta.cdf(rate, prior[0] + x + y, prior[1] + final - x - y) >= 0.8)
+               if stats.beta.cdf(rate, prior[0] + x + y, prior[1] + (final - x - y)) >= 0.8)
     assert 0.05 < want < 0.95
     assert got == pytest.approx(want, rel=1e-12)
+
+
+@pytest.mark.parametrize(("post_a", "post_b", "d"), [
+    ((13, 29), (6, 36), 0.1), ((0.7, 2.3), (1.4, 0.9), -0.3), ((61, 41), (50, 52), 0.02),
+    ((2500, 2500), (2400, 2600), 0.03)])
+def test_the_density_of_the_difference_equals_quad(post_a: tuple, post_b: tuple,
+                                                   d: float) -> None:
+    law_a, law_b = stats.beta(*post_a), stats.beta(*post_b)
+    lo, hi = max(0.0, -d), min(1.0, 1.0 - d)
+    points = [float(p) for p in law_b.ppf([1e-6, 0.5, 1 - 1e-6]) if lo < p < hi]
+    want = integrate.quad(lambda y: law_a.pdf(y + d) * law_b.pdf(y), lo, hi, points=points,
+                          epsabs=0, epsrel=1e-12, limit=200)[0]  # scipy.integrate.quad
+    assert difference_pdf(d, post_a, post_b) == pytest.approx(want, rel=1e-9)
