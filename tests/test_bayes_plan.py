@@ -105,3 +105,15 @@ def test_one_error_line_per_misuse(tmp_path: Path, name: str, text: str, marker:
     line = text[:text.index(marker)].count("\n") + 1
     assert (err.file, err.line, err.path) == (str(plan), line, path), str(err)
     assert says in err.message, str(err)
+
+
+def test_the_smallest_beta_parameter_is_the_kernels(tmp_path: Path) -> None:
+    from prespec.plan import vocabulary as v
+    from prespec.stats import bayes
+
+    assert v.MIN_BETA_PARAMETER == bayes.MIN_PARAMETER
+    text = EXAMPLE.replace("gauze: {mean: 0.2, n: 4}", "gauze: {mean: 0.01, n: 4}")
+    with pytest.raises(PlanError) as caught:
+        load_plan(_write(tmp_path, text))
+    assert caught.value.path == "hypotheses.H2.prior.gauze"
+    assert "a Beta parameter of 0.04 is below 0.05" in caught.value.message

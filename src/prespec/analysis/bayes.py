@@ -169,8 +169,16 @@ def run_bayes(hyp: Hypothesis, plan: Plan, events: list[int], totals: list[int],
     met = bool(post.probability >= hyp.threshold)
     sensitivity = []
     centre, n = sceptical_prior(hyp, plan)
-    for label, these in (("flat", [(1.0, 1.0)] * len(groups)),
-                         ("sceptical", [bayes.beta_from_mean(centre, n)] * len(groups))):
+    rows = [("flat", [(1.0, 1.0)] * len(groups))]
+    sceptical = bayes.beta_from_mean(centre, n)
+    if min(sceptical) >= bayes.MIN_PARAMETER:
+        rows.append(("sceptical", [sceptical] * len(groups)))
+    else:
+        notes.append(Note("not-computable", f"{hyp.id}: the sceptical prior Beta"
+                          f"({sceptical[0]:.4g}, {sceptical[1]:.4g}) has a parameter below "
+                          f"{bayes.MIN_PARAMETER:g}; its row of the prior-sensitivity table is "
+                          "left out"))
+    for label, these in rows:
         other = _posterior(hyp, events, totals, these)
         row = {"prior": label, "priors": _priors_json(groups, these),
                "posterior_probability": float(other.probability),

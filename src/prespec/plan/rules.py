@@ -563,6 +563,13 @@ def _bayesian_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Iss
             yield Issue((*path, "margin"), "the margin of a posterior-probability rule is one "
                         f"risk difference in (-1, 1), found {show(hyp.margin)}")
     if hyp.prior is not None and isinstance(hyp.compare, list):
+        for group, prior in hyp.prior.items():
+            small = [x for x in prior if isinstance(x, float) and x < v.MIN_BETA_PARAMETER]
+            if small:
+                yield Issue((*path, "prior", group), f"a Beta parameter of {show(small[0])} is "
+                            f"below {v.MIN_BETA_PARAMETER:g}: such a prior piles its mass so "
+                            "close to 0 or 1 that posteriors cannot be compared in double "
+                            "precision", at_key=True)
         for group in hyp.prior:
             if group not in hyp.compare:
                 yield Issue((*path, "prior", group), _not_in("the compared groups", group,
@@ -571,6 +578,12 @@ def _bayesian_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Iss
             if group not in hyp.prior:
                 yield Issue((*path, "prior"), f"gives no prior for {show(group)}; give one "
                             "for each compared group", at_key=True)
+    sceptical = hyp.sceptical_prior
+    if sceptical is not None and min(sceptical.mean, 1 - sceptical.mean) * sceptical.n \
+            < v.MIN_BETA_PARAMETER:
+        yield Issue((*path, "sceptical_prior"), f"mean·n and (1 − mean)·n must be at least "
+                    f"{v.MIN_BETA_PARAMETER:g} (Beta parameters below it cannot be compared in "
+                    "double precision)", at_key=True)
     for key, why in (("sparse", "a Bayesian rule has no sparse switch"),
                      ("looks", ("interim looks of a Bayesian rule (predictive probability) are "
                                "not available in this version of prespec")),

@@ -70,6 +70,8 @@ ADJUSTED_TESTS: frozenset[str] = frozenset({"g-computation"})
 # Bayesian decision rules: outside the frequentist multiplicity, decided by a posterior
 # probability against a threshold.
 BAYESIAN_TESTS: frozenset[str] = frozenset({"posterior-probability"})
+# The smallest Beta parameter of a prior (stats.bayes.MIN_PARAMETER, held equal by a test).
+MIN_BETA_PARAMETER = 0.05
 # Tests for non-inferiority and equivalence (with a margin), and those used only there.
 MARGIN_TESTS: frozenset[str] = frozenset({"farrington-manning", "two-proportion-z",
                                           "stratified-score", "g-computation"})
