@@ -151,3 +151,34 @@ def test_the_commands_print_the_warning_on_stderr(study: tuple[Path, Path],
         err = capsys.readouterr().err
         assert err.startswith("prespec: warning: hypotheses.H2: ") and "alpha 0.05" in err, \
             command
+
+
+def test_one_group_against_its_null_rate(study: tuple[Path, Path]) -> None:
+    plan, data = study
+    plan.write_text(EXAMPLE + """\
+  - id: H3
+    outcome: infection
+    compare: [negative-pressure]
+    test: posterior-probability
+    null_rate: 0.2
+    alternative: less
+    threshold: 0.95
+    role: secondary
+""", encoding="utf-8")
+    api.lock(plan, actor="ana")
+    h3 = _results(api.run(plan, data, actor="ana").folder)["hypotheses"][2]
+    (x,), (n,) = h3["table"]["events"], h3["table"]["totals"]
+    assert h3["posterior_probability"] == pytest.approx(
+        stats.beta.cdf(0.2, 1 + x, 1 + n - x), abs=1e-12)  # scipy: Pr(p < 0.2 | data)
+    assert h3["estimate"]["measure"] == "proportion"
+    assert h3["estimate"]["value"] == pytest.approx((1 + x) / (2 + n), abs=1e-12)
+    low, high = h3["estimate"]["ci"]
+    assert (low, high) == (pytest.approx(stats.beta.ppf(0.025, 1 + x, 1 + n - x), abs=1e-10),
+                           pytest.approx(stats.beta.ppf(0.975, 1 + x, 1 + n - x), abs=1e-10))
+    oc = h3["bayesian"]["operating_characteristics"]
+    met = np.array([stats.beta.cdf(0.2, 1 + k, 1 + 180 - k) >= 0.95 for k in range(181)])
+    assert oc["type_one_error"] == pytest.approx(
+        float(stats.binom.pmf(np.arange(181), 180, 0.2) @ met), abs=1e-12)
+    assert oc["power"] == pytest.approx(
+        float(stats.binom.pmf(np.arange(181), 180, 0.10) @ met), abs=1e-12)
+    assert all(p["rate_b"] is None for p in oc["curve"])

@@ -155,8 +155,9 @@ def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | N
         "exceeds_alpha": bool(oc.type_one_error > plan.alpha),
         "power": None if oc.power is None else float(oc.power),
         "assumed": None if assumed is None else dict(zip(groups, assumed, strict=True)),
-        "curve": [{"rate_a": float(ra), "rate_b": float(rb), "probability": float(p)}
-                  for rb, ra, p in oc.curve],
+        # two groups: along the null boundary; one group: over its true rate (rate_b null)
+        "curve": [{"rate_a": float(ra), "rate_b": None if hyp.kind == "single" else float(rb),
+                   "probability": float(p)} for rb, ra, p in oc.curve],
     }
 
 
@@ -166,7 +167,7 @@ def run_bayes(hyp: Hypothesis, plan: Plan, events: list[int], totals: list[int],
     groups = list(hyp.compare)
     priors = [tuple(float(p) for p in hyp.prior[g]) for g in groups]
     post = _posterior(hyp, events, totals, priors)
-    met = bool(post.probability >= hyp.threshold)
+    met = bayes.meets_threshold(post.probability, hyp.threshold)  # as the design's region
     sensitivity = []
     centre, n = sceptical_prior(hyp, plan)
     rows = [("flat", [(1.0, 1.0)] * len(groups))]
@@ -182,7 +183,7 @@ def run_bayes(hyp: Hypothesis, plan: Plan, events: list[int], totals: list[int],
         other = _posterior(hyp, events, totals, these)
         row = {"prior": label, "priors": _priors_json(groups, these),
                "posterior_probability": float(other.probability),
-               "rule_met": bool(other.probability >= hyp.threshold),
+               "rule_met": bayes.meets_threshold(other.probability, hyp.threshold),
                "estimate": _estimate(other)}
         if label == "sceptical":
             row.update(centre=centre, n=n)
