@@ -117,11 +117,9 @@ CASES = [
 ]
 
 
-@pytest.mark.parametrize(("name", "text", "marker", "path", "says"), CASES,
-                         ids=[c[0] for c in CASES])
-def test_one_error_line_per_misuse(tmp_path: Path, name: str, text: str, marker: str,
-                                   path: str, says: str) -> None:
-    plan = tmp_path / "plan.yaml"
+def assert_one_error_line(plan: Path, text: str, marker: str, path: str, says: str) -> None:
+    """``text`` written to ``plan`` fails to load with one error line at the line of ``marker``
+    (which must occur once), at key ``path``, saying ``says``."""
     plan.write_text(text, encoding="utf-8")
     with pytest.raises(PlanError) as caught:
         load_plan(plan)
@@ -132,3 +130,10 @@ def test_one_error_line_per_misuse(tmp_path: Path, name: str, text: str, marker:
     assert (err.file, err.line, err.path) == (str(plan), line, path), str(err)
     assert says in err.message, str(err)
     assert err.exit_status == 2
+
+
+@pytest.mark.parametrize(("name", "text", "marker", "path", "says"), CASES,
+                         ids=[c[0] for c in CASES])
+def test_one_error_line_per_misuse(tmp_path: Path, name: str, text: str, marker: str,
+                                   path: str, says: str) -> None:
+    assert_one_error_line(tmp_path / "plan.yaml", text, marker, path, says)

@@ -37,8 +37,10 @@ from prespec.report.tablenames import bayes_table, hypothesis_table
 from prespec.report.tables import write_tables
 
 try:
+    from test_report_adjusted import _cells, _fields, _page, _text, run_results
     from test_report_figures import HOSTILE_ATTR, HOSTILE_SCRIPT, sample_results
 except ImportError:  # tests collected as a package
+    from tests.test_report_adjusted import _cells, _fields, _page, _text, run_results
     from tests.test_report_figures import HOSTILE_ATTR, HOSTILE_SCRIPT, sample_results
 
 PRIORS = {"negative-pressure": (1.0, 1.0), "gauze": (2.0, 8.0)}
@@ -173,34 +175,6 @@ def single_entry() -> dict[str, Any]:
         "operating_characteristics": None,
     }
     return hyp
-
-
-def run_results(*hyps: dict[str, Any]) -> dict[str, Any]:
-    res = sample_results()
-    res["hypotheses"] = list(hyps)
-    return res
-
-
-def _page(hyp: dict[str, Any]) -> str:
-    return sections.hypothesis(hyp, "hypotheses[0]", results=run_results(hyp))
-
-
-def _text(fragment: str) -> str:
-    """The fragment as a reader sees it: tags dropped, entities decoded, spaces collapsed."""
-    return " ".join(html.unescape(re.sub(r"<[^>]+>", " ", fragment)).split())
-
-
-def _cells(fragment: str, cls: str) -> list[list[str]]:
-    found = re.search(rf'<table class="prespec {cls}">(.*?)</table>', fragment, re.DOTALL)
-    assert found, f"no table {cls}"
-    body = found.group(1).split("<tbody>")[1]
-    return [[_text(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row, re.DOTALL)]
-            for row in re.findall(r"<tr[^>]*>(.*?)</tr>", body, re.DOTALL)]
-
-
-def _fields(fragment: str) -> dict[str, str]:
-    pairs = re.findall(r"<tr><th>([^<]*)</th><td>([^<]*)</td></tr>", fragment)
-    return {_text(k): _text(v) for k, v in pairs}
 
 
 # --- the result rows and the decision words ---------------------------------------------------
