@@ -19,9 +19,9 @@ from __future__ import annotations
 
 import argparse
 import time
-from collections.abc import Callable
 
 import numpy as np
+from _timing import best_of
 from scipy import integrate, stats
 
 from prespec.stats.bayes import operating_characteristics, rule_probability, rule_region
@@ -62,15 +62,6 @@ def baseline(n: int, margin: float, threshold: float, rates_a: np.ndarray,
                     total += pmf_a[x_a] * pmf_b[x_b]
         curve[k] = total
     return rule, curve, rule_time, time.perf_counter() - start
-
-
-def best_of(repeats: int, fn: Callable[[], object]) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
 
 
 def main() -> None:

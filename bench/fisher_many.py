@@ -21,10 +21,10 @@ Run by hand: ``.venv/bin/python bench/fisher_many.py [--tables N] [--ci-tables N
 from __future__ import annotations
 
 import argparse
-import time
 from collections.abc import Callable
 
 import numpy as np
+from _timing import best_of
 from scipy.stats import fisher_exact
 from scipy.stats.contingency import odds_ratio
 
@@ -51,15 +51,6 @@ def scipy_intervals(t: Tables) -> tuple[np.ndarray, np.ndarray]:
     limits = [odds_ratio([[a[i], b[i]], [c[i], d[i]]]).confidence_interval()
               for i in range(len(a))]
     return np.array([ci.low for ci in limits]), np.array([ci.high for ci in limits])
-
-
-def best_of(repeats: int, fn: Callable[[], object]) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
 
 
 def once(fn: Callable[[], object]) -> float:

@@ -22,6 +22,7 @@ from collections.abc import Callable
 from types import SimpleNamespace
 
 import numpy as np
+from _timing import best_of
 
 from prespec.analysis.sensitivity import Observed, tipping_point
 from prespec.stats import farrington_manning, fisher_exact, pearson_chi_square
@@ -48,15 +49,6 @@ def options(**kwargs: object) -> SimpleNamespace:
             "comparison": "superiority", "margin": None, "measure": "risk-difference",
             "sparse": None}
     return SimpleNamespace(**{**base, **kwargs})
-
-
-def best_of(repeats: int, fn: Callable[[], object]) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
 
 
 def main() -> None:

@@ -37,10 +37,10 @@ from prespec.report.tablenames import bayes_table, hypothesis_table
 from prespec.report.tables import write_tables
 
 try:
-    from test_report_adjusted import _cells, _fields, _page, _text, run_results
+    from test_report_adjusted import _cells, _fields, _page, _run_doc, _text, run_results
     from test_report_figures import HOSTILE_ATTR, HOSTILE_SCRIPT, sample_results
 except ImportError:  # tests collected as a package
-    from tests.test_report_adjusted import _cells, _fields, _page, _text, run_results
+    from tests.test_report_adjusted import _cells, _fields, _page, _run_doc, _text, run_results
     from tests.test_report_figures import HOSTILE_ATTR, HOSTILE_SCRIPT, sample_results
 
 PRIORS = {"negative-pressure": (1.0, 1.0), "gauze": (2.0, 8.0)}
@@ -540,15 +540,6 @@ def test_bayes_tables_never_share_a_name_with_other_kinds() -> None:
 
 
 # --- the results models -----------------------------------------------------------------------
-
-
-def _run_doc(*hyps: dict[str, Any]) -> dict[str, Any]:
-    path = next(p for p in sorted(Path(__file__).parent.glob("fixtures/studies/**/results.json"))
-                if "before-issue-15/tour" in str(p))
-    doc = json.loads(path.read_text("utf-8"))
-    base = doc["hypotheses"][0]
-    doc["hypotheses"] = [{**base, **h, "pre_specified": True} for h in hyps]
-    return doc
 
 
 def test_the_models_hold_the_bayesian_keys() -> None:
