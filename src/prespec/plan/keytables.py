@@ -93,6 +93,8 @@ class _Walk:
         kind = node.get("type")
         if kind == "array":
             most = f" (at most {node['maxItems']})" if "maxItems" in node else ""
+            if "maxItems" in node and node.get("minItems") == node["maxItems"]:
+                most = f" (exactly {node['maxItems']})"
             return f"list{most} of {self.kind(node.get('items', {}), path + '[]', subs)}"
         if kind == "object":
             inner = node.get("additionalProperties")
