@@ -103,7 +103,7 @@ class Unit:
 
 def family_of(hyp: Hypothesis, parent: Any = None) -> str | None:
     """The family of a plan hypothesis, or of a follow-up of ``parent``: None when it (or its
-    parent) is exploratory."""
+    parent) is exploratory, or when it is a Bayesian rule (outside the multiplicity family)."""
     if parent is None:
         return None if hyp.outside_multiplicity else MAIN_FAMILY
     return None if parent.role == "exploratory" else f"{parent.id} pairwise"

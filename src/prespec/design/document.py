@@ -480,6 +480,10 @@ def design_document(plan: Plan, *, where: str = "plan", fingerprint: str | None 
                         "non-exploratory hypotheses, follow-ups included (true_nulls lists "
                         "them); any and all: over the plan's non-exploratory hypotheses; power "
                         "of an exploratory hypothesis: at its nominal level")
+    if any(h.test in v.BAYESIAN_TESTS for h in plan.hypotheses):
+        doc["notes"].append("a Bayesian rule is decided in each simulated trial by its exact "
+                            "region; its power is the probability that its rule is met, and it "
+                            "counts in neither the fwer nor any and all")
     return doc
 
 
