@@ -182,3 +182,16 @@ def test_one_group_against_its_null_rate(study: tuple[Path, Path]) -> None:
     assert oc["power"] == pytest.approx(
         float(stats.binom.pmf(np.arange(181), 180, 0.10) @ met), abs=1e-12)
     assert all(p["rate_b"] is None for p in oc["curve"])
+
+
+def test_the_sentence_never_shows_a_probability_on_the_wrong_side_of_the_threshold() -> None:
+    from types import SimpleNamespace
+
+    from prespec.analysis.bayes import _statement
+
+    hyp = SimpleNamespace(alternative="greater", kind="pair", margin=0.0, threshold=0.975,
+                          null_rate=None)
+    missed = _statement(hyp, ["a", "b"], SimpleNamespace(probability=0.97496), False)
+    assert "is 0.97496, which does not reach the threshold 0.975" in missed
+    met = _statement(hyp, ["a", "b"], SimpleNamespace(probability=0.99123), True)
+    assert "is 0.9912, which reaches the threshold 0.975: the rule is met." in met

@@ -121,8 +121,11 @@ def _statement(hyp: Hypothesis, groups: list[str], post: bayes.Posterior, met: b
                  f"{side} {margin:g}")
     verdict = ("reaches the threshold {t:g}: the rule is met" if met else
                "does not reach the threshold {t:g}: the rule is not met")
+    digits = 4  # enough digits that the number shown is on the side of the threshold it is
+    while digits < 12 and (float(f"{post.probability:.{digits}f}") >= hyp.threshold) != met:
+        digits += 1
     return (f"Given the data and the prior, the posterior probability that {event} is "
-            f"{post.probability:.4f}, which " + verdict.format(t=hyp.threshold) + ".")
+            f"{post.probability:.{digits}f}, which " + verdict.format(t=hyp.threshold) + ".")
 
 
 def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | None:
