@@ -195,3 +195,19 @@ def test_the_sentence_never_shows_a_probability_on_the_wrong_side_of_the_thresho
     assert "is 0.97496, which does not reach the threshold 0.975" in missed
     met = _statement(hyp, ["a", "b"], SimpleNamespace(probability=0.99123), True)
     assert "is 0.9912, which reaches the threshold 0.975: the rule is met." in met
+
+
+def test_overriding_the_bayesian_rule_with_a_test_drops_its_own_keys(
+        study: tuple[Path, Path]) -> None:
+    plan, data = study
+    api.lock(plan, actor="ana")
+    out = api.run(plan, data, actor="ana", overrides={"hypotheses.H2.test": "fisher-exact"},
+                  accept_deviation="a frequentist look at the secondary")
+    results = _results(out.folder)
+    assert [o["key"] for o in results["overrides"]] == [
+        "hypotheses.H2.test", "hypotheses.H2.prior", "hypotheses.H2.threshold",
+        "hypotheses.H2.credible", "hypotheses.H2.interval"]
+    h2 = results["hypotheses"][1]
+    assert h2["test"] == "fisher-exact" and h2["family"] == "main" and "bayesian" not in h2
+    assert h2["estimate"]["ci_method"] == "newcombe" and h2["p_value"] is not None
+    assert [r.locked for r in api.verify(plan, rerun=data).runs] == [False]

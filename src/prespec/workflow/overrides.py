@@ -68,6 +68,8 @@ _OWN_KEYS = {
                       "fallback"),
     "stratified-score": ("weights", "strata"),
     "cochran-mantel-haenszel": ("strata",),
+    # a Bayesian rule's margin goes with comparison: superiority, which no other test takes
+    "posterior-probability": ("prior", "threshold", "credible", "sceptical_prior", "margin"),
 }
 
 
