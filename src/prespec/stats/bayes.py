@@ -49,6 +49,7 @@ Univ. 1974;9:721-741 (the tanh-sinh rule).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from numbers import Real
 
@@ -587,16 +588,30 @@ def operating_characteristics(n_a: int, n_b: int, prior_a: tuple[float, float],
     m = _margin(margin)
     region = rule_region(n_a, n_b, prior_a, prior_b, margin=m, alternative=alternative,
                          threshold=threshold)
+    pair = None if assumed is None else _assumed_pair(assumed)
+
+    def met(rate_a: np.ndarray, rate_b: np.ndarray) -> np.ndarray:
+        return rule_probability(region, n_a, n_b, rate_a, rate_b)
+
+    return _boundary_oc(met, m, steps, pair)
+
+
+def _assumed_pair(assumed: object) -> np.ndarray:
+    pair = _rates("assumed", assumed)
+    if pair.size != 2:
+        raise ValueError(f"assumed must be a pair (rate_a, rate_b), got {assumed!r}")
+    return pair
+
+
+def _boundary_oc(met: Callable[[np.ndarray, np.ndarray], np.ndarray], m: float, steps: int,
+                 assumed: np.ndarray | None) -> OC:
+    """The OC of a two-group rule from ``met`` (the probability of success at arrays of
+    rates_a, rates_b): its curve on the null boundary, the largest value and the power."""
     rate_b = np.linspace(max(0.0, -m), min(1.0, 1.0 - m), steps)
     rate_a = np.clip(rate_b + m, 0.0, 1.0)
-    probability = rule_probability(region, n_a, n_b, rate_a, rate_b)
+    probability = met(rate_a, rate_b)
     worst = int(np.argmax(probability))
-    power = None
-    if assumed is not None:
-        pair = _rates("assumed", assumed)
-        if pair.size != 2:
-            raise ValueError(f"assumed must be a pair (rate_a, rate_b), got {assumed!r}")
-        power = float(rule_probability(region, n_a, n_b, pair[:1], pair[1:])[0])
+    power = None if assumed is None else float(met(assumed[:1], assumed[1:])[0])
     curve = tuple((float(b), float(a), float(p))
                   for b, a, p in zip(rate_b, rate_a, probability))
     return OC(float(probability[worst]), float(rate_b[worst]), curve, power)
@@ -611,17 +626,22 @@ def operating_characteristics_single(n: int, prior: tuple[float, float], *, null
     steps = _grid(grid)
     region = rule_region_single(n, prior, null_rate=null_rate, alternative=alternative,
                                 threshold=threshold)
-    rate = float(null_rate)
+    rate = None if assumed is None else _rates("assumed", [_real("assumed", assumed)])
 
     def met(rates: np.ndarray) -> np.ndarray:
         return np.clip(_binomial_pmfs(n, rates) @ region.astype(float), 0.0, 1.0)
 
+    return _single_oc(met, float(null_rate), steps, rate)
+
+
+def _single_oc(met: Callable[[np.ndarray], np.ndarray], null_rate: float, steps: int,
+               assumed: np.ndarray | None) -> OC:
+    """The OC of a one-group rule from ``met`` (the probability of success at an array of
+    rates): at the null rate, at the assumed rate and over ``steps`` rates in [0, 1]."""
     rates = np.linspace(0.0, 1.0, steps)
-    curve = tuple((rate, float(r), float(p)) for r, p in zip(rates, met(rates)))
-    power = None
-    if assumed is not None:
-        power = float(met(_rates("assumed", [_real("assumed", assumed)]))[0])
-    return OC(float(met(np.array([rate]))[0]), rate, curve, power)
+    curve = tuple((null_rate, float(r), float(p)) for r, p in zip(rates, met(rates)))
+    power = None if assumed is None else float(met(assumed)[0])
+    return OC(float(met(np.array([null_rate]))[0]), null_rate, curve, power)
 
 
 # --- predictive probability of success ----------------------------------------------------------
@@ -705,3 +725,338 @@ def predictive_probability_single(x: int, n: int, final_n: int, prior: tuple[flo
                             np.array([b + (n - events)]))[0]
     return float(np.clip(future @ region[events:events + final - n + 1].astype(float), 0.0,
                          1.0))
+
+
+# --- a rule with interim looks ------------------------------------------------------------------
+#
+# At each interim look k the trial stops for success where the posterior probability reaches
+# ``stop_for_success`` (a region of the outcomes at look k's sizes, monotone like the rule's),
+# and the futility bound is crossed where the predictive probability of meeting the rule at the
+# final sizes falls below ``stop_for_futility``. The outcomes of the groups are independent
+# binomials whose increments between looks are binomial too, so the probability of each
+# (x_a, x_b) at look k that has not stopped is carried to look k + 1 by one matrix per group:
+# B_aᵀ M B_b, B[x, x'] = Binom(x' − x; n' − n, p). That is exact and separable; the looks only
+# remove the outcomes that stop.
+#
+# Futility is non-binding: ``success``, the stopping probabilities for success and the expected
+# sizes take the trial to continue past a crossed bound (the type I error so computed holds
+# whether or not the bound is followed, common practice for non-binding futility). The
+# futility probability of look k is that of stopping there if the bound were followed: the
+# bound crossed at look k, neither stopped for success nor crossed at an earlier look, and not
+# stopping for success at look k itself (success is checked first at a look). A second state,
+# the probability of not having stopped for success nor crossed the bound, carries it.
+#
+# The rule stays monotone with looks: each region is increasing in x_a (for "greater"), and the
+# cumulative events grow with the true rate for every path (draw each subject's outcome by
+# comparing one uniform with the rate), so the probability of success (stopping at a look or
+# meeting the rule at the end) is monotone in p_a at fixed p_b, and its largest value over the
+# null lies on the boundary, as without looks.
+
+#: Cells of a look's outcome table, times the rate points carried together (bounds the memory
+#: of the state and transition arrays to some tens of MB).
+_STATE_BUDGET = 1_000_000
+
+
+@dataclass(frozen=True)
+class SequentialOC:
+    """The exact operating characteristics of a rule with interim looks at one point of rates.
+
+    ``success``: the probability of stopping for success at an interim look or meeting the rule
+    at the final look (futility ignored: non-binding). ``stop_for_success``: per interim look,
+    the probability of stopping for success there. ``futility``: per interim look, the
+    probability of stopping for futility there if the bound were followed (crossed there,
+    neither stopped for success nor crossed before, not stopping for success there).
+    ``expected_size``: the expected analysed size of each group (one entry per group),
+    stopping for success only.
+    """
+
+    success: float
+    stop_for_success: tuple[float, ...]
+    futility: tuple[float, ...]
+    expected_size: tuple[float, ...]
+
+
+def _look_sizes(name: str, sizes: object) -> list[int]:
+    """Cumulative sizes per look, the last the final: integers >= 1, none beyond the final,
+    none smaller than the look before."""
+    if isinstance(sizes, (str, bytes, dict)):
+        raise ValueError(f"{name} must be a sequence of sizes, one per look, got {sizes!r}")  # noqa: TRY004 (the interface raises ValueError)
+    try:
+        items = list(sizes)  # type: ignore[call-overload]
+    except TypeError:
+        raise ValueError(f"{name} must be a sequence of sizes, one per look, got "
+                         f"{sizes!r}") from None
+    if not items:
+        raise ValueError(f"{name} must give at least one look (the final)")
+    out = [_size(f"{name}[{k}]", v) for k, v in enumerate(items)]
+    for k, n in enumerate(out[:-1]):
+        if n > out[-1]:
+            raise ValueError(f"{name}[{k}] ({n}) is a look beyond the final size ({out[-1]})")
+        if out[k + 1] < n:
+            raise ValueError(f"{name} must not decrease from look to look, got {name}[{k}] = "
+                             f"{n} and {name}[{k + 1}] = {out[k + 1]}")
+    return out
+
+
+def _two_looks(sizes_a: object, sizes_b: object) -> tuple[list[int], list[int]]:
+    looks_a, looks_b = _look_sizes("sizes_a", sizes_a), _look_sizes("sizes_b", sizes_b)
+    if len(looks_a) != len(looks_b):
+        raise ValueError(f"sizes_a ({len(looks_a)} looks) and sizes_b ({len(looks_b)} looks) "
+                         f"differ in length")
+    for k in range(1, len(looks_a)):
+        if (looks_a[k], looks_b[k]) == (looks_a[k - 1], looks_b[k - 1]):
+            raise ValueError(f"the sizes must increase from look to look, got look {k - 1} "
+                             f"and look {k} both at ({looks_a[k]}, {looks_b[k]})")
+    return looks_a, looks_b
+
+
+def _single_looks(sizes: object) -> list[int]:
+    looks = _look_sizes("sizes", sizes)
+    for k in range(1, len(looks)):
+        if looks[k] == looks[k - 1]:
+            raise ValueError(f"sizes must increase from look to look, got sizes[{k - 1}] = "
+                             f"sizes[{k}] = {looks[k]}")
+    return looks
+
+
+def _optional_unit(name: str, value: object) -> float | None:
+    return None if value is None else _open_unit(name, value)
+
+
+@dataclass(frozen=True)
+class _Looks:
+    """A rule with looks, ready to be carried over rate points: the cumulative sizes per look
+    and group (tuples of one entry per group), the stopping regions of each interim look (for
+    success; for futility, or ``None`` when there is no futility bound) and the final rule."""
+
+    sizes: tuple[tuple[int, ...], ...]
+    success: tuple[np.ndarray, ...]
+    futility: tuple[np.ndarray, ...] | None
+    final: np.ndarray
+
+
+def _two_group_looks(sizes_a: object, sizes_b: object, prior_a: object, prior_b: object,
+                     margin: object, alternative: object, threshold: object,
+                     stop_for_success: object, stop_for_futility: object) -> _Looks:
+    looks_a, looks_b = _two_looks(sizes_a, sizes_b)
+    pa, pb = _beta("prior_a", prior_a), _beta("prior_b", prior_b)
+    m, alt = _margin(margin), _alternative(alternative)
+    level = _open_unit("threshold", threshold)
+    success_level = _optional_unit("stop_for_success", stop_for_success)
+    futility_level = _optional_unit("stop_for_futility", stop_for_futility)
+    fa, fb = looks_a[-1], looks_b[-1]
+    final = rule_region(fa, fb, pa, pb, margin=m, alternative=alt, threshold=level)
+    interim = list(zip(looks_a[:-1], looks_b[:-1]))
+    success = tuple(
+        np.zeros((n_a + 1, n_b + 1), dtype=bool) if success_level is None else
+        rule_region(n_a, n_b, pa, pb, margin=m, alternative=alt, threshold=success_level)
+        for n_a, n_b in interim)
+    futility = None
+    if futility_level is not None:
+        region = final.astype(float)
+        futility = tuple(
+            (_transition(n_a, fa, pa) @ region @ _transition(n_b, fb, pb).T)
+            < futility_level - TIE_TOLERANCE for n_a, n_b in interim)
+    return _Looks((tuple(looks_a), tuple(looks_b)), success, futility, final)
+
+
+def _single_group_looks(sizes: object, prior: object, null_rate: object, alternative: object,
+                        threshold: object, stop_for_success: object,
+                        stop_for_futility: object) -> _Looks:
+    looks = _single_looks(sizes)
+    a, b = _beta("prior", prior)
+    rate = _open_unit("null_rate", null_rate)
+    alt = _alternative(alternative)
+    level = _open_unit("threshold", threshold)
+    success_level = _optional_unit("stop_for_success", stop_for_success)
+    futility_level = _optional_unit("stop_for_futility", stop_for_futility)
+    final = rule_region_single(looks[-1], (a, b), null_rate=rate, alternative=alt,
+                               threshold=level)
+    success = tuple(
+        np.zeros(n + 1, dtype=bool) if success_level is None else
+        rule_region_single(n, (a, b), null_rate=rate, alternative=alt, threshold=success_level)
+        for n in looks[:-1])
+    futility = None
+    if futility_level is not None:
+        futility = tuple(_transition(n, looks[-1], (a, b)) @ final.astype(float)
+                         < futility_level - TIE_TOLERANCE for n in looks[:-1])
+    return _Looks((tuple(looks),), success, futility, final)
+
+
+def _increments(before: int, after: int, rates: np.ndarray) -> np.ndarray:
+    """B[r, x, x'] = Binom(x' − x; after − before, rates[r]), x = 0..before, x' = 0..after."""
+    steps = after - before
+    pmf = _binomial_pmfs(steps, rates)
+    out = np.zeros((rates.size, before + 1, after + 1))
+    for x in range(before + 1):
+        out[:, x, x:x + steps + 1] = pmf
+    return out
+
+
+def _carry(looks: _Looks, rates: tuple[np.ndarray, ...]
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The dynamic programme over the looks for each rate point (rates: one array per group).
+
+    Returns the probability of meeting the final rule without stopping before (per point),
+    and per point and interim look the probabilities of stopping for success and for
+    futility. A state holds, per track, the probability of each outcome of the look not yet
+    stopped: track 0 for success only, track 1 (with a futility bound) for success or
+    futility. Two groups: state[r] is (n_a+1)×(n_b+1), moved by B_aᵀ M B_b; one group: a row
+    vector moved by M B.
+    """
+    points, interim = rates[0].size, len(looks.sizes[0]) - 1
+    tracks = 1 if looks.futility is None else 2
+    final = np.empty(points)
+    stop = np.zeros((points, interim))
+    futile = np.zeros((points, interim))
+    cells = max(math.prod(n + 1 for n in look) for look in zip(*looks.sizes))
+    chunk = max(1, _STATE_BUDGET // cells)
+    for start in range(0, points, chunk):
+        part = slice(start, start + chunk)
+        group_rates = [r[part] for r in rates]
+        count = group_rates[0].size
+        state = [np.ones((count,) + (1,) * len(rates)) for _ in range(tracks)]
+        before = [0] * len(rates)
+        for k, look in enumerate(zip(*looks.sizes)):
+            moves = [_increments(b, n, r) for b, n, r in zip(before, look, group_rates)]
+            if len(moves) == 2:
+                into_a = np.ascontiguousarray(np.swapaxes(moves[0], 1, 2))
+                state = [into_a @ s @ moves[1] for s in state]
+            else:
+                state = [(s[:, None, :] @ moves[0])[:, 0, :] for s in state]
+            before = list(look)
+            if k == interim:
+                final[part] = _mass(state[0], looks.final)
+                break
+            success = looks.success[k]
+            stop[part, k] = _mass(state[0], success)
+            state[0] = state[0] * ~success
+            if looks.futility is not None:
+                crossed = looks.futility[k] & ~success
+                futile[part, k] = _mass(state[1], crossed)
+                state[1] = state[1] * ~(success | crossed)
+    return np.clip(final, 0.0, 1.0), np.clip(stop, 0.0, 1.0), np.clip(futile, 0.0, 1.0)
+
+
+def _mass(state: np.ndarray, region: np.ndarray) -> np.ndarray:
+    """Σ over the region of each rate point's state."""
+    axes = tuple(range(1, state.ndim))
+    return np.sum(state * region, axis=axes)
+
+
+def _sequential(looks: _Looks, final: np.ndarray, stop: np.ndarray | None = None,
+                futile: np.ndarray | None = None) -> list[SequentialOC]:
+    """The results per rate point from the probability of meeting the final rule without
+    stopping before and (with interim looks) the stopping probabilities of :func:`_carry`."""
+    if stop is None or futile is None:
+        stop = futile = np.zeros((final.size, 0))
+    out = []
+    for r in range(final.size):
+        stopped = stop[r]
+        success = float(np.clip(final[r] + stopped.sum(), 0.0, 1.0))
+        going = max(0.0, 1.0 - float(stopped.sum()))
+        sizes = tuple(float(np.dot(stopped, group[:-1]) + going * group[-1])
+                      for group in looks.sizes)
+        out.append(SequentialOC(success, tuple(float(v) for v in stopped),
+                                tuple(float(v) for v in futile[r]), sizes))
+    return out
+
+
+def _rate_pairs(rates_a: object, rates_b: object) -> tuple[np.ndarray, np.ndarray]:
+    ra, rb = _rates("rates_a", rates_a), _rates("rates_b", rates_b)
+    if ra.size != rb.size:
+        raise ValueError(f"rates_a ({ra.size}) and rates_b ({rb.size}) differ in length")
+    return ra, rb
+
+
+def _two_group_success(looks: _Looks, ra: np.ndarray, rb: np.ndarray) -> list[SequentialOC]:
+    if len(looks.sizes[0]) == 1:  # the fixed-sample rule, computed as it is without looks
+        (n_a,), (n_b,) = looks.sizes
+        return _sequential(looks, rule_probability(looks.final, n_a, n_b, ra, rb))
+    return _sequential(looks, *_carry(looks, (ra, rb)))
+
+
+def sequential_rule_probability(sizes_a: object, sizes_b: object, prior_a: tuple[float, float],
+                                prior_b: tuple[float, float], *, margin: float,
+                                alternative: str, threshold: float,
+                                stop_for_success: float | None,
+                                stop_for_futility: float | None, rates_a: object,
+                                rates_b: object) -> list[SequentialOC]:
+    """The exact operating characteristics of a two-group rule with interim looks.
+
+    ``sizes_a``, ``sizes_b``: the cumulative analysed sizes of each group at each look, the
+    last the final. At an interim look the trial stops for success where the posterior
+    probability reaches ``stop_for_success`` (``None``: never), and the futility bound is
+    crossed where the predictive probability of meeting the rule at the final sizes falls below
+    ``stop_for_futility`` (``None``: never); at the final look success is the rule (the
+    posterior probability reaches ``threshold``). One result per pair of ``rates_a``,
+    ``rates_b``; see :class:`SequentialOC` and the comment above it. With one look the success
+    is :func:`rule_probability` of the rule's region.
+    """
+    looks = _two_group_looks(sizes_a, sizes_b, prior_a, prior_b, margin, alternative,
+                             threshold, stop_for_success, stop_for_futility)
+    return _two_group_success(looks, *_rate_pairs(rates_a, rates_b))
+
+
+def _single_group_success(looks: _Looks, rates: np.ndarray) -> list[SequentialOC]:
+    if len(looks.sizes[0]) == 1:  # as operating_characteristics_single computes it
+        fixed = _binomial_pmfs(looks.sizes[0][0], rates) @ looks.final.astype(float)
+        return _sequential(looks, np.clip(fixed, 0.0, 1.0))
+    return _sequential(looks, *_carry(looks, (rates,)))
+
+
+def sequential_rule_probability_single(sizes: object, prior: tuple[float, float], *,
+                                       null_rate: float, alternative: str, threshold: float,
+                                       stop_for_success: float | None,
+                                       stop_for_futility: float | None,
+                                       rates: object) -> list[SequentialOC]:
+    """The exact operating characteristics of a one-group rule with interim looks, one result
+    per true rate (as :func:`sequential_rule_probability`, on Pr(p > null_rate | data) or
+    Pr(p < null_rate | data))."""
+    looks = _single_group_looks(sizes, prior, null_rate, alternative, threshold,
+                                stop_for_success, stop_for_futility)
+    return _single_group_success(looks, _rates("rates", rates))
+
+
+def sequential_operating_characteristics(sizes_a: object, sizes_b: object,
+                                         prior_a: tuple[float, float],
+                                         prior_b: tuple[float, float], *, margin: float,
+                                         alternative: str, threshold: float,
+                                         stop_for_success: float | None,
+                                         stop_for_futility: float | None,
+                                         assumed: tuple[float, float] | None = None,
+                                         grid: int = 40) -> OC:
+    """Type I error over the null boundary and power at the assumed rates of a rule with
+    interim looks, exactly: as :func:`operating_characteristics`, the probability of the rule
+    being that of :class:`SequentialOC` ``success`` (futility non-binding). With one look the
+    result equals :func:`operating_characteristics`."""
+    steps = _grid(grid)
+    looks = _two_group_looks(sizes_a, sizes_b, prior_a, prior_b, margin, alternative,
+                             threshold, stop_for_success, stop_for_futility)
+    pair = None if assumed is None else _assumed_pair(assumed)
+
+    def success(rate_a: np.ndarray, rate_b: np.ndarray) -> np.ndarray:
+        return np.array([r.success for r in _two_group_success(looks, rate_a, rate_b)])
+
+    return _boundary_oc(success, _margin(margin), steps, pair)
+
+
+def sequential_operating_characteristics_single(sizes: object, prior: tuple[float, float], *,
+                                                null_rate: float, alternative: str,
+                                                threshold: float,
+                                                stop_for_success: float | None,
+                                                stop_for_futility: float | None,
+                                                assumed: float | None = None,
+                                                grid: int = 40) -> OC:
+    """Type I error at ``null_rate``, the power at the assumed rate and the curve over
+    ``grid`` true rates of a one-group rule with interim looks (as
+    :func:`operating_characteristics_single`; with one look it equals it)."""
+    steps = _grid(grid)
+    looks = _single_group_looks(sizes, prior, null_rate, alternative, threshold,
+                                stop_for_success, stop_for_futility)
+    rate = None if assumed is None else _rates("assumed", [_real("assumed", assumed)])
+
+    def success(rates: np.ndarray) -> np.ndarray:
+        return np.array([r.success for r in _single_group_success(looks, rates)])
+
+    return _single_oc(success, float(null_rate), steps, rate)
