@@ -30,7 +30,13 @@ bisection on arrays over all rows together, and so needs about (n_b + 1) log2(n_
 probabilities instead of (n_a + 1)(n_b + 1); ``posterior_probabilities`` computes every
 outcome's probability, for small sizes and for checking. The exact probability that the rule is
 met at true rates (p_a, p_b) is Σ Binom(x_a; n_a, p_a) Binom(x_b; n_b, p_b) over the region,
-a product of matrices over many rate points at once.
+a product of matrices over many rate points at once. With interim looks (``sequential_*``)
+the probability of each outcome not yet stopped is carried from look to look by the binomial
+increments of each group, a product of matrices per rate point (a dynamic programme over the
+looks, exact; the comment above :class:`SequentialOC` says what stops and what is counted). It
+costs about (n_a + 1)² (n_b + 1) operations per look and rate point: with three looks and the
+41 points of a curve and its power, measured at about 2 s for 500 per group and 8 s for 1,000
+(2 shared cores).
 
 References
 ----------
@@ -42,6 +48,9 @@ Lee JJ, Liu DD. A predictive probability design for phase II cancer clinical tri
 Trials 2008;5:93-106 (the beta-binomial predictive probability of success at the final look).
 US FDA. Guidance for the use of Bayesian statistics in medical device clinical trials, 2010
 (type I error and power of a Bayesian rule, fixed before the data).
+Jennison C, Turnbull BW. Group Sequential Methods with Applications to Clinical Trials.
+Chapman & Hall/CRC, 2000 (the probabilities of stopping at each look by recursion over the
+looks; non-binding futility bounds).
 Takahasi H, Mori M. Double exponential formulas for numerical integration. Publ. RIMS Kyoto
 Univ. 1974;9:721-741 (the tanh-sinh rule).
 """
