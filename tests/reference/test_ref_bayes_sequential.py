@@ -163,6 +163,8 @@ TWO_GROUP = [
     # reach it and cross the futility bound (success is decided first)
     ((3, 7), (5, 9), (2, 3), (1, 1), 0.1, "less", 0.9, 0.85, 0.6),
     ((4, 6, 9), (3, 6, 8), (1.5, 4), (1, 2), -0.05, "greater", 0.8, 0.93, 0.4),
+    # group a complete at the second look, group b still growing
+    ((3, 5, 5), (2, 4, 6), (1, 1), (1, 1), 0.0, "greater", 0.9, 0.95, 0.3),
 ]
 TWO_GROUP_RATES = [(0.2, 0.2), (0.5, 0.5), (0.6, 0.25), (0.15, 0.45), (0.35, 0.3)]
 
