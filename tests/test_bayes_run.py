@@ -114,6 +114,7 @@ def test_design_shows_the_rule_and_simulates_it(study: tuple[Path, Path]) -> Non
     h2 = next(h for h in doc["hypotheses"] if h["id"] == "H2")
     assert h2["n_per_group"] is None and "operating characteristics" in h2["method"]
     assert any(n.startswith("type I error at the planned sizes") for n in h2["notes"])
+    assert "warnings" not in doc  # within alpha: the design document has no warnings key
     assumed = next(s for s in doc["scenarios"] if s["name"] == "assumed")
     simulated, se = assumed["power"]["H2"], assumed["mc_se"]["power"]["H2"]
     assert abs(simulated - h2["power"]) < 4 * se + 1e-9
@@ -146,11 +147,14 @@ def test_the_commands_print_the_warning_on_stderr(study: tuple[Path, Path],
 
     plan, _ = study
     plan.write_text(EXAMPLE.replace("threshold: 0.975", "threshold: 0.6"), encoding="utf-8")
+    said = []
     for command in (["check", str(plan)], ["design", str(plan)], ["lock", str(plan)]):
         assert main(command) == 0
         err = capsys.readouterr().err
         assert err.startswith("prespec: warning: hypotheses.H2: ") and "alpha 0.05" in err, \
             command
+        said.append(err)
+    assert said[0] == said[1] == said[2]  # one warning, in the same words from each command
 
 
 def test_one_group_against_its_null_rate(study: tuple[Path, Path]) -> None:

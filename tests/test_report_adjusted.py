@@ -519,9 +519,13 @@ def test_the_models_hold_the_adjusted_and_stratified_keys() -> None:
      "hypotheses[0].adjusted.risks[0].odds: Extra inputs are not permitted"),
 ])
 def test_the_models_refuse_what_the_contract_does_not_hold(change: Any, problem: str) -> None:
+    assert_refused(adjusted_entry(), change, problem)
+
+
+def assert_refused(hyp: dict[str, Any], change: Any, problem: str) -> None:
+    """``change(hyp)`` makes a results document the models refuse, first at ``problem``."""
     from prespec.common.records import first_problem
 
-    hyp = adjusted_entry()
     change(hyp)
     with pytest.raises(ValidationError) as caught:
         finish(_run_doc(hyp))

@@ -355,11 +355,8 @@ def _dispatch(args: argparse.Namespace) -> int:
 
         doc = api.design(args.plan, simulate=args.simulate, seed=args.seed, actor=args.actor,
                          progress=_progress_bar())
-        for hyp in doc["hypotheses"]:  # a Bayesian rule whose type I error exceeds alpha
-            for note in hyp["notes"]:
-                if note.startswith("WARNING: "):
-                    print(f"prespec: warning: hypotheses.{hyp['id']}: {note[9:]}",
-                          file=sys.stderr, flush=True)
+        for line in doc.get("warnings", []):  # as check and lock print them
+            print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         print(json_text(doc, indent=2) if args.json else design_text(doc))
     elif args.command == "demo":
         html = api.demo(args.dir, actor=args.actor)

@@ -9,6 +9,7 @@ is outside the frequentist multiplicity family, so it has no p-value and no adju
 
 from __future__ import annotations
 
+import functools
 import math
 from typing import TYPE_CHECKING, Any
 
@@ -128,6 +129,22 @@ def _statement(hyp: Hypothesis, groups: list[str], post: bayes.Posterior, met: b
             f"{post.probability:.{digits}f}, which " + verdict.format(t=hyp.threshold) + ".")
 
 
+@functools.lru_cache(maxsize=16)
+def _kernel_oc(sizes: tuple[int, ...], priors: tuple[tuple[float, ...], ...],
+               null_rate: float | None, margin: float, alternative: str, threshold: float,
+               assumed: tuple[float, ...] | None) -> bayes.OC:
+    """The kernel's operating characteristics, kept for the process: a run, a check or a
+    design asks for the same rule's more than once (the analysis and planned versus achieved;
+    the summary and the warning)."""
+    if null_rate is not None:
+        return bayes.operating_characteristics_single(
+            sizes[0], priors[0], null_rate=null_rate, alternative=alternative,
+            threshold=threshold, assumed=assumed[0] if assumed else None)
+    return bayes.operating_characteristics(
+        sizes[0], sizes[1], priors[0], priors[1], margin=margin, alternative=alternative,
+        threshold=threshold, assumed=assumed)
+
+
 def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | None:
     """The rule's exact operating characteristics at the planned sizes (data.planned_n of the
     compared groups): the type I error maximised over the null boundary and the power at the
@@ -140,16 +157,10 @@ def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | N
     assumed = None
     if design is not None and all(g in design.assumed for g in groups):
         assumed = tuple(float(design.assumed[g]) for g in groups)
-    if hyp.kind == "single":
-        oc = bayes.operating_characteristics_single(
-            planned[groups[0]], tuple(hyp.prior[groups[0]]), null_rate=hyp.null_rate,
-            alternative=hyp.alternative, threshold=hyp.threshold,
-            assumed=assumed[0] if assumed else None)
-    else:
-        oc = bayes.operating_characteristics(
-            planned[groups[0]], planned[groups[1]], tuple(hyp.prior[groups[0]]),
-            tuple(hyp.prior[groups[1]]), margin=float(hyp.margin or 0.0),
-            alternative=hyp.alternative, threshold=hyp.threshold, assumed=assumed)
+    oc = _kernel_oc(tuple(int(planned[g]) for g in groups),
+                    tuple(tuple(float(x) for x in hyp.prior[g]) for g in groups),
+                    hyp.null_rate if hyp.kind == "single" else None,
+                    float(hyp.margin or 0.0), hyp.alternative, float(hyp.threshold), assumed)
     return {
         "sizes": {g: int(planned[g]) for g in groups},
         "alpha": float(plan.alpha),

@@ -450,6 +450,12 @@ def design_document(plan: Plan, *, where: str = "plan", fingerprint: str | None 
     from prespec.design.looks import add_looks
 
     add_looks(plan, doc)
+    if any(h.test in v.BAYESIAN_TESTS for h in plan.hypotheses):
+        from prespec.analysis.bayes import type_one_error_warnings
+
+        warned = type_one_error_warnings(plan)  # the lines check and lock print as well
+        if warned:
+            doc["warnings"] = warned
     if any(h.then is not None for h in plan.hypotheses):
         doc["notes"].append("pairwise follow-ups (then) are gated by their k-group hypothesis "
                             "and not sized here; --simulate gives their power")
