@@ -90,7 +90,8 @@ CASES = [
      "multiplicity: {method", "multiplicity.weights.H2", "is a Bayesian rule"),
     ("interim looks", EXAMPLE.replace("    credible: 0.95\n", "    credible: 0.95\n    looks: "
                                       "{fractions: [0.5, 1], efficacy: obrien-fleming}\n"),
-     "looks: {fractions", "hypotheses.H2.looks", "not available in this version"),
+     "efficacy: obrien-fleming", "hypotheses.H2.looks.efficacy",
+     "a Bayesian rule stops by stop_for_success"),
     ("a sparse switch", EXAMPLE.replace("    credible: 0.95\n", "    credible: 0.95\n    sparse: "
                                         "{min_expected: 5, test: fisher-exact}\n"),
      "sparse: {min_expected", "hypotheses.H2.sparse", ""),

@@ -96,7 +96,10 @@ def test_schema_lists_looks() -> None:
     schema = api.schema()
     text = json.dumps(schema)
     assert "looks" in schema["$defs"]["Hypothesis"]["properties"]
-    assert schema["$defs"]["Looks"]["properties"]["efficacy"]["enum"] == list(EFFICACY)
+    efficacy = schema["$defs"]["Looks"]["properties"]["efficacy"]  # optional: a Bayesian
+    assert [a["enum"] for a in efficacy["anyOf"] if "enum" in a] == [list(EFFICACY)]  # rule's
+    assert {"stop_for_success", "stop_for_futility"} <= set(  # looks stop by probabilities
+        schema["$defs"]["Looks"]["properties"])
     assert "binding" in schema["$defs"]["Futility"]["properties"]
     assert "not available" not in text
 

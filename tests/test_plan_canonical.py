@@ -205,6 +205,9 @@ LEFT_OUT_AT_DEFAULT = {
     ("Hypothesis", "threshold"): None,
     ("Hypothesis", "credible"): None,
     ("Hypothesis", "sceptical_prior"): None,
+    # a Bayesian rule's interim looks
+    ("Looks", "stop_for_success"): None,
+    ("Looks", "stop_for_futility"): None,
 }
 
 

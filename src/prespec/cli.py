@@ -163,9 +163,16 @@ def _hypothesis_line(hyp: dict[str, Any], procedures: dict[str, str], interim: b
     head = f"{hyp['id']}: {hyp['test']}, "
     reject = hyp.get("reject")
     if hyp.get("posterior_probability") is not None:  # a Bayesian rule: no p-value
+        shown = f"{head}posterior probability {hyp['posterior_probability']:.4f}"
+        looks = hyp.get("looks")
+        if isinstance(looks, dict) and looks.get("look") != looks.get("of"):
+            return f"{shown} (outside the multiplicity family): the look decides{flag}"
+        if reject is None:
+            return (f"{shown} (outside the multiplicity family): not tested at this look, "
+                    f"decided at the final analysis{flag}")
         met = "rule met" if reject else "rule not met"
-        return (f"{head}posterior probability {hyp['posterior_probability']:.4f}, threshold "
-                f"{hyp['threshold']:g} (outside the multiplicity family): {met}{flag}")
+        return (f"{shown}, threshold {hyp['threshold']:g} (outside the multiplicity family): "
+                f"{met}{flag}")
     if hyp.get("role") == "exploratory":
         return f"{head}nominal {shown}: exploratory, no decision{flag}"
     if hyp.get("gate") == "closed":

@@ -132,10 +132,24 @@ def _statement(hyp: Hypothesis, groups: list[str], post: bayes.Posterior, met: b
 @functools.lru_cache(maxsize=16)
 def _kernel_oc(sizes: tuple[int, ...], priors: tuple[tuple[float, ...], ...],
                null_rate: float | None, margin: float, alternative: str, threshold: float,
-               assumed: tuple[float, ...] | None) -> bayes.OC:
+               assumed: tuple[float, ...] | None,
+               looks: tuple[float | None, float | None, tuple[tuple[int, ...], ...]] | None
+               = None) -> bayes.OC:
     """The kernel's operating characteristics, kept for the process: a run, a check or a
     design asks for the same rule's more than once (the analysis and planned versus achieved;
-    the summary and the warning)."""
+    the summary and the warning). ``looks``: (stop_for_success, stop_for_futility, the
+    cumulative sizes of each group at each look) of a rule with interim looks."""
+    if looks is not None:
+        success, futility, per_group = looks
+        if null_rate is not None:
+            return bayes.sequential_operating_characteristics_single(
+                per_group[0], priors[0], null_rate=null_rate, alternative=alternative,
+                threshold=threshold, stop_for_success=success, stop_for_futility=futility,
+                assumed=assumed[0] if assumed else None)
+        return bayes.sequential_operating_characteristics(
+            per_group[0], per_group[1], priors[0], priors[1], margin=margin,
+            alternative=alternative, threshold=threshold, stop_for_success=success,
+            stop_for_futility=futility, assumed=assumed)
     if null_rate is not None:
         return bayes.operating_characteristics_single(
             sizes[0], priors[0], null_rate=null_rate, alternative=alternative,
@@ -145,10 +159,39 @@ def _kernel_oc(sizes: tuple[int, ...], priors: tuple[tuple[float, ...], ...],
         threshold=threshold, assumed=assumed)
 
 
+def _look_point(hyp: Hypothesis, groups: list[str], priors: tuple[tuple[float, ...], ...],
+                per_group: list[list[int]], rates: tuple[float, ...]) -> dict[str, Any]:
+    """The sequential figures of a rule with looks at one point of true rates: the
+    probability of success, of stopping for success at each interim look, of stopping for
+    futility there if the bound were followed, and each group's expected analysed size."""
+    looks = hyp.looks
+    common = {"alternative": hyp.alternative, "threshold": float(hyp.threshold),
+              "stop_for_success": looks.stop_for_success,
+              "stop_for_futility": looks.stop_for_futility}
+    if hyp.kind == "single":
+        got = bayes.sequential_rule_probability_single(
+            per_group[0], priors[0], null_rate=float(hyp.null_rate), rates=[rates[0]],
+            **common)[0]
+    else:
+        got = bayes.sequential_rule_probability(
+            per_group[0], per_group[1], priors[0], priors[1], margin=float(hyp.margin or 0.0),
+            rates_a=[rates[0]], rates_b=[rates[1]], **common)[0]
+    return {"rates": dict(zip(groups, rates, strict=True)), "success": float(got.success),
+            "stop_for_success": [float(x) for x in got.stop_for_success],
+            "futility": [float(x) for x in got.futility],
+            "expected_size": dict(zip(groups, (float(x) for x in got.expected_size),
+                                      strict=True))}
+
+
 def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | None:
     """The rule's exact operating characteristics at the planned sizes (data.planned_n of the
     compared groups): the type I error maximised over the null boundary and the power at the
-    design's assumed rates; None without planned sizes for every compared group."""
+    design's assumed rates; None without planned sizes for every compared group. With interim
+    looks, those of the rule with its stopping for success (futility is non-binding, so it
+    does not lower the type I error), and per look the stopping probabilities where the type I
+    error is largest and at the assumed rates."""
+    from prespec.plan.looks import bayes_look_sizes
+
     groups = list(hyp.compare)
     planned = plan.data.planned_n or {}
     if not all(g in planned for g in groups):
@@ -157,11 +200,16 @@ def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | N
     assumed = None
     if design is not None and all(g in design.assumed for g in groups):
         assumed = tuple(float(design.assumed[g]) for g in groups)
-    oc = _kernel_oc(tuple(int(planned[g]) for g in groups),
-                    tuple(tuple(float(x) for x in hyp.prior[g]) for g in groups),
+    priors = tuple(tuple(float(x) for x in hyp.prior[g]) for g in groups)
+    per_group = bayes_look_sizes(plan, hyp)
+    looks = None if per_group is None else (
+        hyp.looks.stop_for_success, hyp.looks.stop_for_futility,
+        tuple(tuple(sizes) for sizes in per_group))
+    oc = _kernel_oc(tuple(int(planned[g]) for g in groups), priors,
                     hyp.null_rate if hyp.kind == "single" else None,
-                    float(hyp.margin or 0.0), hyp.alternative, float(hyp.threshold), assumed)
-    return {
+                    float(hyp.margin or 0.0), hyp.alternative, float(hyp.threshold), assumed,
+                    looks)
+    out = {
         "sizes": {g: int(planned[g]) for g in groups},
         "alpha": float(plan.alpha),
         "type_one_error": float(oc.type_one_error),
@@ -173,6 +221,21 @@ def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | N
         "curve": [{"rate_a": float(ra), "rate_b": None if hyp.kind == "single" else float(rb),
                    "probability": float(p)} for rb, ra, p in oc.curve],
     }
+    if per_group is not None:
+        if hyp.kind == "single":
+            worst: tuple[float, ...] = (float(hyp.null_rate),)
+        else:
+            rate_b = float(oc.at_rate)
+            worst = (min(1.0, max(0.0, rate_b + float(hyp.margin or 0.0))), rate_b)
+        out["looks"] = {
+            "sizes": dict(zip(groups, per_group, strict=True)),
+            "stop_for_success": hyp.looks.stop_for_success,
+            "stop_for_futility": hyp.looks.stop_for_futility,
+            "under_null": _look_point(hyp, groups, priors, per_group, worst),
+            "under_assumed": None if assumed is None else
+            _look_point(hyp, groups, priors, per_group, assumed),
+        }
+    return out
 
 
 def run_bayes(hyp: Hypothesis, plan: Plan, events: list[int], totals: list[int],

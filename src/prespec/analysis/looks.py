@@ -36,9 +36,12 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from prespec.analysis.bayes_looks import HISTORY_KEYS as BAYES_HISTORY_KEYS
+from prespec.analysis.bayes_looks import bayes_look, is_bayesian
 from prespec.common.departures import Departure, Note
 from prespec.errors import BadInput
 from prespec.plan.looks import CLASSICAL, CLASSICAL_TOLERANCE, planned_total, sides
+from prespec.plan.vocabulary import BAYESIAN_TESTS
 
 if TYPE_CHECKING:
     from prespec.plan.model import Hypothesis, Plan
@@ -442,7 +445,7 @@ def family(plan: Plan) -> list[Any] | None:
     """The hypotheses of the multiplicity family when the procedure must run over the looks
     (a method other than ``none``, more than one member, some with looks); else None."""
     method = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
-    members = [h for h in plan.hypotheses if h.role != "exploratory"]
+    members = [h for h in plan.hypotheses if not h.outside_multiplicity]
     if method == "none" or len(members) < 2 or all(h.looks is None for h in members):
         return None
     return members
@@ -561,7 +564,11 @@ def apply_looks(
     untested = []
     for entry in hypotheses:
         hyp = by_id.get(entry["id"]) if entry.get("parent") is None else None
-        if hyp is not None and hyp.looks is not None:
+        if hyp is not None and hyp.looks is not None and hyp.test in BAYESIAN_TESTS:
+            block, found = bayes_look(plan, hyp, entry, run, notes)
+            entry["looks"] = block
+            departures.extend(found)
+        elif hyp is not None and hyp.looks is not None:
             block, found = hypothesis_look(plan, hyp, entry, run, notes, graph.get(hyp.id))
             entry["looks"] = block
             departures.extend(found)
@@ -572,6 +579,12 @@ def apply_looks(
         elif not run.final and entry.get("role") != "exploratory":
             entry["p_adjusted"] = None
             entry["reject"] = None
+            if isinstance(entry.get("bayesian"), dict):  # its sentence would decide the rule
+                entry["bayesian"]["statement"] = (
+                    f"At look {run.look} of {run.of} the posterior probability is shown "
+                    f"({float(entry['posterior_probability']):.4f}), not held against the "
+                    "threshold: the rule has no interim looks and is decided at the final "
+                    "analysis.")
             untested.append(str(entry["id"]))
     if untested:
         notes.append(Note("not-tested-at-interim", f"{', '.join(untested)}: no interim looks are "
@@ -588,11 +601,17 @@ def look_details(results: dict[str, Any]) -> dict[str, Any] | None:
     if not hyps:
         return None
     first = hyps[0]["looks"]
-    return {"look": first["look"], "of": first["of"], "hypotheses": [
-        {"id": h["id"], "analysed": h["looks"]["analysed"],
-         "fraction": h["looks"]["observed_fraction"], "z": h["looks"]["z"],
-         "information": h["looks"]["information"], "estimate": h["looks"]["estimate"],
-         "crossed": h["looks"]["crossed"]} for h in hyps]}
+    return {"look": first["look"], "of": first["of"],
+            "hypotheses": [_recorded(h) for h in hyps]}
+
+
+def _recorded(hyp: dict[str, Any]) -> dict[str, Any]:
+    """What a look's log entry records of one hypothesis: a Bayesian rule's posterior and
+    predictive probabilities, else the z statistic and its information."""
+    block = hyp["looks"]
+    keys = BAYES_HISTORY_KEYS if is_bayesian(block) else HISTORY_KEYS
+    named = {"id": hyp["id"], "fraction": block["observed_fraction"]}
+    return {key: named[key] if key in named else block[key] for key in keys}
 
 
 def look_problem(entries: list[dict[str, Any]], entry: dict[str, Any],
@@ -614,8 +633,9 @@ def look_problem(entries: list[dict[str, Any]], entry: dict[str, Any],
         block = hyp.get("looks")
         if not isinstance(block, dict):
             continue
+        keys = BAYES_HISTORY_KEYS if is_bayesian(block) else HISTORY_KEYS
         expected = [{"look": k, **{key: first[k].hypotheses[hyp["id"]].get(key)
-                                   for key in HISTORY_KEYS if key != "id"}}
+                                   for key in keys if key != "id"}}
                     for k in sorted(first) if k < int(logged["look"])
                     and hyp["id"] in first[k].hypotheses]
         if block.get("history") != expected:

@@ -285,6 +285,41 @@ class Looks(Part):
     graph: GraphLevel | None
 
 
+class BayesLookHistory(Part):
+    """An earlier look of a Bayesian rule, as its log entry recorded it."""
+
+    look: Count
+    analysed: Count | None
+    fraction: Number | None
+    estimate: Number | None
+    posterior_probability: Number | None
+    predictive_probability: Number | None
+    crossed: Flag | None
+
+
+class BayesLooks(Part):
+    """This look of a Bayesian rule with interim looks (docs/bayes.md, "Interim looks")."""
+
+    rule: Literal["bayesian"]
+    look: Count
+    of: Count
+    planned_fractions: list[Number]
+    planned_sizes: dict[Text, list[Count]]
+    planned_total: Count | None
+    analysed: Count
+    observed_fraction: Number | None
+    sizes: dict[Text, Count]
+    estimate: Number | None  # the posterior mean
+    posterior_probability: Number
+    threshold: Number  # the rule's, at the final analysis
+    stop_for_success: Number | None
+    stop_for_futility: Number | None
+    predictive_probability: Number | None  # interim looks only
+    crossed: Flag  # an interim look: stops for success; the final: the rule met
+    decision: Text
+    history: list[BayesLookHistory]
+
+
 # --- a covariate-adjusted (g-computation) or stratified risk difference ---
 
 class Covariate(Part):
@@ -443,6 +478,33 @@ class OperatingPoint(Part):
     probability: Number | None = Field(description="The exact probability the rule is met.")
 
 
+class SequentialPoint(Part):
+    """A Bayesian rule with interim looks at one point of true rates."""
+
+    rates: dict[Text, Number] = Field(description="The true rate of each group.")
+    success: Number = Field(description="The probability of stopping for success at an "
+                            "interim look or meeting the rule at the final analysis.")
+    stop_for_success: list[Number] = Field(
+        description="Per interim look, the probability of stopping for success there.")
+    futility: list[Number] = Field(
+        description="Per interim look, the probability of stopping for futility there if the "
+        "non-binding bound were followed.")
+    expected_size: dict[Text, Number] = Field(
+        description="Each group's expected analysed size (stopping for success only).")
+
+
+class BayesLookDesign(Part):
+    """The planned looks of a Bayesian rule and their exact operating characteristics."""
+
+    sizes: dict[Text, list[Count]] = Field(
+        description="Each group's planned cumulative analysed size at each look.")
+    stop_for_success: Number | None = Field(description="The interim success threshold.")
+    stop_for_futility: Number | None = Field(description="The predictive-probability "
+                                             "futility threshold (non-binding).")
+    under_null: SequentialPoint = Field(description="Where the type I error is largest.")
+    under_assumed: SequentialPoint | None = Field(description="At the assumed rates.")
+
+
 class OperatingCharacteristics(Part):
     """The rule's exact frequentist operating characteristics at the planned sizes."""
 
@@ -458,6 +520,9 @@ class OperatingCharacteristics(Part):
     assumed: dict[Text, Number] | None = Field(description="The design's assumed rates.")
     curve: list[OperatingPoint] = Field(
         description="The probability the rule is met along the null boundary.")
+    looks: BayesLookDesign | None = Field(
+        default=None, description="A rule with interim looks: its planned looks (the figures "
+        "above then count stopping for success at a look as the rule met).")
 
 
 class Bayesian(Part):
@@ -520,7 +585,7 @@ class Hypothesis(Part):
     family: Text | None
     estimand: Estimand | None = None  # added after the first results documents
     sensitivity: list[Sensitivity] | None = None
-    looks: Looks | None = None  # only for a hypothesis with interim looks
+    looks: Looks | BayesLooks | None = None  # only for a hypothesis with interim looks
     graph: GraphLevel | None = None  # the final analysis of a graph over looks
     adjusted: Adjusted | None = Field(
         default=None, description="test g-computation: the covariate-adjusted analysis.")

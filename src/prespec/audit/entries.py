@@ -56,10 +56,12 @@ class LookHypothesis(Part):
     id: Text
     analysed: Count | None
     fraction: Number | None
-    z: Number | None
-    information: Number | None
+    z: Number | None = None  # a Bayesian rule records none
+    information: Number | None = None
     estimate: Number | None
     crossed: Flag | None
+    posterior_probability: Number | None = None  # a Bayesian rule
+    predictive_probability: Number | None = None
 
 
 class ReportDetails(Part):

@@ -327,11 +327,45 @@ def _bayesian_design(plan: Plan, hyp: Hypothesis, share: AlphaShare) -> Hypothes
              "data.planned_n is shown)")]
     if oc["power"] is None:
         notes.append("no power: the design's assumed rates do not name every compared group")
+    if oc.get("looks") is not None:
+        notes[0:0] = _bayesian_look_notes(oc["looks"])
+        method += (", with its interim looks (a stop for success at a look counts as the rule "
+                   "met; futility is non-binding and does not lower the type I error)")
     if oc["exceeds_alpha"]:
         notes.insert(0, f"WARNING: the type I error {oc['type_one_error']:.4f} exceeds alpha "
                      f"{_fmt(plan.alpha)}")
     return HypothesisDesign(hyp.id, share.alpha, sides, method, None, None, oc["power"],
                             tuple(notes))
+
+
+def _bayesian_look_notes(looks: dict[str, Any]) -> list[str]:
+    """The planned looks of a Bayesian rule, and per look the probability of stopping for
+    success (and for futility, were the bound followed) where the type I error is largest and
+    at the assumed rates, with the expected analysed sizes."""
+    sizes = "; ".join(f"{g} {', '.join(map(str, n))}" for g, n in looks["sizes"].items())
+    rules = []
+    if looks["stop_for_success"] is not None:
+        rules.append(f"stop for success at posterior probability >= "
+                     f"{_fmt(looks['stop_for_success'])}")
+    if looks["stop_for_futility"] is not None:
+        rules.append(f"futility (non-binding) at predictive probability < "
+                     f"{_fmt(looks['stop_for_futility'])}")
+    notes = [f"interim looks at cumulative sizes {sizes}; {'; '.join(rules)}"]
+    for label, point in (("where the type I error is largest", looks["under_null"]),
+                         ("at the assumed rates", looks["under_assumed"])):
+        if point is None:
+            continue
+        rates = ", ".join(f"{g} {_fmt(r)}" for g, r in point["rates"].items())
+        per_look = ", ".join(f"look {k + 1} {p:.4f}"
+                             for k, p in enumerate(point["stop_for_success"]))
+        text = (f"{label} ({rates}): success {point['success']:.4f}; stopping for success "
+                f"{per_look}")
+        if looks["stop_for_futility"] is not None:
+            text += "; for futility if followed " + ", ".join(
+                f"look {k + 1} {p:.4f}" for k, p in enumerate(point["futility"]))
+        expected = ", ".join(f"{g} {n:.1f}" for g, n in point["expected_size"].items())
+        notes.append(text + f"; expected analysed size {expected}")
+    return notes
 
 
 def size_hypothesis(plan: Plan, hyp: Hypothesis, share: AlphaShare) -> HypothesisDesign:

@@ -27,7 +27,8 @@ def looks_design(plan: Plan, hyp: Hypothesis, alpha: float,
     from prespec.stats.sequential import design
 
     looks = hyp.looks
-    if looks is None or plan.design is None or alpha <= 0:
+    if looks is None or looks.efficacy is None or plan.design is None or alpha <= 0:
+        # (a Bayesian rule's looks are in its operating characteristics)
         return None
     fut = looks.futility
     got = design(looks.planned_fractions(), alpha=alpha, sides=sides(hyp),

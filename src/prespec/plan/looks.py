@@ -7,7 +7,13 @@ efficacy spending function and an optional non-binding futility boundary (docs/p
 and calls the boundary maths on the planned looks so that a plan the maths refuses is refused
 at ``check``.
 
-Which hypotheses may have looks: a confirmatory (primary or secondary) superiority comparison
+A Bayesian rule (``test: posterior-probability``) has looks of its own kind: no spending
+function, but ``stop_for_success`` (the posterior probability at which an interim look stops
+for success) and ``stop_for_futility`` (the predictive probability of meeting the rule at the
+final sizes below which futility may be considered, non-binding), at planned sizes per group
+that ``data.planned_n`` fixes: :func:`bayes_look_sizes` (docs/bayes.md, "Interim looks").
+
+Which frequentist hypotheses may have looks: a confirmatory (primary or secondary) superiority comparison
 of two groups whose test gives a signed z on the risk-difference scale: ``two-proportion-z``,
 or ``pearson-chi-square`` without continuity correction (the signed root of X² is that pooled
 z). Exact tests have no z; the corrected chi-square, the likelihood ratio and the stratified
@@ -22,6 +28,7 @@ graphical procedure of Maurer and Bretz (2013), and no gated follow-ups:
 from __future__ import annotations
 
 import itertools
+import math
 from collections.abc import Iterator
 from typing import TYPE_CHECKING, Annotated, Any, ClassVar, Literal
 
@@ -30,7 +37,7 @@ from pydantic_core import PydanticCustomError
 
 from prespec.plan.canonical_form import Canonical, CanonicalModel
 from prespec.plan.locate import Issue
-from prespec.plan.vocabulary import MAX_LOOKS
+from prespec.plan.vocabulary import BAYESIAN_TESTS, MAX_LOOKS
 from prespec.plan.yamlread import KeyPath, show
 
 if TYPE_CHECKING:
@@ -62,6 +69,7 @@ def _not_bool(value: Any) -> Any:
 
 Real = Annotated[float, BeforeValidator(_not_bool)]
 Fraction = Annotated[float, Field(gt=0, le=1), BeforeValidator(_not_bool)]
+Probability = Annotated[float, Field(gt=0, lt=1), BeforeValidator(_not_bool)]
 
 
 class _Model(CanonicalModel):
@@ -88,14 +96,23 @@ class Looks(_Model):
     sizes: list[Annotated[int, Field(gt=0)]] | None = Field(
         default=None, max_length=MAX_LOOKS, description="planned cumulative total sizes (both "
         "groups), increasing; instead of fractions")
-    efficacy: Literal[EFFICACY] = Field(  # type: ignore[valid-type]
-        description="the efficacy spending function or classical boundary")
+    efficacy: Literal[EFFICACY] | None = Field(  # type: ignore[valid-type]
+        default=None, description="the efficacy spending function or classical boundary "
+        "(a frequentist test; required there)")
     gamma: Real | None = Field(default=None, description="hwang-shih-decani only")
     futility: Futility | None = Field(default=None, description="an optional non-binding "
                                       "futility boundary")
+    stop_for_success: Probability | None = Field(
+        default=None, description="a Bayesian rule: stop for success at an interim look where "
+        "the posterior probability reaches this")
+    stop_for_futility: Probability | None = Field(
+        default=None, description="a Bayesian rule: futility may be considered at an interim "
+        "look where the predictive probability of meeting the rule at the final analysis falls "
+        "below this (non-binding)")
 
     CANONICAL: ClassVar[Canonical] = Canonical(
-        always=("fractions", "sizes", "efficacy", "gamma", "futility"))
+        always=("fractions", "sizes", "efficacy", "gamma", "futility"),
+        if_set=("stop_for_success", "stop_for_futility"))
 
     def planned_fractions(self) -> list[float]:
         """The planned information fractions (from ``sizes`` when those are given)."""
@@ -108,6 +125,15 @@ class Looks(_Model):
 def looks_words(looks: Looks) -> str:
     """The looks in one phrase, for ``prespec check``."""
     when = ", ".join(f"{t:.3g}" for t in looks.planned_fractions())
+    if looks.efficacy is None:  # a Bayesian rule
+        words = f"{len(looks.planned_fractions())} looks at information {when}"
+        if looks.stop_for_success is not None:
+            words += (f"; stop for success where the posterior probability reaches "
+                      f"{looks.stop_for_success:g}")
+        if looks.stop_for_futility is not None:
+            words += (f"; futility may be considered where the predictive probability of "
+                      f"success falls below {looks.stop_for_futility:g} (non-binding)")
+        return words
     words = f"{len(looks.planned_fractions())} looks at information {when}; {looks.efficacy}"
     if looks.gamma is not None:
         words += f" (gamma {looks.gamma:g})"
@@ -130,6 +156,19 @@ def planned_total(plan: Plan, hyp: Hypothesis) -> int | None:
     return None
 
 
+def bayes_look_sizes(plan: Plan, hyp: Hypothesis) -> list[list[int]] | None:
+    """Per compared group of a Bayesian rule with looks, its planned cumulative analysed size
+    at each look: the planned fraction times its data.planned_n, rounded half up, the last
+    look its data.planned_n; None without data.planned_n for every compared group."""
+    planned = plan.data.planned_n or {}
+    groups = list(hyp.compare) if isinstance(hyp.compare, list) else []
+    if hyp.looks is None or not groups or not all(g in planned for g in groups):
+        return None
+    fractions = hyp.looks.planned_fractions()
+    return [[math.floor(f * planned[g] + 0.5) for f in fractions[:-1]] + [int(planned[g])]
+            for g in groups]
+
+
 def sides(hyp: Hypothesis) -> int:
     """2 for a two-sided alternative (alpha / 2 per side), else 1."""
     return 2 if hyp.alternative == "two-sided" else 1
@@ -148,6 +187,18 @@ def looks_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
     if hyp.role == "exploratory":
         yield Issue(where, f"{show(hyp.id)} is exploratory; interim looks with stopping "
                     "boundaries apply to primary or secondary hypotheses", at_key=True)
+        return
+    if hyp.test in BAYESIAN_TESTS:
+        yield from _bayesian_looks_issues(plan, hyp, where)
+        return
+    for key in ("stop_for_success", "stop_for_futility"):
+        if getattr(looks, key) is not None:
+            yield Issue((*where, key), "is used only with test: posterior-probability (a "
+                        "Bayesian rule); a frequentist test stops by its efficacy and futility "
+                        "boundaries", at_key=True)
+    if looks.efficacy is None:
+        yield Issue(where, "needs efficacy: the efficacy spending function or classical "
+                    f"boundary ({', '.join(EFFICACY)})", at_key=True)
         return
     if hyp.kind != "pair":
         yield Issue(where, "interim looks apply to compare [a, b] (a signed z on the risk "
@@ -183,6 +234,42 @@ def looks_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
             yield Issue(fut, "a futility boundary spends beta = 1 − power and needs the "
                         "power it is planned at: give design: {assumed: ..., power: ...}",
                         at_key=True)
+
+
+def _bayesian_looks_issues(plan: Plan, hyp: Hypothesis, where: KeyPath) -> Iterator[Issue]:
+    """The looks of a Bayesian rule: stopped by the posterior probability (success) and the
+    predictive probability of success at the final sizes (futility, non-binding), at planned
+    sizes per group that data.planned_n fixes (docs/bayes.md, "Interim looks")."""
+    looks = hyp.looks
+    for key in ("efficacy", "gamma", "futility"):
+        if getattr(looks, key) is not None:
+            yield Issue((*where, key), "a Bayesian rule stops by stop_for_success (posterior "
+                        "probability) and stop_for_futility (predictive probability), not by a "
+                        "spending function; leave it out", at_key=True)
+    if looks.stop_for_success is None and looks.stop_for_futility is None:
+        yield Issue(where, "give stop_for_success (the posterior probability at which an "
+                    "interim look stops for success, e.g. 0.995), stop_for_futility (the "
+                    "predictive probability of final success below which futility may be "
+                    "considered, e.g. 0.05), or both", at_key=True)
+    found = list(_schedule_issues(plan, hyp, where))
+    yield from found
+    if found:
+        return
+    groups = list(hyp.compare)
+    planned = plan.data.planned_n or {}
+    missing = [g for g in groups if g not in planned]
+    if missing:
+        key = "fractions" if looks.fractions is not None else "sizes"
+        yield Issue((*where, key), "the predictive probability is of success at the final "
+                    f"sizes: give data.planned_n for {' and '.join(missing)}")
+        return
+    for group, sizes in zip(groups, bayes_look_sizes(plan, hyp) or [], strict=True):
+        if sizes[0] < 1 or not _increasing([float(n) for n in sizes]):
+            yield Issue(where, f"the planned sizes of {show(group)} at the looks "
+                        f"({', '.join(map(str, sizes))}: the fractions times its planned_n "
+                        f"{planned[group]}) must start at 1 or more and increase from look to "
+                        "look", at_key=True)
+            return
 
 
 def _schedule_issues(plan: Plan, hyp: Hypothesis, where: KeyPath) -> Iterator[Issue]:
@@ -262,9 +349,10 @@ def plan_looks_issues(plan: Plan) -> Iterator[Issue]:
             )
     family = [h for h in plan.hypotheses if not h.outside_multiplicity]
     method = plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"
-    if method == "none" or len(family) < 2:
+    in_family = [(i, h) for i, h in with_looks if not h.outside_multiplicity]
+    if method == "none" or len(family) < 2 or not in_family:
         return
-    i, h = with_looks[0]
+    i, h = in_family[0]
     if method not in GRAPH_METHODS:
         yield Issue(
             ("hypotheses", i, "looks"),
@@ -304,7 +392,7 @@ def boundary_issues(plan: Plan) -> Iterator[Issue]:
 
     for i, hyp in enumerate(plan.hypotheses):
         looks = hyp.looks
-        if looks is None:
+        if looks is None or looks.efficacy is None:  # none, or a Bayesian rule's
             continue
         try:
             boundaries(looks.planned_fractions(), alpha=float(plan.alpha), sides=sides(hyp),

@@ -585,8 +585,6 @@ def _bayesian_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Iss
                     f"{v.MIN_BETA_PARAMETER:g} (Beta parameters below it cannot be compared in "
                     "double precision)", at_key=True)
     for key, why in (("sparse", "a Bayesian rule has no sparse switch"),
-                     ("looks", ("interim looks of a Bayesian rule (predictive probability) are "
-                               "not available in this version of prespec")),
                      ("sensitivity", ("the prior-sensitivity table is shown instead; analyses "
                                      "of missing outcomes are not available for a Bayesian "
                                      "rule in this version of prespec"))):

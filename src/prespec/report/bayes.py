@@ -169,6 +169,7 @@ class Operating:
     power: float | None
     assumed: tuple[tuple[str, float | None], ...]
     curve: tuple[tuple[float | None, float | None, float | None], ...]  # rate_a, rate_b, prob
+    looks: tuple[tuple[str, str], ...] = ()  # a rule with interim looks: its rows, in words
 
 
 @dataclass(frozen=True)
@@ -273,6 +274,8 @@ def _read_operating(raw: object, at: str) -> Operating:
                       number(point.get("rate_b"), f"{p_at}.rate_b"),
                       number(point.get("probability"), f"{p_at}.probability")))
     return Operating(
+        looks=() if oc.get("looks") is None else _read_look_design(oc["looks"],
+                                                                   f"{at}.looks"),
         sizes=sizes,
         alpha=number(oc.get("alpha"), f"{at}.alpha"),
         type_one_error=number(oc.get("type_one_error"), f"{at}.type_one_error"),
@@ -282,6 +285,42 @@ def _read_operating(raw: object, at: str) -> Operating:
         assumed=assumed,
         curve=tuple(curve),
     )
+
+
+def _per_look(values: object, at: str) -> str:
+    return ", ".join(f"look {k + 1} {fmt_probability(v)}"
+                     for k, v in enumerate(_numbers(values, at))) or NULL
+
+
+def _read_look_design(raw: object, at: str) -> tuple[tuple[str, str], ...]:
+    """The planned looks of a rule and their stopping probabilities, as rows in words."""
+    lk = mapping(raw, at)
+    sizes = "; ".join(f"{g} {', '.join(fmt_count(n) for n in _numbers(v, f'{at}.sizes.{g}'))}"
+                      for g, v in mapping(lk.get("sizes") or {}, f"{at}.sizes").items())
+    success = number(lk.get("stop_for_success"), f"{at}.stop_for_success")
+    futility = number(lk.get("stop_for_futility"), f"{at}.stop_for_futility")
+    rules = []
+    if success is not None:
+        rules.append(f"stop for success at posterior probability ≥ {fmt_rate(success)}")
+    if futility is not None:
+        rules.append(f"futility (non-binding) at predictive probability < {fmt_rate(futility)}")
+    rows = [("Interim looks (cumulative sizes)", sizes or NULL),
+            ("Stopping rules", "; ".join(rules) or NULL)]
+    for key, label in (("under_null", "where the type I error is largest"),
+                       ("under_assumed", "at the assumed rates")):
+        if lk.get(key) is None:
+            continue
+        point = mapping(lk[key], f"{at}.{key}")
+        here = f"{at}.{key}"
+        rows.append((f"Stopping for success, {label}",
+                     _per_look(point.get("stop_for_success"), f"{here}.stop_for_success")))
+        if futility is not None:
+            rows.append((f"Stopping for futility if followed, {label}",
+                         _per_look(point.get("futility"), f"{here}.futility")))
+        expected = ", ".join(f"{g} {number(n, f'{here}.expected_size.{g}'):.1f}" for g, n in
+                             mapping(point.get("expected_size") or {}, here).items())
+        rows.append((f"Expected analysed size, {label}", expected or NULL))
+    return tuple(rows)
 
 
 def read_bayes(hyp: Mapping[str, Any], where: str) -> Bayes | None:
@@ -379,9 +418,16 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
     if b is not None:
         rows.append(("Rule's event", event_words(b)))
     rows.append(("Posterior probability", fmt_probability(probability, threshold)))
-    rows.append(("Threshold", NULL if threshold is None else fmt_rate(threshold)))
+    looks = hyp.get("looks")
+    interim = isinstance(looks, Mapping) and looks.get("look") != looks.get("of")
+    rows.append(("Interim success threshold (stop_for_success)" if interim else "Threshold",
+                 NULL if threshold is None else fmt_rate(threshold)))
     label = "Rule (exploratory)" if hyp.get("role") == "exploratory" else "Decision"
-    rows.append((label, decision_words(hyp, where)))
+    decision = decision_words(hyp, where)
+    if interim:
+        decision = {RULE_MET: "stop for success (the rule met at this look)",
+                    RULE_NOT_MET: "no stop for success at this look"}.get(decision, decision)
+    rows.append((label, decision))
     return rows
 
 
@@ -501,6 +547,12 @@ def operating_block(b: Bayes) -> str:
     words = (f"The probability that the rule is met, computed exactly over every outcome at "
              f"the planned sizes: its largest value along {_boundary_words(b)} is the type I "
              "error; its value at the design's assumed rates is the power.")
+    if oc.looks:
+        rows += list(oc.looks)
+        words += (" With the interim looks: a stop for success at a look counts as the rule "
+                  "met; the futility threshold is non-binding, so it does not lower the type I "
+                  "error (stopping for futility is shown as if followed); the expected sizes "
+                  "count stopping for success only.")
     parts = [f"<h4>Operating characteristics of the rule</h4><p>{esc(words)}</p>",
              fields(rows)]
     if oc.exceeds_alpha:
@@ -715,7 +767,9 @@ class OperatingJob:
         ax.set_axisbelow(True)
         ax.legend(loc="best", frameon=False, fontsize=9, labelcolor=LINE)
         sizes = ", ".join(f"{shorten(g, 24)} {fmt_count(n)}" for g, n in oc.sizes)
-        fig.supxlabel(f"Exact, at the planned sizes ({sizes or NULL}).", x=0.01, ha="left",
+        looked = ", with the interim looks" if oc.looks else ""
+        fig.supxlabel(f"Exact, at the planned sizes ({sizes or NULL}){looked}.", x=0.01,
+                      ha="left",
                       fontsize=8, color=LINE)
         return fig
 

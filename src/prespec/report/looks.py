@@ -63,6 +63,8 @@ def decision_words(code: str) -> str:
 def look_line(hyp: Mapping[str, Any]) -> str:
     """One line for the terminal: ``look 2 of 3: z = 1.234, boundary 2.963: continue``."""
     lk = mapping(hyp["looks"], "looks")
+    if lk.get("rule") == "bayesian":
+        return _bayes_look_line(lk)
     z = number(lk.get("z"), "looks.z")
     bound = number(lk.get("boundary"), "looks.boundary")
     shown = "z not defined" if z is None else f"z = {z:.3f}"
@@ -86,6 +88,109 @@ def look_line(hyp: Mapping[str, Any]) -> str:
                  f"estimate {fmt_estimate(number(adj.get('estimate'), 'adjusted.estimate'))} "
                  f"{fmt_interval(*[number(c, 'adjusted.ci') for c in adj.get('ci') or []])}")
     return line
+
+
+BAYES_DECISION_WORDS: dict[str, str] = {
+    "continue": "continue: neither threshold reached",
+    "stop-for-success": "stop for success: the posterior probability reaches the interim "
+                        "success threshold (the rule met at this look)",
+    "futility-may-be-considered": "futility may be considered: the predictive probability of "
+                                  "success at the final analysis is below the non-binding "
+                                  "futility threshold",
+    "rule-met-at-final": "final analysis: the posterior probability reaches the threshold (the "
+                         "rule met)",
+    "rule-not-met-at-final": "final analysis: the posterior probability does not reach the "
+                             "threshold (the rule not met)",
+}
+
+
+def _bayes_look_line(lk: Mapping[str, Any]) -> str:
+    """``look 1 of 2 (sizes a 90, b 90): posterior probability 0.9812 (stop for success at
+    0.995), predictive probability 0.8310 (futility below 0.05): continue``."""
+    sizes = ", ".join(f"{g} {n}" for g, n in mapping(lk.get("sizes"), "looks.sizes").items())
+    line = (f"look {lk.get('look')} of {lk.get('of')} ({sizes}): posterior probability "
+            f"{number(lk.get('posterior_probability'), 'looks.posterior_probability'):.4f}")
+    final = lk.get("look") == lk.get("of")
+    success = number(lk.get("threshold" if final else "stop_for_success"), "looks")
+    if success is not None:
+        line += f" ({'threshold' if final else 'stop for success at'} {success:g})"
+    predictive = number(lk.get("predictive_probability"), "looks.predictive_probability")
+    if predictive is not None:
+        line += f", predictive probability of final success {predictive:.4f}"
+        futility = number(lk.get("stop_for_futility"), "looks.stop_for_futility")
+        if futility is not None:
+            line += f" (futility below {futility:g}, non-binding)"
+    code = text(lk.get("decision"), "looks.decision")
+    return f"{line}: {BAYES_DECISION_WORDS.get(code, code)}"
+
+
+def _bayes_looks_block(hyp: Mapping[str, Any], lk: Mapping[str, Any], at: str,
+                       hid: str) -> tuple[str, list[Figure]]:
+    """The looks section of a Bayesian rule: the look's probabilities against its thresholds,
+    and the table of every look so far."""
+    sizes = mapping(lk.get("sizes"), f"{at}.sizes")
+    planned = mapping(lk.get("planned_sizes"), f"{at}.planned_sizes")
+    look = int(lk["look"])
+    final = look == lk.get("of")
+    rules = []
+    success = number(lk.get("stop_for_success"), f"{at}.stop_for_success")
+    futility = number(lk.get("stop_for_futility"), f"{at}.stop_for_futility")
+    if success is not None:
+        rules.append(f"stop for success where the posterior probability reaches {success:g}")
+    if futility is not None:
+        rules.append(f"futility may be considered where the predictive probability of final "
+                     f"success falls below {futility:g} (non-binding)")
+    threshold = number(lk.get("threshold"), f"{at}.threshold")
+    rules.append(f"at the final analysis the rule: posterior probability at least "
+                 f"{threshold:g}")
+    rows = [
+        ("Look", f"{look} of {lk.get('of')}"),
+        ("Stopping rules", "; ".join(rules)),
+        ("Analysed (planned at this look)", ", ".join(
+            f"{esc(g)} {n} ({items(planned.get(g), at)[look - 1]})" for g, n in sizes.items())),
+        ("Posterior probability", f"{number(lk.get('posterior_probability'), at):.4f}"),
+    ]
+    predictive = number(lk.get("predictive_probability"), f"{at}.predictive_probability")
+    if not final:
+        rows.append(("Predictive probability of success at the final analysis",
+                     NULL if predictive is None else f"{predictive:.4f}"))
+    code = text(lk.get("decision"), f"{at}.decision")
+    rows.append(("Decision", BAYES_DECISION_WORDS.get(code, code)))
+    head = ["Look", "Analysed", "Information fraction", "Posterior mean difference"
+            if hyp.get("kind") != "single" else "Posterior mean",
+            "Posterior probability", "Predictive probability", "Stopped for success"]
+    past = [mapping(h, f"{at}.history") for h in items(lk.get("history"), f"{at}.history")]
+    now = {"look": look, "analysed": lk.get("analysed"),
+           "fraction": lk.get("observed_fraction"), "estimate": lk.get("estimate"),
+           "posterior_probability": lk.get("posterior_probability"),
+           "predictive_probability": predictive, "crossed": lk.get("crossed")}
+    body = []
+    for h in [*past, now]:
+        fraction = number(h.get("fraction"), at)
+        pred = number(h.get("predictive_probability"), at)
+        body.append([
+            str(h.get("look")), str(h.get("analysed")),
+            NULL if fraction is None else f"{fraction:.4f}",
+            fmt_estimate(number(h.get("estimate"), at)),
+            f"{number(h.get('posterior_probability'), at):.4f}",
+            NULL if pred is None else f"{pred:.4f}",
+            NULL if int(h["look"]) == lk.get("of") else ("yes" if h.get("crossed") else "no"),
+        ])
+    parts = [
+        f'<div class="prespec-looks" style="{LOOKS_STYLE}">',
+        f"<h4>Interim looks of {esc(hid)} (a Bayesian rule)</h4>",
+        fields(rows),
+        table(head, body, numeric=range(1, 6), cls="prespec-boundaries",
+              caption="Every look so far: the posterior probability of the rule's event and "
+              "the predictive probability of meeting the rule at the final sizes"),
+        ("<p><em>The interim thresholds and the final threshold are held exactly as the "
+         "design's operating characteristics count them; the futility threshold is "
+         "non-binding: continuing past it does not raise the type I error.</em></p>"),
+        "</div>",
+    ]
+    alt = (f"Posterior probability and predictive probability of success of {hid} at each "
+           "look, with the stopping thresholds")
+    return "".join(parts), [(looks_name(hid), alt)]
 
 
 def _edge(side: str, value: float | None) -> str:
@@ -113,6 +218,8 @@ def looks_block(hyp: Mapping[str, Any], where: str) -> tuple[str, list[Figure]]:
     at = f"{where}.looks"
     lk = mapping(raw, at)
     hid = text(hyp.get("id"), f"{where}.id")
+    if lk.get("rule") == "bayesian":
+        return _bayes_looks_block(hyp, lk, at, hid)
     two = lk.get("sides") == 2
     side = "±" if two else ""
     rows = [
@@ -260,6 +367,9 @@ def looks_jobs(results: Mapping[str, Any]) -> list[tuple[str, LooksJob]]:
         hid = text(hyp.get("id"), f"hypotheses[{n}].id")
         at = f"hypotheses.{hid}.looks"
         lk = mapping(hyp["looks"], at)
+        if lk.get("rule") == "bayesian":
+            out.append((looks_name(hid), _bayes_job(hid, lk, at)))
+            continue
         rows = [
             mapping(b, f"{at}.boundaries")
             for b in items(lk.get("boundaries"), at)
@@ -289,3 +399,62 @@ def looks_jobs(results: Mapping[str, Any]) -> list[tuple[str, LooksJob]]:
             )
         )
     return out
+
+
+@dataclass(frozen=True)
+class BayesLooksJob:
+    """The figure of a Bayesian rule's looks: the posterior and the predictive probability at
+    each look so far against the information fraction, with the thresholds."""
+
+    hid: str
+    posterior: Sequence[tuple[float, float]]
+    predictive: Sequence[tuple[float, float]]
+    success: float | None
+    futility: float | None
+    threshold: float
+
+    def draw(self) -> MplFigure:
+        fig = new_figure(4.2)
+        ax = fig.add_subplot()
+        ax.plot([x for x, _ in self.posterior], [p for _, p in self.posterior], marker="D",
+                color=_OBSERVED, label="posterior probability")
+        if self.predictive:
+            ax.plot([x for x, _ in self.predictive], [p for _, p in self.predictive],
+                    marker="s", linestyle="--", color=_FUTILITY,
+                    label="predictive probability of final success")
+        if self.success is not None:
+            ax.axhline(self.success, color=_EFFICACY, linewidth=1.0, linestyle=":",
+                       label=f"stop for success ({self.success:g})")
+        ax.axhline(self.threshold, color=_EFFICACY, linewidth=1.0,
+                   label=f"final threshold ({self.threshold:g})")
+        if self.futility is not None:
+            ax.axhline(self.futility, color=_FUTILITY, linewidth=1.0, linestyle=":",
+                       label=f"futility, non-binding ({self.futility:g})")
+        ax.set_xlim(0.0, 1.05)
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_xlabel("information fraction")
+        ax.set_ylabel("probability")
+        ax.set_title(f"Posterior and predictive probabilities: {self.hid}", color=INK,
+                     loc="left")
+        ax.legend(loc="best", frameon=False, labelcolor=LINE, fontsize="small")
+        return fig
+
+
+def _bayes_job(hid: str, lk: Mapping[str, Any], at: str) -> BayesLooksJob:
+    rows = [mapping(h, f"{at}.history") for h in items(lk.get("history"), f"{at}.history")]
+    rows.append({"fraction": lk.get("observed_fraction"),
+                 "posterior_probability": lk.get("posterior_probability"),
+                 "predictive_probability": lk.get("predictive_probability")})
+    posterior, predictive = [], []
+    for h in rows:
+        x = number(h.get("fraction"), at)
+        if x is None:
+            continue
+        posterior.append((x, float(number(h.get("posterior_probability"), at))))
+        pred = number(h.get("predictive_probability"), at)
+        if pred is not None:
+            predictive.append((x, pred))
+    return BayesLooksJob(hid, posterior, predictive,
+                         number(lk.get("stop_for_success"), at),
+                         number(lk.get("stop_for_futility"), at),
+                         float(number(lk.get("threshold"), at)))
