@@ -67,7 +67,7 @@ def quick_render(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def pr_greater(a1: float, b1: float, a2: float, b2: float) -> float:
     """Pr(p1 > p2) for p1 ~ Beta(a1, b1), p2 ~ Beta(a2, b2), by scipy quad."""
     return integrate.quad(lambda x: stats.beta.pdf(x, a1, b1) * stats.beta.cdf(x, a2, b2),
