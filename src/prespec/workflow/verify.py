@@ -359,8 +359,14 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
     result.passed.append(f"reports: {len(found)} folder(s) match their manifests and log entries")
     looked = [e for e in entries if isinstance(e["details"], dict) and "look" in e["details"]]
     if looked:
+        recorded = [h for e in looked for h in e["details"].get("hypotheses") or []
+                    if isinstance(h, dict)]
+        what = ", ".join(name for name, shown in (
+            ("z statistics", any("posterior_probability" not in h for h in recorded)),
+            ("posterior and predictive probabilities",
+             any("posterior_probability" in h for h in recorded))) if shown) or "statistics"
         result.passed.append(f"interim looks: {len(looked)} look(s) in the log, each report's "
-                             "look, observed fractions, z statistics and history match the log")
+                             f"look, observed fractions, {what} and history match the log")
     return found, inside
 
 
