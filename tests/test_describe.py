@@ -7,8 +7,10 @@ finds each value that changes the analysis in the document, as the plan writes i
 
 from __future__ import annotations
 
+import os
 import re
 import shutil
+import stat
 from pathlib import Path
 from typing import Any
 
@@ -373,7 +375,7 @@ def test_verify_names_a_document_of_another_format(tmp_path: Path) -> None:
     html.write_text(html.read_text("utf-8").replace("plan document format 1",
                                                     "plan document format 7"), "utf-8")
     with pytest.raises(IntegrityStop, match="written in plan document format 7; this prespec "
-                       "writes format 1 and cannot regenerate it to compare"):
+                       "writes format 1 and cannot write it again to compare"):
         api.verify(plan, document=html)
 
 
@@ -418,3 +420,35 @@ def test_verify_document_of_a_plan_never_locked(tmp_path: Path) -> None:
     audit.log_path(other / "methods-tour.yaml").write_text("")  # a log, but no lock
     with pytest.raises(IntegrityStop, match="the plan was never locked"):
         api.verify(other / "methods-tour.yaml", document=html)
+
+
+# --- documents written earlier keep verifying ------------------------------------------------
+
+GOLDEN = ROOT / "tests" / "fixtures" / "documents" / "methods-tour"
+
+
+def test_a_document_written_by_an_earlier_prespec_still_verifies(tmp_path: Path) -> None:
+    """tests/fixtures/documents/methods-tour: the tour locked and described when describe
+    came (plan document format 1). Any change of wording, here or in the sentences and
+    numbers other rooms lend the document, fails this test: a format's words never change
+    (docs/plan-document.md). Never regenerate the fixture."""
+    study = tmp_path / "study"
+    shutil.copytree(GOLDEN, study)
+    plan = study / "methods-tour.yaml"
+    res = api.verify(plan, document=study / "methods-tour.plan-v1.html")
+    assert res.passed[-1].startswith("document: methods-tour.plan-v1.html (HTML) carries the "
+                                     "fingerprint of lock version 1")
+    again = api.describe(plan, out=tmp_path / "again.html").html
+    assert words.html_text(again.read_text("utf-8")) == words.html_text(
+        (GOLDEN / "methods-tour.plan-v1.html").read_text("utf-8"))
+
+
+def test_the_document_is_readable_by_whoever_reads_the_study(tmp_path: Path) -> None:
+    plan = locked_copy(tmp_path)
+    old = os.umask(0o022)
+    try:
+        html = api.describe(plan).html
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(html.stat().st_mode) == 0o644
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []

@@ -10,9 +10,12 @@ plan writes it (``cochran-mantel-haenszel``), so a reader can put the words besi
 
 The document is a function of the lock version and its log entry alone (no generation time,
 no prespec version in the text): regenerated later it gives the same words, which is what
-``verify --document`` compares. Changing a sentence here changes the words of every document:
-``FORMAT`` names the wording, and a change of wording must raise it (``verify --document``
-then says that the document was written in another format instead of calling it altered).
+``verify --document`` compares. So the words of format 1 must never change: a document
+registered today must verify under every later prespec. A new wording is a new ``FORMAT``,
+written beside the old one, which stays in :data:`FORMATS` for verification. The words also
+use a few sentences and numbers of other rooms (the caution, the alpha rule and the sizes of
+``design``, the sequential boundaries); a change there changes format 1 as well, and
+tests/test_describe.py holds a golden document of the tour to catch it.
 """
 
 from __future__ import annotations
@@ -31,8 +34,9 @@ from prespec.plan.followups import follow_ups
 from prespec.plan.summary import number
 from prespec.report.markup import esc
 
-#: The wording of the document; raise it when any sentence below changes.
+#: The wording ``describe`` writes, and every wording verify can write again to compare.
 FORMAT = 1
+FORMATS = frozenset({1})
 FORMAT_LINE = "plan document format {}"
 
 #: Shown on the first page when a version carries no RFC 3161 token.

@@ -9,7 +9,7 @@ the version a document names and compares them with the document's text.
 from __future__ import annotations
 
 import os
-import tempfile
+import secrets
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -19,7 +19,7 @@ from prespec.errors import BadInput, IntegrityStop, PrespecError
 from prespec.plan import load_plan
 from prespec.report.describe import (
     FINGERPRINT,
-    FORMAT,
+    FORMATS,
     LockedVersion,
     format_of,
     html_text,
@@ -101,14 +101,22 @@ def _choose(plan: Path, doc: dict[str, Any], version: int | None) -> int:
 
 
 def _write(path: Path, data: bytes) -> None:
-    """Write ``path`` whole or not at all (a temporary file beside it, renamed over it)."""
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".partial")
+    """Write ``path`` whole or not at all: a temporary file beside it (mode 0666 less the
+    umask, as every file prespec writes, so that whoever may read the study reads it), renamed
+    over it."""
+    while True:
+        tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}.partial")
+        try:
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+            break
+        except FileExistsError:
+            continue
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
         os.replace(tmp, path)
     except BaseException:
-        Path(tmp).unlink(missing_ok=True)
+        tmp.unlink(missing_ok=True)
         raise
 
 
@@ -215,10 +223,11 @@ def check_document(plan: Path, doc: dict[str, Any] | None, entries: list[dict[st
                                f"version of {audit.lock_path(plan).name}")
     number = int(held[0]["version"])
     fmt = format_of(text if not is_pdf else _squeezed(text))
-    if fmt != FORMAT:
+    if fmt not in FORMATS:
+        known = ", ".join(map(str, sorted(FORMATS)))
         raise DocumentMismatch(
             f"document {name}: written in plan document format {fmt}; this prespec writes "
-            f"format {FORMAT} and cannot regenerate it to compare" if fmt is not None else
+            f"format {known} and cannot write it again to compare" if fmt is not None else
             f"document {name}: names no plan document format")
     locked = locked_version(plan, doc or {}, entries, number)
     try:
