@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from services import unavailable
 
 from prespec import api, audit, cli
 from prespec.errors import BadInput, IntegrityStop
@@ -452,3 +453,77 @@ def test_the_document_is_readable_by_whoever_reads_the_study(tmp_path: Path) -> 
         os.umask(old)
     assert stat.S_IMODE(html.stat().st_mode) == 0o644
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
+
+
+# --- the printed document (headless Chromium, installed by .ci/run) ---------------------------
+
+@pytest.fixture
+def chromium() -> None:
+    """Skip without Chromium, or fail under PRESPEC_REQUIRE_SERVICES (CI installs it)."""
+    from prespec.report.paper import find_chromium
+
+    if find_chromium() is None:
+        unavailable("no Chromium to print the plan document with")
+
+
+@pytest.mark.usefixtures("chromium")
+def test_pdf_is_printed_beside_the_html_and_verifies(tmp_path: Path) -> None:
+    from pypdf import PdfReader
+
+    plan = locked_copy(tmp_path)
+    made = api.describe(plan, pdf=True)
+    assert made.pdf == tmp_path / "methods-tour.plan-v1.pdf"
+    assert made.pdf.read_bytes().startswith(b"%PDF-")
+    pages = PdfReader(made.pdf).pages
+    first = pages[0].extract_text()
+    assert made.fingerprint in first and words.NO_TIMESTAMP in first
+    assert "Population and data" not in first  # the first page holds the first page only
+    footer = f"methods-tour.yaml, lock version 1, {made.fingerprint}"
+    assert all(footer in p.extract_text() for p in pages)
+    assert api.verify(plan, document=made.pdf).passed[-1] == (
+        "document: methods-tour.plan-v1.pdf (PDF) carries the fingerprint of lock version 1, and "
+        "its words are those prespec writes from that version")
+
+
+@pytest.mark.usefixtures("chromium")
+def test_a_pdf_of_changed_words_fails(tmp_path: Path) -> None:
+    from prespec.report.paper import print_pdf
+
+    plan = locked_copy(tmp_path)
+    made = api.describe(plan)
+    page = made.html.read_text("utf-8").replace("step-down procedure", "step-up procedure")
+    assert page != made.html.read_text("utf-8")
+    changed = tmp_path / "changed.html"
+    changed.write_text(page, "utf-8")
+    pdf = tmp_path / "changed.pdf"
+    locked = step.locked_version(plan, audit.read_lock(audit.lock_path(plan)),
+                                 audit.read_log(audit.log_path(plan)), 1)
+    print_pdf(changed, pdf, footer=step.footer(locked))
+    with pytest.raises(IntegrityStop) as caught:
+        api.verify(plan, document=pdf)
+    assert str(caught.value).startswith("document changed.pdf: its words differ from those of "
+                                        "lock version 1: the document has ")
+    assert "step-up" in str(caught.value) and "step-down" in str(caught.value)
+
+
+def test_no_chromium_writes_nothing(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                    capsys: pytest.CaptureFixture[str]) -> None:
+    plan = locked_copy(tmp_path)
+    before = folder_files(tmp_path)
+    monkeypatch.setenv("PRESPEC_CHROMIUM", str(tmp_path / "no-such-browser"))
+    assert cli.main(["describe", str(plan), "--pdf"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("prespec: no Chromium found") and err.count("\n") == 1
+    assert folder_files(tmp_path) == before  # neither the HTML nor the PDF
+
+
+def test_a_file_that_is_neither_html_nor_pdf_fails(tmp_path: Path) -> None:
+    plan = locked_copy(tmp_path)
+    junk = tmp_path / "junk.bin"
+    junk.write_bytes(b"\xff\xfe\x00binary")
+    with pytest.raises(IntegrityStop, match="document junk.bin: neither a PDF nor UTF-8 HTML"):
+        api.verify(plan, document=junk)
+    broken = tmp_path / "broken.pdf"
+    broken.write_bytes(b"%PDF-1.4\nnot really a pdf")
+    with pytest.raises(IntegrityStop, match="document broken.pdf: "):
+        api.verify(plan, document=broken)

@@ -113,6 +113,8 @@ def _parser() -> argparse.ArgumentParser:
                    "file must match in meaning)")
     c.add_argument("--out", metavar="FILE",
                    help="the HTML file to write (default: STEM.plan-vN.html beside the plan)")
+    c.add_argument("--pdf", action="store_true",
+                   help="also print it to a PDF beside the HTML (headless Chromium)")
     c = add("demo", "write, lock and run an invented demonstration study", writes=True)
     c.add_argument("dir", nargs="?", default="prespec-demo")
     return p
@@ -370,8 +372,9 @@ def _dispatch(args: argparse.Namespace) -> int:
             print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         print(json_text(doc, indent=2) if args.json else design_text(doc))
     elif args.command == "describe":
-        made = api.describe(args.plan, version=args.lock_version, out=args.out)
-        print(f"wrote the plan document of lock version {made.version}: {made.html}")
+        made = api.describe(args.plan, version=args.lock_version, out=args.out, pdf=args.pdf)
+        print(f"wrote the plan document of lock version {made.version}: {made.html}"
+              + (f" and {made.pdf}" if made.pdf else ""))
         print(f"fingerprint: {made.fingerprint}")
         print(f"locked at {made.locked_at} (the locking machine's clock); "
               + (f"time-stamped {made.timestamp}" if made.timestamp else

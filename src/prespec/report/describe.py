@@ -637,7 +637,7 @@ def _boundaries(plan: Plan, hyp: Hypothesis, share: float) -> str:
     body = "".join("<tr>" + "".join(f'<td class="num">{esc(c)}</td>' for c in r) + "</tr>"
                    for r in rows)
     return (f"at alpha {esc(f'{share:.6g}')} (its planned share), z in the direction of "
-            f'benefit:<table class="grid"><thead><tr>{head}</tr></thead><tbody>{body}'
+            f'benefit:<table class="grid"><tbody><tr class="head">{head}</tr>{body}'
             "</tbody></table>The run recomputes them at the observed information.")
 
 
@@ -762,9 +762,9 @@ def methods_used(plan: Plan) -> list[str]:
 def _references(plan: Plan) -> str:
     rows = "".join(f"<tr><td>{code(n)}</td><td>{esc(METHODS[n][0])}</td>"
                    f"<td>{esc(METHODS[n][1])}</td></tr>" for n in methods_used(plan))
-    return ("<h2>Methods and references</h2><table class=\"grid refs\"><thead><tr><th>plan name"
-            "</th><th>method</th><th>reference</th></tr></thead>"
-            f"<tbody>{rows}</tbody></table>")
+    return ('<h2>Methods and references</h2><table class="grid refs"><tbody><tr class="head">'
+            "<th>plan name</th><th>method</th><th>reference</th></tr>"
+            f"{rows}</tbody></table>")
 
 
 def _first_page(plan: Plan, locked: LockedVersion) -> str:
@@ -802,7 +802,7 @@ table { border-collapse: collapse; margin: 0.4em 0 0.8em; width: 100%; }
 th, td { border: 1px solid #c8c8c8; padding: 0.25em 0.55em; text-align: left;
          vertical-align: top; }
 table.fields th { width: 13em; background: #f5f5f5; font-weight: 600; }
-table.grid thead th { background: #ececec; }
+table.grid tr.head th { background: #ececec; }
 table.refs td:first-child { white-space: nowrap; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; }
 .sub { color: #444; margin-top: 0; }

@@ -9,7 +9,9 @@ the version a document names and compares them with the document's text.
 from __future__ import annotations
 
 import os
+import re
 import secrets
+import unicodedata
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -100,12 +102,11 @@ def _choose(plan: Path, doc: dict[str, Any], version: int | None) -> int:
     return len(versions)
 
 
-def _write(path: Path, data: bytes) -> None:
-    """Write ``path`` whole or not at all: a temporary file beside it (mode 0666 less the
-    umask, as every file prespec writes, so that whoever may read the study reads it), renamed
-    over it."""
+def _partial(path: Path, data: bytes) -> Path:
+    """``data`` in a temporary file beside ``path`` (mode 0666 less the umask, as every file
+    prespec writes, so that whoever may read the study reads it), to be renamed over it."""
     while True:
-        tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}.partial")
+        tmp = path.with_name(f".{path.stem}.{secrets.token_hex(4)}.partial{path.suffix}")
         try:
             fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
             break
@@ -114,10 +115,10 @@ def _write(path: Path, data: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
-        os.replace(tmp, path)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+    return tmp
 
 
 def default_path(plan: Path, version: int) -> Path:
@@ -146,19 +147,19 @@ def describe(plan: str | Path, *, version: int | None = None, out: str | Path | 
         raise BadInput(f"--out {target}: the document is HTML; name a .html file")
     if not target.parent.is_dir():
         raise BadInput(f"--out {target}: no such folder {target.parent}")
-    page = plan_document(locked).encode("utf-8")
-    printed = None
-    if pdf:
-        printed = target.with_suffix(".pdf")
-        _print_pdf(page, printed, footer(locked))
-    _write(target, page)
+    printed = target.with_suffix(".pdf") if pdf else None
+    tmp = _partial(target, plan_document(locked).encode("utf-8"))
+    try:
+        if printed is not None:  # printed from the page itself, before either is in place
+            from prespec.report.paper import print_pdf
+
+            print_pdf(tmp, printed, footer=footer(locked))
+        os.replace(tmp, target)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
     return DescribeResult(target, printed, number, locked.fingerprint, locked.locked_at,
                           locked.timestamp)
-
-
-def _print_pdf(page: bytes, pdf: Path, footer_text: str) -> None:
-    raise BadInput("--pdf: printing to PDF is not in this version of prespec yet; open the "
-                   "HTML document and print it")
 
 
 # --- verify --document --------------------------------------------------------------------
@@ -193,8 +194,13 @@ def _pdf_text(path: Path) -> str:
         raise DocumentMismatch(f"document {path.name}: an unreadable PDF ({exc})") from None
 
 
+_PAGE = re.compile(r"page\d+of\d+")  # "page n of N" of a printed page, whitespace removed
+
+
 def _squeezed(text: str) -> str:
-    return "".join(text.split())
+    """Without whitespace, and in compatibility form (NFKC), as a PDF's text is compared: a
+    printed page breaks lines where it must and sets ligatures (``ﬁ`` for ``fi``)."""
+    return "".join(unicodedata.normalize("NFKC", text).split())
 
 
 def _first_difference(found: str, made: str) -> str:
@@ -235,8 +241,8 @@ def check_document(plan: Path, doc: dict[str, Any] | None, entries: list[dict[st
     except PrespecError as exc:
         raise DocumentMismatch(f"document {name}: version {number} cannot be described "
                                f"again: {exc}") from None
-    if is_pdf:
-        found_text = _squeezed(text).replace(_squeezed(footer(locked)), "")
+    if is_pdf:  # the footer and page number each page carries are not the document's words
+        found_text = _PAGE.sub("", _squeezed(text)).replace(_squeezed(footer(locked)), "")
         made_text = _squeezed(made)
     else:
         found_text, made_text = text, made
