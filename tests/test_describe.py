@@ -527,3 +527,23 @@ def test_a_file_that_is_neither_html_nor_pdf_fails(tmp_path: Path) -> None:
     broken.write_bytes(b"%PDF-1.4\nnot really a pdf")
     with pytest.raises(IntegrityStop, match="document broken.pdf: "):
         api.verify(plan, document=broken)
+
+
+def test_user_text_is_shown_as_text(tmp_path: Path) -> None:
+    """A title or label that looks like markup, or like a fingerprint, stays text: escaped in
+    the page, and never taken for the document's fingerprint."""
+    plan = tmp_path / "tour.yaml"
+    hostile = 'Tour <script>alert(1)</script> & "sha256:' + "a" * 64 + '"'
+    plan.write_text(TOUR.read_text("utf-8").replace(
+        "title: Dressing regimens - a tour of the pre-specified methods",
+        f"title: '{hostile}'").replace(
+        "title: Negative-pressure vs gauze, stratified by site",
+        "title: '<b>bold</b> \u202eedis'"), "utf-8")
+    api.lock(plan, actor="tester")
+    made = api.describe(plan)
+    page = made.html.read_text("utf-8")
+    assert "<script>" not in page and "<b>bold</b>" not in page
+    assert "Tour &lt;script&gt;alert(1)&lt;/script&gt; &amp; &quot;sha256:" in page
+    assert "\u202e" not in page  # the bidi control shown, not obeyed
+    assert api.verify(plan, document=made.html).passed[-1].startswith(
+        "document: tour.plan-v1.html (HTML) carries the fingerprint of lock version 1")

@@ -864,6 +864,8 @@ def html_text(document: str) -> str:
 
 
 FINGERPRINT = re.compile(r"sha256:[0-9a-f]{64}")
+#: The fingerprint the first page names (whitespace may be gone, as in a PDF's text).
+NAMED_FINGERPRINT = re.compile(r"Plan\s*fingerprint\s*(sha256:[0-9a-f]{64})")
 _FORMAT = re.compile(r"plan\s*document\s*format\s*(\d+)")
 
 

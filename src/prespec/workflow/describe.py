@@ -20,8 +20,8 @@ from prespec import audit
 from prespec.errors import BadInput, IntegrityStop, PrespecError
 from prespec.plan import load_plan
 from prespec.report.describe import (
-    FINGERPRINT,
     FORMATS,
+    NAMED_FINGERPRINT,
     LockedVersion,
     format_of,
     html_text,
@@ -219,7 +219,7 @@ def check_document(plan: Path, doc: dict[str, Any] | None, entries: list[dict[st
     extracted text breaks lines where the page did)."""
     text, is_pdf = document_text(document)
     name = document.name
-    found = FINGERPRINT.findall(text if not is_pdf else _squeezed(text))
+    found = NAMED_FINGERPRINT.findall(text if not is_pdf else _squeezed(text))
     if not found:
         raise DocumentMismatch(f"document {name}: carries no plan fingerprint")
     versions = (doc or {}).get("versions") or []
