@@ -213,10 +213,10 @@ def test_an_amended_plan_describes_each_version(tmp_path: Path) -> None:
     assert latest.version == 2 and latest.html.name == "methods-tour.plan-v2.html"
     text = words.html_text(latest.html.read_text("utf-8"))
     assert f"Amends the version with fingerprint {first_fp}; reason: a stricter level" in text
-    assert "Alpha 0.025, the family-wise" in text
+    assert "Alpha 0.025, the significance level" in text
     assert words.FINGERPRINT.findall(text)[0] == latest.fingerprint
     old = words.html_text(api.describe(plan, version=1).html.read_text("utf-8"))
-    assert "Alpha 0.05, the family-wise" in old and "Amends" not in old
+    assert "Alpha 0.05, the significance level" in old and "Amends" not in old
 
 
 # --- methods and references -----------------------------------------------------------------

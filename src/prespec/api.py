@@ -3,8 +3,8 @@
 Every function takes paths and plain values, returns a small result, and raises a
 ``PrespecError`` subclass for anything the user must fix (see ``errors.py``). This module only
 names them; each step lives in its room: ``workflow/`` (check, lock, amend, history, rehearse,
-run, design, describe, verify: the only place that knows the order of the steps), ``audit/`` (the key
-pair) and ``demo/``.
+run, design, describe, verify: the only place that knows the order of the steps), ``audit/``
+(the key pair) and ``demo/``.
 """
 
 from __future__ import annotations

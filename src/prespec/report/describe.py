@@ -291,10 +291,6 @@ def _values(values: Iterable[object]) -> str:
     return ", ".join(code(x) for x in values)
 
 
-def _groups_of(plan: Plan, hyp: Hypothesis) -> list[str]:
-    return list(plan.data.groups) if hyp.kind in ("all", "trend") else list(hyp.compare)
-
-
 # --- the sections ---------------------------------------------------------------------------
 
 
@@ -365,7 +361,7 @@ def _multiplicity(plan: Plan) -> str:
     name = method if isinstance(method, str) else "graphical"
     family = [h.id for h in plan.hypotheses if not h.outside_multiplicity]
     outside = [h.id for h in plan.hypotheses if h.outside_multiplicity]
-    rows = [("Alpha", (f"{code(number(plan.alpha))}, the family-wise significance level; "
+    rows = [("Alpha", (f"{code(number(plan.alpha))}, the significance level; "
              "intervals at 1 − alpha (two-sided superiority) or 1 − 2·alpha (one-sided, and "
              "at a margin)"))]
     words = "no adjustment" if name == "none" else METHODS[name][0]

@@ -175,6 +175,8 @@ def document_text(path: Path) -> tuple[str, bool]:
         data = path.read_bytes()
     except FileNotFoundError:
         raise BadInput(f"--document {path}: no such file") from None
+    except IsADirectoryError:
+        raise BadInput(f"--document {path}: a folder, not a document") from None
     if data.startswith(b"%PDF-"):
         return _pdf_text(path), True
     try:
@@ -207,7 +209,7 @@ def _first_difference(found: str, made: str) -> str:
     i = next((k for k, (a, b) in enumerate(zip(found, made, strict=False)) if a != b),
              min(len(found), len(made)))
     start = max(0, i - 30)
-    return (f"the document has {found[start:i + 40]!r}, version's words "
+    return (f"the document has {found[start:i + 40]!r} where the version's words are "
             f"{made[start:i + 40]!r}")
 
 
