@@ -683,7 +683,9 @@ def _hypothesis(plan: Plan, hyp: Hypothesis, share: Any) -> str:
     rows.extend(_looks(plan, hyp, share.alpha))
     rows.extend(_then(plan, hyp))
     rule = share.rule
-    if rule == (plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"):
+    if rule == "none":
+        rule = "the full alpha, no multiplicity adjustment"
+    elif rule == (plan.multiplicity if isinstance(plan.multiplicity, str) else "graphical"):
         rule = f"its share under {rule}"
     rows.append(("Alpha at planning", f"{esc(f'{share.alpha:.6g}')} ({esc(rule)})"))
     title = f": {esc(hyp.title)}" if hyp.title else ""
