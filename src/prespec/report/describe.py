@@ -61,7 +61,8 @@ class LockedVersion:
 
 # --- methods and their references --------------------------------------------------------
 # Each reference is one the code already cites: the module named beside it holds it in a
-# References section (tests/test_describe.py checks the author and year are there).
+# References section (tests/test_describe.py checks the author and year are there). None was
+# looked up again here; where the citing module says it cites from memory, so does a comment.
 
 #: plan name → (the method in words, the references (``; `` between two), the modules citing
 #: them)
@@ -110,6 +111,7 @@ METHODS: dict[str, tuple[str, str, str]] = {
         "the stratified score test of a common risk difference",
         "Miettinen O, Nurminen M. Statistics in Medicine 1985;4:213–226",
         "stats/stratified_difference.py"),
+    # from memory: stats/adjusted.py cites these with titles, authors and pages from memory
     "g-computation": (
         "g-computation (standardisation over a logistic working model)",
         ("Ge M et al. Drug Information Journal 2011;45:481–493; Ye T, Shao J, Yi Y, Zhao Q. "
@@ -228,6 +230,7 @@ METHODS: dict[str, tuple[str, str, str]] = {
     "graphical": ("the graphical procedure",
                   ("Bretz F, Maurer W, Brannath W, Posch M. Statistics in Medicine "
                   "2009;28:586–604"), "stats/graphical.py"),
+    # from memory: stats/doublefdr.py cites it from memory
     "double-fdr": ("the double false discovery rate procedure",
                    ("Mehrotra DV, Heyse JF. Statistical Methods in Medical Research "
                    "2004;13:227–238"), "stats/doublefdr.py"),
