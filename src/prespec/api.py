@@ -3,8 +3,8 @@
 Every function takes paths and plain values, returns a small result, and raises a
 ``PrespecError`` subclass for anything the user must fix (see ``errors.py``). This module only
 names them; each step lives in its room: ``workflow/`` (check, lock, amend, history, rehearse,
-run, design, verify: the only place that knows the order of the steps), ``audit/`` (the key
-pair) and ``demo/``.
+run, design, describe, verify: the only place that knows the order of the steps), ``audit/``
+(the key pair) and ``demo/``.
 """
 
 from __future__ import annotations
@@ -26,6 +26,8 @@ _WHERE = {
     "schema": "prespec.workflow.lock",
     "resolve_actor": "prespec.workflow.base",
     "design": "prespec.workflow.design",
+    "DescribeResult": "prespec.workflow.describe",
+    "describe": "prespec.workflow.describe",
     "apply_overrides": "prespec.workflow.overrides",
     "RunOutcome": "prespec.workflow.publish",
     "rehearse": "prespec.workflow.rehearse",
@@ -36,6 +38,7 @@ _WHERE = {
 
 if TYPE_CHECKING:
     from prespec.workflow.base import resolve_actor
+    from prespec.workflow.describe import DescribeResult, describe
     from prespec.workflow.design import design
     from prespec.workflow.lock import (
         SCHEMAS,
@@ -69,6 +72,7 @@ def __dir__() -> list[str]:
 __all__ = [
     "SCHEMAS",
     "CheckResult",
+    "DescribeResult",
     "LockResult",
     "RunOutcome",
     "VerifyResult",
@@ -76,6 +80,7 @@ __all__ = [
     "apply_overrides",
     "check",
     "demo",
+    "describe",
     "design",
     "history",
     "lock",

@@ -91,6 +91,9 @@ def _parser() -> argparse.ArgumentParser:
                    help="with --rerun: only this report (as the log names it)")
     c.add_argument("--key", metavar="PUBLIC",
                    help="require every lock and amend entry to be signed by this public key")
+    c.add_argument("--document", metavar="FILE",
+                   help="check that a plan document (HTML or PDF) carries the words prespec "
+                   "describe writes from the locked version whose fingerprint it names")
     c.add_argument("--strict", action="store_true",
                    help="exit 3 when any run was not the locked analysis (never locked, "
                    "overridden, or amended after unblinding) or when the report folders hold "
@@ -102,6 +105,16 @@ def _parser() -> argparse.ArgumentParser:
                    help="simulate N whole trials per scenario and decide each by the plan")
     c.add_argument("--seed", type=int, metavar="S", help="the seed of the simulation (default 1)")
     c.add_argument("--json", action="store_true", help="print the design document as JSON")
+    c = add("describe", "write the locked analysis plan in words, as an HTML document to "
+            "register; built from the lock, never from the working file")
+    c.add_argument("plan")
+    c.add_argument("--version", type=int, metavar="N", dest="lock_version",
+                   help="the lock version to describe (default: the latest, which the plan "
+                   "file must match in meaning)")
+    c.add_argument("--out", metavar="FILE",
+                   help="the HTML file to write (default: STEM.plan-vN.html beside the plan)")
+    c.add_argument("--pdf", action="store_true",
+                   help="also print it to a PDF beside the HTML (headless Chromium)")
     c = add("demo", "write, lock and run an invented demonstration study", writes=True)
     c.add_argument("dir", nargs="?", default="prespec-demo")
     return p
@@ -335,7 +348,7 @@ def _dispatch(args: argparse.Namespace) -> int:
         if args.report is not None and args.rerun is None:
             raise BadInput("--report goes with --rerun DATA")
         res = api.verify(args.plan, expect=args.expect, rerun=args.rerun, report=args.report,
-                         key=args.key, strict=args.strict)
+                         key=args.key, strict=args.strict, document=args.document)
         for line in res.passed:
             print(f"ok    {line}")
         for run in res.runs:
@@ -365,6 +378,15 @@ def _dispatch(args: argparse.Namespace) -> int:
         for line in doc.get("warnings", []):  # as check and lock print them
             print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         print(json_text(doc, indent=2) if args.json else design_text(doc))
+    elif args.command == "describe":
+        made = api.describe(args.plan, version=args.lock_version, out=args.out, pdf=args.pdf)
+        print(f"wrote the plan document of lock version {made.version}: {made.html}"
+              + (f" and {made.pdf}" if made.pdf else ""))
+        print(f"fingerprint: {made.fingerprint}")
+        print(f"locked at {made.locked_at} (the locking machine's clock); "
+              + (f"time-stamped {made.timestamp}" if made.timestamp else
+                 "no trusted time-stamp"))
+        print(f"anyone can check it with: prespec verify {args.plan} --document {made.html}")
     elif args.command == "demo":
         html = api.demo(args.dir, actor=args.actor)
         print(html)

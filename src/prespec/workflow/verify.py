@@ -649,7 +649,7 @@ def last_line(runs: list[RunVerdict], warnings: int = 0) -> str:
 
 def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = None,
                report: str | None = None, key: Path | None = None,
-               strict: bool = False) -> VerifyResult:
+               strict: bool = False, document: Path | None = None) -> VerifyResult:
     result = VerifyResult()
     if not audit.lock_path(plan).exists() and not audit.log_path(plan).exists() \
             and not audit.head_path(plan).exists():
@@ -672,6 +672,8 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
             raise _fail(result, f"expected fingerprint: the first lock entry holds "
                         f"{first['plan']}, not {expect}")
         result.passed.append("expected fingerprint: matches the first lock entry")
+    if document is not None:
+        _check_document(plan, doc, entries, document, result)
     if rerun is not None:
         _rerun(plan, entries, doc, found, rerun, report, result)
     result.runs = run_verdicts(entries)
@@ -679,6 +681,21 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
     if strict:
         _check_strict(result)
     return result
+
+
+def _check_document(plan: Path, doc: dict[str, Any] | None, entries: list[dict[str, Any]],
+                    document: Path, result: VerifyResult) -> None:
+    """``--document FILE``: the plan document (HTML or PDF) carries a locked version's
+    fingerprint and the words ``prespec describe`` writes from that version."""
+    from prespec.workflow.describe import DocumentMismatch, check_document
+
+    if doc is None:
+        raise _fail(result, f"document {document.name}: the plan was never locked, so no "
+                    "document can carry its words")
+    try:
+        result.passed.append(check_document(plan, doc, entries, document))
+    except DocumentMismatch as exc:
+        raise _fail(result, str(exc)) from None
 
 
 # --- --rerun: recompute a report's results from the data and compare every field ---
@@ -865,15 +882,16 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
 @plain_errors
 def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,
            report: str | None = None, key: str | Path | None = None,
-           strict: bool = False) -> VerifyResult:
+           strict: bool = False, document: str | Path | None = None) -> VerifyResult:
     """Check the lock, the log and every report the log names, from the files alone.
 
     ``expect``: the fingerprint registered elsewhere at lock time. ``rerun``: a data file;
     every run report made from it (or only ``report``) is recomputed and must be identical.
     ``key``: a public key file; every lock and amend entry must carry its valid signature.
     ``strict``: the warnings (things in the report folders no recorded run wrote) fail.
+    ``document``: a plan document (HTML or PDF) that must carry a locked version's words.
     """
     with audit.guard.hold(Path(plan).parent, exclusive=False):  # no writer half way
         return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
                           report=report, key=Path(key) if key else None,
-                          strict=strict)
+                          strict=strict, document=Path(document) if document else None)
