@@ -420,3 +420,17 @@ def test_the_report_and_the_terminal_show_the_look(tmp_path: Path) -> None:
                       "stop for success (0.99)", "final threshold (0.95)",
                       "futility, non-binding (0.1)"]
     assert math.isclose(fig.axes[0].get_ylim()[1], 1.02)
+
+
+def test_the_plan_document_words_the_looks(tmp_path: Path) -> None:
+    import re
+
+    plan = study(tmp_path)
+    page = re.sub(r"<[^>]+>", "", api.describe(plan).html.read_text("utf-8"))
+    page = re.sub(r"\s+", " ", page)
+    assert ("2 looks at information fractions 0.5, 1; an interim look stops for success where "
+            "the posterior probability reaches 0.99; futility may be considered (non-binding) "
+            "where the predictive probability of meeting the rule at the final sizes") in page
+    assert "falls below 0.1; the final look is the rule itself" in page
+    assert "Planned sizes at the looksexercise 10, 20; usual-care 10, 20" in page  # th, td
+    assert api.verify(plan, document=api.describe(plan).html).summary.startswith("verified")

@@ -589,6 +589,8 @@ def _looks(plan: Plan, hyp: Hypothesis, share: float) -> list[tuple[str, str]]:
         when = "cumulative total sizes " + ", ".join(code(s) for s in looks.sizes)
     else:
         when = "information fractions " + when
+    if looks.efficacy is None:  # a Bayesian rule's looks (docs/bayes.md, "Interim looks")
+        return _bayes_looks(plan, hyp, when)
     text = f"{len(looks.planned_fractions())} looks at {when}; efficacy by " + _named(
         METHODS[looks.efficacy][0], looks.efficacy)
     if looks.gamma is not None:
@@ -603,6 +605,30 @@ def _looks(plan: Plan, hyp: Hypothesis, share: float) -> list[tuple[str, str]]:
     bounds = _boundaries(plan, hyp, share)
     if bounds:
         rows.append(("Planned boundaries", bounds))
+    return rows
+
+
+def _bayes_looks(plan: Plan, hyp: Hypothesis, when: str) -> list[tuple[str, str]]:
+    """A Bayesian rule's looks: the stopping thresholds and the planned sizes per group."""
+    from prespec.plan.looks import bayes_look_sizes
+
+    looks = hyp.looks
+    assert looks is not None
+    text = f"{len(looks.planned_fractions())} looks at {when}"
+    if looks.stop_for_success is not None:
+        text += (f"; an interim look stops for success where the posterior probability reaches "
+                 f"{code(number(looks.stop_for_success))}")
+    if looks.stop_for_futility is not None:
+        text += (f"; futility may be considered (non-binding) where the predictive probability "
+                 f"of meeting the rule at the final sizes, exact under the beta-binomial "
+                 f"predictive distribution, falls below {code(number(looks.stop_for_futility))}")
+    text += "; the final look is the rule itself"
+    rows = [("Interim looks", text)]
+    sizes = bayes_look_sizes(plan, hyp)
+    if sizes:
+        rows.append(("Planned sizes at the looks", "; ".join(
+            f"{code(g)} {', '.join(code(n) for n in per)}"
+            for g, per in zip(hyp.compare, sizes, strict=True))))
     return rows
 
 
