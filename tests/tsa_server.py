@@ -174,7 +174,7 @@ class Authority:
 class _Handler(BaseHTTPRequestHandler):
     authority: Authority
 
-    def do_POST(self) -> None:  # noqa: N802 (the standard library's name)
+    def do_POST(self) -> None:
         length = int(self.headers.get("Content-Length", "0"))
         body = self.rfile.read(length)
         if self.server.authority.mode == "http-error":  # type: ignore[attr-defined]

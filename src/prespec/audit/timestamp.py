@@ -48,7 +48,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from asn1crypto import cms, core, tsp
+from asn1crypto import cms, tsp
 from cryptography import x509
 from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives import hashes
@@ -164,7 +164,7 @@ def _post(url: str, body: bytes, timeout: float) -> bytes:
         netloc = (f"[{host}]" if ":" in host else host) + (f":{parts.port}" if parts.port else "")
         url = urllib.parse.urlunsplit(parts._replace(netloc=netloc))
     request = urllib.request.Request(url, data=body, headers=headers, method="POST")
-    with urllib.request.urlopen(request, timeout=timeout) as answer:  # noqa: S310 (http/https only)
+    with urllib.request.urlopen(request, timeout=timeout) as answer:
         data = answer.read(MAX_RESPONSE + 1)
     if len(data) > MAX_RESPONSE:
         raise TokenProblem(f"the answer is larger than {MAX_RESPONSE} bytes")
@@ -288,9 +288,9 @@ def _signer_certificate(signer: cms.SignerInfo, certs: list[tuple[bytes, x509.Ce
             if (parsed.issuer == sid.chosen["issuer"]
                     and parsed.serial_number == sid.chosen["serial_number"].native):
                 return der, cert
-        elif sid.name == "subject_key_identifier":
-            if parsed.key_identifier == sid.chosen.native:
-                return der, cert
+        elif sid.name == "subject_key_identifier" \
+                and parsed.key_identifier == sid.chosen.native:
+            return der, cert
     raise TokenProblem("it does not hold the signer's certificate (certReq was asked)")
 
 
@@ -327,9 +327,7 @@ def _check_signature(signer: cms.SignerInfo, cert: x509.Certificate, signed_byte
                        pss_hash)
         elif name == "ecdsa" and isinstance(key, ec.EllipticCurvePublicKey):
             key.verify(signature, signed_bytes, ec.ECDSA(chosen))
-        elif name == "ed25519" and isinstance(key, ed25519.Ed25519PublicKey):
-            key.verify(signature, signed_bytes)
-        elif name == "ed448" and isinstance(key, ed448.Ed448PublicKey):
+        elif name == "ed25519" and isinstance(key, ed25519.Ed25519PublicKey) or name == "ed448" and isinstance(key, ed448.Ed448PublicKey):
             key.verify(signature, signed_bytes)
         else:
             raise TokenProblem(f"its signature algorithm ({name}) does not fit the signer's key")
@@ -351,7 +349,7 @@ def _names_certificate(attrs: cms.CMSAttributes, cert_der: bytes) -> bool:
                                    first["cert_hash"].native)
     v1 = _attribute(attrs, "signing_certificate")
     if v1 is not None:
-        return hmac.compare_digest(hashlib.sha1(cert_der).digest(),  # noqa: S324 (ESSCertID)
+        return hmac.compare_digest(hashlib.sha1(cert_der).digest(),
                                    v1["certs"][0]["cert_hash"].native)
     return False
 
