@@ -19,15 +19,22 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
-from asn1crypto import cms, tsp
+from asn1crypto import cms, core, tsp
 from cryptography import x509
 from cryptography.hazmat.primitives import hashes, serialization
 from cryptography.hazmat.primitives.asymmetric import ec, padding, rsa
 from cryptography.x509.oid import ExtendedKeyUsageOID, NameOID
 
 POLICY = "1.3.6.1.4.1.55555.1.1"  # a private arc for the tests' policy
+
+
+class Rejection(core.Sequence):
+    """A ``TimeStampResp`` without a token (RFC 3161 section 2.4.2: the token is OPTIONAL;
+    asn1crypto's ``tsp.TimeStampResp`` requires one)."""
+
+    _fields: ClassVar = [("status", tsp.PKIStatusInfo)]
 
 
 def _name(common: str) -> x509.Name:
@@ -111,7 +118,7 @@ class Authority:
         self.requests.append(body)
         request = tsp.TimeStampReq.load(body)
         if self.mode == "rejection":
-            return tsp.TimeStampResp({"status": {
+            return Rejection({"status": {  # RFC 3161: no token in a rejection
                 "status": "rejection", "status_string": ["the policy is not accepted"],
                 "fail_info": {"unaccepted_policy"}}}).dump()
         if self.mode == "garbage":

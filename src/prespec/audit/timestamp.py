@@ -46,9 +46,9 @@ import urllib.request
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
-from asn1crypto import cms, tsp
+from asn1crypto import cms, core, tsp
 from cryptography import x509
 from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives import hashes
@@ -198,10 +198,18 @@ def request_token(url: str, digest: str, *, timeout: float = TIMEOUT_SECONDS) ->
     return Stamp(der, shown, info.time)
 
 
+class TimeStampResponse(core.Sequence):
+    """``TimeStampResp`` as RFC 3161 section 2.4.2 declares it: the token is OPTIONAL (absent
+    from a rejection). asn1crypto's ``tsp.TimeStampResp`` requires it."""
+
+    _fields: ClassVar = [("status", tsp.PKIStatusInfo),
+               ("time_stamp_token", cms.ContentInfo, {"optional": True})]
+
+
 def token_from_response(body: bytes) -> bytes:
     """The DER of the token in a ``TimeStampResp``; its status must be granted."""
     try:
-        response = tsp.TimeStampResp.load(body, strict=True)
+        response = TimeStampResponse.load(body, strict=True)
         status = response["status"]
         state = status["status"].native
     except (ValueError, TypeError, KeyError) as exc:
