@@ -17,6 +17,7 @@ from typing import Any
 
 import pytest
 from asn1crypto import cms, tsp
+from tsa_server import Authority, AuthorityServer, make_ca, pem
 
 import prespec.report
 from prespec import api, audit, cli
@@ -25,7 +26,6 @@ from prespec.audit.lockfile import version_digest
 from prespec.audit.log import entry_hash, entry_line, head_line
 from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, IntegrityStop
-from tsa_server import Authority, AuthorityServer, make_ca, pem
 
 OPENSSL = shutil.which("openssl")
 
@@ -271,13 +271,16 @@ def test_openssl_reads_and_accepts_the_stored_tokens(authority: AuthorityServer,
                               capture_output=True, text=True, check=True).stdout
         assert "Policy OID: 1.3.6.1.4.1.55555.1.1" in text
         assert "Hash Algorithm: sha256" in text
+        assert " ".join(digest[i:i + 2] for i in range(0, 16, 2)) in text  # the imprint
         shown = ts.token_time(token.read_bytes()).strftime("%b %e %H:%M:%S %Y GMT")
         assert f"Time stamp: {shown}" in text
         check = subprocess.run([OPENSSL, "ts", "-verify", "-digest", digest, "-token_in",
-                                "-in", token, "-CAfile", ca], capture_output=True, text=True)
+                                "-in", token, "-CAfile", ca], capture_output=True, text=True,
+                                check=False)
         assert check.returncode == 0 and "Verification: OK" in check.stdout, check.stderr
         wrong = subprocess.run([OPENSSL, "ts", "-verify", "-digest", "00" * 32, "-token_in",
-                                "-in", token, "-CAfile", ca], capture_output=True, text=True)
+                                "-in", token, "-CAfile", ca], capture_output=True, text=True,
+                                check=False)
         assert wrong.returncode != 0  # the same tool refuses another digest
 
 
@@ -303,16 +306,16 @@ def test_lock_run_verify_round_trip_with_the_checklist(authority: AuthorityServe
     res = api.verify(plan, tsa_certs=[_ca_file(authority, tmp_path)])
     stamps = [line for line in res.passed if line.startswith("time-stamps:")]
     assert stamps == [
-        f"time-stamps: 2 tokens (version 1, run 1) from {authority.url}, each stamping its "
+        (f"time-stamps: 2 tokens (version 1, run 1) from {authority.url}, each stamping its "
         "entry's digest, signatures valid, signed by CN=prespec test TSA,O=prespec tests with "
-        "the time-stamping usage, chained to --tsa-cert CN=prespec test root CA,O=prespec tests"]
+        "the time-stamping usage, chained to --tsa-cert CN=prespec test root CA,O=prespec tests")]
     lock_time = ts.stamp_text(locked.timestamp.time)
     run_time = ts.stamp_text(out.timestamp.time)
     assert [line for line in res.passed if line.startswith("when:")] == [
-        f"when: version 1 locked at {lock_time} (time-stamped by CN=prespec test TSA,O=prespec "
+        (f"when: version 1 locked at {lock_time} (time-stamped by CN=prespec test TSA,O=prespec "
         f"tests; machine clock {entries[0]['at']}); first run (run 1) at "
         f"{run_time} (time-stamped; machine clock {entries[1]['at']}), after the lock's "
-        "time-stamp"]
+        "time-stamp")]
     assert res.summary == "verified: files intact; the run was the locked analysis"
     assert res.notes == []
 
@@ -358,6 +361,32 @@ def test_a_failed_stamp_locks_nothing_and_writes_nothing(
         api.amend(plan, reason="a stricter alpha", timestamp=url)
     assert audit.read_lock(audit.lock_path(plan))["versions"][-1]["version"] == 1
     assert len(audit.read_log(audit.log_path(plan))) == 2
+
+
+def test_a_stamp_whose_entry_fails_leaves_no_token(authority: AuthorityServer, tmp_path: Path,
+                                                   monkeypatch: pytest.MonkeyPatch) -> None:
+    """The token is written just before the entry; when the entry is not written (here a
+    failing append), the token goes with everything else the step made."""
+    from prespec.audit import record
+
+    plan, data = _study(tmp_path)
+
+    def broken(*args: Any, **kwargs: Any) -> Any:
+        raise OSError(28, "No space left on device")
+
+    with monkeypatch.context() as patched:
+        patched.setattr(record, "append", broken)
+        with pytest.raises(BadInput, match="no space left"):
+            api.lock(plan, timestamp=authority.url)
+    assert _files(tmp_path) == ["trial.csv", "trial.yaml"]
+    api.lock(plan, timestamp=authority.url)
+    before = _files(tmp_path)
+    with monkeypatch.context() as patched:
+        patched.setattr(record, "append", broken)
+        with pytest.raises(BadInput, match="no space left"):
+            api.run(plan, data, timestamp=authority.url)
+    assert _files(tmp_path) == before
+    assert _files(tmp_path / "trial.timestamps") == ["version-1.tsr"]
 
 
 def test_an_amendment_is_stamped_and_each_version_gets_its_line(authority: AuthorityServer,
@@ -464,7 +493,7 @@ def test_clocks_that_disagree_get_a_note_and_stray_tokens_are_named(
     api.lock(plan, timestamp=server.url)
     (tmp_path / "trial.timestamps" / "version-2.tsr").write_bytes(b"left behind")
     res = api.verify(plan)
-    assert [n for n in res.notes if "clock" in n][0].startswith(
+    assert next(n for n in res.notes if "clock" in n).startswith(
         "version 1: the machine's clock (")
     assert re.search(r"differ by (2 h 59 min|3 h|3 h 1 s);", res.notes[0])  # seconds cut
     assert res.notes[1] == ("trial.timestamps/version-2.tsr: a time-stamp token no log entry "
@@ -474,7 +503,7 @@ def test_clocks_that_disagree_get_a_note_and_stray_tokens_are_named(
 
 def test_the_command_prints_the_time_stamp(authority: AuthorityServer, tmp_path: Path,
                                            capsys: pytest.CaptureFixture[str]) -> None:
-    plan, data = _study(tmp_path)
+    plan, _data = _study(tmp_path)
     assert cli.main(["lock", str(plan), "--timestamp", authority.url]) == 0
     lines = capsys.readouterr().out.splitlines()
     assert lines[0] == f"locked {plan} as version 1"

@@ -1,5 +1,9 @@
 """A small RFC 3161 time-stamping authority of the tests' own, on 127.0.0.1.
 
+To try ``--timestamp`` by hand: ``python tests/tsa_server.py --ca tsa-ca.pem`` writes the
+throw-away CA's certificate (for ``verify --tsa-cert``), prints the URL and serves until
+Ctrl-C. It is for tests and trials only: its keys live in memory and vanish with it.
+
 A throw-away CA and a TSA certificate (the time-stamping extended key usage, critical, as
 RFC 3161 section 2.3 requires) are made with ``cryptography``; the responses are built with
 asn1crypto's ``tsp`` and ``cms`` structures and signed with the TSA's key, so that prespec's
@@ -201,9 +205,9 @@ class _Handler(BaseHTTPRequestHandler):
 class AuthorityServer:
     """The authority served over HTTP on 127.0.0.1 (a free port), in a thread."""
 
-    def __init__(self, authority: Authority) -> None:
+    def __init__(self, authority: Authority, port: int = 0) -> None:
         self.authority = authority
-        self.server = ThreadingHTTPServer(("127.0.0.1", 0), _Handler)
+        self.server = ThreadingHTTPServer(("127.0.0.1", port), _Handler)
         self.server.authority = authority  # type: ignore[attr-defined]
         self.thread = threading.Thread(target=self.server.serve_forever, daemon=True)
         self.thread.start()
@@ -216,3 +220,25 @@ class AuthorityServer:
     def close(self) -> None:
         self.server.shutdown()
         self.server.server_close()
+
+
+def main(argv: list[str] | None = None) -> None:
+    import argparse
+    import time
+
+    parser = argparse.ArgumentParser(description="a throw-away RFC 3161 authority on 127.0.0.1")
+    parser.add_argument("--ca", required=True, type=Path, help="where to write the CA (PEM)")
+    parser.add_argument("--port", type=int, default=0, help="the port (default: a free one)")
+    args = parser.parse_args(argv)
+    server = AuthorityServer(Authority(), args.port)
+    server.authority.write_ca(args.ca)
+    print(server.url, flush=True)
+    try:
+        while True:
+            time.sleep(3600)
+    except KeyboardInterrupt:
+        server.close()
+
+
+if __name__ == "__main__":
+    main()
