@@ -215,6 +215,8 @@ def test_tampering_with_any_signed_part_of_a_token_is_caught(authority: Authorit
         ts.check_token(token, _digest(b"another version"))
     with pytest.raises(ts.TokenProblem, match="not a time-stamp token"):
         ts.check_token(token[:-5], digest)
+    with pytest.raises(ts.TokenProblem, match="not a time-stamp token"):
+        ts.token_time(b"\x30\x03\x02\x01\x00")
 
 
 def _resigned_content(token: bytes, when: datetime) -> bytes:
@@ -302,6 +304,7 @@ def test_lock_run_verify_round_trip_with_the_checklist(authority: AuthorityServe
     assert ts.check_token(token, version_digest(lock_doc["versions"][0])).time == \
         locked.timestamp.time
     assert ts.version_token(plan, 1) == token  # what the plan document shows
+    assert ts.token_signer(token) == "CN=prespec test TSA,O=prespec tests"
     assert entries[1]["details"]["timestamp"]["file"] == f"trial.timestamps/run-{out.folder.name}.tsr"
     res = api.verify(plan, tsa_certs=[_ca_file(authority, tmp_path)])
     stamps = [line for line in res.passed if line.startswith("time-stamps:")]
@@ -514,3 +517,14 @@ def test_the_command_prints_the_time_stamp(authority: AuthorityServer, tmp_path:
     out = capsys.readouterr().out.splitlines()
     assert out[-2].startswith(f"ok    when: version 1 locked at {when} (time-stamped by ")
     assert os.environ.get(ts.URL_VARIABLE) is None
+
+
+def test_the_docs_name_the_lines_verify_prints() -> None:
+    root = Path(__file__).resolve().parents[1]
+    checks = (root / "docs" / "verify.md").read_text("utf-8")
+    section = checks[checks.index("## The checks, in order"):checks.index("## Exit statuses")]
+    assert "**`time-stamps:`**" in section and "**`when:`**" in section
+    assert section.index("**`time-stamps:`**") < section.index("**`expected fingerprint:`**")
+    files = (root / "docs" / "files.md").read_text("utf-8")
+    assert "## Time-stamp tokens: `<stem>.timestamps/`" in files
+    assert "(files.md#time-stamp-tokens-stemtimestamps)" in checks

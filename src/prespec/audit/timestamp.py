@@ -246,6 +246,8 @@ def _parse(der: bytes) -> _Parsed:
         if token["content_type"].native != "signed_data":
             raise TokenProblem(f"a {token['content_type'].native} CMS object, not signed data")
         signed = token["content"]
+        if not isinstance(signed, cms.SignedData):
+            raise TokenProblem("not signed data")
         encap = signed["encap_content_info"]
         if encap["content_type"].native != "tst_info":
             raise TokenProblem(f"its content is {encap['content_type'].native}, not a TSTInfo")
@@ -421,6 +423,23 @@ def check_token(der: bytes, digest: str, *, nonce: int | None = None,
     docstring for what is checked. ``nonce``: the request's (a fresh answer); ``trusted``:
     the certificates the signer must chain to. Raises ``TokenProblem`` naming the first
     thing that does not hold."""
+    try:
+        return _check_token(der, digest, nonce, trusted)
+    except TokenProblem:
+        raise
+    except (ValueError, TypeError, KeyError, IndexError, AttributeError) as exc:
+        raise TokenProblem(f"a malformed token ({_short(exc)})") from None
+
+
+def token_signer(der: bytes) -> str:
+    """The subject of the certificate that signed a token (read, not checked)."""
+    parsed = _parse(der)
+    return _subject(_signer_certificate(parsed.signed["signer_infos"][0],
+                                        _certificates(parsed.signed))[1])
+
+
+def _check_token(der: bytes, digest: str, nonce: int | None,
+                 trusted: list[x509.Certificate] | None) -> TokenInfo:
     parsed = _parse(der)
     info = parsed.info
     imprint = info["message_imprint"]
@@ -594,5 +613,5 @@ def describe(info: TokenInfo, url: Any) -> str:
 
 __all__ = ["DETAILS_KEY", "URL_VARIABLE", "Stamp", "TokenInfo", "TokenProblem",
            "authority_url", "check_token", "load_trusted", "read_token", "recorded_url",
-           "request_token", "results_digest", "stamp_text", "token_time", "version_token",
-           "write_token"]
+           "request_token", "results_digest", "stamp_text", "token_signer", "token_time",
+           "version_token", "write_token"]

@@ -414,6 +414,8 @@ def _check_timestamps(plan: Path, entries: list[dict[str, Any]], found: dict[str
             if entry["action"] in ("lock", "amend") and key not in entry["details"]:
                 raise _fail(result, f"--tsa-cert: log entry {entry['seq']} ({names[entry['seq']]})"
                             " is not time-stamped")
+        if not stamped:
+            raise _fail(result, "--tsa-cert: no entry of the log is time-stamped")
     infos: dict[int, Any] = {}
     for entry in stamped:
         where = f"log entry {entry['seq']} ({names[entry['seq']]})"
