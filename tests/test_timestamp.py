@@ -337,10 +337,16 @@ def test_the_environment_variable_names_the_authority(authority: AuthorityServer
                                                       tmp_path: Path,
                                                       monkeypatch: pytest.MonkeyPatch) -> None:
     plan, _ = _study(tmp_path)
+    requests_before = len(authority.authority.requests)
     monkeypatch.setenv(ts.URL_VARIABLE, authority.url)
     api.lock(plan)
     (entry,) = audit.read_log(audit.log_path(plan))
     assert entry["details"]["timestamp"]["authority"] == authority.url
+    again = api.lock(plan)  # already locked: nothing asked, and it says so
+    assert not again.created and again.timestamp is None
+    assert again.note == ("no time-stamp was asked for: a version is time-stamped when it is "
+                          "locked")
+    assert len(authority.authority.requests) == 1 + requests_before
 
 
 @pytest.mark.parametrize("mode", ["rejection", "garbage", "unreachable"])

@@ -18,10 +18,10 @@ from prespec.errors import raise_recorded
 from .entries import checked
 from .files import fsync_dir, head_path, lock_path, log_path
 from .lockfile import complete_pending, read_lock, version_digest, write_pending
+from .log import Signer, append, check_chain, check_head, log_size, read_log, repair_head
 
 if TYPE_CHECKING:
     from .timestamp import Stamp
-from .log import Signer, append, check_chain, check_head, log_size, read_log, repair_head
 
 
 def settle(plan: Path) -> list[dict[str, Any]]:

@@ -197,6 +197,10 @@ def lock(plan: str | Path, *, actor: str | None = None,
             note = None
             if last.get("plan_file_sha256") != loaded.file_sha256:
                 note = "the file's bytes differ from the locked file's (layout or comments only)"
+            if url is not None:
+                unstamped = ("no time-stamp was asked for: a version is time-stamped when it "
+                             "is locked")
+                note = f"{note}; {unstamped}" if note else unstamped
             return LockResult(loaded.fingerprint, int(last["version"]), False, note)
         raise IntegrityStop(
             f"{loaded.path}: the plan's meaning differs from its lock (version "
