@@ -492,6 +492,19 @@ def test_a_run_stamped_before_its_lock_fails(serve: Callable[..., AuthorityServe
     with pytest.raises(IntegrityStop, match=r"log entry 2 \(run 1\): time-stamped at .*, before "
                        r"its lock \(version 1, time-stamped at "):
         api.verify(plan)
+    # an unstamped amendment in between: the run still may not precede version 1's stamp
+    other = tmp_path / "other"
+    other.mkdir()
+    plan, data = _study(other)
+    server.authority.clock = None
+    api.lock(plan, timestamp=server.url)
+    plan.write_text(PLAN_TEXT.replace("alpha: 0.05", "alpha: 0.025"))
+    api.amend(plan, reason="a stricter alpha")
+    server.authority.clock = lambda: datetime.now(UTC) - timedelta(minutes=30)
+    api.run(plan, data, timestamp=server.url)
+    with pytest.raises(IntegrityStop, match=r"log entry 3 \(run 1\): time-stamped at .*, before "
+                       r"its lock \(version 1, time-stamped at "):
+        api.verify(plan)
 
 
 def test_clocks_that_disagree_get_a_note_and_stray_tokens_are_named(

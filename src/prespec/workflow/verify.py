@@ -394,7 +394,7 @@ def _check_timestamps(plan: Path, entries: list[dict[str, Any]], found: dict[str
     """Each time-stamp token the log names: its file is the one recorded, it stamps its
     entry's digest, its signature holds (``audit.timestamp.check_token``), and with
     ``--tsa-cert`` its signer chains to a given certificate and every lock and amend entry is
-    time-stamped. A run time-stamped before the lock version in force at it fails. Then one
+    time-stamped. A run time-stamped before a version locked before it fails. Then one
     line per version: its trusted time beside the machine's, and its first run's."""
     from prespec.audit import timestamp as ts
 
@@ -425,17 +425,17 @@ def _check_timestamps(plan: Path, entries: list[dict[str, Any]], found: dict[str
                                                  trusted=trusted)
         except ts.TokenProblem as exc:
             raise _fail(result, f"{where}: time-stamp: {exc}") from None
-    in_force: dict[str, Any] | None = None
+    latest: dict[str, Any] | None = None  # the latest time-stamped version so far
     for entry in entries:
-        if entry["action"] in ("lock", "amend"):
-            in_force = entry
-        elif entry["action"] in ("run", "look") and entry["seq"] in infos and in_force \
-                and in_force["seq"] in infos \
-                and infos[entry["seq"]].time < infos[in_force["seq"]].time:
+        if entry["action"] in ("lock", "amend") and entry["seq"] in infos:
+            if latest is None or infos[entry["seq"]].time >= infos[latest["seq"]].time:
+                latest = entry
+        elif entry["action"] in ("run", "look") and entry["seq"] in infos \
+                and latest is not None and infos[entry["seq"]].time < infos[latest["seq"]].time:
             raise _fail(result, f"log entry {entry['seq']} ({names[entry['seq']]}): time-stamped "
                         f"at {ts.stamp_text(infos[entry['seq']].time)}, before its lock "
-                        f"({names[in_force['seq']]}, time-stamped at "
-                        f"{ts.stamp_text(infos[in_force['seq']].time)})")
+                        f"({names[latest['seq']]}, time-stamped at "
+                        f"{ts.stamp_text(infos[latest['seq']].time)})")
     listed = ", ".join(names[e["seq"]] for e in stamped)
     signers = sorted({i.signer for i in infos.values()})
     urls = sorted({str(e["details"][key].get("authority")) for e in stamped})
