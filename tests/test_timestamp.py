@@ -547,3 +547,33 @@ def test_the_docs_name_the_lines_verify_prints() -> None:
     files = (root / "docs" / "files.md").read_text("utf-8")
     assert "## Time-stamp tokens: `<stem>.timestamps/`" in files
     assert "(files.md#time-stamp-tokens-stemtimestamps)" in checks
+
+
+def test_through_the_command_lock_and_verify(authority: AuthorityServer, tmp_path: Path) -> None:
+    """End to end: ``prespec lock`` with PRESPEC_TSA_URL, a run, ``prespec verify --tsa-cert``,
+    and an unreachable authority (exit 2, one line, nothing written)."""
+    import sys
+
+    plan, data = _study(tmp_path)
+    command = [sys.executable, "-m", "prespec"]
+    env = {**os.environ, ts.URL_VARIABLE: authority.url}
+    down = {**os.environ, ts.URL_VARIABLE: f"http://127.0.0.1:{_free_port()}/tsa"}
+    refused = subprocess.run([*command, "lock", "trial.yaml"], cwd=tmp_path, env=down,
+                             capture_output=True, text=True, check=False, timeout=300)
+    assert refused.returncode == 2 and refused.stdout == ""
+    assert refused.stderr.startswith("prespec: --timestamp http://127.0.0.1:")
+    assert refused.stderr.endswith("could not be reached ([Errno 111] Connection refused); "
+                                   "nothing was written\n")
+    assert _files(tmp_path) == ["trial.csv", "trial.yaml"]
+    locked = subprocess.run([*command, "lock", "trial.yaml"], cwd=tmp_path, env=env,
+                            capture_output=True, text=True, check=True, timeout=300)
+    assert locked.stdout.splitlines()[1].startswith("time-stamped at ")
+    api.run(plan, data, timestamp=authority.url)
+    ca = _ca_file(authority, tmp_path)
+    done = subprocess.run([*command, "verify", "trial.yaml", "--tsa-cert", str(ca)],
+                          cwd=tmp_path, capture_output=True, text=True, check=True, timeout=300)
+    lines = done.stdout.splitlines()
+    assert lines[4].startswith("ok    time-stamps: 2 tokens (version 1, run 1) from ")
+    assert lines[5].startswith("ok    when: version 1 locked at ")
+    assert ", after the lock's time-stamp" in lines[5]
+    assert lines[-1] == "verified: files intact; the run was the locked analysis"
