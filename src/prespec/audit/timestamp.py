@@ -58,7 +58,8 @@ from cryptography.x509.oid import ExtendedKeyUsageOID
 from prespec.common.canonical import sha256_tag
 from prespec.errors import BadInput
 
-from .files import fsync_dir, replace_atomically
+from .files import fsync_dir, log_path, replace_atomically
+from .log import read_log
 
 #: The environment variable that names the authority when ``--timestamp`` is not given.
 URL_VARIABLE = "PRESPEC_TSA_URL"
@@ -586,9 +587,6 @@ def version_token(plan: str | Path, version: int) -> bytes | None:
     was not time-stamped. The token's digest is checked against its log entry; the log's
     chain is not (``prespec verify`` does that). Raises ``TokenProblem`` for a recorded
     token that is missing or differs."""
-    from .files import log_path
-    from .log import read_log
-
     plan = Path(plan)
     for entry in read_log(log_path(plan)):
         details = entry.get("details")
@@ -603,12 +601,6 @@ def version_token(plan: str | Path, version: int) -> bytes | None:
 def results_digest(results_bytes: bytes) -> str:
     """What a run's token stamps: the SHA-256 of its ``results.json``."""
     return sha256_tag(results_bytes)
-
-
-def describe(info: TokenInfo, url: Any) -> str:
-    """``CN=…, http://…``: who stamped a token, as the checklist names it."""
-    where = f", {url}" if isinstance(url, str) and url else ""
-    return f"{info.signer}{where}"
 
 
 __all__ = ["DETAILS_KEY", "URL_VARIABLE", "Stamp", "TokenInfo", "TokenProblem",
