@@ -130,6 +130,7 @@ def test_the_authoritys_url_is_recorded_without_a_credential(
     ("wrong-nonce", "its nonce is not the request's"),
     ("garbage", "not a time-stamp response"),
     ("http-error", "answered HTTP 503"),
+    ("truncated", "not a time-stamp response (Insufficient data"),
     ("bad-signature", "its signature does not verify"),
     ("no-certificate", "does not hold the signer's certificate"),
 ])

@@ -11,7 +11,8 @@ client and checks meet a real authority, and ``openssl ts`` can check its tokens
 
 ``mode`` makes the authority misbehave in one way each (the failure cases of the tests):
 ``granted`` (honest), ``rejection``, ``wrong-imprint``, ``wrong-nonce``, ``garbage``,
-``http-error``, ``bad-signature``, ``no-certificate``. A certificate that is expired or lacks
+``http-error``, ``truncated`` (the connection closes before the promised length),
+``bad-signature``, ``no-certificate``. A certificate that is expired or lacks
 the time-stamping usage is a separate ``Authority`` (``expired=True``, ``time_stamping=False``).
 """
 
@@ -192,11 +193,14 @@ class _Handler(BaseHTTPRequestHandler):
             self.send_error(503, "the authority is down for maintenance")
             return
         answer = self.server.authority.respond(body)  # type: ignore[attr-defined]
+        cut = self.server.authority.mode == "truncated"  # type: ignore[attr-defined]
         self.send_response(200)
         self.send_header("Content-Type", "application/timestamp-reply")
         self.send_header("Content-Length", str(len(answer)))
         self.end_headers()
-        self.wfile.write(answer)
+        self.wfile.write(answer[:len(answer) // 2] if cut else answer)  # cut: half, then closed
+        if cut:
+            self.close_connection = True
 
     def log_message(self, *args: Any) -> None:  # quiet
         pass

@@ -38,6 +38,8 @@ from __future__ import annotations
 import base64
 import hashlib
 import hmac
+import http.client
+import os
 import re
 import secrets
 import urllib.error
@@ -105,8 +107,6 @@ class Stamp:
 
 def authority_url(given: str | None, environ: dict[str, str] | None = None) -> str | None:
     """``--timestamp URL``, else ``PRESPEC_TSA_URL``, else None (no time-stamp)."""
-    import os
-
     env = os.environ if environ is None else environ
     url = given if given is not None else env.get(URL_VARIABLE) or None
     if url is None:
@@ -184,7 +184,7 @@ def request_token(url: str, digest: str, *, timeout: float = TIMEOUT_SECONDS) ->
     except urllib.error.HTTPError as exc:
         raise BadInput(f"--timestamp {shown}: the time-stamping authority answered HTTP "
                        f"{exc.code} {exc.reason}; nothing was written") from None
-    except (urllib.error.URLError, OSError, ValueError) as exc:
+    except (urllib.error.URLError, http.client.HTTPException, OSError, ValueError) as exc:
         reason = getattr(exc, "reason", None) or exc
         raise BadInput(f"--timestamp {shown}: the time-stamping authority could not be reached "
                        f"({reason}); nothing was written") from None
