@@ -46,10 +46,12 @@ def _parser() -> argparse.ArgumentParser:
     c = add("lock", "resolve defaults and lock the plan before unblinding", writes=True)
     c.add_argument("plan")
     c.add_argument("--sign", metavar="KEY", help="sign the lock entry with this private key")
+    _timestamp_option(c, "the locked version")
     c = add("amend", "lock a changed plan as the next version", writes=True)
     c.add_argument("plan")
     c.add_argument("--reason", required=True, help="why the plan changed")
     c.add_argument("--sign", metavar="KEY", help="sign the amend entry with this private key")
+    _timestamp_option(c, "the new version")
     c = add("history", "list the locked versions and what changed in meaning between two")
     c.add_argument("plan")
     c.add_argument("--from", dest="from_version", type=int, metavar="N",
@@ -75,6 +77,7 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--look", type=int, metavar="K",
                    help="run interim look K of a plan with looks (a plain run is the final "
                    "analysis)")
+    _timestamp_option(c, "the report's results.json")
     c = add("rehearse", "a blinded dry run: never reads the group column, checks the data "
             "and every step, and writes pooled figures and a data dictionary only", writes=True)
     c.add_argument("plan")
@@ -94,6 +97,9 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--document", metavar="FILE",
                    help="check that a plan document (HTML or PDF) carries the words prespec "
                    "describe writes from the locked version whose fingerprint it names")
+    c.add_argument("--tsa-cert", action="append", default=None, metavar="FILE",
+                   help="a PEM certificate the time-stamps' signer must chain to (repeatable); "
+                   "every lock and amend entry must then be time-stamped")
     c.add_argument("--strict", action="store_true",
                    help="exit 3 when any run was not the locked analysis (never locked, "
                    "overridden, or amended after unblinding) or when the report folders hold "
@@ -118,6 +124,20 @@ def _parser() -> argparse.ArgumentParser:
     c = add("demo", "write, lock and run an invented demonstration study", writes=True)
     c.add_argument("dir", nargs="?", default="prespec-demo")
     return p
+
+
+def _timestamp_option(cmd: argparse.ArgumentParser, what: str) -> None:
+    cmd.add_argument("--timestamp", metavar="URL",
+                     help=f"have an RFC 3161 time-stamping authority at URL stamp {what} "
+                     "(default: $PRESPEC_TSA_URL; none when unset)")
+
+
+def _stamped(stamp: Any) -> None:
+    """The line a time-stamped lock, amend or run prints."""
+    if stamp is not None:
+        from .audit.timestamp import stamp_text
+
+        print(f"time-stamped at {stamp_text(stamp.time)} by {stamp.url} (the authority's clock)")
 
 
 def _engine_option(cmd: argparse.ArgumentParser) -> None:
@@ -278,11 +298,12 @@ def _dispatch(args: argparse.Namespace) -> int:
     elif args.command == "schema":
         print(json.dumps(api.schema(args.of), indent=2))
     elif args.command == "lock":
-        res = api.lock(args.plan, actor=args.actor, sign=args.sign)
+        res = api.lock(args.plan, actor=args.actor, sign=args.sign, timestamp=args.timestamp)
         for line in res.warnings:
             print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         if res.created:
             print(f"locked {args.plan} as version {res.version}")
+            _stamped(res.timestamp)
             print(f"fingerprint: {res.fingerprint}")
             print("Register this fingerprint outside prespec (a trial registry, a message to "
                   "the monitor);")
@@ -302,13 +323,14 @@ def _dispatch(args: argparse.Namespace) -> int:
             print(f"prespec: warning: {message}", file=sys.stderr, flush=True)
 
         res = api.amend(args.plan, reason=args.reason, actor=args.actor, sign=args.sign,
-                        warn=warn)
+                        warn=warn, timestamp=args.timestamp)
         for line in res.warnings:
             print(f"prespec: warning: {line}", file=sys.stderr, flush=True)
         if res.created:
             print(f"amended {args.plan}: locked as version {res.version}"
                   + (" (after unblinding: recorded as amended-after-unblinding)" if warned
                      else ""))
+            _stamped(res.timestamp)
         else:
             print(f"{args.plan}: {res.note}")
         print(f"fingerprint: {res.fingerprint}")
@@ -318,7 +340,7 @@ def _dispatch(args: argparse.Namespace) -> int:
         out = api.run(args.plan, args.data, out=args.out, actor=args.actor,
                       accept_deviation=args.accept_deviation, overrides=_overrides(args),
                       look=args.look, engine=args.engine, progress=_progress_bar("preparing"),
-                      counting=_reduction_bar())
+                      counting=_reduction_bar(), timestamp=args.timestamp)
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
         interim = any(isinstance(h.get("looks"), dict) and h["looks"].get("look") !=
@@ -330,6 +352,7 @@ def _dispatch(args: argparse.Namespace) -> int:
         for fam in out.results.get("families") or []:
             print(f"{fam['id']}: family over {fam['over']}, {fam['members_flagged']} of "
                   f"{fam['members_total']} members flagged ({fam['method']} at {fam['level']:g})")
+        _stamped(out.timestamp)
         print(out.folder)
     elif args.command == "rehearse":
         out = api.rehearse(args.plan, args.data, out=args.out, actor=args.actor,
@@ -348,7 +371,8 @@ def _dispatch(args: argparse.Namespace) -> int:
         if args.report is not None and args.rerun is None:
             raise BadInput("--report goes with --rerun DATA")
         res = api.verify(args.plan, expect=args.expect, rerun=args.rerun, report=args.report,
-                         key=args.key, strict=args.strict, document=args.document)
+                         key=args.key, strict=args.strict, document=args.document,
+                         tsa_certs=args.tsa_cert)
         for line in res.passed:
             print(f"ok    {line}")
         for run in res.runs:

@@ -6,6 +6,7 @@ what ``details`` holds depends on the action:
 
 - ``lock`` and ``amend``: the version locked, the plan file's SHA-256, the reason, the digest of
   the lock record, and for an amend the changes in meaning (:class:`VersionDetails`);
+  with ``--timestamp``, the time-stamp token's digest and file (:class:`TimestampDetails`);
 - ``run``, ``look`` and ``rehearse``: the report folder and its manifest, the look, the family
   members and the engine (:class:`ReportDetails`);
 - ``design``: the sizes and the simulated operating characteristics (:class:`DesignDetails`).
@@ -39,6 +40,16 @@ Tagged = Annotated[str, Field(pattern=r"^sha256:[0-9a-f]{64}$", strict=True)]
 Members = dict[Text, list[Text]]  # per family id, its member ids
 
 
+class TimestampDetails(Part):
+    """An RFC 3161 time-stamp of the entry (``audit/timestamp.py``), present only when one was
+    asked for: the SHA-256 of the token's DER, its file (relative to the plan's folder, in
+    ``<stem>.timestamps/``) and the authority's URL (without any credential)."""
+
+    token: Tagged
+    file: Text
+    authority: Text
+
+
 class VersionDetails(Part):
     """A ``lock`` or ``amend``: the version now in force and how to check its lock record."""
 
@@ -48,6 +59,7 @@ class VersionDetails(Part):
     record: Tagged  # sha256 of the canonical form of the whole lock version
     changes: list[Text] | None = None  # an amend: the changes in meaning
     families: Members | None = None  # families with declared levels
+    timestamp: TimestampDetails | None = None  # lock/amend --timestamp: stamps ``record``
 
 
 class LookHypothesis(Part):
@@ -78,6 +90,7 @@ class ReportDetails(Part):
     engine: Text | None = None  # added with the engines
     engine_library: Text | None = None
     query: Text | None = None
+    timestamp: TimestampDetails | None = None  # run --timestamp: stamps results.json
 
 
 class DesignHypothesis(Part):

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec.errors import raise_recorded
 
@@ -19,6 +19,9 @@ from .entries import checked
 from .files import fsync_dir, head_path, lock_path, log_path
 from .lockfile import complete_pending, read_lock, version_digest, write_pending
 from .log import Signer, append, check_chain, check_head, log_size, read_log, repair_head
+
+if TYPE_CHECKING:
+    from .timestamp import Stamp
 
 
 def settle(plan: Path) -> list[dict[str, Any]]:
@@ -76,13 +79,16 @@ def commit_entry(plan: Path, *, actor: str, action: str, fingerprint: str,
 
 def record_version(plan: Path, record: dict[str, Any], *, action: str, actor: str,
                    deviations: list[dict[str, Any]], details: dict[str, Any],
-                   sign: Signer | None = None) -> None:
+                   sign: Signer | None = None, stamp: Stamp | None = None) -> None:
     """Lock ``record`` as the next version of ``plan``: the next lock document is written
     beside the lock, the ``lock`` or ``amend`` entry appended (the moment the version counts),
     then the document renamed over the lock. Before the entry a failure leaves the lock as it
     was and nothing beside it; after it, nothing is removed (:func:`settle` completes it, and
     verify checks the waiting document meanwhile). ``details``: the entry's details beyond
     what the record gives (the version, the plan file's hash, the reason, the record's digest).
+    ``stamp``: the time-stamp token of the record's digest, obtained before anything was
+    written; its file is written beside the lock with the pending document, removed with it
+    when no entry was written, and named with its digest in the entry.
     """
     lock_file = lock_path(plan)
     doc = read_lock(lock_file)
@@ -92,6 +98,24 @@ def record_version(plan: Path, record: dict[str, Any], *, action: str, actor: st
     check_chain(entries, log.name)
     check_head(entries, head_path(plan))
     pending = write_pending(lock_file, new_doc)
+    token_file = None
+    if stamp is not None:
+        from .timestamp import DETAILS_KEY, remove_token, version_file, write_token
+
+        token_file = version_file(plan, record["version"])
+
+    def undo() -> None:
+        pending.unlink(missing_ok=True)
+        if token_file is not None:
+            remove_token(plan, token_file)
+
+    if stamp is not None and token_file is not None:
+        try:
+            write_token(plan, token_file, stamp.der)
+        except BaseException:
+            undo()
+            raise
+        details = {**details, DETAILS_KEY: stamp.details(token_file)}
 
     def into_place() -> None:
         pending.replace(lock_file)
@@ -102,6 +126,6 @@ def record_version(plan: Path, record: dict[str, Any], *, action: str, actor: st
         details={"version": record["version"], "plan_file_sha256": record["plan_file_sha256"],
                  "reason": record["reason"], "record": version_digest(record), **details},
         deviations=deviations, sign=sign,
-        undo=lambda: pending.unlink(missing_ok=True), finish=into_place,
+        undo=undo, finish=into_place,
         recorded=(f"version {record['version']} was locked and recorded in {log.name}; the "
                   "next prespec command completes what is left"))

@@ -45,9 +45,26 @@ def trusted_time(plan: Path, version: dict[str, Any], entry: dict[str, Any]) -> 
     (``version``: the lock document's record; ``entry``: its lock or amend log entry), as the
     first page shows it, or None when the version has no token ("no trusted time-stamp").
 
-    Nothing stores tokens yet; the lead connects this to the time-stamp step's ``token_time``
-    when both are merged. Both ``describe`` and ``verify --document`` read the time here."""
-    return None
+    The token is checked before its time is written (its imprint is the version's digest and
+    its signature holds; whether its signer is trusted is ``verify --tsa-cert``'s question).
+    Both ``describe`` and ``verify --document`` read the time here."""
+    from prespec.audit import timestamp as ts
+
+    details = entry.get("details") if isinstance(entry.get("details"), dict) else {}
+    if ts.DETAILS_KEY not in details:
+        return None
+    number = version.get("version")
+    try:
+        der = ts.version_token(plan, int(number))
+        if der is None:
+            return None
+        info = ts.check_token(der, str(details.get("record")))
+    except ts.TokenProblem as exc:
+        raise IntegrityStop(f"version {number}: its time-stamp token does not hold: {exc} "
+                            "(prespec verify says more)") from None
+    authority = details[ts.DETAILS_KEY].get("authority")
+    return (f"{ts.stamp_text(info.time)} (the authority's clock; time-stamped by {info.signer}"
+            + (f", {authority})" if authority else ")"))
 
 
 def _entry_of(entries: list[dict[str, Any]], version: dict[str, Any]) -> dict[str, Any]:

@@ -11,7 +11,7 @@ import functools
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from prespec import audit
 from prespec.audit.record import record_version
@@ -20,6 +20,9 @@ from prespec.common.environment import environment
 from prespec.errors import BadInput, IntegrityStop
 from prespec.plan import LoadedPlan, json_schema, load_plan, summary
 from prespec.workflow.base import finish_stopped_writes, plain_errors, resolve_actor
+
+if TYPE_CHECKING:
+    from prespec.audit.timestamp import Stamp
 
 
 @dataclass(frozen=True)
@@ -38,6 +41,8 @@ class LockResult:
     created: bool  # False when the plan was already locked unchanged
     note: str | None = None
     warnings: tuple[str, ...] = ()  # e.g. a Bayesian rule whose type I error exceeds alpha
+    #: the authority's time-stamp of the new version (``--timestamp``), else None
+    timestamp: Stamp | None = None
 
 
 def _lock_status(loaded: LoadedPlan) -> str:
@@ -122,15 +127,32 @@ def _version_record(loaded: LoadedPlan, version: int, previous: str | None, reas
 
 def _write_version(loaded: LoadedPlan, record: dict[str, Any], action: str, actor: str,
                    deviations: list[dict[str, Any]], sign: audit.log.Signer | None = None,
-                   changes: list[str] | None = None) -> None:
+                   changes: list[str] | None = None, stamp_url: str | None = None
+                   ) -> Stamp | None:
     """Record the version through ``audit.record``; the entry also names what changed in
-    meaning (amend) and the members each family declares."""
+    meaning (amend) and the members each family declares. With ``stamp_url``, the version's
+    digest is time-stamped by that authority first: an unreachable authority or a bad answer
+    stops here, before anything is written. The stamp, or None."""
     from prespec.analysis.families import declared_members
 
+    stamp = None
+    if stamp_url is not None:
+        from prespec.audit.lockfile import version_digest
+        from prespec.audit.timestamp import request_token
+
+        stamp = request_token(stamp_url, version_digest(record))
     details = {**({"changes": changes} if changes is not None else {}),
                **declared_members(record["plan"])}
     record_version(loaded.path, record, action=action, actor=actor, deviations=deviations,
-                   details=details, sign=sign)
+                   details=details, sign=sign, stamp=stamp)
+    return stamp
+
+
+def _authority(timestamp: str | None) -> str | None:
+    """``--timestamp URL``, else ``PRESPEC_TSA_URL``, else None; checked before any work."""
+    from prespec.audit.timestamp import authority_url
+
+    return authority_url(timestamp)
 
 
 def _signer(sign: str | Path | None) -> audit.log.Signer | None:
@@ -157,11 +179,14 @@ def _serialised(fn: Callable[..., LockResult]) -> Callable[..., LockResult]:
 @plain_errors
 @_serialised
 def lock(plan: str | Path, *, actor: str | None = None,
-         sign: str | Path | None = None) -> LockResult:
+         sign: str | Path | None = None, timestamp: str | None = None) -> LockResult:
     """Resolve the plan, write the lock and a ``lock`` entry; a no-op if already locked.
 
-    ``sign``: a private key file (``prespec key new``) that signs the entry.
+    ``sign``: a private key file (``prespec key new``) that signs the entry. ``timestamp``:
+    the URL of an RFC 3161 time-stamping authority (default ``$PRESPEC_TSA_URL``) that
+    stamps the version's digest before anything is written (``audit/timestamp.py``).
     """
+    url = _authority(timestamp)
     signer = _signer(sign)
     loaded = _load_for_lock(plan)
     finish_stopped_writes(loaded.path)
@@ -172,6 +197,10 @@ def lock(plan: str | Path, *, actor: str | None = None,
             note = None
             if last.get("plan_file_sha256") != loaded.file_sha256:
                 note = "the file's bytes differ from the locked file's (layout or comments only)"
+            if url is not None:
+                unstamped = ("no time-stamp was asked for: a version is time-stamped when it "
+                             "is locked")
+                note = f"{note}; {unstamped}" if note else unstamped
             return LockResult(loaded.fingerprint, int(last["version"]), False, note)
         raise IntegrityStop(
             f"{loaded.path}: the plan's meaning differs from its lock (version "
@@ -180,25 +209,29 @@ def lock(plan: str | Path, *, actor: str | None = None,
         )
     actor = resolve_actor(actor)
     record = _version_record(loaded, 1, None, None, actor)
-    _write_version(loaded, record, "lock", actor, [], signer)
-    return LockResult(loaded.fingerprint, 1, True, warnings=tuple(_plan_warnings(loaded.model)))
+    stamp = _write_version(loaded, record, "lock", actor, [], signer, stamp_url=url)
+    return LockResult(loaded.fingerprint, 1, True, warnings=tuple(_plan_warnings(loaded.model)),
+                      timestamp=stamp)
 
 
 @plain_errors
 @_serialised
 def amend(plan: str | Path, *, reason: str, actor: str | None = None,
           sign: str | Path | None = None,
-          warn: Callable[[str], None] | None = None) -> LockResult:
+          warn: Callable[[str], None] | None = None,
+          timestamp: str | None = None) -> LockResult:
     """Lock a changed plan as the next version, chained to the previous one.
 
     The entry lists what changed in meaning (as ``prespec history`` shows it); an amendment
     after a run on the data is recorded as ``amended-after-unblinding`` in the amend entry,
     and ``warn(message)`` is called with a warning before anything is written.
+    ``timestamp``: as for :func:`lock`.
     """
     from prespec.audit.history import plan_changes
 
     if not reason or not reason.strip():
         raise BadInput("amend: --reason must say why the plan changed")
+    url = _authority(timestamp)
     signer = _signer(sign)
     loaded = _load_for_lock(plan)
     finish_stopped_writes(loaded.path)
@@ -228,9 +261,10 @@ def amend(plan: str | Path, *, reason: str, actor: str | None = None,
                  f"unblinding: version {version} is recorded as amended-after-unblinding, and "
                  "verify reports every run of it as not the locked analysis")
     changes = [str(c) for c in plan_changes(last["plan"], loaded.resolved)]
-    _write_version(loaded, record, "amend", actor, deviations, signer, changes)
+    stamp = _write_version(loaded, record, "amend", actor, deviations, signer, changes,
+                           stamp_url=url)
     return LockResult(loaded.fingerprint, version, True,
-                      warnings=tuple(_plan_warnings(loaded.model)))
+                      warnings=tuple(_plan_warnings(loaded.model)), timestamp=stamp)
 
 
 @plain_errors

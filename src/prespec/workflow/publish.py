@@ -32,6 +32,8 @@ class RunOutcome:
     entry: dict[str, Any]
     #: the multiplicity procedure of each family of hypotheses (``main``, ``H3 pairwise``)
     procedures: dict[str, str] = field(default_factory=dict)
+    #: the authority's time-stamp of results.json (``run --timestamp``), else None
+    timestamp: Any = None
 
 
 def reserve_folder(out: Path, *, numbered: bool) -> tuple[Path, bool]:
@@ -68,6 +70,11 @@ def partial_prefix(folder: Path) -> str:
     return f".{folder.name}{PARTIAL}"
 
 
+def results_bytes(results: dict[str, Any]) -> bytes:
+    """The bytes of a report's ``results.json`` (what a run's time-stamp stamps)."""
+    return (json_text(finish(results), indent=2, allow_nan=False) + "\n").encode("utf-8")
+
+
 def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
                  ) -> tuple[Path, str]:
     """Write the whole report into a temporary folder beside ``folder``: (it, the manifest hash).
@@ -80,8 +87,7 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
     tmp = Path(tempfile.mkdtemp(prefix=partial_prefix(folder), dir=folder.parent))
     tmp.chmod(0o755)  # mkdtemp makes it private; a report folder is an ordinary folder
     try:
-        text = json_text(finish(results), indent=2, allow_nan=False) + "\n"
-        (tmp / "results.json").write_text(text, encoding="utf-8")
+        (tmp / "results.json").write_bytes(results_bytes(results))
         write_tables(tmp, results)
         write_figures(results, tmp)
         if render:
@@ -113,7 +119,8 @@ def move_into_place(tmp: Path, folder: Path, manifest: str | None = None) -> Non
 
 def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bool,
             action: str = "run", details: dict[str, Any] | None = None,
-            before_entry: Callable[[], None] | None = None) -> RunOutcome:
+            before_entry: Callable[[], None] | None = None,
+            stamp_url: str | None = None) -> RunOutcome:
     """Build the report under a temporary name, append its log entry, then move it into place.
 
     The log entry is the moment the run counts. Before it, a failure or a stop removes
@@ -125,7 +132,16 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
     into place (:func:`complete_interrupted`) and repairs the head. So no report folder ever
     holds files unless it is complete and named by the log. The entry and the rename are
     made under the folder's lock; ``before_entry``, called under it, may refuse the entry.
+
+    ``stamp_url``: an RFC 3161 authority that time-stamps the SHA-256 of ``results.json``
+    first, before anything is written (an unreachable authority or a bad answer stops the
+    run here); the token is written beside the plan just before the entry, which names it.
     """
+    stamp = None
+    if stamp_url is not None:
+        from prespec.audit.timestamp import request_token, results_digest
+
+        stamp = request_token(stamp_url, results_digest(results_bytes(results)))
     made = [p for p in reversed(out.parents) if not p.exists()]  # outermost first
     folder, created = reserve_folder(out, numbered=numbered)
 
@@ -147,6 +163,8 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
         raise
     report_rel = Path(os.path.relpath(folder.resolve(), plan_path.parent.resolve())).as_posix()
     with audit.guard.hold(plan_path.parent, exclusive=True):
+        token_file, before, undo = _with_token(plan_path, report_rel, stamp, before_entry,
+                                               lambda: clean(tmp))
         entry = commit_entry(
             plan_path,
             actor=results["actor"],
@@ -159,15 +177,40 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
                      **family_details(results),
                      **({"engine": results["engine"],
                          "engine_library": results.get("engine_library"),
-                         "query": results.get("query")} if "engine" in results else {})},
+                         "query": results.get("query")} if "engine" in results else {}),
+                     **({"timestamp": stamp.details(token_file)} if stamp and token_file
+                        else {})},
             deviations=results["deviations"],
-            before=before_entry,
-            undo=lambda: clean(tmp),
+            before=before,
+            undo=undo,
             finish=lambda: move_into_place(tmp, folder, manifest),
             recorded=(f"the {action} was recorded in {audit.log_path(plan_path).name} and its "
                       f"report is complete ({report_rel}); the next prespec command completes "
                       "what is left"))
-    return RunOutcome(folder, results, entry)
+    return RunOutcome(folder, results, entry, timestamp=stamp)
+
+
+def _with_token(plan_path: Path, report_rel: str, stamp: Any,
+                before_entry: Callable[[], None] | None, undo: Callable[[], None]
+                ) -> tuple[str | None, Callable[[], None] | None, Callable[[], None]]:
+    """With a time-stamp: its file's name, and ``before``/``undo`` that also write it just
+    before the entry and remove it when no entry was written. Called under the folder's lock."""
+    if stamp is None:
+        return None, before_entry, undo
+    from prespec.audit.timestamp import remove_token, run_file, write_token
+
+    token_file = run_file(plan_path, report_rel)
+
+    def before() -> None:
+        if before_entry is not None:
+            before_entry()
+        write_token(plan_path, token_file, stamp.der)
+
+    def undo_all() -> None:
+        remove_token(plan_path, token_file)
+        undo()
+
+    return token_file, before, undo_all
 
 
 @dataclass(frozen=True)

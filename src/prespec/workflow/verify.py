@@ -370,6 +370,185 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
     return found, inside
 
 
+# --- time-stamps (RFC 3161): each token, and the order of the trusted times ---
+
+#: A machine's clock and an authority's that differ by more than this get a note.
+CLOCK_NOTE_SECONDS = 300
+
+
+def _stamped_digest(entry: dict[str, Any], found: dict[str, Path], where: str,
+                    result: VerifyResult) -> str:
+    """What the token of ``entry`` must stamp: a version's record digest, or the SHA-256 of
+    a run's results.json (read from the report folder the manifest check just passed)."""
+    from prespec.audit.timestamp import results_digest
+
+    details = entry["details"]
+    if entry["action"] in ("lock", "amend"):
+        return str(details.get("record"))
+    if entry["action"] in ("run", "look"):
+        rel = details.get("report")
+        try:
+            return results_digest((found[rel] / "results.json").read_bytes())
+        except (KeyError, OSError):
+            raise _fail(result, f"{where}: time-stamp: results.json cannot be read") from None
+    raise _fail(result, f"{where}: a time-stamp on a {entry['action']} entry (only lock, "
+                "amend, run and look entries are time-stamped)")
+
+
+def _check_timestamps(plan: Path, entries: list[dict[str, Any]], found: dict[str, Path],
+                      tsa_certs: list[Path] | None, result: VerifyResult) -> None:
+    """Each time-stamp token the log names: its file is the one recorded, it stamps its
+    entry's digest, its signature holds (``audit.timestamp.check_token``), and with
+    ``--tsa-cert`` its signer chains to a given certificate and every lock and amend entry is
+    time-stamped. A run time-stamped before a version locked before it fails. Then one
+    line per version: its trusted time beside the machine's, and its first run's."""
+    from prespec.audit import timestamp as ts
+
+    key = ts.DETAILS_KEY
+    stamped = [e for e in entries if isinstance(e.get("details"), dict) and key in e["details"]]
+    if not stamped and tsa_certs is None:
+        if ts.folder(plan).exists():
+            _stray_tokens(plan, [], result)
+        return
+    try:
+        trusted = ts.load_trusted(list(tsa_certs)) if tsa_certs is not None else None
+    except PrespecError as exc:
+        raise _fail(result, str(exc)) from None
+    names = _entry_names(entries)
+    if trusted is not None:
+        for entry in entries:
+            if entry["action"] in ("lock", "amend") and key not in entry["details"]:
+                raise _fail(result, f"--tsa-cert: log entry {entry['seq']} ({names[entry['seq']]})"
+                            " is not time-stamped")
+        if not stamped:
+            raise _fail(result, "--tsa-cert: no entry of the log is time-stamped")
+    infos: dict[int, Any] = {}
+    for entry in stamped:
+        where = f"log entry {entry['seq']} ({names[entry['seq']]})"
+        digest = _stamped_digest(entry, found, where, result)
+        try:
+            infos[entry["seq"]] = ts.check_token(ts.read_token(plan, entry["details"]), digest,
+                                                 trusted=trusted)
+        except ts.TokenProblem as exc:
+            raise _fail(result, f"{where}: time-stamp: {exc}") from None
+    latest: dict[str, Any] | None = None  # the latest time-stamped version so far
+    for entry in entries:
+        if entry["action"] in ("lock", "amend") and entry["seq"] in infos:
+            if latest is None or infos[entry["seq"]].time >= infos[latest["seq"]].time:
+                latest = entry
+        elif entry["action"] in ("run", "look") and entry["seq"] in infos \
+                and latest is not None and infos[entry["seq"]].time < infos[latest["seq"]].time:
+            raise _fail(result, f"log entry {entry['seq']} ({names[entry['seq']]}): time-stamped "
+                        f"at {ts.stamp_text(infos[entry['seq']].time)}, before its lock "
+                        f"({names[latest['seq']]}, time-stamped at "
+                        f"{ts.stamp_text(infos[latest['seq']].time)})")
+    listed = ", ".join(names[e["seq"]] for e in stamped)
+    signers = sorted({i.signer for i in infos.values()})
+    urls = sorted({str(e["details"][key].get("authority")) for e in stamped})
+    line = (f"time-stamps: {len(stamped)} token{'' if len(stamped) == 1 else 's'} ({listed}) "
+            f"from {', '.join(urls)}, each stamping its entry's digest, signatures valid, signed "
+            "by " + "; ".join(signers) + " with the time-stamping usage")
+    if trusted is not None:
+        anchors = sorted({str(i.chained_to) for i in infos.values()})
+        line += ", chained to --tsa-cert " + "; ".join(anchors)
+    else:
+        line += "; the signer was not checked against a trusted certificate (give --tsa-cert)"
+    result.passed.append(line)
+    result.passed.extend(_when_lines(entries, infos, names, result))
+    _stray_tokens(plan, stamped, result)
+
+
+def _entry_names(entries: list[dict[str, Any]]) -> dict[int, str]:
+    """``version 2`` for a lock or amend entry, ``run 1`` for the first run or look (as the
+    run lines number them), else the action, by seq."""
+    out: dict[int, str] = {}
+    runs = 0
+    for entry in entries:
+        if entry["action"] in ("lock", "amend"):
+            out[entry["seq"]] = f"version {_version_of(entry)}"
+        elif entry["action"] in ("run", "look"):
+            runs += 1
+            out[entry["seq"]] = f"run {runs}"
+        else:
+            out[entry["seq"]] = str(entry["action"])
+    return out
+
+
+def _when_lines(entries: list[dict[str, Any]], infos: dict[int, Any], names: dict[int, str],
+                result: VerifyResult) -> list[str]:
+    """Per lock version: when it was locked (the authority's time beside the machine's) and
+    when its first run was, each said with the clock it rests on; a note where the two
+    clocks differ by more than ``CLOCK_NOTE_SECONDS``."""
+    from prespec.audit.timestamp import stamp_text
+
+    def moment(entry: dict[str, Any], by: str | None = None) -> str:
+        info = infos.get(entry["seq"])
+        if info is None:
+            return f"{entry['at']} by the machine's clock only (not time-stamped)"
+        machine = _parsed_time(entry["at"])
+        if machine is not None and abs((machine - info.time).total_seconds()) \
+                > CLOCK_NOTE_SECONDS:
+            result.notes.append(
+                f"{names[entry['seq']]}: the machine's clock ({entry['at']}) and the "
+                f"time-stamping authority's ({stamp_text(info.time)}) differ by "
+                f"{_duration(abs((machine - info.time).total_seconds()))}; the authority's "
+                "time is the one its signature proves")
+        signer = "" if info.signer == by else f" by {info.signer}"
+        return f"{stamp_text(info.time)} (time-stamped{signer}; machine clock {entry['at']})"
+
+    lines = []
+    versions = [e for e in entries if e["action"] in ("lock", "amend")]
+    for index, version in enumerate(versions):
+        until = versions[index + 1]["seq"] if index + 1 < len(versions) else None
+        first = next((e for e in entries if e["action"] in ("run", "look")
+                      and e["seq"] > version["seq"] and (until is None or e["seq"] < until)),
+                     None)
+        line = f"when: {names[version['seq']]} locked at {moment(version)}; "
+        if first is None:
+            line += "no run of it on record"
+        else:
+            by = infos[version["seq"]].signer if version["seq"] in infos else None
+            line += f"first run ({names[first['seq']]}) at {moment(first, by)}"
+            if first["seq"] in infos and version["seq"] in infos:
+                line += ", after the lock's time-stamp"
+        lines.append(line)
+    return lines
+
+
+def _parsed_time(text: Any) -> Any:
+    from datetime import datetime
+
+    try:
+        return datetime.fromisoformat(str(text))  # a Z is read as UTC (Python 3.11)
+    except ValueError:
+        return None
+
+
+def _duration(seconds: float) -> str:
+    minutes, secs = divmod(round(seconds), 60)
+    hours, minutes = divmod(minutes, 60)
+    days, hours = divmod(hours, 24)
+    parts = [f"{days} d"] * bool(days) + [f"{hours} h"] * bool(hours) + \
+        [f"{minutes} min"] * bool(minutes) + [f"{secs} s"] * bool(secs)
+    return " ".join(parts[:2]) or "0 s"
+
+
+def _stray_tokens(plan: Path, stamped: list[dict[str, Any]], result: VerifyResult) -> None:
+    """Files in ``<stem>.timestamps/`` that no entry names: a note (a lock or run stopped
+    between writing its token and its log entry leaves one; it proves nothing)."""
+    from prespec.audit import timestamp as ts
+
+    place = ts.folder(plan)
+    if not place.is_dir():
+        return
+    named = {str(e["details"][ts.DETAILS_KEY].get("file")) for e in stamped}
+    for child in sorted(place.iterdir()):
+        rel = f"{place.name}/{child.name}"
+        if rel not in named:
+            result.notes.append(f"{rel}: a time-stamp token no log entry names (left by a step "
+                                "stopped before its entry); not part of the record")
+
+
 _STOPPED_RUN_NAME = re.compile(r"\d{8}T\d{6}Z-(run|rehearsal)(-\d+)?")  # default_folder's
 
 
@@ -649,7 +828,8 @@ def last_line(runs: list[RunVerdict], warnings: int = 0) -> str:
 
 def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = None,
                report: str | None = None, key: Path | None = None,
-               strict: bool = False, document: Path | None = None) -> VerifyResult:
+               strict: bool = False, document: Path | None = None,
+               tsa_certs: list[Path] | None = None) -> VerifyResult:
     result = VerifyResult()
     if not audit.lock_path(plan).exists() and not audit.log_path(plan).exists() \
             and not audit.head_path(plan).exists():
@@ -661,6 +841,7 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
         _check_plan_file(plan, doc, entries, result)
     found, inside = _check_reports(plan, entries, result)
     _check_leftovers(plan, found, result)
+    _check_timestamps(plan, entries, found, tsa_certs, result)
     for rel in sorted(inside):
         result.warnings.extend(inside[rel])
     if expect is not None:
@@ -882,7 +1063,8 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
 @plain_errors
 def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | None = None,
            report: str | None = None, key: str | Path | None = None,
-           strict: bool = False, document: str | Path | None = None) -> VerifyResult:
+           strict: bool = False, document: str | Path | None = None,
+           tsa_certs: list[str | Path] | None = None) -> VerifyResult:
     """Check the lock, the log and every report the log names, from the files alone.
 
     ``expect``: the fingerprint registered elsewhere at lock time. ``rerun``: a data file;
@@ -890,8 +1072,12 @@ def verify(plan: str | Path, *, expect: str | None = None, rerun: str | Path | N
     ``key``: a public key file; every lock and amend entry must carry its valid signature.
     ``strict``: the warnings (things in the report folders no recorded run wrote) fail.
     ``document``: a plan document (HTML or PDF) that must carry a locked version's words.
+    ``tsa_certs``: PEM certificate files; every lock and amend entry must carry a time-stamp
+    whose signer chains to one of them (``_check_timestamps``).
     """
     with audit.guard.hold(Path(plan).parent, exclusive=False):  # no writer half way
         return verify_all(Path(plan), expect=expect, rerun=Path(rerun) if rerun else None,
                           report=report, key=Path(key) if key else None,
-                          strict=strict, document=Path(document) if document else None)
+                          strict=strict, document=Path(document) if document else None,
+                          tsa_certs=[Path(c) for c in tsa_certs] if tsa_certs is not None
+                          else None)
