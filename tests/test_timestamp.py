@@ -591,8 +591,8 @@ def test_the_plan_document_shows_the_locks_trusted_time(
     entry = audit.read_log(audit.log_path(plan))[0]
     info = ts.check_token(der, entry["details"]["record"])  # the authority's own time
     made = api.describe(plan)
-    expected = (f"{ts.stamp_text(info.time)} (the authority's clock; time-stamped by "
-                f"{info.signer}, {authority.url})")
+    expected = (f"{ts.stamp_text(info.time)} by {info.signer} ({authority.url}; the "
+                "authority's clock)")
     assert made.timestamp == expected
     text = html.unescape(re.sub(r"\s+", " ", re.sub(r"<[^>]+>", "",
                                                      made.html.read_text("utf-8"))))

@@ -63,8 +63,8 @@ def trusted_time(plan: Path, version: dict[str, Any], entry: dict[str, Any]) -> 
         raise IntegrityStop(f"version {number}: its time-stamp token does not hold: {exc} "
                             "(prespec verify says more)") from None
     authority = details[ts.DETAILS_KEY].get("authority")
-    return (f"{ts.stamp_text(info.time)} (the authority's clock; time-stamped by {info.signer}"
-            + (f", {authority})" if authority else ")"))
+    return (f"{ts.stamp_text(info.time)} by {info.signer} ("
+            + (f"{authority}; " if authority else "") + "the authority's clock)")
 
 
 def _entry_of(entries: list[dict[str, Any]], version: dict[str, Any]) -> dict[str, Any]:
