@@ -36,7 +36,7 @@ from prespec.common.departures import Departure, Note
 from prespec.common.matching import as_text, is_blank, value_key
 
 from ..errors import DataError
-from ..plan.families import EVENT_OUTCOME, declared, is_event_family, member_id
+from ..plan.families import EVENT_OUTCOME, declared, is_event_family
 from .families import FamilyData, Level
 from .prepare import GroupCounts, OutcomeCounts, Prepared, _per_unique, cell_predicate
 
@@ -134,13 +134,15 @@ def _frame(kind: str, counts: pd.Series) -> pd.DataFrame:
                          "n": counts.values})
 
 
+def _null(cell: Any) -> bool:
+    return cell is None or (isinstance(cell, float) and np.isnan(cell)) or cell is pd.NA
+
+
 def normal_tally(frame: pd.DataFrame) -> pd.DataFrame:
     """A tally as every engine's answer is compared: text cells (None for NULL or NaN),
     integer counts, the rows with a zero count dropped, sorted."""
-    out = pd.DataFrame({c: frame[c].astype(object).where(frame[c].notna(), None)
-                        for c in TALLY_COLUMNS[:-1]})
-    for c in TALLY_COLUMNS[1:-1]:
-        out[c] = [None if x is None else str(x) for x in out[c]]
+    out = pd.DataFrame({c: pd.Series([None if _null(x) else str(x) for x in frame[c]],
+                                     dtype=object) for c in TALLY_COLUMNS[:-1]})
     out["n"] = pd.to_numeric(frame["n"]).fillna(0).astype(np.int64).to_numpy()
     out = out.loc[out["n"] > 0]
     key = out[list(TALLY_COLUMNS[:-1])].fillna("\x00").astype(str)

@@ -175,7 +175,6 @@ def write_safety_demo(folder: Path, *, per_group: int = 200, seed: int = 7
     plan.write_text(PLAN_TEXT, encoding="utf-8")
     data = folder / DATA_NAME
     safety_frame(per_group=per_group, seed=seed).to_csv(data, index=False)
-    write_safety_events_demo(folder, per_group=per_group, seed=seed)
     return plan, data
 
 

@@ -158,9 +158,12 @@ def compute_results(
     called as a family's levels are prepared."""
     from prespec.data.engines.columns import check_file
     from prespec.data.engines.pipeline import count_source
-    from prespec.data.engines.sources import data_file_field, data_files_field, file_stamps
-
-    from prespec.data.engines.sources import resolve_events_source
+    from prespec.data.engines.sources import (
+        data_file_field,
+        data_files_field,
+        file_stamps,
+        resolve_events_source,
+    )
     from prespec.data.events import event_templates
 
     if source is None:

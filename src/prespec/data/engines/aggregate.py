@@ -26,8 +26,8 @@ from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, Engine, Reduction
 from .compiler import (
     BLANK_COLUMN,
     SET_COLUMN,
-    Query,
     EventJoin,
+    Query,
     compile_bad_bytes,
     compile_blank_ids,
     compile_counts,

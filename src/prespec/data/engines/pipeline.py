@@ -19,8 +19,8 @@ from ..events import (
 from ..prepare import Prepared, prepare
 from .aggregate import AggregatingEngine
 from .base import DataSource, Filter
-from .compiler import EventJoin
 from .choose import open_engine
+from .compiler import EventJoin
 from .request import count_request
 
 
