@@ -588,6 +588,7 @@ class Family(Part):
     outcome: Text
     compare: list[Text]
     over: Text
+    level_column: Text | None = None  # a family over the event table: its level column
     within: Text | None
     declared: Flag
     method: Text
@@ -745,6 +746,7 @@ class RehearsedFamily(Part):
     id: Text
     title: Text | None
     over: Text
+    level_column: Text | None = None  # a family over the event table: its level column
     within: Text | None
     declared: Flag
     method: Text

@@ -184,8 +184,8 @@ def event_data(tally: pd.DataFrame, plan: Plan, units: Prepared, shown: str) -> 
     n_blank = int(tally.loc[kind == "blank", "n"].sum())
     if n_blank:
         deviations.append(Departure("blank-event-level",
-                                    f"{shown}: {_rows(n_blank)} of units in the unit table "
-                                    f"have a blank {ev.level!r}; left out",
+                                    f"{shown}: {_rows(n_blank)} of known units (ids in the "
+                                    f"unit table) with a blank {ev.level!r} left out",
                                     f"a level in every row of {ev.level!r}",
                                     f"{n_blank:,} blank"))
     n_outside = int(tally.loc[kind == "outside", "n"].sum())

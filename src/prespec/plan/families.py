@@ -318,9 +318,12 @@ def _declared_issues(levels: list[str] | dict[str, list[str]], where: KeyPath
             seen.setdefault(term, group)
 
 
-def family_words(hyp: Hypothesis) -> str:
+def family_words(hyp: Hypothesis, plan: Any = None) -> str:
     """The family part of ``prespec check``'s summary line of a hypothesis."""
     grouped = f" within {hyp.within}" if hyp.within else ""
+    if plan is not None and is_event_family(plan, hyp):
+        grouped = (f" (the levels of {plan.data.events.level} in the event table; units with "
+                   f"an event of each level, of all units in the population){grouped}")
     n = len(hyp.members or [])
     found = (f"{n} declared levels" if hyp.levels is not None
              else "levels found in the data at run time")

@@ -211,7 +211,8 @@ def _env_name(value: Any) -> Any:
 
 
 class EventsSpec(_Model):
-    """An event table: one row per event, joined to the units by id (``over: events``)."""
+    """An event table: one row per event, joined to the units by their id (for a family with
+    over: events)."""
 
     source: str | None = Field(
         default=None, description="the event table: a file path or glob inside the plan's "
