@@ -234,6 +234,7 @@ def test_departures_and_the_event_table_field_on_every_engine(runs: dict[str, An
 
 
 def _study_folder(tmp_path: Path) -> tuple[Path, Path]:
+    tmp_path.mkdir(parents=True, exist_ok=True)
     units, events = tables()
     units.to_csv(tmp_path / "units.csv", index=False)
     events.to_csv(tmp_path / "events.csv", index=False)
@@ -330,3 +331,38 @@ def test_plan_rules_of_the_event_table(tmp_path: Path) -> None:
     plain = load_plan(Path(__file__).parents[1] / "plans" / "safety-events.yaml").model
     assert plain.data.events is not None and plain.hypotheses[0].within == "body_system"
     assert plain.outcomes == {}
+
+
+@pytest.mark.parametrize("engine", ["pandas", "duckdb"])
+def test_levels_from_the_data_and_an_ordinary_hypothesis_beside_the_family(
+        tmp_path: Path, engine: str) -> None:
+    """Without declared levels every level found is a member (hiccups too), sorted by group
+    and level, with the counts of the declared run; an ordinary hypothesis on the unit table
+    runs beside the family on the same units."""
+    plan, units = _study_folder(tmp_path)
+    frame = tables()[0]
+    frame["completed"] = ["1" if i % 3 else "0" for i in range(len(frame.index))]
+    frame.to_csv(units, index=False)
+    text = plan.read_text().replace(
+        "    levels:\n      skin: [dryness, redness, rash]\n      general: [headache, nausea]\n",
+        "").replace("hypotheses:\n", "outcomes:\n  done: {column: completed, event: [1], "
+                    "no_event: [0], missing: error}\nhypotheses:\n  - {id: H1, outcome: done, "
+                    "compare: [new, standard], test: fisher-exact}\n")
+    plan.write_text(text)
+    declared_plan, declared_units = _study_folder(tmp_path / "declared")
+    declared_run = _results(declared_plan, None, declared_units, engine)
+    results = _results(plan, None, units, engine)
+    members = {m["level"]: m for m in results["families"][0]["members"]}
+    assert list(members) == ["headache", "hiccups", "nausea", "dryness", "rash", "redness"]
+    for member in declared_run["families"][0]["members"]:
+        assert members[member["level"]]["table"] == member["table"]
+    assert members["hiccups"]["table"]["events"] == [
+        1 if frame.loc[frame["subject"] == "P0002", "arm"].item() == "new" else 0,
+        1 if frame.loc[frame["subject"] == "P0002", "arm"].item() == "standard" else 0]
+    codes = {d["code"] for d in results["deviations"]}
+    assert "undeclared-level" not in codes
+    (h1,) = results["hypotheses"]
+    kept = frame.loc[frame["safety_set"] == "yes"]
+    assert h1["table"]["totals"] == [int((kept["arm"] == g).sum()) for g in ("new", "standard")]
+    assert h1["table"]["events"] == [int(((kept["arm"] == g) & (kept["completed"] == "1")).sum())
+                                     for g in ("new", "standard")]
