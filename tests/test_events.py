@@ -366,3 +366,29 @@ def test_levels_from_the_data_and_an_ordinary_hypothesis_beside_the_family(
     assert h1["table"]["totals"] == [int((kept["arm"] == g).sum()) for g in ("new", "standard")]
     assert h1["table"]["events"] == [int(((kept["arm"] == g) & (kept["completed"] == "1")).sum())
                                      for g in ("new", "standard")]
+
+
+def test_the_event_demo_gives_the_review_of_the_one_table_demo(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """``python -m prespec.demo.safety_events`` writes plans/safety-events.yaml with a
+    participant and an event table drawn from the one-table demo's data; both plans give the
+    same members, p-values and flags."""
+    from prespec.demo import safety_events
+    from prespec.demo.safety import EVENTS_PLAN_TEXT, write_safety_demo
+
+    root = Path(__file__).parents[1]
+    assert (root / "plans" / "safety-events.yaml").read_text() == EVENTS_PLAN_TEXT
+    folder = tmp_path / "gel"
+    assert safety_events.main([str(folder)]) == 0
+    out = capsys.readouterr().out
+    assert f"plan: {folder / 'safety-events.yaml'}" in out
+    assert sorted(p.name for p in folder.iterdir()) == [
+        "safety-events.csv", "safety-events.yaml", "safety-participants.csv"]
+    one_plan, one_data = write_safety_demo(tmp_path / "one")
+    one = _results(one_plan, None, one_data, "pandas")["families"][0]
+    for engine in ("pandas", "duckdb"):
+        two = _results(folder / "safety-events.yaml", None, folder / "safety-participants.csv",
+                       engine)["families"][0]
+        assert [{k: m[k] for k in _SAME} for m in two["members"]] == [
+            {k: m[k] for k in _SAME} for m in one["members"]]
+        assert two["members_flagged"] == one["members_flagged"] == 4
