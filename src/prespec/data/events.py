@@ -38,7 +38,7 @@ from prespec.common.matching import as_text, is_blank, value_key
 from ..errors import DataError
 from ..plan.families import EVENT_OUTCOME, declared, is_event_family
 from .families import FamilyData, Level
-from .prepare import GroupCounts, OutcomeCounts, Prepared, _per_unique, cell_predicate
+from .prepare import GroupCounts, OutcomeCounts, Prepared, cell_predicate
 
 if TYPE_CHECKING:
     from prespec.plan.model import Hypothesis, Plan
@@ -79,59 +79,97 @@ def declared_levels(plan: Plan) -> list[str] | None:
     return list(out)
 
 
+def _each(column: pd.Series, fn: Any) -> np.ndarray:
+    """``fn`` of each distinct cell, spread back over the rows (an array of objects)."""
+    codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    answers = np.empty(len(uniques) + 1, dtype=object)
+    answers[:-1] = [fn(u) for u in uniques]
+    answers[-1] = fn(None)  # code -1: a missing cell
+    return answers[codes]
+
+
 def _texts(column: pd.Series) -> np.ndarray:
-    return _per_unique(column, lambda c: None if is_blank(c) else as_text(c))
+    return _each(column, lambda c: None if is_blank(c) else as_text(c))
+
+
+def _codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Integer codes of texts (-1 for None) and the texts they stand for."""
+    codes, uniques = pd.factorize(pd.Series(values, dtype=object), use_na_sentinel=True)
+    return codes.astype(np.int64), np.asarray(uniques, dtype=object)
 
 
 def tally_frames(units: pd.DataFrame, events: pd.DataFrame, plan: Plan) -> pd.DataFrame:
-    """The tally from the raw cells of both tables, in-process (the pandas engine)."""
+    """The tally from the raw cells of both tables, in-process (the pandas engine): the
+    event rows matched to the units by the trimmed text of the id, then counted on integer
+    codes (the unit ids are unique: the unit table's preparation refuses a repeated one)."""
     spec, ev = plan.data, plan.data.events
     assert ev is not None
     keep = np.ones(len(units.index), dtype=bool)
     for cond in spec.include:
-        keep &= _per_unique(units[cond.column], cell_predicate(*cond.op())).astype(bool)
+        keep &= _each(units[cond.column], cell_predicate(*cond.op())).astype(bool)
     by_key = {value_key(g): g for g in spec.groups}
-    arm = _per_unique(units[spec.group],
-                      lambda c: None if is_blank(c) else by_key.get(value_key(c)))
-    inside = keep & np.array([a is not None for a in arm], dtype=bool)
-    u = pd.DataFrame({"id": _texts(units[spec.id]), "arm": arm, "inside": inside})
+    arm = _each(units[spec.group], lambda c: None if is_blank(c) else by_key.get(value_key(c)))
+    u_ids = _texts(units[spec.id])
+    known = np.array([x is not None for x in u_ids], dtype=bool)
+    inside = keep & np.array([a is not None for a in arm], dtype=bool) & known
     levels = declared_levels(plan)
     canonical = {value_key(t): t for t in levels} if levels is not None else None
-    e = pd.DataFrame({
-        "id": _texts(events[ev.id]),
-        "level": _per_unique(events[ev.level], lambda c: None if is_blank(c) else (
-            canonical.get(value_key(c), as_text(c)) if canonical is not None else as_text(c))),
-        "within": (_texts(events[ev.within]) if ev.within is not None
-                   else np.full(len(events.index), None, dtype=object))})
-    joined = e.merge(u.dropna(subset=["id"]), on="id", how="left", indicator=True)
-    matched = (joined["_merge"] == "both").to_numpy()
-    inside_e = matched & joined["inside"].fillna(False).to_numpy(dtype=bool)
-    has_level = joined["level"].notna().to_numpy()
+    e_ids = _texts(events[ev.id])
+    e_level = _each(events[ev.level], lambda c: None if is_blank(c) else (
+        canonical.get(value_key(c), as_text(c)) if canonical is not None else as_text(c)))
+    e_within = (_texts(events[ev.within]) if ev.within is not None
+                else np.full(len(events.index), None, dtype=object))
+    # one factorisation of both id columns: unit_at is the unit's position, -1 for none
+    both, _ = pd.factorize(np.concatenate([u_ids[known], e_ids]), use_na_sentinel=True)
+    n_known = int(known.sum())
+    position = np.full(int(both.max(initial=-1)) + 2, -1, dtype=np.int64)
+    position[both[:n_known]] = np.arange(n_known)
+    unit_at = position[both[n_known:]]  # a blank id has code -1: the last entry, -1
+    unit_rows = np.flatnonzero(known)
+    matched = unit_at >= 0
+    unit_of = np.where(matched, unit_rows[np.maximum(unit_at, 0)], -1)
+    inside_e = matched & inside[np.maximum(unit_of, 0)]
+    level_code, level_text = _codes(e_level)
+    within_code, within_text = _codes(e_within)
+    has_level = level_code >= 0
+    arms = list(spec.groups)
+    arm_code = np.array([arms.index(a) if a is not None else -1 for a in arm], dtype=np.int64)
     out: list[pd.DataFrame] = []
-    unit_counts = u.loc[u["inside"]].groupby("arm").size()
+    sizes = np.bincount(arm_code[inside], minlength=len(arms))
     out.append(pd.DataFrame({"kind": "units", "level": None, "within": None,
-                             "arm": unit_counts.index.astype(object), "n": unit_counts.values}))
-    counted = joined.loc[inside_e & has_level].drop_duplicates(["id", "level", "within"])
-    ev_counts = counted.groupby(["level", "within", "arm"], dropna=False).size()
-    out.append(_frame("events", ev_counts))
-    pairs = joined.loc[matched & has_level].groupby(["level", "within"], dropna=False).size()
-    out.append(_frame("pairs", pairs))
-    unmatched = joined.loc[~matched].groupby("id", dropna=False).size()
+                             "arm": arms, "n": sizes}))
+    # distinct (unit, level, within) of the population, then counted per (level, within, arm)
+    pick = inside_e & has_level
+    key = pd.DataFrame({"unit": unit_of[pick], "level": level_code[pick],
+                        "within": within_code[pick]}).drop_duplicates()
+    key["arm"] = arm_code[key["unit"].to_numpy()]
+    counted = key.groupby(["level", "within", "arm"]).size().reset_index(name="n")
+    out.append(pd.DataFrame({
+        "kind": "events", "level": level_text[counted["level"].to_numpy()],
+        "within": _decode(within_text, counted["within"].to_numpy()),
+        "arm": [arms[a] for a in counted["arm"]], "n": counted["n"].to_numpy()}))
+    pick = matched & has_level
+    pairs = pd.DataFrame({"level": level_code[pick], "within": within_code[pick]}).groupby(
+        ["level", "within"]).size().reset_index(name="n")
+    out.append(pd.DataFrame({
+        "kind": "pairs", "level": level_text[pairs["level"].to_numpy()],
+        "within": _decode(within_text, pairs["within"].to_numpy()), "arm": None,
+        "n": pairs["n"].to_numpy()}))
+    unmatched = pd.Series(e_ids[~matched], dtype=object).value_counts(dropna=False)
     out.append(pd.DataFrame({"kind": "unmatched", "level": unmatched.index.astype(object),
-                             "within": None, "arm": None, "n": unmatched.values}))
+                             "within": None, "arm": None, "n": unmatched.to_numpy()}))
     for kind, mask in (("blank", matched & ~has_level), ("outside", matched & ~inside_e)):
         out.append(pd.DataFrame({"kind": [kind], "level": [None], "within": [None],
                                  "arm": [None], "n": [int(mask.sum())]}))
-    frame = pd.concat(out, ignore_index=True)
-    return normal_tally(frame)
+    return normal_tally(pd.concat(out, ignore_index=True))
 
 
-def _frame(kind: str, counts: pd.Series) -> pd.DataFrame:
-    index = counts.index.to_frame(index=False)
-    return pd.DataFrame({"kind": kind, "level": index["level"].astype(object),
-                         "within": index["within"].astype(object),
-                         "arm": index["arm"].astype(object) if "arm" in index else None,
-                         "n": counts.values})
+def _decode(texts: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """The texts of codes, None for -1."""
+    table = np.empty(len(texts) + 1, dtype=object)
+    table[:-1] = texts
+    table[-1] = None
+    return table[codes]
 
 
 def _null(cell: Any) -> bool:

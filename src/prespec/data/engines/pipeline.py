@@ -19,7 +19,7 @@ from ..events import (
 from ..prepare import Prepared, prepare
 from .aggregate import AggregatingEngine
 from .base import DataSource, Filter
-from .choose import open_engine
+from .choose import auto_engine, open_engine
 from .compiler import EventJoin
 from .request import count_request
 
@@ -53,6 +53,9 @@ def count_source(plan: Any, source: DataSource, *, engine: str = "auto",
     with ``events`` (the event table of ``data.events``), also the tally of the families
     over it, joined by the same engine where the data are."""
     units = unit_plan(plan) if events is not None else plan
+    if engine == "auto" and events is not None and source.kind != "url":
+        # a large event table beside a small unit table is joined out of core too
+        engine = "duckdb" if "duckdb" in (auto_engine(source), auto_engine(events)) else "auto"
     request = count_request(units, source.shown)
     with open_engine(engine, source, progress) as eng:
         reduction = eng.reduce(request)
