@@ -392,3 +392,44 @@ def test_the_event_demo_gives_the_review_of_the_one_table_demo(
         assert [{k: m[k] for k in _SAME} for m in two["members"]] == [
             {k: m[k] for k in _SAME} for m in one["members"]]
         assert two["members_flagged"] == one["members_flagged"] == 4
+
+
+@pytest.mark.parametrize("engine", ["pandas", "duckdb"])
+def test_bad_event_tables_are_one_line_errors_on_every_engine(tmp_path: Path,
+                                                              engine: str) -> None:
+    from prespec.errors import DataError
+
+    plan, units = _study_folder(tmp_path)
+    events = tables()[1]
+    moved = events.copy()
+    moved.loc[moved["term"].str.strip() == "dryness", "system"] = "general"
+    moved.loc[moved.index[moved["term"].str.strip() == "dryness"][:1], "system"] = "skin"
+    moved.to_csv(tmp_path / "events.csv", index=False)
+    with pytest.raises(DataError, match=r"level 'dryness' is declared under 'skin' .* puts it "
+                                        r"under 'general'"):
+        _results(plan, None, units, engine)
+    blank = events.copy()
+    blank.loc[blank["term"].str.strip() == "nausea", "system"] = ""
+    blank.to_csv(tmp_path / "events.csv", index=False)
+    with pytest.raises(DataError, match=r"level 'nausea' has a blank 'system'"):
+        _results(plan, None, units, engine)
+    events.iloc[:0].to_csv(tmp_path / "events.csv", index=False)
+    with pytest.raises(DataError, match="no rows") as caught:
+        _results(plan, None, units, engine)
+    assert "\n" not in str(caught.value)
+
+
+def test_auto_joins_a_large_event_table_with_duckdb(tmp_path: Path,
+                                                    monkeypatch: pytest.MonkeyPatch) -> None:
+    from prespec.data.engines import choose
+
+    plan, units = _study_folder(tmp_path)
+    pd.concat([tables()[1]] * 5).to_csv(tmp_path / "events.csv", index=False)  # each row 5x
+    small = _results(plan, None, units, "auto")
+    assert small["engine"] == "pandas"
+    size = (tmp_path / "events.csv").stat().st_size
+    assert units.stat().st_size < size
+    monkeypatch.setattr(choose, "AUTO_PANDAS_LIMIT", size)  # the unit table stays below it
+    large = _results(plan, None, units, "auto")
+    assert large["engine"] == "duckdb"
+    assert large["families"] == small["families"]

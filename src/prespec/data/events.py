@@ -208,6 +208,8 @@ def event_data(tally: pd.DataFrame, plan: Plan, units: Prepared, shown: str) -> 
     assert ev is not None
     tally = normal_tally(tally)
     kind = tally["kind"]
+    if not int(tally.loc[kind.isin(["pairs", "unmatched", "blank"]), "n"].sum()):
+        raise DataError(f"{shown}: the event table has no rows")
     deviations: list[Departure] = []
     notes: list[Note] = []
     unmatched = tally.loc[kind == "unmatched"]
@@ -297,10 +299,10 @@ def _check_groups(pairs: pd.DataFrame, order: list[str], groups_of: dict[str, st
     within = hyp.within
     for value in order:
         rows = pairs.loc[pairs["level"] == value]
-        found = {None if w is None else str(w): int(n)
-                 for w, n in rows.groupby("within", dropna=False)["n"].sum().items()}
-        found = {(None if (k is None or (isinstance(k, float) and np.isnan(k))) else k): v
-                 for k, v in found.items()}
+        found: dict[str | None, int] = {}
+        for w, n in zip(rows["within"], rows["n"], strict=True):
+            key = None if _null(w) else str(w)
+            found[key] = found.get(key, 0) + int(n)
         if None in found:
             raise DataError(f"{shown}: level {value!r} has a blank "
                             f"{within!r} (data.events.within) in {_rows(found[None])}; "
