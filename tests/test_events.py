@@ -327,6 +327,12 @@ def test_plan_rules_of_the_event_table(tmp_path: Path) -> None:
     plan.write_text(text.replace("    source: events.csv\n", "    source: ../events.csv\n"))
     with pytest.raises(PlanError, match="data.events.source"):
         api.run(plan, tmp_path / "units.csv", actor="ana", accept_deviation="trying")
+    plan.write_text(text.replace("    over: events\n", "    outcome: had\n    over: term\n")
+                    .replace("hypotheses:\n", "outcomes:\n  had: {column: had_event, event: "
+                             "[1], no_event: [0], missing: error}\nhypotheses:\n")
+                    .replace("    flag_method", "    within: system\n    flag_method"))
+    with pytest.raises(PlanError, match="no hypothesis has one, so leave data.events out"):
+        load_plan(plan)
     # without data.events, over: events is a column of the unit table, as before
     plain = load_plan(Path(__file__).parents[1] / "plans" / "safety-events.yaml").model
     assert plain.data.events is not None and plain.hypotheses[0].within == "body_system"

@@ -258,7 +258,8 @@ def _family(plan: Plan, hyp: Hypothesis, pairs: pd.DataFrame, counted: pd.DataFr
     left_out = 0
     if given is not None:
         names = [t for t, _ in given]
-        stray = seen.loc[[lv not in set(names) for lv in seen.index]]
+        known = set(names)
+        stray = seen.loc[[lv not in known for lv in seen.index]]
         if len(stray):
             left_out = int(stray.sum())
             found = Counter({str(k): int(v) for k, v in stray.items()})
@@ -322,8 +323,3 @@ def _check_groups(pairs: pd.DataFrame, order: list[str], groups_of: dict[str, st
         elif found:
             groups_of[value] = next(iter(found))
 
-
-def rehearsal_events(data: EventData) -> dict[str, Any]:
-    """What a rehearsal shows of the event table: rows, unmatched ids, blank levels, and the
-    event rows per level, all pooled over the groups."""
-    return dict(data.summary)

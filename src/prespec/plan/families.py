@@ -226,6 +226,9 @@ def event_issues(plan: Plan) -> Iterator[Issue]:
         value = getattr(events, key)
         if value is not None and not value.strip():
             yield Issue((*where, key), "must name the event table")
+    if not any(is_event_family(plan, h) for h in plan.hypotheses):
+        yield Issue(where, "an event table is read by a family over it (over: events); no "
+                    "hypothesis has one, so leave data.events out")
     if events.source is not None and "://" in events.source:
         yield Issue((*where, "source"), "the event table is a file or glob inside the plan's "
                     "folder; with a database, give data.source the URL and name the event "
