@@ -115,6 +115,7 @@ def tables() -> tuple[pd.DataFrame, pd.DataFrame]:
         ("", "redness", "skin"),  # a blank id
         ("P0001", "", "skin"),  # a known unit, a blank term
         ("P0002", "hiccups", "general"),  # a term outside the declared ones
+        ("P0004", "x'; DROP TABLE ev_units; --", "skin"),  # another, shaped like SQL: data
         (" P0003 ", " nausea ", "general"),  # padded: P0003 had nausea
         ("P0003", "nausea", "general"),  # and again: counts once
         ("P0007", "dryness", "skin"),  # outside the population: not counted
@@ -217,7 +218,7 @@ def test_departures_and_the_event_table_field_on_every_engine(runs: dict[str, An
     assert found["unmatched-event-id"]["found"] == "(blank), Q0999"
     assert "3 event rows left out" in found["unmatched-event-id"]["detail"]
     assert found["blank-event-level"]["found"] == "1 blank"
-    assert found["undeclared-level"]["found"] == "hiccups"
+    assert found["undeclared-level"]["found"] == "hiccups, x'; DROP TABLE ev_units; --"
     table = results["event_table"]
     events = tables()[1]
     of_p7 = int((events["subject"].str.strip() == "P0007").sum())
@@ -359,7 +360,8 @@ def test_levels_from_the_data_and_an_ordinary_hypothesis_beside_the_family(
     declared_run = _results(declared_plan, None, declared_units, engine)
     results = _results(plan, None, units, engine)
     members = {m["level"]: m for m in results["families"][0]["members"]}
-    assert list(members) == ["headache", "hiccups", "nausea", "dryness", "rash", "redness"]
+    assert list(members) == ["headache", "hiccups", "nausea", "dryness", "rash", "redness",
+                             "x'; DROP TABLE ev_units; --"]
     for member in declared_run["families"][0]["members"]:
         assert members[member["level"]]["table"] == member["table"]
     assert members["hiccups"]["table"]["events"] == [
