@@ -53,6 +53,9 @@ GOLDEN = {
         "sha256:2c6b68cc3c720ef6b89c2435dedbe18764406850ef132c2149bcb7ab30ed389d",
     "plans/safety-review.yaml":
         "sha256:a9ad4a412b45f68eb171f68e72fa1e66e9a1fa8b2b363b0a2875c3a7bec5a22d",
+    # issue 20: a family over an event table (data.events); computed, then frozen
+    "plans/safety-events.yaml":
+        "sha256:9221a1d3388fc46e903960f9dc0cbba0a2642696a7e2ad9e470fa153841a6596",
     "plans/wound-dressing.yaml":
         "sha256:7f1707a66696d7cb2301f395720e7f624fce4f13b8bd0d9a6c13f8c8f4a615ac",
     "all-kinds.yaml":
@@ -177,6 +180,8 @@ ALWAYS = {
     # issue 17: a model reached only through a new key (sceptical_prior), so its keys are all
     # written whenever it is; no earlier plan holds it
     "BetaByMean": ("mean", "n"),
+    # issue 20: reached only through a new key (data.events); no earlier plan holds it
+    "EventsSpec": ("id", "level"),
 }
 # The keys left out at their default, and that default: what a plan without the key means.
 # A released default never changes.
@@ -184,6 +189,11 @@ LEFT_OUT_AT_DEFAULT = {
     ("DataSpec", "source"): None,
     ("DataSpec", "table"): None,
     ("DataSpec", "password_from"): None,
+    # issue 20: the event table, and its optional keys
+    ("DataSpec", "events"): None,
+    ("EventsSpec", "source"): None,
+    ("EventsSpec", "table"): None,
+    ("EventsSpec", "within"): None,
     ("Hypothesis", "looks"): None,
     ("Hypothesis", "over"): None,
     # the family keys: written in full on a family (over given), else left out at None

@@ -256,6 +256,11 @@ def _print_rehearsal(res: dict[str, Any]) -> None:
                 f"does NOT fit ({check['reason']}); the run would use its fallback")
         print(f"{check['hypothesis']}: the working model {fits} on the dummy allocation; "
               f"blank covariates (pooled): {blanks}")
+    events = res.get("event_table")
+    if events is not None:
+        print(f"event table {events['data_file']}: {events['rows']} rows, "
+              f"{len(events['levels'])} levels; left out: {events['unmatched_rows']} with an "
+              f"id not in the unit table, {events['blank_level_rows']} with a blank level")
     columns = res["data_dictionary"]["columns"]
     print(f"data dictionary: {len(columns)} column use(s) in tables/data-dictionary.csv")
 

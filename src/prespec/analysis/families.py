@@ -36,7 +36,7 @@ from prespec.analysis.hypotheses import (
 from prespec.common.departures import Note
 from prespec.data import Prepared, prepare
 from prespec.data.families import FamilyData, Level, family_data
-from prespec.plan.families import family_column, is_family, member_id
+from prespec.plan.families import family_column, is_event_family, is_family, member_id
 from prespec.stats import multiplicity
 from prespec.stats.doublefdr import double_fdr
 from prespec.stats.exact import TIE_TOLERANCE
@@ -252,6 +252,7 @@ def analyse_family(plan: Plan, hyp: Hypothesis, data: FamilyData, notes: list[No
         "outcome": hyp.outcome,
         "compare": list(hyp.compare),
         "over": hyp.over,
+        **_level_column(plan, hyp),
         "within": hyp.within,
         "declared": hyp.levels is not None,
         "method": hyp.flag_method,
@@ -270,6 +271,14 @@ def analyse_family(plan: Plan, hyp: Hypothesis, data: FamilyData, notes: list[No
         "members_flagged": sum(1 for r in rows if r["flagged"]),
         "members_without_data": sum(1 for r in rows if r["p_value"] is None),
     }
+
+
+def _level_column(plan: Any, hyp: Hypothesis) -> dict[str, Any]:
+    """``level_column`` of a family over the event table (the event table's level column,
+    which the report heads its levels with); nothing for a family over a column."""
+    if is_event_family(plan, hyp):
+        return {"level_column": plan.data.events.level}
+    return {}
 
 
 def merged_notes(hyp_id: str, notes: list[Note]) -> list[Note]:
@@ -341,7 +350,8 @@ def rehearsal_families(plan: Any, data: list[FamilyData], executed: dict[str, An
                 "total": 0 if counts is None else sum(g.total for g in counts.groups),
                 "missing": 0 if counts is None else sum(g.blank + g.unmapped
                                                         for g in counts.groups)})
-        out.append({"id": hyp.id, "title": hyp.title, "over": hyp.over, "within": hyp.within,
+        out.append({"id": hyp.id, "title": hyp.title, "over": hyp.over,
+                    **_level_column(plan, hyp), "within": hyp.within,
                     "declared": hyp.levels is not None, "method": hyp.flag_method,
                     "level": hyp.flag_level, "members": rows,
                     "executed": bool(done and done.executed),

@@ -653,6 +653,7 @@ class Family(Part):
     outcome: Text
     compare: list[Text]
     over: Text
+    level_column: Text | None = None  # a family over the event table: its level column
     within: Text | None
     declared: Flag
     method: Text
@@ -671,6 +672,41 @@ class Family(Part):
     members_flagged: Count
     members_without_data: Count
     pre_specified: Flag | None = None
+
+
+class EventTable(Part):
+    """The event table of ``data.events`` that a run joined to the unit table."""
+
+    data_file: Text = Field(description="The event table, relative to the plan's folder "
+                            "(or its database).")
+    data: Text = Field(description="Its fingerprint: a file's SHA-256, else of its rows.")
+    query: Text | None = Field(description="The query that joined it; null in-process.")
+    rows: Count = Field(description="Its rows.")
+    unmatched_rows: Count = Field(description="Rows whose id is blank or not in the unit "
+                                  "table (the departure unmatched-event-id).")
+    unmatched_ids: Count = Field(description="How many distinct such ids.")
+    blank_level_rows: Count = Field(description="Rows of known units with a blank level (the "
+                                    "departure blank-event-level).")
+    outside_rows: Count = Field(description="Rows of units outside the analysis population.")
+
+
+class RehearsedEventLevel(Part):
+    level: Text = Field(description="A level of the event table.")
+    rows: Count = Field(description="Its event rows of known units, all groups together.")
+
+
+class RehearsedEventTable(Part):
+    """The event table on the rehearsal's data, pooled over the groups."""
+
+    data_file: Text = Field(description="The event table, relative to the plan's folder.")
+    data: Text = Field(description="Its fingerprint.")
+    rows: Count = Field(description="Its rows.")
+    unmatched_rows: Count = Field(description="Rows whose id is blank or not in the unit "
+                                  "table.")
+    unmatched_ids: Count = Field(description="How many distinct such ids.")
+    blank_level_rows: Count = Field(description="Rows of known units with a blank level.")
+    outside_rows: Count = Field(description="Rows of units outside the analysis population.")
+    levels: list[RehearsedEventLevel] = Field(description="Event rows per level.")
 
 
 # --- the design's planned versus achieved sizes ---
@@ -732,6 +768,7 @@ class RunResults(Provenance):
     caution: Text
     design: Design | None = None
     families: list[Family] | None = None
+    event_table: EventTable | None = None  # only with data.events
     overrides: list[Override] | None = None
 
 
@@ -774,6 +811,7 @@ class RehearsedFamily(Part):
     id: Text
     title: Text | None
     over: Text
+    level_column: Text | None = None  # a family over the event table: its level column
     within: Text | None
     declared: Flag
     method: Text
@@ -862,6 +900,8 @@ class RehearsalResults(Provenance):
     pooled: dict[Text, PooledOutcome]
     hypotheses: list[RehearsedHypothesis]
     families: list[RehearsedFamily] | None = None
+    event_table: RehearsedEventTable | None = Field(
+        default=None, description="The event table of data.events, pooled over the groups.")
     covariates: list[RehearsedCovariate] | None = Field(
         default=None, description="The covariates of adjusted hypotheses, pooled over groups.")
     model_checks: list[ModelCheck] | None = Field(

@@ -30,6 +30,8 @@ DEPARTURE_CODES: dict[str, str] = {
     "undeclared-level": "rows of a family whose level is not one of its declared levels",
     "missing-covariate": "units of a covariate-adjusted hypothesis left out for a blank "
                          "covariate",
+    "unmatched-event-id": "event rows whose unit id is not in the unit table",
+    "blank-event-level": "event rows of a unit in the unit table whose level is blank",
 }
 
 # Departures that stop a run (exit 3) unless the user accepts them with a reason.

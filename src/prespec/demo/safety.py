@@ -1,5 +1,9 @@
 """An invented safety review, for demonstration and the tests of families only.
 
+Written twice: one row per participant and term (``safety-review.yaml``), and as a
+participant table with an adverse-event table (``safety-events.yaml``, a family over the event
+table), both from the same draws, so that the two give the same review.
+
 Two hand-gel formulations (a new one and the standard one), 200 participants each, and 30
 adverse-event terms in 3 body systems. The data have one row per participant and term
 (``had_event`` 1 or 0), the shape a family expects. A few skin terms are made more frequent
@@ -93,6 +97,74 @@ def safety_frame(*, per_group: int = 200, seed: int = 7,
                 "had_event": (rng.random(len(ids)) < p).astype(int).astype(str),
                 "safety_set": "yes"}))
     return pd.concat(parts, ignore_index=True)
+
+
+EVENTS_PLAN_NAME = "safety-events.yaml"
+UNITS_NAME = "safety-participants.csv"
+EVENTS_NAME = "safety-events.csv"
+
+EVENTS_PLAN_TEXT = """\
+# The invented hand-gel safety review, from a participant table and an adverse-event table.
+prespec: 1
+title: Skin and general tolerability of two hand-gel formulations (from an event table)
+protocol: HG-SAFE-01 (invented demonstration study)
+data:
+  id: participant
+  group: gel
+  groups: [new, standard]
+  reference: standard
+  include:
+    - {column: safety_set, in: ["yes"]}
+  planned_n: {new: 200, standard: 200}
+  source: safety-participants.csv
+  events:
+    source: safety-events.csv
+    id: participant
+    level: event_term
+    within: body_system
+alpha: 0.05
+multiplicity: holm
+hypotheses:
+  - id: AE
+    title: Each adverse-event term, new vs standard gel
+    compare: [new, standard]
+    test: fisher-exact
+    over: events
+    levels:
+""" + "".join(f"      {system}: [{', '.join(terms)}]\n" for system, terms in TERMS.items()) + """\
+    flag_method: double-fdr
+    flag_level: 0.1
+"""
+
+
+def event_tables(frame: pd.DataFrame, *, seed: int = 11) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The one-row-per-participant-and-term ``frame`` as a participant table (participant,
+    gel, safety_set) and an event table (participant, event_term, body_system, day): one row
+    per event, so a participant with a term has one row of it, or two on different days."""
+    rng = np.random.default_rng(seed)
+    units = (frame[["participant", "gel", "safety_set"]].drop_duplicates("participant")
+             .reset_index(drop=True))
+    had = frame.loc[frame["had_event"].astype(str) == "1",
+                    ["participant", "event_term", "body_system"]].reset_index(drop=True)
+    had = had.assign(day=rng.integers(1, 29, len(had.index)).astype(str))
+    again = had.loc[rng.random(len(had.index)) < 0.15]
+    again = again.assign(day=rng.integers(29, 57, len(again.index)).astype(str))
+    events = pd.concat([had, again], ignore_index=True)
+    events = events.iloc[rng.permutation(len(events.index))].reset_index(drop=True)
+    return units, events
+
+
+def write_safety_events_demo(folder: Path, *, per_group: int = 200, seed: int = 7
+                             ) -> tuple[Path, Path]:
+    """Write the event-table form of the demo into ``folder``: the plan, the participant
+    table and the event table; (plan path, participant table path). Overwrites them."""
+    folder.mkdir(parents=True, exist_ok=True)
+    plan = folder / EVENTS_PLAN_NAME
+    plan.write_text(EVENTS_PLAN_TEXT, encoding="utf-8")
+    units, events = event_tables(safety_frame(per_group=per_group, seed=seed))
+    units.to_csv(folder / UNITS_NAME, index=False)
+    events.to_csv(folder / EVENTS_NAME, index=False)
+    return plan, folder / UNITS_NAME
 
 
 def write_safety_demo(folder: Path, *, per_group: int = 200, seed: int = 7

@@ -84,14 +84,44 @@ def _hypothesis_defaults(hyp: dict[str, Any], alpha: Any) -> dict[str, Any]:
     return out
 
 
+#: ``over: events``: the family runs over the levels of the event table (``data.events``).
+EVENTS = "events"
+#: The outcome of a family over the event table: the unit had an event of the level.
+EVENT_OUTCOME = "events"
+
+
+def _event_table(data: dict[str, Any]) -> dict[str, Any] | None:
+    spec = data.get("data")
+    events = spec.get("events") if isinstance(spec, dict) else None
+    return events if isinstance(events, dict) else None
+
+
+def _event_defaults(hyp: dict[str, Any], events: dict[str, Any]) -> dict[str, Any]:
+    out = dict(hyp)
+    out.setdefault("outcome", EVENT_OUTCOME)
+    if out.get("within") is None and isinstance(events.get("within"), str):
+        out["within"] = events["within"]
+    return out
+
+
 def family_defaults(data: Any) -> Any:
     """Fill in a family's defaults in a raw plan: role exploratory, flag_level the plan's
-    alpha, group_level the flag_level (double-fdr), and members from declared levels."""
+    alpha, group_level the flag_level (double-fdr), and members from declared levels; a
+    family over the event table (``over: events`` with ``data.events``) takes the outcome
+    ``events`` and ``within`` from ``data.events.within``, and a plan whose every hypothesis
+    is such a family may leave ``outcomes`` out."""
     if not isinstance(data, dict) or not isinstance(data.get("hypotheses"), list):
         return data
     hyps = data["hypotheses"]
     if not any(isinstance(h, dict) and h.get("over") is not None for h in hyps):
         return data
+    events = _event_table(data)
+    if events is not None:
+        hyps = [_event_defaults(h, events) if isinstance(h, dict) and h.get("over") == EVENTS
+                else h for h in hyps]
+        if "outcomes" not in data and all(isinstance(h, dict) and h.get("over") == EVENTS
+                                          for h in hyps):
+            data = {**data, "outcomes": {}}
     alpha = data.get("alpha")
     return {**data, "hypotheses": [
         _hypothesis_defaults(h, alpha) if isinstance(h, dict) and h.get("over") is not None
@@ -101,6 +131,12 @@ def family_defaults(data: Any) -> Any:
 def is_family(hyp: Any) -> bool:
     """Whether a validated hypothesis is a family template."""
     return getattr(hyp, "over", None) is not None
+
+
+def is_event_family(plan: Any, hyp: Any) -> bool:
+    """Whether a validated hypothesis is a family over the event table (``over: events``
+    with ``data.events`` declared; without it, ``events`` is a column like any other)."""
+    return getattr(hyp, "over", None) == EVENTS and getattr(plan.data, "events", None) is not None
 
 
 def family_column(plan: Plan) -> str | None:
@@ -121,7 +157,10 @@ def family_issues(plan: Any, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
                             "COLUMN (the column whose levels the family runs over)",
                             at_key=True)
         return
-    yield from _column_issues(plan, hyp, path)
+    if is_event_family(plan, hyp):
+        yield from _event_issues(plan, hyp, path)
+    else:
+        yield from _column_issues(plan, hyp, path)
     yield from _method_issues(hyp, path)
     yield from _shape_issues(hyp, path)
     yield from _levels_issues(hyp, path)
@@ -142,6 +181,58 @@ def _column_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue
     if hyp.within is not None and hyp.within == hyp.over:
         yield Issue((*path, "within"), f"{show(hyp.within)} is the over column; within names "
                     "the column that groups its levels")
+
+
+def _event_issues(plan: Plan, hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
+    """A family over the event table: its outcome is having an event of the level, its
+    ``within`` is ``data.events.within``; the plan's other families run over it too."""
+    events = plan.data.events
+    assert events is not None
+    if hyp.outcome != EVENT_OUTCOME:
+        yield Issue((*path, "outcome"), "a family over the event table counts the units with "
+                    "an event of each level; leave outcome out")
+    if hyp.within is not None and hyp.within != events.within:
+        yield Issue((*path, "within"), f"{show(hyp.within)} is not data.events.within; a family "
+                    "over the event table groups its levels by data.events.within (leave "
+                    "within out)")
+    if hyp.flag_method == "double-fdr" and events.within is None:
+        yield Issue((*path, "flag_method"), "double-fdr adjusts across groups of levels and "
+                    "within each; it needs data.events.within (e.g. body_system)")
+    others = sorted({str(h.over) for h in plan.hypotheses
+                     if h.over is not None and h.over != EVENTS})
+    if others:
+        yield Issue((*path, "over"), "a plan's families run over the event table or over "
+                    f"columns of the unit table, not both (also over: {', '.join(others)})")
+
+
+def event_issues(plan: Plan) -> Iterator[Issue]:
+    """The rules of ``data.events``: its columns named, the id not the level."""
+    events = plan.data.events
+    if events is None:
+        return
+    where: KeyPath = ("data", "events")
+    for key in ("id", "level", "within"):
+        column = getattr(events, key)
+        if column is not None and not column.strip():
+            yield Issue((*where, key), "must name a column")
+    if events.level == events.id:
+        yield Issue((*where, "level"), f"names the same column as data.events.id "
+                    f"({show(events.id)}); the level and the unit id are different columns")
+    if events.within is not None and events.within in (events.id, events.level):
+        yield Issue((*where, "within"), f"{show(events.within)} is data.events."
+                    f"{'id' if events.within == events.id else 'level'}; within names the "
+                    "column that groups the levels")
+    for key in ("source", "table"):
+        value = getattr(events, key)
+        if value is not None and not value.strip():
+            yield Issue((*where, key), "must name the event table")
+    if not any(is_event_family(plan, h) for h in plan.hypotheses):
+        yield Issue(where, "an event table is read by a family over it (over: events); no "
+                    "hypothesis has one, so leave data.events out")
+    if events.source is not None and "://" in events.source:
+        yield Issue((*where, "source"), "the event table is a file or glob inside the plan's "
+                    "folder; with a database, give data.source the URL and name the event "
+                    "table in data.events.table")
 
 
 def _method_issues(hyp: Hypothesis, path: KeyPath) -> Iterator[Issue]:
@@ -230,9 +321,12 @@ def _declared_issues(levels: list[str] | dict[str, list[str]], where: KeyPath
             seen.setdefault(term, group)
 
 
-def family_words(hyp: Hypothesis) -> str:
+def family_words(hyp: Hypothesis, plan: Any = None) -> str:
     """The family part of ``prespec check``'s summary line of a hypothesis."""
     grouped = f" within {hyp.within}" if hyp.within else ""
+    if plan is not None and is_event_family(plan, hyp):
+        grouped = (f" (the levels of {plan.data.events.level} in the event table; units with "
+                   f"an event of each level, of all units in the population){grouped}")
     n = len(hyp.members or [])
     found = (f"{n} declared levels" if hyp.levels is not None
              else "levels found in the data at run time")

@@ -210,6 +210,35 @@ def _env_name(value: Any) -> Any:
     return value
 
 
+class EventsSpec(_Model):
+    """An event table: one row per event, joined to the units by their id (for a family with
+    over: events)."""
+
+    source: str | None = Field(
+        default=None, description="the event table: a file path or glob inside the plan's "
+        "folder (relative to it), read as the unit table is read; with a database URL in "
+        "data.source, give table instead")
+    table: str | None = Field(default=None, description="the event table in the database of "
+                              "data.source (a database URL)")
+    id: str = Field(description="the column of the event table holding the unit id; it "
+                    "joins data.id of the unit table")
+    level: str = Field(description="the column holding the level of each event (e.g. the "
+                       "event term): a family with over: events runs once per level")
+    within: str | None = Field(default=None, description="the column grouping the levels "
+                               "(e.g. body_system), for double-fdr; a level belongs to one "
+                               "group")
+
+    CANONICAL: ClassVar[Canonical] = Canonical(always=("id", "level"),
+                                               if_set=("source", "table", "within"))
+
+    @model_validator(mode="after")
+    def _one_place(self) -> EventsSpec:
+        if (self.source is None) == (self.table is None):
+            raise problem("name the event table once: source (a file or glob) or table (in "
+                          "the database of data.source)")
+        return self
+
+
 class DataSpec(_Model):
     """Which columns hold the unit id and the group, the groups, and the population."""
 
@@ -230,11 +259,15 @@ class DataSpec(_Model):
     table: str | None = Field(default=None, description="the table of a database source")
     password_from: Annotated[str | None, BeforeValidator(_env_name)] = Field(
         default=None, description="the environment variable that holds the database password")
+    events: EventsSpec | None = Field(
+        default=None, description="an event table (one row per event) beside the unit table; "
+        "a family with over: events counts, per level, the units with at least one event of "
+        "that level")
 
     # a plan without a data source resolves as before these keys existed
     CANONICAL: ClassVar[Canonical] = Canonical(
         always=("id", "group", "groups", "reference", "include", "planned_n"),
-        if_set=("source", "table", "password_from"))
+        if_set=("source", "table", "password_from", "events"))
 
     @model_validator(mode="after")
     def _source_keys(self) -> DataSpec:
@@ -245,6 +278,12 @@ class DataSpec(_Model):
             raise problem("data.password_from goes with a database URL in data.source")
         if is_url and not self.table:
             raise problem("data.source is a database URL: name the table in data.table")
+        if self.events is not None and self.events.table is not None and not is_url:
+            raise problem("data.events.table goes with a database URL in data.source; name a "
+                          "file in data.events.source")
+        if self.events is not None and self.events.source is not None and is_url:
+            raise problem("data.source is a database URL: name the event table of that "
+                          "database in data.events.table")
         return self
 
     @model_validator(mode="before")

@@ -14,7 +14,7 @@ from typing import Any
 
 from prespec.common.matching import value_key
 from prespec.plan import vocabulary as v
-from prespec.plan.families import family_issues
+from prespec.plan.families import event_issues, family_issues, is_event_family
 from prespec.plan.locate import Issue
 from prespec.plan.looks import all_looks_issues
 from prespec.plan.model import Hypothesis, Plan, suggest
@@ -38,6 +38,7 @@ def format_issues(plan: Plan) -> Iterator[Issue]:
     if not plan.title.strip():
         yield Issue(("title",), "must not be empty")
     yield from _data_issues(plan)
+    yield from event_issues(plan)
     yield from _outcome_issues(plan)
     yield from _multiplicity_issues(plan)
     yield from _design_issues(plan)
@@ -103,7 +104,9 @@ def _condition_issues(cond: Any, path: KeyPath) -> Iterator[Issue]:
 
 
 def _outcome_issues(plan: Plan) -> Iterator[Issue]:
-    if not plan.outcomes:
+    only_events = bool(plan.hypotheses) and all(is_event_family(plan, h)
+                                                for h in plan.hypotheses)
+    if not plan.outcomes and not only_events:
         yield Issue(("outcomes",), "must define at least one outcome")
     for name, out in plan.outcomes.items():
         path: KeyPath = ("outcomes", name)
@@ -198,7 +201,7 @@ def _hypothesis_issues(plan: Plan, hyp: Hypothesis, path: KeyPath,
     seen.setdefault(hyp.id, int(path[1]))
     if hyp.title is not None and _blank(hyp.title):
         yield Issue((*path, "title"), "must not be empty (leave it out instead)")
-    if hyp.outcome not in plan.outcomes:
+    if hyp.outcome not in plan.outcomes and not is_event_family(plan, hyp):
         yield Issue((*path, "outcome"), _not_in("the outcomes", hyp.outcome,
                                                 list(plan.outcomes)))
     yield from _compare_issues(plan, hyp, path)

@@ -113,7 +113,7 @@ def _hypothesis(plan: Plan, hyp: Hypothesis) -> str:
 
         parts.append(looks_words(hyp.looks))
     if hyp.over is not None:
-        parts.append(family_words(hyp))
+        parts.append(family_words(hyp, plan))
     if hyp.sensitivity:
         parts.append(f"sensitivity for missing outcomes: {', '.join(hyp.sensitivity)}")
     if hyp.then is not None:
@@ -138,7 +138,14 @@ def summary(plan: Plan) -> str:
         lines.append("Population:    rows where " + "; and ".join(map(_condition, data.include)))
     else:
         lines.append("Population:    every row")
-    lines.append("Outcomes:")
+    events = getattr(data, "events", None)
+    if events is not None:
+        where = events.source if events.source is not None else f"table {events.table}"
+        grouped = f", grouped by {console(events.within)}" if events.within else ""
+        lines.append(f"Event table:   {console(where)}: one row per event; unit id "
+                     f"{console(events.id)}, level {console(events.level)}{grouped}")
+    lines.append("Outcomes:" if plan.outcomes or events is None else
+                 "Outcomes:      none (each family counts units with an event of each level)")
     for name, out in plan.outcomes.items():
         lines.append(f"  {name}: column {out.column}; event = {_values(out.event)}; "
                      f"no event = {_values(out.no_event)}; blank counts as: {out.missing}")

@@ -117,6 +117,8 @@ def pooled(results: Mapping[str, Any]) -> str:
     out = ["<h2>Pooled outcomes, all groups together</h2>"]
     if results.get("pooled") is None:
         return out[0] + "<p>results.json gives no pooled figures.</p>"
+    if not results["pooled"] and results.get("event_table") is not None:
+        return ""  # only families over the event table: no outcome of the unit table
     body = []
     for name, raw in mapping(results["pooled"], "pooled").items():
         at = f"pooled.{name}"
@@ -232,6 +234,38 @@ def covariates(results: Mapping[str, Any]) -> str:
                        f"{esc(words)}</div>")
         out.append(table(["Hypothesis", "Working model fitted", "Reason"], rows,
                          cls="prespec-model-checks", row_styles=marks))
+    return "".join(out)
+
+
+# --- the event table of a family over it ----------------------------------------------------
+
+def event_table(results: Mapping[str, Any]) -> str:
+    """A rehearsal's event table (``data.events``): its rows, the rows left out (an id not in
+    the unit table, a blank level), the rows of units outside the population, and the event
+    rows per level, all groups together; ``""`` without one."""
+    if not is_rehearsal(results) or results.get("event_table") is None:
+        return ""
+    ev = mapping(results["event_table"], "event_table")
+    count = {k: number(ev.get(k), f"event_table.{k}") for k in (
+        "rows", "unmatched_rows", "unmatched_ids", "blank_level_rows", "outside_rows")}
+    name = esc(text(ev.get("data_file"), "event_table.data_file", default=NULL))
+    digest = esc(text(ev.get("data"), "event_table.data", default=NULL))
+    out = ["<h2>The event table, all groups together</h2>", f"<p>{name} ({digest}).</p>"]
+    out.append(table(["Event rows", "Id not in the unit table", "Distinct such ids",
+                      "Blank level", "Rows of units outside the population"],
+                     [[fmt_thousands(count[k]) for k in count]], numeric=range(5),
+                     cls="prespec-event-table"))
+    rows = []
+    for i, raw in enumerate(items(ev.get("levels") or [], "event_table.levels")):
+        level = mapping(raw, f"event_table.levels[{i}]")
+        rows.append([text(level.get("level"), f"event_table.levels[{i}].level", default=NULL),
+                     fmt_thousands(number(level.get("rows"), f"event_table.levels[{i}].rows"))])
+    if rows:
+        out.append(table(["Level", "Event rows of known units"], rows, numeric=(1,),
+                         cls="prespec-event-levels", caption="Event rows per level"))
+    out.append("<p>Rows whose id is not in the unit table, or whose level is blank, are left "
+               "out of every family and recorded as departures. A family counts each unit of "
+               "the population once per level, however many rows it has.</p>")
     return "".join(out)
 
 

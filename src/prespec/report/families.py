@@ -266,7 +266,7 @@ def member_table(fam: Mapping[str, Any], table_id: str) -> str:
     """Every member as a row of a table that sorts by a clicked header."""
     g = list(fam.get("compare") or ["first", "second"])
     double = fam.get("method") == "double-fdr"
-    head = [str(fam.get("over") or "level"), str(fam.get("within") or "within"),
+    head = [str(fam.get("level_column") or fam.get("over") or "level"), str(fam.get("within") or "within"),
             f"{g[0]} events / n", f"{g[1]} events / n",
             "risk difference", "interval", "p-value", "p adjusted", *(
                 ["adjusted p of the group"] if double else []), "flagged"]
@@ -392,7 +392,7 @@ def rehearsed(results: Mapping[str, Any]) -> str:
                 for m in (mapping(x, "members") for x in items(fam.get("members"), "members"))]
         out.append(f"<h3>Family {esc(fid)}</h3><p>{esc(state)}; "
                    f"{esc(plural(len(rows), 'member'))}.</p>"
-                   + table([str(fam.get("over") or "level"), str(fam.get("within") or "within"),
+                   + table([str(fam.get("level_column") or fam.get("over") or "level"), str(fam.get("within") or "within"),
                             "events, all groups", "analysed, all groups",
                             "missing"], rows, numeric=(2, 3, 4),
                            caption="Pooled over the groups: no group is shown"))

@@ -1053,8 +1053,9 @@ def blinded_banner(results: Mapping[str, Any]) -> str:
 
 def pooled(results: Mapping[str, Any]) -> str:
     """The pooled figures per outcome of a rehearsal, then the covariates of its adjusted
-    hypotheses and their working models on the dummy allocation, or ``""``."""
-    return blinded.pooled(results) + blinded.covariates(results)
+    hypotheses and their working models on the dummy allocation, then its event table, or
+    ``""``."""
+    return blinded.pooled(results) + blinded.covariates(results) + blinded.event_table(results)
 
 
 def data_dictionary(results: Mapping[str, Any]) -> str:

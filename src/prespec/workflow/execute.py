@@ -158,13 +158,22 @@ def compute_results(
     called as a family's levels are prepared."""
     from prespec.data.engines.columns import check_file
     from prespec.data.engines.pipeline import count_source
-    from prespec.data.engines.sources import data_file_field, data_files_field, file_stamps
+    from prespec.data.engines.sources import (
+        data_file_field,
+        data_files_field,
+        file_stamps,
+        resolve_events_source,
+    )
+    from prespec.data.events import event_templates
 
     if source is None:
         source = DataSource("file", str(data_path), str(data_path))
     before = file_stamps(source)
     family_data: list[Any] = []
-    if templates(plan):
+    events = resolve_events_source(plan_path, plan, source) if event_templates(plan) else None
+    event_table: dict[str, Any] | None = None
+    event_result: Any = None
+    if templates(plan) and events is None:
         path = family_file(source, engine)
         check_file(path, source.shown)  # a repeated column name, as every engine refuses it
         frame = read_data(path, read_columns(plan), source.shown)
@@ -172,9 +181,13 @@ def compute_results(
         prepared, family_data = prepare_run(frame, plan, path, progress)
         used_engine, query = "pandas", None
     else:
-        counted = count_source(plan, source, engine=engine, progress=counting)
+        counted = count_source(plan, source, engine=engine, progress=counting, events=events)
         data_hash, prepared = counted.data_hash, counted.prepared
         used_engine, query = counted.engine, counted.query
+        if counted.events is not None and events is not None:
+            event_result = counted.events
+            family_data = list(event_result.families)
+            event_table = event_table_field(plan_path, events, counted)
     files = data_files_field(plan_path, source, before)
     deviations = list(deviations)
     if previous_data is not None and previous_data != data_hash:
@@ -196,6 +209,9 @@ def compute_results(
     for fam in family_data:
         deviations.extend(fam.deviations)
         notes.extend(fam.notes)
+    if event_result is not None:
+        deviations.extend(event_result.deviations)
+        notes.extend(event_result.notes)
     hypotheses, stat_notes = analyse(ordinary_plan(plan), prepared)
     notes.extend(stat_notes)
     if looks is not None:
@@ -219,7 +235,22 @@ def compute_results(
     )
     if family_data:
         results["families"] = families
+    if event_table is not None:
+        results["event_table"] = event_table
     return with_engine(results, used_engine, query, files)
+
+
+def event_table_field(plan_path: Path, events: DataSource, counted: Any) -> dict[str, Any]:
+    """``event_table`` of results.json (only with ``data.events``): the event table read, its
+    fingerprint (a file's SHA-256), the query that joined it (None in-process), and what it
+    held: rows, rows with an id not in the unit table, rows with a blank level."""
+    from prespec.data.engines.sources import data_file_field
+
+    summary = counted.events.summary
+    return {"data_file": data_file_field(plan_path, events), "data": counted.events_hash,
+            "query": counted.events_query,
+            **{k: summary[k] for k in ("rows", "unmatched_rows", "unmatched_ids",
+                                       "blank_level_rows", "outside_rows")}}
 
 
 def family_file(source: DataSource, engine: str) -> Path:

@@ -386,25 +386,47 @@ def compute_rehearsal(
     """Read the data without the group column, rehearse the run, and build the pooled
     results.json document of a rehearsal (not written). ``source`` (default: the file
     ``data_path``) is read by ``engine``; no engine is asked for the group column."""
-    from prespec.data.engines.pipeline import blinded_rows
-    from prespec.data.engines.sources import data_file_field, data_files_field, file_stamps
+    from prespec.data.engines.pipeline import blinded_rows, event_rows, unit_plan
+    from prespec.data.engines.sources import (
+        data_file_field,
+        data_files_field,
+        file_stamps,
+        resolve_events_source,
+    )
+    from prespec.data.events import event_data, event_templates, tally_frames
 
     if source is None:
         source = DataSource("file", str(data_path), str(data_path))
-    blinded_frame(pd.DataFrame(), plan, str(plan_path))  # refuses a plan that reads the group
-    if templates(plan):
+    events = resolve_events_source(plan_path, plan, source) if event_templates(plan) else None
+    units = unit_plan(plan) if events is not None else plan  # the unit table's part
+    blinded_frame(pd.DataFrame(), units, str(plan_path))  # refuses a plan that reads the group
+    if templates(units):
         family_file(source, engine)  # families: one file, the pandas engine
     before = file_stamps(source)
-    read = blinded_rows(plan, source, engine=engine)
+    read = blinded_rows(units, source, engine=engine)
     files = data_files_field(plan_path, source, before)
-    frame = blinded_frame(read.frame, plan, str(plan_path))
+    frame = blinded_frame(read.frame, units, str(plan_path))
     data_hash = read.data_hash
     source_name = source.shown
-    dictionary = data_dictionary(frame, plan, source_name)
+    dictionary = data_dictionary(frame, units, source_name)
     groups = list(plan.data.groups)
     frame = frame.assign(**{plan.data.group: dummy_allocation(
         len(frame.index), groups, plan.data.planned_n, _fresh_generator())})
-    prepared, family_data = prepare_run(frame, plan, source_name)
+    prepared, family_data = prepare_run(frame, units, source_name)
+    event_table: dict[str, Any] | None = None
+    event_departures: list[Departure] = []
+    event_notes: list[Note] = []
+    if events is not None:  # joined in-process: the counts per level pooled over the groups
+        ev = event_rows(plan, events, engine=engine)
+        joined = event_data(tally_frames(frame, ev.frame, plan), plan, prepared, ev.shown)
+        family_data = list(joined.families)
+        event_departures, event_notes = list(joined.deviations), list(joined.notes)
+        summary = joined.summary
+        event_table = {"data_file": data_file_field(plan_path, events), "data": ev.data_hash,
+                       **{k: summary[k] for k in ("rows", "unmatched_rows", "unmatched_ids",
+                                                  "blank_level_rows", "outside_rows")},
+                       "levels": [{"level": k, "rows": v}
+                                  for k, v in sorted(summary["levels"].items())]}
     covariates, model_checks = covariate_figures(frame, plan, source_name, prepared)
     del frame  # the dummy labels go no further than the dummy run
 
@@ -421,7 +443,7 @@ def compute_rehearsal(
                       *(d for d in prepared.deviations if d.code in _POOLED_DEPARTURE_CODES),
                       *(d for f in family_data for d in f.deviations
                         if d.code in _POOLED_DEPARTURE_CODES),
-                      *shortfalls]
+                      *shortfalls, *event_departures]
     all_notes = [*notes, Note(NOTE_GROUPS_NOT_READ, f"column {plan.data.group!r} (data.group) "
                               "was not read; every figure here is pooled over the groups")]
     if len(groups) == 1:
@@ -430,6 +452,7 @@ def compute_rehearsal(
     all_notes += _missing_notes(plan, pooled)
     all_notes += [n for n in prepared.notes if n.code in _POOLED_NOTE_CODES]
     all_notes += step_notes
+    all_notes += event_notes
     return finish({
         **with_engine(provenance(kind="rehearsal", plan=plan, fingerprint=fingerprint,
                                  version=version, data_hash=data_hash, data_file=data_file,
@@ -448,6 +471,7 @@ def compute_rehearsal(
         "hypotheses": _hypothesis_rows(ordinary_plan(plan), executed, prepared),
         **({"families": rehearsal_families(plan, family_data, executed)}
            if family_data else {}),
+        **({"event_table": event_table} if event_table is not None else {}),
         "data_dictionary": dictionary,
         **({"covariates": covariates, "model_checks": model_checks} if covariates is not None
            else {}),

@@ -26,11 +26,13 @@ from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, Engine, Reduction
 from .compiler import (
     BLANK_COLUMN,
     SET_COLUMN,
+    EventJoin,
     Query,
     compile_bad_bytes,
     compile_blank_ids,
     compile_counts,
     compile_duplicate_ids,
+    compile_event_tally,
     compile_locate,
     compile_reduction,
     compile_row_lines,
@@ -184,6 +186,23 @@ class AggregatingEngine(Engine):
             what = "table has no rows" if self.source.kind == "url" else (
                 "data file has a header but no rows")
             raise DataError(f"{request.source}: the {what}")
+
+    def event_relation(self, other: AggregatingEngine) -> tuple[str, dict[str, Any]]:
+        """The FROM item of ``other``'s source (the event table, opened by an engine of this
+        kind) as this engine's queries reach it, and the parameters it needs."""
+        return other.relation(None), {}
+
+    def event_tally(self, join: EventJoin, request: CountRequest, other: AggregatingEngine,
+                    events: CountRequest) -> tuple[pd.DataFrame, Query]:
+        """The tally of the families over the event table (``prespec.data.events``): the
+        join done where the data are, in one query; ``other`` reads the event table."""
+        kinds = self.check_columns(request)
+        event_kinds = other.check_columns(events)
+        relation, extra = self.event_relation(other)
+        query = compile_event_tally(join, self.relation(request), relation, self.dialect,
+                                    kinds, event_kinds)
+        query = Query(query.text, {**query.params, **extra}, query.dialect)
+        return self.fetch(query), query
 
     def reduce(self, request: CountRequest) -> Reduction:
         kinds = self.check_columns(request)

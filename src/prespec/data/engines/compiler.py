@@ -551,3 +551,73 @@ def positional(query: Query) -> tuple[str, list[Any]]:
         return "?"
 
     return re.sub(r"\$(p\d+)\b", swap, query.text), values
+
+
+@dataclass(frozen=True)
+class EventJoin:
+    """What the join of a unit table and an event table reads (``prespec.data.events``):
+    the unit id, group and population filter of the unit table, and the id, level and
+    (optional) within columns of the event table; ``levels``: the declared levels the level
+    column is matched to (None: each level as its trimmed text)."""
+
+    unit_id: str
+    group: str
+    groups: tuple[str, ...]
+    include: tuple[Filter, ...]
+    event_id: str
+    level: str
+    within: str | None
+    levels: tuple[str, ...] | None
+
+
+def compile_event_tally(join: EventJoin, units: str, events: str, dialect: str,
+                        unit_types: Mapping[str, str], event_types: Mapping[str, str]) -> Query:
+    """The tally of a family over the event table in one statement: the join of the two
+    tables by the ids' trimmed text, then per kind (``prespec.data.events``) the counts.
+
+    ``units`` and ``events``: the FROM items of the two tables. Columns: kind, level, within,
+    arm, n. The units are distinct by id (the unit table's reduction refuses a repeated id)."""
+    sql = _Sql(dialect, unit_types)
+    esql = _Sql(dialect, event_types)
+    esql.params, esql._by_value = sql.params, sql._by_value  # one set of parameters
+    text_type = sql.text_type
+    arm = sql.mapped(ColumnMap(join.group, tuple((g, (g,)) for g in join.groups)))
+    listed = ", ".join(sql.bind(g) for g in join.groups)
+    u_id = f"CASE WHEN {sql.blank(join.unit_id)} THEN NULL ELSE {sql.text(join.unit_id)} END"
+    unit_rows = (f"SELECT {u_id} AS u_id, {arm} AS u_arm, {sql.keep(join.include)} AS u_keep "
+                 f"FROM {units}")
+    e_id = (f"CASE WHEN {esql.blank(join.event_id)} THEN NULL ELSE "
+            f"{esql.text(join.event_id)} END")
+    if join.levels is not None:
+        level = esql.mapped(ColumnMap(join.level, tuple((t, (t,)) for t in join.levels)))
+    else:
+        level = f"CASE WHEN {esql.blank(join.level)} THEN NULL ELSE {esql.text(join.level)} END"
+    within = (f"CASE WHEN {esql.blank(join.within)} THEN NULL ELSE {esql.text(join.within)} END"
+              if join.within is not None else f"CAST(NULL AS {text_type})")
+    event_rows = f"SELECT {e_id} AS e_id, {level} AS e_level, {within} AS e_within FROM {events}"
+    none = f"CAST(NULL AS {text_type})"
+    one, zero = sql.bind(1), sql.bind(0)
+    kinds = {k: f"CAST({sql.bind(k)} AS {text_type})"
+             for k in ("units", "events", "pairs", "unmatched", "blank", "outside")}
+    inside = f"COALESCE(u_keep AND u_arm IN ({listed}), FALSE)"
+    text = (
+        f"WITH prespec_units AS (SELECT u_id, u_arm, {inside} AS u_in FROM ({unit_rows}) AS "
+        f"prespec_u WHERE u_id IS NOT NULL), prespec_events AS ({event_rows}), "
+        f"prespec_joined AS (SELECT e_id, e_level, e_within, u_id IS NOT NULL AS matched, "
+        f"COALESCE(u_in, FALSE) AS u_in, u_arm FROM prespec_events LEFT JOIN prespec_units "
+        f"ON e_id = u_id) "
+        f"SELECT {kinds['units']} AS kind, {none} AS level, {none} AS within, u_arm AS arm, "
+        f"COUNT(*) AS n FROM prespec_units WHERE u_in GROUP BY u_arm "
+        f"UNION ALL SELECT {kinds['events']}, e_level, e_within, u_arm, COUNT(DISTINCT e_id) "
+        f"FROM prespec_joined WHERE u_in AND e_level IS NOT NULL "
+        f"GROUP BY e_level, e_within, u_arm "
+        f"UNION ALL SELECT {kinds['pairs']}, e_level, e_within, {none}, COUNT(*) "
+        f"FROM prespec_joined WHERE matched AND e_level IS NOT NULL GROUP BY e_level, e_within "
+        f"UNION ALL SELECT {kinds['unmatched']}, e_id, {none}, {none}, COUNT(*) "
+        f"FROM prespec_joined WHERE NOT matched GROUP BY e_id "
+        f"UNION ALL SELECT {kinds['blank']}, {none}, {none}, {none}, "
+        f"SUM(CASE WHEN matched AND e_level IS NULL THEN {one} ELSE {zero} END) "
+        f"FROM prespec_joined "
+        f"UNION ALL SELECT {kinds['outside']}, {none}, {none}, {none}, "
+        f"SUM(CASE WHEN matched AND NOT u_in THEN {one} ELSE {zero} END) FROM prespec_joined")
+    return Query(text, sql.params, dialect)

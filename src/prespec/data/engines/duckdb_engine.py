@@ -154,6 +154,12 @@ class DuckDBEngine(AggregatingEngine):
             return dict(query.params)
         return {**query.params, "source": self._files_param()}
 
+    def event_relation(self, other: AggregatingEngine) -> tuple[str, dict[str, Any]]:
+        """The event table's reader on this connection, its files bound as ``$events_source``."""
+        assert isinstance(other, DuckDBEngine)
+        text = other.relation(None).replace("$source", "$events_source")
+        return text, {"events_source": other._files_param()}
+
     def column_kinds(self) -> dict[str, str]:
         if self._kinds is None:
             rel = self.relation()

@@ -178,3 +178,45 @@ def data_files_field(plan_path: Path, source: DataSource,
         raise DataError(f"{source.shown}: a data file changed, appeared or went while it was "
                         "read; run again when the data are still")
     return out
+
+
+def resolve_events_source(plan_path: Path, plan: Plan, units: DataSource) -> DataSource | None:
+    """The event table of ``data.events`` (None without one), opened as the unit table is:
+    a file or glob inside the plan's folder (relative to it), or, with ``data.events.table``,
+    a table of the unit table's database."""
+    events = getattr(plan.data, "events", None)
+    if events is None:
+        return None
+    if events.table is not None:
+        if units.kind != "url":
+            raise BadInput(f"{units.shown}: data.events.table names a table of a database, but "
+                           "the unit table read is a file; read the units from data.source")
+        return DataSource("url", units.location, f"{units.location} (table {events.table})",
+                          table=events.table, password_from=units.password_from)
+    declared = str(events.source)
+    folder = plan_path.parent.resolve()
+    parts = Path(declared).parts
+    first = next((i for i, p in enumerate(parts) if _is_glob(p)), len(parts))
+
+    def refuse(message: str) -> PlanError:
+        from ...plan.yamlread import parse_plan_yaml, read_plan_bytes
+
+        line = None
+        try:
+            doc = parse_plan_yaml(read_plan_bytes(plan_path, str(plan_path)), str(plan_path))
+            line = doc.lines.get(("data", "events", "source"))
+        except BadInput:
+            pass
+        return PlanError(str(plan_path), line, "data.events.source", message)
+
+    if Path(declared).is_absolute() or ".." in parts[first:] or _outside(
+            folder, plan_path.parent.joinpath(*parts[:first])):
+        raise refuse(f"{declared!r} is not inside the plan's folder; a plan's event table "
+                     "must be inside its folder, named relative to it")
+    source = _file_or_glob(plan_path.parent / declared, str(plan_path.parent / declared))
+    for name in [source.location] if source.kind == "file" else list(source.files or ()):
+        if _outside(folder, Path(name)):
+            raise refuse(f"{declared!r} resolves outside the plan's folder (a symbolic "
+                         "link?); a plan's event table must be inside its folder")
+    check_source(source)
+    return source
