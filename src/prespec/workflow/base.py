@@ -92,6 +92,26 @@ def environment_departures(record: dict[str, Any], env: dict[str, str]) -> list[
         "; ".join(f"{n} {b}" for n, _, b in diffs))]
 
 
+def with_lock_history(results: dict[str, Any], entries: list[dict[str, Any]],
+                      record: dict[str, Any] | None) -> dict[str, Any]:
+    """``results`` with its ``locked`` block (docs/files.md) after ``environment``: every
+    ``lock`` and ``amend`` entry of the log read before the run (version, time, actor, reason)
+    and the environment recorded with ``record``, the lock version in force. Unchanged when the
+    plan ran unlocked (``record`` None)."""
+    if record is None:
+        return results
+    versions = [{"version": e["details"].get("version"), "action": e["action"], "at": e["at"],
+                 "actor": e["actor"], "reason": e["details"].get("reason")}
+                for e in entries if e.get("action") in ("lock", "amend")]
+    locked = {"versions": versions, "environment": dict(record.get("environment") or {})}
+    out: dict[str, Any] = {}
+    for key, value in results.items():
+        out[key] = value
+        if key == "environment":
+            out["locked"] = locked
+    return out
+
+
 def check_out_path(plan_path: Path, out: Path) -> None:
     """``--out`` must be a new or empty plain folder: no link, not a file. Outside the plan's
     folder it must sit in an existing folder the user can write (no parents are made there)."""

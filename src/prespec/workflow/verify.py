@@ -681,7 +681,7 @@ def verify_all(plan: Path, *, expect: str | None = None, rerun: Path | None = No
 # (``engine``, ``engine_library`` and ``query``: how the counts were made; every engine gives
 # the same counts.)
 MOMENT_FIELDS = frozenset({"created", "actor", "environment", "data_file", "engine",
-                           "engine_library", "query"})
+                           "engine_library", "query", "locked"})
 # Departures and notes that depend on the moment (the log, the lock, the installation, the
 # command line), not on the plan and the data; the recomputation re-derives the rest.
 MOMENT_CODES = frozenset({"data-changed-since-last-run", "environment-differs-from-lock",
