@@ -288,8 +288,12 @@ def test_html_images_have_alt_text(run_html: str) -> None:
 
 def test_html_environment_table(run_html: str) -> None:
     env = run_html[run_html.index("<h2>Environment</h2>"):]
+    # results.json without the lock's versions (an older report): this run's, and why alone
+    assert "This report does not carry the versions recorded at lock time" in env
+    assert "<th>Component</th><th>This run</th>" in env
     for key, value in sample_results()["environment"].items():
-        assert f"<tr><th>{key}</th><td>{value}</td></tr>" in env
+        label = {"python": "Python"}.get(key, key)
+        assert f"<tr><td>{label}</td><td>{value}</td></tr>" in env
 
 
 # --- rehearsal, tampering, failures ---------------------------------------------------------
@@ -374,7 +378,9 @@ def test_hypothesis_with_sparse_switch_shows_planned_test_and_rule() -> None:
     assert "<tr><th>Test used</th><td>fisher-exact</td></tr>" in page
     assert "<tr><th>Planned test</th><td>pearson-chi-square</td></tr>" in page
     assert "smallest expected count 1.98 is below 5" in page
-    assert "<tr><th>Statistic</th><td>—</td></tr>" in page
+    # an exact test has no statistic of its own, and the row says so
+    assert ("<tr><th>Statistic</th><td>none: an exact test sums the probabilities of the "
+            "tables</td></tr>") in page
     # Non-events are total minus events (3 of 196 -> 193); expected counts beside them.
     assert "<td>gauze</td><td class=\"num\">3</td><td class=\"num\">193</td>" in page
     assert "<td class=\"num\">194.02</td>" in page
@@ -480,7 +486,7 @@ def test_full_report_monte_carlo_line(full_html: str) -> None:
 def test_full_report_estimate_note_and_null_limit(full_html: str) -> None:
     child = _section(full_html, _heading("H7:gauze-vs-negative-pressure",
                                          "Reopening, gauze vs negative-pressure", 4),
-                     "</div>")
+                     '<div class="prespec-hyp"')  # up to the next hypothesis
     assert "<tr><th>Estimate (risk ratio)</th><td>7.0711</td></tr>" in child
     # The note stands directly under the estimate and its interval.
     assert ("<tr><th>Interval (95% katz)</th><td>(0.3681, 135.8300)</td></tr>"

@@ -10,6 +10,7 @@ The section modules (:mod:`prespec.report.sections`, :mod:`prespec.report.blinde
 from __future__ import annotations
 
 import html
+import re
 from collections.abc import Iterable, Mapping, Sequence
 
 from prespec.common.shown import visible
@@ -41,13 +42,14 @@ def esc(value: object) -> str:
 
 
 #: A value with an unbroken run longer than this (a hash, a path, a long label) may break
-#: anywhere on the page; shorter values break only between words.
+#: anywhere on the page; shorter values break only between words and after hyphens, as a
+#: browser breaks them.
 LONG_RUN = 28
 
 
 def long_cell(value: str) -> bool:
     """Whether a cell's text holds an unbroken run of more than ``LONG_RUN`` characters."""
-    return any(len(word) > LONG_RUN for word in value.split())
+    return any(len(word) > LONG_RUN for word in re.split(r"[\s\-]+", value))
 
 
 def td(value: str, classes: str = "") -> str:

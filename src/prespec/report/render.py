@@ -103,7 +103,7 @@ body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
   body { max-width: none; padding: 0; font-size: 10pt; }
   .prespec-hyp-body { display: block; }
   .prespec-contents ol { columns: auto; }
-  tr, img, .prespec-hyp-body > div, .prespec-caution, .prespec-departures,
+  tr, img, .prespec-hyp-body > div,
   .prespec-contents li { break-inside: avoid; }
   h1, h2, h3, h4 { break-after: avoid; }
   .jp-RenderedHTMLCommon table.prespec td.num { white-space: normal; }
