@@ -22,7 +22,7 @@ import nbformat
 import pytest
 
 from prespec.errors import PrespecError
-from prespec.report import render, sections, template
+from prespec.report import render, sections, summary, template
 from prespec.report.figures import write_figures
 
 try:
@@ -262,7 +262,7 @@ def test_html_sections_in_order(run_html: str) -> None:
 
 def test_html_hides_code_and_prompts(run_html: str) -> None:
     for code in ("import json", "import hashlib", "display(HTML", "results_sha256 =",
-                 "sections.header"):
+                 "summary.summary("):
         assert code not in run_html, code
     body = run_html[run_html.index("<body"):]  # the stylesheet names these classes too
     assert 'class="jp-InputArea' not in body and "jp-Cell-inputWrapper" not in body
@@ -356,7 +356,7 @@ def test_unknown_kernel_is_a_one_line_error(tmp_path: Path) -> None:
 def test_header_escapes_every_value() -> None:
     res = sample_results()
     res["actor"] = "<script>x</script>"
-    page = sections.header(res)
+    page = summary.summary(res)
     assert "<script>" not in page and "&lt;script&gt;x&lt;/script&gt;" in page
 
 
@@ -637,7 +637,7 @@ def test_old_results_show_none_of_the_new_parts() -> None:
 def test_every_fragment_starts_with_a_tag() -> None:
     # IPython's HTML() treats a string that starts with "http" or names a file as a location.
     res = full_results()
-    fragments = [sections.header(res), sections.caution(res), sections.departures(res),
+    fragments = [summary.summary(res), sections.caution(res), sections.departures(res),
                  sections.population(res), sections.hypotheses_heading(res),
                  *sections.hypotheses(res), sections.multiplicity(res),
                  sections.environment(res), *(o[1] for o in sections.outcomes(res))]
@@ -664,7 +664,7 @@ def test_hostile_label_in_every_text_field_is_escaped(label: str) -> None:
             hyp["estimate"]["note"] = label
     res["hypotheses"][0]["strata_tables"][0]["stratum"] = {label: label}
     res["hypotheses"][0]["table"]["groups"][0] = label
-    pages = [sections.header(res), sections.departures(res), *sections.hypotheses(res),
+    pages = [summary.summary(res), sections.departures(res), *sections.hypotheses(res),
              sections.multiplicity(res), *(o[1] for o in sections.outcomes(res))]
     page = "".join(pages)
     _assert_inert(page)

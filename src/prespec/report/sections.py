@@ -96,15 +96,6 @@ def kind_label(results: Mapping[str, Any]) -> str:
     return KINDS.get(kind, kind or "kind not given")
 
 
-def header(results: Mapping[str, Any]) -> str:
-    """The first screen (:func:`prespec.report.summary.summary`): title, plan version and
-    fingerprint, when it was locked and amended, data hash, engine, the departures and the
-    results table."""
-    from prespec.report.summary import summary
-
-    return summary(results)
-
-
 def caution(results: Mapping[str, Any]) -> str:
     """The caution from results.json, in a box (a default one if results.json has none)."""
     words = text(results.get("caution"), "caution", default=DEFAULT_CAUTION).strip()

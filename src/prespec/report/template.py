@@ -47,7 +47,7 @@ from IPython.display import HTML, Image, display
 
 from prespec.report import sections, summary
 
-display(HTML(sections.header(results)))
+display(HTML(summary.summary(results)))
 banner = sections.blinded_banner(results)
 if banner:
     display(HTML(banner))
