@@ -66,6 +66,10 @@ body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
   text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap;
 }
 .jp-RenderedHTMLCommon table.prespec thead th { background: #ececec; }
+/* a family's table has ten columns: tighter, so that it fits the page */
+.jp-RenderedHTMLCommon table.prespec-family { font-size: 0.92em; }
+.jp-RenderedHTMLCommon table.prespec-family th, .jp-RenderedHTMLCommon table.prespec-family td {
+  padding: 0.2em 0.4em; }
 .jp-RenderedHTMLCommon table.prespec tbody tr:nth-child(odd) { background: #fafafa; }
 .jp-RenderedHTMLCommon table.prespec-fields th { background: #f3f3f3; font-weight: 600; }
 .jp-RenderedHTMLCommon table.prespec-fields th { min-width: 8em; }
@@ -79,6 +83,7 @@ body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
 .jp-RenderedHTMLCommon table.prespec-facts th { width: 13em; }
 .jp-RenderedHTMLCommon table.prespec-summary-results { width: 100%; }
 .jp-RenderedHTMLCommon table.prespec-summary-results td.prespec-estimate { white-space: normal; }
+.jp-RenderedHTMLCommon table.prespec-summary-results th:nth-child(5) { white-space: nowrap; }
 .prespec-measure { color: #555555; font-size: 0.85em; }
 .jp-RenderedHTMLCommon tr.prespec-followup-row td:first-child { padding-left: 1.6em; }
 .prespec-summary-note { color: #444444; font-size: 0.9em; }

@@ -277,9 +277,26 @@ def results_table(results: Mapping[str, Any]) -> str:
     )
 
 
+#: The flagged members of a family listed in the summary; the rest are counted.
+FLAGGED_SHOWN = 10
+
+
+def _member_line(row: Mapping[str, Any]) -> str:
+    return (f'<tr class="prespec-followup-row">{td("↳ " + row["id"])}{td(row["role"])}'
+            f"{td(row['comparison'])}"
+            f'<td class="num prespec-estimate">{_estimate_cell(row)}</td>'
+            f'<td class="num">{esc(fmt_p(row["p_value"]))}</td>'
+            f'<td class="num">{esc(fmt_p(row["p_adjusted"]))}</td>{td(row["decision"])}</tr>')
+
+
 def _family_rows(results: Mapping[str, Any]) -> list[str]:
+    """One row per family, then its flagged members (at most ``FLAGGED_SHOWN``)."""
     from prespec.report.families import families
 
+    flagged_by: dict[str, list[dict[str, Any]]] = {}
+    for row in _member_rows(results):
+        if row["decision"] == "flagged":
+            flagged_by.setdefault(row["parent"], []).append(row)
     out = []
     for i, fam in enumerate(families(results)):
         at = f"families[{i}]"
@@ -299,6 +316,11 @@ def _family_rows(results: Mapping[str, Any]) -> list[str]:
             f'<td class="num">{NULL}</td><td class="num">{NULL}</td><td class="num">{NULL}</td>'
             f"<td>{esc(words)}</td></tr>"
         )
+        flagged = flagged_by.get(fid, [])
+        out += [_member_line(row) for row in flagged[:FLAGGED_SHOWN]]
+        if len(flagged) > FLAGGED_SHOWN:
+            more = f"and {len(flagged) - FLAGGED_SHOWN} more flagged members: see Families"
+            out.append(f'<tr class="prespec-followup-row"><td colspan="7">{esc(more)}</td></tr>')
     return out
 
 
