@@ -82,7 +82,8 @@ body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
 .jp-RenderedHTMLCommon table.prespec-facts { width: 100%; }
 .jp-RenderedHTMLCommon table.prespec-facts th { width: 13em; }
 .jp-RenderedHTMLCommon table.prespec-summary-results { width: 100%; }
-.jp-RenderedHTMLCommon table.prespec-summary-results td.prespec-estimate { white-space: normal; }
+.jp-RenderedHTMLCommon table.prespec-summary-results td.prespec-estimate { white-space: normal;
+  min-width: 13.5em; }
 .jp-RenderedHTMLCommon table.prespec-summary-results th:nth-child(5) { white-space: nowrap; }
 .prespec-measure { color: #555555; font-size: 0.85em; }
 .jp-RenderedHTMLCommon tr.prespec-followup-row td:first-child { padding-left: 1.6em; }
@@ -101,6 +102,7 @@ body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
 .prespec-hyp-body > .prespec-part-estimand { grid-column: 1; grid-row: 2; }
 .prespec-hyp-body > .prespec-part-result { grid-column: 2; grid-row: 1 / span 2; }
 .prespec-hyp-body table.prespec-fields { width: 100%; }
+.jp-RenderedHTMLCommon .prespec-part-result table.prespec-fields td { min-width: 10em; }
 @media (max-width: 46rem) {
   .prespec-hyp-body { display: block; }
 }
