@@ -339,3 +339,27 @@ def test_a_rehearsal_of_the_locked_plan_carries_its_lock_history(
     stored = json.loads((out.folder / "results.json").read_text())
     assert [v["action"] for v in stored["locked"]["versions"]] == ["lock"]
     assert api.verify(plan).passed  # a failure raises
+
+
+def test_verify_holds_the_lock_history_to_the_log() -> None:
+    from prespec.workflow.base import lock_history_problem
+
+    entries = [
+        {"seq": 1, "action": "lock", "at": "2027-03-01T09:00:00Z", "actor": "ana",
+         "details": {"version": 1, "reason": None}},
+        {"seq": 2, "action": "run", "at": "2027-03-05T09:00:00Z", "actor": "ana", "details": {}},
+        {"seq": 3, "action": "amend", "at": "2027-04-02T10:30:00Z", "actor": "ben",
+         "details": {"version": 2, "reason": "the steering committee chose Hochberg"}},
+        {"seq": 4, "action": "run", "at": "2027-04-05T09:00:00Z", "actor": "ana", "details": {}},
+    ]
+    first, later = entries[1], entries[3]
+    assert lock_history_problem(entries, later, {"locked": LOCKED}) is None
+    assert lock_history_problem(entries, first, {"locked": {
+        "versions": LOCKED["versions"][:1], "environment": {}}}) is None
+    # the first run cannot name an amendment written after it; a changed time is caught
+    assert "differs from the lock and amend entries" in lock_history_problem(
+        entries, first, {"locked": LOCKED})
+    moved = json.loads(json.dumps(LOCKED))
+    moved["versions"][0]["at"] = "2027-02-28T09:00:00Z"
+    assert lock_history_problem(entries, later, {"locked": moved}) is not None
+    assert lock_history_problem(entries, later, {}) is None  # an older report: nothing to hold

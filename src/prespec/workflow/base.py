@@ -92,6 +92,28 @@ def environment_departures(record: dict[str, Any], env: dict[str, str]) -> list[
         "; ".join(f"{n} {b}" for n, _, b in diffs))]
 
 
+def lock_versions(entries: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Every ``lock`` and ``amend`` entry of ``entries`` as results.json's ``locked.versions``
+    holds it: version, action, time, actor, reason."""
+    return [{"version": e["details"].get("version"), "action": e["action"], "at": e["at"],
+             "actor": e["actor"], "reason": e["details"].get("reason")}
+            for e in entries if e.get("action") in ("lock", "amend")]
+
+
+def lock_history_problem(entries: list[dict[str, Any]], entry: dict[str, Any],
+                         doc: dict[str, Any]) -> str | None:
+    """Why a report's ``locked`` versions are not the log's lock and amend entries before its
+    own entry, or None (also for a report without them)."""
+    if "locked" not in doc:
+        return None
+    locked = doc["locked"]
+    before = [e for e in entries if e["seq"] < entry["seq"]]
+    if not isinstance(locked, dict) or locked.get("versions") != lock_versions(before):
+        return ("its lock history (results.json locked.versions) differs from the lock and "
+                "amend entries of the log before it")
+    return None
+
+
 def with_lock_history(results: dict[str, Any], entries: list[dict[str, Any]],
                       record: dict[str, Any] | None) -> dict[str, Any]:
     """``results`` with its ``locked`` block (docs/files.md) after ``environment``: every
@@ -100,10 +122,8 @@ def with_lock_history(results: dict[str, Any], entries: list[dict[str, Any]],
     plan ran unlocked (``record`` None)."""
     if record is None:
         return results
-    versions = [{"version": e["details"].get("version"), "action": e["action"], "at": e["at"],
-                 "actor": e["actor"], "reason": e["details"].get("reason")}
-                for e in entries if e.get("action") in ("lock", "amend")]
-    locked = {"versions": versions, "environment": dict(record.get("environment") or {})}
+    locked = {"versions": lock_versions(entries),
+              "environment": dict(record.get("environment") or {})}
     out: dict[str, Any] = {}
     for key, value in results.items():
         out[key] = value

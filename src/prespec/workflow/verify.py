@@ -32,7 +32,7 @@ from prespec.common.departures import capped_found
 from prespec.common.records import first_problem
 from prespec.errors import IntegrityStop, PrespecError
 from prespec.plan import fingerprint, load_plan, plan_from_resolved
-from prespec.workflow.base import plain_errors
+from prespec.workflow.base import lock_history_problem, plain_errors
 from prespec.workflow.overrides import apply_overrides
 from prespec.workflow.publish import PARTIAL, pending_report
 
@@ -349,7 +349,7 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if doc.get("deviations") != entry["deviations"]:
             raise _fail(result, f"report {rel}: its departures differ from those its log entry "
                         "recorded")
-        problem = look_problem(entries, entry, doc)
+        problem = look_problem(entries, entry, doc) or lock_history_problem(entries, entry, doc)
         if problem:
             raise _fail(result, f"report {rel}: {problem}")
         found[rel] = folder
