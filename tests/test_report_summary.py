@@ -139,8 +139,12 @@ def test_summary_shows_the_lock_and_every_amendment_with_time_and_reason() -> No
 
 def test_summary_without_a_lock_says_so() -> None:
     res = sample_results() | {"plan_version": None}
-    assert "<th>Locked</th><td>no: the plan ran without a lock (see the departures)</td>" in \
+    assert "<th>Locked</th><td>no. The plan ran without a lock (see the departures).</td>" in \
         summary.summary(res)
+    rehearsed = blinded_results() | {"plan_version": None}
+    assert ("<th>Locked</th><td>no. The plan file was rehearsed, not a locked version of the "
+            "plan (see the notes).</td>") in summary.summary(rehearsed)
+    assert "The plan file was rehearsed, not a locked version" in sections.environment(rehearsed)
     # an older report: a version, but no lock history in results.json
     assert "<td>version 2; the time is not recorded in this report</td>" in \
         summary.summary(sample_results())
@@ -270,7 +274,8 @@ def test_environment_beside_the_lock_highlights_differences() -> None:
 
 def test_environment_of_an_unlocked_run() -> None:
     page = sections.environment(sample_results() | {"plan_version": None})
-    assert "The plan ran without a lock: there are no versions at lock time to compare." in page
+    assert ("The plan ran without a lock (see the departures): there are no versions at lock "
+            "time to compare.") in page
     assert "<th>At lock</th>" not in page
 
 

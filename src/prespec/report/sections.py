@@ -12,6 +12,7 @@ import json
 from collections.abc import Mapping, Sequence
 from typing import Any
 
+from prespec.common.environment import KEYS
 from prespec.report import adjusted, bayes, blinded, design
 from prespec.report.estimand import estimand_block
 from prespec.report.figures import (
@@ -61,7 +62,7 @@ from prespec.report.values import (
 )
 
 KINDS = {"run": "Analysis run", "rehearsal": "Blinded rehearsal"}
-ENVIRONMENT_ORDER = ("python", "os", "numpy", "scipy", "statsmodels", "pandas", "prespec")
+ENVIRONMENT_ORDER = KEYS  # Python, the operating system, the packages, the engines' libraries
 
 
 def _engine(results: dict[str, Any]) -> str:
@@ -1068,6 +1069,14 @@ def multiplicity(results: Mapping[str, Any]) -> str:
     return "".join(out)
 
 
+def unlocked_words(results: Mapping[str, Any]) -> str:
+    """Why a report has no lock version: a run without a lock (a departure), or a rehearsal
+    of a plan file that is not (or no longer) the locked one (a note)."""
+    if blinded.is_rehearsal(results):
+        return "The plan file was rehearsed, not a locked version of the plan (see the notes)"
+    return "The plan ran without a lock (see the departures)"
+
+
 ENVIRONMENT_LABELS = {"python": "Python", "os": "Operating system"}
 NOT_RECORDED = "not recorded at lock"
 NOT_INSTALLED = "not installed"
@@ -1120,7 +1129,7 @@ def environment(results: Mapping[str, Any]) -> str:
         return out + "<p>results.json gives no environment.</p>"
     rows = environment_rows(results)
     if results.get("locked") is None:
-        words = ("The plan ran without a lock: there are no versions at lock time to compare."
+        words = (unlocked_words(results) + ": there are no versions at lock time to compare."
                  if results.get("plan_version") is None else
                  "This report does not carry the versions recorded at lock time (it was written "
                  "before they were copied into results.json); the lock file still holds them.")

@@ -30,6 +30,7 @@ from prespec.report.sections import (
     kind_label,
     multiplicity_name,
     override_rows,
+    unlocked_words,
 )
 from prespec.report.values import (
     NULL,
@@ -168,7 +169,7 @@ def locked_lines(results: Mapping[str, Any]) -> list[tuple[str, str]]:
     """(label, words) for the lock and each amendment, from results.json's ``locked``."""
     if results.get("locked") is None:
         if results.get("plan_version") is None:
-            return [("Locked", "no: the plan ran without a lock (see the departures)")]
+            return [("Locked", f"no. {unlocked_words(results)}.")]
         version = text(str(results["plan_version"]), "plan_version")
         return [("Locked", f"version {version}; the time is not recorded in this report")]
     locked = mapping(results["locked"], "locked")
