@@ -107,7 +107,7 @@ def test_result_rows_family_members_and_rehearsal() -> None:
     table = summary.results_table(res)
     assert "1 of 2 members flagged (double-fdr at 0.1)" in table
     # under it the flagged members, each with its figures; the others in their section
-    assert ('<tr class="prespec-followup-row"><td>↳ AE[rash]</td><td>family member</td>'
+    assert ('<tr class="prespec-followup-row"><td>↳\u00a0AE[rash]</td><td>family member</td>'
             '<td>new vs standard</td>') in table
     assert '<td class="num">0.001000</td><td class="num">0.002000</td><td>flagged</td>' in table
     assert "AE[itch]" not in table

@@ -256,7 +256,7 @@ def results_table(results: Mapping[str, Any]) -> str:
     rows = result_rows(results, members=False)
     body = []
     for row in rows:
-        name = row["id"] if row["level"] == "hypothesis" else f"↳ {row['id']}"
+        name = row["id"] if row["level"] == "hypothesis" else ARROW + row["id"]
         role = row["role"] + ("" if row["pre_specified"] else ", not pre-specified")
         cls = ' class="prespec-followup-row"' if row["level"] == "follow-up" else ""
         body.append(
@@ -278,12 +278,14 @@ def results_table(results: Mapping[str, Any]) -> str:
     )
 
 
+#: Marks a follow-up or a member under its hypothesis or family (kept with the id).
+ARROW = "↳\u00a0"
 #: The flagged members of a family listed in the summary; the rest are counted.
 FLAGGED_SHOWN = 10
 
 
 def _member_line(row: Mapping[str, Any]) -> str:
-    return (f'<tr class="prespec-followup-row">{td("↳ " + row["id"])}{td(row["role"])}'
+    return (f'<tr class="prespec-followup-row">{td(ARROW + row["id"])}{td(row["role"])}'
             f"{td(row['comparison'])}"
             f'<td class="num prespec-estimate">{_estimate_cell(row)}</td>'
             f'<td class="num">{esc(fmt_p(row["p_value"]))}</td>'
@@ -308,19 +310,21 @@ def _family_rows(results: Mapping[str, Any]) -> list[str]:
         flagged = number(fam.get("members_flagged"), f"{at}.members_flagged")
         method = text(fam.get("method"), f"{at}.method", default=NULL)
         level = number(fam.get("level"), f"{at}.level")
+        role = "family" if fam.get("pre_specified") is not False else (
+            "family, not pre-specified")
         words = (f"{NULL if flagged is None else int(flagged)} of "
                  f"{NULL if total is None else int(total)} members flagged ({method} at "
                  f"{NULL if level is None else f'{level:g}'})")
         out.append(
-            f"<tr><td>{esc(fid)}</td><td>family</td>"
+            f"<tr>{td(fid)}{td(role)}"
             f"<td>{esc(' vs '.join(groups) or NULL)}, over {esc(over)}</td>"
             f'<td class="num">{NULL}</td><td class="num">{NULL}</td><td class="num">{NULL}</td>'
             f"<td>{esc(words)}</td></tr>"
         )
-        flagged = flagged_by.get(fid, [])
-        out += [_member_line(row) for row in flagged[:FLAGGED_SHOWN]]
-        if len(flagged) > FLAGGED_SHOWN:
-            more = f"and {len(flagged) - FLAGGED_SHOWN} more flagged members: see Families"
+        listed = flagged_by.get(fid, [])
+        out += [_member_line(row) for row in listed[:FLAGGED_SHOWN]]
+        if len(listed) > FLAGGED_SHOWN:
+            more = f"and {len(listed) - FLAGGED_SHOWN} more flagged members: see Families"
             out.append(f'<tr class="prespec-followup-row"><td colspan="7">{esc(more)}</td></tr>')
     return out
 
