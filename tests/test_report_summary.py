@@ -61,7 +61,8 @@ def test_result_rows_give_the_values_of_results_json_in_its_order() -> None:
     assert by_id["H2"] | {} == {
         "id": "H2", "level": "hypothesis", "parent": None, "title": h2["title"],
         "role": "secondary", "comparison": " vs ".join(h2["compare"]),
-        "test": "two-proportion-z", "measure": h2["estimate"]["measure"],
+        "test": "two-proportion-z", "planned_test": "two-proportion-z",
+        "measure": h2["estimate"]["measure"],
         "estimate": -0.0592, "ci_low": h2["estimate"]["ci"][0], "ci_high": h2["estimate"]["ci"][1],
         "ci_level": h2["estimate"]["level"], "ci_method": h2["estimate"]["ci_method"],
         "p_value": 0.0212, "p_adjusted": 0.0424, "decision": "reject H0",
@@ -98,7 +99,7 @@ def test_result_rows_family_members_and_rehearsal() -> None:
     assert rows["AE[rash]"] | {} == {
         "id": "AE[rash]", "level": "member", "parent": "AE", "title": None,
         "role": "family member", "comparison": "new vs standard", "test": "fisher-exact",
-        "measure": "risk-difference", "estimate": 0.2, "ci_low": 0.1, "ci_high": 0.3,
+        "planned_test": None, "measure": "risk-difference", "estimate": 0.2, "ci_low": 0.1, "ci_high": 0.3,
         "ci_level": 0.95, "ci_method": "newcombe", "p_value": 0.001, "p_adjusted": 0.002,
         "decision": "flagged", "pre_specified": True}
     assert rows["AE[itch]"]["decision"] == "not flagged"
@@ -164,6 +165,17 @@ def test_summary_results_table_has_one_row_per_result() -> None:
     assert (f'<span class="prespec-nowrap">{h1["estimate"]["value"]:.4f}</span> '
             f'<span class="prespec-nowrap">({low:.4f}, {high:.4f})</span>') in table
     assert '<td class="num">0.01340</td><td class="num">0.02680</td><td>reject H0</td>' in table
+
+
+def test_summary_names_a_test_that_a_pre_specified_switch_replaced() -> None:
+    res = sample_results()
+    switched = res["hypotheses"][1]  # the sparse-data rule replaced the chi-square test
+    row = _rows(res)[switched["id"]]
+    assert (row["test"], row["planned_test"]) == ("fisher-exact", "pearson-chi-square")
+    table = summary.results_table(res)
+    assert ('<span class="prespec-measure">fisher-exact, switched from pearson-chi-square'
+            '</span>') in table
+    assert table.count("switched from") == 1
 
 
 def test_summary_of_a_rehearsal_shows_no_result() -> None:

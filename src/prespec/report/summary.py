@@ -47,7 +47,8 @@ from prespec.report.values import (
 )
 
 #: The keys of every row :func:`result_rows` gives, in this order.
-ROW_KEYS = ("id", "level", "parent", "title", "role", "comparison", "test", "measure",
+ROW_KEYS = ("id", "level", "parent", "title", "role", "comparison", "test", "planned_test",
+            "measure",
             "estimate", "ci_low", "ci_high", "ci_level", "ci_method", "p_value", "p_adjusted",
             "decision", "pre_specified")
 
@@ -92,6 +93,8 @@ def _hypothesis_row(hyp: Mapping[str, Any], position: str) -> dict[str, Any]:
         "role": text(hyp.get("role"), f"{where}.role", default=NULL),
         "comparison": _compare_label(hyp, where),
         "test": text(hyp.get("test"), f"{where}.test", default="") or None,
+        "planned_test": text(hyp.get("planned_test"), f"{where}.planned_test", default="")
+        or text(hyp.get("test"), f"{where}.test", default="") or None,
         **_estimate(hyp, where),
         "p_value": None if bayes.is_bayesian(hyp) else number(hyp.get("p_value"),
                                                               f"{where}.p_value"),
@@ -122,6 +125,8 @@ def _member_rows(results: Mapping[str, Any]) -> list[dict[str, Any]]:
                 "role": "family member",
                 "comparison": " vs ".join(groups) or NULL,
                 "test": text(member.get("test"), f"{where}.test", default="") or None,
+                "planned_test": text(fam.get("planned_test"), f"{at}.planned_test",
+                                     default="") or None,
                 **_estimate(member, where),
                 "p_value": number(member.get("p_value"), f"{where}.p_value"),
                 "p_adjusted": number(member.get("p_adjusted"), f"{where}.p_adjusted"),
@@ -136,7 +141,8 @@ def result_rows(results: Mapping[str, Any], *, members: bool = True) -> list[dic
 
     Keys (``ROW_KEYS``): ``id``; ``level`` (``hypothesis``, ``follow-up`` or ``member``);
     ``parent`` (a follow-up's hypothesis, a member's family, else None); ``title``; ``role``;
-    ``comparison`` (in words, ``alginate vs gauze``); ``test`` (the test used); ``measure``,
+    ``comparison`` (in words, ``alginate vs gauze``); ``test`` (the test used) and
+    ``planned_test`` (the plan's, before a pre-specified switch; the same when none fired); ``measure``,
     ``estimate``, ``ci_low``, ``ci_high``, ``ci_level``, ``ci_method`` (None without an
     estimate); ``p_value`` (nominal; None for a Bayesian rule); ``p_adjusted`` (None where no
     adjustment applies: exploratory, gate closed, Bayesian rule); ``decision`` in words
@@ -251,6 +257,16 @@ def _estimate_cell(row: Mapping[str, Any]) -> str:
     return shown
 
 
+def _comparison_cell(row: Mapping[str, Any]) -> str:
+    """The comparison; beneath it, the test used where a pre-specified switch replaced the
+    planned one (the hypothesis's section says why)."""
+    shown = esc(row["comparison"])
+    if row["test"] and row["planned_test"] and row["test"] != row["planned_test"]:
+        words = f"{row['test']}, switched from {row['planned_test']}"
+        shown += f'<br><span class="prespec-measure">{esc(words)}</span>'
+    return f"<td>{shown}</td>"
+
+
 def results_table(results: Mapping[str, Any]) -> str:
     """The results table: one row per hypothesis and follow-up, and one per family."""
     rows = result_rows(results, members=False)
@@ -260,7 +276,7 @@ def results_table(results: Mapping[str, Any]) -> str:
         role = row["role"] + ("" if row["pre_specified"] else ", not pre-specified")
         cls = ' class="prespec-followup-row"' if row["level"] == "follow-up" else ""
         body.append(
-            f"<tr{cls}>{td(name)}{td(role)}{td(row['comparison'])}"
+            f"<tr{cls}>{td(name)}{td(role)}{_comparison_cell(row)}"
             f'<td class="num prespec-estimate">{_estimate_cell(row)}</td>'
             f'<td class="num">{esc(fmt_p(row["p_value"]))}</td>'
             f'<td class="num">{esc(fmt_p(row["p_adjusted"]))}</td>'
