@@ -6,6 +6,7 @@ tests/test_report_render.py execute it for real); everything else runs as in use
 
 from __future__ import annotations
 
+import importlib.metadata
 import json
 from pathlib import Path
 
@@ -15,6 +16,7 @@ import prespec.report
 import prespec.workflow.rehearse
 import prespec.workflow.run
 from prespec import api, audit
+from prespec.common import environment
 from prespec.demo.wound import PLAN_TEXT, demo_data
 from prespec.errors import BadInput, IntegrityStop, PrespecError
 
@@ -48,8 +50,12 @@ def test_lock_writes_the_resolved_plan_and_an_entry(study: tuple[Path, Path]) ->
     assert version["previous"] is None and version["actor"] == "ana"
     assert version["plan"]["hypotheses"][2]["alternative"] == "two-sided"  # default written
     assert version["plan"]["data"]["reference"] == "gauze"
-    assert set(version["environment"]) == {"python", "numpy", "scipy", "statsmodels", "pandas",
-                                           "prespec"}
+    # Python, the operating system, the packages that compute and the engines' libraries
+    assert set(version["environment"]) == {"python", "os", "numpy", "scipy", "statsmodels",
+                                           "pandas", "prespec", "duckdb", "SQLAlchemy",
+                                           "psycopg", "pyspark"}
+    assert version["environment"]["os"] == environment.operating_system()
+    assert version["environment"]["scipy"] == importlib.metadata.version("scipy")
     (entry,) = log_of(plan)
     assert entry["action"] == "lock" and entry["plan"] == res.fingerprint
     assert entry["data"] is None and entry["details"]["version"] == 1

@@ -315,7 +315,7 @@ def test_a_glob_skips_hidden_files_and_records_every_file_read(tmp_path: Path,
 
 
 def test_the_report_header_lists_the_files_read() -> None:
-    from prespec.report.sections import header
+    from prespec.report.summary import summary as header  # the report's first screen
 
     files = [{"path": "parts/a.csv", "sha256": "sha256:" + "a" * 64},
              {"path": "parts/<b>.csv", "sha256": "sha256:" + "b" * 64}]

@@ -273,7 +273,9 @@ def test_a_fallback_to_a_chi_square_test_is_not_labelled_z() -> None:
     hyp = fallback_entry()
     hyp.update(test="pearson-chi-square", statistic=7.032, df=1)
     hyp["adjusted"]["fallback"]["test"] = "pearson-chi-square"
-    assert _fields(_page(hyp))["Statistic"] == "7.032 (df 1)"
+    rows = _fields(_page(hyp))
+    assert rows["Statistic (chi-square)"] == "7.032 (df 1)"
+    assert "Statistic (z)" not in rows
 
 
 def test_adjusted_labels_are_escaped() -> None:
@@ -312,9 +314,10 @@ def test_a_hypothesis_without_the_new_keys_shows_none_of_their_parts() -> None:
     for hyp in sample_results()["hypotheses"]:
         page = sections.hypothesis(hyp, "hypotheses[0]", results=sample_results())
         for part in ("prespec-adjusted", "prespec-fallback", "prespec-variance",
-                     "prespec-working-model", "prespec-weighting", "Statistic (z)",
-                     "weight"):
+                     "prespec-working-model", "prespec-weighting", "weight"):
             assert part not in page
+        # every z test's statistic is labelled z (the plain two-proportion z test too)
+        assert ("Statistic (z)" in page) == (hyp["test"] == "two-proportion-z"), hyp["id"]
 
 
 # --- stratified-score -------------------------------------------------------------------------
@@ -363,7 +366,7 @@ def test_a_cmh_test_over_strata_shows_no_weights() -> None:
                statistic=6.31, df=1)
     page = _page(hyp)
     assert "weight" not in _text(page)
-    assert _fields(page)["Statistic"] == "6.310 (df 1)"
+    assert _fields(page)["Statistic (Cochran–Mantel–Haenszel chi-square)"] == "6.310 (df 1)"
 
 
 # --- the rehearsal ----------------------------------------------------------------------------

@@ -21,7 +21,7 @@ import nbformat
 import pytest
 
 from prespec.errors import PrespecError
-from prespec.report import render, sections
+from prespec.report import render, sections, summary
 from prespec.report.blinded import leaks, role_label, shown_value
 from prespec.report.figures import write_figures
 
@@ -172,7 +172,7 @@ def test_group_numbers_finds_a_run_reports_per_group_rows() -> None:
 
 def _fragments(res: dict[str, Any]) -> str:
     return "".join([
-        sections.header(res), sections.blinded_banner(res), sections.caution(res),
+        summary.summary(res), sections.blinded_banner(res), sections.caution(res),
         sections.departures(res), sections.population(res),
         sections.planned_versus_achieved(res), sections.pooled(res),
         sections.data_dictionary(res), *(o[1] for o in sections.outcomes(res)),

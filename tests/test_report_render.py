@@ -22,7 +22,7 @@ import nbformat
 import pytest
 
 from prespec.errors import PrespecError
-from prespec.report import render, sections, template
+from prespec.report import render, sections, summary, template
 from prespec.report.figures import write_figures
 
 try:
@@ -262,7 +262,7 @@ def test_html_sections_in_order(run_html: str) -> None:
 
 def test_html_hides_code_and_prompts(run_html: str) -> None:
     for code in ("import json", "import hashlib", "display(HTML", "results_sha256 =",
-                 "sections.header"):
+                 "summary.summary("):
         assert code not in run_html, code
     body = run_html[run_html.index("<body"):]  # the stylesheet names these classes too
     assert 'class="jp-InputArea' not in body and "jp-Cell-inputWrapper" not in body
@@ -288,8 +288,12 @@ def test_html_images_have_alt_text(run_html: str) -> None:
 
 def test_html_environment_table(run_html: str) -> None:
     env = run_html[run_html.index("<h2>Environment</h2>"):]
+    # results.json without the lock's versions (an older report): this run's, and why alone
+    assert "This report does not carry the versions recorded at lock time" in env
+    assert "<th>Component</th><th>This run</th>" in env
     for key, value in sample_results()["environment"].items():
-        assert f"<tr><th>{key}</th><td>{value}</td></tr>" in env
+        label = {"python": "Python"}.get(key, key)
+        assert f"<tr><td>{label}</td><td>{value}</td></tr>" in env
 
 
 # --- rehearsal, tampering, failures ---------------------------------------------------------
@@ -352,7 +356,7 @@ def test_unknown_kernel_is_a_one_line_error(tmp_path: Path) -> None:
 def test_header_escapes_every_value() -> None:
     res = sample_results()
     res["actor"] = "<script>x</script>"
-    page = sections.header(res)
+    page = summary.summary(res)
     assert "<script>" not in page and "&lt;script&gt;x&lt;/script&gt;" in page
 
 
@@ -374,7 +378,9 @@ def test_hypothesis_with_sparse_switch_shows_planned_test_and_rule() -> None:
     assert "<tr><th>Test used</th><td>fisher-exact</td></tr>" in page
     assert "<tr><th>Planned test</th><td>pearson-chi-square</td></tr>" in page
     assert "smallest expected count 1.98 is below 5" in page
-    assert "<tr><th>Statistic</th><td>—</td></tr>" in page
+    # an exact test has no statistic of its own, and the row says so
+    assert ("<tr><th>Statistic</th><td>none: an exact test sums the probabilities of the "
+            "tables</td></tr>") in page
     # Non-events are total minus events (3 of 196 -> 193); expected counts beside them.
     assert "<td>gauze</td><td class=\"num\">3</td><td class=\"num\">193</td>" in page
     assert "<td class=\"num\">194.02</td>" in page
@@ -480,7 +486,7 @@ def test_full_report_monte_carlo_line(full_html: str) -> None:
 def test_full_report_estimate_note_and_null_limit(full_html: str) -> None:
     child = _section(full_html, _heading("H7:gauze-vs-negative-pressure",
                                          "Reopening, gauze vs negative-pressure", 4),
-                     "</div>")
+                     '<div class="prespec-hyp"')  # up to the next hypothesis
     assert "<tr><th>Estimate (risk ratio)</th><td>7.0711</td></tr>" in child
     # The note stands directly under the estimate and its interval.
     assert ("<tr><th>Interval (95% katz)</th><td>(0.3681, 135.8300)</td></tr>"
@@ -631,7 +637,7 @@ def test_old_results_show_none_of_the_new_parts() -> None:
 def test_every_fragment_starts_with_a_tag() -> None:
     # IPython's HTML() treats a string that starts with "http" or names a file as a location.
     res = full_results()
-    fragments = [sections.header(res), sections.caution(res), sections.departures(res),
+    fragments = [summary.summary(res), sections.caution(res), sections.departures(res),
                  sections.population(res), sections.hypotheses_heading(res),
                  *sections.hypotheses(res), sections.multiplicity(res),
                  sections.environment(res), *(o[1] for o in sections.outcomes(res))]
@@ -658,7 +664,7 @@ def test_hostile_label_in_every_text_field_is_escaped(label: str) -> None:
             hyp["estimate"]["note"] = label
     res["hypotheses"][0]["strata_tables"][0]["stratum"] = {label: label}
     res["hypotheses"][0]["table"]["groups"][0] = label
-    pages = [sections.header(res), sections.departures(res), *sections.hypotheses(res),
+    pages = [summary.summary(res), sections.departures(res), *sections.hypotheses(res),
              sections.multiplicity(res), *(o[1] for o in sections.outcomes(res))]
     page = "".join(pages)
     _assert_inert(page)

@@ -508,7 +508,7 @@ def test_extended_report_shows_every_new_part_in_order(extended_report: Path) ->
     page = (extended_report / "report.html").read_text(encoding="utf-8")
     marks = ["<h2>Population</h2>", "<h2>Planned versus achieved</h2>", "<h2>Outcomes</h2>",
              '<h3 class="prespec-hypothesis">H1 — ', "<strong>Estimand.</strong>",
-             "<th>Decision</th>", "<h4>Sensitivity analyses</h4>", "holds in all 15",
+             "<tr><th>Decision</th>", "<h4>Sensitivity analyses</h4>", "holds in all 15",
              '<h3 class="prespec-hypothesis">H2 — ', "changes in", "<h2>Multiplicity</h2>"]
     positions = [page.index(m) for m in marks]
     assert positions == sorted(positions)

@@ -380,9 +380,11 @@ def test_no_group_level_figure_is_written_printed_or_logged(
 
 
 def test_no_group_column_gives_the_same_pooled_document(rehearsals: dict[str, Done]) -> None:
-    moment = {"data", "created"}
+    moment = {"data", "created", "locked"}  # locked: the lock history of a locked plan
     labelled, unlabelled = rehearsals["two-arm"].results, rehearsals["unlabelled"].results
     assert labelled["plan_version"] == 1 and unlabelled["plan_version"] is None
+    assert [v["version"] for v in labelled["locked"]["versions"]] == [1]
+    assert "locked" not in unlabelled
     same = {k: v for k, v in labelled.items() if k not in moment | {"plan_version", "notes"}}
     assert same == {k: v for k, v in unlabelled.items()
                     if k not in moment | {"plan_version", "notes"}}

@@ -734,6 +734,25 @@ class Design(Part):
 
 # --- the documents ---
 
+class LockedVersion(Part):
+    """One locked version of the plan, as its ``lock`` or ``amend`` entry of the log gives it."""
+
+    version: Count = Field(description="The lock version: 1 for the lock, 2, … for amendments.")
+    action: Literal["lock", "amend"] = Field(description="The log entry's action.")
+    at: Text = Field(description="When the entry was written (RFC 3339 UTC).")
+    actor: Text = Field(description="Who locked or amended.")
+    reason: Text | None = Field(description="The amendment's reason; null for the lock.")
+
+
+class Locked(Part):
+    """When the plan that ran was locked and amended, and the versions recorded at its lock."""
+
+    versions: list[LockedVersion] = Field(
+        description="Every lock and amend entry of the log before the run, in order.")
+    environment: dict[Text, Text] = Field(
+        description="The environment recorded with the version in force (lock or amend).")
+
+
 class Provenance(Part):
     """The fields that open every results document: what ran, on what, by whom, with what."""
 
@@ -754,6 +773,9 @@ class Provenance(Part):
     alpha: Number
     multiplicity: Text | GraphMultiplicity
     environment: dict[Text, Text]
+    locked: Locked | None = Field(
+        default=None, description="The lock history and the environment at lock; absent when "
+        "the plan ran unlocked, and in reports written before it was recorded.")
 
 
 class RunResults(Provenance):

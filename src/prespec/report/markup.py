@@ -10,6 +10,7 @@ The section modules (:mod:`prespec.report.sections`, :mod:`prespec.report.blinde
 from __future__ import annotations
 
 import html
+import re
 from collections.abc import Iterable, Mapping, Sequence
 
 from prespec.common.shown import visible
@@ -40,6 +41,24 @@ def esc(value: object) -> str:
     return html.escape(visible(str(value)), quote=True)
 
 
+#: A value with an unbroken run longer than this (a hash, a path, a long label) may break
+#: anywhere on the page; shorter values break only between words and after hyphens, as a
+#: browser breaks them.
+LONG_RUN = 28
+
+
+def long_cell(value: str) -> bool:
+    """Whether a cell's text holds an unbroken run of more than ``LONG_RUN`` characters."""
+    return any(len(word) > LONG_RUN for word in re.split(r"[\s\-]+", value))
+
+
+def td(value: str, classes: str = "") -> str:
+    """A table cell of plain text (escaped here); a long unbroken value may break anywhere."""
+    names = " ".join(c for c in (classes, "prespec-long" if long_cell(value) else "") if c)
+    klass = f' class="{names}"' if names else ""
+    return f"<td{klass}>{esc(value)}</td>"
+
+
 def table(
     header: Sequence[str],
     rows: Iterable[Sequence[str]],
@@ -59,7 +78,7 @@ def table(
     head = "".join(f"<th>{esc(h)}</th>" for h in header)
 
     def cell(j: int, value: str) -> str:
-        return f'<td class="num">{esc(value)}</td>' if j in nums else f"<td>{esc(value)}</td>"
+        return td(value, "num" if j in nums else "")
 
     def row(i: int, values: Sequence[str]) -> str:
         style = f' style="{esc(styles[i])}"' if i in styles else ""
@@ -76,7 +95,7 @@ def table(
 
 def fields(rows: Iterable[tuple[str, str]]) -> str:
     """A two-column table of labelled values."""
-    body = "".join(f"<tr><th>{esc(k)}</th><td>{esc(v)}</td></tr>" for k, v in rows)
+    body = "".join(f"<tr><th>{esc(k)}</th>{td(v)}</tr>" for k, v in rows)
     return f'<table class="prespec prespec-fields"><tbody>{body}</tbody></table>'
 
 

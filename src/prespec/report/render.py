@@ -49,18 +49,72 @@ alt="{{ ((output | get_metadata('alt', 'image/png')) or 'figure') | escape_html 
 {%- block html_head_css -%}
 <style type="text/css">
 body { max-width: 68rem; margin: 0 auto; padding: 1rem 1.5rem 3rem; }
-.jp-RenderedHTMLCommon table.prespec { margin: 0.4em 0 1em; border-collapse: collapse; }
+/* nothing is wider than the page: long values (hashes, paths, labels) wrap, anywhere if need be */
+.jp-Notebook, .jp-Cell, .jp-OutputArea, .jp-OutputArea-child, .jp-OutputArea-output {
+  max-width: 100%; min-width: 0; overflow-x: visible;
+}
+.jp-OutputArea-output img { max-width: 100%; height: auto; }
+.jp-RenderedHTMLCommon { overflow-wrap: break-word; }
+.jp-RenderedHTMLCommon table.prespec { margin: 0.4em 0 1em; border-collapse: collapse;
+  table-layout: auto; max-width: 100%; }
 .jp-RenderedHTMLCommon table.prespec th, .jp-RenderedHTMLCommon table.prespec td {
   border: 1px solid #c8c8c8; padding: 0.25em 0.7em; text-align: left; vertical-align: top;
+  overflow-wrap: break-word; max-width: none;
 }
+.jp-RenderedHTMLCommon table.prespec td.prespec-long { overflow-wrap: anywhere; }
 .jp-RenderedHTMLCommon table.prespec td.num {
   text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap;
 }
 .jp-RenderedHTMLCommon table.prespec thead th { background: #ececec; }
+/* a family's table has ten columns: tighter, so that it fits the page */
+.jp-RenderedHTMLCommon table.prespec-family { font-size: 0.92em; }
+.jp-RenderedHTMLCommon table.prespec-family th, .jp-RenderedHTMLCommon table.prespec-family td {
+  padding: 0.2em 0.4em; }
 .jp-RenderedHTMLCommon table.prespec tbody tr:nth-child(odd) { background: #fafafa; }
 .jp-RenderedHTMLCommon table.prespec-fields th { background: #f3f3f3; font-weight: 600; }
+.jp-RenderedHTMLCommon table.prespec-fields th { min-width: 8em; }
+.jp-RenderedHTMLCommon table.prespec tr.prespec-hash td { overflow-wrap: anywhere;
+  font-family: monospace; }
+.prespec-nowrap { white-space: nowrap; }
 .prespec-hyp { border-top: 1px solid #bdbdbd; margin-top: 1.6em; }
 .prespec-exploratory { font-weight: normal; font-style: italic; color: #555555; }
+/* the first screen */
+.jp-RenderedHTMLCommon table.prespec-facts { width: 100%; }
+.jp-RenderedHTMLCommon table.prespec-facts th { width: 13em; }
+.jp-RenderedHTMLCommon table.prespec-summary-results { width: 100%; }
+.jp-RenderedHTMLCommon table.prespec-summary-results td.prespec-estimate { white-space: normal;
+  min-width: 13.5em; }
+.jp-RenderedHTMLCommon table.prespec-summary-results th:nth-child(5) { white-space: nowrap; }
+.prespec-measure { color: #555555; font-size: 0.85em; }
+.jp-RenderedHTMLCommon tr.prespec-followup-row td:first-child { padding-left: 1.6em; }
+.prespec-summary-note { color: #444444; font-size: 0.9em; }
+.prespec-contents { border: 1px solid #c8c8c8; background: #fafafa; padding: 0.4em 1em;
+  margin: 0.8em 0 1.2em; }
+.prespec-contents ol { margin: 0.2em 0; columns: 2 18rem; }
+.prespec-contents ol ol { columns: auto; font-size: 0.92em; }
+.prespec-contents li { break-inside: avoid; }
+.prespec-anchor { display: block; height: 0; }
+/* a hypothesis: what it asks on the left, its result on the right, the rest across */
+.prespec-hyp-body { display: grid; grid-template-columns: minmax(0, 1fr) minmax(0, 1fr);
+  column-gap: 1.5rem; align-items: start; }
+.prespec-hyp-body > div { min-width: 0; grid-column: 1 / -1; }
+.prespec-hyp-body > .prespec-part-definition { grid-column: 1; grid-row: 1; }
+.prespec-hyp-body > .prespec-part-estimand { grid-column: 1; grid-row: 2; }
+.prespec-hyp-body > .prespec-part-result { grid-column: 2; grid-row: 1 / span 2; }
+.prespec-hyp-body table.prespec-fields { width: 100%; }
+.jp-RenderedHTMLCommon .prespec-part-result table.prespec-fields td { min-width: 10em; }
+@media (max-width: 46rem) {
+  .prespec-hyp-body { display: block; }
+}
+@media print {
+  body { max-width: none; padding: 0; font-size: 10pt; }
+  .prespec-hyp-body { display: block; }
+  .prespec-contents ol { columns: auto; }
+  tr, img, .prespec-hyp-body > div,
+  .prespec-contents li { break-inside: avoid; }
+  h1, h2, h3, h4 { break-after: avoid; }
+  .jp-RenderedHTMLCommon table.prespec td.num { white-space: normal; }
+}
 </style>
 {%- endblock html_head_css -%}
 """

@@ -12,6 +12,7 @@ import json
 from collections.abc import Mapping, Sequence
 from typing import Any
 
+from prespec.common.environment import KEYS
 from prespec.report import adjusted, bayes, blinded, design
 from prespec.report.estimand import estimand_block
 from prespec.report.figures import (
@@ -31,6 +32,7 @@ from prespec.report.markup import (
     FOLLOWUP_STYLE,
     OVERRIDE_STYLE,
     QUIET_STYLE,
+    SOFT_ROW_STYLE,
     esc,
     fields,
     plural,
@@ -60,7 +62,7 @@ from prespec.report.values import (
 )
 
 KINDS = {"run": "Analysis run", "rehearsal": "Blinded rehearsal"}
-ENVIRONMENT_ORDER = ("python", "numpy", "scipy", "statsmodels", "pandas", "prespec")
+ENVIRONMENT_ORDER = KEYS  # Python, the operating system, the packages, the engines' libraries
 
 
 def _engine(results: dict[str, Any]) -> str:
@@ -93,27 +95,6 @@ def kind_label(results: Mapping[str, Any]) -> str:
     """``Analysis run`` or ``Blinded rehearsal`` (another kind is shown as written)."""
     kind = text(results.get("kind"), "kind", default="")
     return KINDS.get(kind, kind or "kind not given")
-
-
-def header(results: Mapping[str, Any]) -> str:
-    """Title, kind, plan fingerprint and version, data hash and file, time and actor."""
-    title = text(results.get("title"), "title", default="Untitled plan")
-    rows = [("Kind", kind_label(results))]
-    if results.get("protocol") is not None:
-        rows.append(("Protocol", _optional(results, "protocol")))
-    rows += [
-        ("Plan fingerprint", _optional(results, "plan")),
-        ("Plan version", _optional(results, "plan_version")),
-        ("Data hash", _optional(results, "data")),
-        ("Data file", _optional(results, "data_file")),
-        *([("Files read", _files_read(results))] if "data_files" in results else []),
-        *([("Engine", _engine(results))] if "engine" in results else []),
-        ("Time (UTC)", _optional(results, "created")),
-        ("Actor", _optional(results, "actor")),
-        ("Alpha", _optional(results, "alpha")),
-        ("Multiplicity", multiplicity_name(results)),
-    ]
-    return f'<h1 class="prespec-title">{esc(title)}</h1>' + fields(rows)
 
 
 def caution(results: Mapping[str, Any]) -> str:
@@ -627,16 +608,21 @@ def hypothesis_parts(
     if not is_prespecified(hyp, where):
         parts.append(_not_prespecified_box(hyp, hid, results or {}))
     method = multiplicity_name(results) if results is not None else NULL
-    parts.append(fields(_definition_rows(hyp, where, method)))
     parts.append(adjusted.fallback_box(hyp, where))  # a failed working model: said first
-    parts.append(estimand_block(hyp, where))  # the estimand in words, before the result
+    # The body is a grid on the page (the stylesheet of render.py): the definition and the
+    # estimand on the left, the result beside them on the right, the rest across the width;
+    # in the notebook, and on a narrow page, the parts follow each other in this order.
+    body = [_part("definition", fields(_definition_rows(hyp, where, method))),
+            _part("estimand", estimand_block(hyp, where))]  # in words, before the result
     if hyp.get("table") is not None:
-        parts.append(count_table(hyp["table"], hyp.get("expected"), where, hyp.get("scores")))
+        body.append(_part("wide", count_table(hyp["table"], hyp.get("expected"), where,
+                                              hyp.get("scores"))))
     if hyp.get("strata_tables") is not None:
-        parts.append(strata_tables(hyp, where))
-    parts.append(adjusted.inputs_block(hyp, where))  # covariates, units left out, risks
-    parts.append(bayes.inputs_block(hyp, where))  # priors and posteriors
-    parts.append(fields(result_rows(hyp, where)))
+        body.append(_part("wide", strata_tables(hyp, where)))
+    body.append(_part("wide", adjusted.inputs_block(hyp, where)))  # covariates, units, risks
+    body.append(_part("wide", bayes.inputs_block(hyp, where)))  # priors and posteriors
+    body.append(_part("result", fields(result_rows(hyp, where))))
+    parts.append('<div class="prespec-hyp-body">' + "".join(body) + "</div>")
     bayes_html, bayes_figures = bayes.after_block(hyp, where)
     parts.append(bayes_html)
     parts += [p for p in (adjusted.variance_line(hyp, where), adjusted.model_block(hyp, where),
@@ -655,7 +641,23 @@ def hypothesis_parts(
     looks_html, looks_figures = looks_block(hyp, where)
     parts.append(looks_html)
     figures = [*bayes_figures, *looks_figures, *figures]
-    return '<div class="prespec-hyp">' + "".join(parts) + "</div>", figures
+    anchor = _position_anchor(position)
+    ident = f' id="{esc(anchor)}"' if anchor else ""
+    return f'<div class="prespec-hyp"{ident}>' + "".join(parts) + "</div>", figures
+
+
+def _part(kind: str, html: str) -> str:
+    """One part of a hypothesis's body, placed by the stylesheet (``definition``,
+    ``estimand``, ``result`` or ``wide``); nothing for an empty part."""
+    return f'<div class="prespec-part-{kind}">{html}</div>' if html else ""
+
+
+def _position_anchor(position: str) -> str:
+    """``hypothesis-3`` for ``hypotheses[3]``: the contents link to it; ``""`` otherwise."""
+    import re
+
+    found = re.fullmatch(r"hypotheses\[(\d+)\]", position)
+    return f"hypothesis-{found.group(1)}" if found else ""
 
 
 def _not_prespecified_box(hyp: Mapping[str, Any], hid: str, results: Mapping[str, Any]) -> str:
@@ -884,11 +886,7 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
         _, agrees = _margin_check(hyp, where)
         if agrees is not None:
             rows.append(("Interval and test", "agree" if agrees else "disagree: the test decides"))
-    statistic = fmt_statistic(number(hyp.get("statistic"), f"{where}.statistic"))
-    df = number(hyp.get("df"), f"{where}.df")
-    if df is not None:
-        statistic += f" (df {fmt_count(df)})"
-    rows.append((adjusted.statistic_label(hyp, where), statistic))
+    rows.append(statistic_row(hyp, where))
     p = fmt_p(number(hyp.get("p_value"), f"{where}.p_value"))
     if is_exploratory(hyp):
         rows.append(("Nominal p-value (exploratory)", p))
@@ -901,6 +899,43 @@ def result_rows(hyp: Mapping[str, Any], where: str) -> list[tuple[str, str]]:
         rows.append(("Adjusted p-value", fmt_p(number(hyp.get("p_adjusted"), f"{where}.p_adjusted"))))
         rows.append(("Decision", decision(hyp, where)))
     return rows
+
+
+#: What each test's statistic is, as the row's label names it (docs/files.md, ``statistic``).
+STATISTIC_NAMES = {
+    "two-proportion-z": "z",
+    "one-proportion-z": "z",
+    "farrington-manning": "z, score test under the margin",
+    "cochran-armitage-trend": "z, trend",
+    "stratified-score": "z",
+    "g-computation": "z",
+    "pearson-chi-square": "chi-square",
+    "likelihood-ratio": "G², likelihood-ratio chi-square",
+    "cochran-mantel-haenszel": "Cochran–Mantel–Haenszel chi-square",
+    "barnard-exact": "Wald z that orders the tables",
+    "boschloo-exact": "Fisher's exact p-value that orders the tables",
+}
+#: Exact tests that have no statistic of their own: the p-value sums table probabilities.
+NO_STATISTIC = {"fisher-exact": "none: an exact test sums the probabilities of the tables",
+                "binomial-exact": "none: an exact test sums the probabilities of the counts"}
+
+
+def statistic_row(hyp: Mapping[str, Any], where: str) -> tuple[str, str]:
+    """The statistic with what it is in the label: ``Statistic (z)``, ``Statistic
+    (chi-square)`` with its df beside the value, ``Statistic`` = ``none: …`` for an exact
+    test that has none."""
+    test = text(hyp.get("test"), f"{where}.test", default="")
+    value = number(hyp.get("statistic"), f"{where}.statistic")
+    df = number(hyp.get("df"), f"{where}.df")
+    if value is None and test in NO_STATISTIC:
+        return ("Statistic", NO_STATISTIC[test])
+    shown = fmt_statistic(value)
+    if df is not None:
+        shown += f" (df {fmt_count(df)})"
+    name = STATISTIC_NAMES.get(test)
+    if name is None:
+        return (adjusted.statistic_label(hyp, where), shown)
+    return (f"Statistic ({name})", shown)
 
 
 def forest_figure(results: Mapping[str, Any]) -> str | None:
@@ -1034,16 +1069,90 @@ def multiplicity(results: Mapping[str, Any]) -> str:
     return "".join(out)
 
 
+def unlocked_words(results: Mapping[str, Any]) -> str:
+    """Why a report has no lock version: a run without a lock (a departure), or a rehearsal
+    of a plan file that is not (or no longer) the locked one (a note)."""
+    if blinded.is_rehearsal(results):
+        return "The plan file was rehearsed, not a locked version of the plan (see the notes)"
+    return "The plan ran without a lock (see the departures)"
+
+
+ENVIRONMENT_LABELS = {"python": "Python", "os": "Operating system"}
+NOT_RECORDED = "not recorded at lock"
+NOT_INSTALLED = "not installed"
+
+
+def _engine_libraries(results: Mapping[str, Any]) -> list[str]:
+    """The distributions the run's engine counted with, from ``engine_library``
+    (``SQLAlchemy 2.0.36, psycopg 3.2.3`` -> ``["SQLAlchemy", "psycopg"]``)."""
+    library = results.get("engine_library")
+    if not isinstance(library, str):
+        return []
+    return [part.strip().split(" ")[0] for part in library.split(",") if part.strip()]
+
+
+def environment_rows(results: Mapping[str, Any]) -> list[tuple[str, str, str, str]]:
+    """(component, at lock, this run, compared) for every version the run or its lock
+    recorded: Python, the operating system, the packages that compute, the engine libraries
+    installed at either time. ``compared``: ``same``, ``differs``, ``not recorded at lock``
+    (a lock written before that version was recorded), or ``""`` without a lock to compare."""
+    env = mapping(results.get("environment") or {}, "environment")
+    locked = None
+    if results.get("locked") is not None:
+        block = mapping(results["locked"], "locked")
+        locked = mapping(block.get("environment") or {}, "locked.environment")
+    keys = list(dict.fromkeys([*(k for k in ENVIRONMENT_ORDER if k in env or k in (locked or {})),
+                               *env, *(locked or {})]))
+    used = _engine_libraries(results)
+    rows = []
+    for key in keys:
+        now = text(env[key], f"environment.{key}") if key in env else NULL
+        then = (text(locked[key], f"locked.environment.{key}") if key in locked
+                else NOT_RECORDED) if locked is not None else ""
+        if now == NOT_INSTALLED and then in (NOT_INSTALLED, NOT_RECORDED, "") \
+                and key not in used:
+            continue  # an engine's library absent then and now: nothing to say
+        compared = ("" if locked is None else NOT_RECORDED if then == NOT_RECORDED
+                    else "same" if then == now else "differs")
+        label = ENVIRONMENT_LABELS.get(key, key)
+        if key in used:
+            label += " (counted the data)"
+        rows.append((label, then, now, compared))
+    return rows
+
+
 def environment(results: Mapping[str, Any]) -> str:
-    """The versions of Python and of the libraries the results were computed with."""
-    out = "<h2>Environment</h2>"
+    """The versions this run computed with, each beside the one recorded at lock time, the
+    differences highlighted."""
+    out = '<h2>Environment</h2>'
     if results.get("environment") is None:
         return out + "<p>results.json gives no environment.</p>"
-    env = mapping(results["environment"], "environment")
-    keys = [k for k in ENVIRONMENT_ORDER if k in env] + sorted(
-        k for k in env if k not in ENVIRONMENT_ORDER
-    )
-    return out + fields((k, text(env[k], f"environment.{k}", default=NULL)) for k in keys)
+    rows = environment_rows(results)
+    if results.get("locked") is None:
+        words = (unlocked_words(results) + ": there are no versions at lock time to compare."
+                 if results.get("plan_version") is None else
+                 "This report does not carry the versions recorded at lock time (it was written "
+                 "before they were copied into results.json); the lock file still holds them.")
+        return (out + f'<p class="prespec-environment-note">{esc(words)}</p>'
+                + table(["Component", "This run"], [[c, n] for c, _, n, _ in rows],
+                        cls="prespec-environment"))
+    versions = items(mapping(results["locked"], "locked").get("versions"), "locked.versions")
+    version = results.get("plan_version")
+    differs = [c for c, _, _, k in rows if k == "differs"]
+    lead = (f"Each version this run computed with, beside the one recorded when version "
+            f"{NULL if version is None else version} of the plan was locked"
+            f"{' or amended' if len(versions) > 1 else ''}. ")
+    if differs:
+        lead += (f"{plural(len(differs), 'version')} differ{'s' if len(differs) == 1 else ''} "
+                 f"from the lock: {', '.join(differs)} (highlighted). A difference in Python or "
+                 "a package that computes is also listed among the departures.")
+    else:
+        lead += "No recorded version differs from the lock."
+    styles = {i: (FLAG_ROW_STYLE if k == "differs" else SOFT_ROW_STYLE)
+              for i, (_, _, _, k) in enumerate(rows) if k in ("differs", NOT_RECORDED)}
+    return (out + f'<p class="prespec-environment-note">{esc(lead)}</p>'
+            + table(["Component", "At lock", "This run", "Compared with the lock"],
+                    [list(r) for r in rows], cls="prespec-environment", row_styles=styles))
 
 
 def blinded_banner(results: Mapping[str, Any]) -> str:

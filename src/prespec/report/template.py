@@ -45,58 +45,59 @@ if not isinstance(results, dict):
     ("header", '''\
 from IPython.display import HTML, Image, display
 
-from prespec.report import sections
+from prespec.report import sections, summary
 
-display(HTML(sections.header(results)))
+display(HTML(summary.summary(results)))
 banner = sections.blinded_banner(results)
 if banner:
     display(HTML(banner))
 display(HTML(sections.caution(results)))
+display(HTML(summary.contents(results)))
 '''),
     ("departures", '''\
-display(HTML(sections.departures(results)))
+display(HTML(summary.anchor("departures") + sections.departures(results)))
 '''),
     ("population", '''\
-display(HTML(sections.population(results)))
+display(HTML(summary.anchor("population") + sections.population(results)))
 '''),
     ("design", '''\
 planned = sections.planned_versus_achieved(results)
 if planned:
-    display(HTML(planned))
+    display(HTML(summary.anchor("design") + planned))
 '''),
     ("pooled", '''\
 pooled = sections.pooled(results)
 if pooled:
-    display(HTML(pooled))
+    display(HTML(summary.anchor("pooled") + pooled))
 '''),
     ("dictionary", '''\
 dictionary = sections.data_dictionary(results)
 if dictionary:
-    display(HTML(dictionary))
+    display(HTML(summary.anchor("dictionary") + dictionary))
 '''),
     ("outcomes", '''\
 outcome_parts = sections.outcomes(results)
 if outcome_parts:
-    display(HTML("<h2>Outcomes</h2>"))
+    display(HTML(summary.anchor("outcomes") + "<h2>Outcomes</h2>"))
 for name, outcome_html, figure in outcome_parts:
     display(HTML(outcome_html))
     alt = f"Proportion with the event in each group, with intervals: {name}"
     display(Image(filename=figure, metadata={"alt": alt}))
 '''),
     ("hypotheses", '''\
-display(HTML(sections.hypotheses_heading(results)))
+display(HTML(summary.anchor("hypotheses") + sections.hypotheses_heading(results)))
 for hypothesis_html, figures in sections.hypothesis_blocks(results):
     display(HTML(hypothesis_html))
     for figure, alt in figures:
         display(Image(filename=figure, metadata={"alt": alt}))
 forest = sections.forest_figure(results)
 if forest is not None:
-    display(HTML("<h3>Estimates and intervals</h3>"))
+    display(HTML(summary.anchor("estimates") + "<h3>Estimates and intervals</h3>"))
     alt = "Estimate and interval of each hypothesis that has one"
     display(Image(filename=forest, metadata={"alt": alt}))
 '''),
     ("multiplicity", '''\
-display(HTML(sections.multiplicity(results)))
+display(HTML(summary.anchor("multiplicity") + sections.multiplicity(results)))
 graph = sections.multiplicity_figure(results)
 if graph is not None:
     alt = "Graph of the graphical procedure: initial weights and transitions"
@@ -107,14 +108,14 @@ from prespec.report import families as family_report
 
 family_heading = family_report.families_heading(results)
 if family_heading:
-    display(HTML(family_heading))
+    display(HTML(summary.anchor("families") + family_heading))
 for family_html, figure, alt, table_html in family_report.family_blocks(results):
     display(HTML(family_html))
     display(Image(filename=figure, metadata={"alt": alt}))
     display(HTML(table_html))
 '''),
     ("environment", '''\
-display(HTML(sections.environment(results)))
+display(HTML(summary.anchor("environment") + sections.environment(results)))
 '''),
     ("caution-end", '''\
 display(HTML(sections.caution(results)))

@@ -92,6 +92,46 @@ def environment_departures(record: dict[str, Any], env: dict[str, str]) -> list[
         "; ".join(f"{n} {b}" for n, _, b in diffs))]
 
 
+def lock_versions(entries: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Every ``lock`` and ``amend`` entry of ``entries`` as results.json's ``locked.versions``
+    holds it: version, action, time, actor, reason."""
+    return [{"version": e["details"].get("version"), "action": e["action"], "at": e["at"],
+             "actor": e["actor"], "reason": e["details"].get("reason")}
+            for e in entries if e.get("action") in ("lock", "amend")]
+
+
+def lock_history_problem(entries: list[dict[str, Any]], entry: dict[str, Any],
+                         doc: dict[str, Any]) -> str | None:
+    """Why a report's ``locked`` versions are not the log's lock and amend entries before its
+    own entry, or None (also for a report without them)."""
+    if "locked" not in doc:
+        return None
+    locked = doc["locked"]
+    before = [e for e in entries if e["seq"] < entry["seq"]]
+    if not isinstance(locked, dict) or locked.get("versions") != lock_versions(before):
+        return ("its lock history (results.json locked.versions) differs from the lock and "
+                "amend entries of the log before it")
+    return None
+
+
+def with_lock_history(results: dict[str, Any], entries: list[dict[str, Any]],
+                      record: dict[str, Any] | None) -> dict[str, Any]:
+    """``results`` with its ``locked`` block (docs/files.md) after ``environment``: every
+    ``lock`` and ``amend`` entry of the log read before the run (version, time, actor, reason)
+    and the environment recorded with ``record``, the lock version in force. Unchanged when the
+    plan ran unlocked (``record`` None)."""
+    if record is None:
+        return results
+    locked = {"versions": lock_versions(entries),
+              "environment": dict(record.get("environment") or {})}
+    out: dict[str, Any] = {}
+    for key, value in results.items():
+        out[key] = value
+        if key == "environment":
+            out["locked"] = locked
+    return out
+
+
 def check_out_path(plan_path: Path, out: Path) -> None:
     """``--out`` must be a new or empty plain folder: no link, not a file. Outside the plan's
     folder it must sit in an existing folder the user can write (no parents are made there)."""

@@ -54,6 +54,7 @@ from prespec.workflow.base import (
     plain_errors,
     resolve_actor,
     still_as_read,
+    with_lock_history,
 )
 from prespec.workflow.execute import (
     build_results,
@@ -505,6 +506,7 @@ def rehearse(plan: str | Path, data: str | Path | None = None, *,
     deviations: list[Departure] = []
     notes: list[Note] = []
     version = None
+    record = None  # the lock version in force, when the plan file is the locked one
     env = environment()
     notes.extend(source_notes)
     if doc is None:
@@ -515,9 +517,9 @@ def rehearse(plan: str | Path, data: str | Path | None = None, *,
                           f"lock (version {audit.latest(doc).get('version')}); the plan file was "
                           "rehearsed; amend the lock before the run on unblinded data"))
     else:
-        last = audit.latest(doc)
-        version = int(last["version"])
-        deviations.extend(environment_departures(last, env))
+        record = audit.latest(doc)
+        version = int(record["version"])
+        deviations.extend(environment_departures(record, env))
     out_path = Path(out) if out is not None else default_folder(loaded.path, "rehearsal")
     if out is not None:
         check_out_path(loaded.path, out_path)
@@ -526,6 +528,8 @@ def rehearse(plan: str | Path, data: str | Path | None = None, *,
         version=version, data_path=None, actor=resolve_actor(actor), environment=env,
         deviations=deviations, notes=notes, source=source, engine=engine,
     )
+    if record is not None:  # when locked, by the log
+        results = finish(with_lock_history(results, entries, record))
     in_force = audit.latest(doc)["fingerprint"] if doc is not None else None
     return publish(loaded.path, out_path, results, numbered=out is None, action="rehearse",
                    before_entry=lambda: still_as_read(loaded.path, in_force, entries, False))

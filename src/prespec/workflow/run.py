@@ -25,6 +25,7 @@ from prespec.workflow.base import (
     plain_errors,
     resolve_actor,
     still_as_read,
+    with_lock_history,
 )
 from prespec.workflow.execute import compute_results, default_folder
 from prespec.workflow.overrides import apply_overrides, override_departures
@@ -137,6 +138,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
         previous_data=runs[-1].get("data") if runs and looks is None else None,
         looks=looks, progress=progress, source=source, engine=engine, counting=counting,
     )
+    results = with_lock_history(results, entries, record)  # when locked, by the log
     results = finish(results, changes)  # the overrides and each result's pre_specified
     action = "look" if look is not None else "run"
     in_force = record["fingerprint"] if record is not None else None

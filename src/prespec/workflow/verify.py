@@ -32,7 +32,7 @@ from prespec.common.departures import capped_found
 from prespec.common.records import first_problem
 from prespec.errors import IntegrityStop, PrespecError
 from prespec.plan import fingerprint, load_plan, plan_from_resolved
-from prespec.workflow.base import plain_errors
+from prespec.workflow.base import lock_history_problem, plain_errors
 from prespec.workflow.overrides import apply_overrides
 from prespec.workflow.publish import PARTIAL, pending_report
 
@@ -349,7 +349,7 @@ def _check_reports(plan: Path, entries: list[dict[str, Any]], result: VerifyResu
         if doc.get("deviations") != entry["deviations"]:
             raise _fail(result, f"report {rel}: its departures differ from those its log entry "
                         "recorded")
-        problem = look_problem(entries, entry, doc)
+        problem = look_problem(entries, entry, doc) or lock_history_problem(entries, entry, doc)
         if problem:
             raise _fail(result, f"report {rel}: {problem}")
         found[rel] = folder
@@ -885,7 +885,7 @@ def _check_document(plan: Path, doc: dict[str, Any] | None, entries: list[dict[s
 # (``engine``, ``engine_library`` and ``query``: how the counts were made; every engine gives
 # the same counts.)
 MOMENT_FIELDS = frozenset({"created", "actor", "environment", "data_file", "engine",
-                           "engine_library", "query"})
+                           "engine_library", "query", "locked"})
 # Departures and notes that depend on the moment (the log, the lock, the installation, the
 # command line), not on the plan and the data; the recomputation re-derives the rest.
 MOMENT_CODES = frozenset({"data-changed-since-last-run", "environment-differs-from-lock",
