@@ -434,3 +434,28 @@ def test_the_plan_document_words_the_looks(tmp_path: Path) -> None:
     assert "falls below 0.1; the final look is the rule itself" in page
     assert "Planned sizes at the looksexercise 10, 20; usual-care 10, 20" in page  # th, td
     assert api.verify(plan, document=api.describe(plan).html).summary.startswith("verified")
+
+
+def test_the_summary_says_what_an_interim_look_decided(tmp_path: Path) -> None:
+    from prespec.report.summary import facts, result_rows
+
+    text = PLAN + """\
+  - id: H2
+    outcome: response
+    compare: [exercise, usual-care]
+    test: fisher-exact
+    role: secondary
+"""
+    plan = study(tmp_path, text)
+    out = api.run(plan, write_data(tmp_path / "look1.csv", ((9, 10), (2, 10))),
+                  out=tmp_path / "r1", look=1)
+    rows = {r["id"]: r for r in result_rows(out.results)}
+    assert rows["H1"]["decision"] == "look 1 of 2: stop for success (rule met)"
+    assert rows["H2"]["decision"] == "not tested at look 1 of 2"
+    assert "Analysis run: interim look 1 of 2" in facts(out.results)
+    final = api.run(plan, write_data(tmp_path / "final.csv", ((15, 20), (5, 20))),
+                    out=tmp_path / "r2")
+    rows = {r["id"]: r for r in result_rows(final.results)}
+    assert rows["H1"]["decision"] == "rule met"
+    assert rows["H2"]["decision"] in ("reject H0", "do not reject H0")
+    assert "interim look" not in facts(final.results)

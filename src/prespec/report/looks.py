@@ -55,6 +55,40 @@ def looks_name(hid: str) -> str:
     return f"{FIGURES}/looks-{safe_stem(hid, 'hypothesis')}.png"
 
 
+#: A look's decision in a few words, for the summary's results table at an interim look.
+SHORT_WORDS: dict[str, str] = {
+    "continue": "continue",
+    "stop-for-efficacy": "stop for efficacy (reject H0)",
+    "futility-may-be-considered": "continue; futility may be considered",
+    "rejected-earlier": "rejected at an earlier look",
+    "not-computable": "no decision",
+    "stop-for-success": "stop for success (rule met)",
+}
+
+
+def interim_look(results: Mapping[str, Any]) -> tuple[int, int] | None:
+    """(look, of) when the results are those of an interim look, else None."""
+    for raw in items(results.get("hypotheses"), "hypotheses"):
+        lk = raw.get("looks") if isinstance(raw, Mapping) else None
+        if isinstance(lk, Mapping) and lk.get("look") != lk.get("of"):
+            return int(lk["look"]), int(lk["of"])
+    return None
+
+
+def interim_words(hyp: Mapping[str, Any], look: tuple[int, int]) -> str | None:
+    """The decision of a hypothesis at an interim look, in a few words: its look's decision,
+    or ``not tested at this look`` for one without looks; None when the usual words hold
+    (exploratory, or a follow-up)."""
+    lk = hyp.get("looks")
+    if isinstance(lk, Mapping):
+        code = text(lk.get("decision"), "looks.decision")
+        return f"look {look[0]} of {look[1]}: {SHORT_WORDS.get(code, code)}"
+    if hyp.get("reject") is None and hyp.get("role") != "exploratory" \
+            and hyp.get("parent") is None:
+        return f"not tested at look {look[0]} of {look[1]}"
+    return None
+
+
 def decision_words(code: str) -> str:
     """The decision of a look in words."""
     return DECISION_WORDS.get(code, code)

@@ -17,6 +17,7 @@ from collections.abc import Mapping
 from typing import Any
 
 from prespec.report import bayes, blinded
+from prespec.report.looks import interim_look, interim_words
 from prespec.report.markup import DEPARTURE_STYLE, OVERRIDE_STYLE, QUIET_STYLE, esc, plural, td
 from prespec.report.sections import (
     _compare_label,
@@ -70,11 +71,14 @@ def _estimate(entry: Mapping[str, Any], where: str) -> dict[str, Any]:
     }
 
 
-def _hypothesis_row(hyp: Mapping[str, Any], position: str) -> dict[str, Any]:
+def _hypothesis_row(hyp: Mapping[str, Any], position: str,
+                    look: tuple[int, int] | None = None) -> dict[str, Any]:
     hid = text(hyp.get("id"), f"{position}.id")
     where = f"hypotheses.{hid}"
     closed = gate(hyp, where) == "closed"
     words = decision(hyp, where)
+    if look is not None:  # an interim look: the look decides, or nothing is tested yet
+        words = interim_words(hyp, look) or words
     p_adjusted = number(hyp.get("p_adjusted"), f"{where}.p_adjusted")
     if bayes.is_bayesian(hyp):
         p_adjusted = None  # a rule on a posterior probability, outside the adjustment
@@ -154,10 +158,11 @@ def result_rows(results: Mapping[str, Any], *, members: bool = True) -> list[dic
     if blinded.is_rehearsal(results):
         return []
     rows = []
+    look = interim_look(results)
     for hyp, position, kids in _ordered(results):
         if not hyp.get("_missing"):
-            rows.append(_hypothesis_row(hyp, position))
-        rows += [_hypothesis_row(kid, pos) for kid, pos in kids]
+            rows.append(_hypothesis_row(hyp, position, look))
+        rows += [_hypothesis_row(kid, pos, look) for kid, pos in kids]
     if members:
         rows += _member_rows(results)
     return rows
@@ -212,7 +217,11 @@ def _fact(label: str, value: str, cls: str = "") -> str:
 
 def facts(results: Mapping[str, Any]) -> str:
     """The provenance of the first screen as a two-column table (hashes wrap anywhere)."""
-    rows = [_fact("Kind", kind_label(results))]
+    kind = kind_label(results)
+    look = interim_look(results)
+    if look is not None:
+        kind += f": interim look {look[0]} of {look[1]}"
+    rows = [_fact("Kind", kind)]
     if results.get("protocol") is not None:
         rows.append(_fact("Protocol", text(results.get("protocol"), "protocol")))
     version = results.get("plan_version")
