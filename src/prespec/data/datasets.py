@@ -1,0 +1,194 @@
+"""Statistical dataset files: transport files (``.xpt``, versions 5 and 8) and the dataset
+files ``.sas7bdat``, ``.sav``, ``.zsav`` and ``.dta``, read with pyreadstat.
+
+The format is chosen by the extension. What a cell holds is the value the file stores, never
+its value label: a code ``1`` labelled ``placebo`` is read as the number 1, so a plan matches
+it by ``1`` (docs/data-formats.md). Character cells are text (a blank one is ``""``); numeric
+cells are numbers, a missing one (including a value the file declares as missing) is blank;
+a date or time is its stored number (days or seconds since the format's origin), as stored.
+
+Column labels and value labels are read from the file's metadata alone (:func:`labels`), for
+the data dictionary. Every cell is converted by one function (:func:`_cells`), whether the
+pandas engine reads the columns whole (:func:`read_dataset`) or the duckdb engine has them
+copied, a chunk of rows at a time (row offset and limit), into a Parquet file it then reads
+(:func:`stage_parquet`); so both engines see the same cells.
+
+A file the reader cannot read as its extension says (another format, a truncated file, a
+damaged one) is a one-line :class:`~prespec.errors.DataError`; so is one that holds fewer rows
+than its header declares.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from prespec.common.matching import as_text
+
+from ..errors import DataError
+
+#: The extensions read here, with the pyreadstat function that reads each and how messages
+#: name the format.
+FORMATS: dict[str, tuple[str, str]] = {
+    ".xpt": ("read_xport", "transport file"),
+    ".sas7bdat": ("read_sas7bdat", "dataset file"),
+    ".sav": ("read_sav", "dataset file"),
+    ".zsav": ("read_sav", "compressed dataset file"),
+    ".dta": ("read_dta", "dataset file"),
+}
+#: Rows per chunk when a file is copied for the duckdb engine (about 10 MB a column of
+#: numbers): memory stays bounded by the chunk, never by the file.
+CHUNK_ROWS = 250_000
+
+
+def is_dataset(path: Path | str) -> bool:
+    """True when the extension is one of :data:`FORMATS`."""
+    return Path(path).suffix.lower() in FORMATS
+
+
+def _reader(path: Path) -> Callable[..., tuple[pd.DataFrame, Any]]:
+    import pyreadstat
+
+    return getattr(pyreadstat, FORMATS[path.suffix.lower()][0])  # type: ignore[no-any-return]
+
+
+def _unreadable(path: Path, shown: str, exc: BaseException) -> DataError:
+    text = str(exc).strip()
+    first = text.splitlines()[0] if text else type(exc).__name__
+    suffix = path.suffix.lower()
+    return DataError(f"{shown}: cannot read the file as a {suffix} {FORMATS[suffix][1]}: it is "
+                     f"another format, truncated or damaged (the reader says: {first})")
+
+
+def _call(path: Path, shown: str, **options: Any) -> tuple[pd.DataFrame, Any]:
+    """The reader on ``path`` with stored values (no date conversion, no value labels);
+    any failure is one line."""
+    try:
+        return _reader(path)(str(path), disable_datetime_conversion=True, **options)
+    except (MemoryError, KeyboardInterrupt):
+        raise
+    except Exception as exc:  # noqa: BLE001 - pyreadstat raises several types for a bad file
+        raise _unreadable(path, shown, exc) from None
+
+
+@dataclass(frozen=True)
+class Labels:
+    """The labels a dataset file declares: the file's, each column's, each value's.
+
+    ``values`` maps a column to ``{stored value as text (matching.as_text): label}``."""
+
+    file: str | None = None
+    columns: dict[str, str] = field(default_factory=dict)
+    values: dict[str, dict[str, str]] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Metadata:
+    """What the file's header says: its columns in order, each column's kind (``text`` or
+    ``float``), the rows it declares (None when the format does not say) and its labels."""
+
+    names: list[str]
+    kinds: dict[str, str]
+    rows: int | None
+    labels: Labels
+
+
+def metadata(path: Path, shown: str | None = None) -> Metadata:
+    """The file's header only (no rows read)."""
+    shown = shown or str(path)
+    _, meta = _call(path, shown, metadataonly=True)
+    names = [str(n) for n in meta.column_names]
+    types = meta.readstat_variable_types or {}
+    kinds = {n.strip(): "text" if types.get(n) == "string" else "float" for n in names}
+    column_labels = {str(k).strip(): str(v) for k, v in
+                     (meta.column_names_to_labels or {}).items() if v not in (None, "")}
+    value_labels = {str(k).strip(): {as_text(code): str(label) for code, label in v.items()}
+                    for k, v in (meta.variable_value_labels or {}).items() if v}
+    rows = meta.number_rows
+    declared = int(rows) if rows is not None and int(rows) >= 0 else None
+    file_label = meta.file_label or None
+    return Metadata(names, kinds, declared, Labels(file_label, column_labels, value_labels))
+
+
+def labels(path: Path, shown: str | None = None) -> Labels:
+    """The labels of a dataset file (from its header)."""
+    return metadata(path, shown).labels
+
+
+def _cells(column: pd.Series, kind: str) -> np.ndarray:
+    """One column of a chunk as the engines see it: text as Python strings (a blank cell
+    ``""``), numbers as floats with None for a missing value."""
+    if kind == "text":
+        values = np.array(column.astype(object).to_numpy(), dtype=object, copy=True)
+        values[pd.isna(values)] = ""
+        return values
+    numbers = pd.to_numeric(column, errors="coerce").astype("float64").to_numpy()
+    out = numbers.astype(object)
+    out[np.isnan(numbers)] = None
+    return out
+
+
+def _columns(meta: Metadata, wanted: Iterable[str] | None) -> list[str]:
+    """The file's own names (untrimmed) of the trimmed names ``wanted`` (all when None)."""
+    if wanted is None:
+        return list(meta.names)
+    keep = set(wanted)
+    return [n for n in meta.names if n.strip() in keep]
+
+
+def _chunks(path: Path, shown: str, meta: Metadata, names: list[str],
+            chunk_rows: int) -> Iterator[pd.DataFrame]:
+    """The columns ``names``, ``chunk_rows`` rows at a time (row offset and limit), each
+    converted by :func:`_cells`; the rows read must be those the header declares."""
+    offset = 0
+    while True:
+        frame, _ = _call(path, shown, usecols=names, row_offset=offset, row_limit=chunk_rows)
+        n = len(frame.index)
+        if n == 0:
+            break
+        frame.columns = [str(c).strip() for c in frame.columns]
+        yield pd.DataFrame({c: _cells(frame[c], meta.kinds[c]) for c in frame.columns})
+        offset += n
+        if n < chunk_rows or (meta.rows is not None and offset >= meta.rows):
+            break
+    if meta.rows is not None and offset != meta.rows:
+        raise DataError(f"{shown}: the file declares {meta.rows} rows but holds {offset}; it "
+                        "is truncated or damaged")
+
+
+def read_dataset(path: Path, columns: Iterable[str] | None, shown: str) -> pd.DataFrame:
+    """The columns ``columns`` (trimmed names; all when None) of every row, cells converted by
+    :func:`_cells` (object columns: str, float or None)."""
+    meta = metadata(path, shown)
+    names = _columns(meta, columns)
+    parts = list(_chunks(path, shown, meta, names, max(CHUNK_ROWS, meta.rows or 0)))
+    if not parts:
+        return pd.DataFrame({n.strip(): pd.Series([], dtype=object) for n in names})
+    return parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
+
+
+def stage_parquet(path: Path, columns: Iterable[str] | None, target: Path, shown: str,
+                  chunk_rows: int = CHUNK_ROWS) -> int:
+    """Copy the columns ``columns`` (all when None) of ``path`` into the Parquet file
+    ``target``, ``chunk_rows`` rows at a time; text as strings, numbers as doubles. Returns
+    the rows copied. Only one chunk is in memory at a time."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    meta = metadata(path, shown)
+    names = [n.strip() for n in _columns(meta, columns)]
+    schema = pa.schema([(n, pa.string() if meta.kinds[n] == "text" else pa.float64())
+                        for n in names])
+    rows = 0
+    with pq.ParquetWriter(str(target), schema) as writer:
+        for chunk in _chunks(path, shown, meta, [n for n in meta.names if n.strip() in
+                                                 set(names)], chunk_rows):
+            writer.write_table(pa.Table.from_pandas(chunk, schema=schema,
+                                                    preserve_index=False))
+            rows += len(chunk.index)
+    return rows
