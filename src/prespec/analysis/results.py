@@ -722,6 +722,7 @@ class DictionaryValue(Part):
     value: Text | None  # null: the blank cells
     count: Count
     meaning: Text | None
+    label: Text | None = None  # the value label a dataset file declares for the stored value
 
 
 class DictionaryColumn(Part):
@@ -733,6 +734,7 @@ class DictionaryColumn(Part):
     more: Count
     more_count: Count
     duplicates: Count | None = None
+    label: Text | None = None  # the column label a dataset file declares
 
 
 class GroupColumn(Part):

@@ -96,6 +96,7 @@ class Metadata:
     kinds: dict[str, str]
     rows: int | None
     labels: Labels
+    row_bytes: int = 0  # the bytes of one row as stored (a transport file's check)
 
 
 def metadata(path: Path, shown: str | None = None) -> Metadata:
@@ -112,7 +113,61 @@ def metadata(path: Path, shown: str | None = None) -> Metadata:
     rows = meta.number_rows
     declared = int(rows) if rows is not None and int(rows) >= 0 else None
     file_label = meta.file_label or None
-    return Metadata(names, kinds, declared, Labels(file_label, column_labels, value_labels))
+    widths = getattr(meta, "variable_storage_width", None) or {}
+    return Metadata(names, kinds, declared, Labels(file_label, column_labels, value_labels),
+                    sum(int(w) for w in widths.values()))
+
+
+RECORD = 80  # a transport file is a sequence of 80-byte records
+_OBS_HEADER = b"HEADER RECORD*******OBS"
+_MEMBER_HEADER = b"HEADER RECORD*******MEMB"
+
+
+def _data_start(path: Path) -> tuple[int, int | None] | None:
+    """(the offset of a transport file's rows, the rows its header declares when it does:
+    version 8 writes the count into the record that opens the rows), or None when no such
+    record is found."""
+    with path.open("rb") as handle:
+        at = 0
+        while record := handle.read(RECORD):
+            if len(record) < RECORD:
+                return None
+            if record.startswith(_OBS_HEADER):
+                # version 5 fills the field with 30 zeros; version 8 writes the count there
+                count = record[48:].strip()
+                declared = (record.startswith(_OBS_HEADER + b"V8") and count.isdigit()
+                            and count != b"0" * 30)
+                return at + RECORD, int(count) if declared else None
+            at += RECORD
+    return None
+
+
+def check_transport(path: Path, shown: str, rows: int, meta: Metadata) -> None:
+    """A transport file holds whole 80-byte records, and after its rows only the blanks that
+    fill the last record (version 8 also declares the number of rows). The reader takes a
+    file cut short at a row's end for a shorter file, so a cut is found here: one line."""
+    size = path.stat().st_size
+    cut = DataError(f"{shown}: the transport file is truncated or damaged ({size} bytes, "
+                    f"{rows} whole rows of {meta.row_bytes} bytes read, then bytes that are "
+                    "neither a row nor the blanks that end the file)")
+    if size % RECORD:
+        raise cut
+    found = _data_start(path)
+    if found is None or meta.row_bytes <= 0:
+        raise cut
+    start, declared = found
+    if declared is not None and declared != rows:
+        raise DataError(f"{shown}: the file declares {declared} rows but holds {rows}; it is "
+                        "truncated or damaged")
+    end = start + rows * meta.row_bytes
+    with path.open("rb") as handle:
+        handle.seek(end)
+        tail = handle.read(RECORD + len(_MEMBER_HEADER))
+    if tail.startswith(_MEMBER_HEADER) or _MEMBER_HEADER in tail:
+        raise DataError(f"{shown}: the transport file holds more than one dataset; give "
+                        "prespec a file with one")
+    if len(tail) >= RECORD or tail.strip(b" "):
+        raise cut
 
 
 def labels(path: Path, shown: str | None = None) -> Labels:
@@ -159,6 +214,8 @@ def _chunks(path: Path, shown: str, meta: Metadata, names: list[str],
     if meta.rows is not None and offset != meta.rows:
         raise DataError(f"{shown}: the file declares {meta.rows} rows but holds {offset}; it "
                         "is truncated or damaged")
+    if path.suffix.lower() == ".xpt":
+        check_transport(path, shown, offset, meta)
 
 
 def read_dataset(path: Path, columns: Iterable[str] | None, shown: str) -> pd.DataFrame:
