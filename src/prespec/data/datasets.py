@@ -216,6 +216,28 @@ def _chunks(path: Path, shown: str, meta: Metadata, names: list[str],
                         "is truncated or damaged")
     if path.suffix.lower() == ".xpt":
         check_transport(path, shown, offset, meta)
+    else:
+        check_closing_tag(path, shown)
+
+
+def check_closing_tag(path: Path, shown: str) -> None:
+    """A dataset file written in tagged sections (it opens with ``<name>``, as the newer
+    ``.dta`` versions do) must end with the closing ``</name>``: the reader stops after the
+    rows, so a file cut in the sections after them would otherwise pass."""
+    with path.open("rb") as handle:
+        head = handle.read(64)
+        if not head.startswith(b"<") or b">" not in head:
+            return
+        name = head[1:head.index(b">")]
+        if not name or not all(32 < b < 127 and b not in b"<>/" for b in name):
+            return
+        closing = b"</" + name + b">"
+        size = path.stat().st_size
+        handle.seek(max(0, size - len(closing) - 2))
+        tail = handle.read()
+    if not tail.rstrip(b"\r\n").endswith(closing):
+        raise DataError(f"{shown}: the file does not end with the section that closes it "
+                        f"({closing.decode('ascii', 'replace')}); it is truncated or damaged")
 
 
 def read_dataset(path: Path, columns: Iterable[str] | None, shown: str) -> pd.DataFrame:
@@ -230,7 +252,7 @@ def read_dataset(path: Path, columns: Iterable[str] | None, shown: str) -> pd.Da
 
 
 def stage_parquet(path: Path, columns: Iterable[str] | None, target: Path, shown: str,
-                  chunk_rows: int = CHUNK_ROWS) -> int:
+                  chunk_rows: int | None = None) -> int:
     """Copy the columns ``columns`` (all when None) of ``path`` into the Parquet file
     ``target``, ``chunk_rows`` rows at a time; text as strings, numbers as doubles. Returns
     the rows copied. Only one chunk is in memory at a time."""
@@ -242,6 +264,7 @@ def stage_parquet(path: Path, columns: Iterable[str] | None, target: Path, shown
     schema = pa.schema([(n, pa.string() if meta.kinds[n] == "text" else pa.float64())
                         for n in names])
     rows = 0
+    chunk_rows = chunk_rows or CHUNK_ROWS
     with pq.ParquetWriter(str(target), schema) as writer:
         for chunk in _chunks(path, shown, meta, [n for n in meta.names if n.strip() in
                                                  set(names)], chunk_rows):

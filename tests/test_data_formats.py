@@ -1,0 +1,454 @@
+"""Transport and dataset files (``.xpt`` 5 and 8, ``.sas7bdat``, ``.sav``, ``.zsav``, ``.dta``) on
+the pandas and duckdb engines.
+
+The same invented rows are written as CSV and in every format, each by a writer we did not
+write: pyreadstat (``write_xport`` versions 5 and 8, ``write_sav``, ``write_dta``), pandas
+(``DataFrame.to_stata``) and the ReadStat command-line converter from Debian's ``readstat``
+package (``.xpt`` and ``.sas7bdat``, which no Python writer makes). Every file must give the
+results.json of the CSV, apart from the data hash (the SHA-256 of the file's own bytes, checked
+here with hashlib) and the file's name. The cells prespec reads are also compared with an
+independent reader, pandas' own (``pandas.read_sas``, ``pandas.read_stata``).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import shutil
+import subprocess
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pyreadstat
+import pytest
+from services import unavailable
+
+from prespec import cli
+from prespec.common.environment import environment
+from prespec.data import datasets
+from prespec.data.engines.base import DataSource
+from prespec.data.engines.choose import open_engine
+from prespec.data.engines.pipeline import count_source
+from prespec.data.read import open_data_file, read_data
+from prespec.errors import BadInput, DataError
+from prespec.plan import load_plan
+from prespec.workflow.execute import compute_results
+
+# An invented study: three ways of reminding people of a screening visit; whether they came.
+PLAN = """\
+prespec: 1
+title: Screening reminders (invented data, for the format tests)
+data:
+  id: SUBJID
+  group: ARM
+  groups: [usual, leaflet, phone]
+  include:
+    - {column: ITTFL, in: [1]}
+outcomes:
+  attended: {column: ATTEND, event: [1], no_event: [0], missing: exclude}
+alpha: 0.05
+multiplicity: holm
+hypotheses:
+  - {id: H1, outcome: attended, compare: [phone, usual], test: pearson-chi-square}
+  - {id: H2, outcome: attended, compare: [leaflet, usual], test: cochran-mantel-haenszel,
+     strata: [CLINIC]}
+"""
+COLUMN_LABELS = {"ATTEND": "Attended the screening visit", "ITTFL": "Randomised population"}
+VALUE_LABELS = {"ATTEND": {1: "attended", 0: "did not attend"}, "ITTFL": {1: "yes", 0: "no"}}
+# what differs between two files of the same rows: the file, its hash, the clock, the engine
+PER_FILE = ("data", "data_file", "created", "engine", "engine_library", "query")
+
+
+def frame(n: int = 240, seed: int = 20270301) -> pd.DataFrame:
+    """The invented rows: text id, group and clinic; numeric codes for the population flag
+    and the outcome (1 or 0), some outcomes missing. Names of at most 8 characters, as a
+    version 5 transport file requires."""
+    rng = np.random.default_rng(seed)
+    arm = rng.choice(["usual", "leaflet", "phone"], n)
+    rate = {"usual": 0.45, "leaflet": 0.55, "phone": 0.65}
+    attend = np.array([1.0 if rng.random() < rate[a] else 0.0 for a in arm])
+    attend[rng.random(n) < 0.05] = np.nan
+    return pd.DataFrame({"SUBJID": [f"RM-{i:04d}" for i in range(1, n + 1)], "ARM": arm,
+                         "CLINIC": rng.choice(["east", "west", "harbour"], n),
+                         "ITTFL": (rng.random(n) > 0.04).astype(float), "ATTEND": attend})
+
+
+def write_csv(df: pd.DataFrame, path: Path) -> Path:
+    """Codes as whole numbers (``1``, ``0``, blank), as a data manager exports them."""
+    out = df.copy()
+    for column in ("ITTFL", "ATTEND"):
+        out[column] = out[column].astype("Int64")
+    out.to_csv(path, index=False)
+    return path
+
+
+def readstat_cli() -> str:
+    found = shutil.which("readstat")
+    if found is None:
+        unavailable("the readstat command (Debian package readstat) is not installed")
+    assert found is not None
+    return found
+
+
+def write_all(df: pd.DataFrame, folder: Path, *, with_cli: bool = True) -> dict[str, Path]:
+    """The rows in every format, each by a writer we did not write."""
+    files = {"csv": write_csv(df, folder / "rows.csv")}
+    pyreadstat.write_xport(df, folder / "v5.xpt", file_format_version=5,
+                           column_labels=COLUMN_LABELS)
+    files["xpt5"] = folder / "v5.xpt"
+    pyreadstat.write_xport(df, folder / "v8.xpt", file_format_version=8)
+    files["xpt8"] = folder / "v8.xpt"
+    pyreadstat.write_sav(df, folder / "rows.sav", column_labels=COLUMN_LABELS,
+                         variable_value_labels=VALUE_LABELS)
+    files["sav"] = folder / "rows.sav"
+    pyreadstat.write_sav(df, folder / "rows.zsav", compress=True)
+    files["zsav"] = folder / "rows.zsav"
+    pyreadstat.write_dta(df, folder / "rows.dta", variable_value_labels=VALUE_LABELS)
+    files["dta"] = folder / "rows.dta"
+    df.to_stata(folder / "pandas.dta", write_index=False, variable_labels=COLUMN_LABELS)
+    files["dta-pandas"] = folder / "pandas.dta"
+    if with_cli:  # ReadStat's own converter, from the .dta pandas wrote
+        tool = readstat_cli()
+        for name, target in (("xpt-readstat", "readstat.xpt"), ("sas7bdat", "rows.sas7bdat")):
+            subprocess.run([tool, str(files["dta-pandas"]), str(folder / target)], check=True,
+                           capture_output=True)
+            files[name] = folder / target
+    return files
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
+    folder = tmp_path_factory.mktemp("formats")
+    plan_path = folder / "reminders.yaml"
+    plan_path.write_text(PLAN, encoding="utf-8")
+    return {"folder": folder, "plan_path": plan_path, "plan": load_plan(plan_path).model,
+            "files": write_all(frame(), folder)}
+
+
+def results(study: dict[str, Any], path: Path, engine: str) -> dict[str, Any]:
+    return compute_results(
+        plan_path=study["plan_path"], plan=study["plan"], fingerprint="sha256:" + "0" * 64,
+        version=None, data_path=None, actor="tester", environment=environment(),
+        deviations=[], notes=[], previous_data=None,
+        source=DataSource("file", str(path), str(path)), engine=engine)
+
+
+def without(doc: dict[str, Any], keys: tuple[str, ...]) -> dict[str, Any]:
+    return {k: v for k, v in doc.items() if k not in keys}
+
+
+FORMATS = ("xpt5", "xpt8", "xpt-readstat", "sav", "zsav", "dta", "dta-pandas", "sas7bdat")
+
+
+@pytest.mark.parametrize("engine", ["pandas", "duckdb"])
+@pytest.mark.parametrize("name", FORMATS)
+def test_every_format_gives_the_results_of_the_csv(study: dict[str, Any], name: str,
+                                                   engine: str) -> None:
+    reference = results(study, study["files"]["csv"], "pandas")
+    path = study["files"][name]
+    found = results(study, path, engine)
+    assert without(found, PER_FILE) == without(reference, PER_FILE)
+    # the data hash is the SHA-256 of the file's bytes (hashlib, not prespec's helper)
+    assert found["data"] == "sha256:" + hashlib.sha256(path.read_bytes()).hexdigest()
+    assert found["engine"] == engine
+    # and the counts are the ones pandas finds on the frame written (independent of prespec)
+    df = frame()
+    kept = df[(df["ITTFL"] == 1) & df["ATTEND"].isin([0, 1])]
+    h1 = next(h for h in found["hypotheses"] if h["id"] == "H1")
+    assert h1["table"]["events"] == [int(kept[kept["ARM"] == g]["ATTEND"].sum())
+                                     for g in h1["table"]["groups"]]
+    assert h1["table"]["totals"] == [int((kept["ARM"] == g).sum())
+                                     for g in h1["table"]["groups"]]
+
+
+@pytest.mark.parametrize("name", ["xpt5", "dta", "dta-pandas"])  # pandas reads no .xpt v8
+def test_the_cells_read_are_those_an_independent_reader_finds(study: dict[str, Any],
+                                                              name: str) -> None:
+    path = study["files"][name]
+    ours = read_data(path)
+    if path.suffix == ".xpt":
+        theirs = pd.read_sas(path, format="xport", encoding="utf-8")
+    else:
+        theirs = pd.read_stata(path, convert_categoricals=False)
+    assert list(ours.columns) == list(theirs.columns)
+    for column in ours.columns:
+        for mine, other in zip(ours[column], theirs[column], strict=True):
+            if isinstance(other, str):
+                assert mine == other
+            elif other is None or pd.isna(other):
+                assert mine is None or mine == ""
+            elif path.suffix == ".xpt" and mine == 0.0:
+                # pandas reads the transport format's zero (eight zero bytes, checked here)
+                # as 2**-260 (5.4e-79), not 0: its reader is off there, not ours
+                assert float(other) in (0.0, 2.0**-260)
+            else:
+                assert mine == float(other)
+    if path.suffix == ".xpt":
+        raw = path.read_bytes()
+        start = raw.index(b"HEADER RECORD*******OBS") + 80
+        assert raw[start:].find(bytes(8)) >= 0  # a zero as stored: eight zero bytes
+
+
+def test_stored_values_are_matched_never_their_labels(tmp_path: Path) -> None:
+    """A plan that names the label (``attended``) of the stored code 1 finds no event: the
+    outcome values are unmapped; the code itself (``1``) matches."""
+    df = frame()
+    pyreadstat.write_sav(df, tmp_path / "rows.sav", variable_value_labels=VALUE_LABELS)
+    plan_path = tmp_path / "labels.yaml"
+    plan_path.write_text(PLAN.replace("event: [1], no_event: [0]",
+                                      "event: [attended], no_event: [did not attend]"),
+                         encoding="utf-8")
+    plan = load_plan(plan_path).model
+    source = DataSource("file", str(tmp_path / "rows.sav"), "rows.sav")
+    counted = count_source(plan, source, engine="pandas")
+    outcome = counted.prepared.outcomes["attended"]
+    assert [g.total for g in outcome.groups] == [0, 0, 0]
+    codes = tmp_path / "codes.yaml"
+    codes.write_text(PLAN, encoding="utf-8")
+    by_code = count_source(load_plan(codes).model, source, engine="duckdb")
+    assert sum(g.events for g in by_code.prepared.outcomes["attended"].groups) > 0
+
+
+def test_the_duckdb_engine_copies_a_chunk_of_rows_at_a_time(
+        study: dict[str, Any], monkeypatch: pytest.MonkeyPatch) -> None:
+    """With 50-row chunks, the 240 rows are read by five calls of the reader, each with a row
+    offset and a limit of 50 (never the whole file), and the results are those of the CSV."""
+    calls: list[dict[str, Any]] = []
+    original = datasets._reader
+
+    def spying(path: Path) -> Any:
+        reader = original(path)
+
+        def call(*args: Any, **options: Any) -> Any:
+            calls.append(options)
+            return reader(*args, **options)
+
+        return call
+
+    monkeypatch.setattr(datasets, "CHUNK_ROWS", 50)
+    monkeypatch.setattr(datasets, "_reader", spying)
+    found = results(study, study["files"]["xpt5"], "duckdb")
+    reference = results(study, study["files"]["csv"], "pandas")
+    assert without(found, PER_FILE) == without(reference, PER_FILE)
+    reads = [c for c in calls if not c.get("metadataonly")]
+    assert [(c["row_offset"], c["row_limit"]) for c in reads] == [
+        (0, 50), (50, 50), (100, 50), (150, 50), (200, 50)]
+    # only the columns the plan reads are copied (never ARM: the group is read by the count)
+    assert {tuple(sorted(c["usecols"])) for c in reads} == {
+        ("ARM", "ATTEND", "CLINIC", "ITTFL", "SUBJID")}
+
+
+def test_the_dictionary_shows_the_column_and_value_labels(
+        study: dict[str, Any], monkeypatch: pytest.MonkeyPatch) -> None:
+    """A rehearsal of the .sav file: each column's label and each stored value's label, as
+    the file declares them (read back here by pyreadstat's metadata)."""
+    import prespec.report
+
+    monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
+    _, meta = pyreadstat.read_sav(study["files"]["sav"], metadataonly=True)
+    assert meta.column_names_to_labels["ATTEND"] == COLUMN_LABELS["ATTEND"]
+    from prespec.workflow.rehearse import compute_rehearsal
+
+    doc = compute_rehearsal(
+        plan_path=study["plan_path"], plan=study["plan"], fingerprint="sha256:" + "0" * 64,
+        version=None, data_path=study["files"]["sav"], actor="tester",
+        environment=environment(), deviations=[], notes=[], engine="duckdb")
+    columns = {c["column"]: c for c in doc["data_dictionary"]["columns"]}
+    assert columns["ATTEND"]["label"] == "Attended the screening visit"
+    assert columns["ITTFL"]["label"] == "Randomised population"
+    assert "label" not in columns["SUBJID"] and "label" not in columns["CLINIC"]
+    attend = {v["value"]: v for v in columns["ATTEND"]["values"]}
+    assert attend["1"]["label"] == "attended" and attend["1"]["meaning"] == "event"
+    assert attend["0"]["label"] == "did not attend" and attend["0"]["meaning"] == "no-event"
+    assert "label" not in attend[None]  # the blank cells: no stored value, no label
+    ittfl = {v["value"]: v for v in columns["ITTFL"]["values"]}
+    assert ittfl["1"]["meaning"] == "passes filter" and ittfl["1"]["label"] == "yes"
+    df = frame()
+    assert attend["1"]["count"] == int((df["ATTEND"] == 1).sum())
+    assert attend[None]["count"] == int(df["ATTEND"].isna().sum())
+
+
+def test_a_file_without_labels_has_none_in_the_dictionary(study: dict[str, Any]) -> None:
+    from prespec.data.dictionary import data_dictionary
+    from prespec.data.engines.sources import source_labels
+
+    for name in ("csv", "zsav"):  # the .zsav was written without labels
+        path = study["files"][name]
+        labels = source_labels(DataSource("file", str(path), name))
+        assert labels == datasets.Labels()
+        rows = read_data(path).drop(columns=["ARM"])
+        assert "label" not in str(data_dictionary(rows, study["plan"], name, labels))
+
+
+def test_the_dictionary_table_and_report_show_the_labels() -> None:
+    """tables/data-dictionary.csv gains the two label columns only when there are labels;
+    the report's card shows the column label and a Label column beside the value."""
+    import csv
+    import io
+
+    from prespec.report.blinded import _column_detail, _value_rows
+    from prespec.report.tables import DICTIONARY_HEADER, write_dictionary_csv
+
+    column = {"column": "ATTEND", "role": "outcomes.attended.column", "distinct": 2,
+              "blank": 0, "more": 0, "more_count": 0, "label": "Attended the visit",
+              "values": [{"value": "1", "count": 5, "meaning": "event", "label": "attended"},
+                         {"value": "0", "count": 3, "meaning": "no-event"}]}
+    plain = {**{k: v for k, v in column.items() if k != "label"},
+             "values": [{k: v for k, v in val.items() if k != "label"}
+                        for val in column["values"]]}
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "d.csv"
+        write_dictionary_csv(path, {"columns": [column]})
+        rows = list(csv.reader(io.StringIO(path.read_text("utf-8"))))
+        assert rows[0] == [*DICTIONARY_HEADER, "column_label", "value_label"]
+        assert rows[1][-3:] == ["event", "Attended the visit", "attended"]
+        assert rows[2][-3:] == ["no-event", "Attended the visit", ""]
+        write_dictionary_csv(path, {"columns": [plain]})
+        header = next(csv.reader(io.StringIO(path.read_text("utf-8"))))
+        assert header == DICTIONARY_HEADER
+    at = "data_dictionary.ATTEND"
+    value_rows, marks, _ = _value_rows(column, at)
+    assert value_rows[0][:2] == ["1", "attended"] and value_rows[1][:2] == ["0", ""]
+    html = _column_detail(column, at, "ATTEND", "outcome", value_rows, marks)
+    assert "Label: Attended the visit" in html and "<th>Label</th>" in html.replace(
+        ' class="num"', "")
+    plain_rows, plain_marks, _ = _value_rows(plain, at)
+    assert "Label" not in _column_detail(plain, at, "ATTEND", "outcome", plain_rows,
+                                         plain_marks)
+
+
+# -- bad files: one line, exit 2, nothing written ----------------------------------------------
+def _cut(source: Path, target: Path, keep: int) -> Path:
+    target.write_bytes(source.read_bytes()[:keep])
+    return target
+
+
+def bad_files(study: dict[str, Any], folder: Path) -> dict[str, tuple[Path, str]]:
+    files = study["files"]
+    xpt = files["xpt5"].read_bytes()
+    # a transport file's rows begin after the record that opens them; cut inside row 3
+    start = xpt.index(b"HEADER RECORD*******OBS") + 80
+    width = len(frame().iloc[0]["SUBJID"]) + len("leaflet") + len("harbour") + 8 + 8
+    return {
+        "csv named .xpt": (_cut(files["csv"], folder / "csv.xpt", 10**9),
+                           "cannot read the file as a .xpt transport file"),
+        ".sav named .dta": (_cut(files["sav"], folder / "sav.dta", 10**9),
+                            "cannot read the file as a .dta dataset file"),
+        "truncated .xpt": (_cut(files["xpt5"], folder / "cut.xpt", start + 2 * width + 5),
+                           "the transport file is truncated or damaged"),
+        "truncated .xpt v8": (_cut(files["xpt8"], folder / "cut8.xpt",
+                                   len(files["xpt8"].read_bytes()) - 80),
+                              "truncated or damaged"),
+        "truncated .sav": (_cut(files["sav"], folder / "cut.sav",
+                                files["sav"].stat().st_size // 2), "truncated or damaged"),
+        "truncated .sas7bdat": (_cut(files["sas7bdat"], folder / "cut.sas7bdat", 5000),
+                                "truncated or damaged"),
+        "truncated .dta": (_cut(files["dta"], folder / "cut.dta",
+                                files["dta"].stat().st_size - 300), "truncated or damaged"),
+        "empty .zsav": (_cut(files["zsav"], folder / "empty.zsav", 0), "the data file is empty"),
+    }
+
+
+@pytest.mark.parametrize("engine", ["pandas", "duckdb"])
+def test_a_file_that_is_not_what_its_extension_says_is_one_line(
+        study: dict[str, Any], tmp_path: Path, engine: str) -> None:
+    for what, (path, message) in bad_files(study, tmp_path).items():
+        with pytest.raises(DataError) as caught:
+            count_source(study["plan"], DataSource("file", str(path), path.name), engine=engine)
+        assert message in str(caught.value), what
+        assert str(caught.value).split(": ")[0].endswith(path.name), what
+        assert "\n" not in str(caught.value), what
+
+
+def test_the_command_exits_2_and_writes_nothing(study: dict[str, Any], tmp_path: Path,
+                                                capsys: pytest.CaptureFixture[str]) -> None:
+    plan = tmp_path / "reminders.yaml"
+    plan.write_text(PLAN, encoding="utf-8")
+    assert cli.main(["lock", str(plan)]) == 0
+    log = tmp_path / "reminders.audit.jsonl"
+    before = log.read_bytes()
+    capsys.readouterr()
+    (tmp_path / "bad").mkdir()
+    bad = bad_files(study, tmp_path / "bad")
+    for what, (path, message) in bad.items():
+        for engine in ("pandas", "duckdb"):
+            assert cli.main(["run", str(plan), str(path), "--engine", engine]) == 2, what
+            err = capsys.readouterr().err
+            assert message in err and err.count("\n") == 1, (what, err)
+    assert cli.main(["rehearse", str(plan), str(bad["truncated .xpt"][0])]) == 2
+    assert "truncated" in capsys.readouterr().err
+    assert log.read_bytes() == before
+    assert not (tmp_path / "reports").exists()
+
+
+def test_the_sql_and_spark_engines_refuse_a_dataset_file(study: dict[str, Any]) -> None:
+    path = study["files"]["xpt5"]
+    source = DataSource("file", str(path), "v5.xpt")
+    with pytest.raises(BadInput, match=r"^--engine spark: reads CSV or Parquet files; v5\.xpt "
+                                       r"is a \.xpt file: use --engine pandas or duckdb$"):
+        open_engine("spark", source)
+    with pytest.raises(BadInput, match=r"^--engine sql: reads a database URL; v5\.xpt is a "
+                                       "file$"):
+        open_engine("sql", source)
+
+
+def test_a_glob_of_dataset_files_and_an_unknown_extension_are_one_line(
+        study: dict[str, Any], tmp_path: Path) -> None:
+    pattern = str(study["folder"] / "*.xpt")
+    with pytest.raises(DataError, match=r"a glob reads CSV or Parquet files; name one \.xpt "
+                                        "file at a time$"):
+        count_source(study["plan"], DataSource("glob", pattern, pattern), engine="duckdb")
+    odd = tmp_path / "rows.xlsx"
+    odd.write_bytes(b"PK\x03\x04")
+    for engine in ("pandas", "duckdb"):
+        with pytest.raises(DataError, match=r"unknown data format '\.xlsx' \(use \.csv, "
+                                            r"\.parquet, \.xpt, \.sas7bdat, \.sav, \.zsav or "
+                                            r"\.dta\)$"):
+            count_source(study["plan"], DataSource("file", str(odd), str(odd)), engine=engine)
+
+
+def test_open_data_file_opens_every_format_for_either_engine(study: dict[str, Any],
+                                                             tmp_path: Path) -> None:
+    """The one door to a data file: the frame for pandas, a scannable file for SQL."""
+    import duckdb
+
+    for name, path in study["files"].items():
+        opened = open_data_file(path)
+        kind, scanned = opened.scannable(tmp_path, ["SUBJID", "ATTEND"])
+        reader = "read_csv" if kind == "csv" else "read_parquet"
+        got = duckdb.connect().execute(
+            f"SELECT count(*), count(DISTINCT SUBJID) FROM {reader}($p)",
+            {"p": str(scanned)}).fetchall()
+        assert got == [(240, 240)], name
+        assert len(opened.frame({"SUBJID": "data.id"}).index) == 240
+    assert open_data_file(study["files"]["sav"]).labels().values["ATTEND"] == {
+        "1": "attended", "0": "did not attend"}
+    assert open_data_file(study["files"]["csv"]).labels() == datasets.Labels()
+
+
+def test_a_transport_file_runs_and_verifies(study: dict[str, Any], tmp_path: Path,
+                                            monkeypatch: pytest.MonkeyPatch,
+                                            capsys: pytest.CaptureFixture[str]) -> None:
+    """``prespec lock``, ``run`` and ``verify --rerun`` on an .xpt file (the notebook is not
+    executed here; tests/e2e runs it); the report records the file's SHA-256."""
+    import json
+
+    import prespec.report
+
+    monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
+    plan = tmp_path / "reminders.yaml"
+    plan.write_text(PLAN, encoding="utf-8")
+    data = tmp_path / "rows.xpt"
+    data.write_bytes(study["files"]["xpt5"].read_bytes())
+    assert cli.main(["lock", str(plan)]) == 0
+    assert cli.main(["run", str(plan), str(data), "--engine", "duckdb", "--out",
+                     str(tmp_path / "out")]) == 0
+    doc = json.loads((tmp_path / "out" / "results.json").read_text("utf-8"))
+    assert doc["data"] == "sha256:" + hashlib.sha256(data.read_bytes()).hexdigest()
+    assert doc["data_file"] == "rows.xpt"
+    capsys.readouterr()
+    assert cli.main(["verify", str(plan), "--rerun", str(data)]) == 0
+    assert "differ" not in capsys.readouterr().out
