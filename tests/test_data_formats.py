@@ -352,6 +352,21 @@ def bad_files(study: dict[str, Any], folder: Path) -> dict[str, tuple[Path, str]
     }
 
 
+def test_a_transport_file_of_two_datasets_is_refused(study: dict[str, Any],
+                                                     tmp_path: Path) -> None:
+    """A second member (its header records, then its rows) after the first one's rows: the
+    reader would read the first alone, so the file is refused."""
+    raw = study["files"]["xpt5"].read_bytes()
+    member = raw[raw.index(b"HEADER RECORD*******MEMBER"):]
+    path = tmp_path / "two.xpt"
+    path.write_bytes(raw + member)
+    for engine in ("pandas", "duckdb"):
+        with pytest.raises(DataError, match=r"two\.xpt: the transport file holds more than "
+                                            "one dataset; give prespec a file with one$"):
+            count_source(study["plan"], DataSource("file", str(path), "two.xpt"),
+                         engine=engine)
+
+
 @pytest.mark.parametrize("engine", ["pandas", "duckdb"])
 def test_a_file_that_is_not_what_its_extension_says_is_one_line(
         study: dict[str, Any], tmp_path: Path, engine: str) -> None:

@@ -159,15 +159,33 @@ def check_transport(path: Path, shown: str, rows: int, meta: Metadata) -> None:
     if declared is not None and declared != rows:
         raise DataError(f"{shown}: the file declares {declared} rows but holds {rows}; it is "
                         "truncated or damaged")
+    if _another_member(path, start):
+        raise DataError(f"{shown}: the transport file holds more than one dataset; give "
+                        "prespec a file with one")
     end = start + rows * meta.row_bytes
     with path.open("rb") as handle:
         handle.seek(end)
-        tail = handle.read(RECORD + len(_MEMBER_HEADER))
-    if tail.startswith(_MEMBER_HEADER) or _MEMBER_HEADER in tail:
-        raise DataError(f"{shown}: the transport file holds more than one dataset; give "
-                        "prespec a file with one")
+        tail = handle.read(RECORD)
     if len(tail) >= RECORD or tail.strip(b" "):
         raise cut
+
+
+def _another_member(path: Path, start: int) -> bool:
+    """True when a record after ``start`` opens another member (dataset): the reader would
+    read its header records as rows of the first."""
+    block = 1 << 22  # a multiple of RECORD
+    with path.open("rb") as handle:
+        handle.seek(start)
+        at = start
+        while chunk := handle.read(block + len(_MEMBER_HEADER)):
+            found = chunk.find(_MEMBER_HEADER)
+            while found >= 0:
+                if (at + found - start) % RECORD == 0:
+                    return True
+                found = chunk.find(_MEMBER_HEADER, found + 1)
+            at += block
+            handle.seek(at)
+    return False
 
 
 def labels(path: Path, shown: str | None = None) -> Labels:
