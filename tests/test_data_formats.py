@@ -239,6 +239,32 @@ def test_the_duckdb_engine_copies_a_chunk_of_rows_at_a_time(
         ("ARM", "ATTEND", "CLINIC", "ITTFL", "SUBJID")}
 
 
+@pytest.mark.parametrize("engine", ["pandas", "duckdb"])
+def test_a_rehearsal_never_reads_the_group_column_of_a_dataset_file(
+        study: dict[str, Any], monkeypatch: pytest.MonkeyPatch, engine: str) -> None:
+    from prespec.data.engines.pipeline import blinded_rows
+
+    calls: list[dict[str, Any]] = []
+    original = datasets._reader
+
+    def spying(path: Path) -> Any:
+        reader = original(path)
+
+        def call(*args: Any, **options: Any) -> Any:
+            calls.append(options)
+            return reader(*args, **options)
+
+        return call
+
+    monkeypatch.setattr(datasets, "_reader", spying)
+    path = study["files"]["sav"]
+    read = blinded_rows(study["plan"], DataSource("file", str(path), "rows.sav"), engine=engine)
+    assert "ARM" not in read.frame.columns and len(read.frame.index) == 240
+    reads = [c for c in calls if not c.get("metadataonly")]
+    assert reads and all("ARM" not in c["usecols"] for c in reads)
+    assert read.data_hash == "sha256:" + hashlib.sha256(path.read_bytes()).hexdigest()
+
+
 def test_the_dictionary_shows_the_column_and_value_labels(
         study: dict[str, Any], monkeypatch: pytest.MonkeyPatch) -> None:
     """A rehearsal of the .sav file: each column's label and each stored value's label, as
