@@ -224,7 +224,9 @@ def unknown_format(shown: str, suffix: str) -> DataError:
 
 def read_data(path: Path, columns: Mapping[str, str] | None = None,
               source: str | None = None) -> pd.DataFrame:
-    """Read CSV (every cell as text, no NA conversion) or Parquet (nulls stay None).
+    """Read CSV (every cell as text, no NA conversion), Parquet (nulls stay None) or a
+    transport or dataset file (stored values: text, floats, None for a missing value;
+    ``datasets.py``).
 
     Returns a frame whose columns are the file's, cells unconverted, so the matching rule of
     ``values.py`` sees exactly what the file holds. ``columns`` (each column the caller reads,
@@ -281,15 +283,12 @@ class DataFile:
         pandas engine counts them (:func:`read_data`)."""
         return read_data(self.path, columns, self.shown)
 
-    def names(self) -> list[str]:
-        """The column names as the file holds them (a dataset file's header)."""
-        if not self.is_dataset:
-            raise ValueError("names() reads the header of a dataset file")
-        return list(datasets.metadata(self.path, self.shown).names)
-
     def kinds(self) -> dict[str, str]:
         """A dataset file's columns (trimmed) and their kinds, ``text`` or ``float``, as
-        :meth:`scannable` writes them."""
+        :meth:`scannable` writes them, from its header (a CSV's or Parquet file's kinds are
+        its SQL reader's)."""
+        if not self.is_dataset:
+            raise ValueError("kinds() reads the header of a transport or dataset file")
         return dict(datasets.metadata(self.path, self.shown).kinds)
 
     def labels(self) -> datasets.Labels:
