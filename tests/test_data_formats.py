@@ -210,33 +210,81 @@ def test_stored_values_are_matched_never_their_labels(tmp_path: Path) -> None:
     assert sum(g.events for g in by_code.prepared.outcomes["attended"].groups) > 0
 
 
-def test_the_duckdb_engine_copies_a_chunk_of_rows_at_a_time(
-        study: dict[str, Any], monkeypatch: pytest.MonkeyPatch) -> None:
-    """With 50-row chunks, the 240 rows are read by five calls of the reader, each with a row
-    offset and a limit of 50 (never the whole file), and the results are those of the CSV."""
-    calls: list[dict[str, Any]] = []
+def _spy(monkeypatch: pytest.MonkeyPatch) -> list[tuple[Any, dict[str, Any]]]:
+    """Every call of the reader: (what it was given, its options)."""
+    calls: list[tuple[Any, dict[str, Any]]] = []
     original = datasets._reader
 
     def spying(path: Path) -> Any:
         reader = original(path)
 
-        def call(*args: Any, **options: Any) -> Any:
-            calls.append(options)
-            return reader(*args, **options)
+        def call(given: Any, **options: Any) -> Any:
+            calls.append((given, options))
+            return reader(given, **options)
 
         return call
 
-    monkeypatch.setattr(datasets, "CHUNK_ROWS", 50)
     monkeypatch.setattr(datasets, "_reader", spying)
-    found = results(study, study["files"]["xpt5"], "duckdb")
+    return calls
+
+
+def test_the_duckdb_engine_copies_a_chunk_of_rows_at_a_time(
+        study: dict[str, Any], monkeypatch: pytest.MonkeyPatch) -> None:
+    """With 50-row chunks, the 240 rows of a .sav file are read by five calls of the reader,
+    each with a row offset and a limit of 50 (never the whole file), and the results are
+    those of the CSV; only the columns the plan reads are copied."""
+    monkeypatch.setattr(datasets, "CHUNK_ROWS", 50)
+    calls = _spy(monkeypatch)
     reference = results(study, study["files"]["csv"], "pandas")
+    found = results(study, study["files"]["sav"], "duckdb")
     assert without(found, PER_FILE) == without(reference, PER_FILE)
-    reads = [c for c in calls if not c.get("metadataonly")]
+    reads = [options for _, options in calls if not options.get("metadataonly")]
     assert [(c["row_offset"], c["row_limit"]) for c in reads] == [
         (0, 50), (50, 50), (100, 50), (150, 50), (200, 50)]
-    # only the columns the plan reads are copied (never ARM: the group is read by the count)
     assert {tuple(sorted(c["usecols"])) for c in reads} == {
         ("ARM", "ATTEND", "CLINIC", "ITTFL", "SUBJID")}
+
+
+@pytest.mark.parametrize("name", ["xpt5", "xpt8"])
+def test_a_transport_file_is_read_by_windows_of_its_rows(
+        study: dict[str, Any], monkeypatch: pytest.MonkeyPatch, name: str) -> None:
+    """A transport file's rows are fixed width, so each chunk is a window of the file (its
+    header records and 51 rows: 50 kept and one more), never a row offset that makes the
+    reader parse every row before it; the last window is the rest of the file."""
+    monkeypatch.setattr(datasets, "CHUNK_ROWS", 50)
+    calls = _spy(monkeypatch)
+    reference = results(study, study["files"]["csv"], "pandas")
+    found = results(study, study["files"][name], "duckdb")
+    assert without(found, PER_FILE) == without(reference, PER_FILE)
+    windows = [given for given, options in calls if not options.get("metadataonly")]
+    assert len(windows) == 5 and all(isinstance(w, datasets._Window) for w in windows)
+    assert all("row_offset" not in options for _, options in calls)
+    size = study["files"][name].stat().st_size
+    raw = study["files"][name].read_bytes()
+    start = raw.index(b"HEADER RECORD*******OBS") + 80
+    row = (size - start) // 240  # the rows fill the file but for its last record's blanks
+    assert all(len(w._bytes.getvalue()) <= start + 51 * row + 80 for w in windows)
+
+
+def test_rows_of_blanks_at_a_window_edge_are_kept(tmp_path: Path,
+                                                  monkeypatch: pytest.MonkeyPatch) -> None:
+    """Rows whose text is all blanks, on either side of a window's edge and at the end of the
+    file, are rows, not the blanks that end a file: the windowed read finds every row that
+    pyreadstat finds reading the whole file at once."""
+    texts = [f"T{i:03d}" for i in range(120)]
+    for i in (49, 50, 99, 100, 118, 119):
+        texts[i] = ""
+    df = pd.DataFrame({"A": texts, "B": ["" if t == "" else "x" for t in texts]})
+    path = tmp_path / "blanks.xpt"
+    pyreadstat.write_xport(df, path, file_format_version=5)
+    whole, _ = pyreadstat.read_xport(path)
+    monkeypatch.setattr(datasets, "CHUNK_ROWS", 50)
+    staged = tmp_path / "staged.parquet"
+    rows = datasets.stage_parquet(path, None, staged, "blanks.xpt")
+    import pyarrow.parquet as pq
+
+    copied = pq.read_table(staged).to_pydict()
+    assert rows == len(whole.index) and copied["A"] == list(whole["A"])
 
 
 @pytest.mark.parametrize("engine", ["pandas", "duckdb"])
@@ -244,23 +292,11 @@ def test_a_rehearsal_never_reads_the_group_column_of_a_dataset_file(
         study: dict[str, Any], monkeypatch: pytest.MonkeyPatch, engine: str) -> None:
     from prespec.data.engines.pipeline import blinded_rows
 
-    calls: list[dict[str, Any]] = []
-    original = datasets._reader
-
-    def spying(path: Path) -> Any:
-        reader = original(path)
-
-        def call(*args: Any, **options: Any) -> Any:
-            calls.append(options)
-            return reader(*args, **options)
-
-        return call
-
-    monkeypatch.setattr(datasets, "_reader", spying)
+    calls = _spy(monkeypatch)
     path = study["files"]["sav"]
     read = blinded_rows(study["plan"], DataSource("file", str(path), "rows.sav"), engine=engine)
     assert "ARM" not in read.frame.columns and len(read.frame.index) == 240
-    reads = [c for c in calls if not c.get("metadataonly")]
+    reads = [options for _, options in calls if not options.get("metadataonly")]
     assert reads and all("ARM" not in c["usecols"] for c in reads)
     assert read.data_hash == "sha256:" + hashlib.sha256(path.read_bytes()).hexdigest()
 

@@ -20,6 +20,7 @@ than its header declares.
 
 from __future__ import annotations
 
+import io
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -65,11 +66,13 @@ def _unreadable(path: Path, shown: str, exc: BaseException) -> DataError:
                      f"another format, truncated or damaged (the reader says: {first})")
 
 
-def _call(path: Path, shown: str, **options: Any) -> tuple[pd.DataFrame, Any]:
-    """The reader on ``path`` with stored values (no date conversion, no value labels);
-    any failure is one line."""
+def _call(path: Path, shown: str, reader_input: Any = None,
+          **options: Any) -> tuple[Any, Any]:
+    """The reader on ``path`` (or on ``reader_input``, a file-like view of it) with stored
+    values (no date conversion, no value labels); any failure is one line."""
     try:
-        return _reader(path)(str(path), disable_datetime_conversion=True, **options)
+        return _reader(path)(str(path) if reader_input is None else reader_input,
+                             disable_datetime_conversion=True, **options)
     except (MemoryError, KeyboardInterrupt):
         raise
     except Exception as exc:  # noqa: BLE001 - pyreadstat raises several types for a bad file
@@ -193,16 +196,24 @@ def labels(path: Path, shown: str | None = None) -> Labels:
     return metadata(path, shown).labels
 
 
-def _cells(column: pd.Series, kind: str) -> np.ndarray:
-    """One column of a chunk as the engines see it: text as Python strings (a blank cell
-    ``""``), numbers as floats with None for a missing value."""
+def _cells(values: Any, kind: str) -> np.ndarray:
+    """One column of a chunk as the engines see it: text as an object array of Python strings
+    (a blank cell ``""``), numbers as float64 with NaN for a missing value."""
     if kind == "text":
-        values = np.array(column.astype(object).to_numpy(), dtype=object, copy=True)
-        values[pd.isna(values)] = ""
-        return values
-    numbers = pd.to_numeric(column, errors="coerce").astype("float64").to_numpy()
-    out = numbers.astype(object)
-    out[np.isnan(numbers)] = None
+        out = np.array(values, dtype=object)
+        out[pd.isna(out)] = ""
+        return out
+    return np.array([np.nan if v is None else v for v in values] if isinstance(values, list)
+                    else values, dtype=np.float64)
+
+
+def _as_objects(cells: np.ndarray) -> np.ndarray:
+    """A converted column as the pandas engine holds cells: numbers as Python floats, None
+    for a missing one; text unchanged."""
+    if cells.dtype == object:
+        return cells
+    out = cells.astype(object)
+    out[np.isnan(cells)] = None
     return out
 
 
@@ -214,28 +225,136 @@ def _columns(meta: Metadata, wanted: Iterable[str] | None) -> list[str]:
     return [n for n in meta.names if n.strip() in keep]
 
 
-def _chunks(path: Path, shown: str, meta: Metadata, names: list[str],
-            chunk_rows: int) -> Iterator[pd.DataFrame]:
-    """The columns ``names``, ``chunk_rows`` rows at a time (row offset and limit), each
-    converted by :func:`_cells`; the rows read must be those the header declares."""
-    offset = 0
+class _Window(io.RawIOBase):
+    """A transport file as the reader sees it when given rows ``first`` to ``first + n`` only:
+    the file's own header records, then those rows' bytes (their count written into a
+    version 8 header), then the blanks that end the last record; or, for the last window
+    (``n`` None), every byte from row ``first`` to the end of the file, padding included. Rows are fixed
+    width, so a window costs its own rows, where a row offset makes the reader parse every
+    row before it."""
+
+    def __init__(self, path: Path, head: bytes, start: int, row_bytes: int, first: int,
+                 n: int | None) -> None:
+        super().__init__()
+        with path.open("rb") as handle:
+            handle.seek(start + first * row_bytes)
+            body = handle.read(-1 if n is None else n * row_bytes)
+        if n is not None:
+            body += b" " * (-(len(head) + len(body)) % RECORD)
+        self._bytes = io.BytesIO(head + body)
+
+    def readable(self) -> bool:
+        return True
+
+    def seekable(self) -> bool:
+        return True
+
+    def read(self, size: int | None = -1) -> bytes:
+        return self._bytes.read(-1 if size is None else size)
+
+    def seek(self, pos: int, whence: int = 0) -> int:
+        return self._bytes.seek(pos, whence)
+
+    def tell(self) -> int:
+        return self._bytes.tell()
+
+
+def _windowed_head(path: Path, start: int, declared: int | None, n: int | None,
+                   rows_left: int | None) -> bytes:
+    """The header records of a transport file, with a version 8 row count set to the
+    window's rows (``n``, or the rows left for the last window)."""
+    with path.open("rb") as handle:
+        head = bytearray(handle.read(start))
+    if declared is not None:
+        count = n if n is not None else rows_left
+        head[start - RECORD + 48:start] = f"{count:>15}".ljust(32).encode("ascii")
+    return bytes(head)
+
+
+def _next_filled_row(path: Path, start: int, row_bytes: int, after: int,
+                     size: int) -> int | None:
+    """The index of the first row from ``after`` on whose bytes are not all blanks, or None
+    when every row to the end of the file is blank (the reader drops such rows at a file's
+    end, taking them for the blanks that fill its last record)."""
+    batch = max(1, (1 << 20) // row_bytes)
+    with path.open("rb") as handle:
+        at = after
+        while start + at * row_bytes < size:
+            handle.seek(start + at * row_bytes)
+            block = handle.read(batch * row_bytes)
+            for k in range(len(block) // row_bytes):
+                if block[k * row_bytes:(k + 1) * row_bytes].strip(b" "):
+                    return at + k
+            if len(block) < batch * row_bytes:
+                return None
+            at += batch
+    return None
+
+
+def _transport_chunks(path: Path, shown: str, meta: Metadata, names: list[str],
+                      chunk_rows: int) -> Iterator[tuple[int, dict[str, Any]]]:
+    """(rows, the reader's lists) of each window of ``chunk_rows`` rows of a transport file.
+    A window ends with a row that is not all blanks (one more than it keeps, or more when
+    rows of blanks follow the chunk), so that such rows are never taken for the blanks that
+    end a file: only at the file's real end does the reader drop them, as it does reading
+    the whole file."""
+    found = _data_start(path)
+    if found is None or meta.row_bytes <= 0:
+        return  # check_transport says what is wrong
+    start, declared = found
+    size = path.stat().st_size
+    first = 0
     while True:
-        frame, _ = _call(path, shown, usecols=names, row_offset=offset, row_limit=chunk_rows)
-        n = len(frame.index)
+        filled = _next_filled_row(path, start, meta.row_bytes, first + chunk_rows, size)
+        n = None if filled is None else filled - first + 1
+        rows_left = None if declared is None else declared - first
+        window = _Window(path, _windowed_head(path, start, declared, n, rows_left), start,
+                         meta.row_bytes, first, n)
+        got, _ = _call(path, shown, reader_input=window, usecols=names, output_format="dict")
+        kept = len(next(iter(got.values()))) if got else 0
+        if n is not None:
+            if kept != n:
+                raise DataError(f"{shown}: the transport file could not be read in windows of "
+                                f"{chunk_rows} rows ({kept} rows read where {n} were given); "
+                                "it is damaged")
+            got = {c: v[:chunk_rows] for c, v in got.items()}
+            kept = chunk_rows
+        yield kept, got
+        first += kept
+        if n is None:
+            return
+
+
+def _chunks(path: Path, shown: str, meta: Metadata, names: list[str],
+            chunk_rows: int) -> Iterator[dict[str, np.ndarray]]:
+    """The columns ``names``, ``chunk_rows`` rows at a time (row offset and limit; a
+    transport file by windows of its rows, :class:`_Window`), each converted by
+    :func:`_cells`; the rows read must be those the header declares."""
+    offset = 0
+    if path.suffix.lower() == ".xpt":
+        for n, found in _transport_chunks(path, shown, meta, names, chunk_rows):
+            if n:
+                yield {str(c).strip(): _cells(v, meta.kinds[str(c).strip()])
+                       for c, v in found.items()}
+            offset += n
+        check_transport(path, shown, offset, meta)
+        return
+    while True:
+        # the reader's plain lists (output_format "dict") are several times quicker to build
+        # than its frame
+        found, _ = _call(path, shown, usecols=names, row_offset=offset, row_limit=chunk_rows,
+                         output_format="dict")
+        n = len(next(iter(found.values()))) if found else 0
         if n == 0:
             break
-        frame.columns = [str(c).strip() for c in frame.columns]
-        yield pd.DataFrame({c: _cells(frame[c], meta.kinds[c]) for c in frame.columns})
+        yield {str(c).strip(): _cells(v, meta.kinds[str(c).strip()]) for c, v in found.items()}
         offset += n
         if n < chunk_rows or (meta.rows is not None and offset >= meta.rows):
             break
     if meta.rows is not None and offset != meta.rows:
         raise DataError(f"{shown}: the file declares {meta.rows} rows but holds {offset}; it "
                         "is truncated or damaged")
-    if path.suffix.lower() == ".xpt":
-        check_transport(path, shown, offset, meta)
-    else:
-        check_closing_tag(path, shown)
+    check_closing_tag(path, shown)
 
 
 def check_closing_tag(path: Path, shown: str) -> None:
@@ -264,9 +383,9 @@ def read_dataset(path: Path, columns: Iterable[str] | None, shown: str) -> pd.Da
     meta = metadata(path, shown)
     names = _columns(meta, columns)
     parts = list(_chunks(path, shown, meta, names, max(CHUNK_ROWS, meta.rows or 0)))
-    if not parts:
-        return pd.DataFrame({n.strip(): pd.Series([], dtype=object) for n in names})
-    return parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
+    return pd.DataFrame({n.strip(): pd.Series(
+        _as_objects(np.concatenate([p[n.strip()] for p in parts])) if parts else [],
+        dtype=object) for n in names})
 
 
 def stage_parquet(path: Path, columns: Iterable[str] | None, target: Path, shown: str,
@@ -286,7 +405,9 @@ def stage_parquet(path: Path, columns: Iterable[str] | None, target: Path, shown
     with pq.ParquetWriter(str(target), schema) as writer:
         for chunk in _chunks(path, shown, meta, [n for n in meta.names if n.strip() in
                                                  set(names)], chunk_rows):
-            writer.write_table(pa.Table.from_pandas(chunk, schema=schema,
-                                                    preserve_index=False))
-            rows += len(chunk.index)
+            arrays = [pa.array(chunk[n], type=pa.string()) if meta.kinds[n] == "text" else
+                      pa.array(chunk[n], type=pa.float64(), mask=np.isnan(chunk[n]))
+                      for n in names]
+            writer.write_table(pa.Table.from_arrays(arrays, schema=schema))
+            rows += len(arrays[0]) if arrays else 0
     return rows
