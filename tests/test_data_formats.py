@@ -56,8 +56,9 @@ hypotheses:
 """
 COLUMN_LABELS = {"ATTEND": "Attended the screening visit", "ITTFL": "Randomised population"}
 VALUE_LABELS = {"ATTEND": {1: "attended", 0: "did not attend"}, "ITTFL": {1: "yes", 0: "no"}}
-# what differs between two files of the same rows: the file, its hash, the clock, the engine
-PER_FILE = ("data", "data_file", "created", "engine", "engine_library", "query")
+# what differs between two files of the same rows: the file, its hash, the clock, the engine,
+# and the labels a file declares (a CSV none; tested on their own below)
+PER_FILE = ("data", "data_file", "created", "engine", "engine_library", "query", "data_labels")
 
 
 def frame(n: int = 240, seed: int = 20270301) -> pd.DataFrame:
@@ -331,6 +332,30 @@ def test_the_dictionary_shows_the_column_and_value_labels(
     assert attend[None]["count"] == int(df["ATTEND"].isna().sum())
 
 
+def test_a_run_lists_the_labels_of_the_columns_and_of_the_plans_values(
+        study: dict[str, Any]) -> None:
+    """results.json of a run on the .sav file: ``data_labels`` holds each column's label and
+    the label of each value the plan names (the codes 1 and 0), as pyreadstat reads them from
+    the file; the report shows them under the population. A CSV run has no such key."""
+    from prespec.report.sections import population
+
+    _, meta = pyreadstat.read_sav(study["files"]["sav"], metadataonly=True)
+    attend = {str(int(k)): v for k, v in meta.variable_value_labels["ATTEND"].items()}
+    found = results(study, study["files"]["sav"], "pandas")
+    assert found["data_labels"] == [
+        {"column": "ITTFL", "role": "data.include[1]",
+         "label": meta.column_names_to_labels["ITTFL"],
+         "values": [{"value": "1", "label": "yes"}]},
+        {"column": "ATTEND", "role": "outcomes.attended.column",
+         "label": meta.column_names_to_labels["ATTEND"],
+         "values": [{"value": "1", "label": attend["1"]}, {"value": "0", "label": attend["0"]}]},
+    ]
+    html = population(found)
+    assert "Labels in the data file" in html and "1 = attended; 0 = did not attend" in html
+    plain = results(study, study["files"]["csv"], "pandas")
+    assert "data_labels" not in plain and "Labels in the data file" not in population(plain)
+
+
 def test_a_file_without_labels_has_none_in_the_dictionary(study: dict[str, Any]) -> None:
     from prespec.data.dictionary import data_dictionary
     from prespec.data.engines.sources import source_labels
@@ -526,6 +551,10 @@ def test_a_transport_file_runs_and_verifies(study: dict[str, Any], tmp_path: Pat
     doc = json.loads((tmp_path / "out" / "results.json").read_text("utf-8"))
     assert doc["data"] == "sha256:" + hashlib.sha256(data.read_bytes()).hexdigest()
     assert doc["data_file"] == "rows.xpt"
+    assert doc["data_labels"] == [{"column": "ATTEND", "role": "outcomes.attended.column",
+                                   "label": "Attended the screening visit", "values": []},
+                                  {"column": "ITTFL", "role": "data.include[1]",
+                                   "label": "Randomised population", "values": []}][::-1]
     capsys.readouterr()
     assert cli.main(["verify", str(plan), "--rerun", str(data)]) == 0
     assert "differ" not in capsys.readouterr().out

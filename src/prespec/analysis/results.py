@@ -655,6 +655,21 @@ class Provenance(Part):
     environment: dict[Text, Text]
 
 
+class LabelledValue(Part):
+    value: Text  # a value the plan names, as text
+    label: Text  # the label the data file declares for that stored value
+
+
+class DataLabel(Part):
+    """A column a run reads, with the labels a dataset file declares for it and for the
+    values the plan names (``data_labels``)."""
+
+    column: Text
+    role: Text
+    label: Text | None = None
+    values: list[LabelledValue]
+
+
 class RunResults(Provenance):
     """``results.json`` of a run (or an interim look) on the data."""
 
@@ -668,6 +683,7 @@ class RunResults(Provenance):
     design: Design | None = None
     families: list[Family] | None = None
     overrides: list[Override] | None = None
+    data_labels: list[DataLabel] | None = None
 
 
 class PooledOutcome(Part):

@@ -249,3 +249,47 @@ def data_dictionary(frame: pd.DataFrame, plan: Plan, source: str | Path,
     return {"rows": len(frame.index), "counted_over": "all rows read",
             "group_column": {"column": group, "read": False}, "columns": columns}
 
+
+
+def _plan_values(plan: Plan) -> list[tuple[str, str, list[Any]]]:
+    """(column, role, the values the plan names for it) for the group column and every column
+    the plan reads, in the order of the plan."""
+    spec = plan.data
+    out: list[tuple[str, str, list[Any]]] = [(spec.group, "data.group", list(spec.groups))]
+    for use in uses(plan):
+        out.append((use.column, use.role, []))
+    for i, cond in enumerate(spec.include, start=1):
+        _, arg = cond.op()
+        named = arg if isinstance(arg, list | tuple) else [] if isinstance(arg, bool) else [arg]
+        out.append((cond.column, f"data.include[{i}]", list(named)))
+    for name, outcome in plan.outcomes.items():
+        out.append((outcome.column, f"outcomes.{name}.column",
+                    [*outcome.event, *outcome.no_event]))
+    return out
+
+
+def plan_labels(plan: Plan, labels: Labels) -> list[dict[str, Any]] | None:
+    """The labels a data file declares for the columns a run reads and for the values the plan
+    names (``data_labels`` of a run's results.json): per column its label, and per plan value
+    the label of the stored value it matches. None when the file declares none of them."""
+    columns: dict[str, dict[str, Any]] = {}
+    for column, role, values in _plan_values(plan):
+        entry = columns.setdefault(column, {"column": column, "roles": [], "values": {}})
+        if role not in entry["roles"]:
+            entry["roles"].append(role)
+        declared = labels.values.get(column, {})
+        for value in values:
+            text = as_text(value)
+            if text in declared:
+                entry["values"].setdefault(text, declared[text])
+    out = []
+    for column, entry in columns.items():
+        label = labels.columns.get(column)
+        if label is None and not entry["values"]:
+            continue
+        doc: dict[str, Any] = {"column": column, "role": ", ".join(entry["roles"])}
+        if label is not None:
+            doc["label"] = label
+        doc["values"] = [{"value": v, "label": lab} for v, lab in entry["values"].items()]
+        out.append(doc)
+    return out or None

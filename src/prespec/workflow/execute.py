@@ -219,6 +219,12 @@ def compute_results(
     )
     if family_data:
         results["families"] = families
+    from prespec.data.dictionary import plan_labels
+    from prespec.data.engines.sources import source_labels
+
+    labelled = plan_labels(plan, source_labels(source))  # a dataset file's labels, if any
+    if labelled is not None:
+        results["data_labels"] = labelled
     return with_engine(results, used_engine, query, files)
 
 
