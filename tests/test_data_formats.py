@@ -4,7 +4,10 @@ the pandas and duckdb engines.
 The same invented rows are written as CSV and in every format, each by a writer we did not
 write: pyreadstat (``write_xport`` versions 5 and 8, ``write_sav``, ``write_dta``), pandas
 (``DataFrame.to_stata``) and the ReadStat command-line converter from Debian's ``readstat``
-package (``.xpt`` and ``.sas7bdat``, which no Python writer makes). Every file must give the
+package (``.xpt`` and ``.sas7bdat``, which no Python writer makes). A third ``.xpt`` comes from
+``write_transport_v5`` below, written from the format's record layout, so that one transport
+file owes nothing to ReadStat (the ``xport`` package would be that writer, but its releases
+either require pandas below 1.4 or fail under pandas 3). Every file must give the
 results.json of the CSV, apart from the data hash (the SHA-256 of the file's own bytes, checked
 here with hashlib) and the file's name. The cells prespec reads are also compared with an
 independent reader, pandas' own (``pandas.read_sas``, ``pandas.read_stata``).
