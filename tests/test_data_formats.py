@@ -435,6 +435,26 @@ def test_a_run_lists_the_labels_of_the_columns_and_of_the_plans_values(
     assert "data_labels" not in plain and "Labels in the data file" not in population(plain)
 
 
+def test_the_plan_values_find_their_labels_by_the_matching_rule(tmp_path: Path) -> None:
+    """``1.0`` in a plan names the stored code 1 (and is shown as the plan writes it); a range
+    (``between``) names no value; a column with neither a label nor a labelled plan value is
+    left out."""
+    from prespec.data.dictionary import plan_labels
+
+    plan_path = tmp_path / "p.yaml"
+    plan_path.write_text(PLAN.replace("in: [1]", "between: [1, 1]").replace(
+        "event: [1], no_event: [0]", 'event: ["1.0"], no_event: [0]'), encoding="utf-8")
+    labels = datasets.Labels(columns={"ITTFL": "Randomised"},
+                             values={"ATTEND": {"1": "came", "0": "did not come"},
+                                     "ITTFL": {"1": "yes"}, "CLINIC": {"east": "East wing"}})
+    assert plan_labels(load_plan(plan_path).model, labels) == [
+        {"column": "ITTFL", "role": "data.include[1]", "label": "Randomised", "values": []},
+        {"column": "ATTEND", "role": "outcomes.attended.column",
+         "values": [{"value": "1.0", "label": "came"}, {"value": "0", "label": "did not come"}]},
+    ]
+    assert plan_labels(load_plan(plan_path).model, datasets.Labels()) is None
+
+
 def test_a_file_without_labels_has_none_in_the_dictionary(study: dict[str, Any]) -> None:
     from prespec.data.dictionary import data_dictionary
     from prespec.data.engines.sources import source_labels

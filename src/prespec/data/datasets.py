@@ -10,7 +10,8 @@ a date or time is its stored number (days or seconds since the format's origin),
 Column labels and value labels are read from the file's metadata alone (:func:`labels`), for
 the data dictionary. Every cell is converted by one function (:func:`_cells`), whether the
 pandas engine reads the columns whole (:func:`read_dataset`) or the duckdb engine has them
-copied, a chunk of rows at a time (row offset and limit), into a Parquet file it then reads
+copied, a chunk of rows at a time (a row offset and limit; for a transport file, a window of
+its fixed-width rows, :class:`_Window`), into a Parquet file it then reads
 (:func:`stage_parquet`); so both engines see the same cells.
 
 A file the reader cannot read as its extension says (another format, a truncated file, a

@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from prespec.common.matching import ValueSet, as_text, is_blank
+from prespec.common.matching import ValueSet, as_text, is_blank, value_key
 from prespec.data.datasets import Labels
 from prespec.data.prepare import cell_predicate
 from prespec.data.read import missing_column
@@ -259,9 +259,10 @@ def _plan_values(plan: Plan) -> list[tuple[str, str, list[Any]]]:
     for use in uses(plan):
         out.append((use.column, use.role, []))
     for i, cond in enumerate(spec.include, start=1):
-        _, arg = cond.op()
-        named = arg if isinstance(arg, list | tuple) else [] if isinstance(arg, bool) else [arg]
-        out.append((cond.column, f"data.include[{i}]", list(named)))
+        op, arg = cond.op()
+        if op in ("in", "not_in", "equals"):  # values, not a range or a missing test
+            named = list(arg) if isinstance(arg, list | tuple) else [arg]
+            out.append((cond.column, f"data.include[{i}]", named))
     for name, outcome in plan.outcomes.items():
         out.append((outcome.column, f"outcomes.{name}.column",
                     [*outcome.event, *outcome.no_event]))
@@ -277,11 +278,12 @@ def plan_labels(plan: Plan, labels: Labels) -> list[dict[str, Any]] | None:
         entry = columns.setdefault(column, {"column": column, "roles": [], "values": {}})
         if role not in entry["roles"]:
             entry["roles"].append(role)
-        declared = labels.values.get(column, {})
+        # by the matching rule: a plan's 1, "1" and 1.0 all name the stored code 1
+        declared = {value_key(k): v for k, v in labels.values.get(column, {}).items()}
         for value in values:
-            text = as_text(value)
-            if text in declared:
-                entry["values"].setdefault(text, declared[text])
+            key = value_key(value)
+            if key in declared:
+                entry["values"].setdefault(as_text(value), declared[key])
     out = []
     for column, entry in columns.items():
         label = labels.columns.get(column)
