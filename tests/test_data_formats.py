@@ -455,6 +455,16 @@ def test_the_plan_values_find_their_labels_by_the_matching_rule(tmp_path: Path) 
     assert plan_labels(load_plan(plan_path).model, datasets.Labels()) is None
 
 
+def test_the_labels_of_two_files_combine_the_first_winning() -> None:
+    units = datasets.Labels("units", {"SUBJID": "Subject", "ARM": "Arm"}, {"ARM": {"1": "a"}})
+    events = datasets.Labels(None, {"SUBJID": "Subject id", "TERM": "Event term"},
+                             {"ARM": {"1": "b"}, "TERM": {"7": "rash"}})
+    both = units.combined(events)
+    assert both == datasets.Labels("units", {"SUBJID": "Subject", "ARM": "Arm",
+                                             "TERM": "Event term"},
+                                   {"ARM": {"1": "a"}, "TERM": {"7": "rash"}})
+
+
 def test_a_file_without_labels_has_none_in_the_dictionary(study: dict[str, Any]) -> None:
     from prespec.data.dictionary import data_dictionary
     from prespec.data.engines.sources import source_labels

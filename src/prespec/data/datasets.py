@@ -90,6 +90,12 @@ class Labels:
     columns: dict[str, str] = field(default_factory=dict)
     values: dict[str, dict[str, str]] = field(default_factory=dict)
 
+    def combined(self, other: Labels) -> Labels:
+        """These labels with ``other``'s for the columns these do not label (a unit table's
+        and an event table's, for one dictionary): where both label a column, these win."""
+        return Labels(self.file or other.file, {**other.columns, **self.columns},
+                      {**other.values, **self.values})
+
 
 @dataclass(frozen=True)
 class Metadata:
