@@ -528,6 +528,7 @@ def bad_files(study: dict[str, Any], folder: Path) -> dict[str, tuple[Path, str]
     # a transport file's rows begin after the record that opens them; cut inside row 3
     start = xpt.index(b"HEADER RECORD*******OBS") + 80
     width = len(frame().iloc[0]["SUBJID"]) + len("leaflet") + len("harbour") + 8 + 8
+    assert width == 37 and start % 80 == 0
     return {
         "csv named .xpt": (_cut(files["csv"], folder / "csv.xpt", 10**9),
                            "cannot read the file as a .xpt transport file"),
@@ -535,6 +536,11 @@ def bad_files(study: dict[str, Any], folder: Path) -> dict[str, tuple[Path, str]
                             "cannot read the file as a .dta dataset file"),
         "truncated .xpt": (_cut(files["xpt5"], folder / "cut.xpt", start + 2 * width + 5),
                            "the transport file is truncated or damaged"),
+        # whole 80-byte records (4 rows of 37 bytes and 12 bytes of the 5th): the part row
+        # is neither a row nor the closing blanks
+        "truncated .xpt at a record's end": (_cut(files["xpt5"], folder / "cut80.xpt",
+                                                  start + 160),
+                                             "the transport file is truncated or damaged"),
         "truncated .xpt v8": (_cut(files["xpt8"], folder / "cut8.xpt",
                                    len(files["xpt8"].read_bytes()) - 80),
                               "truncated or damaged"),
