@@ -137,6 +137,17 @@ def test_the_engine_benchmark_agrees_with_scipy_statsmodels_and_the_floor() -> N
     assert "MET" not in out.replace("NOT MET", "")  # no verdict on a goal at smoke size
 
 
+def test_the_formats_benchmark_reads_the_same_rows_from_xpt_and_csv() -> None:
+    out = smoke("formats_scale.py")
+    assert numbers(r"all four routes read ([\d,]+) rows", out) == [20_000]
+    (analysed,) = numbers(r"analyse ([\d,]+) and find the events and totals per arm that "
+                          r"pandas counts", out)
+    assert 15_000 < analysed < 20_000  # ages 16-90 drawn, 18-85 analysed, a few missing
+    for route in ("csv duckdb", "csv pandas", "xpt duckdb", "xpt pandas"):
+        assert route in out
+    assert "(the comparison is made at 2,000,000 rows)" in out
+
+
 def test_the_families_benchmark_agrees_between_routes_scipy_and_the_run() -> None:
     out = smoke("families_run.py")
     assert out.startswith("100 terms, 30,000 rows")

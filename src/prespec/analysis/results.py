@@ -778,6 +778,21 @@ class Provenance(Part):
         "the plan ran unlocked, and in reports written before it was recorded.")
 
 
+class LabelledValue(Part):
+    value: Text  # a value the plan names, as text
+    label: Text  # the label the data file declares for that stored value
+
+
+class DataLabel(Part):
+    """A column a run reads, with the labels a dataset file declares for it and for the
+    values the plan names (``data_labels``)."""
+
+    column: Text
+    role: Text
+    label: Text | None = None
+    values: list[LabelledValue]
+
+
 class RunResults(Provenance):
     """``results.json`` of a run (or an interim look) on the data."""
 
@@ -792,6 +807,7 @@ class RunResults(Provenance):
     families: list[Family] | None = None
     event_table: EventTable | None = None  # only with data.events
     overrides: list[Override] | None = None
+    data_labels: list[DataLabel] | None = None
 
 
 class PooledOutcome(Part):
@@ -847,6 +863,7 @@ class DictionaryValue(Part):
     value: Text | None  # null: the blank cells
     count: Count
     meaning: Text | None
+    label: Text | None = None  # the value label a dataset file declares for the stored value
 
 
 class DictionaryColumn(Part):
@@ -858,6 +875,7 @@ class DictionaryColumn(Part):
     more: Count
     more_count: Count
     duplicates: Count | None = None
+    label: Text | None = None  # the column label a dataset file declares
 
 
 class GroupColumn(Part):

@@ -8,10 +8,15 @@ never read, so it is named but not counted; the id column shows only how many id
 how many are blank and how many occur more than once, never the ids themselves.
 
 Counts are over all rows of the file, before the population filter.
+
+A transport or dataset file may declare a label for a column and for its stored values; the
+dictionary shows them beside the column and the value (``label``, written only where the file
+declares one). The plan still matches the stored value (a code ``1``), never its label.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -20,7 +25,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from prespec.common.matching import ValueSet, as_text, is_blank
+from prespec.common.matching import ValueSet, as_text, is_blank, value_key
+from prespec.data.datasets import Labels
 from prespec.data.prepare import cell_predicate
 from prespec.data.read import missing_column
 
@@ -42,9 +48,14 @@ class ValueCount:
     value: str | None
     count: int
     meaning: str | None
+    label: str | None = None  # the value label the file declares for this stored value
 
     def to_json(self) -> dict[str, Any]:
-        return {"value": self.value, "count": self.count, "meaning": self.meaning}
+        doc: dict[str, Any] = {"value": self.value, "count": self.count,
+                               "meaning": self.meaning}
+        if self.label is not None:
+            doc["label"] = self.label
+        return doc
 
 
 @dataclass(frozen=True)
@@ -59,10 +70,12 @@ class ColumnSummary:
     more: int  # distinct values not listed
     more_count: int  # rows holding the values not listed
     duplicates: int | None = None  # the id column only: ids that occur more than once
+    label: str | None = None  # the column label the file declares
 
     def to_json(self) -> dict[str, Any]:
         doc: dict[str, Any] = {
             "column": self.column,
+            **({"label": self.label} if self.label is not None else {}),
             "role": self.role,
             "distinct": self.distinct,
             "blank": self.blank,
@@ -191,13 +204,15 @@ def _id_summary(use: _Use, role: str, column: pd.Series) -> ColumnSummary:
                          duplicates=int((counts > 1).sum()))
 
 
-def _summary(use: _Use, role: str, column: pd.Series) -> ColumnSummary:
+def _summary(use: _Use, role: str, column: pd.Series,
+             value_labels: dict[str, str] | None = None) -> ColumnSummary:
     assert use.meaning is not None
     codes, distinct = _texts(column)
     counts = np.bincount(codes[codes >= 0], minlength=len(distinct))
     blank = int((codes < 0).sum())
-    rows = [ValueCount(text, int(n), use.meaning(text)) for text, n in zip(distinct, counts,
-                                                                         strict=True)]
+    named = value_labels or {}
+    rows = [ValueCount(text, int(n), use.meaning(text), named.get(text))
+            for text, n in zip(distinct, counts, strict=True)]
     if blank:
         rows.append(ValueCount(None, blank, use.meaning(None)))
     rows.sort(key=lambda r: (_RANK.get(r.meaning, 3), r.value is None, -r.count,
@@ -207,11 +222,14 @@ def _summary(use: _Use, role: str, column: pd.Series) -> ColumnSummary:
                          sum(r.count for r in rest))
 
 
-def data_dictionary(frame: pd.DataFrame, plan: Plan, source: str | Path) -> dict[str, Any]:
+def data_dictionary(frame: pd.DataFrame, plan: Plan, source: str | Path,
+                    labels: Labels | None = None) -> dict[str, Any]:
     """The ``data_dictionary`` of a rehearsal's results.json, from the rows as read.
 
     ``frame`` must not hold the group column: it is named here but never counted.
+    ``labels``: the column and value labels the data file declares (a dataset file's).
     """
+    labels = labels or Labels()
     group = plan.data.group
     if group in frame.columns:
         raise ValueError("the data dictionary is built without the group column")
@@ -220,8 +238,60 @@ def data_dictionary(frame: pd.DataFrame, plan: Plan, source: str | Path) -> dict
     for use, role in _grouped(uses(plan)):
         if use.column not in present:
             raise missing_column(str(source), use.column, role, [str(c) for c in present])
-        summarise = _id_summary if use.meaning is None else _summary
-        columns.append(summarise(use, role, frame[use.column]).to_json())
+        if use.meaning is None:
+            summary = _id_summary(use, role, frame[use.column])
+        else:
+            summary = _summary(use, role, frame[use.column], labels.values.get(use.column))
+        label = labels.columns.get(use.column)
+        if label is not None:
+            summary = dataclasses.replace(summary, label=label)
+        columns.append(summary.to_json())
     return {"rows": len(frame.index), "counted_over": "all rows read",
             "group_column": {"column": group, "read": False}, "columns": columns}
 
+
+
+def _plan_values(plan: Plan) -> list[tuple[str, str, list[Any]]]:
+    """(column, role, the values the plan names for it) for the group column and every column
+    the plan reads, in the order of the plan."""
+    spec = plan.data
+    out: list[tuple[str, str, list[Any]]] = [(spec.group, "data.group", list(spec.groups))]
+    for use in uses(plan):
+        out.append((use.column, use.role, []))
+    for i, cond in enumerate(spec.include, start=1):
+        op, arg = cond.op()
+        if op in ("in", "not_in", "equals"):  # values, not a range or a missing test
+            named = list(arg) if isinstance(arg, list | tuple) else [arg]
+            out.append((cond.column, f"data.include[{i}]", named))
+    for name, outcome in plan.outcomes.items():
+        out.append((outcome.column, f"outcomes.{name}.column",
+                    [*outcome.event, *outcome.no_event]))
+    return out
+
+
+def plan_labels(plan: Plan, labels: Labels) -> list[dict[str, Any]] | None:
+    """The labels a data file declares for the columns a run reads and for the values the plan
+    names (``data_labels`` of a run's results.json): per column its label, and per plan value
+    the label of the stored value it matches. None when the file declares none of them."""
+    columns: dict[str, dict[str, Any]] = {}
+    for column, role, values in _plan_values(plan):
+        entry = columns.setdefault(column, {"column": column, "roles": [], "values": {}})
+        if role not in entry["roles"]:
+            entry["roles"].append(role)
+        # by the matching rule: a plan's 1, "1" and 1.0 all name the stored code 1
+        declared = {value_key(k): v for k, v in labels.values.get(column, {}).items()}
+        for value in values:
+            key = value_key(value)
+            if key in declared:
+                entry["values"].setdefault(as_text(value), declared[key])
+    out = []
+    for column, entry in columns.items():
+        label = labels.columns.get(column)
+        if label is None and not entry["values"]:
+            continue
+        doc: dict[str, Any] = {"column": column, "role": ", ".join(entry["roles"])}
+        if label is not None:
+            doc["label"] = label
+        doc["values"] = [{"value": v, "label": lab} for v, lab in entry["values"].items()]
+        out.append(doc)
+    return out or None

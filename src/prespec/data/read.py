@@ -1,17 +1,24 @@
-"""Reading a data file (CSV as text, or Parquet) into a DataFrame of raw cells.
+"""Reading a data file (CSV as text, Parquet, or a statistical dataset file) into a DataFrame
+of raw cells.
 
 Only the columns a plan names are parsed: the header is read on its own (the csv module for a
 CSV, the schema for a Parquet file), and pandas is given the positions of the named columns.
 A file with 100,000 columns in its header costs what a file with the named columns costs,
-instead of one pandas column object per header name.
+instead of one pandas column object per header name. Transport and dataset files (``.xpt``,
+``.sas7bdat``, ``.sav``, ``.zsav``, ``.dta``) are read by ``datasets.py``, their named columns
+only.
+
+:func:`open_data_file` is the one door every engine uses to a data file of any supported
+format: the frame for pandas, or a CSV or Parquet file that an SQL reader can scan.
 """
 
 from __future__ import annotations
 
 import codecs
 import csv
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -21,6 +28,7 @@ import pyarrow as pa
 from prespec.common.departures import listed
 
 from ..errors import DataError
+from . import datasets
 
 #: How many column names a missing-column message lists before "… and N more".
 COLUMNS_SHOWN = 20
@@ -194,9 +202,31 @@ def _read_parquet(path: Path, columns: Mapping[str, str] | None, shown: str) -> 
     return frame
 
 
+def _read_dataset(path: Path, columns: Mapping[str, str] | None, shown: str) -> pd.DataFrame:
+    if columns is not None:
+        meta = datasets.metadata(path, shown)
+        header = [n.strip() for n in meta.names]
+        for column, role in columns.items():
+            if column not in header:
+                raise missing_column(shown, column, role, header)
+    return datasets.read_dataset(path, None if columns is None else list(columns), shown)
+
+
+#: The extensions read, by kind (``open_data_file``); "" (no extension) is read as CSV.
+CSV_SUFFIXES = (".csv", ".txt", "")
+PARQUET_SUFFIXES = (".parquet", ".pq")
+KNOWN_FORMATS = ".csv, .parquet, .xpt, .sas7bdat, .sav, .zsav or .dta"
+
+
+def unknown_format(shown: str, suffix: str) -> DataError:
+    return DataError(f"{shown}: unknown data format {suffix!r} (use {KNOWN_FORMATS})")
+
+
 def read_data(path: Path, columns: Mapping[str, str] | None = None,
               source: str | None = None) -> pd.DataFrame:
-    """Read CSV (every cell as text, no NA conversion) or Parquet (nulls stay None).
+    """Read CSV (every cell as text, no NA conversion), Parquet (nulls stay None) or a
+    transport or dataset file (stored values: text, floats, None for a missing value;
+    ``datasets.py``).
 
     Returns a frame whose columns are the file's, cells unconverted, so the matching rule of
     ``values.py`` sees exactly what the file holds. ``columns`` (each column the caller reads,
@@ -210,14 +240,15 @@ def read_data(path: Path, columns: Mapping[str, str] | None = None,
         raise DataError(f"{path}: is a folder, not a data file")
     suffix = path.suffix.lower()
     try:
-        if suffix in {".parquet", ".pq"}:
+        if suffix in PARQUET_SUFFIXES:
             frame = _read_parquet(path, columns, shown)
-        elif suffix in {".csv", ".txt", ""}:
+        elif suffix in CSV_SUFFIXES or datasets.is_dataset(path):
             if path.stat().st_size == 0:
                 raise DataError(f"{path}: the data file is empty")
-            frame = _read_csv(path, columns, shown)
+            frame = (_read_dataset(path, columns, shown) if datasets.is_dataset(path) else
+                     _read_csv(path, columns, shown))
         else:
-            raise DataError(f"{path}: unknown data format {suffix!r} (use .csv or .parquet)")
+            raise unknown_format(str(path), suffix)
     except DataError:
         raise
     except UnicodeDecodeError:
@@ -230,3 +261,78 @@ def read_data(path: Path, columns: Mapping[str, str] | None = None,
     if len(frame.index) == 0:
         raise DataError(f"{path}: the data file has a header but no rows")
     return frame
+
+
+@dataclass(frozen=True)
+class DataFile:
+    """A data file of a supported format, as the engines open it (:func:`open_data_file`).
+
+    ``format``: ``csv``, ``parquet``, or a dataset extension without its dot (``xpt``,
+    ``sas7bdat``, ``sav``, ``zsav``, ``dta``)."""
+
+    path: Path
+    shown: str
+    format: str
+
+    @property
+    def is_dataset(self) -> bool:
+        return self.format not in ("csv", "parquet")
+
+    def frame(self, columns: Mapping[str, str] | None = None) -> pd.DataFrame:
+        """The raw cells of ``columns`` (each with the plan key naming it), every row, as the
+        pandas engine counts them (:func:`read_data`)."""
+        return read_data(self.path, columns, self.shown)
+
+    def kinds(self) -> dict[str, str]:
+        """A dataset file's columns (trimmed) and their kinds, ``text`` or ``float``, as
+        :meth:`scannable` writes them, from its header (a CSV's or Parquet file's kinds are
+        its SQL reader's)."""
+        if not self.is_dataset:
+            raise ValueError("kinds() reads the header of a transport or dataset file")
+        return dict(datasets.metadata(self.path, self.shown).kinds)
+
+    def labels(self) -> datasets.Labels:
+        """The file's column and value labels (none for CSV and Parquet)."""
+        if not self.is_dataset:
+            return datasets.Labels()
+        return datasets.labels(self.path, self.shown)
+
+    def scannable(self, folder: Path, columns: Iterable[str] | None = None
+                  ) -> tuple[str, Path]:
+        """``(kind, path)`` of a file an SQL reader scans: the file itself for CSV and
+        Parquet (kind ``csv`` or ``parquet``), or for a dataset file a Parquet copy of
+        ``columns`` (all when None) written into ``folder`` a chunk of rows at a time, never
+        the whole file in memory (``datasets.stage_parquet``)."""
+        if not self.is_dataset:
+            return self.format, self.path
+        import hashlib
+
+        wanted = None if columns is None else sorted(set(columns))
+        key = "\x1f".join([str(self.path), *(wanted if wanted is not None else ["\x00all"])])
+        target = folder / f"staged-{hashlib.sha256(key.encode()).hexdigest()[:16]}.parquet"
+        if not target.exists():
+            partial = target.with_suffix(".partial")
+            datasets.stage_parquet(self.path, wanted, partial, self.shown)
+            partial.rename(target)
+        return "parquet", target
+
+
+def open_data_file(path: Path, shown: str | None = None) -> DataFile:
+    """Any supported data file, chosen by its extension, as the engines open it; an unknown
+    extension, a missing file or a folder is a one-line error. (A dataset file that is not
+    what its extension says is found when it is read: one line too.)"""
+    shown = shown or str(path)
+    suffix = path.suffix.lower()
+    if suffix in PARQUET_SUFFIXES:
+        kind = "parquet"
+    elif suffix in CSV_SUFFIXES:
+        kind = "csv"
+    elif datasets.is_dataset(path):
+        kind = suffix[1:]
+    else:
+        raise unknown_format(shown, suffix)
+    if not path.exists():
+        raise DataError(f"{shown}: no such data file")
+    if path.is_dir():
+        raise DataError(f"{shown}: is a folder, not a data file")
+    return DataFile(path, shown, kind)

@@ -331,6 +331,7 @@ def _value_rows(
     rows: list[list[str]] = []
     marks: dict[int, str] = {}
     unmapped = 0
+    labelled = _has_value_labels(column, where)
     for k, raw in enumerate(items(column.get("values"), f"{where}.values")):
         at = f"{where}.values[{k}]"
         entry = mapping(raw, at)
@@ -343,7 +344,14 @@ def _value_rows(
             marks[k] = SOFT_ROW_STYLE
         rows.append([shown_value(entry.get("value"), f"{at}.value"), fmt_thousands(count),
                      MEANINGS.get(meaning, meaning or NULL)])
+        if labelled:  # the value label a dataset file declares, beside the stored value
+            rows[-1].insert(1, text(entry.get("label"), f"{at}.label", default=""))
     return rows, marks, unmapped
+
+
+def _has_value_labels(column: Mapping[str, Any], where: str) -> bool:
+    return any(isinstance(raw, Mapping) and raw.get("label") is not None
+               for raw in items(column.get("values"), f"{where}.values"))
 
 
 def _column_name(column: Mapping[str, Any], where: str) -> str:
@@ -440,10 +448,16 @@ def _column_detail(column: Mapping[str, Any], at: str, name: str, roles: str,
                      "duplicated")
     line = "; ".join(facts)
     parts = [f'<div class="prespec-column-card" style="{_CARD_STYLE}">',
-             f'<h4 class="prespec-column">Column {esc(name)}</h4>',
-             f'<p style="margin:0.2em 0 0.4em">{esc(line[:1].upper() + line[1:])}.</p>']
+             f'<h4 class="prespec-column">Column {esc(name)}</h4>']
+    if column.get("label") is not None:  # the column label a dataset file declares
+        label = text(column.get("label"), f"{at}.label")
+        parts.append(f'<p class="prespec-column-label" style="margin:0.2em 0">Label: '
+                     f"{esc(label)}</p>")
+    parts.append(f'<p style="margin:0.2em 0 0.4em">{esc(line[:1].upper() + line[1:])}.</p>')
     if rows:
-        parts.append(table(["Value", "Rows", "Meaning"], rows, numeric=(1,),
+        labelled = _has_value_labels(column, at)
+        head = ["Value", "Label", "Rows", "Meaning"] if labelled else ["Value", "Rows", "Meaning"]
+        parts.append(table(head, rows, numeric=(2,) if labelled else (1,),
                            cls="prespec-values", row_styles=marks))
         more = number(column.get("more"), f"{at}.more")
         if more:

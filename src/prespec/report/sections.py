@@ -198,7 +198,29 @@ def population(results: Mapping[str, Any]) -> str:
         if analysed is not None:
             rows.append(("Analysed in total",
                          fmt_thousands(number(analysed, "analysed_total"))))
-    return out + fields(rows)
+    return out + fields(rows) + data_labels(results)
+
+
+def data_labels(results: Mapping[str, Any]) -> str:
+    """The labels the data file declares for the columns read and the plan's values (a
+    transport or dataset file's), or ``""``: matching used the stored values beside them."""
+    if results.get("data_labels") is None:
+        return ""
+    rows = []
+    for k, raw in enumerate(items(results["data_labels"], "data_labels")):
+        at = f"data_labels[{k}]"
+        entry = mapping(raw, at)
+        values = [mapping(v, f"{at}.values[{j}]")
+                  for j, v in enumerate(items(entry.get("values"), f"{at}.values"))]
+        shown = "; ".join(f"{text(v.get('value'), f'{at}.value')} = "
+                          f"{text(v.get('label'), f'{at}.label')}" for v in values)
+        rows.append([text(entry.get("column"), f"{at}.column"),
+                     blinded.role_words(text(entry.get("role"), f"{at}.role").split(", ")[0]),
+                     text(entry.get("label"), f"{at}.label", default=NULL), shown or NULL])
+    return ("<h3>Labels in the data file</h3><p>The plan matches the stored values; the labels "
+            "the file declares for them are shown beside them.</p>"
+            + table(["Column", "Used for", "Column label", "Plan values and their labels"],
+                    rows, cls="prespec-data-labels"))
 
 
 def outcomes(results: Mapping[str, Any]) -> list[tuple[str, str, str]]:

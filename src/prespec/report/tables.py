@@ -29,21 +29,34 @@ DICTIONARY_HEADER = ["column", "role", "distinct", "blank", "duplicates", "value
                      "meaning"]
 
 
+#: Added after DICTIONARY_HEADER when the data file declares labels (a dataset file's).
+DICTIONARY_LABEL_HEADER = ["column_label", "value_label"]
+
+
 def write_dictionary_csv(path: Path, dictionary: dict[str, Any]) -> None:
-    """One row per listed value; ``(blank)`` for blank cells, ``(N more values)`` for the rest."""
+    """One row per listed value; ``(blank)`` for blank cells, ``(N more values)`` for the rest.
+    The label columns are there only when the dictionary holds a label."""
+    labelled = any("label" in col or any("label" in v for v in col["values"])
+                   for col in dictionary["columns"])
     with open(path, "w", newline="", encoding="utf-8") as fh:
         w = csv_writer(fh)
-        w.writerow(DICTIONARY_HEADER)
+        w.writerow(DICTIONARY_HEADER + (DICTIONARY_LABEL_HEADER if labelled else []))
         for col in dictionary["columns"]:
             head = [col["column"], col["role"], col["distinct"], col["blank"],
                     col.get("duplicates", "")]
+            tail = [col.get("label") or ""] if labelled else []
+
+            def labels(value: dict[str, Any] | None, tail: list[Any] = tail) -> list[Any]:
+                return [*tail, (value or {}).get("label") or ""] if labelled else []
+
             if not col["values"] and not col["more"]:
-                w.writerow([*head, "", "", ""])
+                w.writerow([*head, "", "", "", *labels(None)])
             for v in col["values"]:
                 shown = "(blank)" if v["value"] is None else v["value"]
-                w.writerow([*head, shown, v["count"], v["meaning"] or ""])
+                w.writerow([*head, shown, v["count"], v["meaning"] or "", *labels(v)])
             if col["more"]:
-                w.writerow([*head, f"({col['more']} more values)", col["more_count"], ""])
+                w.writerow([*head, f"({col['more']} more values)", col["more_count"], "",
+                            *labels(None)])
 
 
 POOLED_HEADER = ["outcome", "events", "no_events", "total", "missing", "rate", "ci_low",

@@ -237,6 +237,12 @@ def compute_results(
         results["families"] = families
     if event_table is not None:
         results["event_table"] = event_table
+    from prespec.data.dictionary import plan_labels
+    from prespec.data.engines.sources import source_labels
+
+    labelled = plan_labels(plan, source_labels(source))  # a dataset file's labels, if any
+    if labelled is not None:
+        results["data_labels"] = labelled
     return with_engine(results, used_engine, query, files)
 
 

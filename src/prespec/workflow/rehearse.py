@@ -409,7 +409,9 @@ def compute_rehearsal(
     frame = blinded_frame(read.frame, units, str(plan_path))
     data_hash = read.data_hash
     source_name = source.shown
-    dictionary = data_dictionary(frame, units, source_name)
+    from prespec.data.engines.sources import source_labels
+
+    dictionary = data_dictionary(frame, units, source_name, source_labels(source))
     groups = list(plan.data.groups)
     frame = frame.assign(**{plan.data.group: dummy_allocation(
         len(frame.index), groups, plan.data.planned_n, _fresh_generator())})

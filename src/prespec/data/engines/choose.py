@@ -64,6 +64,12 @@ def open_engine(name: str, source: DataSource,
         raise BadInput(f"--engine {name}: reads files; a database URL needs --engine sql")
     if source.kind != "url" and name == "sql":
         raise BadInput(f"--engine sql: reads a database URL; {source.shown} is a file")
+    if name == "spark" and source.kind != "url":
+        from ..datasets import is_dataset
+
+        if is_dataset(source.location):
+            raise BadInput(f"--engine spark: reads CSV or Parquet files; {source.shown} is a "
+                           f"{source.path.suffix.lower()} file: use --engine pandas or duckdb")
     module_name, class_name = _CLASSES[name]
     try:
         module = importlib.import_module(module_name)

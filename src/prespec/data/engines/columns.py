@@ -168,11 +168,19 @@ def csv_header(path: Path) -> list[str] | None:
 
 
 def file_names(path: Path) -> list[str] | None:
-    """The column names of a data file as its header (CSV) or schema (Parquet) holds them."""
+    """The column names of a data file as its header (CSV, a dataset file) or schema
+    (Parquet) holds them."""
     if path.suffix.lower() in (".parquet", ".pq"):
         try:
             return parquet_columns(path)[0]
         except Exception:  # noqa: BLE001 - the engine's own reader says what is wrong
+            return None
+    from ..datasets import is_dataset, metadata
+
+    if is_dataset(path):  # a transport or dataset file: the names its header declares
+        try:
+            return metadata(path).names
+        except DataError:
             return None
     return csv_header(path)
 

@@ -1,8 +1,11 @@
 """The ``duckdb`` engine: files (CSV, Parquet, a glob of either) counted by embedded DuckDB.
 
 CSV is read with every column as text (header, UTF-8, strict); Parquet keeps its types. A glob
-reads every matching file as one table, columns matched by name. The reduction runs out of
-core: DuckDB spills to a temporary folder beyond its memory limit.
+reads every matching file as one table, columns matched by name. A transport or dataset file
+(``.xpt``, ``.sas7bdat``, ``.sav``, ``.zsav``, ``.dta``) is copied, the plan's columns only and
+a chunk of rows at a time, into a Parquet file in the engine's temporary folder, which DuckDB
+then reads (``read.open_data_file``); the data hash stays the SHA-256 of the file itself. The
+reduction runs out of core: DuckDB spills to a temporary folder beyond its memory limit.
 """
 
 from __future__ import annotations
@@ -11,11 +14,14 @@ import tempfile
 import threading
 from collections.abc import Callable, Iterator
 from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
 from ...errors import DataError
+from ..datasets import is_dataset
+from ..read import DataFile, open_data_file
 from .aggregate import AggregatingEngine
 from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, DataSource
 from .compiler import (
@@ -96,6 +102,8 @@ class DuckDBEngine(AggregatingEngine):
         self._kinds: dict[str, str] | None = None
         self._checked = False
         self._shown = False
+        self._dataset: DataFile | None = None  # a transport or dataset file, staged to Parquet
+        self._staged: tuple[frozenset[str] | None, str] | None = None  # (its columns, the copy)
 
     def close(self) -> None:
         self.con.close()
@@ -113,7 +121,14 @@ class DuckDBEngine(AggregatingEngine):
                 raise DataError(f"{self.source.shown}: is a folder, not a data file")
             if path.stat().st_size == 0:
                 raise DataError(f"{self.source.shown}: the data file is empty")
+            if is_dataset(path):
+                self._dataset = open_data_file(path, self.source.shown)
+                self._checked = True
+                return
         else:
+            if is_dataset(path):
+                raise DataError(f"{self.source.shown}: a glob reads CSV or Parquet files; "
+                                f"name one {path.suffix.lower()} file at a time")
             files = self.source.matches()
             if not files:
                 raise DataError(f"{self.source.shown}: no data file matches")
@@ -124,12 +139,31 @@ class DuckDBEngine(AggregatingEngine):
                     raise DataError(f"{name}: a glob must match files of one format")
         suffix = path.suffix.lower()
         if suffix not in (".csv", ".txt", ".parquet", ".pq", ""):
-            raise DataError(f"{self.source.shown}: unknown data format {suffix!r} "
-                            "(use .csv or .parquet)")
+            from ..read import unknown_format
+
+            raise unknown_format(self.source.shown, suffix)
         self._checked = True
+
+    def _stage(self, request: CountRequest | None) -> None:
+        """Copy the dataset file's columns that ``request`` reads (all for None), with those
+        of any earlier copy, to Parquet: once per set of columns."""
+        assert self._dataset is not None
+        wanted: frozenset[str] | None = None if request is None else frozenset(request.read)
+        if self._staged is not None:
+            had = self._staged[0]
+            if had is None or (wanted is not None and wanted <= had):
+                return
+            wanted = None if wanted is None else wanted | had
+        present = set(self.column_kinds())
+        columns = None if wanted is None else [c for c in wanted if c in present]
+        _, path = self._dataset.scannable(Path(self._temp.name), columns)
+        self._staged = (wanted, str(path))
 
     def relation(self, request: CountRequest | None = None) -> str:
         self._check_files()
+        if self._dataset is not None:
+            self._stage(request)
+            return "read_parquet($source)"
         # union_by_name (columns matched by name across files) only for a glob: it slows
         # the reading of a single file
         union = ", union_by_name = true" if self.source.kind == "glob" else ""
@@ -147,6 +181,8 @@ class DuckDBEngine(AggregatingEngine):
 
         if self.source.kind == "glob":
             return [glob.escape(name) for name in self.source.matches()]
+        if self._staged is not None:
+            return glob.escape(self._staged[1])
         return glob.escape(self.source.location)
 
     def _params(self, query: Query) -> dict[str, Any]:
@@ -161,6 +197,10 @@ class DuckDBEngine(AggregatingEngine):
         return text, {"events_source": other._files_param()}
 
     def column_kinds(self) -> dict[str, str]:
+        self._check_files()
+        if self._kinds is None and self._dataset is not None:
+            # from the file's header, as the Parquet copy holds them (text or doubles)
+            self._kinds = self._dataset.kinds()
         if self._kinds is None:
             rel = self.relation()
             described = self._run(f"DESCRIBE SELECT * FROM {rel}",

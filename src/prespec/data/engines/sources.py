@@ -17,6 +17,8 @@ from prespec.common.canonical import file_sha256
 from prespec.common.departures import Note
 
 from ...errors import BadInput, DataError, PlanError
+from ..datasets import Labels, is_dataset
+from ..read import open_data_file
 from .base import DataSource, expand_glob
 
 if TYPE_CHECKING:
@@ -127,6 +129,14 @@ def describe_source(plan_path: Path, plan: Plan) -> str:
         return f"{source.shown} (a glob; {found})"
     found = "found" if source.path.is_file() else "not there yet"
     return f"{source.shown} (a file; {found})"
+
+
+def source_labels(source: DataSource) -> Labels:
+    """The column and value labels a single dataset file declares (none for CSV, Parquet, a
+    glob or a database), for the data dictionary."""
+    if source.kind != "file" or not is_dataset(source.location):
+        return Labels()
+    return open_data_file(Path(source.location), source.shown).labels()
 
 
 def check_source(source: DataSource) -> None:
