@@ -441,3 +441,37 @@ def test_auto_joins_a_large_event_table_with_duckdb(tmp_path: Path,
     large = _results(plan, None, units, "auto")
     assert large["engine"] == "duckdb"
     assert large["families"] == small["families"]
+
+
+@pytest.mark.parametrize("engine", ["pandas", "duckdb"])
+def test_the_event_demo_from_transport_files_gives_the_csv_review(tmp_path: Path,
+                                                                   engine: str) -> None:
+    """The two tables of the event demo written as transport files (.xpt version 8, by
+    pyreadstat ``write_xport``) give the review of the CSV files: the same members, counts,
+    p-values and flags, and the same event-table counts apart from the file and its hash."""
+    import pyreadstat
+
+    from prespec.demo import safety_events
+
+    folder = tmp_path / "gel"
+    assert safety_events.main([str(folder)]) == 0
+    for name in ("safety-participants", "safety-events"):
+        frame = pd.read_csv(folder / f"{name}.csv", dtype=str, keep_default_na=False)
+        pyreadstat.write_xport(frame, str(folder / f"{name}.xpt"), file_format_version=8,
+                               table_name=name.replace("-", "_"))
+    text = (folder / "safety-events.yaml").read_text()
+    assert "source: safety-events.csv" in text
+    xpt = folder / "safety-events-xpt.yaml"
+    xpt.write_text(text.replace("source: safety-events.csv", "source: safety-events.xpt"))
+    data = folder / "safety-participants.xpt"
+    got = _results(xpt, DataSource("file", str(data), str(data)), data, engine)
+    want = _results(folder / "safety-events.yaml", None, folder / "safety-participants.csv",
+                    engine)
+    two, one = got["families"][0], want["families"][0]
+    assert [{k: m[k] for k in _SAME} for m in two["members"]] == [
+        {k: m[k] for k in _SAME} for m in one["members"]]
+    assert two["members_flagged"] == one["members_flagged"] == 4
+    drop = ("data", "data_file", "query")
+    assert {k: v for k, v in got["event_table"].items() if k not in drop} == {
+        k: v for k, v in want["event_table"].items() if k not in drop}
+    assert got["event_table"]["data_file"] == "safety-events.xpt"
