@@ -8,6 +8,7 @@ and saved without a time stamp or creator, so that the same results give the sam
 from __future__ import annotations
 
 import hashlib
+import io
 import os
 import re
 from pathlib import Path
@@ -19,7 +20,8 @@ if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
 FIGURES = "figures"
-DPI = 100
+DPI = 100  # the figure's own resolution, in which its layout is computed
+PNG_DPI = 200  # the resolution of the PNG written (fit for paper); an SVG is written beside it
 WIDTH = 8.0  # inches
 INK = "#222222"
 LINE = "#555555"
@@ -38,6 +40,8 @@ RC: dict[str, Any] = {
     "ytick.color": INK,
     "axes.spines.top": False,
     "axes.spines.right": False,
+    "svg.hashsalt": "prespec",  # the SVG's element ids from this salt: the same bytes each time
+    "svg.fonttype": "path",  # text as outlines: the SVG looks the same without the fonts
 }
 
 
@@ -65,14 +69,43 @@ def new_figure(height: float, width: float = WIDTH) -> Figure:
     return fig
 
 
+def svg_name(png: str | Path) -> str:
+    """The SVG written beside a PNG figure: the same name with ``.svg``."""
+    name = str(png)
+    return (name.removesuffix(".png")) + ".svg"
+
+
+_HASHED_ID = re.compile(r"\b([mph])([0-9a-f]{10})\b")
+
+
+def stable_ids(svg: str) -> str:
+    """The SVG with matplotlib's hashed element ids (markers ``m…``, clip paths ``p…``,
+    hatches ``h…``; some hash an object's address, so they change from run to run) renamed
+    in order of first appearance, ``p1``, ``m2`` …: the same figure gives the same bytes."""
+    names: dict[str, str] = {}
+
+    def rename(match: re.Match[str]) -> str:
+        return names.setdefault(match.group(0), f"{match.group(1)}{len(names) + 1}")
+
+    return _HASHED_ID.sub(rename, svg)
+
+
 def save_png(fig: Figure, path: Path) -> None:
-    """Save as PNG under a temporary name, then rename into place; no metadata stamp."""
-    tmp = path.with_name(f".{path.name}.partial")
+    """Save the figure as a PNG at :data:`PNG_DPI` and as an SVG beside it (``svg_name``),
+    each under a temporary name and renamed into place; no time stamp or creator in either."""
+    svg = Path(svg_name(path))
+    tmp_png = path.with_name(f".{path.name}.partial")
+    tmp_svg = svg.with_name(f".{svg.name}.partial")
     try:
-        fig.savefig(tmp, format="png", dpi=DPI, metadata={"Software": None})
-        os.replace(tmp, path)
+        fig.savefig(tmp_png, format="png", dpi=PNG_DPI, metadata={"Software": None})
+        buffer = io.StringIO()
+        fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
+        tmp_svg.write_text(stable_ids(buffer.getvalue()), encoding="utf-8")
+        os.replace(tmp_png, path)
+        os.replace(tmp_svg, svg)
     except BaseException:
-        tmp.unlink(missing_ok=True)
+        tmp_png.unlink(missing_ok=True)
+        tmp_svg.unlink(missing_ok=True)
         raise
 
 
