@@ -16,6 +16,7 @@ The report's figures:
   :mod:`prespec.report.tipping`);
 - ``figures/bayes-<id>.png`` and ``figures/oc-<id>.png``: the posterior densities and the
   operating characteristics of a Bayesian hypothesis (drawn by :mod:`prespec.report.bayes`);
+- ``figures/flow.png``: the participant flow by group (drawn by :mod:`prespec.report.flow`);
 - ``figures/multiplicity-graph.png``: for the graphical procedure (Bretz et al., Statistics in
   Medicine 2009), the hypotheses as nodes on a circle with their initial weights, and an
   arrow with its weight for each transition.
@@ -153,6 +154,9 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
 
     jobs += bayes_jobs(results)
     if not blinded:
+        from prespec.report.flow import flow_jobs
+
+        jobs += flow_jobs(results)
         from prespec.report.families import family_jobs
 
         jobs += family_jobs(results)

@@ -217,7 +217,9 @@ def population(results: Mapping[str, Any]) -> str:
         if analysed is not None:
             rows.append(("Analysed in total",
                          fmt_thousands(number(analysed, "analysed_total"))))
-    return out + fields(rows)
+    from prespec.report.flow import flow_html
+
+    return out + fields(rows) + flow_html(results)
 
 
 def outcomes(results: Mapping[str, Any]) -> list[tuple[str, str, str]]:
