@@ -168,42 +168,38 @@ class FlowJob:
     steps: tuple[Step, ...]
 
     def draw(self) -> Figure:
-        from prespec.report.figures import wrapped
+        from prespec.report.figures import _right_labels, wrapped
 
-        labels = [wrapped(g, 24) for g in self.groups]
-        lines = max([lab.count("\n") + 1 for lab in labels], default=1)
-        step = max(1.0, 0.55 * lines)
-        fig = new_figure(1.9 + 0.5 * step * max(len(self.groups), 1))
-        ax = fig.add_subplot()
-        ys = [step * i for i in range(len(self.groups))][::-1]
-        parts = [s for s in self.steps if s.kind in ("population", "excluded")]
-        parts = [parts[-1], *parts[:-1]]  # the population first, from the left
-        shades = ["#3b6ea5", "#c98b2b", "#b04a4a", "#7c5aa6", "#5c8a5c", "#999999"]
-        hatches = ["", "//", "\\\\", "xx", "..", "--"]
-        for k, part in enumerate(parts):
-            lefts = [sum((p.counts[i] or 0) for p in parts[:k]) for i in range(len(self.groups))]
-            widths = [part.counts[i] or 0 for i in range(len(self.groups))]
-            name = "analysis population" if part.kind == "population" else (
-                f"{part.step}: {part.detail}")
-            ax.barh(ys, widths, left=lefts, height=0.6 * step,
-                    color=shades[k % len(shades)], hatch=hatches[k % len(hatches)],
-                    edgecolor="white", linewidth=0.6, label=wrapped(name, 60))
         reads = next(s for s in self.steps if s.kind == "read").counts
+        bars = list(range(len(self.groups)))  # the plan's groups, then any other value read
+        if reads[-1]:
+            bars.append(len(self.groups))
+        labels = [wrapped(g, 24) for g in (*self.groups, OTHER)]
+        lines = max([labels[i].count("\n") + 1 for i in bars], default=1)
+        step = max(1.0, 0.55 * lines)
+        fig = new_figure(1.9 + 0.5 * step * max(len(bars), 1))
+        ax = fig.add_subplot()
+        ys = [step * i for i in range(len(bars))][::-1]
+        for k, (part, name, shade, hatch) in enumerate(self._parts()):
+            lefts = [sum(p.counts[i] or 0 for p, *_ in self._parts()[:k]) for i in bars]
+            ax.barh(ys, [part.counts[i] or 0 for i in bars], left=lefts, height=0.6 * step,
+                    color=shade, hatch=hatch, edgecolor="white", linewidth=0.6,
+                    label=wrapped(name, 60))
         analysed = [s for s in self.steps if s.kind == "analysed"]
         right = []
-        for i in range(len(self.groups)):
-            outcome_parts = [f"{s.step.split(':')[0].removeprefix('outcome ')} "
-                             f"{fmt_count(s.counts[i])}" for s in analysed]
-            right.append(f"read {fmt_count(reads[i])}\nanalysed: " + ", ".join(outcome_parts)
-                         if outcome_parts else f"read {fmt_count(reads[i])}")
-        ax.set_yticks(ys, labels)
+        for i in bars:
+            shown = [f"read {fmt_count(reads[i])}"]
+            if i < len(self.groups) and analysed:
+                shown.append("analysed: " + ", ".join(
+                    f"{s.step.split(':')[0].removeprefix('outcome ')} {fmt_count(s.counts[i])}"
+                    for s in analysed))
+            right.append("\n".join(wrapped(line, 40) for line in shown))
+        ax.set_yticks(ys, [labels[i] for i in bars])
         ax.tick_params(axis="y", length=0)
-        from prespec.report.figures import _right_labels
-
-        _right_labels(ax, ys, [wrapped(r, 40) for r in right])
-        most = max([r or 0 for r in reads[:len(self.groups)]], default=0)
+        _right_labels(ax, ys, right)
+        most = max([reads[i] or 0 for i in bars], default=0)
         ax.set_xlim(0, max(most, 1) * 1.02)
-        ax.set_ylim(-0.6 * step, step * (len(self.groups) - 1) + 0.6 * step)
+        ax.set_ylim(-0.6 * step, step * (len(bars) - 1) + 0.6 * step)
         ax.grid(axis="x", color="#dddddd", linewidth=0.8)
         ax.set_axisbelow(True)
         ax.set_xlabel("rows of the data")
@@ -211,6 +207,31 @@ class FlowJob:
         fig.legend(loc="outside lower center", ncols=1, frameon=False, fontsize=8.5,
                    labelcolor=LINE)
         return fig
+
+    def _parts(self) -> list[tuple[Step, str, str, str]]:
+        """The segments of each bar from the left: the analysis population (with one
+        outcome: split into outcome known and missing), then each condition's rows left out,
+        then the rows outside the groups; each with its legend label, colour and hatch."""
+        population = next(s for s in self.steps if s.kind == "population")
+        parts = [(population, "analysis population", "#3b6ea5", "")]
+        missing = [s for s in self.steps if s.kind == "missing"]
+        if len(missing) == 1:  # one outcome: the population split by a known outcome or not
+            gap = missing[0]
+            known = tuple(None if p is None or m is None else p - m
+                          for p, m in zip(population.counts, gap.counts, strict=True))
+            parts = [(Step("outcome known", "", known, "known"),
+                      "analysis population, outcome known", "#3b6ea5", ""),
+                     (gap, f"analysis population, outcome missing: {gap.detail}", "#9db7d5",
+                      "..")]
+        left_out = [("#c98b2b", "//"), ("#b04a4a", "\\\\"), ("#7c5aa6", "xx"),
+                    ("#5c8a5c", "oo"), ("#999999", "--")]
+        dropped = [s for s in self.steps if s.kind in ("excluded", "outside")]
+        for j, part in enumerate(dropped):
+            shade, hatch = left_out[j % len(left_out)]
+            if part.kind == "outside":
+                shade, hatch = "#6b6b6b", "++"
+            parts.append((part, f"{part.step}: {part.detail}", shade, hatch))
+        return parts
 
 
 def flow_jobs(results: Mapping[str, Any]) -> list[tuple[str, Any]]:
