@@ -427,28 +427,31 @@ def direction(measure: str, rows: Sequence[_EstimateRow]) -> str:
     return f"\u2190 {left}   |   {right} \u2192"
 
 
-def spread_ticks(ax: Axes) -> None:
-    """Thin the x-axis ticks until no two labels overlap (nor come within a small gap),
-    measured with the figure's renderer at its final layout: at any data range, including a
-    tiny difference whose labels (−0.10, −0.05) would otherwise touch."""
+def spread_ticks(fig: Figure, axes: Sequence[Axes]) -> None:
+    """Thin the x-axis ticks of ``axes`` until no two labels overlap (nor come within six
+    points), measured with the figure's renderer at its final layout: at any data range,
+    including a tiny difference whose labels (−0.10, −0.05) would otherwise touch. One layout
+    per round for all the axes; every other tick is dropped from an axis whose labels touch."""
     from matplotlib.ticker import FixedLocator
 
-    fig = ax.get_figure()
     renderer = fig.canvas.get_renderer()
+    gap = 6.0 * fig.dpi / 72.0
     for _ in range(8):
         fig.draw_without_rendering()
-        lo, hi = sorted(ax.get_xlim())
-        labels = [(t.get_loc(), t.label1) for t in ax.xaxis.get_major_ticks()
-                  if lo <= t.get_loc() <= hi and t.label1.get_visible()
-                  and t.label1.get_text()]
-        boxes = sorted(((label.get_window_extent(renderer), loc) for loc, label in labels),
-                       key=lambda b: b[0].x0)
-        gap = 6.0 * fig.dpi / 72.0  # six points between two labels
-        if all(a.x1 + gap <= b.x0 for (a, _), (b, _) in itertools.pairwise(boxes)):
+        crowded = False
+        for ax in axes:
+            lo, hi = sorted(ax.get_xlim())
+            boxes = sorted(((t.label1.get_window_extent(renderer), t.get_loc())
+                            for t in ax.xaxis.get_major_ticks()
+                            if lo <= t.get_loc() <= hi and t.label1.get_visible()
+                            and t.label1.get_text()), key=lambda b: b[0].x0)
+            if all(a.x1 + gap <= b.x0 for (a, _), (b, _) in itertools.pairwise(boxes)):
+                continue
+            crowded = True
+            locs = [loc for _, loc in boxes]
+            ax.xaxis.set_major_locator(FixedLocator(locs[::2] if len(locs) > 2 else locs[:1]))
+        if not crowded:
             return
-        locs = [loc for _, loc in boxes]
-        keep = locs[::2] if len(locs) > 2 else locs[:1]
-        ax.xaxis.set_major_locator(FixedLocator(keep))
 
 
 @dataclass(frozen=True)
@@ -491,8 +494,7 @@ class _DifferencesJob:
                                   label="Bayesian: posterior mean, credible interval"))
         fig.legend(handles=handles, loc="outside lower center", ncols=2, frameon=False,
                    fontsize=9)
-        for ax in axes:
-            spread_ticks(ax)
+        spread_ticks(fig, list(axes))
         return fig
 
     @staticmethod
