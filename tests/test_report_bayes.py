@@ -537,7 +537,8 @@ def test_a_bayes_table_per_bayesian_hypothesis(tmp_path: Path) -> None:
     assert len(_rows(tmp_path / bayes_table("H7"))) == 4  # header, prior, posterior, decision
     names = sorted(p.name for p in (tmp_path / "tables").iterdir())
     assert names == sorted(["H4.csv", "H7.csv", "bayes-H4.csv", "bayes-H7.csv",
-                            "groups-infection.csv", "groups-reopening.csv"])
+                            "groups-infection.csv", "groups-reopening.csv", "results.csv",
+                            "statistics.csv"])
 
 
 def test_a_hostile_group_cannot_become_a_formula(tmp_path: Path) -> None:

@@ -513,10 +513,10 @@ def test_extended_report_shows_every_new_part_in_order(extended_report: Path) ->
     positions = [page.index(m) for m in marks]
     assert positions == sorted(positions)
     assert html.escape(HOSTILE_ATTR, quote=False) in page and HOSTILE_ATTR not in page
-    assert sorted(p.name for p in (extended_report / "figures").iterdir()) == [
-        "differences.png", "proportions-infection.png", "proportions-reopening.png",
-        "tipping-H1.png", "tipping-H2.png",
-    ]
+    assert sorted(p.name for p in (extended_report / "figures").iterdir()) == sorted(
+        f"{stem}.{kind}" for kind in ("png", "svg") for stem in (
+            "differences", "proportions-infection", "proportions-reopening", "tipping-H1",
+            "tipping-H2"))
 
 
 def test_extended_report_embeds_the_tipping_figures_after_their_hypothesis(
