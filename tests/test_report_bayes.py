@@ -422,7 +422,7 @@ def test_the_figures_are_written_as_pngs(tmp_path: Path) -> None:
     assert "figures/oc-H7.png" not in names  # no operating characteristics, no figure
     for name in ("bayes-H4.png", "oc-H4.png", "bayes-H7.png"):
         image = _png(tmp_path / "figures" / name)
-        assert image.shape[1] == 800 and image.shape[0] > 300
+        assert image.shape[1] == 1600 and image.shape[0] > 600  # 8 inches at 200 dpi
     assert (tmp_path / "figures" / "bayes-H4.png").stat().st_size > 20_000
 
 

@@ -369,7 +369,7 @@ def test_big_grid_figure_is_readable_and_deterministic(tmp_path: Path) -> None:
     assert b"tIME" not in first[0].read_bytes() and b"Software" not in first[0].read_bytes()
     img = imread(first[0])
     height, width = img.shape[:2]
-    assert width == 800 and 600 <= height <= 800
+    assert width == 1600 and 1200 <= height <= 1600  # 200 dpi
     pixels = np.unique((img[..., :3] * 255).round().astype(int).reshape(-1, 3), axis=0)
     colours = {tuple(int(c) for c in px) for px in pixels}
     for colour in (REJECT_COLOUR, KEEP_COLOUR):
