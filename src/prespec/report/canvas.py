@@ -98,6 +98,7 @@ def save_png(fig: Figure, path: Path) -> None:
     tmp_svg = svg.with_name(f".{svg.name}.partial")
     try:
         fig.savefig(tmp_png, format="png", dpi=PNG_DPI, metadata={"Software": None})
+        fig.set_layout_engine("none")  # the layout the PNG was drawn with, not computed again
         buffer = io.StringIO()
         fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
         tmp_svg.write_text(stable_ids(buffer.getvalue()), encoding="utf-8")
