@@ -443,7 +443,6 @@ def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
     flow = None if failed is None else _flow(at, failed, group_col, analysed_rows, groups,
                                              len(spec.include))
     return Prepared(
-        flow=flow,
         rows_read=rows_read,
         excluded_by_filter=excluded_by_filter,
         excluded_group=at.count(stray),
@@ -454,6 +453,7 @@ def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
         strata=strata,
         by_hypothesis=by_hypothesis,
         units=units,
+        flow=flow,
     )
 
 
@@ -475,8 +475,8 @@ def _flow(at: _Rows, failed: np.ndarray, group_col: np.ndarray, analysed: np.nda
 
 
 def condition_words(op: str, arg: Any) -> str:
-    """A population condition in words, as the flow names it: ``in yes, y``, ``between 18
-    and 90``, ``is blank``."""
+    """A population condition in words, as the flow names it: ``is one of: yes, y``,
+    ``between 18 and 90``, ``is blank``."""
     def shown(values: Any) -> str:
         return ", ".join(as_text(v) for v in values)
 
@@ -507,11 +507,11 @@ def flow_entry(plan: Plan, flow: Flow) -> dict[str, Any]:
         op, arg = cond.op()
         conditions.append({"column": cond.column, "condition": condition_words(op, arg),
                            "excluded": counts(excluded)})
-    read_other = flow.read[None] - sum(c[None] for c in flow.excluded)
+    outside = flow.read[None] - sum(c[None] for c in flow.excluded)  # kept, yet no group
     return {
         "read": counts(flow.read),
         "conditions": conditions,
-        "outside_groups": read_other,
+        "outside_groups": outside,
         "analysed": dict(flow.analysed),
         "outcomes": {name: {"missing": o.missing, "favourable": o.favourable}
                      for name, o in plan.outcomes.items()},

@@ -17,6 +17,9 @@ from typing import TYPE_CHECKING, Any
 from prespec.common.shown import visible
 
 if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
 FIGURES = "figures"
@@ -27,6 +30,7 @@ INK = "#222222"
 LINE = "#555555"
 GUIDE = "#999999"
 LABEL_CHARS = 48
+LABEL_WIDTH = 30  # characters per line of a wrapped label
 
 _SAFE_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,79}")
 
@@ -114,3 +118,21 @@ def shorten(label: str, limit: int = LABEL_CHARS) -> str:
     """A label on one line, control characters visible, cut with ``…`` past ``limit``."""
     label = " ".join(visible(label).split())
     return label if len(label) <= limit else label[: limit - 1] + "…"
+
+
+def wrapped(label: str, width: int = LABEL_WIDTH) -> str:
+    """A label in full over as many lines as it needs: control characters visible, words kept
+    whole where they fit, a word longer than a line broken across lines (nothing is cut)."""
+    import textwrap
+
+    flat = " ".join(visible(label).split())
+    return "\n".join(textwrap.wrap(flat, width, break_long_words=True,
+                                    break_on_hyphens=False)) or flat
+
+
+def right_labels(ax: Axes, ticks: Sequence[float], labels: Sequence[str]) -> None:
+    """Numbers beside each row, as tick labels of a right-hand axis (kept inside the layout)."""
+    right = ax.secondary_yaxis("right")
+    right.set_yticks(list(ticks), list(labels))
+    right.tick_params(length=0)
+    right.spines["right"].set_visible(False)

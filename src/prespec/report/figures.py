@@ -44,7 +44,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from prespec.common.shown import visible
 from prespec.errors import PrespecError
 from prespec.report.canvas import (
     FIGURES,
@@ -53,9 +52,11 @@ from prespec.report.canvas import (
     LINE,
     RC,
     new_figure,
+    right_labels,
     safe_stem,
     save_png,
     shorten,
+    wrapped,
 )
 from prespec.report.tipping import (
     TippingJob,
@@ -177,14 +178,6 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
     return written
 
 
-def _right_labels(ax: Axes, ticks: Sequence[float], labels: Sequence[str]) -> None:
-    """Numbers beside each row, as tick labels of a right-hand axis (kept inside the layout)."""
-    right = ax.secondary_yaxis("right")
-    right.set_yticks(list(ticks), list(labels))
-    right.tick_params(length=0)
-    right.spines["right"].set_visible(False)
-
-
 def _interval_line(
     ax: Axes, y: float, low: float | None, high: float | None, value: float | None
 ) -> None:
@@ -245,7 +238,7 @@ class _ProportionsJob:
                 methods.add(f"{fmt_level(level)} {method}".strip())
         ax.set_yticks(ys, names)
         ax.tick_params(axis="y", length=0)
-        _right_labels(ax, ys, right)
+        right_labels(ax, ys, right)
         upper = max([v for e in entries for v in (e[3], e[5]) if v is not None], default=1.0)
         ax.set_xlim(0.0, min(1.0, max(0.02, upper * 1.15)))
         ax.set_ylim(-0.7 * step, step * (len(entries) - 1) + 0.7 * step)
@@ -271,19 +264,6 @@ KINDS: dict[str, tuple[str, str, str, str, str]] = {
     "not-tested": ("follow-up, not tested (gate closed)", "x", GUIDE, GUIDE, "dashed"),
     "exploratory": ("exploratory (nominal p, no claim)", "o", "white", LINE, "solid"),
 }
-LABEL_WIDTH = 30  # characters per line of a row's label (wrapped, never cut)
-
-
-def wrapped(label: str, width: int = LABEL_WIDTH) -> str:
-    """A label in full over as many lines as it needs: control characters visible, words kept
-    whole where they fit, a word longer than a line broken across lines (nothing is cut)."""
-    import textwrap
-
-    flat = " ".join(visible(label).split())
-    return "\n".join(textwrap.wrap(flat, width, break_long_words=True,
-                                    break_on_hyphens=False)) or flat
-
-
 @dataclass(frozen=True)
 class _EstimateRow:
     label: str
@@ -409,11 +389,14 @@ def direction(measure: str, rows: Sequence[_EstimateRow]) -> str:
     """The line under a panel's axis saying which side favours whom: by the outcomes'
     favourable value when every row of the panel knows it and they agree, else by the
     events alone (which side has fewer events in the first group named)."""
+    if measure not in _MEASURES:
+        return ""  # a measure whose sign this figure does not know: no direction claimed
     known = {r.favourable for r in rows}
     favourable = known.pop() if len(known) == 1 else None
     if measure == "proportion":
         if favourable is None:
-            return "\u2190 fewer events than the null rate   |   more events than the null rate \u2192"
+            return ("\u2190 fewer events than the null rate   |   "
+                    "more events than the null rate \u2192")
         better = "fewer" if favourable == "no-event" else "more"
         left, right = ("favourable", "unfavourable") if better == "fewer" else (
             "unfavourable", "favourable")
@@ -554,10 +537,10 @@ class _DifferencesJob:
         ax.set_yticks(ys, [r.label for r in rows])
         ax.tick_params(axis="y", length=0)
         ax.set_ylim(-0.5, span - 0.5)
-        _right_labels(ax, ys, [_estimate_label(r) for r in rows])
+        right_labels(ax, ys, [_estimate_label(r) for r in rows])
         ax.grid(axis="x", color="#eeeeee", linewidth=0.8)
         ax.set_axisbelow(True)
-        ax.set_xlabel(f"{label}\n{direction(measure, rows)}")
+        ax.set_xlabel("\n".join(line for line in (label, direction(measure, rows)) if line))
         return drew_margin, drew_rate, null is not None
 
 

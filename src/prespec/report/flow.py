@@ -19,7 +19,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from prespec.common.shown import csv_writer
-from prespec.report.canvas import FIGURES, INK, LINE, new_figure
+from prespec.report.canvas import FIGURES, INK, LINE, new_figure, right_labels, wrapped
 from prespec.report.markup import esc, table
 from prespec.report.tablenames import FLOW_TABLE
 from prespec.report.values import fmt_count, items, mapping, number, text
@@ -168,8 +168,6 @@ class FlowJob:
     steps: tuple[Step, ...]
 
     def draw(self) -> Figure:
-        from prespec.report.figures import _right_labels, wrapped
-
         reads = next(s for s in self.steps if s.kind == "read").counts
         bars = list(range(len(self.groups)))  # the plan's groups, then any other value read
         if reads[-1]:
@@ -196,7 +194,7 @@ class FlowJob:
             right.append("\n".join(wrapped(line, 40) for line in shown))
         ax.set_yticks(ys, [labels[i] for i in bars])
         ax.tick_params(axis="y", length=0)
-        _right_labels(ax, ys, right)
+        right_labels(ax, ys, right)
         most = max([reads[i] or 0 for i in bars], default=0)
         ax.set_xlim(0, max(most, 1) * 1.02)
         ax.set_ylim(-0.6 * step, step * (len(bars) - 1) + 0.6 * step)
