@@ -97,17 +97,17 @@ def test_results_csv_has_one_row_per_hypothesis_follow_up_and_member(
     by_id = {r["hypothesis"]: r for r in rows}
     assert by_id["H1"]["statistic_name"] == "chi-square" and by_id["H1"]["result_kind"] == \
         "confirmatory"
-    assert by_id["H2"]["statistic_name"] == "z" and by_id["H2"]["decision"] == \
-        "non-inferiority shown"
+    assert by_id["H2"]["statistic_name"] == "z" and by_id["H2"]["decision"] == "reject H0"
+    assert by_id["H2"]["comparison"] == "non-inferiority"
     assert by_id["H5"]["statistic_name"] == "" and by_id["H5"]["adjustment"] == \
         "graphical (main family)"
     assert by_id["H5:alginate-vs-gauze"]["result_kind"] == "follow-up"
     assert by_id["H5:alginate-vs-gauze"]["adjustment"] == "within family H5 pairwise"
     closed = by_id["H7:gauze-vs-negative-pressure"]
     assert (closed["result_kind"], closed["decision"]) == ("not-tested",
-                                                          "not tested: its gate is closed")
+                                                          "not tested (gate closed)")
     assert by_id["H3"]["margin"] == "0.8 to 1.25"
-    assert by_id["H9"]["decision"] == "no decision: exploratory, nominal p only"
+    assert by_id["H9"]["decision"] == "no decision (exploratory)"
     assert by_id["H8"]["groups"] == f"{HOSTILE_SCRIPT} vs gauze"  # shown, never a formula
     for row, member in zip(rows[len(results["hypotheses"]):], members, strict=True):
         assert row["member_of"] == "AE" and row["result_kind"] == "family-member"
@@ -180,13 +180,12 @@ def test_the_tables_are_in_the_manifest_and_flow_only_with_a_flow_block(tmp_path
 
 
 @pytest.mark.parametrize(("fields", "words"), [
-    ({"reject": True, "comparison": "superiority"}, "H0 rejected"),
-    ({"reject": False, "comparison": "superiority"}, "H0 not rejected"),
-    ({"reject": True, "comparison": "equivalence"}, "equivalence shown"),
-    ({"reject": False, "comparison": "non-inferiority"}, "non-inferiority not shown"),
-    ({"reject": None, "p_value": 0.2}, "no decision: exploratory, nominal p only"),
+    ({"reject": True, "comparison": "superiority"}, "reject H0"),
+    ({"reject": False, "comparison": "superiority"}, "do not reject H0"),
+    ({"reject": True, "comparison": "equivalence"}, "reject H0"),
+    ({"reject": None, "p_value": 0.2}, "no decision (exploratory)"),
     ({"reject": None, "p_value": None}, "not computable"),
-    ({"reject": True, "gate": "closed"}, "not tested: its gate is closed"),
+    ({"reject": True, "gate": "closed"}, "not tested (gate closed)"),
     ({"reject": True, "test": "posterior-probability"}, "rule met"),
     ({"reject": False, "test": "posterior-probability"}, "rule not met"),
 ])

@@ -112,23 +112,17 @@ def _compared(compare: Any) -> str:
 
 
 def decision(hyp: dict[str, Any]) -> str:
-    """The decision in words, as results.json records it."""
+    """The decision in words, as results.json records it (the words of the report's page:
+    ``reject H0``, ``do not reject H0``, ``not tested (gate closed)``, ``rule met``, …)."""
     if hyp.get("gate") == "closed":
-        return "not tested: its gate is closed"
+        return "not tested (gate closed)"
     reject = hyp.get("reject")
     if hyp.get("test") == "posterior-probability":
         return {True: "rule met", False: "rule not met"}.get(reject, "not computable")
     if reject is None:
-        if hyp.get("p_value") is None:
-            return "not computable"
-        return "no decision: exploratory, nominal p only"
-    shown = {"non-inferiority": "non-inferiority shown", "equivalence": "equivalence shown",
-             "superiority": "H0 rejected"}.get(str(hyp.get("comparison")), "H0 rejected")
-    if reject:
-        return shown
-    return {"non-inferiority": "non-inferiority not shown",
-            "equivalence": "equivalence not shown"}.get(str(hyp.get("comparison")),
-                                                       "H0 not rejected")
+        return "no decision (exploratory)" if hyp.get("p_value") is not None else (
+            "not computable")
+    return "reject H0" if reject else "do not reject H0"
 
 
 def _margin(value: Any) -> Any:
