@@ -133,6 +133,8 @@ def test_the_figure_shows_each_group_and_the_other_values_whole() -> None:
             assert box.y0 >= -0.5 and box.y1 <= fig.bbox.y1 + 0.5, artist.get_text()
             texts.append(" ".join(artist.get_text().split()))
     assert long in texts and OTHER in texts  # wrapped, never cut; the other values shown
+    assert "read 207, left out 7 analysed: infection 196, reopening 196" in texts
+    assert "read 4, left out 4" in texts
     legend = [t.get_text().replace("\n", " ") for leg in fig.legends for t in leg.get_texts()]
     assert legend[0] == "analysis population"  # two outcomes: the population is not split
     assert "left out by condition 1: kept when consented is one of: yes" in legend

@@ -185,8 +185,10 @@ class FlowJob:
                     label=wrapped(name, 60))
         analysed = [s for s in self.steps if s.kind == "analysed"]
         right = []
+        population = next(s for s in self.steps if s.kind == "population").counts
         for i in bars:
-            shown = [f"read {fmt_count(reads[i])}"]
+            out = (reads[i] or 0) - (population[i] or 0)
+            shown = [f"read {fmt_count(reads[i])}, left out {fmt_count(out)}"]
             if i < len(self.groups) and analysed:
                 shown.append("analysed: " + ", ".join(
                     f"{s.step.split(':')[0].removeprefix('outcome ')} {fmt_count(s.counts[i])}"
