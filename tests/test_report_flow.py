@@ -119,7 +119,7 @@ def test_the_figure_shows_each_group_and_the_other_values_whole() -> None:
     for part in (res["flow"]["read"], *(c["excluded"] for c in res["flow"]["conditions"])):
         part["groups"][long] = part["groups"].pop("gauze")
     res["flow"]["analysed"][long] = res["flow"]["analysed"].pop("gauze")
-    res["groups"]["infection"][0]["group"] = long
+    res["groups"]["infection"][0]["group"] = res["groups"]["reopening"][0]["group"] = long
     job = FlowJob(tuple(flow_groups(res)), tuple(flow_steps(res)))
     with matplotlib.style.context("default"), matplotlib.rc_context(RC):
         fig = job.draw()
