@@ -212,3 +212,15 @@ def test_a_demo_run_writes_tables_equal_to_its_results(tmp_path: Path) -> None:
     flow = _read(report / FLOW_TABLE)
     assert flow[0]["step"] == "rows read" and _value(flow[0]["total"]) == \
         results["population"]["rows_read"]
+
+
+def test_the_adjustment_names_the_procedure_or_the_looks() -> None:
+    from prespec.report.tables import _adjustment
+
+    res = {"multiplicity": "holm"}
+    assert _adjustment(res, {"p_adjusted": 0.01, "family": "main"}) == "holm (main family)"
+    assert _adjustment(res, {"p_adjusted": 0.01, "family": "H5 pairwise"}) == \
+        "within family H5 pairwise"
+    assert _adjustment(res, {"p_adjusted": 0.01, "looks": {"looks": []}}) == \
+        "stage-wise, at the boundaries of the interim looks"
+    assert _adjustment(res, {"p_adjusted": None, "family": "main"}) == ""

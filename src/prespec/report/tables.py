@@ -132,10 +132,12 @@ def _margin(value: Any) -> Any:
 
 
 def _adjustment(results: dict[str, Any], hyp: dict[str, Any]) -> str:
-    """How ``p_adjusted`` was made: the plan's procedure for the main family, else the
-    follow-up family's name; empty where there is no adjusted p."""
+    """How ``p_adjusted`` was made: stage-wise under interim looks, the plan's procedure for
+    the main family, else the follow-up family's name; empty where there is no adjusted p."""
     if hyp.get("p_adjusted") is None:
         return ""
+    if hyp.get("looks") is not None:
+        return "stage-wise, at the boundaries of the interim looks"
     family = hyp.get("family")
     if family in (None, "main"):
         procedure = results.get("multiplicity")
