@@ -181,3 +181,39 @@ def test_only_ascii_digits_make_a_number(cell: str, number: float | None) -> Non
     assert (re.fullmatch(NUMBER_PATTERN, cell.strip()) is not None) == (number is not None)
     if cell.strip().isdecimal() and number is None:  # another script's digits
         assert cell not in ValueSet([float(cell)])  # float() reads them; the rule does not
+
+
+def test_flow_counts_each_row_under_the_first_condition_it_fails(tmp_path: Path) -> None:
+    """The participant flow of CSV by hand: condition 1 ok = yes, condition 2 age 20 to 75."""
+    from prespec.data.prepare import Flow
+
+    plan = make_plan(include=[Cond(column="ok", equals="yes"),
+                              Cond(column="age", between=[20, 75])])
+    prepared = prepare(read_data(write(tmp_path, CSV)), plan, "d.csv")
+    assert prepared.flow == Flow(
+        # a: pid 1-3; b: 4, 5, 6, 9; other: 7 (c), 8 (blank)
+        read={"a": 3, "b": 4, None: 2},
+        excluded=({"a": 1, "b": 0, None: 0},  # ok = no: pid 3 (fails age too: counted once)
+                  {"a": 0, "b": 2, None: 0}),  # age: pid 6 (80), pid 9 (19)
+        analysed={"a": 2, "b": 2},
+    )
+    assert prepared.excluded_by_filter == 3 and prepared.excluded_group == 2
+    # read = left out + outside the groups + analysed, per group and in total
+    total = sum(prepared.flow.read.values())
+    assert total == prepared.rows_read == 9
+    assert total == prepared.excluded_by_filter + prepared.excluded_group + prepared.analysed
+
+
+def test_flow_without_conditions_and_from_an_aggregate_without_the_failed_column() -> None:
+    from prespec.data.prepare import KEEP_COLUMN, WEIGHT_COLUMN
+
+    plan = make_plan()
+    frame = pd.DataFrame({"pid": ["1", "2", "3"], "arm": ["a", "b", "x"], "y": [1, 0, 1]})
+    flow = prepare(frame, plan, "d.csv").flow
+    assert flow is not None and flow.excluded == ()
+    assert flow.read == {"a": 1, "b": 1, None: 1} and flow.analysed == {"a": 1, "b": 1}
+    # an aggregate that does not say which condition failed: no flow rather than a wrong one
+    weighted = pd.DataFrame({KEEP_COLUMN: [True, False], "arm": ["a", None], "y": ["1", None],
+                             WEIGHT_COLUMN: [5, 2]})
+    plan = make_plan(include=[Cond(column="ok", equals="yes")])
+    assert prepare(weighted, plan, "d.csv").flow is None

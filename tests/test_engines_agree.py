@@ -207,7 +207,7 @@ def test_results_equal_pandas(outcomes: dict[tuple[str, str], Any], name: str,
                               engine: str) -> None:
     _, reference = outcomes[(name, "pandas")]
     _, results = outcomes[(name, engine)]
-    for key in ("population", "groups", "hypotheses", "deviations", "notes"):
+    for key in ("population", "flow", "groups", "hypotheses", "deviations", "notes"):
         assert json.dumps(results[key], sort_keys=True) == json.dumps(reference[key],
                                                                       sort_keys=True), key
     assert results["engine"] == engine and reference["engine"] == "pandas"
@@ -273,6 +273,27 @@ def test_the_hostile_counts_are_the_hand_counts(outcomes: dict[tuple[str, str], 
         h3 = prepared.by_hypothesis["H3"].counts
         assert (h3.of("t").events, h3.of("t").total) == (6, 6), engine
         assert (h3.of("c").events, h3.of("c").total) == (1, 5), engine
+
+
+def test_the_hostile_flow_is_the_hand_count(outcomes: dict[tuple[str, str], Any]) -> None:
+    """The participant flow of HOSTILE_ROWS by hand, for every engine: each row left out
+    under the first condition it fails (consent, then age, then withdrawn)."""
+    for engine in ENGINES:
+        flow = outcomes[("hostile", engine)][1]["flow"]
+        # t: P01-P12, P26, P28; c: P13-P20, P24, P25, P27, P29, P30; other: P21-P23
+        assert flow["read"] == {"groups": {"t": 14, "c": 13}, "other": 3}, engine
+        excluded = [c["excluded"] for c in flow["conditions"]]
+        assert excluded == [
+            {"groups": {"t": 2, "c": 1}, "other": 0},  # consent: P06, P26 (t); P27 (c)
+            # age: P04 (10), P05 (abc), P28 (blank) (t); P15, P16, P17, P29 (c)
+            {"groups": {"t": 3, "c": 4}, "other": 0},
+            {"groups": {"t": 1, "c": 0}, "other": 0},  # withdrawn: P07 (t)
+        ], engine
+        assert [c["condition"] for c in flow["conditions"]] == [
+            f"is one of: yes, {INJECTION}", "between 18 and 80", "is blank"], engine
+        assert flow["outside_groups"] == 3 and flow["analysed"] == {"t": 8, "c": 8}, engine
+        assert flow["outcomes"] == {"heal": {"missing": "exclude", "favourable": None},
+                                    "leak": {"missing": "no-event", "favourable": None}}
 
 
 def test_the_injection_shaped_value_matches_as_data_and_the_table_survives(

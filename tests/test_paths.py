@@ -65,7 +65,8 @@ def test_table_files_are_unique_and_name_their_labels(tmp_path: Path) -> None:
     out = api.run(plan, data)
     tables = out.folder / "tables"
     assert sorted(p.name for p in tables.iterdir()) == [
-        "H%2B1.csv", "H%2F1.csv", "H_1.csv", "groups-inf%20ection.csv", "groups-inf_ection.csv"]
+        "H%2B1.csv", "H%2F1.csv", "H_1.csv", "flow.csv", "groups-inf%20ection.csv",
+        "groups-inf_ection.csv", "results.csv", "statistics.csv"]
     results = out.results
     by_id = {h["id"]: h for h in results["hypotheses"]}
     for name, hid in (("H%2B1.csv", "H+1"), ("H%2F1.csv", "H/1"), ("H_1.csv", "H_1")):

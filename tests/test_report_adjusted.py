@@ -463,7 +463,8 @@ def test_a_model_table_per_adjusted_hypothesis(tmp_path: Path) -> None:
     # no model after a fallback, and none for a stratified test: no model table
     names = sorted(p.name for p in (tmp_path / "tables").iterdir())
     assert names == sorted(["H1.csv", "H2.csv", "H3.csv", "model-H1.csv",
-                            "groups-infection.csv", "groups-reopening.csv"])
+                            "groups-infection.csv", "groups-reopening.csv", "results.csv",
+                            "statistics.csv"])
 
 
 def test_a_hostile_term_cannot_become_a_formula(tmp_path: Path) -> None:

@@ -422,7 +422,7 @@ def test_the_figures_are_written_as_pngs(tmp_path: Path) -> None:
     assert "figures/oc-H7.png" not in names  # no operating characteristics, no figure
     for name in ("bayes-H4.png", "oc-H4.png", "bayes-H7.png"):
         image = _png(tmp_path / "figures" / name)
-        assert image.shape[1] == 800 and image.shape[0] > 300
+        assert image.shape[1] == 1600 and image.shape[0] > 600  # 8 inches at 200 dpi
     assert (tmp_path / "figures" / "bayes-H4.png").stat().st_size > 20_000
 
 
@@ -537,7 +537,8 @@ def test_a_bayes_table_per_bayesian_hypothesis(tmp_path: Path) -> None:
     assert len(_rows(tmp_path / bayes_table("H7"))) == 4  # header, prior, posterior, decision
     names = sorted(p.name for p in (tmp_path / "tables").iterdir())
     assert names == sorted(["H4.csv", "H7.csv", "bayes-H4.csv", "bayes-H7.csv",
-                            "groups-infection.csv", "groups-reopening.csv"])
+                            "groups-infection.csv", "groups-reopening.csv", "results.csv",
+                            "statistics.csv"])
 
 
 def test_a_hostile_group_cannot_become_a_formula(tmp_path: Path) -> None:

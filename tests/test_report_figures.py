@@ -408,8 +408,9 @@ def test_figures_written_with_deterministic_names(drawn: tuple[Path, list[Path]]
         "figures/differences.png",
     ]
     assert sorted(p.name for p in (folder / "figures").iterdir()) == [
-        "differences.png", "proportions-infection.png", "proportions-reopening.png",
-    ]  # no temporary file left
+        "differences.png", "differences.svg", "proportions-infection.png",
+        "proportions-infection.svg", "proportions-reopening.png", "proportions-reopening.svg",
+    ]  # an SVG beside each PNG, no temporary file left
 
 
 def test_figures_decode_with_sane_shapes(drawn: tuple[Path, list[Path]]) -> None:
@@ -418,7 +419,7 @@ def test_figures_decode_with_sane_shapes(drawn: tuple[Path, list[Path]]) -> None
         assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
         img = imread(path)
         height, width, channels = img.shape
-        assert width == 800  # 8 inches at 100 dpi
+        assert width == 1600  # 8 inches at 200 dpi
         assert 150 <= height <= 2000
         assert channels in (3, 4)
         # Something is drawn: the image is neither blank nor one colour.
@@ -468,7 +469,7 @@ def test_dollar_signs_and_markup_in_titles_are_plain_text(tmp_path: Path) -> Non
     res["hypotheses"][0]["title"] = "Cost $5 vs $10 <i>arm</i>"
     res["groups"]["infection"][0]["group"] = "$x^2$"
     paths = write_figures(res, tmp_path)  # mathtext would fail or render; plain text does not
-    assert all(imread(p).shape[1] == 800 for p in paths)
+    assert all(imread(p).shape[1] == 1600 for p in paths)
 
 
 def test_malformed_results_raise_one_line_error(tmp_path: Path) -> None:
@@ -518,7 +519,7 @@ def _panels(results: dict[str, Any]) -> dict[str, Any]:
     """The forest plot's axes by their x label (drawn in memory, not saved)."""
     with matplotlib.rc_context({"text.parse_math": False}):
         fig = _DifferencesJob(_estimate_rows(results)).draw()
-    return {ax.get_xlabel(): ax for ax in fig.axes if ax.get_xlabel()}, fig
+    return {ax.get_xlabel().split("\n")[0]: ax for ax in fig.axes if ax.get_xlabel()}, fig
 
 
 def _vertical_lines(ax: Any) -> dict[float, str]:
@@ -554,8 +555,9 @@ def test_forest_proportion_panel_has_null_rate_line_and_stays_in_unit_range() ->
     low, high = ax.get_xlim()
     assert 0.0 <= low < 0.0788 and 0.3 < high <= 1.0
     legend = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
-    assert legend == ["primary or secondary", "exploratory (nominal)", "margin",
-                      "null rate (H0)"]
+    assert legend == ["confirmatory (primary or secondary)", "follow-up, tested (gate open)",
+                      "follow-up, not tested (gate closed)", "exploratory (nominal p, no claim)",
+                      "no difference (0, or 1 for a ratio)", "margin", "null rate (H0)"]
 
 
 def test_forest_rows_of_the_full_results() -> None:
@@ -564,11 +566,14 @@ def test_forest_rows_of_the_full_results() -> None:
     assert not any(k.startswith(("H5 ", "H6", "H7 ")) for k in rows)
     assert "H5" not in rows and "H7" not in rows
     closed = rows["H7:gauze-vs-negative-pressure"]
-    assert closed.measure == "risk-ratio"
-    assert closed.label.split("\n")[1].startswith("not tested: Reopening")
+    assert closed.measure == "risk-ratio" and closed.kind == "not-tested"
+    assert closed.label.split("\n")[1:] == ["(not tested: gate closed)",
+                                            "Reopening, gauze vs", "negative-pressure"]
     assert rows["H4"].null_rate == 0.3 and rows["H4"].measure == "proportion"
     assert rows["H3"].margins == (0.8, 1.25)
     h9 = rows["H9 (exploratory)"]
+    assert h9.kind == "exploratory" and rows["H1"].kind == "confirmatory"
+    assert rows["H5:alginate-vs-gauze"].kind == "follow-up"
     assert (h9.value, h9.low, h9.high) == (None, 0.6179, None)
 
 
@@ -606,7 +611,7 @@ def test_graph_figure_written_decodes_and_is_deterministic(tmp_path: Path) -> No
     assert names[-2:] == [DIFFERENCES, MULTIPLICITY_GRAPH]
     graph = tmp_path / "a" / MULTIPLICITY_GRAPH
     img = imread(graph)
-    assert img.shape[:2] == (600, 800)
+    assert img.shape[:2] == (1200, 1600)
     assert np.unique(img[..., :3].reshape(-1, 3), axis=0).shape[0] > 20
     again = write_figures(full_results(), tmp_path / "b")
     assert (tmp_path / "b" / MULTIPLICITY_GRAPH).read_bytes() == graph.read_bytes()
@@ -637,4 +642,136 @@ def test_hostile_labels_in_figures_are_plain_text(tmp_path: Path) -> None:
     hostile = proportions_name(HOSTILE_ATTR)
     assert hostile in [p.relative_to(tmp_path).as_posix() for p in paths]
     assert "<" not in hostile and '"' not in hostile
-    assert all(imread(p).shape[1] == 800 for p in paths)
+    assert all(imread(p).shape[1] == 1600 for p in paths)
+
+
+# --- figures fit for paper: 200 dpi, an SVG beside each, full labels, no colliding ticks -----
+
+
+def _png_dpi(path: Path) -> tuple[float, float]:
+    """The resolution a PNG's pHYs chunk declares, in dots per inch (PNG specification 11.3.5.3:
+    pixels per metre, unit 1)."""
+    import struct
+
+    data = path.read_bytes()
+    at = data.index(b"pHYs")
+    x, y, unit = struct.unpack(">IIB", data[at + 4:at + 13])
+    assert unit == 1
+    return x * 0.0254, y * 0.0254
+
+
+def test_every_figure_is_200_dpi_with_a_parseable_svg_beside_it(tmp_path: Path) -> None:
+    import xml.etree.ElementTree as ET
+
+    paths = write_figures(full_results(), tmp_path / "a")
+    again = write_figures(full_results(), tmp_path / "b")
+    for path, other in zip(paths, again, strict=True):
+        assert _png_dpi(path) == pytest.approx((200.0, 200.0), abs=0.01)
+        svg = path.with_suffix(".svg")
+        root = ET.parse(svg).getroot()
+        assert root.tag == "{http://www.w3.org/2000/svg}svg"
+        assert root.get("width") == "576pt"  # 8 inches
+        text = svg.read_text("utf-8")
+        assert "<dc:date>" not in text and "Matplotlib v" not in text  # no stamp
+        assert other.with_suffix(".svg").read_bytes() == svg.read_bytes()  # same bytes again
+    assert sorted(p.name for p in (tmp_path / "a" / "figures").iterdir()) == sorted(
+        [p.name for p in paths] + [p.with_suffix(".svg").name for p in paths])
+
+
+def _figure_of(results: dict[str, Any]) -> Any:
+    from prespec.report.canvas import RC
+
+    with matplotlib.rc_context(RC):
+        fig = _DifferencesJob(_estimate_rows(results)).draw()
+        fig.draw_without_rendering()
+    return fig
+
+
+def _texts_inside(fig: Any) -> list[str]:
+    """Every visible text of the figure, each asserted to lie inside the figure."""
+    renderer = fig.canvas.get_renderer()
+    box = fig.bbox
+    seen = []
+    for artist in fig.findobj(matplotlib.text.Text):
+        if not artist.get_visible() or not artist.get_text():
+            continue
+        ext = artist.get_window_extent(renderer)
+        assert ext.x0 >= box.x0 - 0.5 and ext.x1 <= box.x1 + 0.5, artist.get_text()
+        assert ext.y0 >= box.y0 - 0.5 and ext.y1 <= box.y1 + 0.5, artist.get_text()
+        seen.append(artist.get_text())
+    return seen
+
+
+def _tick_boxes(fig: Any) -> list[list[Any]]:
+    renderer = fig.canvas.get_renderer()
+    out = []
+    for ax in fig.axes:
+        if not ax.get_xlabel():
+            continue
+        lo, hi = sorted(ax.get_xlim())
+        out.append(sorted((t.label1.get_window_extent(renderer) for t in ax.xaxis.get_major_ticks()
+                           if lo <= t.get_loc() <= hi and t.label1.get_text()),
+                          key=lambda b: b.x0))
+    return out
+
+
+LONG_TITLE = ("Negative-pressure wound therapy against standard sterile gauze dressing in "
+              "adults after elective colorectal surgery, infection within thirty days")
+
+
+@pytest.mark.parametrize(("value", "low", "high"), [
+    (-0.07, -0.11, -0.04),  # a small difference: ticks every 0.025 or 0.05 near each other
+    (-0.0007, -0.0011, -0.0004),  # a tiny one
+    (0.3, -0.9, 0.95),  # nearly the whole range
+    (-12.5, -40.0, 30.0),  # a measure with no natural range
+])
+def test_long_labels_are_whole_and_inside_and_ticks_never_collide(
+        value: float, low: float, high: float) -> None:
+    res = sample_results()
+    res["hypotheses"] = [h for h in res["hypotheses"] if h["id"] in ("H1", "H3", "H5")]
+    res["hypotheses"][0]["title"] = LONG_TITLE
+    res["hypotheses"][0]["id"] = "H1-the-primary-comparison-of-infection-between-two-regimens"
+    res["hypotheses"][0]["estimate"].update({"value": value, "ci": [low, high]})
+    res["hypotheses"][1]["margin"] = None
+    fig = _figure_of(res)
+    shown = " ".join(" ".join(t.split()) for t in _texts_inside(fig))
+    for word in LONG_TITLE.split():
+        assert word in shown  # every word of the title drawn: wrapped, never cut with "…"
+    assert "…" not in shown
+    assert "the-primary-comparison" in shown.replace("\n", "")
+    for boxes in _tick_boxes(fig):
+        assert len(boxes) >= 2
+        for a, b in itertools.pairwise(boxes):
+            assert a.x1 < b.x0, "tick labels overlap"
+
+
+def test_kinds_are_drawn_distinctly_with_a_legend_and_a_direction() -> None:
+    fig = _figure_of(full_results())
+    legend = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
+    assert legend[:4] == ["confirmatory (primary or secondary)", "follow-up, tested (gate open)",
+                          "follow-up, not tested (gate closed)",
+                          "exploratory (nominal p, no claim)"]
+    markers = {(line.get_marker(), line.get_markerfacecolor(), line.get_linestyle())
+               for leg in fig.legends for line in leg.get_lines()[:4]}
+    assert len(markers) == 4  # four kinds, four looks
+    labels = [ax.get_xlabel() for ax in fig.axes if ax.get_xlabel()]
+    assert all("\u2190" in lab and "\u2192" in lab for lab in labels)
+    assert any("fewer events in the first group named" in lab for lab in labels)
+    # the grey line at no difference in each panel of a difference or a ratio
+    refs = [line.get_xdata()[0] for ax in fig.axes for line in ax.get_lines()
+            if line.get_linestyle() == "-" and len(line.get_xdata()) == 2
+            and line.get_xdata()[0] == line.get_xdata()[1]]
+    assert 0.0 in refs and 1.0 in refs
+
+
+@pytest.mark.parametrize(("favourable", "left"), [
+    ("no-event", "favours the first group named"),
+    ("event", "favours the second group named"),
+])
+def test_direction_follows_the_outcomes_favourable_value(favourable: str, left: str) -> None:
+    res = sample_results()
+    res["hypotheses"] = [h for h in res["hypotheses"] if h["id"] == "H1"]
+    res["flow"] = {"outcomes": {"infection": {"missing": "exclude", "favourable": favourable}}}
+    fig = _figure_of(res)
+    (label,) = [ax.get_xlabel() for ax in fig.axes if ax.get_xlabel()]
+    assert label.split("\n")[1].startswith(f"\u2190 {left}")

@@ -446,11 +446,11 @@ def test_full_report_executes_without_errors(full_report: Path) -> None:
     nb = nbformat.read(full_report / "report.ipynb", as_version=4)
     outputs = [o for c in nb.cells if c.cell_type == "code" for o in c.get("outputs", [])]
     assert not [o for o in outputs if o.output_type in ("error", "stream")]
-    assert sorted(p.name for p in (full_report / "figures").iterdir()) == [
-        "differences.png", "multiplicity-graph.png",
-        "proportions-img-src-x-onerror-alert-1-4c79c325.png",
-        "proportions-infection.png", "proportions-reopening.png",
-    ]
+    assert sorted(p.name for p in (full_report / "figures").iterdir()) == sorted(
+        f"{stem}.{kind}" for kind in ("png", "svg") for stem in (
+            "differences", "multiplicity-graph",
+            "proportions-img-src-x-onerror-alert-1-4c79c325",
+            "proportions-infection", "proportions-reopening"))
 
 
 def test_full_report_single_group_against_null_rate(full_html: str) -> None:

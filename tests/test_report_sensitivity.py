@@ -369,7 +369,7 @@ def test_big_grid_figure_is_readable_and_deterministic(tmp_path: Path) -> None:
     assert b"tIME" not in first[0].read_bytes() and b"Software" not in first[0].read_bytes()
     img = imread(first[0])
     height, width = img.shape[:2]
-    assert width == 800 and 600 <= height <= 800
+    assert width == 1600 and 1200 <= height <= 1600  # 200 dpi
     pixels = np.unique((img[..., :3] * 255).round().astype(int).reshape(-1, 3), axis=0)
     colours = {tuple(int(c) for c in px) for px in pixels}
     for colour in (REJECT_COLOUR, KEEP_COLOUR):
@@ -513,10 +513,10 @@ def test_extended_report_shows_every_new_part_in_order(extended_report: Path) ->
     positions = [page.index(m) for m in marks]
     assert positions == sorted(positions)
     assert html.escape(HOSTILE_ATTR, quote=False) in page and HOSTILE_ATTR not in page
-    assert sorted(p.name for p in (extended_report / "figures").iterdir()) == [
-        "differences.png", "proportions-infection.png", "proportions-reopening.png",
-        "tipping-H1.png", "tipping-H2.png",
-    ]
+    assert sorted(p.name for p in (extended_report / "figures").iterdir()) == sorted(
+        f"{stem}.{kind}" for kind in ("png", "svg") for stem in (
+            "differences", "proportions-infection", "proportions-reopening", "tipping-H1",
+            "tipping-H2"))
 
 
 def test_extended_report_embeds_the_tipping_figures_after_their_hypothesis(

@@ -49,3 +49,15 @@ def test_a_very_long_label_is_cut_with_a_digest_and_stays_unique() -> None:
     stem = name_a.removeprefix("tables/").removesuffix(".csv")
     assert len(stem) <= MAX_STEM and name_a != name_b and "~" in stem
     assert "%" not in stem.split("~")[0][-2:]  # no half escape before the digest
+
+
+def test_a_hypothesis_named_like_a_table_of_the_run_keeps_its_own_name() -> None:
+    from prespec.report.tablenames import FLOW_TABLE, RESULTS_TABLE, STATISTICS_TABLE
+
+    assert hypothesis_table("results") == "tables/%72esults.csv"
+    assert hypothesis_table("statistics") == "tables/%73tatistics.csv"
+    assert hypothesis_table("flow") == "tables/%66low.csv"
+    assert decode_stem("%72esults") == "results"
+    assert {hypothesis_table(n) for n in ("results", "statistics", "flow")}.isdisjoint(
+        {RESULTS_TABLE, STATISTICS_TABLE, FLOW_TABLE})
+    assert hypothesis_table("results2") == "tables/results2.csv"

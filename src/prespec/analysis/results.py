@@ -74,6 +74,38 @@ class Population(Part):
     analysed: Count
 
 
+class FlowCounts(Part):
+    """Rows per plan group, and of any other value of the group column (a blank included)."""
+
+    groups: dict[Text, Count]
+    other: Count
+
+
+class FlowCondition(Part):
+    """One condition of ``data.include`` and the rows it left out (each row under the first
+    condition it fails, in the plan's order)."""
+
+    column: Text
+    condition: Text
+    excluded: FlowCounts
+
+
+class FlowOutcome(Part):
+    missing: Text  # the plan's rule for a blank or unmapped outcome
+    favourable: Text | None
+
+
+class Flow(Part):
+    """The participant flow by group (written since issue 18; absent from earlier reports):
+    rows read, left out by each population condition, outside the groups, analysed."""
+
+    read: FlowCounts
+    conditions: list[FlowCondition]
+    outside_groups: Count
+    analysed: dict[Text, Count]
+    outcomes: dict[Text, FlowOutcome]
+
+
 class GraphMultiplicity(Part):
     """The plan's graphical procedure, as the plan resolves it."""
 
@@ -798,6 +830,7 @@ class RunResults(Provenance):
 
     kind: Literal["run"]
     population: Population
+    flow: Flow | None = None  # since issue 18
     groups: dict[Text, list[GroupRow]]
     hypotheses: list[Hypothesis]
     deviations: list[Departure]

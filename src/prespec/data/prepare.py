@@ -31,6 +31,9 @@ _SHOW = 5  # how many offending values an error message lists
 # aggregate); with KEEP_COLUMN it also says whether those rows pass the population filter.
 WEIGHT_COLUMN = "__prespec_rows__"
 KEEP_COLUMN = "__prespec_keep__"
+# With KEEP_COLUMN, an engine's aggregate may say which population condition left its rows
+# out: the 1-based index of the first condition (in the plan's order) they fail, 0 when kept.
+FAILED_COLUMN = "__prespec_failed__"
 
 
 @dataclass(frozen=True)
@@ -139,6 +142,18 @@ class Units:
 
 
 @dataclass(frozen=True)
+class Flow:
+    """The participant flow by group: per group value (a plan group, or ``None`` for any
+    other value and a blank cell) the rows read, the rows each population condition left out
+    (a row counted under the first condition it fails, in the plan's order, so that the
+    counts add up), and the rows analysed."""
+
+    read: dict[str | None, int]
+    excluded: tuple[dict[str | None, int], ...]  # one per condition of data.include
+    analysed: dict[str, int]
+
+
+@dataclass(frozen=True)
 class Prepared:
     rows_read: int
     excluded_by_filter: int
@@ -153,6 +168,8 @@ class Prepared:
     by_hypothesis: dict[str, HypothesisCounts] = field(default_factory=dict)
     # per covariate-adjusted hypothesis id: its analysed units
     units: dict[str, Units] = field(default_factory=dict)
+    # the participant flow by group (None where the engine did not say which condition failed)
+    flow: Flow | None = None
 
     def counts_for(self, hyp_id: str, outcome: str) -> OutcomeCounts:
         """The counts a hypothesis is analysed on: its own under an estimand, else the plain."""
@@ -342,12 +359,17 @@ def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
 
     rows_read = at.count(np.ones(len(frame.index), dtype=bool))
     keep = np.ones(len(frame.index), dtype=bool)
+    failed: np.ndarray | None = np.zeros(len(frame.index), dtype=np.int64)
     if KEEP_COLUMN in frame.columns:
         keep = frame[KEEP_COLUMN].to_numpy(dtype=bool)
+        failed = (frame[FAILED_COLUMN].to_numpy(dtype=np.int64)
+                  if FAILED_COLUMN in frame.columns else None)
     else:
-        for cond in spec.include:
+        for index, cond in enumerate(spec.include, start=1):
             op, arg = cond.op()
-            keep &= _per_unique(frame[cond.column], cell_predicate(op, arg)).astype(bool)
+            passes = _per_unique(frame[cond.column], cell_predicate(op, arg)).astype(bool)
+            failed[keep & ~passes] = index  # the first condition a row fails
+            keep &= passes
     excluded_by_filter = at.count(~keep)
 
     groups = list(spec.groups)
@@ -418,6 +440,8 @@ def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
                             str(gc.total),
                         )
                     )
+    flow = None if failed is None else _flow(at, failed, group_col, analysed_rows, groups,
+                                             len(spec.include))
     return Prepared(
         rows_read=rows_read,
         excluded_by_filter=excluded_by_filter,
@@ -429,7 +453,69 @@ def prepare(frame: pd.DataFrame, plan: Plan, source: str | Path, *,
         strata=strata,
         by_hypothesis=by_hypothesis,
         units=units,
+        flow=flow,
     )
+
+
+def _flow(at: _Rows, failed: np.ndarray, group_col: np.ndarray, analysed: np.ndarray,
+          groups: list[str], conditions: int) -> Flow:
+    """Per group value: rows read, rows left out by each condition, rows analysed."""
+    other = np.array([g is None for g in group_col], dtype=bool)
+    masks: dict[str | None, np.ndarray] = {g: group_col == g for g in groups}
+    masks[None] = other
+
+    def by_group(rows: np.ndarray) -> dict[str | None, int]:
+        return {g: at.count(rows & mask) for g, mask in masks.items()}
+
+    return Flow(
+        read=by_group(np.ones(len(failed), dtype=bool)),
+        excluded=tuple(by_group(failed == index) for index in range(1, conditions + 1)),
+        analysed={g: at.count(analysed & masks[g]) for g in groups},
+    )
+
+
+def condition_words(op: str, arg: Any) -> str:
+    """A population condition in words, as the flow names it: ``is one of: yes, y``,
+    ``between 18 and 90``, ``is blank``."""
+    def shown(values: Any) -> str:
+        return ", ".join(as_text(v) for v in values)
+
+    if op == "is_missing":
+        return "is blank" if arg else "is not blank"
+    if op == "in":
+        return f"is one of: {shown(arg)}"
+    if op == "not_in":
+        return f"is none of: {shown(arg)} (and not blank)"
+    if op == "equals":
+        return f"equals {as_text(arg)}"
+    low, high = arg
+    return f"between {as_text(low)} and {as_text(high)}"
+
+
+def flow_entry(plan: Plan, flow: Flow) -> dict[str, Any]:
+    """The ``flow`` block of results.json: per plan group (and ``other`` for any other group
+    value, a blank cell included) the rows read and those each condition of ``data.include``
+    left out, the rows outside the groups, the rows analysed per group, and per outcome its
+    missing rule and favourable value."""
+    groups = list(plan.data.groups)
+
+    def counts(by: dict[str | None, int]) -> dict[str, Any]:
+        return {"groups": {g: by[g] for g in groups}, "other": by[None]}
+
+    conditions = []
+    for cond, excluded in zip(plan.data.include, flow.excluded, strict=True):
+        op, arg = cond.op()
+        conditions.append({"column": cond.column, "condition": condition_words(op, arg),
+                           "excluded": counts(excluded)})
+    outside = flow.read[None] - sum(c[None] for c in flow.excluded)  # kept, yet no group
+    return {
+        "read": counts(flow.read),
+        "conditions": conditions,
+        "outside_groups": outside,
+        "analysed": dict(flow.analysed),
+        "outcomes": {name: {"missing": o.missing, "favourable": o.favourable}
+                     for name, o in plan.outcomes.items()},
+    }
 
 
 def _intercurrent(hyp: Any) -> list[Any]:

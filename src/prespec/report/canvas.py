@@ -8,6 +8,7 @@ and saved without a time stamp or creator, so that the same results give the sam
 from __future__ import annotations
 
 import hashlib
+import io
 import os
 import re
 from pathlib import Path
@@ -16,15 +17,20 @@ from typing import TYPE_CHECKING, Any
 from prespec.common.shown import visible
 
 if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
 FIGURES = "figures"
-DPI = 100
+DPI = 100  # the figure's own resolution, in which its layout is computed
+PNG_DPI = 200  # the resolution of the PNG written (fit for paper); an SVG is written beside it
 WIDTH = 8.0  # inches
 INK = "#222222"
 LINE = "#555555"
 GUIDE = "#999999"
 LABEL_CHARS = 48
+LABEL_WIDTH = 30  # characters per line of a wrapped label
 
 _SAFE_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,79}")
 
@@ -38,6 +44,8 @@ RC: dict[str, Any] = {
     "ytick.color": INK,
     "axes.spines.top": False,
     "axes.spines.right": False,
+    "svg.hashsalt": "prespec",  # the SVG's element ids from this salt: the same bytes each time
+    "svg.fonttype": "path",  # text as outlines: the SVG looks the same without the fonts
 }
 
 
@@ -65,14 +73,44 @@ def new_figure(height: float, width: float = WIDTH) -> Figure:
     return fig
 
 
+def svg_name(png: str | Path) -> str:
+    """The SVG written beside a PNG figure: the same name with ``.svg``."""
+    name = str(png)
+    return (name.removesuffix(".png")) + ".svg"
+
+
+_HASHED_ID = re.compile(r"\b([mph])([0-9a-f]{10})\b")
+
+
+def stable_ids(svg: str) -> str:
+    """The SVG with matplotlib's hashed element ids (markers ``m…``, clip paths ``p…``,
+    hatches ``h…``; some hash an object's address, so they change from run to run) renamed
+    in order of first appearance, ``p1``, ``m2`` …: the same figure gives the same bytes."""
+    names: dict[str, str] = {}
+
+    def rename(match: re.Match[str]) -> str:
+        return names.setdefault(match.group(0), f"{match.group(1)}{len(names) + 1}")
+
+    return _HASHED_ID.sub(rename, svg)
+
+
 def save_png(fig: Figure, path: Path) -> None:
-    """Save as PNG under a temporary name, then rename into place; no metadata stamp."""
-    tmp = path.with_name(f".{path.name}.partial")
+    """Save the figure as a PNG at :data:`PNG_DPI` and as an SVG beside it (``svg_name``),
+    each under a temporary name and renamed into place; no time stamp or creator in either."""
+    svg = Path(svg_name(path))
+    tmp_png = path.with_name(f".{path.name}.partial")
+    tmp_svg = svg.with_name(f".{svg.name}.partial")
     try:
-        fig.savefig(tmp, format="png", dpi=DPI, metadata={"Software": None})
-        os.replace(tmp, path)
+        fig.savefig(tmp_png, format="png", dpi=PNG_DPI, metadata={"Software": None})
+        fig.set_layout_engine("none")  # the layout the PNG was drawn with, not computed again
+        buffer = io.StringIO()
+        fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
+        tmp_svg.write_text(stable_ids(buffer.getvalue()), encoding="utf-8")
+        os.replace(tmp_png, path)
+        os.replace(tmp_svg, svg)
     except BaseException:
-        tmp.unlink(missing_ok=True)
+        tmp_png.unlink(missing_ok=True)
+        tmp_svg.unlink(missing_ok=True)
         raise
 
 
@@ -80,3 +118,21 @@ def shorten(label: str, limit: int = LABEL_CHARS) -> str:
     """A label on one line, control characters visible, cut with ``…`` past ``limit``."""
     label = " ".join(visible(label).split())
     return label if len(label) <= limit else label[: limit - 1] + "…"
+
+
+def wrapped(label: str, width: int = LABEL_WIDTH) -> str:
+    """A label in full over as many lines as it needs: control characters visible, words kept
+    whole where they fit, a word longer than a line broken across lines (nothing is cut)."""
+    import textwrap
+
+    flat = " ".join(visible(label).split())
+    return "\n".join(textwrap.wrap(flat, width, break_long_words=True,
+                                    break_on_hyphens=False)) or flat
+
+
+def right_labels(ax: Axes, ticks: Sequence[float], labels: Sequence[str]) -> None:
+    """Numbers beside each row, as tick labels of a right-hand axis (kept inside the layout)."""
+    right = ax.secondary_yaxis("right")
+    right.set_yticks(list(ticks), list(labels))
+    right.tick_params(length=0)
+    right.spines["right"].set_visible(False)

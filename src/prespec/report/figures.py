@@ -16,9 +16,18 @@ The report's figures:
   :mod:`prespec.report.tipping`);
 - ``figures/bayes-<id>.png`` and ``figures/oc-<id>.png``: the posterior densities and the
   operating characteristics of a Bayesian hypothesis (drawn by :mod:`prespec.report.bayes`);
+- ``figures/flow.png``: the participant flow by group (drawn by :mod:`prespec.report.flow`);
 - ``figures/multiplicity-graph.png``: for the graphical procedure (Bretz et al., Statistics in
   Medicine 2009), the hypotheses as nodes on a circle with their initial weights, and an
   arrow with its weight for each transition.
+
+Every figure is written as a PNG at 200 dpi with an SVG of the same name beside it
+(``canvas.save_png``). The estimates figure draws confirmatory results, tested follow-ups,
+follow-ups behind a closed gate (not tested) and exploratory results each in its own marker
+and line (``KINDS``), with a legend; labels are wrapped in full, never cut; under each axis a
+line says which side favours which group (by the outcome's ``favourable`` value in the
+``flow`` block when results.json has it, else by which side has fewer events); and the tick
+labels are thinned until none touches another (``spread_ticks``).
 
 Nothing is computed here: the points and limits are the ones in ``results.json``. The figures
 are built on ``matplotlib.figure.Figure`` with an explicit Agg canvas (no pyplot state, no
@@ -28,6 +37,7 @@ results give the same bytes.
 
 from __future__ import annotations
 
+import itertools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -42,9 +52,11 @@ from prespec.report.canvas import (
     LINE,
     RC,
     new_figure,
+    right_labels,
     safe_stem,
     save_png,
     shorten,
+    wrapped,
 )
 from prespec.report.tipping import (
     TippingJob,
@@ -143,6 +155,9 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
 
     jobs += bayes_jobs(results)
     if not blinded:
+        from prespec.report.flow import flow_jobs
+
+        jobs += flow_jobs(results)
         from prespec.report.families import family_jobs
 
         jobs += family_jobs(results)
@@ -161,14 +176,6 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
             save_png(fig, path)
             written.append(path)
     return written
-
-
-def _right_labels(ax: Axes, ticks: Sequence[float], labels: Sequence[str]) -> None:
-    """Numbers beside each row, as tick labels of a right-hand axis (kept inside the layout)."""
-    right = ax.secondary_yaxis("right")
-    right.set_yticks(list(ticks), list(labels))
-    right.tick_params(length=0)
-    right.spines["right"].set_visible(False)
 
 
 def _interval_line(
@@ -210,9 +217,12 @@ class _ProportionsJob:
                     text(row.get("ci_method"), f"{where}.ci_method", default=""),
                 )
             )
-        fig = new_figure(1.4 + 0.42 * max(len(entries), 1))
+        names = [wrapped(e[0], 24) for e in entries]
+        lines = max([n.count("\n") + 1 for n in names], default=1)
+        step = max(1.0, 0.6 * lines)  # a group whose name takes several lines gets room
+        fig = new_figure(1.4 + 0.42 * step * max(len(entries), 1))
         ax = fig.add_subplot()
-        ys = list(range(len(entries)))[::-1]
+        ys = [step * i for i in range(len(entries))][::-1]
         right: list[str] = []
         methods: set[str] = set()
         for y, (_, events, total, prop, low, high, level, method) in zip(ys, entries, strict=True):
@@ -226,16 +236,16 @@ class _ProportionsJob:
             )
             if method or level is not None:
                 methods.add(f"{fmt_level(level)} {method}".strip())
-        ax.set_yticks(ys, [shorten(e[0]) for e in entries])
+        ax.set_yticks(ys, names)
         ax.tick_params(axis="y", length=0)
-        _right_labels(ax, ys, right)
+        right_labels(ax, ys, right)
         upper = max([v for e in entries for v in (e[3], e[5]) if v is not None], default=1.0)
         ax.set_xlim(0.0, min(1.0, max(0.02, upper * 1.15)))
-        ax.set_ylim(-0.7, len(entries) - 0.3)
+        ax.set_ylim(-0.7 * step, step * (len(entries) - 1) + 0.7 * step)
         ax.grid(axis="x", color="#dddddd", linewidth=0.8)
         ax.set_axisbelow(True)
         ax.set_xlabel("proportion with the event")
-        ax.set_title(shorten(f"Outcome: {self.outcome}", 70), loc="left", color=INK)
+        ax.set_title(wrapped(f"Outcome: {self.outcome}", 70), loc="left", color=INK)
         intervals = ", ".join(sorted(methods)) or "interval method not given"
         fig.supxlabel(f"Intervals: {intervals}. Right: events/total, proportion (limits).",
                       x=0.01, ha="left", fontsize=8, color=LINE)
@@ -245,6 +255,15 @@ class _ProportionsJob:
         return fig
 
 
+#: How the estimates figure draws each kind of result: (legend label, marker, face colour,
+#: line colour, interval line style). Bayesian results are drawn as a diamond in their kind's
+#: colours.
+KINDS: dict[str, tuple[str, str, str, str, str]] = {
+    "confirmatory": ("confirmatory (primary or secondary)", "s", INK, INK, "solid"),
+    "follow-up": ("follow-up, tested (gate open)", "^", INK, INK, "solid"),
+    "not-tested": ("follow-up, not tested (gate closed)", "x", GUIDE, GUIDE, "dashed"),
+    "exploratory": ("exploratory (nominal p, no claim)", "o", "white", LINE, "solid"),
+}
 @dataclass(frozen=True)
 class _EstimateRow:
     label: str
@@ -257,6 +276,28 @@ class _EstimateRow:
     margins: tuple[float, ...]
     null_rate: float | None = None
     bayesian: bool = False  # a posterior mean with a credible interval
+    kind: str = "confirmatory"  # a key of KINDS
+    favourable: str | None = None  # the outcome's favourable value (event, no-event), if known
+
+
+def result_kind(hyp: Mapping[str, Any]) -> str:
+    """``confirmatory``, ``follow-up`` (tested), ``not-tested`` (behind a closed gate) or
+    ``exploratory``: how a result is drawn and named in the estimates figure."""
+    if hyp.get("gate") == "closed":
+        return "not-tested"
+    if hyp.get("role") == "exploratory":
+        return "exploratory"
+    return "follow-up" if hyp.get("parent") is not None else "confirmatory"
+
+
+def _favourable(results: Mapping[str, Any], outcome: Any) -> str | None:
+    """The outcome's favourable value from the flow block (None before it was written)."""
+    flow = results.get("flow")
+    if not isinstance(flow, Mapping) or not isinstance(flow.get("outcomes"), Mapping):
+        return None
+    entry = flow["outcomes"].get(outcome)
+    value = entry.get("favourable") if isinstance(entry, Mapping) else None
+    return value if value in ("event", "no-event") else None
 
 
 def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
@@ -279,14 +320,15 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
             ) if m is not None
         )
         bayesian = hyp.get("test") == "posterior-probability"
-        kinds = [k for k, on in (("exploratory", role == "exploratory"),
+        kind = result_kind(hyp)
+        kinds = [k for k, on in (("exploratory", kind == "exploratory"),
+                                 ("follow-up", kind == "follow-up"),
+                                 ("not tested: gate closed", kind == "not-tested"),
                                  ("Bayesian", bayesian)) if on]
         head = f"{hid} ({', '.join(kinds)})" if kinds else hid
-        if hyp.get("gate") == "closed":  # a follow-up behind a closed gate: said on line two
-            title = f"not tested: {title}" if title else "not tested"
         rows.append(
             _EstimateRow(
-                label=f"{shorten(head, 34)}\n{shorten(title, 34)}" if title else head,
+                label="\n".join(wrapped(part) for part in (head, title) if part),
                 measure=text(est.get("measure"), f"{where}.estimate.measure", default="estimate"),
                 value=number(est.get("value"), f"{where}.estimate.value"),
                 low=low,
@@ -296,6 +338,8 @@ def _estimate_rows(results: Mapping[str, Any]) -> list[_EstimateRow]:
                 margins=margins,
                 null_rate=number(hyp.get("null_rate"), f"{where}.null_rate"),
                 bayesian=bayesian,
+                kind=kind,
+                favourable=_favourable(results, hyp.get("outcome")),
             )
         )
     return rows
@@ -341,6 +385,58 @@ def _estimate_label(row: _EstimateRow) -> str:
     return f"{fmt_estimate(row.value)}\n{limits}"
 
 
+def direction(measure: str, rows: Sequence[_EstimateRow]) -> str:
+    """The line under a panel's axis saying which side favours whom: by the outcomes'
+    favourable value when every row of the panel knows it and they agree, else by the
+    events alone (which side has fewer events in the first group named)."""
+    if measure not in _MEASURES:
+        return ""  # a measure whose sign this figure does not know: no direction claimed
+    known = {r.favourable for r in rows}
+    favourable = known.pop() if len(known) == 1 else None
+    if measure == "proportion":
+        if favourable is None:
+            return ("\u2190 fewer events than the null rate   |   "
+                    "more events than the null rate \u2192")
+        better = "fewer" if favourable == "no-event" else "more"
+        left, right = ("favourable", "unfavourable") if better == "fewer" else (
+            "unfavourable", "favourable")
+        return (f"\u2190 {left} (fewer events than the null rate)   |   "
+                f"{right} (more events) \u2192")
+    if favourable is None:
+        return ("\u2190 fewer events in the first group named   |   "
+                "more events in the first group named \u2192")
+    first, second = "favours the first group named", "favours the second group named"
+    left, right = (first, second) if favourable == "no-event" else (second, first)
+    return f"\u2190 {left}   |   {right} \u2192"
+
+
+def spread_ticks(fig: Figure, axes: Sequence[Axes]) -> None:
+    """Thin the x-axis ticks of ``axes`` until no two labels overlap (nor come within six
+    points), measured with the figure's renderer at its final layout: at any data range,
+    including a tiny difference whose labels (−0.10, −0.05) would otherwise touch. One layout
+    per round for all the axes; every other tick is dropped from an axis whose labels touch."""
+    from matplotlib.ticker import FixedLocator
+
+    renderer = fig.canvas.get_renderer()
+    gap = 6.0 * fig.dpi / 72.0
+    for _ in range(8):
+        fig.draw_without_rendering()
+        crowded = False
+        for ax in axes:
+            lo, hi = sorted(ax.get_xlim())
+            boxes = sorted(((t.label1.get_window_extent(renderer), t.get_loc())
+                            for t in ax.xaxis.get_major_ticks()
+                            if lo <= t.get_loc() <= hi and t.label1.get_visible()
+                            and t.label1.get_text()), key=lambda b: b[0].x0)
+            if all(a.x1 + gap <= b.x0 for (a, _), (b, _) in itertools.pairwise(boxes)):
+                continue
+            crowded = True
+            locs = [loc for _, loc in boxes]
+            ax.xaxis.set_major_locator(FixedLocator(locs[::2] if len(locs) > 2 else locs[:1]))
+        if not crowded:
+            return
+
+
 @dataclass(frozen=True)
 class _DifferencesJob:
     """The forest plot of every hypothesis's estimate, one panel per measure."""
@@ -352,38 +448,43 @@ class _DifferencesJob:
 
         measures = list(dict.fromkeys(r.measure for r in self.rows))
         panels = [[r for r in self.rows if r.measure == m] for m in measures]
-        heights = [1.4 * len(p) + 1.6 for p in panels]
-        fig = new_figure(0.7 + 0.4 * sum(heights))
+        spans = [_row_positions(p)[1] for p in panels]
+        heights = [0.17 * span + 1.3 for span in spans]  # 0.17 in a line of text
+        fig = new_figure(0.9 + sum(heights))
         axes = fig.subplots(len(panels), 1, squeeze=False, height_ratios=heights)[:, 0]
-        any_margin = any_rate = False
+        any_margin = any_rate = any_null = False
         for ax, measure, rows in zip(axes, measures, panels, strict=True):
-            drew_margin, drew_rate = self._panel(ax, measure, rows)
+            drew_margin, drew_rate, drew_null = self._panel(ax, measure, rows)
             any_margin |= drew_margin
             any_rate |= drew_rate
-        handles = [
-            Line2D([], [], marker="s", color=INK, linestyle="none", label="primary or secondary"),
-            Line2D([], [], marker="o", color=INK, markerfacecolor="white", linestyle="none",
-                   label="exploratory (nominal)"),
-        ]
+            any_null |= drew_null
+        handles = []
+        for kind, (label, marker, face, line, style) in KINDS.items():
+            if any(r.kind == kind for r in self.rows):
+                handles.append(Line2D([], [], marker=marker, color=line, markerfacecolor=face,
+                                      markeredgecolor=line, linestyle=style, linewidth=1.4,
+                                      markersize=7, label=label))
+        if any_null:
+            handles.append(Line2D([], [], color=GUIDE, linewidth=1.0,
+                                  label="no difference (0, or 1 for a ratio)"))
         if any_margin:
             handles.append(Line2D([], [], color=_MARGIN, linestyle="--", label="margin"))
         if any_rate:
             handles.append(Line2D([], [], color=_NULL_RATE, linestyle=":", linewidth=1.6,
                                   label="null rate (H0)"))
-        bayesian = any(r.bayesian for r in self.rows)
-        if bayesian:  # a diamond: a credible interval, not a confidence interval
+        if any(r.bayesian for r in self.rows):  # a diamond: a credible interval
             handles.append(Line2D([], [], marker="D", color=INK, linestyle="none",
                                   label="Bayesian: posterior mean, credible interval"))
-        columns = min(len(handles), 3) if bayesian else len(handles)  # its label is long
-        fig.legend(handles=handles, loc="outside lower center", ncols=columns,
-                   frameon=False, fontsize=9)
+        fig.legend(handles=handles, loc="outside lower center", ncols=2, frameon=False,
+                   fontsize=9)
+        spread_ticks(fig, list(axes))
         return fig
 
     @staticmethod
-    def _panel(ax: Axes, measure: str, rows: list[_EstimateRow]) -> tuple[bool, bool]:
-        """Draw one measure's panel; whether it drew a margin, and a null rate."""
+    def _panel(ax: Axes, measure: str, rows: list[_EstimateRow]) -> tuple[bool, bool, bool]:
+        """Draw one measure's panel; whether it drew a margin, a null rate, a null line."""
         label, null, log = _MEASURES.get(measure, (measure, None, False))
-        ys = [1.4 * i for i in range(len(rows))][::-1]
+        ys, span = _row_positions(rows)
         values: list[float] = []
         drew_margin = drew_rate = False
         for y, row in zip(ys, rows, strict=True):
@@ -391,19 +492,19 @@ class _DifferencesJob:
             if log and any(v <= 0 for v in shown):
                 continue  # not drawable on a log scale; the numbers are still given on the right
             values.extend(shown)
-            _interval_line(ax, y, row.low, row.high, row.value)
+            _, marker, face, line, style = KINDS[row.kind]
+            _kind_interval(ax, y, row, line, style)
             if row.value is not None:
-                face = "white" if row.exploratory else INK
-                marker = "D" if row.bayesian else ("o" if row.exploratory else "s")
-                ax.plot([row.value], [y], marker=marker, markersize=7, color=INK,
-                        markerfacecolor=face, linestyle="none")
+                ax.plot([row.value], [y], marker="D" if row.bayesian else marker, markersize=7,
+                        color=line, markerfacecolor=face, markeredgecolor=line,
+                        linestyle="none", zorder=3)
             for m in row.margins:
                 if not log or m > 0:
-                    ax.vlines(m, y - 0.35, y + 0.35, color=_MARGIN, linestyle="--", linewidth=1.2)
+                    ax.vlines(m, y - 0.9, y + 0.9, color=_MARGIN, linestyle="--", linewidth=1.2)
                     values.append(m)
                     drew_margin = True
             if row.null_rate is not None and (not log or row.null_rate > 0):
-                ax.vlines(row.null_rate, y - 0.4, y + 0.4, color=_NULL_RATE, linestyle=":",
+                ax.vlines(row.null_rate, y - 1.0, y + 1.0, color=_NULL_RATE, linestyle=":",
                           linewidth=1.6)
                 values.append(row.null_rate)
                 drew_rate = True
@@ -424,20 +525,47 @@ class _DifferencesJob:
             ax.xaxis.set_minor_formatter(NullFormatter())
             ax.set_xlim(lo, hi)
         elif values:
+            from matplotlib.ticker import MaxNLocator
+
             lo, hi = min(values), max(values)
             pad = (hi - lo) * 0.08 or 0.05
             lo, hi = lo - pad, hi + pad
             if measure == "proportion":  # a proportion lies in [0, 1]
                 lo, hi = max(lo, 0.0), min(hi, 1.0)
             ax.set_xlim(lo, hi)
+            ax.xaxis.set_major_locator(MaxNLocator(nbins=6, steps=[1, 2, 2.5, 5, 10]))
         ax.set_yticks(ys, [r.label for r in rows])
         ax.tick_params(axis="y", length=0)
-        ax.set_ylim(-0.8, 1.4 * (len(rows) - 1) + 0.8)
-        _right_labels(ax, ys, [_estimate_label(r) for r in rows])
+        ax.set_ylim(-0.5, span - 0.5)
+        right_labels(ax, ys, [_estimate_label(r) for r in rows])
         ax.grid(axis="x", color="#eeeeee", linewidth=0.8)
         ax.set_axisbelow(True)
-        ax.set_xlabel(label)
-        return drew_margin, drew_rate
+        ax.set_xlabel("\n".join(line for line in (label, direction(measure, rows)) if line))
+        return drew_margin, drew_rate, null is not None
+
+
+def _row_positions(rows: Sequence[_EstimateRow]) -> tuple[list[float], float]:
+    """Each row's centre, in lines of text from the bottom (the first row on top), and the
+    panel's height in lines: a row takes as many lines as its label (at least two), plus one."""
+    sizes = [max(r.label.count("\n") + 1, 2) + 1 for r in rows]
+    total = float(sum(sizes))
+    ys, top = [], total
+    for size in sizes:
+        ys.append(top - size / 2.0 - 0.5)
+        top -= size
+    return ys, total
+
+
+def _kind_interval(ax: Axes, y: float, row: _EstimateRow, color: str, style: str) -> None:
+    """An interval in its kind's colour and line style; a missing limit drawn as far as the
+    estimate only."""
+    lo = row.low if row.low is not None else row.value
+    hi = row.high if row.high is not None else row.value
+    if lo is not None and hi is not None:
+        ax.hlines(y, lo, hi, color=color, linewidth=1.6, linestyles=style)
+        for end in (row.low, row.high):
+            if end is not None:
+                ax.vlines(end, y - 0.3, y + 0.3, color=color, linewidth=1.2)
 
 
 def _graph_job(value: Mapping[str, Any]) -> _GraphJob:

@@ -198,7 +198,9 @@ def population(results: Mapping[str, Any]) -> str:
         if analysed is not None:
             rows.append(("Analysed in total",
                          fmt_thousands(number(analysed, "analysed_total"))))
-    return out + fields(rows) + data_labels(results)
+    from prespec.report.flow import flow_html
+
+    return out + fields(rows) + data_labels(results) + flow_html(results)
 
 
 def data_labels(results: Mapping[str, Any]) -> str:

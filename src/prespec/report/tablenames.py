@@ -8,7 +8,10 @@ One rule, used for every table a run writes:
 - ``tables/model-<hypothesis id>.csv``: the working model and the marginal risks of one
   covariate-adjusted (g-computation) hypothesis;
 - ``tables/bayes-<hypothesis id>.csv``: the priors, posteriors, posterior probability,
-  threshold and prior-sensitivity rows of one Bayesian (posterior-probability) hypothesis.
+  threshold and prior-sensitivity rows of one Bayesian (posterior-probability) hypothesis;
+- ``tables/results.csv``: one row per hypothesis, follow-up and family member, with every
+  figure of the results table; ``tables/statistics.csv``: the same results in long form, one
+  row per statistic; ``tables/flow.csv``: the participant flow by group.
 
 A label is written as it is when made of ASCII letters, digits, ``_``, ``.`` and ``-``; every
 other byte of its UTF-8 form is percent-encoded (``%2B``, ``%2F``, ``%20``, ``%25`` for ``%``
@@ -16,7 +19,9 @@ itself), and so is a leading ``.`` (no hidden file, never ``.`` or ``..``). So `
 and ``H_1`` give ``H%2B1.csv``, ``H%2F1.csv`` and ``H_1.csv``, and
 ``urllib.parse.unquote`` gives the label back. A hypothesis id that would begin like one of
 the other kinds (``groups-…``, ``family-…``, ``model-…``, ``bayes-…``) has that ``-`` encoded
-(``groups%2Dx.csv``), so the kinds never share a name. A stem longer than ``MAX_STEM`` bytes
+(``groups%2Dx.csv``), and one named like a table of the whole run (``results``,
+``statistics``, ``flow``) has its first letter encoded (``%72esults.csv``), so the kinds never
+share a name. A stem longer than ``MAX_STEM`` bytes
 (file systems stop at 255) is cut and ends in ``~`` and 16 hex digits of the label's SHA-256:
 unique still, but no longer reversible; no plan label of ordinary length comes near it.
 """
@@ -31,6 +36,10 @@ TABLES = "tables"
 MAX_STEM = 200
 _SAFE = frozenset((string.ascii_letters + string.digits + "_.-").encode("ascii"))
 _KIND_PREFIXES = ("groups-", "family-", "model-", "bayes-")
+RESULTS_TABLE = f"{TABLES}/results.csv"
+STATISTICS_TABLE = f"{TABLES}/statistics.csv"
+FLOW_TABLE = f"{TABLES}/flow.csv"
+_RUN_TABLES = frozenset({"results", "statistics", "flow"})
 
 
 def encode_label(label: str) -> str:
@@ -69,6 +78,8 @@ def hypothesis_table(hypothesis_id: str) -> str:
     for prefix in _KIND_PREFIXES:
         if stem.startswith(prefix):
             stem = f"{prefix[:-1]}%2D{stem[len(prefix):]}"
+    if stem in _RUN_TABLES:
+        stem = f"%{ord(stem[0]):02X}{stem[1:]}"
     return f"{TABLES}/{_bounded(stem, hypothesis_id)}.csv"
 
 

@@ -18,7 +18,7 @@ from prespec.common.caution import CAUTION
 from prespec.common.departures import Departure, Note
 from prespec.data import Prepared, file_sha256, read_data
 from prespec.data.engines.base import DataSource
-from prespec.data.prepare import read_columns
+from prespec.data.prepare import flow_entry, read_columns
 from prespec.errors import BadInput
 
 if TYPE_CHECKING:
@@ -104,6 +104,7 @@ def build_results(
             "excluded_group": prepared.excluded_group,
             "analysed": prepared.analysed,
         },
+        **({"flow": flow_entry(plan, prepared.flow)} if prepared.flow is not None else {}),
         "groups": group_summaries(plan, prepared),
         "hypotheses": hypotheses,
         "deviations": [d.to_json() for d in deviations],

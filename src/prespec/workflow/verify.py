@@ -1046,6 +1046,8 @@ def _rerun(plan: Path, entries: list[dict[str, Any]], doc: dict[str, Any] | None
         if kept.overrides is not None:
             again = finish(again, [o.dumped() for o in kept.overrides])
         _design_as_written(stored, again, model)
+        if "flow" not in stored:  # written before the participant flow (issue 18)
+            again.pop("flow", None)
         again = json.loads(json.dumps(again, allow_nan=False))  # as written to results.json
         keys = [k for k in [*stored, *(k for k in again if k not in stored)]
                 if k not in MOMENT_FIELDS]

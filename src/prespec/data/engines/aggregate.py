@@ -22,7 +22,7 @@ from prespec.common.canonical import file_sha256
 from ...errors import DataError
 from ..read import missing_column
 from . import columns
-from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, Engine, Reduction
+from .base import FAILED_COLUMN, KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, Engine, Reduction
 from .compiler import (
     BLANK_COLUMN,
     SET_COLUMN,
@@ -151,12 +151,13 @@ class AggregatingEngine(Engine):
         self.blank_ids(request, int(pd.to_numeric(counts[BLANK_COLUMN]).fillna(0).sum()))
         if not is_counts.all():  # an id hash on several rows: name the duplicates, if any
             self.duplicate_ids(request, relation, kinds)
-        frame = counts[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]]
+        frame = counts[[KEEP_COLUMN, FAILED_COLUMN, *request.grouped, WEIGHT_COLUMN]]
         return self._weighted(frame.copy(), request), query
 
     @staticmethod
     def _weighted(frame: pd.DataFrame, request: CountRequest) -> pd.DataFrame:
         frame[KEEP_COLUMN] = frame[KEEP_COLUMN].astype(bool)
+        frame[FAILED_COLUMN] = frame[FAILED_COLUMN].astype(np.int64)
         frame[WEIGHT_COLUMN] = frame[WEIGHT_COLUMN].astype(np.int64)
         for column in request.grouped:  # NULL as None, never NaN (is_blank reads both alike)
             frame[column] = frame[column].astype(object).where(frame[column].notna(), None)

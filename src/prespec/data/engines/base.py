@@ -7,11 +7,13 @@ source rows it stands for, and a column ``KEEP_COLUMN`` saying whether those row
 population filter (the SQL engines). ``prepare`` turns either into the same count tables, so
 the matching rule of ``matching.py`` is applied in one place.
 
-Columns of a weighted frame: ``KEEP_COLUMN`` (bool), then every column of the request under
-its own name (the group and the outcome columns of ``CountRequest.mapped`` hold a canonical
-plan value, None for a blank cell, or the raw trimmed text where nothing matched; the columns
-of ``CountRequest.raw`` hold the cell itself, None for a blank), then ``WEIGHT_COLUMN`` (int).
-Excluded rows have None in every column but the two.
+Columns of a weighted frame: ``KEEP_COLUMN`` (bool), ``FAILED_COLUMN`` (int: the first
+population condition the rows fail, 1-based in the plan's order, 0 when kept), then every
+column of the request under its own name (the group and the outcome columns of
+``CountRequest.mapped`` hold a canonical plan value, None for a blank cell, or the raw trimmed
+text where nothing matched; the columns of ``CountRequest.raw`` hold the cell itself, None for
+a blank), then ``WEIGHT_COLUMN`` (int). Excluded rows have None in every column but these and
+the group column (``CountRequest.group``), which the participant flow counts them by.
 """
 
 from __future__ import annotations
@@ -24,10 +26,11 @@ from typing import Any, ClassVar, Self
 
 import pandas as pd
 
-from ..prepare import KEEP_COLUMN, WEIGHT_COLUMN
+from ..prepare import FAILED_COLUMN, KEEP_COLUMN, WEIGHT_COLUMN
 
 __all__ = [
     "ENGINE_NAMES",
+    "FAILED_COLUMN",
     "KEEP_COLUMN",
     "WEIGHT_COLUMN",
     "ColumnMap",
@@ -118,6 +121,7 @@ class CountRequest:
     raw: tuple[str, ...]
     needed: tuple[tuple[str, str], ...]  # (column, role) for the missing-column message
     unique_within: tuple[str, ...] = ()  # ids need be unique only within these columns' values
+    group: str | None = None  # the group column, kept for excluded rows too (None: blinded)
 
     @property
     def grouped(self) -> tuple[str, ...]:

@@ -25,7 +25,7 @@ from typing import Any
 
 from prespec.common.matching import as_number, as_text
 
-from .base import KEEP_COLUMN, WEIGHT_COLUMN, ColumnMap, CountRequest, Filter
+from .base import FAILED_COLUMN, KEEP_COLUMN, WEIGHT_COLUMN, ColumnMap, CountRequest, Filter
 from .columns import UTF8_HEX_PATTERN
 
 DIALECTS: tuple[str, ...] = ("duckdb", "postgresql", "spark")
@@ -272,6 +272,14 @@ class _Sql:
             return f"COALESCE(NOT {self.blank(f.column)} AND ({test}), FALSE)"
         raise ValueError(f"unknown condition {f.op!r}")
 
+    def failed(self, include: Sequence[Filter]) -> str:
+        """The first condition a row fails, 1-based in the plan's order; 0 when it passes all."""
+        if not include:
+            return self.bind(0)
+        whens = " ".join(f"WHEN NOT ({self.condition(f)}) THEN {self.bind(i)}"
+                         for i, f in enumerate(include, start=1))
+        return f"CASE {whens} ELSE {self.bind(0)} END"
+
     def keep(self, include: Sequence[Filter]) -> str:
         if not include:
             return "TRUE"
@@ -300,21 +308,31 @@ def _grouped_exprs(sql: _Sql, request: CountRequest) -> list[tuple[str, str]]:
             + [(c, sql.raw(c)) for c in request.raw])
 
 
+def _kept_only(sql: _Sql, request: CountRequest, keep: str, column: str) -> str:
+    """A grouped column as the weighted frame holds it: NULL for excluded rows, except the
+    group column, by which the participant flow counts the excluded rows."""
+    if column == request.group:
+        return sql.ident(column)
+    return f"CASE WHEN {keep} THEN {sql.ident(column)} END AS {sql.ident(column)}"
+
+
 def compile_counts(request: CountRequest, relation: str, dialect: str,
                    types: Mapping[str, str]) -> Query:
     """The one aggregate query: per distinct (kept, mapped and raw values), the row count.
 
     ``relation``: the FROM item, already quoted or a table function (``read_csv(...)``).
-    Columns: ``KEEP_COLUMN``, the request's grouped columns, ``WEIGHT_COLUMN``; excluded rows
-    have NULL in every grouped column, so they collapse into one row.
+    Columns: ``KEEP_COLUMN``, ``FAILED_COLUMN``, the request's grouped columns,
+    ``WEIGHT_COLUMN``; excluded rows have NULL in every grouped column but the group, so they
+    collapse into one row per condition failed and group.
     """
     sql = _Sql(dialect, types)
     keep = sql.keep(request.include)
+    failed = sql.failed(request.include)
     exprs = _grouped_exprs(sql, request)
-    k = sql.ident(KEEP_COLUMN)
-    inner = ", ".join([f"{keep} AS {k}"] + [f"{e} AS {sql.ident(c)}" for c, e in exprs])
-    outer_cols = [k] + [f"CASE WHEN {k} THEN {sql.ident(c)} END AS {sql.ident(c)}"
-                        for c, _ in exprs]
+    k, f = sql.ident(KEEP_COLUMN), sql.ident(FAILED_COLUMN)
+    inner = ", ".join([f"{keep} AS {k}", f"{failed} AS {f}"]
+                      + [f"{e} AS {sql.ident(c)}" for c, e in exprs])
+    outer_cols = [k, f] + [_kept_only(sql, request, k, c) for c, _ in exprs]
     positions = ", ".join(str(i) for i in range(1, len(outer_cols) + 1))
     text = (f"SELECT {', '.join(outer_cols)}, COUNT(*) AS {sql.ident(WEIGHT_COLUMN)} "
             f"FROM (SELECT {inner} FROM {relation}) AS prespec_rows GROUP BY {positions}")
@@ -405,12 +423,13 @@ def _mapping(sql: _Sql, request: CountRequest, groups: str) -> str:
     k, w, r = sql.ident(KEEP_COLUMN), sql.ident(WEIGHT_COLUMN), sql.ident(ROWS_COLUMN)
     one = sql.bind(1)
     exprs = _grouped_exprs(sql, request)
-    mapped = (f"SELECT {n}, {h}, {sql.keep(request.include)} AS {k}"
+    f = sql.ident(FAILED_COLUMN)
+    mapped = (f"SELECT {n}, {h}, {sql.keep(request.include)} AS {k}, "
+              f"{sql.failed(request.include)} AS {f}"
               + "".join(f", {e} AS {sql.ident(c)}" for c, e in exprs)
               + f", {r}, {b} FROM {groups} "
               f"WHERE {n} = {one} OR ({h} IS NOT NULL AND {r} > {one})")
-    outer = [n, h, k] + [f"CASE WHEN {k} THEN {sql.ident(c)} END AS {sql.ident(c)}"
-                         for c, _ in exprs]
+    outer = [n, h, k, f] + [_kept_only(sql, request, k, c) for c, _ in exprs]
     positions = ", ".join(str(i) for i in range(1, len(outer) + 1))
     return (f"SELECT {', '.join(outer)}, SUM({r}) AS {w}, SUM({b}) AS {b} "
             f"FROM ({mapped}) AS prespec_mapped GROUP BY {positions}")

@@ -23,7 +23,7 @@ from ...errors import DataError
 from ..datasets import is_dataset
 from ..read import DataFile, open_data_file
 from .aggregate import AggregatingEngine
-from .base import KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, DataSource
+from .base import FAILED_COLUMN, KEEP_COLUMN, WEIGHT_COLUMN, CountRequest, DataSource
 from .compiler import (
     BLANK_COLUMN,
     HASH_COLUMN,
@@ -279,7 +279,7 @@ class DuckDBEngine(AggregatingEngine):
             frame = self.fetch(query)
         finally:
             self.con.unregister("prespec_groups_table")
-        frame = frame[[KEEP_COLUMN, *request.grouped, WEIGHT_COLUMN]].copy()
+        frame = frame[[KEEP_COLUMN, FAILED_COLUMN, *request.grouped, WEIGHT_COLUMN]].copy()
         shown = Query(f"{ids.text};\n{groups.text};\n{query.text}",
                       {**ids.params, **query.params}, self.dialect)
         return self._weighted(frame, request), shown

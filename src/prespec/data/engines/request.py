@@ -80,4 +80,5 @@ def count_request(plan: Plan, source: str, *, blinded: bool = False,
         raw=raw,
         needed=tuple(needed.items()),
         unique_within=unique_within,
+        group=None if blinded else spec.group,
     )
