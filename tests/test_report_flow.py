@@ -94,7 +94,7 @@ def test_the_section_escapes_user_text_and_says_how_rows_are_counted() -> None:
     res = with_flow()
     res["flow"]["conditions"][0]["condition"] = f"is one of: {HOSTILE_SCRIPT}"
     html = flow_section(res)
-    assert "<h3>Participant flow by group</h3>" in html
+    assert '<h3 id="flow">Participant flow by group</h3>' in html  # the contents link to it
     assert HOSTILE_SCRIPT not in html and "&lt;script&gt;" in html
     assert "first population condition it fails" in html
     assert html.count("<tr") == 1 + 9
@@ -152,3 +152,15 @@ def test_malformed_flow_names_the_key() -> None:
     del res["flow"]["conditions"][0]["column"]
     with pytest.raises(PrespecError, match=r"flow.conditions\[0\].column"):
         flow_steps(res)
+
+
+def test_the_contents_link_to_the_flow_only_when_there_is_one() -> None:
+    import re
+
+    from prespec.report import summary
+
+    res = with_flow()
+    links = re.findall(r'href="#([^"]+)"', summary.contents(res))
+    assert links[:3] == ["departures", "population", "flow"]
+    del res["flow"]  # a report of an earlier prespec, or a rehearsal
+    assert "flow" not in re.findall(r'href="#([^"]+)"', summary.contents(res))

@@ -139,7 +139,7 @@ def flow_section(results: Mapping[str, Any]) -> str:
             "left out, are the analysis population. "
             f"&ldquo;{esc(OTHER)}&rdquo; counts rows whose group cell is blank or none of "
             "the plan's groups.</p>")
-    return ("<h3>Participant flow by group</h3>"
+    return ('<h3 id="flow">Participant flow by group</h3>'  # the contents link here
             + table(["Step", "Detail", *groups, OTHER, "Total"], rows, numeric=numeric,
                     cls="prespec-flow")
             + note)

@@ -393,6 +393,7 @@ def summary(results: Mapping[str, Any]) -> str:
 ANCHORS = {
     "departures": "Departures from the plan and notes",
     "population": "Population",
+    "flow": "Participant flow by group",
     "design": "Planned versus achieved",
     "pooled": "Pooled outcomes",
     "dictionary": "Data dictionary",
@@ -420,12 +421,14 @@ def hypothesis_anchor(index: int) -> str:
 def _present(results: Mapping[str, Any]) -> list[str]:
     from prespec.report import design as design_report
     from prespec.report import families as family_report
+    from prespec.report.flow import flow_section
     from prespec.report.sections import forest_figure, outcomes
 
     rehearsal = blinded.is_rehearsal(results)
     shown = {
         "departures": True,
         "population": True,
+        "flow": bool(flow_section(results)),  # its heading carries the id
         "design": bool(design_report.planned_versus_achieved(results)),
         "pooled": rehearsal,
         "dictionary": bool(blinded.data_dictionary(results)),
