@@ -79,7 +79,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
         actor: str | None = None, accept_deviation: str | None = None,
         overrides: Mapping[str, Any] | None = None, look: int | None = None,
         engine: str = "auto", progress: Callable[[str, int, int], None] | None = None,
-        counting: Callable[[float], None] | None = None) -> RunOutcome:
+        counting: Callable[[float], None] | None = None, pdf: bool = False) -> RunOutcome:
     """Run the locked plan on ``data``; write the report folder and the ``run`` entry.
 
     ``progress(what, done, total)`` is called as the levels of a long family are prepared.
@@ -90,12 +90,18 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     ``look``: run interim look K of a plan with looks (a ``look`` entry); a plain run of such a
     plan is its final analysis (see ``looks.py``). ``data``: a file or a glob; without it, the
     plan's ``data.source``. ``engine``: ``auto`` (by the source), ``pandas``, ``duckdb``,
-    ``sql`` or ``spark``; ``counting(percent)`` reports a long reduction.
+    ``sql`` or ``spark``; ``counting(percent)`` reports a long reduction. ``pdf``: the report
+    folder also holds ``report.pdf`` (printed by headless Chromium; none found is bad input,
+    said before anything is read or written).
     """
     from prespec.data.engines.sources import check_source, resolve_source
 
     if accept_deviation is not None and not accept_deviation.strip():
         raise BadInput("--accept-deviation needs a reason")
+    if pdf:
+        from prespec.report.paper import require_chromium
+
+        require_chromium()
     loaded = load_plan(Path(plan))
     with audit.guard.hold(loaded.path.parent, exclusive=True):  # the files as one state
         entries = finish_stopped_writes(loaded.path)
@@ -138,7 +144,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     outcome = publish(loaded.path, out_path, results, numbered=out is None, action=action,
                       details=look_details(results),
                       before_entry=lambda: still_as_read(loaded.path, in_force, entries,
-                                                          looks is not None))
+                                                          looks is not None), pdf=pdf)
     return dataclasses.replace(outcome, procedures=procedures(model))
 
 
