@@ -34,11 +34,13 @@ import pytest
 from prespec.demo.adjusted import adjusted_frame
 from prespec.demo.safety import safety_frame
 from prespec.demo.wound import demo_data
-from prespec.report.paper import Browser, find_chromium
+from prespec.report.paper import PAPER, PRINT_CSS, Browser, find_chromium
 
 ROOT = Path(__file__).resolve().parents[2]
 PLANS = ROOT / "plans"
 WIDTH = 1000
+#: the printable width of A4 at 96 CSS pixels an inch
+PAPER_PX = int((PAPER["paperWidth"] - PAPER["marginLeft"] - PAPER["marginRight"]) * 96)
 PRESPEC = [sys.executable, "-m", "prespec"]
 REQUIRE = os.environ.get("PRESPEC_REQUIRE_SERVICES", "") not in ("", "0")
 
@@ -133,8 +135,16 @@ OVERFLOW = """
     const box = el.getBoundingClientRect();
     if (box.width === 0 && box.height === 0) continue;
     if (box.right > width + 0.5) bad.push(name(el) + ' reaches ' + Math.round(box.right));
-    else if (el.clientWidth > 0 && el.scrollWidth > el.clientWidth + 1)
-      bad.push(name(el) + ' holds ' + el.scrollWidth + ' px in ' + el.clientWidth);
+    else if (el.clientWidth > 0 && el.scrollWidth > el.clientWidth + 1) {
+      // name the innermost thing that sticks out, with the start of its text
+      const edge = box.left + el.clientWidth + 1;
+      const out = Array.from(el.querySelectorAll('*'))
+        .filter((c) => c.getBoundingClientRect().right > edge)
+        .sort((a, b) => a.getBoundingClientRect().width - b.getBoundingClientRect().width);
+      const what = out.length ? ' (' + name(out[0]) + ': ' +
+        out[0].textContent.trim().slice(0, 40) + ')' : '';
+      bad.push(name(el) + ' holds ' + el.scrollWidth + ' px in ' + el.clientWidth + what);
+    }
   }
   return bad.slice(0, 20);
 })()
@@ -227,6 +237,21 @@ def test_summary_table_and_contents(reports: dict[str, Report], browser: Browser
     assert found["contents"], "no table of contents (id=\"contents\")"
     assert len(found["links"]) >= 3 and found["missing"] == []
     assert found["top"] < 1500  # the summary on the first screens, not after the figures
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_on_paper_nothing_is_wider_than_the_page(reports: dict[str, Report], browser: Browser,
+                                                 name: str) -> None:
+    """Laid out for print with the rules report.pdf is printed with, at the width of A4 less
+    its margins: nothing wider than the paper (so nothing is clipped on paper)."""
+    page = opened(browser, reports[name])
+    page.add_style(PRINT_CSS)
+    page.media("print")
+    try:
+        page.resize(PAPER_PX)
+        assert page.evaluate(OVERFLOW) == []
+    finally:
+        page.media("")
 
 
 def test_the_departures_table_stays_in_its_box(reports: dict[str, Report],
