@@ -116,3 +116,52 @@ def test_missing_page_or_folder(tmp_path: Path) -> None:
     page = long_page(tmp_path, rows=1)
     with pytest.raises(BadInput, match="no such folder"):
         print_pdf(page, tmp_path / "nowhere" / "out.pdf", footer="x")
+
+
+# --- report FOLDER --pdf (workflow/paper.py): the refusals, before any browser ---------------
+
+
+def sealed_folder(tmp_path: Path, *, page: bool = True) -> Path:
+    from prespec.audit.manifest import write_manifest
+
+    folder = tmp_path / "run"
+    folder.mkdir()
+    (folder / "results.json").write_text('{"plan": "sha256:00", "plan_version": 1}\n')
+    if page:
+        (folder / "report.html").write_text("<p>report</p>\n")
+    write_manifest(folder)
+    return folder
+
+
+def test_report_command_refusals(tmp_path: Path) -> None:
+    from prespec import api
+    from prespec.errors import IntegrityStop
+
+    folder = sealed_folder(tmp_path)
+    with pytest.raises(BadInput, match="give --pdf"):
+        api.report(folder)
+    with pytest.raises(BadInput, match="not a report folder"):
+        api.report(tmp_path / "none", pdf=True)
+    with pytest.raises(BadInput, match="inside the report folder"):
+        api.report(folder, pdf=True, out=folder / "tables" / "x.pdf")
+    (tmp_path / "taken.pdf").write_bytes(b"mine")
+    with pytest.raises(BadInput, match="already exists; nothing overwritten"):
+        api.report(folder, pdf=True, out=tmp_path / "taken.pdf")
+    assert (tmp_path / "taken.pdf").read_bytes() == b"mine"
+    (folder / "report.html").write_text("<p>changed</p>\n")
+    with pytest.raises(IntegrityStop, match="report.html does not match its manifest hash"):
+        api.report(folder, pdf=True, out=tmp_path / "out.pdf")
+    (tmp_path / "bare").mkdir()
+    bare = sealed_folder(tmp_path / "bare", page=False)
+    with pytest.raises(BadInput, match="no report.html in the report folder"):
+        api.report(bare, pdf=True, out=tmp_path / "out.pdf")
+    assert not (tmp_path / "out.pdf").exists()
+
+
+def test_footer_of_a_report() -> None:
+    from prespec.report.paper import footer_of
+
+    assert footer_of({"plan": "sha256:ab", "plan_version": 2}) == \
+        "Plan fingerprint sha256:ab (version 2)"
+    assert footer_of({"plan": "sha256:ab", "plan_version": None}) == \
+        "Plan fingerprint sha256:ab (not locked)"
