@@ -14,7 +14,13 @@ import pytest
 from services import unavailable
 
 from prespec.errors import BadInput, PrespecError
-from prespec.report.paper import CHROMIUM_VARIABLE, Browser, find_chromium, print_pdf
+from prespec.report.paper import (
+    CHROMIUM_VARIABLE,
+    Browser,
+    find_chromium,
+    paper_width_px,
+    print_pdf,
+)
 
 FINGERPRINT = "sha256:" + "0123456789abcdef" * 4
 
@@ -72,14 +78,14 @@ def test_print_rules_keep_rows_whole_and_the_page_within_the_paper(chromium: Pat
         browser.open(page)
         browser.add_style(PRINT_CSS)
         browser.media("print")
-        browser.resize(718)  # A4 less the margins, in CSS pixels
+        browser.resize(paper_width_px())  # A4 less the margins, at the print scale
         inside = browser.evaluate(
             "getComputedStyle(document.querySelector('tbody tr')).breakInside")
         assert inside == "avoid"
         assert browser.evaluate("getComputedStyle(document.querySelector('thead')).display") \
             == "table-header-group"
         # the long hash wraps: nothing wider than the paper
-        assert browser.evaluate("document.documentElement.scrollWidth") <= 718
+        assert browser.evaluate("document.documentElement.scrollWidth") <= paper_width_px()
         browser.media("")
         browser.resize(300)
         # on screen the print rules do nothing: the unbroken value runs past a narrow window

@@ -34,13 +34,12 @@ import pytest
 from prespec.demo.adjusted import adjusted_frame
 from prespec.demo.safety import safety_frame
 from prespec.demo.wound import demo_data
-from prespec.report.paper import PAPER, PRINT_CSS, Browser, find_chromium
+from prespec.report.paper import PRINT_CSS, Browser, find_chromium, paper_width_px
 
 ROOT = Path(__file__).resolve().parents[2]
 PLANS = ROOT / "plans"
 WIDTH = 1000
-#: the printable width of A4 at 96 CSS pixels an inch
-PAPER_PX = int((PAPER["paperWidth"] - PAPER["marginLeft"] - PAPER["marginRight"]) * 96)
+PAPER_PX = paper_width_px()  # the width report.pdf's pages are laid out at
 PRESPEC = [sys.executable, "-m", "prespec"]
 REQUIRE = os.environ.get("PRESPEC_REQUIRE_SERVICES", "") not in ("", "0")
 
@@ -242,8 +241,8 @@ def test_summary_table_and_contents(reports: dict[str, Report], browser: Browser
 @pytest.mark.parametrize("name", NAMES)
 def test_on_paper_nothing_is_wider_than_the_page(reports: dict[str, Report], browser: Browser,
                                                  name: str) -> None:
-    """Laid out for print with the rules report.pdf is printed with, at the width of A4 less
-    its margins: nothing wider than the paper (so nothing is clipped on paper)."""
+    """Laid out for print with the rules and at the width report.pdf is printed with (A4 less
+    its margins, at its scale): nothing wider than the paper (so nothing is clipped)."""
     page = opened(browser, reports[name])
     page.add_style(PRINT_CSS)
     page.media("print")
