@@ -219,7 +219,7 @@ def test_every_image_is_painted(reports: dict[str, Report], browser: Browser,
                                 name: str) -> None:
     images = opened(browser, reports[name]).evaluate(IMAGES)
     figures = list((reports[name].folder / "figures").glob("*.png"))
-    assert len(images) >= len(figures) > 0 or name == "safety-review" and images
+    assert figures and len(images) >= len(figures)  # each figure shown, none left out
     for image in images:
         assert image["complete"] and image["natural"] > 0, image["alt"]
         assert image["width"] > 50 and image["height"] > 50, image["alt"]
