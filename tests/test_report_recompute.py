@@ -147,3 +147,10 @@ def test_ids_reach_the_code_only_as_literals() -> None:
     assert first == f"hypothesis = {ident!r}" and "\u202e" not in cell
     assert len(cell.splitlines()) == 4
     compile(cell, "cell", "exec")
+
+
+def test_a_rehearsal_gets_no_check_cells() -> None:
+    hyp = {"id": "H1", "test": "pearson-chi-square", "role": "primary", "executed": True}
+    base = len(template.build().cells)
+    assert len(template.filled({"kind": "rehearsal", "hypotheses": [hyp]}).cells) == base
+    assert template.check_cell(hyp) is None

@@ -193,9 +193,7 @@ def build() -> NotebookNode:
     return nb
 
 
-#: The test names whose function takes the whole k×2 table, and those that take a pair.
-_WHOLE = {"pearson-chi-square": "pearson_chi_square", "likelihood-ratio": "likelihood_ratio",
-          "cochran-armitage-trend": "cochran_armitage"}
+#: The test names whose function takes a pair of groups, tests at a margin, one group.
 _PAIR = {"barnard-exact": "barnard_exact", "boschloo-exact": "boschloo_exact",
          "fisher-exact": "fisher_exact", "two-proportion-z": "two_proportion_z"}
 _MARGIN = {"two-proportion-z": "wald_margin_z", "farrington-manning": "farrington_manning"}
@@ -271,6 +269,8 @@ def check_cell(h: dict[str, Any]) -> str | None:
     """The source of the cell that recomputes one hypothesis from ``tables/``, or None."""
     from prespec.report.tablenames import hypothesis_table
 
+    if not isinstance(h.get("table"), dict):  # a rehearsal's hypotheses have no table
+        return None
     test = _test_call(h)
     if test is None or h.get("p_value") is None and h.get("statistic") is None:
         return None
@@ -294,14 +294,15 @@ def check_cell(h: dict[str, Any]) -> str | None:
 def filled(results: dict[str, Any], folder: Path | None = None) -> NotebookNode:
     """The template with one cell per hypothesis after ``recompute`` (those whose test the
     count table alone gives: not the covariate-adjusted, stratified-score or Bayesian ones,
-    whose units or posteriors are not in ``tables/``). With ``folder``, only the hypotheses
-    whose table is there (a report folder always has them; a bare results file has none)."""
+    whose units or posteriors are not in ``tables/``); a rehearsal's none. With ``folder``,
+    only the hypotheses whose table is there (a report folder always has them)."""
     from prespec.report.tablenames import hypothesis_table
 
     nb = build()
     at = next(i for i, cell in enumerate(nb.cells) if cell.id == "recompute") + 1
     cells = []
-    for n, h in enumerate(results.get("hypotheses") or [], start=1):
+    hypotheses = results.get("hypotheses") if results.get("kind") == "run" else None
+    for n, h in enumerate(hypotheses or [], start=1):
         source = check_cell(h)
         if source is None or folder is not None and not (
                 folder / hypothesis_table(h["id"])).is_file():
