@@ -154,3 +154,20 @@ def test_a_rehearsal_gets_no_check_cells() -> None:
     base = len(template.build().cells)
     assert len(template.filled({"kind": "rehearsal", "hypotheses": [hyp]}).cells) == base
     assert template.check_cell(hyp) is None
+
+
+def test_an_overridden_test_is_recomputed_as_run(tmp_path: Path) -> None:
+    """A run with ``--test H1=fisher-exact``: H1's cell calls Fisher's test (the test used),
+    and the run's notebook passed it (the run would have failed otherwise)."""
+    from prespec.demo.wound import write_demo
+
+    plan, data = write_demo(tmp_path / "study")
+    api.lock(plan, actor="tour")
+    out = api.run(plan, data, out=tmp_path / "report", actor="tour",
+                  overrides={"hypotheses.H1.test": "fisher-exact"},
+                  accept_deviation="a check of the recompute cells")
+    cells = checks(nbformat.read(out.folder / "report.ipynb", as_version=4))
+    assert "stats.fisher_exact(events[0], totals[0], events[1], totals[1], " \
+           "alternative='two-sided')" in cells["H1"].source
+    assert "stats.pearson_chi_square(" in cells["H2"].source
+    assert not [o for c in cells.values() for o in c.outputs if o.output_type == "error"]
