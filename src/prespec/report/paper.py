@@ -41,7 +41,7 @@ CHROMIUM_VARIABLE = "PRESPEC_CHROMIUM"
 _NAMES = ("chromium", "chromium-browser")
 
 #: A4 in inches, and the margins (the bottom one holds the footer); the page is laid out at
-#: 80 % (so 898 CSS pixels wide, and 14 px text prints at about 8.4 pt): the report's wide
+#: 80 % (so 860 CSS pixels wide, and 14 px text prints at about 8.4 pt): the report's wide
 #: tables fit without their headings broken inside words.
 PAPER = {"paperWidth": 8.27, "paperHeight": 11.69, "marginTop": 0.55, "marginBottom": 0.75,
          "marginLeft": 0.55, "marginRight": 0.55, "scale": 0.8}
@@ -51,6 +51,7 @@ def paper_width_px() -> int:
     """The width, in CSS pixels, a page is laid out at when printed on :data:`PAPER`."""
     inches = PAPER["paperWidth"] - PAPER["marginLeft"] - PAPER["marginRight"]
     return int(inches * 96 / PAPER["scale"])
+
 
 #: Print rules added to the page before it is printed: nothing cut at a page break, nothing
 #: wider than the paper.
