@@ -31,6 +31,7 @@ _WHERE = {
     "apply_overrides": "prespec.workflow.overrides",
     "RunOutcome": "prespec.workflow.publish",
     "rehearse": "prespec.workflow.rehearse",
+    "report": "prespec.workflow.paper",
     "run": "prespec.workflow.run",
     "VerifyResult": "prespec.workflow.verify",
     "verify": "prespec.workflow.verify",
@@ -51,6 +52,7 @@ if TYPE_CHECKING:
         schema,
     )
     from prespec.workflow.overrides import apply_overrides
+    from prespec.workflow.paper import report
     from prespec.workflow.publish import RunOutcome
     from prespec.workflow.rehearse import rehearse
     from prespec.workflow.run import run
@@ -86,6 +88,7 @@ __all__ = [
     "lock",
     "new_key",
     "rehearse",
+    "report",
     "resolve_actor",
     "run",
     "schema",

@@ -78,12 +78,22 @@ def _parser() -> argparse.ArgumentParser:
                    help="run interim look K of a plan with looks (a plain run is the final "
                    "analysis)")
     _timestamp_option(c, "the report's results.json")
+    c.add_argument("--pdf", action="store_true",
+                   help="also write report.pdf into the report folder (printed by headless "
+                   "Chromium; listed in the manifest)")
     c = add("rehearse", "a blinded dry run: never reads the group column, checks the data "
             "and every step, and writes pooled figures and a data dictionary only", writes=True)
     c.add_argument("plan")
     c.add_argument("data", nargs="?", help="a data file or glob (default: the plan's data.source)")
     c.add_argument("--out", help="the report folder to create (must not exist or be empty)")
     _engine_option(c)
+    c = add("report", "print an existing report folder's page to PDF, after checking the "
+            "folder against its manifest")
+    c.add_argument("folder")
+    c.add_argument("--pdf", action="store_true", help="write the PDF (required)")
+    c.add_argument("--out", metavar="FILE",
+                   help="where to write it, outside the report folder (default: <folder "
+                   "name>.pdf here)")
     c = add("verify", "check the lock, the audit log and every report, from the files alone")
     c.add_argument("plan")
     c.add_argument("--expect", metavar="FINGERPRINT",
@@ -345,7 +355,7 @@ def _dispatch(args: argparse.Namespace) -> int:
         out = api.run(args.plan, args.data, out=args.out, actor=args.actor,
                       accept_deviation=args.accept_deviation, overrides=_overrides(args),
                       look=args.look, engine=args.engine, progress=_progress_bar("preparing"),
-                      counting=_reduction_bar(), timestamp=args.timestamp)
+                      counting=_reduction_bar(), timestamp=args.timestamp, pdf=args.pdf)
         for dev in out.results["deviations"]:
             print(f"departure: {dev['code']}: {dev['detail']}")
         interim = any(isinstance(h.get("looks"), dict) and h["looks"].get("look") !=
@@ -372,6 +382,8 @@ def _dispatch(args: argparse.Namespace) -> int:
                   f"{'hypothesis' if len(empty) == 1 else 'hypotheses'} would not compute in "
                   f"the run: {', '.join(h['id'] for h in empty)} ({why})", file=sys.stderr)
             return 2
+    elif args.command == "report":
+        print(api.report(args.folder, pdf=args.pdf, out=args.out))
     elif args.command == "verify":
         if args.report is not None and args.rerun is None:
             raise BadInput("--report goes with --rerun DATA")

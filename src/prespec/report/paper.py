@@ -34,13 +34,24 @@ from typing import Any, Self
 
 from prespec.errors import BadInput, PrespecError
 
+#: The name of the printed report in a report folder.
+PDF = "report.pdf"
 #: The environment variable that names the browser to print with.
 CHROMIUM_VARIABLE = "PRESPEC_CHROMIUM"
 _NAMES = ("chromium", "chromium-browser")
 
-#: A4 in inches, and the margins (the bottom one holds the footer).
+#: A4 in inches, and the margins (the bottom one holds the footer); the page is laid out at
+#: 80 % (so 860 CSS pixels wide, and 14 px text prints at about 8.4 pt): the report's wide
+#: tables fit without their headings broken inside words.
 PAPER = {"paperWidth": 8.27, "paperHeight": 11.69, "marginTop": 0.55, "marginBottom": 0.75,
-         "marginLeft": 0.55, "marginRight": 0.55}
+         "marginLeft": 0.55, "marginRight": 0.55, "scale": 0.8}
+
+
+def paper_width_px() -> int:
+    """The width, in CSS pixels, a page is laid out at when printed on :data:`PAPER`."""
+    inches = PAPER["paperWidth"] - PAPER["marginLeft"] - PAPER["marginRight"]
+    return int(inches * 96 / PAPER["scale"])
+
 
 #: Print rules added to the page before it is printed: nothing cut at a page break, nothing
 #: wider than the paper.
@@ -55,8 +66,7 @@ PRINT_CSS = """
   thead { display: table-header-group; }
   img, svg { max-width: 100% !important; height: auto !important; }
   table { max-width: 100% !important; }
-  td, code, pre { overflow-wrap: anywhere; white-space: normal; }
-  th { overflow-wrap: normal; word-break: normal; hyphens: manual; }
+  td, th, code, pre { overflow-wrap: anywhere; white-space: normal; }
   td.num { white-space: nowrap; }
   a { color: inherit; text-decoration: none; }
 }
@@ -86,12 +96,31 @@ def find_chromium() -> Path | None:
     return None
 
 
+def require_chromium() -> Path:
+    """The Chromium to use, or :class:`BadInput` (one line) saying how to get one."""
+    found = find_chromium()
+    if found is None:
+        raise BadInput("no Chromium found to print or check the report with: install it "
+                       f"(Debian: apt-get install chromium) or set {CHROMIUM_VARIABLE} to "
+                       "its path")
+    return found
+
+
+def footer_of(results: dict[str, Any]) -> str:
+    """A report's footer: the plan's fingerprint and version (a run of a plan never locked
+    says so), so that every sheet names the analysis it belongs to."""
+    version = results.get("plan_version")
+    locked = f"version {version}" if version is not None else "not locked"
+    return f"Plan fingerprint {results.get('plan')} ({locked})"
+
+
 def footer_template(footer: str) -> str:
-    """The footer Chromium prints on every page: the text on the left, "page n of N" on the
-    right (``pageNumber`` and ``totalPages`` are filled in by the browser)."""
+    """The footer Chromium prints on every page: the text on the left (a line break in it
+    kept), "page n of N" on the right (``pageNumber`` and ``totalPages`` are filled in by the
+    browser)."""
     from prespec.common.shown import visible
 
-    text = html.escape(visible(footer))
+    text = "<br>".join(html.escape(visible(line)) for line in footer.split("\n"))
     return (
         '<div style="font-family: sans-serif; font-size: 7.5pt; color: #444444; width: 100%; '
         'margin: 0 0.55in; display: flex; justify-content: space-between; gap: 1em;">'
@@ -155,12 +184,7 @@ class Browser:
 
     def __init__(self, executable: Path | None = None, *, width: int = 1000,
                  height: int = 800, timeout: float = 60.0) -> None:
-        found = executable or find_chromium()
-        if found is None:
-            raise BadInput("no Chromium found to print or check the report with: install it "
-                           f"(Debian: apt-get install chromium) or set {CHROMIUM_VARIABLE} to "
-                           "its path")
-        self.executable = Path(found)
+        self.executable = Path(executable or require_chromium())
         self.width, self.height, self.timeout = width, height, timeout
         self._profile: str | None = None
         self._process: subprocess.Popen[bytes] | None = None

@@ -22,6 +22,7 @@ from nbformat import NotebookNode
 
 from prespec.common.shown import visible
 from prespec.errors import PrespecError
+from prespec.report.template import filled
 
 TEMPLATE = Path(__file__).with_name("template.ipynb")
 
@@ -141,7 +142,9 @@ def render_notebook(folder: Path, *, kernel_name: str | None = None) -> None:
     partial_html = folder / _PARTIAL_HTML
     try:
         digest = results_digest(results_path)
-        executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL)
+        # the template, and a cell per hypothesis that recomputes it from tables/
+        notebook = filled(json.loads(results_path.read_bytes()), folder)
+        executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL, notebook)
         _clean(executed, _title(results_path))
         page = _to_html(executed)
         nbformat.write(executed, partial_nb)
@@ -170,7 +173,8 @@ KERNEL_STARTS = 3  # tries at starting the notebook's kernel
 _KERNEL_START_FAILED = "Kernel died before replying to kernel_info"
 
 
-def _execute(folder: Path, output: Path, digest: str, kernel_name: str) -> NotebookNode:
+def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
+             notebook: NotebookNode | None = None) -> NotebookNode:
     import papermill
     from papermill.exceptions import PapermillExecutionError
 
@@ -182,7 +186,7 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str) -> Noteb
         for attempt in range(1, KERNEL_STARTS + 1):
             try:
                 node: NotebookNode = papermill.execute_notebook(
-                    str(TEMPLATE),
+                    str(TEMPLATE) if notebook is None else notebook,
                     str(output),
                     parameters={"results_file": RESULTS, "results_sha256": digest},
                     kernel_name=kernel_name,

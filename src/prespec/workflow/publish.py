@@ -75,11 +75,13 @@ def results_bytes(results: dict[str, Any]) -> bytes:
     return (json_text(finish(results), indent=2, allow_nan=False) + "\n").encode("utf-8")
 
 
-def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
-                 ) -> tuple[Path, str]:
+def build_report(folder: Path, results: dict[str, Any], *, render: bool = True,
+                 pdf: bool = False) -> tuple[Path, str]:
     """Write the whole report into a temporary folder beside ``folder``: (it, the manifest hash).
 
-    Nothing is left behind when any step fails: the temporary folder is removed.
+    ``pdf``: also ``report.pdf``, the HTML printed by headless Chromium (``report/paper.py``),
+    listed in the manifest like every other file. Nothing is left behind when any step fails:
+    the temporary folder is removed.
     """
     from prespec.report import render_notebook, write_figures  # heavy imports, only when reporting
 
@@ -92,6 +94,10 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True
         write_figures(results, tmp)
         if render:
             render_notebook(tmp)
+            if pdf:
+                from prespec.report.paper import PDF, footer_of, print_pdf
+
+                print_pdf(tmp / "report.html", tmp / PDF, footer=footer_of(results))
         manifest = write_manifest(tmp)
         audit.files.fsync_dir(tmp)
     except BaseException:
@@ -120,7 +126,7 @@ def move_into_place(tmp: Path, folder: Path, manifest: str | None = None) -> Non
 def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bool,
             action: str = "run", details: dict[str, Any] | None = None,
             before_entry: Callable[[], None] | None = None,
-            stamp_url: str | None = None) -> RunOutcome:
+            stamp_url: str | None = None, pdf: bool = False) -> RunOutcome:
     """Build the report under a temporary name, append its log entry, then move it into place.
 
     The log entry is the moment the run counts. Before it, a failure or a stop removes
@@ -157,7 +163,7 @@ def publish(plan_path: Path, out: Path, results: dict[str, Any], *, numbered: bo
                 break
 
     try:
-        tmp, manifest = build_report(folder, results)
+        tmp, manifest = build_report(folder, results, pdf=pdf)
     except BaseException:
         clean(None)
         raise

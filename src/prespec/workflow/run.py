@@ -81,7 +81,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
         overrides: Mapping[str, Any] | None = None, look: int | None = None,
         engine: str = "auto", progress: Callable[[str, int, int], None] | None = None,
         counting: Callable[[float], None] | None = None,
-        timestamp: str | None = None) -> RunOutcome:
+        timestamp: str | None = None, pdf: bool = False) -> RunOutcome:
     """Run the locked plan on ``data``; write the report folder and the ``run`` entry.
 
     ``progress(what, done, total)`` is called as the levels of a long family are prepared.
@@ -94,7 +94,9 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     plan's ``data.source``. ``engine``: ``auto`` (by the source), ``pandas``, ``duckdb``,
     ``sql`` or ``spark``; ``counting(percent)`` reports a long reduction. ``timestamp``: the
     URL of an RFC 3161 time-stamping authority (default ``$PRESPEC_TSA_URL``) that stamps
-    the report's results.json before anything is written.
+    the report's results.json before anything is written. ``pdf``: the report
+    folder also holds ``report.pdf`` (printed by headless Chromium; none found is bad input,
+    said before anything is read or written).
     """
     from prespec.audit.timestamp import authority_url
     from prespec.data.engines.sources import check_source, resolve_source
@@ -102,6 +104,10 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     if accept_deviation is not None and not accept_deviation.strip():
         raise BadInput("--accept-deviation needs a reason")
     stamp_url = authority_url(timestamp)
+    if pdf:
+        from prespec.report.paper import require_chromium
+
+        require_chromium()
     loaded = load_plan(Path(plan))
     with audit.guard.hold(loaded.path.parent, exclusive=True):  # the files as one state
         entries = finish_stopped_writes(loaded.path)
@@ -146,7 +152,7 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
                       details=look_details(results),
                       before_entry=lambda: still_as_read(loaded.path, in_force, entries,
                                                           looks is not None),
-                      stamp_url=stamp_url)
+                      stamp_url=stamp_url, pdf=pdf)
     return dataclasses.replace(outcome, procedures=procedures(model))
 
 
