@@ -56,9 +56,19 @@ def _adjusted(path: Path) -> None:
     adjusted_frame().to_csv(path, index=False, lineterminator="\n")
 
 
+def _safety_events(path: Path) -> None:
+    """The participant table as the run's data, the event table where the plan names it."""
+    from prespec.demo.safety import EVENTS_NAME, event_tables
+
+    units, events = event_tables(safety_frame())
+    units.to_csv(path, index=False)
+    events.to_csv(path.with_name(EVENTS_NAME), index=False)
+
+
 #: each example plan and the invented data it is written for
 DATA = {"wound-dressing": _wound, "methods-tour": _wound, "bayesian-secondary": _wound,
-        "safety-review": _safety, "adjusted-primary": _adjusted}
+        "safety-review": _safety, "safety-events": _safety_events,
+        "adjusted-primary": _adjusted}
 
 
 def cli(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
@@ -177,7 +187,7 @@ SUMMARY = """
 
 DEPARTURES = """
 (() => {
-  const box = document.querySelector('#departures, .prespec-departures');
+  const box = document.querySelector('.prespec-departures');
   if (box === null) return null;
   const table = box.querySelector('table');
   if (table === null) return {box: true, table: false};
@@ -192,7 +202,7 @@ DEPARTURES = """
 """
 
 NAMES = ["wound-dressing", "demo-again", "methods-tour", "bayesian-secondary",
-         "safety-review", "adjusted-primary"]
+         "safety-review", "safety-events", "adjusted-primary"]
 
 
 def text_of(page: Any) -> str:

@@ -360,7 +360,7 @@ def summary(results: Mapping[str, Any]) -> str:
     words, style = _departures_line(results)
     parts = [
         f'<h1 class="prespec-title">{esc(title)}</h1>',
-        '<div class="prespec-summary">',
+        '<div class="prespec-summary" id="summary">',
         facts(results),
         (f'<div class="prespec-summary-departures" style="{style}">'
          f"<strong>Departures:</strong> {esc(words)}. "
@@ -461,6 +461,6 @@ def contents(results: Mapping[str, Any]) -> str:
                 link += f"<ol>{''.join(subs)}</ol>"
         entries.append(f"<li>{link}</li>")
     return (
-        '<nav class="prespec-contents"><p class="prespec-contents-title"><strong>Contents'
+        '<nav class="prespec-contents" id="contents"><p class="prespec-contents-title"><strong>Contents'
         f"</strong></p><ol>{''.join(entries)}</ol></nav>"
     )
