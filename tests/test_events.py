@@ -475,3 +475,40 @@ def test_the_event_demo_from_transport_files_gives_the_csv_review(tmp_path: Path
     assert {k: v for k, v in got["event_table"].items() if k not in drop} == {
         k: v for k, v in want["event_table"].items() if k not in drop}
     assert got["event_table"]["data_file"] == "safety-events.xpt"
+
+
+def test_the_rehearsal_shows_the_labels_an_event_table_declares(tmp_path: Path) -> None:
+    """An event table written as an SPSS file (pyreadstat ``write_sav``) with column labels and
+    labels for two stored terms: the rehearsal lists them beside the columns and levels."""
+    import pyreadstat
+
+    from prespec.demo import safety_events
+    from prespec.report.blinded import event_table
+
+    folder = tmp_path / "gel"
+    assert safety_events.main([str(folder)]) == 0
+    frame = pd.read_csv(folder / "safety-events.csv", dtype=str, keep_default_na=False)
+    pyreadstat.write_sav(frame, str(folder / "events.sav"),
+                         column_labels={"participant": "Participant id",
+                                        "event_term": "Adverse event term"},
+                         variable_value_labels={"event_term": {"dryness": "Dry skin",
+                                                               "redness": "Erythema"}})
+    plan = folder / "sav.yaml"
+    plan.write_text((folder / "safety-events.yaml").read_text()
+                    .replace("source: safety-events.csv", "source: events.sav"))
+    out = api.rehearse(plan, folder / "safety-participants.csv", out=tmp_path / "reh",
+                       actor="ana")
+    ev = out.results["event_table"]
+    assert ev["columns"] == [
+        {"column": "participant", "role": "data.events.id", "label": "Participant id"},
+        {"column": "event_term", "role": "data.events.level", "label": "Adverse event term"},
+        {"column": "body_system", "role": "data.events.within"}]
+    labelled = {lv["level"]: lv["label"] for lv in ev["levels"] if "label" in lv}
+    assert labelled == {"dryness": "Dry skin", "redness": "Erythema"}
+    html = event_table(out.results)
+    assert "<td>dryness</td><td>Dry skin</td>" in html.replace(' class="num"', "")
+    # a CSV event table declares no labels: no columns block, no label column
+    plain = api.rehearse(folder / "safety-events.yaml", folder / "safety-participants.csv",
+                         out=tmp_path / "reh2", actor="ana")
+    assert "columns" not in plain.results["event_table"]
+    assert "Label in the file" not in event_table(plain.results)

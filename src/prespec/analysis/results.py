@@ -725,6 +725,16 @@ class EventTable(Part):
 class RehearsedEventLevel(Part):
     level: Text = Field(description="A level of the event table.")
     rows: Count = Field(description="Its event rows of known units, all groups together.")
+    label: Text | None = Field(default=None, description="The label the event table declares "
+                               "for this stored level (a dataset file's); absent without one.")
+
+
+class EventColumn(Part):
+    """A column of the event table the plan reads, with the label the file declares."""
+
+    column: Text = Field(description="The column.")
+    role: Text = Field(description="data.events.id, data.events.level or data.events.within.")
+    label: Text | None = Field(default=None, description="Its label; absent without one.")
 
 
 class RehearsedEventTable(Part):
@@ -739,6 +749,9 @@ class RehearsedEventTable(Part):
     blank_level_rows: Count = Field(description="Rows of known units with a blank level.")
     outside_rows: Count = Field(description="Rows of units outside the analysis population.")
     levels: list[RehearsedEventLevel] = Field(description="Event rows per level.")
+    columns: list[EventColumn] | None = Field(
+        default=None, description="The columns read, with their labels: only when the event "
+        "table declares labels (a transport or dataset file).")
 
 
 # --- the design's planned versus achieved sizes ---

@@ -255,13 +255,29 @@ def event_table(results: Mapping[str, Any]) -> str:
                       "Blank level", "Rows of units outside the population"],
                      [[fmt_thousands(count[k]) for k in count]], numeric=range(5),
                      cls="prespec-event-table"))
+    columns = [mapping(c, f"event_table.columns[{i}]")
+               for i, c in enumerate(items(ev.get("columns") or [], "event_table.columns"))]
+    if columns:
+        out.append(table(["Column", "Read as", "Label in the file"], [
+            [text(c.get("column"), "event_table.columns.column"),
+             text(c.get("role"), "event_table.columns.role"),
+             text(c.get("label"), "event_table.columns.label", default=NULL)] for c in columns],
+            cls="prespec-event-columns", caption="The columns of the event table read"))
     rows = []
-    for i, raw in enumerate(items(ev.get("levels") or [], "event_table.levels")):
-        level = mapping(raw, f"event_table.levels[{i}]")
-        rows.append([text(level.get("level"), f"event_table.levels[{i}].level", default=NULL),
-                     fmt_thousands(number(level.get("rows"), f"event_table.levels[{i}].rows"))])
+    levels = [mapping(raw, f"event_table.levels[{i}]")
+              for i, raw in enumerate(items(ev.get("levels") or [], "event_table.levels"))]
+    labelled = any(level.get("label") is not None for level in levels)
+    for i, level in enumerate(levels):
+        row = [text(level.get("level"), f"event_table.levels[{i}].level", default=NULL)]
+        if labelled:
+            row.append(text(level.get("label"), f"event_table.levels[{i}].label",
+                            default=NULL))
+        rows.append(row + [fmt_thousands(number(level.get("rows"),
+                                                f"event_table.levels[{i}].rows"))])
     if rows:
-        out.append(table(["Level", "Event rows of known units"], rows, numeric=(1,),
+        head = ["Level", *(["Label in the file"] if labelled else []),
+                "Event rows of known units"]
+        out.append(table(head, rows, numeric=(len(head) - 1,),
                          cls="prespec-event-levels", caption="Event rows per level"))
     out.append("<p>Rows whose id is not in the unit table, or whose level is blank, are left "
                "out of every family and recorded as departures. A family counts each unit of "

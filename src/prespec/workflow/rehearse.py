@@ -260,6 +260,25 @@ def _hypothesis_rows(plan: Plan, executed: dict[str, Executed],
     return rows
 
 
+def _event_labels(event_table: dict[str, Any], plan: Any, labels: Any) -> None:
+    """The labels an event table (a transport or dataset file) declares: its columns' beside
+    the columns read, each level's beside the level (matched as the plan matches values)."""
+    from prespec.common.matching import value_key
+
+    spec = plan.data.events
+    read = [(spec.id, "data.events.id"), (spec.level, "data.events.level")]
+    if spec.within:
+        read.append((spec.within, "data.events.within"))
+    declared = {value_key(k): v for k, v in labels.values.get(spec.level, {}).items()}
+    for level in event_table["levels"]:
+        if value_key(level["level"]) in declared:
+            level["label"] = declared[value_key(level["level"])]
+    if labels.columns or declared:
+        event_table["columns"] = [
+            {"column": c, "role": r, **({"label": labels.columns[c]}
+                                        if c in labels.columns else {})} for c, r in read]
+
+
 def _dummy_looks(plan: Any, hypotheses: list[dict[str, Any]], notes: list[Note]) -> None:
     """The step of interim looks on the dummy allocation, as the final analysis with no
     earlier looks (the rehearsal has no log of looks); its departures are discarded."""
@@ -430,6 +449,7 @@ def compute_rehearsal(
                                                   "blank_level_rows", "outside_rows")},
                        "levels": [{"level": k, "rows": v}
                                   for k, v in sorted(summary["levels"].items())]}
+        _event_labels(event_table, plan, source_labels(events))
     covariates, model_checks = covariate_figures(frame, plan, source_name, prepared)
     del frame  # the dummy labels go no further than the dummy run
 
