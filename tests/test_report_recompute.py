@@ -117,8 +117,9 @@ def test_a_changed_count_or_setting_fails_the_cell(report: Path) -> None:
 
 
 def test_no_cell_for_what_the_table_does_not_give() -> None:
-    """A covariate-adjusted, stratified-score or Bayesian hypothesis has no check cell (its
-    units or posteriors are not in tables/); neither has one without a p-value."""
+    """A covariate-adjusted or stratified-score hypothesis has no check cell (its units are not
+    in tables/), nor a Bayesian one whose priors results.json does not give; neither has one
+    without a p-value."""
     base = {"id": "H1", "kind": "pair", "alternative": "two-sided",
             "comparison": "superiority", "margin": None, "continuity": False,
             "table": {"groups": ["a", "b"], "events": [1, 2], "totals": [10, 10]},
@@ -171,3 +172,31 @@ def test_an_overridden_test_is_recomputed_as_run(tmp_path: Path) -> None:
            "alternative='two-sided')" in cells["H1"].source
     assert "stats.pearson_chi_square(" in cells["H2"].source
     assert not [o for c in cells.values() for o in c.outputs if o.output_type == "error"]
+
+
+def test_a_bayesian_rule_is_recomputed_from_its_table_and_priors(tmp_path: Path) -> None:
+    """plans/bayesian-secondary.yaml: H2's cell calls prespec.stats.bayes with the priors
+    results.json records and passes; run again with a count changed, it fails alone."""
+    plan = tmp_path / "bayes.yaml"
+    shutil.copy(TOUR.with_name("bayesian-secondary.yaml"), plan)
+    (tmp_path / "data.csv").write_text(demo_data())
+    api.lock(plan, actor="tour")
+    folder = api.run(plan, tmp_path / "data.csv", out=tmp_path / "report").folder
+    nb = nbformat.read(folder / "report.ipynb", as_version=4)
+    cells = checks(nb)
+    assert list(cells) == ["H1", "H2"]
+    h2 = cells["H2"].source
+    assert "from prespec.stats.bayes import posterior_difference" in h2
+    assert ("(0.8, 3.2), (0.8, 3.2), margin=0.0, alternative='less', credible=0.95)"
+            in h2)
+    assert not [o for o in cells["H2"].outputs if o.output_type == "error"]
+    cells["H2"].source = h2.replace("posterior = ", "events[1] += 1\nposterior = ", 1)
+    manager = render._kernel_options(render.KERNEL)["kernel_manager_class"]
+    NotebookClient(nb, kernel_name=render.KERNEL, allow_errors=True, timeout=300,
+                   kernel_manager_class=manager,
+                   resources={"metadata": {"path": str(folder)}}).execute()
+    failed = {ident: "".join(o.get("evalue", "") for o in cell.outputs
+                             if o.output_type == "error")
+              for ident, cell in checks(nb).items()}
+    assert failed["H2"].startswith("H2: posterior probability recomputed as")
+    assert not failed["H1"]

@@ -267,12 +267,56 @@ def _estimate_call(h: dict[str, Any]) -> str | None:
     return f"stats.{fn.__name__}({args}, {level!r})"
 
 
+def _bayes_cell(h: dict[str, Any], table: str) -> str | None:
+    """A Bayesian rule recomputed from its count table and the priors results.json records:
+    the posterior probability, the posterior mean and the credible interval."""
+    bay = h.get("bayesian") or {}
+    est = h.get("estimate") or {}
+    if not bay.get("prior") or h.get("posterior_probability") is None or not est:
+        return None
+    priors = [(float(p["a"]), float(p["b"])) for p in bay["prior"]]
+    common = f"alternative={bay['alternative']!r}, credible={est['level']!r}"
+    if len(priors) == 1:
+        call = (f"posterior_single(events[0], totals[0], {priors[0]!r}, "
+                f"null_rate={bay['null_rate']!r}, {common})")
+        name = "posterior_single"
+    else:
+        call = (f"posterior_difference(events[0], totals[0], events[1], totals[1], "
+                f"{priors[0]!r}, {priors[1]!r}, margin={bay['margin']!r}, {common})")
+        name = "posterior_difference"
+    return _BAYES_CELL.format(name=name, hypothesis=repr(h["id"]), table=repr(table),
+                              call=call[len(name) + 1:])
+
+
+#: A Bayesian rule's cell: {name} of prespec.stats.bayes on the table's counts.
+_BAYES_CELL = """\
+hypothesis = {hypothesis}
+from prespec.stats.bayes import {name}  # noqa: E402
+
+groups, events, totals = read_counts({table})
+# the priors and the rule's event as results.json records them (bayesian.prior)
+posterior = {name}(
+    {call}
+kept = recorded[hypothesis]
+for what, found, value in [
+        ("posterior probability", posterior.probability, kept["posterior_probability"]),
+        ("posterior mean", posterior.mean, kept["estimate"]["value"]),
+        ("credible interval, lower limit", posterior.low, kept["estimate"]["ci"][0]),
+        ("credible interval, upper limit", posterior.high, kept["estimate"]["ci"][1])]:
+    assert same(found, value), (
+        f"{{hypothesis}}: {{what}} recomputed as {{found!r}}, results.json has {{value!r}}")
+assert [events, totals] == [kept["table"]["events"], kept["table"]["totals"]], (
+    f"{{hypothesis}}: the counts differ from those results.json records")"""
+
+
 def check_cell(h: dict[str, Any]) -> str | None:
     """The source of the cell that recomputes one hypothesis from ``tables/``, or None."""
     from prespec.report.tablenames import hypothesis_table
 
     if not isinstance(h.get("table"), dict):  # a rehearsal's hypotheses have no table
         return None
+    if h.get("test") == "posterior-probability":
+        return _bayes_cell(h, hypothesis_table(h["id"]))
     test = _test_call(h)
     if test is None or h.get("p_value") is None and h.get("statistic") is None:
         return None
@@ -295,8 +339,9 @@ def check_cell(h: dict[str, Any]) -> str | None:
 
 def filled(results: dict[str, Any], folder: Path | None = None) -> NotebookNode:
     """The template with one cell per hypothesis after ``recompute`` (those whose test the
-    count table alone gives: not the covariate-adjusted, stratified-score or Bayesian ones,
-    whose units or posteriors are not in ``tables/``); a rehearsal's none. With ``folder``,
+    count table alone gives, a Bayesian rule's with the priors results.json records: not the
+    covariate-adjusted or stratified-score ones, whose units are not in ``tables/``); a
+    rehearsal's none. With ``folder``,
     only the hypotheses whose table is there (a report folder always has them)."""
     from prespec.report.tablenames import hypothesis_table
 
