@@ -66,6 +66,18 @@ def checks(nb: nbformat.NotebookNode) -> dict[str, nbformat.NotebookNode]:
     return out
 
 
+def run_again(nb: nbformat.NotebookNode, folder: Path) -> dict[str, str]:
+    """Execute the notebook again in ``folder`` as a reviewer would (errors kept in the
+    outputs); the error each check cell raised, by hypothesis ("" for none)."""
+    manager = render._kernel_options(render.KERNEL)["kernel_manager_class"]  # this Python's
+    NotebookClient(nb, kernel_name=render.KERNEL, allow_errors=True, timeout=300,
+                   kernel_manager_class=manager,
+                   resources={"metadata": {"path": str(folder)}}).execute()
+    return {ident: "".join(o.get("evalue", "") for o in cell.outputs
+                           if o.output_type == "error")
+            for ident, cell in checks(nb).items()}
+
+
 def test_every_hypothesis_is_recomputed_in_the_notebook(report: Path) -> None:
     nb = nbformat.read(report / "report.ipynb", as_version=4)
     cells = checks(nb)
@@ -100,13 +112,7 @@ def test_a_changed_count_or_setting_fails_the_cell(report: Path) -> None:
     cells_of_first[1] = str(int(cells_of_first[1]) + 1)
     table.write_text("\n".join([head, ",".join(cells_of_first), *rest]) + "\n",
                      encoding="utf-8")
-    manager = render._kernel_options(render.KERNEL)["kernel_manager_class"]  # this Python's
-    NotebookClient(nb, kernel_name=render.KERNEL, allow_errors=True, timeout=300,
-                   kernel_manager_class=manager,
-                   resources={"metadata": {"path": str(work)}}).execute()
-    failed = {ident: "".join(o.get("evalue", "") for o in cell.outputs
-                             if o.output_type == "error")
-              for ident, cell in checks(nb).items()}
+    failed = run_again(nb, work)
     assert failed["H2"].startswith("H2: statistic recomputed as")
     assert failed["H9"].startswith("H9: statistic recomputed as")
     assert failed["H4"].startswith("H4: statistic recomputed as")
@@ -191,12 +197,6 @@ def test_a_bayesian_rule_is_recomputed_from_its_table_and_priors(tmp_path: Path)
             in h2)
     assert not [o for o in cells["H2"].outputs if o.output_type == "error"]
     cells["H2"].source = h2.replace("posterior = ", "events[1] += 1\nposterior = ", 1)
-    manager = render._kernel_options(render.KERNEL)["kernel_manager_class"]
-    NotebookClient(nb, kernel_name=render.KERNEL, allow_errors=True, timeout=300,
-                   kernel_manager_class=manager,
-                   resources={"metadata": {"path": str(folder)}}).execute()
-    failed = {ident: "".join(o.get("evalue", "") for o in cell.outputs
-                             if o.output_type == "error")
-              for ident, cell in checks(nb).items()}
+    failed = run_again(nb, folder)
     assert failed["H2"].startswith("H2: posterior probability recomputed as")
     assert not failed["H1"]
