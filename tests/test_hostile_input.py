@@ -14,6 +14,7 @@ import builtins
 import html
 import json
 import os
+import re
 import subprocess
 import sys
 from html.parser import HTMLParser
@@ -112,6 +113,11 @@ def hostile_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
         def call(*args: Any, **kwargs: Any) -> Any:
             if MARK in repr(args) or MARK in repr(kwargs):
                 seen.append(f"{name}{args!r:.200}")
+            if name in ("eval", "exec") and len(args) == 1 and not kwargs:
+                # without namespaces eval and exec use their caller's: give them the caller's,
+                # not this wrapper's (numpy's f2py, imported by scipy, evals a lambda so)
+                frame = sys._getframe(1)
+                return original(args[0], frame.f_globals, frame.f_locals)
             return original(*args, **kwargs)
         return call
 
@@ -155,7 +161,12 @@ def test_labels_are_literal_in_results_and_never_code_in_the_notebook(hostile_ru
         for c in code for out in c.get("outputs", []))
     # the notebook shows the labels as text: escaped markup that reads back as the label
     assert html.escape(TITLE, quote=False) in shown or html.escape(TITLE) in shown
-    assert "<script>" not in shown and "<img" not in shown
+    assert "<script>" not in shown
+    # the only images are prespec's own figures, embedded as PNG data (the participant flow)
+    images = re.findall(r"<img\b[^>]*>", shown)
+    assert all(re.fullmatch(r'<img src="data:image/png;base64,[A-Za-z0-9+/=]+" '
+                            r'style="[^"]*" alt="Participant flow by group[^"<>]*">', tag)
+               for tag in images), [tag[:120] for tag in images]
 
 
 def test_the_html_escapes_labels_and_has_no_script_or_event_attribute(hostile_run: Path) -> None:
