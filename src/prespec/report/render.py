@@ -5,6 +5,13 @@ the report folder, passing it only the name and the SHA-256 of ``results.json``;
 reads everything else from that file. The executed notebook becomes ``report.ipynb`` and its
 HTML export, with the code hidden and the figures embedded, ``report.html``. Both are written
 under temporary names and renamed into place only when both are complete.
+
+The kernel costs most of a report's time whatever the data: it starts and imports what the
+cells need (:data:`WARM_IMPORTS`, run by the kernel as it starts, before any cell). Given
+``alongside`` (the figures), :func:`render_notebook` starts the kernel in a thread, calls
+``alongside`` in the caller's thread meanwhile, and lets the notebook's first cell run only
+once it has returned: the cells read the figures, and they see exactly the files, and give
+exactly the bytes, that they would have seen had the figures been drawn first.
 """
 
 from __future__ import annotations
@@ -14,6 +21,8 @@ import json
 import logging
 import os
 import subprocess
+import threading
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -126,15 +135,19 @@ def results_digest(path: Path) -> str:
     return "sha256:" + hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def render_notebook(folder: Path, *, kernel_name: str | None = None) -> None:
+def render_notebook(folder: Path, *, kernel_name: str | None = None,
+                    alongside: Callable[[], object] | None = None) -> None:
     """Execute the report notebook in ``folder`` and write ``report.ipynb`` and ``report.html``.
 
-    ``folder`` must hold ``results.json`` and the figures that :func:`write_figures` wrote.
+    ``folder`` must hold ``results.json`` and the figures that :func:`write_figures` wrote,
+    or ``alongside`` must write them: it is called in this thread while the kernel starts, and
+    no cell runs before it has returned (an exception from it stops the kernel before its
+    first cell, and is raised as it is).
     The kernel is the current interpreter's ipykernel (``python3``) unless ``kernel_name`` says
     otherwise. Any failure raises :class:`prespec.errors.PrespecError` with a one-line message
     and leaves neither file behind.
     """
-    folder = Path(folder)
+    folder = Path(os.path.abspath(folder))  # the notebook runs in a thread: no chdir
     results_path = folder / RESULTS
     if not results_path.is_file():
         raise PrespecError(f"{results_path}: no results file to report on")
@@ -144,7 +157,11 @@ def render_notebook(folder: Path, *, kernel_name: str | None = None) -> None:
         digest = results_digest(results_path)
         # the template, and a cell per hypothesis that recomputes it from tables/
         notebook = filled(json.loads(results_path.read_bytes()), folder)
-        executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL, notebook)
+        if alongside is None:
+            executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL, notebook)
+        else:
+            executed = _execute_alongside(folder, partial_nb, digest, kernel_name or KERNEL,
+                                          notebook, alongside)
         _clean(executed, _title(results_path))
         page = _to_html(executed)
         nbformat.write(executed, partial_nb)
@@ -172,9 +189,77 @@ def _one_line(exc: BaseException) -> str:
 KERNEL_STARTS = 3  # tries at starting the notebook's kernel
 _KERNEL_START_FAILED = "Kernel died before replying to kernel_info"
 
+#: What the cells import, imported by this interpreter's kernel as it starts (ipykernel's
+#: ``exec_lines``, in no name of the user's namespace and in no cell's output), so that the
+#: import (scipy.stats the most of it) overlaps the figures. A module that fails here fails
+#: again, with its message, in the cell that imports it.
+WARM_IMPORTS = ("IPython.display", "prespec.report.sections", "prespec.report.summary",
+                "prespec.report.families", "prespec.stats")
+_WARM_LINES = ("for _prespec_module in " + repr(WARM_IMPORTS) + ":\n"
+               "    __import__(_prespec_module)\n"
+               "del _prespec_module")
+
+
+class _Stopped(Exception):
+    """The notebook stopped before a cell: the work beside it failed or was interrupted."""
+
+
+def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str,
+                       notebook: NotebookNode, alongside: Callable[[], object]) -> NotebookNode:
+    """:func:`_execute` in a thread while ``alongside()`` runs in this one; the notebook's
+    cells wait for it. A failure of either is raised here once the thread has ended (the
+    kernel shut down, no file of it left but the partial notebook, which the caller removes)."""
+    ready = threading.Event()
+    stop = threading.Event()
+    outcome: dict[str, Any] = {}
+
+    waits = _first_figure_cell(notebook)
+
+    def gate(cell: NotebookNode, cell_index: int, **_: Any) -> None:
+        # before every cell: an interrupt or a failure beside it stops at the next one
+        if cell_index >= waits:
+            ready.wait()
+        if stop.is_set():
+            raise _Stopped("stopped")
+
+    def work() -> None:
+        try:
+            outcome["node"] = _execute(folder, output, digest, kernel_name, notebook, gate)
+        except BaseException as exc:  # noqa: BLE001 (raised in the caller's thread)
+            outcome["error"] = exc
+
+    thread = threading.Thread(target=work, name="prespec-notebook", daemon=True)
+    thread.start()
+    try:
+        try:
+            alongside()
+        finally:
+            ready.set()
+        while thread.is_alive():
+            thread.join(0.05)
+    except BaseException:
+        stop.set()
+        ready.set()
+        thread.join()
+        raise
+    if "error" in outcome:
+        raise outcome["error"]
+    node: NotebookNode = outcome["node"]
+    return node
+
+
+def _first_figure_cell(notebook: NotebookNode) -> int:
+    """The index of the first cell that may read a figure (``Image(``, or any name with
+    "figure" in it); it and every cell after it wait for the figures."""
+    for index, cell in enumerate(notebook.cells):
+        if cell.cell_type == "code" and ("Image(" in cell.source or "figure" in cell.source):
+            return index
+    return len(notebook.cells)
+
 
 def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
-             notebook: NotebookNode | None = None) -> NotebookNode:
+             notebook: NotebookNode | None = None,
+             before_cell: Callable[..., None] | None = None) -> NotebookNode:
     import papermill
     from papermill.exceptions import PapermillExecutionError
 
@@ -192,7 +277,11 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
                     kernel_name=kernel_name,
                     progress_bar=False,
                     log_output=False,
-                    cwd=str(folder),
+                    request_save_on_cell_execute=False,  # written once, at the end
+                    # the kernel's working folder (papermill's cwd= would change this
+                    # process's, which the thread beside the notebook shares)
+                    resources={"metadata": {"path": str(folder)}},
+                    **({"on_cell_execute": before_cell} if before_cell else {}),
                     **_kernel_options(kernel_name),
                 )
                 break
@@ -228,6 +317,8 @@ def _kernel_options(kernel_name: str) -> dict[str, Any]:
     quiet = _quiet_manager(AsyncKernelManager)
     options["kernel_manager_class"] = (_this_interpreter_manager(quiet) if kernel_name == KERNEL
                                        else quiet)
+    if kernel_name == KERNEL:  # an ipykernel: it imports what the cells need as it starts
+        options["extra_arguments"] = [f"--IPKernelApp.exec_lines={_WARM_LINES}"]
     return options
 
 
