@@ -16,6 +16,7 @@ exactly the bytes, that they would have seen had the figures been drawn first.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import logging
@@ -235,6 +236,8 @@ def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str
             alongside()
         finally:
             ready.set()
+        if thread.is_alive():  # the kernel is still starting: the page's exporter meanwhile
+            _warm_html()
         while thread.is_alive():
             thread.join(0.05)
     except BaseException:
@@ -403,10 +406,18 @@ def _clean(nb: NotebookNode, title: str) -> None:
 
 
 def _to_html(nb: NotebookNode) -> str:
+    body, _resources = _html_exporter().from_notebook_node(
+        nb, resources={"metadata": {"name": "report"}})
+    return str(body)
+
+
+@functools.lru_cache(maxsize=1)
+def _html_exporter() -> Any:
+    """The page's exporter, made once per process (its template compiled once)."""
     import jinja2
     from nbconvert import HTMLExporter
 
-    exporter = HTMLExporter(
+    return HTMLExporter(
         template_name="lab",
         extra_loaders=[jinja2.DictLoader({_HTML_TEMPLATE_NAME: _HTML_TEMPLATE})],
         template_file=_HTML_TEMPLATE_NAME,
@@ -415,5 +426,18 @@ def _to_html(nb: NotebookNode) -> str:
         exclude_output_prompt=True,
         exclude_anchor_links=True,
     )
-    body, _resources = exporter.from_notebook_node(nb, resources={"metadata": {"name": "report"}})
-    return str(body)
+
+
+def _warm_html() -> None:
+    """Import nbconvert and export a notebook of one cell with the page's template, discarding
+    the page: the first export in a process costs about a second (imports, the template,
+    the filters' own imports), which is then paid while the kernel starts, not after the
+    cells. A failure here is left to the report's own export, which says it."""
+    cell = nbformat.v4.new_code_cell(outputs=[nbformat.v4.new_output(
+        "display_data", data={"text/html": "<p>warm</p>", "image/png": "iVBORw0KGgo="})])
+    try:
+        _html_exporter().from_notebook_node(
+            nbformat.v4.new_notebook(cells=[cell, nbformat.v4.new_markdown_cell("warm")]),
+            resources={"metadata": {"name": "warm"}})
+    except Exception:  # noqa: BLE001 (the report's export raises it, in one line)
+        return
