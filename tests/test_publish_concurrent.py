@@ -5,7 +5,9 @@ failure on either side stops both, leaves nothing and says the same one line."""
 from __future__ import annotations
 
 import base64
+import os
 import threading
+import time
 from pathlib import Path
 from typing import Any
 
@@ -153,3 +155,65 @@ def test_the_first_cell_that_may_read_a_figure() -> None:
     assert not any("Image(" in c.source for c in template.cells[:first])
     assert "Image(" in template.cells[first].source or "figure" in template.cells[first].source
     assert render._first_figure_cell(render.nbformat.v4.new_notebook()) == 0
+
+
+def _kernels() -> list[int]:
+    """The ipykernel processes this process started and that still run (Linux /proc)."""
+    found = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+            cmdline = (stat.parent / "cmdline").read_bytes()
+        except OSError:
+            continue
+        if int(fields[1]) == os.getpid() and b"ipykernel" in cmdline and fields[0] != "Z":
+            found.append(int(stat.parent.name))
+    return found
+
+
+def test_a_kernel_started_ahead_runs_the_notebook_with_the_same_bytes(
+        demo_results: dict[str, Any], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    first, first_manifest = _build(tmp_path / "first", demo_results, False, monkeypatch)
+    monkeypatch.setattr(publish, "FIGURES_WITH_KERNEL", True)
+    taken: list[Any] = []
+    original = render._execute
+
+    def spy(*args: Any, **kwargs: Any) -> Any:
+        taken.append(args[6] if len(args) > 6 else None)  # the kernel handed over, if any
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(render, "_execute", spy)
+    with publish.kernel_ahead():
+        assert len(render._WAITING) == 1
+        (tmp_path / "ahead").mkdir()
+        tmp, manifest = publish.build_report(tmp_path / "ahead" / "report", demo_results)
+        assert render._WAITING == []  # the notebook took it
+    assert len(taken) == 1 and taken[0] is not None
+    assert manifest == first_manifest
+    assert _files(tmp) == first
+    assert _kernels() == []  # the notebook shut it down
+    assert _no_notebook_thread()
+
+
+def test_a_kernel_started_ahead_and_not_used_is_shut_down(tmp_path: Path) -> None:
+    for wait in (0.0, 3.0):  # abandoned while starting, and once it has started
+        ahead = render.start_kernel_ahead()
+        time.sleep(wait)
+        render.close_kernel_ahead(ahead)
+        assert render._WAITING == []
+        assert _kernels() == []
+        assert _no_notebook_thread()
+        assert not ahead.launch.exists()
+
+
+def test_a_failed_run_shuts_the_kernel_ahead_down(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(publish, "FIGURES_WITH_KERNEL", True)
+    with pytest.raises(PrespecError, match="bad data"), publish.kernel_ahead():
+        raise PrespecError("bad data")
+    assert render._WAITING == [] and _kernels() == [] and _no_notebook_thread()
+
+
+def test_no_kernel_ahead_for_a_stand_in_renderer(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
+    with publish.kernel_ahead():
+        assert render._WAITING == []

@@ -11,17 +11,23 @@ cells need (:data:`WARM_IMPORTS`, run by the kernel as it starts, before any cel
 ``alongside`` (the figures), :func:`render_notebook` starts the kernel in a thread, calls
 ``alongside`` in the caller's thread meanwhile, and lets the notebook's first cell run only
 once it has returned: the cells read the figures, and they see exactly the files, and give
-exactly the bytes, that they would have seen had the figures been drawn first.
+exactly the bytes, that they would have seen had the figures been drawn first. A run starts
+the kernel earlier still, before it reads the data (:class:`KernelAhead`); the notebook then
+takes that kernel.
 """
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import hashlib
 import json
 import logging
 import os
+import queue
+import shutil
 import subprocess
+import tempfile
 import threading
 from collections.abc import Callable
 from pathlib import Path
@@ -223,14 +229,19 @@ def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str
         if stop.is_set():
             raise _Stopped("stopped")
 
-    def work() -> None:
+    def work(given: Any = None) -> None:
         try:
-            outcome["node"] = _execute(folder, output, digest, kernel_name, notebook, gate)
+            outcome["node"] = _execute(folder, output, digest, kernel_name, notebook, gate,
+                                       given)
         except BaseException as exc:  # noqa: BLE001 (raised in the caller's thread)
             outcome["error"] = exc
 
-    thread = threading.Thread(target=work, name="prespec-notebook", daemon=True)
-    thread.start()
+    ahead = _take_waiting() if kernel_name == KERNEL else None
+    if ahead is not None:  # started while the data were read: it runs the notebook
+        thread = ahead.run(folder, work)
+    else:
+        thread = threading.Thread(target=work, name="prespec-notebook", daemon=True)
+        thread.start()
     try:
         try:
             alongside()
@@ -262,7 +273,8 @@ def _first_figure_cell(notebook: NotebookNode) -> int:
 
 def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
              notebook: NotebookNode | None = None,
-             before_cell: Callable[..., None] | None = None) -> NotebookNode:
+             before_cell: Callable[..., None] | None = None,
+             given: Any = None) -> NotebookNode:
     import papermill
     from papermill.exceptions import PapermillExecutionError
 
@@ -272,6 +284,8 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
     logger.setLevel(logging.WARNING)
     try:
         for attempt in range(1, KERNEL_STARTS + 1):
+            options = _kernel_options(kernel_name, given)
+            given = None  # a kernel given is used once; a second try starts its own
             try:
                 node: NotebookNode = papermill.execute_notebook(
                     str(TEMPLATE) if notebook is None else notebook,
@@ -285,7 +299,7 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
                     # process's, which the thread beside the notebook shares)
                     resources={"metadata": {"path": str(folder)}},
                     **({"on_cell_execute": before_cell} if before_cell else {}),
-                    **_kernel_options(kernel_name),
+                    **options,
                 )
                 break
             except RuntimeError as exc:
@@ -303,13 +317,19 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
     return node
 
 
-def _kernel_options(kernel_name: str) -> dict[str, Any]:
+def _kernel_options(kernel_name: str, given: Any = None) -> dict[str, Any]:
     """Options for the notebook client: this interpreter's kernel, with encrypted local sockets.
 
     ``python3`` always means the ipykernel of the running interpreter (``sys.executable``),
     even where a user-level kernelspec of that name points at another Python. The kernel's
     local sockets are encrypted where libzmq can (the kernel then also stays quiet).
+    ``given``: a kernel manager whose kernel already runs (:class:`KernelAhead`); the
+    notebook client takes it as its own (and shuts it down at the end) in place of a new one.
     """
+    if given is not None:
+        options = _kernel_options(kernel_name)
+        options["kernel_manager_class"] = _handing_over(given)
+        return options
     import zmq
     from jupyter_client.manager import AsyncKernelManager
     from traitlets.config import Config
@@ -323,6 +343,151 @@ def _kernel_options(kernel_name: str) -> dict[str, Any]:
     if kernel_name == KERNEL:  # an ipykernel: it imports what the cells need as it starts
         options["extra_arguments"] = [f"--IPKernelApp.exec_lines={_WARM_LINES}"]
     return options
+
+
+def _handing_over(given: Any) -> type[Any]:
+    """A kernel manager class whose first instance is ``given`` (its kernel running): the
+    notebook client then skips the start, takes the kernel and shuts it down when done."""
+    base = type(given)
+    waiting = [given]
+
+    class HandOver(base):  # type: ignore[misc, valid-type]
+        def __new__(cls, *args: Any, **kwargs: Any) -> Any:
+            if waiting:
+                return waiting.pop()  # not a HandOver: its __init__ is not run again
+            return base(*args, **kwargs)
+
+    return HandOver
+
+
+# --- a kernel started while the data are read -----------------------------------------------
+
+_WAITING: list[KernelAhead] = []
+_WAITING_LOCK = threading.Lock()
+
+
+class KernelAhead:
+    """This interpreter's kernel, started (and importing :data:`WARM_IMPORTS`) in a thread of
+    its own before the report exists, for the next notebook that :func:`render_notebook`
+    runs with ``alongside``: while a run reads and reduces its data, the kernel starts.
+
+    The kernel is started in an empty temporary folder and moved into the report folder
+    (``os.chdir`` in a silent request: no name, no output, no history) before the notebook
+    client takes it; the notebook then runs in this thread (the kernel's event loop lives
+    here). Anything that fails before the hand-over leaves the notebook to start its own
+    kernel, as without it. :meth:`close` shuts a kernel down that no notebook took."""
+
+    def __init__(self) -> None:
+        self._job: queue.SimpleQueue[tuple[Path, Callable[[Any], None]] | None] = (
+            queue.SimpleQueue())
+        self._abandoned = threading.Event()
+        #: the empty folder the kernel starts in (removed when its thread ends)
+        self.launch = Path(tempfile.mkdtemp(prefix="prespec-kernel-"))
+        self._thread = threading.Thread(target=self._serve, name="prespec-notebook",
+                                        daemon=True)
+        self._thread.start()
+
+    def run(self, folder: Path, work: Callable[[Any], None]) -> threading.Thread:
+        """Run ``work(kernel manager or None)`` in this kernel's thread, the kernel moved to
+        ``folder``; the thread, to join."""
+        self._job.put((folder, work))
+        return self._thread
+
+    def close(self) -> None:
+        """Shut the kernel down if no notebook took it (one still starting is stopped at
+        once, not waited for); wait for its thread."""
+        self._abandoned.set()
+        self._job.put(None)
+        self._thread.join()
+
+    def _serve(self) -> None:
+        from jupyter_core.utils import run_sync
+
+        launch = str(self.launch)
+        manager: Any = None
+        client: Any = None
+        try:
+            try:
+                options = _kernel_options(KERNEL)
+                manager = options["kernel_manager_class"](kernel_name=KERNEL,
+                                                          config=options.get("config"))
+                client = run_sync(_start_ahead)(manager, launch, options["extra_arguments"],
+                                                self._abandoned)
+            except Exception:  # noqa: BLE001 (the notebook starts its own, which says why)
+                client = None
+            job = self._job.get()
+            if job is None:
+                return
+            folder, work = job
+            if client is not None:
+                try:
+                    run_sync(_move_kernel)(client, str(folder))
+                except Exception:  # noqa: BLE001 (as above)
+                    client = None
+            work(manager if client is not None else None)
+        finally:
+            # a kernel no notebook took (or one left running by a failure before it did)
+            with contextlib.suppress(Exception):
+                if client is not None:
+                    client.stop_channels()
+                if manager is not None and manager.has_kernel:
+                    run_sync(manager.shutdown_kernel)(now=True)
+            shutil.rmtree(launch, ignore_errors=True)
+
+
+async def _start_ahead(manager: Any, cwd: str, arguments: list[str],
+                       abandoned: threading.Event) -> Any:
+    """Start the kernel and wait until it answers (or until ``abandoned``: then None)."""
+    import asyncio
+
+    await manager.start_kernel(cwd=cwd, extra_arguments=arguments)
+    client = manager.client()
+    client.start_channels()
+    ready = asyncio.ensure_future(client.wait_for_ready(timeout=60))
+    while not ready.done():
+        await asyncio.wait({ready}, timeout=0.05)
+        if abandoned.is_set() and not ready.done():
+            ready.cancel()
+            client.stop_channels()
+            return None
+    ready.result()
+    return client
+
+
+async def _move_kernel(client: Any, folder: str) -> None:
+    """The kernel's working folder becomes ``folder`` (where papermill would have started it)."""
+    msg_id = client.execute(f"__import__('os').chdir({folder!r})", silent=True,
+                            store_history=False)
+    while True:
+        reply = await client.get_shell_msg(timeout=60)
+        if reply["parent_header"].get("msg_id") == msg_id:
+            break
+    client.stop_channels()
+    if reply["content"].get("status") != "ok":
+        raise RuntimeError(f"the kernel did not move to {folder}")
+
+
+def start_kernel_ahead() -> KernelAhead:
+    """Start a kernel for the next report notebook of this process (see :class:`KernelAhead`);
+    give the handle to :func:`close_kernel_ahead` when the report is done or abandoned."""
+    ahead = KernelAhead()
+    with _WAITING_LOCK:
+        _WAITING.append(ahead)
+    return ahead
+
+
+def close_kernel_ahead(ahead: KernelAhead) -> None:
+    """Shut down ``ahead``'s kernel if no notebook took it."""
+    with _WAITING_LOCK:
+        if ahead not in _WAITING:
+            return  # a notebook took it (and shut it down)
+        _WAITING.remove(ahead)
+    ahead.close()
+
+
+def _take_waiting() -> KernelAhead | None:
+    with _WAITING_LOCK:
+        return _WAITING.pop(0) if _WAITING else None
 
 
 def _quiet_manager(base: type[Any]) -> type[Any]:

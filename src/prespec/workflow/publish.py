@@ -7,10 +7,11 @@ executed notebook and HTML → manifest → folder renamed over its reserved emp
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -87,6 +88,25 @@ def _takes_alongside(render_notebook: Callable[..., Any]) -> bool:
     import inspect
 
     return "alongside" in inspect.signature(render_notebook).parameters
+
+
+@contextlib.contextmanager
+def kernel_ahead() -> Iterator[None]:
+    """The report notebook's kernel started now, in a thread, so that it starts (and imports
+    what the cells need) while the run reads and reduces its data; shut down on leaving if
+    no notebook took it (``render.KernelAhead``). A stand-in renderer (tests) gets none."""
+    import prespec.report
+
+    if not (FIGURES_WITH_KERNEL and _takes_alongside(prespec.report.render_notebook)):
+        yield
+        return
+    from prespec.report.render import close_kernel_ahead, start_kernel_ahead
+
+    ahead = start_kernel_ahead()
+    try:
+        yield
+    finally:
+        close_kernel_ahead(ahead)
 
 
 def build_report(folder: Path, results: dict[str, Any], *, render: bool = True,
