@@ -217,3 +217,27 @@ def test_no_kernel_ahead_for_a_stand_in_renderer(monkeypatch: pytest.MonkeyPatch
     monkeypatch.setattr(prespec.report, "render_notebook", lambda folder: None)
     with publish.kernel_ahead():
         assert render._WAITING == []
+
+
+def test_a_failing_cell_is_the_same_one_line_error_with_figures_beside(
+        demo_results: dict[str, Any], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from prespec.report.figures import write_figures
+
+    messages, left = [], []
+    monkeypatch.setattr(render, "results_digest", lambda path: "sha256:" + "0" * 64)
+    for at_once in (False, True):
+        folder = tmp_path / f"at-once-{at_once}"
+        folder.mkdir()
+        (folder / "results.json").write_bytes(publish.results_bytes(demo_results))
+        if not at_once:
+            write_figures(demo_results, folder)
+        with pytest.raises(PrespecError) as err:
+            render.render_notebook(folder, alongside=(
+                (lambda folder=folder: write_figures(demo_results, folder)) if at_once
+                else None))
+        messages.append(str(err.value))
+        left.append(sorted(p.relative_to(folder).as_posix() for p in folder.rglob("*")))
+    assert messages[0] == messages[1]
+    assert "\n" not in messages[0] and "report notebook failed in cell" in messages[0]
+    assert left[0] == left[1] and "report.ipynb" not in left[0] and "figures" in left[0]
+    assert _no_notebook_thread() and _kernels() == []

@@ -411,8 +411,9 @@ class KernelAhead:
                 options = _kernel_options(KERNEL)
                 manager = options["kernel_manager_class"](kernel_name=KERNEL,
                                                           config=options.get("config"))
-                client = run_sync(_start_ahead)(manager, launch, options["extra_arguments"],
-                                                self._abandoned)
+                # as the notebook client starts a kernel: its history in memory, not on disk
+                arguments = [*options["extra_arguments"], "--HistoryManager.hist_file=:memory:"]
+                client = run_sync(_start_ahead)(manager, launch, arguments, self._abandoned)
             except Exception:  # noqa: BLE001 (the notebook starts its own, which says why)
                 client = None
             job = self._job.get()
