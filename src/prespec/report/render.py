@@ -381,7 +381,7 @@ class KernelAhead:
         self._job: queue.SimpleQueue[tuple[Path, Callable[[Any], None]] | None] = (
             queue.SimpleQueue())
         self._abandoned = threading.Event()
-        #: the empty folder the kernel starts in (removed when its thread ends)
+        #: the empty folder the kernel starts in (removed once it has started)
         self.launch = Path(tempfile.mkdtemp(prefix="prespec-kernel-"))
         self._thread = threading.Thread(target=self._serve, name="prespec-notebook",
                                         daemon=True)
@@ -414,6 +414,7 @@ class KernelAhead:
                 # as the notebook client starts a kernel: its history in memory, not on disk
                 arguments = [*options["extra_arguments"], "--HistoryManager.hist_file=:memory:"]
                 client = run_sync(_start_ahead)(manager, launch, arguments, self._abandoned)
+                shutil.rmtree(launch, ignore_errors=True)  # the kernel runs: not needed again
             except Exception:  # noqa: BLE001 (the notebook starts its own, which says why)
                 client = None
             job = self._job.get()
