@@ -220,12 +220,11 @@ def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str
     stop = threading.Event()
     outcome: dict[str, Any] = {}
 
-    waits = _first_figure_cell(notebook)
-
-    def gate(cell: NotebookNode, cell_index: int, **_: Any) -> None:
-        # before every cell: an interrupt or a failure beside it stops at the next one
-        if cell_index >= waits:
-            ready.wait()
+    def gate(**_: Any) -> None:
+        # before every cell: any cell may read a figure (the population section embeds the
+        # flow figure when it finds it), so none runs before they are all drawn; an
+        # interrupt or a failure beside the notebook stops it at the next cell
+        ready.wait()
         if stop.is_set():
             raise _Stopped("stopped")
 
@@ -260,15 +259,6 @@ def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str
         raise outcome["error"]
     node: NotebookNode = outcome["node"]
     return node
-
-
-def _first_figure_cell(notebook: NotebookNode) -> int:
-    """The index of the first cell that may read a figure (``Image(``, or any name with
-    "figure" in it); it and every cell after it wait for the figures."""
-    for index, cell in enumerate(notebook.cells):
-        if cell.cell_type == "code" and ("Image(" in cell.source or "figure" in cell.source):
-            return index
-    return len(notebook.cells)
 
 
 def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
