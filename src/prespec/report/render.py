@@ -19,7 +19,6 @@ takes that kernel.
 from __future__ import annotations
 
 import contextlib
-import functools
 import hashlib
 import json
 import logging
@@ -244,6 +243,9 @@ def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str
     try:
         try:
             alongside()
+        except BaseException:
+            stop.set()  # before the cells are let through: none runs
+            raise
         finally:
             ready.set()
         if thread.is_alive():  # the kernel is still starting: the page's exporter meanwhile
@@ -568,9 +570,19 @@ def _to_html(nb: NotebookNode) -> str:
     return str(body)
 
 
-@functools.lru_cache(maxsize=1)
+_EXPORTERS = threading.local()
+
+
 def _html_exporter() -> Any:
-    """The page's exporter, made once per process (its template compiled once)."""
+    """The page's exporter, made once per thread (its template compiled once; an exporter
+    registers filters as it exports, so two threads never share one)."""
+    exporter = getattr(_EXPORTERS, "exporter", None)
+    if exporter is None:
+        exporter = _EXPORTERS.exporter = _new_html_exporter()
+    return exporter
+
+
+def _new_html_exporter() -> Any:
     import jinja2
     from nbconvert import HTMLExporter
 
