@@ -403,8 +403,12 @@ class KernelAhead:
                 options = _kernel_options(KERNEL)
                 manager = options["kernel_manager_class"](kernel_name=KERNEL,
                                                           config=options.get("config"))
-                # as the notebook client starts a kernel: its history in memory, not on disk
-                arguments = [*options["extra_arguments"], "--HistoryManager.hist_file=:memory:"]
+                # as the notebook client starts a kernel: its history in memory, not on disk;
+                # and the kernel removes its empty start folder itself once it runs (so that
+                # none is left when this process is killed while the kernel starts)
+                lines = f"{_WARM_LINES}\n__import__('os').rmdir({launch!r})"
+                arguments = [f"--IPKernelApp.exec_lines={lines}",
+                             "--HistoryManager.hist_file=:memory:"]
                 client = run_sync(_start_ahead)(manager, launch, arguments, self._abandoned)
                 shutil.rmtree(launch, ignore_errors=True)  # the kernel runs: not needed again
             except Exception:  # noqa: BLE001 (the notebook starts its own, which says why)
