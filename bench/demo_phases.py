@@ -9,7 +9,9 @@ Every phase must be timed once per demo and the phases cannot add up to more tha
 if a refactoring renames or bypasses one of the functions below, the benchmark stops with the
 phase it lost instead of printing a split that leaves it out. The figures are drawn while the
 notebook's kernel starts (``publish.FIGURES_WITH_KERNEL``), so the report's parts overlap and
-add up to more than the report.
+add up to more than the report; the kernel itself is started with the run, before the data are
+read (``render.KernelAhead``), so "notebook execution" counts from the hand-over of a running
+kernel to the end of the cells, and the report's time is what a user waits for.
 
 The baseline: papermill executing a notebook without cells, with the same kernel (this
 interpreter's ipykernel, without the imports the report's kernel makes as it starts), once

@@ -24,9 +24,7 @@ import json
 import logging
 import os
 import queue
-import shutil
 import subprocess
-import tempfile
 import threading
 from collections.abc import Callable
 from pathlib import Path
@@ -363,7 +361,7 @@ class KernelAhead:
     its own before the report exists, for the next notebook that :func:`render_notebook`
     runs with ``alongside``: while a run reads and reduces its data, the kernel starts.
 
-    The kernel is started in an empty temporary folder and moved into the report folder
+    The kernel is started in Jupyter's runtime folder and moved into the report folder
     (``os.chdir`` in a silent request: no name, no output, no history) before the notebook
     client takes it; the notebook then runs in this thread (the kernel's event loop lives
     here). Anything that fails before the hand-over leaves the notebook to start its own
@@ -373,8 +371,6 @@ class KernelAhead:
         self._job: queue.SimpleQueue[tuple[Path, Callable[[Any], None]] | None] = (
             queue.SimpleQueue())
         self._abandoned = threading.Event()
-        #: the empty folder the kernel starts in (removed once it has started)
-        self.launch = Path(tempfile.mkdtemp(prefix="prespec-kernel-"))
         self._thread = threading.Thread(target=self._serve, name="prespec-notebook",
                                         daemon=True)
         self._thread.start()
@@ -395,7 +391,6 @@ class KernelAhead:
     def _serve(self) -> None:
         from jupyter_core.utils import run_sync
 
-        launch = str(self.launch)
         manager: Any = None
         client: Any = None
         try:
@@ -403,14 +398,10 @@ class KernelAhead:
                 options = _kernel_options(KERNEL)
                 manager = options["kernel_manager_class"](kernel_name=KERNEL,
                                                           config=options.get("config"))
-                # as the notebook client starts a kernel: its history in memory, not on disk;
-                # and the kernel removes its empty start folder itself once it runs (so that
-                # none is left when this process is killed while the kernel starts)
-                lines = f"{_WARM_LINES}\n__import__('os').rmdir({launch!r})"
-                arguments = [f"--IPKernelApp.exec_lines={lines}",
-                             "--HistoryManager.hist_file=:memory:"]
-                client = run_sync(_start_ahead)(manager, launch, arguments, self._abandoned)
-                shutil.rmtree(launch, ignore_errors=True)  # the kernel runs: not needed again
+                # as the notebook client starts a kernel: its history in memory, not on disk
+                arguments = [*options["extra_arguments"], "--HistoryManager.hist_file=:memory:"]
+                client = run_sync(_start_ahead)(manager, _start_folder(), arguments,
+                                                self._abandoned)
             except Exception:  # noqa: BLE001 (the notebook starts its own, which says why)
                 client = None
             job = self._job.get()
@@ -430,7 +421,18 @@ class KernelAhead:
                     client.stop_channels()
                 if manager is not None and manager.has_kernel:
                     run_sync(manager.shutdown_kernel)(now=True)
-            shutil.rmtree(launch, ignore_errors=True)
+
+
+def _start_folder() -> str:
+    """Where a kernel ahead starts (its ``sys.path[0]``) before it moves to the report folder:
+    Jupyter's runtime folder, which holds the kernels' connection files and no Python module
+    that could stand in for one the cells import, and exists whatever happens to the run
+    (a temporary folder of its own would be left behind by a run killed meanwhile)."""
+    from jupyter_core.paths import jupyter_runtime_dir
+
+    folder = jupyter_runtime_dir()
+    os.makedirs(folder, exist_ok=True)
+    return folder
 
 
 async def _start_ahead(manager: Any, cwd: str, arguments: list[str],
