@@ -85,13 +85,17 @@ def test_the_coverage_benchmark_matches_the_library_and_the_plain_sum() -> None:
 def test_the_demo_phases_benchmark_times_every_phase() -> None:
     out = smoke("demo_phases.py")
     assert out.startswith("1 demo(s)")
-    shares = dict(re.findall(r"(?m)^(\S.*?|  of which .*?)\s+[\d.]+ ms\s+([\d.]+)%$", out))
+    shares = dict(re.findall(r"(?m)^(\S.*?|  \S.*?)\s+[\d.]+ ms\s+([\d.]+)%$", out))
     assert set(shares) == {
         "lock", "data: read and reduce to counts", "  of which mapping and population",
-        "statistics", "figures", "notebook execution (papermill)", "HTML export (nbconvert)",
+        "statistics", "report (tables, figures, notebook, HTML, manifest)", "  figures",
+        "  notebook execution (papermill)", "  HTML export (nbconvert)",
         "phases together", "whole demo (in process)"}, out
     assert float(shares["whole demo (in process)"]) == 100.0
     assert 0 < float(shares["phases together"]) <= 100.0
+    assert re.search(r"(?m)^baseline: papermill, empty notebook\s+[\d.]+ ms$", out), out
+    assert re.search(r"(?m)^report / empty notebook \(median of the runs' ratios\): [\d.]+ "
+                     r"\(goal: at most 1\.50; figures beside the kernel\)$", out), out
 
 
 def demo_phases_module() -> ModuleType:
@@ -115,8 +119,8 @@ def test_the_demo_phases_benchmark_stops_on_a_phase_it_lost() -> None:
 
 def test_the_demo_phases_benchmark_stops_on_phases_longer_than_the_whole() -> None:
     bench = demo_phases_module()
-    for label, _, _ in bench.PHASES:  # six top-level phases of 0.2 s in a demo of 1 s
-        bench.timings[label].append(0.2)
+    for label, _, _ in bench.PHASES:  # four top-level phases of 0.3 s in a demo of 1 s
+        bench.timings[label].append(0.3)
     bench.timings[bench.WHOLE].append(1.0)
     with pytest.raises(SystemExit, match=r"the phases add up to 1\.200 s, more than the whole"):
         bench.check(1)

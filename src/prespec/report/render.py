@@ -5,15 +5,28 @@ the report folder, passing it only the name and the SHA-256 of ``results.json``;
 reads everything else from that file. The executed notebook becomes ``report.ipynb`` and its
 HTML export, with the code hidden and the figures embedded, ``report.html``. Both are written
 under temporary names and renamed into place only when both are complete.
+
+The kernel costs most of a report's time whatever the data: it starts and imports what the
+cells need (:data:`WARM_IMPORTS`, run by the kernel as it starts, before any cell). Given
+``alongside`` (the figures), :func:`render_notebook` starts the kernel in a thread, calls
+``alongside`` in the caller's thread meanwhile, and lets the notebook's first cell run only
+once it has returned: the cells read the figures, and they see exactly the files, and give
+exactly the bytes, that they would have seen had the figures been drawn first. A run starts
+the kernel earlier still, before it reads the data (:class:`KernelAhead`); the notebook then
+takes that kernel.
 """
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import logging
 import os
+import queue
 import subprocess
+import threading
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -126,15 +139,19 @@ def results_digest(path: Path) -> str:
     return "sha256:" + hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def render_notebook(folder: Path, *, kernel_name: str | None = None) -> None:
+def render_notebook(folder: Path, *, kernel_name: str | None = None,
+                    alongside: Callable[[], object] | None = None) -> None:
     """Execute the report notebook in ``folder`` and write ``report.ipynb`` and ``report.html``.
 
-    ``folder`` must hold ``results.json`` and the figures that :func:`write_figures` wrote.
+    ``folder`` must hold ``results.json`` and the figures that :func:`write_figures` wrote,
+    or ``alongside`` must write them: it is called in this thread while the kernel starts, and
+    no cell runs before it has returned (an exception from it stops the kernel before its
+    first cell, and is raised as it is).
     The kernel is the current interpreter's ipykernel (``python3``) unless ``kernel_name`` says
     otherwise. Any failure raises :class:`prespec.errors.PrespecError` with a one-line message
     and leaves neither file behind.
     """
-    folder = Path(folder)
+    folder = Path(os.path.abspath(folder))  # the notebook runs in a thread: no chdir
     results_path = folder / RESULTS
     if not results_path.is_file():
         raise PrespecError(f"{results_path}: no results file to report on")
@@ -144,7 +161,11 @@ def render_notebook(folder: Path, *, kernel_name: str | None = None) -> None:
         digest = results_digest(results_path)
         # the template, and a cell per hypothesis that recomputes it from tables/
         notebook = filled(json.loads(results_path.read_bytes()), folder)
-        executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL, notebook)
+        if alongside is None:
+            executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL, notebook)
+        else:
+            executed = _execute_alongside(folder, partial_nb, digest, kernel_name or KERNEL,
+                                          notebook, alongside)
         _clean(executed, _title(results_path))
         page = _to_html(executed)
         nbformat.write(executed, partial_nb)
@@ -172,9 +193,78 @@ def _one_line(exc: BaseException) -> str:
 KERNEL_STARTS = 3  # tries at starting the notebook's kernel
 _KERNEL_START_FAILED = "Kernel died before replying to kernel_info"
 
+#: What the cells import, imported by this interpreter's kernel as it starts (ipykernel's
+#: ``exec_lines``, in no name of the user's namespace and in no cell's output), so that the
+#: import (scipy.stats the most of it) overlaps the figures. A module that fails here fails
+#: again, with its message, in the cell that imports it.
+WARM_IMPORTS = ("IPython.display", "prespec.report.sections", "prespec.report.summary",
+                "prespec.report.families", "prespec.stats")
+_WARM_LINES = ("for _prespec_module in " + repr(WARM_IMPORTS) + ":\n"
+               "    __import__(_prespec_module)\n"
+               "del _prespec_module")
+
+
+class _Stopped(Exception):
+    """The notebook stopped before a cell: the work beside it failed or was interrupted."""
+
+
+def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str,
+                       notebook: NotebookNode, alongside: Callable[[], object]) -> NotebookNode:
+    """:func:`_execute` in a thread while ``alongside()`` runs in this one; the notebook's
+    cells wait for it. A failure of either is raised here once the thread has ended (the
+    kernel shut down, no file of it left but the partial notebook, which the caller removes)."""
+    ready = threading.Event()
+    stop = threading.Event()
+    outcome: dict[str, Any] = {}
+
+    def gate(**_: Any) -> None:
+        # before every cell: any cell may read a figure (the population section embeds the
+        # flow figure when it finds it), so none runs before they are all drawn; an
+        # interrupt or a failure beside the notebook stops it at the next cell
+        ready.wait()
+        if stop.is_set():
+            raise _Stopped("stopped")
+
+    def work(given: Any = None) -> None:
+        try:
+            outcome["node"] = _execute(folder, output, digest, kernel_name, notebook, gate,
+                                       given)
+        except BaseException as exc:  # noqa: BLE001 (raised in the caller's thread)
+            outcome["error"] = exc
+
+    ahead = _take_waiting() if kernel_name == KERNEL else None
+    if ahead is not None:  # started while the data were read: it runs the notebook
+        thread = ahead.run(folder, work)
+    else:
+        thread = threading.Thread(target=work, name="prespec-notebook", daemon=True)
+        thread.start()
+    try:
+        try:
+            alongside()
+        except BaseException:
+            stop.set()  # before the cells are let through: none runs
+            raise
+        finally:
+            ready.set()
+        if thread.is_alive():  # the kernel is still starting: the page's exporter meanwhile
+            _warm_html()
+        while thread.is_alive():
+            thread.join(0.05)
+    except BaseException:
+        stop.set()
+        ready.set()
+        thread.join()
+        raise
+    if "error" in outcome:
+        raise outcome["error"]
+    node: NotebookNode = outcome["node"]
+    return node
+
 
 def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
-             notebook: NotebookNode | None = None) -> NotebookNode:
+             notebook: NotebookNode | None = None,
+             before_cell: Callable[..., None] | None = None,
+             given: Any = None) -> NotebookNode:
     import papermill
     from papermill.exceptions import PapermillExecutionError
 
@@ -184,6 +274,8 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
     logger.setLevel(logging.WARNING)
     try:
         for attempt in range(1, KERNEL_STARTS + 1):
+            options = _kernel_options(kernel_name, given)
+            given = None  # a kernel given is used once; a second try starts its own
             try:
                 node: NotebookNode = papermill.execute_notebook(
                     str(TEMPLATE) if notebook is None else notebook,
@@ -192,8 +284,12 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
                     kernel_name=kernel_name,
                     progress_bar=False,
                     log_output=False,
-                    cwd=str(folder),
-                    **_kernel_options(kernel_name),
+                    request_save_on_cell_execute=False,  # written once, at the end
+                    # the kernel's working folder (papermill's cwd= would change this
+                    # process's, which the thread beside the notebook shares)
+                    resources={"metadata": {"path": str(folder)}},
+                    **({"on_cell_execute": before_cell} if before_cell else {}),
+                    **options,
                 )
                 break
             except RuntimeError as exc:
@@ -211,13 +307,19 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
     return node
 
 
-def _kernel_options(kernel_name: str) -> dict[str, Any]:
+def _kernel_options(kernel_name: str, given: Any = None) -> dict[str, Any]:
     """Options for the notebook client: this interpreter's kernel, with encrypted local sockets.
 
     ``python3`` always means the ipykernel of the running interpreter (``sys.executable``),
     even where a user-level kernelspec of that name points at another Python. The kernel's
     local sockets are encrypted where libzmq can (the kernel then also stays quiet).
+    ``given``: a kernel manager whose kernel already runs (:class:`KernelAhead`); the
+    notebook client takes it as its own (and shuts it down at the end) in place of a new one.
     """
+    if given is not None:
+        options = _kernel_options(kernel_name)
+        options["kernel_manager_class"] = _handing_over(given)
+        return options
     import zmq
     from jupyter_client.manager import AsyncKernelManager
     from traitlets.config import Config
@@ -228,7 +330,164 @@ def _kernel_options(kernel_name: str) -> dict[str, Any]:
     quiet = _quiet_manager(AsyncKernelManager)
     options["kernel_manager_class"] = (_this_interpreter_manager(quiet) if kernel_name == KERNEL
                                        else quiet)
+    if kernel_name == KERNEL:  # an ipykernel: it imports what the cells need as it starts
+        options["extra_arguments"] = [f"--IPKernelApp.exec_lines={_WARM_LINES}"]
     return options
+
+
+def _handing_over(given: Any) -> type[Any]:
+    """A kernel manager class whose first instance is ``given`` (its kernel running): the
+    notebook client then skips the start, takes the kernel and shuts it down when done."""
+    base = type(given)
+    waiting = [given]
+
+    class HandOver(base):  # type: ignore[misc, valid-type]
+        def __new__(cls, *args: Any, **kwargs: Any) -> Any:
+            if waiting:
+                return waiting.pop()  # not a HandOver: its __init__ is not run again
+            return base(*args, **kwargs)
+
+    return HandOver
+
+
+# --- a kernel started while the data are read -----------------------------------------------
+
+_WAITING: list[KernelAhead] = []
+_WAITING_LOCK = threading.Lock()
+
+
+class KernelAhead:
+    """This interpreter's kernel, started (and importing :data:`WARM_IMPORTS`) in a thread of
+    its own before the report exists, for the next notebook that :func:`render_notebook`
+    runs with ``alongside``: while a run reads and reduces its data, the kernel starts.
+
+    The kernel is started in Jupyter's runtime folder and moved into the report folder
+    (``os.chdir`` in a silent request: no name, no output, no history) before the notebook
+    client takes it; the notebook then runs in this thread (the kernel's event loop lives
+    here). Anything that fails before the hand-over leaves the notebook to start its own
+    kernel, as without it. :meth:`close` shuts a kernel down that no notebook took."""
+
+    def __init__(self) -> None:
+        self._job: queue.SimpleQueue[tuple[Path, Callable[[Any], None]] | None] = (
+            queue.SimpleQueue())
+        self._abandoned = threading.Event()
+        self._thread = threading.Thread(target=self._serve, name="prespec-notebook",
+                                        daemon=True)
+        self._thread.start()
+
+    def run(self, folder: Path, work: Callable[[Any], None]) -> threading.Thread:
+        """Run ``work(kernel manager or None)`` in this kernel's thread, the kernel moved to
+        ``folder``; the thread, to join."""
+        self._job.put((folder, work))
+        return self._thread
+
+    def close(self) -> None:
+        """Shut the kernel down if no notebook took it (one still starting is stopped at
+        once, not waited for); wait for its thread."""
+        self._abandoned.set()
+        self._job.put(None)
+        self._thread.join()
+
+    def _serve(self) -> None:
+        from jupyter_core.utils import run_sync
+
+        manager: Any = None
+        client: Any = None
+        try:
+            try:
+                options = _kernel_options(KERNEL)
+                manager = options["kernel_manager_class"](kernel_name=KERNEL,
+                                                          config=options.get("config"))
+                # as the notebook client starts a kernel: its history in memory, not on disk
+                arguments = [*options["extra_arguments"], "--HistoryManager.hist_file=:memory:"]
+                client = run_sync(_start_ahead)(manager, _start_folder(), arguments,
+                                                self._abandoned)
+            except Exception:  # noqa: BLE001 (the notebook starts its own, which says why)
+                client = None
+            job = self._job.get()
+            if job is None:
+                return
+            folder, work = job
+            if client is not None:
+                try:
+                    run_sync(_move_kernel)(client, str(folder))
+                except Exception:  # noqa: BLE001 (as above)
+                    client = None
+            work(manager if client is not None else None)
+        finally:
+            # a kernel no notebook took (or one left running by a failure before it did)
+            with contextlib.suppress(Exception):
+                if client is not None:
+                    client.stop_channels()
+                if manager is not None and manager.has_kernel:
+                    run_sync(manager.shutdown_kernel)(now=True)
+
+
+def _start_folder() -> str:
+    """Where a kernel ahead starts (its ``sys.path[0]``) before it moves to the report folder:
+    Jupyter's runtime folder, which holds the kernels' connection files and no Python module
+    that could stand in for one the cells import, and exists whatever happens to the run
+    (a temporary folder of its own would be left behind by a run killed meanwhile)."""
+    from jupyter_core.paths import jupyter_runtime_dir
+
+    folder = jupyter_runtime_dir()
+    os.makedirs(folder, exist_ok=True)
+    return folder
+
+
+async def _start_ahead(manager: Any, cwd: str, arguments: list[str],
+                       abandoned: threading.Event) -> Any:
+    """Start the kernel and wait until it answers (or until ``abandoned``: then None)."""
+    import asyncio
+
+    await manager.start_kernel(cwd=cwd, extra_arguments=arguments)
+    client = manager.client()
+    client.start_channels()
+    ready = asyncio.ensure_future(client.wait_for_ready(timeout=60))
+    while not ready.done():
+        await asyncio.wait({ready}, timeout=0.05)
+        if abandoned.is_set() and not ready.done():
+            ready.cancel()
+            client.stop_channels()
+            return None
+    ready.result()
+    return client
+
+
+async def _move_kernel(client: Any, folder: str) -> None:
+    """The kernel's working folder becomes ``folder`` (where papermill would have started it)."""
+    msg_id = client.execute(f"__import__('os').chdir({folder!r})", silent=True,
+                            store_history=False)
+    while True:
+        reply = await client.get_shell_msg(timeout=60)
+        if reply["parent_header"].get("msg_id") == msg_id:
+            break
+    client.stop_channels()
+    if reply["content"].get("status") != "ok":
+        raise RuntimeError(f"the kernel did not move to {folder}")
+
+
+def start_kernel_ahead() -> KernelAhead:
+    """Start a kernel for the next report notebook of this process (see :class:`KernelAhead`);
+    give the handle to :func:`close_kernel_ahead` when the report is done or abandoned."""
+    ahead = KernelAhead()
+    with _WAITING_LOCK:
+        _WAITING.append(ahead)
+    return ahead
+
+
+def close_kernel_ahead(ahead: KernelAhead) -> None:
+    """Shut down ``ahead``'s kernel if no notebook took it."""
+    with _WAITING_LOCK:
+        if ahead not in _WAITING:
+            return  # a notebook took it (and shut it down)
+        _WAITING.remove(ahead)
+    ahead.close()
+
+
+def _take_waiting() -> KernelAhead | None:
+    with _WAITING_LOCK:
+        return _WAITING.pop(0) if _WAITING else None
 
 
 def _quiet_manager(base: type[Any]) -> type[Any]:
@@ -312,10 +571,28 @@ def _clean(nb: NotebookNode, title: str) -> None:
 
 
 def _to_html(nb: NotebookNode) -> str:
+    body, _resources = _html_exporter().from_notebook_node(
+        nb, resources={"metadata": {"name": "report"}})
+    return str(body)
+
+
+_EXPORTERS = threading.local()
+
+
+def _html_exporter() -> Any:
+    """The page's exporter, made once per thread (its template compiled once; an exporter
+    registers filters as it exports, so two threads never share one)."""
+    exporter = getattr(_EXPORTERS, "exporter", None)
+    if exporter is None:
+        exporter = _EXPORTERS.exporter = _new_html_exporter()
+    return exporter
+
+
+def _new_html_exporter() -> Any:
     import jinja2
     from nbconvert import HTMLExporter
 
-    exporter = HTMLExporter(
+    return HTMLExporter(
         template_name="lab",
         extra_loaders=[jinja2.DictLoader({_HTML_TEMPLATE_NAME: _HTML_TEMPLATE})],
         template_file=_HTML_TEMPLATE_NAME,
@@ -324,5 +601,18 @@ def _to_html(nb: NotebookNode) -> str:
         exclude_output_prompt=True,
         exclude_anchor_links=True,
     )
-    body, _resources = exporter.from_notebook_node(nb, resources={"metadata": {"name": "report"}})
-    return str(body)
+
+
+def _warm_html() -> None:
+    """Import nbconvert and export a notebook of one cell with the page's template, discarding
+    the page: the first export in a process costs about a second (imports, the template,
+    the filters' own imports), which is then paid while the kernel starts, not after the
+    cells. A failure here is left to the report's own export, which says it."""
+    cell = nbformat.v4.new_code_cell(outputs=[nbformat.v4.new_output(
+        "display_data", data={"text/html": "<p>warm</p>", "image/png": "iVBORw0KGgo="})])
+    try:
+        _html_exporter().from_notebook_node(
+            nbformat.v4.new_notebook(cells=[cell, nbformat.v4.new_markdown_cell("warm")]),
+            resources={"metadata": {"name": "warm"}})
+    except Exception:  # noqa: BLE001 (the report's export raises it, in one line)
+        return

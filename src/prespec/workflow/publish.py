@@ -7,10 +7,11 @@ executed notebook and HTML → manifest → folder renamed over its reserved emp
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -75,6 +76,39 @@ def results_bytes(results: dict[str, Any]) -> bytes:
     return (json_text(finish(results), indent=2, allow_nan=False) + "\n").encode("utf-8")
 
 
+#: Draw the figures in this thread while the notebook's kernel starts and imports in another
+#: (``render_notebook(alongside=...)``); False draws them first, then runs the notebook. The
+#: report's bytes are the same either way (tests/test_publish_concurrent.py).
+FIGURES_WITH_KERNEL = True
+
+
+def _takes_alongside(render_notebook: Callable[..., Any]) -> bool:
+    """Whether the notebook renderer runs the figures beside its kernel (the report room's
+    does; a stand-in, as tests use, is called as before, after the figures)."""
+    import inspect
+
+    return "alongside" in inspect.signature(render_notebook).parameters
+
+
+@contextlib.contextmanager
+def kernel_ahead() -> Iterator[None]:
+    """The report notebook's kernel started now, in a thread, so that it starts (and imports
+    what the cells need) while the run reads and reduces its data; shut down on leaving if
+    no notebook took it (``render.KernelAhead``). A stand-in renderer (tests) gets none."""
+    import prespec.report
+
+    if not (FIGURES_WITH_KERNEL and _takes_alongside(prespec.report.render_notebook)):
+        yield
+        return
+    from prespec.report.render import close_kernel_ahead, start_kernel_ahead
+
+    ahead = start_kernel_ahead()
+    try:
+        yield
+    finally:
+        close_kernel_ahead(ahead)
+
+
 def build_report(folder: Path, results: dict[str, Any], *, render: bool = True,
                  pdf: bool = False) -> tuple[Path, str]:
     """Write the whole report into a temporary folder beside ``folder``: (it, the manifest hash).
@@ -91,13 +125,16 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True,
     try:
         (tmp / "results.json").write_bytes(results_bytes(results))
         write_tables(tmp, results)
-        write_figures(results, tmp)
-        if render:
-            render_notebook(tmp)
-            if pdf:
-                from prespec.report.paper import PDF, footer_of, print_pdf
+        if render and FIGURES_WITH_KERNEL and _takes_alongside(render_notebook):
+            render_notebook(tmp, alongside=lambda: write_figures(results, tmp))
+        else:
+            write_figures(results, tmp)
+            if render:
+                render_notebook(tmp)
+        if render and pdf:
+            from prespec.report.paper import PDF, footer_of, print_pdf
 
-                print_pdf(tmp / "report.html", tmp / PDF, footer=footer_of(results))
+            print_pdf(tmp / "report.html", tmp / PDF, footer=footer_of(results))
         manifest = write_manifest(tmp)
         audit.files.fsync_dir(tmp)
     except BaseException:

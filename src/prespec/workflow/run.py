@@ -29,7 +29,7 @@ from prespec.workflow.base import (
 )
 from prespec.workflow.execute import compute_results, default_folder
 from prespec.workflow.overrides import apply_overrides, override_departures
-from prespec.workflow.publish import RunOutcome, publish
+from prespec.workflow.publish import RunOutcome, kernel_ahead, publish
 
 if TYPE_CHECKING:
     from prespec.plan.model import Plan
@@ -137,22 +137,23 @@ def run(plan: str | Path, data: str | Path | None = None, *, out: str | Path | N
     out_path = Path(out) if out is not None else default_folder(loaded.path, "run")
     if out is not None:
         check_out_path(loaded.path, out_path)  # before the work; the default is numbered
-    results = compute_results(
-        plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
-        data_path=None, actor=resolve_actor(actor), environment=env,
-        deviations=deviations, notes=notes,
-        previous_data=runs[-1].get("data") if runs and looks is None else None,
-        looks=looks, progress=progress, source=source, engine=engine, counting=counting,
-    )
-    results = with_lock_history(results, entries, record)  # when locked, by the log
-    results = finish(results, changes)  # the overrides and each result's pre_specified
-    action = "look" if look is not None else "run"
-    in_force = record["fingerprint"] if record is not None else None
-    outcome = publish(loaded.path, out_path, results, numbered=out is None, action=action,
-                      details=look_details(results),
-                      before_entry=lambda: still_as_read(loaded.path, in_force, entries,
-                                                          looks is not None),
-                      stamp_url=stamp_url, pdf=pdf)
+    with kernel_ahead():  # the report's kernel starts while the data are read and reduced
+        results = compute_results(
+            plan_path=loaded.path, plan=model, fingerprint=fp, version=version,
+            data_path=None, actor=resolve_actor(actor), environment=env,
+            deviations=deviations, notes=notes,
+            previous_data=runs[-1].get("data") if runs and looks is None else None,
+            looks=looks, progress=progress, source=source, engine=engine, counting=counting,
+        )
+        results = with_lock_history(results, entries, record)  # when locked, by the log
+        results = finish(results, changes)  # the overrides and each result's pre_specified
+        action = "look" if look is not None else "run"
+        in_force = record["fingerprint"] if record is not None else None
+        outcome = publish(loaded.path, out_path, results, numbered=out is None, action=action,
+                          details=look_details(results),
+                          before_entry=lambda: still_as_read(loaded.path, in_force, entries,
+                                                              looks is not None),
+                          stamp_url=stamp_url, pdf=pdf)
     return dataclasses.replace(outcome, procedures=procedures(model))
 
 
