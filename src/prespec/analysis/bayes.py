@@ -159,23 +159,32 @@ def _kernel_oc(sizes: tuple[int, ...], priors: tuple[tuple[float, ...], ...],
         threshold=threshold, assumed=assumed)
 
 
-def _look_point(hyp: Hypothesis, groups: list[str], priors: tuple[tuple[float, ...], ...],
-                per_group: list[list[int]], rates: tuple[float, ...]) -> dict[str, Any]:
-    """The sequential figures of a rule with looks at one point of true rates: the
-    probability of success, of stopping for success at each interim look, of stopping for
-    futility there if the bound were followed, and each group's expected analysed size."""
-    looks = hyp.looks
-    common = {"alternative": hyp.alternative, "threshold": float(hyp.threshold),
-              "stop_for_success": looks.stop_for_success,
-              "stop_for_futility": looks.stop_for_futility}
-    if hyp.kind == "single":
-        got = bayes.sequential_rule_probability_single(
-            per_group[0], priors[0], null_rate=float(hyp.null_rate), rates=[rates[0]],
-            **common)[0]
-    else:
-        got = bayes.sequential_rule_probability(
-            per_group[0], per_group[1], priors[0], priors[1], margin=float(hyp.margin or 0.0),
-            rates_a=[rates[0]], rates_b=[rates[1]], **common)[0]
+@functools.lru_cache(maxsize=16)
+def _kernel_points(per_group: tuple[tuple[int, ...], ...],
+                   priors: tuple[tuple[float, ...], ...], null_rate: float | None,
+                   margin: float, alternative: str, threshold: float,
+                   success: float | None, futility: float | None,
+                   points: tuple[tuple[float, ...], ...]) -> tuple[bayes.SequentialOC, ...]:
+    """The kernel's sequential figures of a rule with looks at points of true rates (one rate
+    per group each), in one call (the rule's regions made once), kept for the process as
+    :func:`_kernel_oc` is."""
+    common: dict[str, Any] = {"alternative": alternative, "threshold": threshold,
+                              "stop_for_success": success, "stop_for_futility": futility}
+    if null_rate is not None:
+        return tuple(bayes.sequential_rule_probability_single(
+            per_group[0], priors[0], null_rate=null_rate,
+            rates=[point[0] for point in points], **common))
+    return tuple(bayes.sequential_rule_probability(
+        per_group[0], per_group[1], priors[0], priors[1], margin=margin,
+        rates_a=[point[0] for point in points], rates_b=[point[1] for point in points],
+        **common))
+
+
+def _look_point(groups: list[str], rates: tuple[float, ...],
+                got: bayes.SequentialOC) -> dict[str, Any]:
+    """The sequential figures at one point of true rates: the probability of success, of
+    stopping for success at each interim look, of stopping for futility there if the bound
+    were followed, and each group's expected analysed size."""
     return {"rates": dict(zip(groups, rates, strict=True)), "success": float(got.success),
             "stop_for_success": [float(x) for x in got.stop_for_success],
             "futility": [float(x) for x in got.futility],
@@ -205,10 +214,10 @@ def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | N
     looks = None if per_group is None else (
         hyp.looks.stop_for_success, hyp.looks.stop_for_futility,
         tuple(tuple(sizes) for sizes in per_group))
-    oc = _kernel_oc(tuple(int(planned[g]) for g in groups), priors,
-                    hyp.null_rate if hyp.kind == "single" else None,
-                    float(hyp.margin or 0.0), hyp.alternative, float(hyp.threshold), assumed,
-                    looks)
+    null_rate = hyp.null_rate if hyp.kind == "single" else None
+    margin = float(hyp.margin or 0.0)
+    oc = _kernel_oc(tuple(int(planned[g]) for g in groups), priors, null_rate, margin,
+                    hyp.alternative, float(hyp.threshold), assumed, looks)
     out = {
         "sizes": {g: int(planned[g]) for g in groups},
         "alpha": float(plan.alpha),
@@ -221,19 +230,22 @@ def operating_characteristics(hyp: Hypothesis, plan: Plan) -> dict[str, Any] | N
         "curve": [{"rate_a": float(ra), "rate_b": None if hyp.kind == "single" else float(rb),
                    "probability": float(p)} for rb, ra, p in oc.curve],
     }
-    if per_group is not None:
-        if hyp.kind == "single":
-            worst: tuple[float, ...] = (float(hyp.null_rate),)
+    if looks is not None:
+        success, futility, sizes = looks
+        if null_rate is not None:
+            worst: tuple[float, ...] = (float(null_rate),)
         else:
             rate_b = float(oc.at_rate)
-            worst = (min(1.0, max(0.0, rate_b + float(hyp.margin or 0.0))), rate_b)
+            worst = (min(1.0, max(0.0, rate_b + margin)), rate_b)
+        points = (worst,) if assumed is None else (worst, assumed)
+        got = _kernel_points(sizes, priors, null_rate, margin, hyp.alternative,
+                             float(hyp.threshold), success, futility, points)
         out["looks"] = {
             "sizes": dict(zip(groups, per_group, strict=True)),
-            "stop_for_success": hyp.looks.stop_for_success,
-            "stop_for_futility": hyp.looks.stop_for_futility,
-            "under_null": _look_point(hyp, groups, priors, per_group, worst),
-            "under_assumed": None if assumed is None else
-            _look_point(hyp, groups, priors, per_group, assumed),
+            "stop_for_success": success,
+            "stop_for_futility": futility,
+            "under_null": _look_point(groups, worst, got[0]),
+            "under_assumed": None if assumed is None else _look_point(groups, assumed, got[1]),
         }
     return out
 

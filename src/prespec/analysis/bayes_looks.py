@@ -26,7 +26,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-from prespec.common.departures import Departure, Note
+from prespec.common.departures import Note
 from prespec.errors import BadInput
 from prespec.plan.looks import bayes_look_sizes, planned_total
 from prespec.stats import bayes
@@ -95,7 +95,7 @@ def _statement(hyp: Hypothesis, entry: dict[str, Any], run: LookRun, decision: s
 
 
 def bayes_look(plan: Plan, hyp: Hypothesis, entry: dict[str, Any], run: LookRun,
-               notes: list[Note]) -> tuple[dict[str, Any], list[Departure]]:
+               notes: list[Note]) -> dict[str, Any]:
     """The ``looks`` block of a Bayesian rule at this look. At an interim look the entry's
     ``threshold`` becomes ``stop_for_success`` (null without one) and ``reject`` whether the
     look stops for success, and the sentence says so; at the final look they stay the rule's."""
@@ -164,4 +164,4 @@ def bayes_look(plan: Plan, hyp: Hypothesis, entry: dict[str, Any], run: LookRun,
         "decision": decision,
         "history": history,
     }
-    return block, []
+    return block

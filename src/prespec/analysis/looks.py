@@ -565,9 +565,7 @@ def apply_looks(
     for entry in hypotheses:
         hyp = by_id.get(entry["id"]) if entry.get("parent") is None else None
         if hyp is not None and hyp.looks is not None and hyp.test in BAYESIAN_TESTS:
-            block, found = bayes_look(plan, hyp, entry, run, notes)
-            entry["looks"] = block
-            departures.extend(found)
+            entry["looks"] = bayes_look(plan, hyp, entry, run, notes)  # no departures of its own
         elif hyp is not None and hyp.looks is not None:
             block, found = hypothesis_look(plan, hyp, entry, run, notes, graph.get(hyp.id))
             entry["looks"] = block
