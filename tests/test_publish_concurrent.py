@@ -33,7 +33,7 @@ def demo_results(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
 
     mp.setattr(publish, "build_report", capture)
     mp.setattr(prespec.report, "render_notebook", lambda folder: None)
-    mp.setattr(prespec.report, "write_figures", lambda results, folder: [])
+    mp.setattr(prespec.report, "write_figures", lambda results, folder, **_: [])
     try:
         api.demo(tmp_path_factory.mktemp("demo") / "demo")
     finally:
@@ -64,9 +64,9 @@ def test_figures_beside_the_kernel_give_the_same_bytes_as_figures_first(
     first, first_manifest = _build(tmp_path / "first", demo_results, False, monkeypatch)
     draw = prespec.report.write_figures
 
-    def late(results: dict[str, Any], folder: Path) -> list[Path]:
+    def late(results: dict[str, Any], folder: Path, **kwargs: Any) -> list[Path]:
         time.sleep(3)  # the kernel ready long before: no cell may run (or look for a figure)
-        return draw(results, folder)
+        return draw(results, folder, **kwargs)  # the SVGs written while the cells run
 
     monkeypatch.setattr(prespec.report, "write_figures", late)
     beside, beside_manifest = _build(tmp_path / "beside", demo_results, True, monkeypatch)
@@ -94,7 +94,7 @@ def test_a_failure_of_the_figures_stops_the_kernel_and_leaves_nothing(
         place = tmp_path / f"at-once-{at_once}"
         place.mkdir()
 
-        def broken(results: dict[str, Any], folder: Path) -> list[Path]:
+        def broken(results: dict[str, Any], folder: Path, **_: Any) -> list[Path]:
             (folder / "figures").mkdir()
             raise PrespecError("results.json: groups: not a mapping")
 
@@ -106,6 +106,26 @@ def test_a_failure_of_the_figures_stops_the_kernel_and_leaves_nothing(
         assert list(place.iterdir()) == []  # the temporary folder removed, nothing half-written
         assert _no_notebook_thread()
     assert messages == ["results.json: groups: not a mapping"] * 2
+
+
+def test_a_failure_of_the_svgs_written_while_the_cells_run_leaves_nothing(
+        demo_results: dict[str, Any], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    draw = prespec.report.write_figures
+    svgs_given: list[list[Any]] = []
+
+    def failing_svgs(results: dict[str, Any], folder: Path, **kwargs: Any) -> list[Path]:
+        written = draw(results, folder, **kwargs)
+        svgs_given.append(kwargs["svgs_later"])
+        kwargs["svgs_later"].append(lambda: (_ for _ in ()).throw(OSError("disk full")))
+        return written
+
+    monkeypatch.setattr(prespec.report, "write_figures", failing_svgs)
+    monkeypatch.setattr(publish, "FIGURES_WITH_KERNEL", True)
+    with pytest.raises(PrespecError, match="disk full"):
+        publish.build_report(tmp_path / "report", demo_results)
+    assert len(svgs_given[0]) == 4  # the demo's three figures, then the failing one
+    assert list(tmp_path.iterdir()) == []
+    assert _no_notebook_thread()
 
 
 def test_an_interrupt_while_the_figures_are_drawn_stops_the_kernel(
@@ -122,7 +142,7 @@ def test_an_interrupt_while_the_figures_are_drawn_stops_the_kernel(
 
         return original(*args[:5], counted)
 
-    def interrupted(results: dict[str, Any], folder: Path) -> list[Path]:
+    def interrupted(results: dict[str, Any], folder: Path, **_: Any) -> list[Path]:
         raise KeyboardInterrupt
 
     monkeypatch.setattr(render, "_execute", counting)

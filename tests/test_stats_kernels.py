@@ -21,7 +21,13 @@ from statsmodels.stats.proportion import proportions_ztest
 from prespec.analysis import sensitivity
 from prespec.design.exactpower import FisherTables
 from prespec.stats import graphical, intervals, margins, multiplicity, ratios, single, tables, trend
-from prespec.stats._normal import chi_square_p_values, normal_p_value, normal_p_values
+from prespec.stats._normal import (
+    chi_square_p_value,
+    chi_square_p_values,
+    normal_p_value,
+    normal_p_values,
+    upper_quantile,
+)
 from prespec.stats.fisherarray import conditional_or_ci_many, fisher_many, fisher_p_values
 from prespec.stats.proportions import (
     FISHER_TIE_TOLERANCE,
@@ -48,7 +54,9 @@ def _all_tables(n1: int, n2: int) -> np.ndarray:
 @pytest.mark.parametrize("alternative", ALTERNATIVES)
 def test_normal_p_values_are_scipys_and_the_scalar_is_their_one_element_case(
         alternative: str) -> None:
-    z = np.array([-40.0, -3.2, -1.0, 0.0, 0.3, 1.959963984540054, 8.5, math.nan, 0.3])
+    z = np.array([-40.0, -3.2, -1.0, 0.0, -0.0, 0.3, 1.959963984540054, 8.5, math.nan, 0.3,
+                  math.inf, -math.inf, 1e-300, 37.5, -37.5,
+                  *np.random.default_rng(7).normal(0.0, 3.0, 500)])
     got = normal_p_values(z, alternative)
     # scipy.stats.norm.sf / .cdf
     want = {"greater": scipy.stats.norm.sf(z), "less": scipy.stats.norm.cdf(z),
@@ -60,10 +68,71 @@ def test_normal_p_values_are_scipys_and_the_scalar_is_their_one_element_case(
 
 
 def test_chi_square_p_values_are_scipys() -> None:
-    x2 = np.array([0.0, 0.5, 3.841458820694124, 0.5, 60.0, math.nan])
-    for df in (1, 3):
-        # scipy.stats.chi2.sf
-        np.testing.assert_array_equal(chi_square_p_values(x2, df), scipy.stats.chi2.sf(x2, df))
+    x2 = np.array([0.0, 0.5, 3.841458820694124, 0.5, 60.0, math.nan, -1.0, math.inf, 900.0,
+                   *np.random.default_rng(8).chisquare(2.0, 500)])
+    for df in (1, 2, 3, 7):
+        # scipy.stats.chi2.sf, to the bit (both come to scipy.special.chdtrc)
+        want = scipy.stats.chi2.sf(x2, df)
+        np.testing.assert_array_equal(chi_square_p_values(x2, df), want)
+        for value, p in zip(x2[:40], want[:40], strict=True):
+            scalar = chi_square_p_value(float(value), df)
+            assert (math.isnan(scalar) and math.isnan(p)) or scalar == p
+
+
+def test_the_normal_quantile_is_scipys_to_the_bit() -> None:
+    qs = [0.025, 0.05, 0.005, 0.1, 0.5, 0.975, 1e-12, 1e-300, 0.0, 1.0, math.nan,
+          *np.random.default_rng(9).uniform(0.0, 1.0, 500)]
+    for q in qs:
+        want = scipy.stats.norm.isf(q)  # scipy.stats.norm.isf
+        got = upper_quantile(q)
+        assert type(got) is type(want) is np.float64
+        assert (math.isnan(got) and math.isnan(want)) or got == want, q
+    assert round(float(upper_quantile(0.025)), 6) == 1.959964  # common practice: a 95% interval
+
+
+def _loaded_after(code: str) -> list[str]:
+    """The heavy modules a fresh interpreter holds after running ``code``."""
+    import subprocess
+    import sys
+
+    heavy = ("numpy", "scipy.special", "scipy.stats", "scipy.optimize", "nbformat", "pandas",
+             "matplotlib")
+    done = subprocess.run(
+        [sys.executable, "-c", (f"import sys\n{code}\nprint(sorted(m for m in {heavy!r} "
+                               "if m in sys.modules))")],
+        capture_output=True, text=True, check=True)
+    return [line for line in done.stdout.splitlines() if line][-1:]
+
+
+def test_importing_the_statistics_room_leaves_scipy_stats_and_optimize_unloaded() -> None:
+    """The report's kernel imports prespec.stats as it starts; each of scipy.stats and
+    scipy.optimize would add about half a second to every report."""
+    assert _loaded_after("import prespec.stats") == ["['numpy', 'scipy.special']"]
+    # the functions that need them load them when called
+    assert (single.binomial_exact(7, 20, 0.5, alternative="two-sided").p_value
+            == scipy.stats.binomtest(7, 20, 0.5).pvalue)  # scipy.stats.binomtest
+
+
+def test_the_kernel_imports_the_sections_at_once_and_the_statistics_in_a_thread() -> None:
+    from prespec.report import warm
+
+    # what the first cells call imports neither numpy nor the notebook machinery
+    at_start = "\n".join(f"import {name}" for name in warm.AT_START)
+    assert _loaded_after(at_start) == ["[]"]
+    # warm() leaves no name and prints nothing; its thread imports the statistics room
+    code = ("import prespec.report.warm as w\nbefore = set(globals())\nt = w.warm()\n"
+            "t.join()\nassert set(globals()) == before | {'t', 'before'}, set(globals())\n"
+            "assert t.name == 'prespec-warm' and t.daemon")
+    assert _loaded_after(code) == ["['numpy', 'scipy.special']"]
+    # a module that fails in the thread says nothing there (the cell importing it will)
+    code = ("import prespec.report.warm as w\nw.IN_BACKGROUND = ('prespec.no_such_room',)\n"
+            "w.warm().join()")
+    import subprocess
+    import sys
+
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True)
+    assert (done.stdout, done.stderr) == ("", "")
 
 
 # --- the smallest expected count ----------------------------------------------------------------

@@ -14,7 +14,6 @@ shows the other differences highlighted.
 from __future__ import annotations
 
 import platform
-from importlib import metadata
 
 PACKAGES = ("numpy", "scipy", "statsmodels", "pandas", "prespec")
 #: The distributions the engines count with (``data/engines/choose.py`` names each engine's).
@@ -30,6 +29,8 @@ def operating_system() -> str:
 
 
 def _version(name: str) -> str:
+    from importlib import metadata  # here: the report's kernel imports this module for KEYS
+
     try:
         return metadata.version(name)
     except metadata.PackageNotFoundError:  # prespec is always installed; engines may not be

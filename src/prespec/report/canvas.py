@@ -94,22 +94,31 @@ def stable_ids(svg: str) -> str:
     return _HASHED_ID.sub(rename, svg)
 
 
-def save_png(fig: Figure, path: Path) -> None:
-    """Save the figure as a PNG at :data:`PNG_DPI` and as an SVG beside it (``svg_name``),
-    each under a temporary name and renamed into place; no time stamp or creator in either."""
-    svg = Path(svg_name(path))
+def write_png(fig: Figure, path: Path) -> None:
+    """Save the figure as a PNG at :data:`PNG_DPI`, under a temporary name renamed into place,
+    without a time stamp or creator; its layout is then fixed (the SVG written beside it by
+    :func:`write_svg` is drawn with the layout of the PNG, not one computed again)."""
     tmp_png = path.with_name(f".{path.name}.partial")
-    tmp_svg = svg.with_name(f".{svg.name}.partial")
     try:
         fig.savefig(tmp_png, format="png", dpi=PNG_DPI, metadata={"Software": None})
-        fig.set_layout_engine("none")  # the layout the PNG was drawn with, not computed again
+        fig.set_layout_engine("none")
+        os.replace(tmp_png, path)
+    except BaseException:
+        tmp_png.unlink(missing_ok=True)
+        raise
+
+
+def write_svg(fig: Figure, path: Path) -> None:
+    """Save the figure, after :func:`write_png`, as an SVG beside the PNG (``svg_name``), under
+    a temporary name renamed into place, without a date or creator and with stable ids."""
+    svg = Path(svg_name(path))
+    tmp_svg = svg.with_name(f".{svg.name}.partial")
+    try:
         buffer = io.StringIO()
         fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
         tmp_svg.write_text(stable_ids(buffer.getvalue()), encoding="utf-8")
-        os.replace(tmp_png, path)
         os.replace(tmp_svg, svg)
     except BaseException:
-        tmp_png.unlink(missing_ok=True)
         tmp_svg.unlink(missing_ok=True)
         raise
 

@@ -22,7 +22,7 @@ The report's figures:
   arrow with its weight for each transition.
 
 Every figure is written as a PNG at 200 dpi with an SVG of the same name beside it
-(``canvas.save_png``). The estimates figure draws confirmatory results, tested follow-ups,
+(``canvas.write_png``, then ``canvas.write_svg``). The estimates figure draws confirmatory results, tested follow-ups,
 follow-ups behind a closed gate (not tested) and exploratory results each in its own marker
 and line (``KINDS``), with a legend; labels are wrapped in full, never cut; under each axis a
 line says which side favours which group (by the outcome's ``favourable`` value in the
@@ -37,9 +37,11 @@ results give the same bytes.
 
 from __future__ import annotations
 
+import contextlib
+import functools
 import itertools
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -54,9 +56,10 @@ from prespec.report.canvas import (
     new_figure,
     right_labels,
     safe_stem,
-    save_png,
     shorten,
     wrapped,
+    write_png,
+    write_svg,
 )
 from prespec.report.tipping import (
     TippingJob,
@@ -117,19 +120,21 @@ def has_graph(results: Mapping[str, Any]) -> bool:
     return isinstance(value, Mapping) and value.get("method") == "graphical"
 
 
-def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
+def write_figures(results: dict[str, Any], folder: Path, *,
+                  svgs_later: list[Callable[[], None]] | None = None) -> list[Path]:
     """Write the report's PNG figures into ``folder / "figures"`` and return their paths.
 
     One ``proportions-<outcome>.png`` per outcome in ``results["groups"]`` (in that order), then
     ``differences.png`` if any hypothesis has an estimate, one ``tipping-<id>.png`` per
     tipping-point analysis with a missing outcome, then ``multiplicity-graph.png`` for the
-    graphical procedure. A blinded rehearsal gets none of the group-level figures. A malformed ``results`` raises
-    :class:`prespec.errors.PrespecError` naming the key; files are written under a temporary
-    name and renamed into place, so none is left half-written.
-    """
-    import matplotlib
-    import matplotlib.style
+    graphical procedure. A blinded rehearsal gets none of the group-level figures. A
+    malformed ``results`` raises :class:`prespec.errors.PrespecError` naming the key; files
+    are written under a temporary name and renamed into place, so none is left half-written.
 
+    ``svgs_later``: the SVGs are not written here; a call that writes them (each from its
+    figure, in the same style, to the same bytes) is appended to the list instead. A report
+    writes them while its notebook runs, which reads only the PNGs.
+    """
     results = dict(mapping(results, ""))
     blinded = is_rehearsal(results)  # a rehearsal draws no group-level figure
     groups = {} if blinded else mapping(results.get("groups") or {}, "groups")
@@ -167,15 +172,35 @@ def write_figures(results: dict[str, Any], folder: Path) -> list[Path]:
 
     written: list[Path] = []
     out_dir = Path(folder) / FIGURES
-    with matplotlib.style.context("default"), matplotlib.rc_context(RC):
+    with _figure_style():
         figures = [(name, job.draw()) for name, job in jobs]
         if figures:
             out_dir.mkdir(parents=True, exist_ok=True)
         for name, fig in figures:
             path = Path(folder) / name
-            save_png(fig, path)
+            write_png(fig, path)
+            if svgs_later is None:
+                write_svg(fig, path)
+            else:
+                svgs_later.append(functools.partial(_svg_in_style, fig, path))
             written.append(path)
     return written
+
+
+def _figure_style() -> contextlib.ExitStack:
+    """matplotlib's default style with the report's settings (:data:`canvas.RC`)."""
+    import matplotlib
+    import matplotlib.style
+
+    stack = contextlib.ExitStack()
+    stack.enter_context(matplotlib.style.context("default"))
+    stack.enter_context(matplotlib.rc_context(RC))
+    return stack
+
+
+def _svg_in_style(fig: Figure, path: Path) -> None:
+    with _figure_style():  # the SVG reads its settings (fonts as paths, ids) as it is saved
+        write_svg(fig, path)
 
 
 def _interval_line(

@@ -7,7 +7,7 @@ HTML export, with the code hidden and the figures embedded, ``report.html``. Bot
 under temporary names and renamed into place only when both are complete.
 
 The kernel costs most of a report's time whatever the data: it starts and imports what the
-cells need (:data:`WARM_IMPORTS`, run by the kernel as it starts, before any cell). Given
+cells need (:mod:`prespec.report.warm`, run by the kernel as it starts). Given
 ``alongside`` (the figures), :func:`render_notebook` starts the kernel in a thread, calls
 ``alongside`` in the caller's thread meanwhile, and lets the notebook's first cell run only
 once it has returned: the cells read the figures, and they see exactly the files, and give
@@ -140,13 +140,16 @@ def results_digest(path: Path) -> str:
 
 
 def render_notebook(folder: Path, *, kernel_name: str | None = None,
-                    alongside: Callable[[], object] | None = None) -> None:
+                    alongside: Callable[[], object] | None = None,
+                    meanwhile: Callable[[], object] | None = None) -> None:
     """Execute the report notebook in ``folder`` and write ``report.ipynb`` and ``report.html``.
 
     ``folder`` must hold ``results.json`` and the figures that :func:`write_figures` wrote,
     or ``alongside`` must write them: it is called in this thread while the kernel starts, and
     no cell runs before it has returned (an exception from it stops the kernel before its
-    first cell, and is raised as it is).
+    first cell, and is raised as it is). ``meanwhile`` (only with ``alongside``) is called in
+    this thread once ``alongside`` has returned, while the cells run: work the cells do not
+    read (an exception from it stops the notebook at its next cell, and is raised as it is).
     The kernel is the current interpreter's ipykernel (``python3``) unless ``kernel_name`` says
     otherwise. Any failure raises :class:`prespec.errors.PrespecError` with a one-line message
     and leaves neither file behind.
@@ -165,7 +168,7 @@ def render_notebook(folder: Path, *, kernel_name: str | None = None,
             executed = _execute(folder, partial_nb, digest, kernel_name or KERNEL, notebook)
         else:
             executed = _execute_alongside(folder, partial_nb, digest, kernel_name or KERNEL,
-                                          notebook, alongside)
+                                          notebook, alongside, meanwhile)
         _clean(executed, _title(results_path))
         page = _to_html(executed)
         nbformat.write(executed, partial_nb)
@@ -193,15 +196,10 @@ def _one_line(exc: BaseException) -> str:
 KERNEL_STARTS = 3  # tries at starting the notebook's kernel
 _KERNEL_START_FAILED = "Kernel died before replying to kernel_info"
 
-#: What the cells import, imported by this interpreter's kernel as it starts (ipykernel's
-#: ``exec_lines``, in no name of the user's namespace and in no cell's output), so that the
-#: import (scipy.stats the most of it) overlaps the figures. A module that fails here fails
-#: again, with its message, in the cell that imports it.
-WARM_IMPORTS = ("IPython.display", "prespec.report.sections", "prespec.report.summary",
-                "prespec.report.families", "prespec.stats")
-_WARM_LINES = ("for _prespec_module in " + repr(WARM_IMPORTS) + ":\n"
-               "    __import__(_prespec_module)\n"
-               "del _prespec_module")
+#: What the kernel runs as it starts (ipykernel's ``exec_lines``): the imports of
+#: :mod:`prespec.report.warm`, in no name of the notebook's namespace and in no cell's output,
+#: so that they overlap the figures and the first cells.
+_WARM_LINES = "__import__('prespec.report.warm', fromlist=['warm']).warm()"
 
 
 class _Stopped(Exception):
@@ -209,10 +207,12 @@ class _Stopped(Exception):
 
 
 def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str,
-                       notebook: NotebookNode, alongside: Callable[[], object]) -> NotebookNode:
+                       notebook: NotebookNode, alongside: Callable[[], object],
+                       meanwhile: Callable[[], object] | None = None) -> NotebookNode:
     """:func:`_execute` in a thread while ``alongside()`` runs in this one; the notebook's
-    cells wait for it. A failure of either is raised here once the thread has ended (the
-    kernel shut down, no file of it left but the partial notebook, which the caller removes)."""
+    cells wait for it, then run while ``meanwhile()`` runs here. A failure of any is raised
+    here once the thread has ended (the kernel shut down, no file of it left but the partial
+    notebook, which the caller removes)."""
     ready = threading.Event()
     stop = threading.Event()
     outcome: dict[str, Any] = {}
@@ -246,6 +246,14 @@ def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str
             raise
         finally:
             ready.set()
+        if meanwhile is not None:
+            import sys
+            interval = sys.getswitchinterval()
+            sys.setswitchinterval(0.0005)
+            try:
+                meanwhile()
+            finally:
+                sys.setswitchinterval(interval)
         if thread.is_alive():  # the kernel is still starting: the page's exporter meanwhile
             _warm_html()
         while thread.is_alive():
@@ -285,6 +293,7 @@ def _execute(folder: Path, output: Path, digest: str, kernel_name: str,
                     progress_bar=False,
                     log_output=False,
                     request_save_on_cell_execute=False,  # written once, at the end
+                    shutdown_kernel="immediate",
                     # the kernel's working folder (papermill's cwd= would change this
                     # process's, which the thread beside the notebook shares)
                     resources={"metadata": {"path": str(folder)}},
@@ -357,9 +366,10 @@ _WAITING_LOCK = threading.Lock()
 
 
 class KernelAhead:
-    """This interpreter's kernel, started (and importing :data:`WARM_IMPORTS`) in a thread of
-    its own before the report exists, for the next notebook that :func:`render_notebook`
-    runs with ``alongside``: while a run reads and reduces its data, the kernel starts.
+    """This interpreter's kernel, started (and importing what :mod:`prespec.report.warm`
+    names) in a thread of its own before the report exists, for the next notebook that
+    :func:`render_notebook` runs with ``alongside``: while a run reads and reduces its data,
+    the kernel starts.
 
     The kernel is started in Jupyter's runtime folder and moved into the report folder
     (``os.chdir`` in a silent request: no name, no output, no history) before the notebook
@@ -503,7 +513,13 @@ def _quiet_manager(base: type[Any]) -> type[Any]:
     interrupt.
     """
 
+    from traitlets import default
+
     class QuietKernel(base):  # type: ignore[misc, valid-type]
+        @default("client_factory")
+        def _prompt_client(self) -> type[Any]:
+            return _prompt_client_class()
+
         async def _async_launch_kernel(self, kernel_cmd: list[str], **kw: Any) -> None:
             kw["stdout"] = subprocess.DEVNULL
             kw["stderr"] = subprocess.DEVNULL
@@ -514,7 +530,67 @@ def _quiet_manager(base: type[Any]) -> type[Any]:
                 return
             await super()._async_interrupt_kernel()
 
+        async def _async_wait(self, pollinterval: float = 0.1) -> None:
+            # a killed kernel is gone within milliseconds; jupyter_client looks every 0.1 s
+            await super()._async_wait(pollinterval=min(pollinterval, 0.005))
+
     return QuietKernel
+
+
+def _prompt_client_class() -> type[Any]:
+    """The asynchronous kernel client, with a :meth:`wait_for_ready` that ends as soon as the
+    kernel has answered and its IOPub channel has carried the whole answer.
+
+    jupyter_client's own ends only after 0.2 s in which IOPub carried nothing, a wait the
+    report paid twice (once for a kernel started ahead, once more when the notebook client
+    took it). Here, as there, the kernel is asked for its info until it replies with IOPub
+    connected (a subscriber that joins late misses what was sent before it joined); then
+    IOPub is read up to the kernel's "idle" status for the request answered, which the
+    kernel sends after everything else that request caused, so nothing of it is left
+    unread. A kernel that sends no such status (none known) is waited for as there: until
+    0.2 s of silence."""
+    from jupyter_client.asynchronous import AsyncKernelClient
+
+    class PromptClient(AsyncKernelClient):  # type: ignore[misc]
+        async def wait_for_ready(self, timeout: float | None = None) -> None:
+            import time
+            from queue import Empty
+
+            deadline = time.time() + (float("inf") if timeout is None else timeout)
+            while True:
+                self.kernel_info()
+                try:
+                    reply = await self.shell_channel.get_msg(timeout=1)
+                except Empty:
+                    reply = None
+                if reply is not None and reply["msg_type"] == "kernel_info_reply":
+                    try:  # IOPub connected: something of the request arrives on it
+                        first = await self.iopub_channel.get_msg(timeout=0.2)
+                    except Empty:
+                        pass
+                    else:
+                        self._handle_kernel_info_reply(reply)
+                        break
+                if not await self._async_is_alive():
+                    raise RuntimeError("Kernel died before replying to kernel_info")
+                if time.time() > deadline:
+                    raise RuntimeError(f"Kernel didn't respond in {timeout:.0f} seconds")
+            asked = reply["parent_header"].get("msg_id")
+            message = first
+            while not _idle_after(message, asked):
+                try:
+                    message = await self.iopub_channel.get_msg(timeout=0.2)
+                except Empty:
+                    break
+
+    return PromptClient
+
+
+def _idle_after(message: dict[str, Any], request: str | None) -> bool:
+    """Whether ``message`` is the kernel's "idle" status at the end of ``request``."""
+    return (message.get("msg_type") == "status"
+            and message.get("content", {}).get("execution_state") == "idle"
+            and message.get("parent_header", {}).get("msg_id") == request)
 
 
 def _this_interpreter_manager(base: type[Any]) -> type[Any]:

@@ -50,10 +50,10 @@ from dataclasses import dataclass
 from numbers import Integral, Real
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from prespec.stats import _checks
-from prespec.stats._normal import normal_p_value
+from prespec.stats._normal import normal_p_value, upper_quantile
 from prespec.stats.results import Estimate, TestResult
 
 MEASURES: tuple[str, ...] = ("risk-difference", "risk-ratio", "odds-ratio")
@@ -289,7 +289,7 @@ def g_computation(
     value, se = _effect(measure, p_a, p_b, cov)
     if not (math.isfinite(se) and se > 0):
         raise ModelFailure(f"the {variance} variance of the {measure} is not positive")
-    half = float(stats.norm.isf((1.0 - lvl) / 2.0)) * se
+    half = float(upper_quantile((1.0 - lvl) / 2.0)) * se
     centre = _scale(measure, value)
     low, high = centre - half, centre + half
     if measure != "risk-difference":
@@ -523,7 +523,7 @@ def _working_model(beta: np.ndarray, bread: np.ndarray, names: tuple[str, ...],
                    iterations: int, level: float) -> WorkingModel:
     errors = np.sqrt(np.diag(bread))
     terms = tuple(Term(name, float(c), float(s)) for name, c, s in zip(names, beta, errors))
-    half = float(stats.norm.isf((1.0 - level) / 2.0)) * float(errors[1])
+    half = float(upper_quantile((1.0 - level) / 2.0)) * float(errors[1])
     conditional = Estimate("odds-ratio", math.exp(beta[1]), math.exp(beta[1] - half),
                            math.exp(beta[1] + half), "conditional (working model)", level)
     return WorkingModel(terms, conditional, iterations)

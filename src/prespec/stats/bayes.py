@@ -63,9 +63,10 @@ from dataclasses import dataclass
 from numbers import Real
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import special
 
 from prespec.stats import _checks
+from prespec.stats._lazy import brentq, scipy_stats
 
 #: The alternatives of a Bayesian rule (one-sided only).
 ALTERNATIVES: tuple[str, ...] = ("greater", "less")
@@ -431,7 +432,7 @@ def _difference_quantile(p: float, post_a: tuple[float, float],
     """The d with Pr(p_a − p_b <= d) = p, by Brent's method on (−1, 1)."""
     def excess(d: float) -> float:
         return difference_cdf(d, post_a, post_b) - p
-    return float(optimize.brentq(excess, -1.0, 1.0, xtol=1e-13, rtol=4 * np.finfo(float).eps,
+    return float(brentq(excess, -1.0, 1.0, xtol=1e-13, rtol=4 * np.finfo(float).eps,
                                  maxiter=200))
 
 
@@ -533,7 +534,7 @@ def rule_region_single(n: int, prior: tuple[float, float], *, null_rate: float,
 
 def _binomial_pmfs(n: int, rates: np.ndarray) -> np.ndarray:
     """Binom(x; n, rate) for x = 0..n (columns) at each rate (rows)."""
-    return stats.binom.pmf(np.arange(n + 1)[None, :], n, rates[:, None])
+    return scipy_stats().binom.pmf(np.arange(n + 1)[None, :], n, rates[:, None])
 
 
 def rule_probability(region: np.ndarray, n_a: int, n_b: int, rates_a: object,

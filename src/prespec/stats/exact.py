@@ -21,9 +21,10 @@ from fractions import Fraction
 from numbers import Integral
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 from prespec.stats import _checks
+from prespec.stats._lazy import minimize_scalar
 from prespec.stats.results import TestResult
 
 #: Relative tolerance for a table as probable (Fisher) or as extreme (Boschloo) as the observed one.
@@ -100,7 +101,7 @@ def _maximum_over_rate(log_coef: np.ndarray) -> float:
     step = 1.0 / points
     for i in peaks:
         low, high = max(grid[i] - step, 1e-300), min(grid[i] + step, 1.0 - 1e-16)
-        found = optimize.minimize_scalar(
+        found = minimize_scalar(
             lambda r: -float(_log_p_of_rate(log_coef, np.array([r]))[0]),
             bounds=(low, high),
             method="bounded",

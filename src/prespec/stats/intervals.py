@@ -9,15 +9,16 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import optimize, stats
 
 from prespec.stats import _checks
+from prespec.stats._lazy import brentq
+from prespec.stats._normal import upper_quantile
 from prespec.stats.results import Estimate
 
 
 def _critical(level: float) -> float:
     """Two-sided standard normal critical value for a confidence level."""
-    return float(stats.norm.isf((1.0 - level) / 2.0))
+    return float(upper_quantile((1.0 - level) / 2.0))
 
 
 def _difference(x1: int, n1: int, x2: int, n2: int) -> float:
@@ -328,7 +329,7 @@ def _mn_difference_lower(x1: int, n1: int, x2: int, n2: int, share: float) -> fl
     if estimate <= -1.0:
         return -1.0
     return float(
-        optimize.brentq(
+        brentq(
             lambda delta: _mn_difference_share(x1, n1, x2, n2, delta) - share,
             -1.0,
             estimate,

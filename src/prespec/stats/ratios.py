@@ -14,9 +14,11 @@ from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import special
 
 from prespec.stats import _checks
+from prespec.stats._lazy import brentq
+from prespec.stats._normal import upper_quantile
 from prespec.stats.results import Estimate
 
 #: The note of the Katz and Woolf intervals when a zero cell made them add 0.5 to every cell.
@@ -34,7 +36,7 @@ def _validated(
 
 
 def _critical(level: float) -> float:
-    return float(stats.norm.isf((1.0 - level) / 2.0))
+    return float(upper_quantile((1.0 - level) / 2.0))
 
 
 def _cells(x1: int, n1: int, x2: int, n2: int) -> tuple[list[float], str | None]:
@@ -288,7 +290,7 @@ def _lower_ratio_limit(
             return 1.0 - target
         return share(scale * t / (1.0 - t)) - target
 
-    t = optimize.brentq(excess, 0.0, top, xtol=1e-300, rtol=_RTOL, maxiter=500)
+    t = brentq(excess, 0.0, top, xtol=1e-300, rtol=_RTOL, maxiter=500)
     return float(scale * t / (1.0 - t))
 
 
@@ -433,7 +435,7 @@ def _increasing_root(function: Callable[[float], float], start: float) -> float:
         high = start + step
         if step > 1e4:
             raise ArithmeticError("no sign change above the start")  # pragma: no cover
-    return float(optimize.brentq(function, low, high, xtol=1e-14, rtol=_RTOL, maxiter=500))
+    return float(brentq(function, low, high, xtol=1e-14, rtol=_RTOL, maxiter=500))
 
 
 def exact_conditional_odds_ratio(x1: int, n1: int, x2: int, n2: int, level: float) -> Estimate:

@@ -32,7 +32,10 @@ from numbers import Real
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import optimize, special, stats
+from scipy import special
+
+from prespec.stats._lazy import brentq
+from prespec.stats._normal import upper_quantile
 
 EFFICACY: tuple[str, ...] = (
     "lan-demets-obrien-fleming",
@@ -204,7 +207,7 @@ def spent(name: str, t: ArrayLike, total: float, gamma: float | None = None) -> 
         raise ValueError("information fractions must not be nan")
     with np.errstate(divide="ignore"):
         if name == "lan-demets-obrien-fleming":
-            c = stats.norm.isf(total / 2.0)
+            c = upper_quantile(total / 2.0)
             out = 2.0 * special.ndtr(-c / np.sqrt(x))
         elif name == "lan-demets-pocock":
             out = total * np.log1p((math.e - 1.0) * x)
@@ -384,7 +387,7 @@ def _solve_upper(state: _State, t: float, target: float, sides: int) -> float:
     low = 0.0 if sides == 2 else -_FAR
     if excess(low) <= 0.0:
         return low
-    return float(optimize.brentq(excess, low, _FAR, xtol=_XTOL, rtol=4 * np.finfo(float).eps))
+    return float(brentq(excess, low, _FAR, xtol=_XTOL, rtol=4 * np.finfo(float).eps))
 
 
 def _efficacy(
@@ -433,8 +436,8 @@ def _classical(t: np.ndarray, alpha: float, sides: int, name: str, r: int) -> np
         up, low = crossing_probabilities(b, lower, t, 0.0, r=r)
         return float(up.sum() + low.sum()) - alpha
 
-    c0 = stats.norm.isf(alpha / sides)
-    c = optimize.brentq(excess, c0 * 0.5, c0 + 3.0, xtol=_XTOL)
+    c0 = upper_quantile(alpha / sides)
+    c = brentq(excess, c0 * 0.5, c0 + 3.0, xtol=_XTOL)
     return c * shape
 
 
@@ -486,7 +489,7 @@ def _futility_at(
             a[k] = cap
             met = met or not last
         else:
-            a[k] = optimize.brentq(excess, floor, cap, xtol=_XTOL)
+            a[k] = brentq(excess, floor, cap, xtol=_XTOL)
         so_far += _exit_below(state, tk_f, drift, min(a[k], b[k]))
         exits[k] = so_far
         if not last:
@@ -503,12 +506,12 @@ def _futility_drift(
         a, _, met = _futility_at(t, b, drift, sides, beta, name, gamma, r, last_free=True)
         return 1.0 if met else float(a[-1] - b[-1])
 
-    low, high = 1e-6, 2.0 * (float(b[-1]) + stats.norm.isf(beta)) + 2.0
+    low, high = 1e-6, 2.0 * (float(b[-1]) + upper_quantile(beta)) + 2.0
     if gap(low) >= 0.0:
         raise ValueError(
             "the futility boundary meets the efficacy boundary at zero drift; check alpha and power"
         )
-    return float(optimize.brentq(gap, low, high, xtol=_XTOL))
+    return float(brentq(gap, low, high, xtol=_XTOL))
 
 
 def boundaries(
@@ -632,8 +635,8 @@ def _power_drift(bounds: Boundaries, power: float, r: int) -> float:
         up, _ = crossing_probabilities(bounds.z, lower, t, drift, r=r)
         return float(up.sum()) - power
 
-    fixed = stats.norm.isf(bounds.alpha / bounds.sides) + stats.norm.isf(1.0 - power)
-    return float(optimize.brentq(shortfall, 0.0, 2.0 * fixed + 2.0, xtol=_XTOL))
+    fixed = upper_quantile(bounds.alpha / bounds.sides) + upper_quantile(1.0 - power)
+    return float(brentq(shortfall, 0.0, 2.0 * fixed + 2.0, xtol=_XTOL))
 
 
 def design(
@@ -675,7 +678,7 @@ def design(
     if bounds.alpha / bounds.sides >= power:
         raise ValueError(f"power ({power!r}) must exceed the one-sided alpha")
     drift = bounds.drift if bounds.drift is not None else _power_drift(bounds, power, r)
-    fixed = stats.norm.isf(bounds.alpha / bounds.sides) + stats.norm.isf(1.0 - power)
+    fixed = upper_quantile(bounds.alpha / bounds.sides) + upper_quantile(1.0 - power)
     inflation = (drift / fixed) ** 2
     with_futility = bounds.futility_z is not None
     stop_null = _stopping(bounds, 0.0, with_futility, r)
@@ -748,7 +751,7 @@ def _invert(tail: Callable[[float], float], target: float, centre: float) -> flo
         lo -= 8.0
     while tail(hi) < target:
         hi += 8.0
-    return float(optimize.brentq(lambda d: tail(d) - target, lo, hi, xtol=1e-10))
+    return float(brentq(lambda d: tail(d) - target, lo, hi, xtol=1e-10))
 
 
 def stagewise_inference(

@@ -10,11 +10,12 @@ from __future__ import annotations
 
 import math
 from numbers import Real
+from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from prespec.stats import _checks
+from prespec.stats._lazy import scipy_stats
 from prespec.stats._normal import normal_p_values
 from prespec.stats.results import Estimate, TestResult
 from prespec.stats.tails import binomial_tail
@@ -52,7 +53,7 @@ def binomial_exact(x: int, n: int, null_rate: float, *, alternative: str) -> Tes
     x, n = _checks.events_of_total("x", x, "n", n)
     rate = _null_rate(null_rate)
     alt = _checks.alternative(alternative)
-    law = stats.binom(n, rate)
+    law = scipy_stats().binom(n, rate)
     if alt == "greater":
         p = binomial_tail(x, n, rate, upper=True)
     elif alt == "less":
@@ -77,11 +78,11 @@ def binomial_exact_all(n: int, null_rate: float, alternative: str) -> np.ndarray
     """
     x = np.arange(n + 1)
     if alternative == "greater":
-        p = stats.binom.sf(x - 1, n, null_rate)
+        p = scipy_stats().binom.sf(x - 1, n, null_rate)
     elif alternative == "less":
-        p = stats.binom.cdf(x, n, null_rate)
+        p = scipy_stats().binom.cdf(x, n, null_rate)
     else:
-        prob = stats.binom.pmf(x, n, null_rate)
+        prob = scipy_stats().binom.pmf(x, n, null_rate)
         order = np.sort(prob)
         cumulative = np.cumsum(order)
         at = np.searchsorted(order, prob * (1.0 + BINOMIAL_TIE_TOLERANCE), side="right") - 1
@@ -90,7 +91,7 @@ def binomial_exact_all(n: int, null_rate: float, alternative: str) -> np.ndarray
     return np.minimum(1.0, p)
 
 
-def _binomial_two_sided(x: int, n: int, rate: float, law: stats.rv_discrete) -> float:
+def _binomial_two_sided(x: int, n: int, rate: float, law: Any) -> float:
     """Method of small p-values: the observed tail plus the far outcomes no more probable."""
     mean = n * rate
     if x == mean:
@@ -141,8 +142,8 @@ def _beta_limits(
 ) -> tuple[float, float]:
     """Equal-tailed beta quantiles: 0 at x = 0 and 1 at x = n."""
     tail = (1.0 - level) / 2.0
-    low = 0.0 if x == 0 else float(stats.beta.ppf(tail, *low_shape))
-    high = 1.0 if x == n else float(stats.beta.isf(tail, *high_shape))
+    low = 0.0 if x == 0 else float(scipy_stats().beta.ppf(tail, *low_shape))
+    high = 1.0 if x == n else float(scipy_stats().beta.isf(tail, *high_shape))
     return low, high
 
 

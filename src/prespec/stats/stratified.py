@@ -18,10 +18,9 @@ from dataclasses import dataclass
 from fractions import Fraction
 
 import numpy as np
-from scipy import stats
 
 from prespec.stats import _checks
-from prespec.stats._normal import normal_p_value
+from prespec.stats._normal import chi_square_p_value, normal_p_value, upper_quantile
 from prespec.stats.ratios import odds_ratio_cells
 from prespec.stats.results import Estimate, TestResult
 
@@ -74,7 +73,7 @@ def _strata(strata: Sequence[Sequence[int]]) -> _Strata:
 
 def _critical(level: float) -> float:
     """Two-sided standard normal critical value for a confidence level."""
-    return float(stats.norm.isf((1.0 - level) / 2.0))
+    return float(upper_quantile((1.0 - level) / 2.0))
 
 
 
@@ -155,7 +154,7 @@ def cochran_mantel_haenszel(
         size = max(size - Fraction(1, 2), Fraction(0))
     statistic = float(size * size / variance)
     if alt == "two-sided":
-        p = float(stats.chi2.sf(statistic, 1))
+        p = chi_square_p_value(statistic, 1)
     else:
         sign = 1.0 if deviation > 0 else -1.0 if deviation < 0 else 0.0
         p = normal_p_value(sign * math.sqrt(statistic), alt)
@@ -323,4 +322,4 @@ def breslow_day_tarone(strata: Sequence[Stratum]) -> TestResult:
     residual = np.where(cells[:, 0] <= cells[:, 1], a - expected, lacking - (n1 - a))
     statistic = math.fsum(residual**2 / variance) - math.fsum(residual) ** 2 / math.fsum(variance)
     statistic = max(0.0, statistic)  # >= 0 by Cauchy–Schwarz; guard the last rounding
-    return TestResult(method, statistic, df, float(stats.chi2.sf(statistic, df)), "two-sided")
+    return TestResult(method, statistic, df, chi_square_p_value(statistic, df), "two-sided")

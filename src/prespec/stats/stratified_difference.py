@@ -94,10 +94,10 @@ from fractions import Fraction
 from numbers import Real
 
 import numpy as np
-from scipy import optimize, stats
 
 from prespec.stats import _checks
-from prespec.stats._normal import normal_p_value
+from prespec.stats._lazy import brentq
+from prespec.stats._normal import normal_p_value, upper_quantile
 from prespec.stats.intervals import _wilson_limits, difference_mle
 from prespec.stats.results import Estimate, TestResult
 from prespec.stats.stratified import _strata
@@ -199,7 +199,7 @@ def _share(series: _Series, weights: str, delta: float) -> float:
 
 def _brentq(f: Callable[[float], float], low: float, high: float) -> float:
     return float(
-        optimize.brentq(f, low, high, xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=500)
+        brentq(f, low, high, xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=500)
     )
 
 
@@ -365,7 +365,7 @@ def stratified_score_interval(
     method = "stratified-miettinen-nurminen"
     if not series.rows:
         return _nan_estimate(method, lvl)
-    z = float(stats.norm.isf((1.0 - lvl) / 2.0))
+    z = float(upper_quantile((1.0 - lvl) / 2.0))
     share = z / math.sqrt(1.0 + z * z)
     estimate = _estimate(series, name)
     low = _lower(series, name, estimate, share)
@@ -439,7 +439,7 @@ def stratified_newcombe_interval(
     w = _normalised_weights(series, name, at)
     if bool(np.isnan(w).any()):
         return _nan_estimate(method, lvl, _UNDEFINED_NOTE)
-    z = float(stats.norm.isf((1.0 - lvl) / 2.0))
+    z = float(upper_quantile((1.0 - lvl) / 2.0))
     rows = np.array(series.rows, dtype=float)
     arms = []
     for events, totals in ((rows[:, 0], rows[:, 1]), (rows[:, 2], rows[:, 3])):

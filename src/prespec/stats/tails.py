@@ -20,7 +20,8 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import numpy as np
-from scipy import stats
+
+from prespec.stats._lazy import scipy_stats
 
 #: Terms are summed in blocks of this many.
 _BLOCK = 4096
@@ -30,7 +31,7 @@ _NEGLIGIBLE = 1e-20
 
 def binomial_pmf(k: np.ndarray, n: int, p: float) -> np.ndarray:
     """P(X = k) for X ~ Binomial(n, p), k an integer array."""
-    return np.asarray(stats.binom.pmf(k, n, p), dtype=float)
+    return np.asarray(scipy_stats().binom.pmf(k, n, p), dtype=float)
 
 
 def _away_from_mode(pmf: Callable[[np.ndarray], np.ndarray], start: int, stop: int,

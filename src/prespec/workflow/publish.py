@@ -126,7 +126,9 @@ def build_report(folder: Path, results: dict[str, Any], *, render: bool = True,
         (tmp / "results.json").write_bytes(results_bytes(results))
         write_tables(tmp, results)
         if render and FIGURES_WITH_KERNEL and _takes_alongside(render_notebook):
-            render_notebook(tmp, alongside=lambda: write_figures(results, tmp))
+            svgs: list[Callable[[], None]] = []  # written while the cells run
+            render_notebook(tmp, alongside=lambda: write_figures(results, tmp, svgs_later=svgs),
+                            meanwhile=lambda: [write() for write in svgs])
         else:
             write_figures(results, tmp)
             if render:
