@@ -100,12 +100,31 @@ def write_png(fig: Figure, path: Path) -> None:
     :func:`write_svg` is drawn with the layout of the PNG, not one computed again)."""
     tmp_png = path.with_name(f".{path.name}.partial")
     try:
+        _fix_layout(fig, PNG_DPI)
         fig.savefig(tmp_png, format="png", dpi=PNG_DPI, metadata={"Software": None})
-        fig.set_layout_engine("none")
         os.replace(tmp_png, path)
     except BaseException:
         tmp_png.unlink(missing_ok=True)
         raise
+
+
+def _fix_layout(fig: Figure, dpi: float) -> None:
+    """Compute the figure's constrained layout once, at ``dpi``, and keep it.
+
+    Given a layout engine, ``savefig`` computes the layout twice at the resolution it saves
+    at (a draw that paints nothing, then the draw), and again for every later save; this is
+    the same computation at the same resolution, made once, after which no save changes the
+    layout (the SVG beside the PNG is drawn with the PNG's)."""
+    engine = fig.get_layout_engine()
+    if engine is None:
+        return
+    own = fig.dpi
+    fig.dpi = dpi  # as savefig sets it while it draws
+    try:
+        engine.execute(fig)
+    finally:
+        fig.dpi = own
+    fig.set_layout_engine("none")
 
 
 def write_svg(fig: Figure, path: Path) -> None:
