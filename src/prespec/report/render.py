@@ -247,13 +247,7 @@ def _execute_alongside(folder: Path, output: Path, digest: str, kernel_name: str
         finally:
             ready.set()
         if meanwhile is not None:
-            import sys
-            interval = sys.getswitchinterval()
-            sys.setswitchinterval(0.0005)
-            try:
-                meanwhile()
-            finally:
-                sys.setswitchinterval(interval)
+            meanwhile()
         if thread.is_alive():  # the kernel is still starting: the page's exporter meanwhile
             _warm_html()
         while thread.is_alive():
