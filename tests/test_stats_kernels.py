@@ -23,6 +23,7 @@ from prespec.design.exactpower import FisherTables
 from prespec.stats import graphical, intervals, margins, multiplicity, ratios, single, tables, trend
 from prespec.stats._normal import (
     chi_square_p_value,
+    lower_tail,
     chi_square_p_values,
     normal_p_value,
     normal_p_values,
@@ -88,6 +89,12 @@ def test_the_normal_quantile_is_scipys_to_the_bit() -> None:
         assert type(got) is type(want) is np.float64
         assert (math.isnan(got) and math.isnan(want)) or got == want, q
     assert round(float(upper_quantile(0.025)), 6) == 1.959964  # common practice: a 95% interval
+    for z in [-40.0, -1.5, 0.0, 2.5, math.inf, -math.inf, math.nan,
+              *np.random.default_rng(10).normal(0.0, 3.0, 300)]:
+        want = scipy.stats.norm.cdf(z)  # scipy.stats.norm.cdf
+        got = lower_tail(z)
+        assert type(got) is type(want) is np.float64
+        assert (math.isnan(got) and math.isnan(want)) or got == want, z
 
 
 def _loaded_after(code: str) -> list[str]:
@@ -108,6 +115,9 @@ def test_importing_the_statistics_room_leaves_scipy_stats_and_optimize_unloaded(
     """The report's kernel imports prespec.stats as it starts; each of scipy.stats and
     scipy.optimize would add about half a second to every report."""
     assert _loaded_after("import prespec.stats") == ["['numpy', 'scipy.special']"]
+    # nor does a run's own code before it needs them (the design's planned sizes of z-tests)
+    assert _loaded_after("import prespec.design, prespec.workflow.run") == [
+        "['numpy', 'pandas', 'scipy.special']"]
     # the functions that need them load them when called
     assert (single.binomial_exact(7, 20, 0.5, alternative="two-sided").p_value
             == scipy.stats.binomtest(7, 20, 0.5).pvalue)  # scipy.stats.binomtest

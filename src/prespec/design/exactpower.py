@@ -20,8 +20,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
+from prespec.stats._lazy import scipy_stats
 from prespec.stats.fisherarray import fisher_p_values
 from prespec.stats.proportions import FISHER_TIE_TOLERANCE
 from prespec.stats.single import binomial_exact_all
@@ -92,7 +92,7 @@ class FisherTables:
 
 
 def _range(n: int, p: float) -> np.ndarray:
-    law = stats.binom(n, p)
+    law = scipy_stats().binom(n, p)
     low = int(max(0, law.ppf(TAIL) - 1))
     high = int(min(n, law.isf(TAIL) + 1))
     return np.arange(low, high + 1)
@@ -106,7 +106,8 @@ def fisher_power(p1: float, p2: float, n1: int, n2: int, level: float, alternati
     x1, x2 = _range(n1, p1), _range(n2, p2)
     grid1, grid2 = np.meshgrid(x1, x2, indexing="ij")
     reject = tables.p_values(grid1, grid2) <= level
-    weight = np.outer(stats.binom.pmf(x1, n1, p1), stats.binom.pmf(x2, n2, p2))
+    binom = scipy_stats().binom
+    weight = np.outer(binom.pmf(x1, n1, p1), binom.pmf(x2, n2, p2))
     return float(np.sum(weight[reject]))
 
 
@@ -114,7 +115,7 @@ def binomial_power(p: float, null_rate: float, n: int, level: float, alternative
     """Exact power of the exact binomial test of p = null_rate at ``level``: Σ Bin(x; n, p) over
     the outcomes x it rejects."""
     reject = binomial_exact_all(n, null_rate, alternative) <= level
-    return float(np.sum(stats.binom.pmf(np.arange(n + 1), n, p)[reject]))
+    return float(np.sum(scipy_stats().binom.pmf(np.arange(n + 1), n, p)[reject]))
 
 
 @dataclass(frozen=True)

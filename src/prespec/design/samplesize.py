@@ -18,8 +18,8 @@ import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
-from scipy import optimize, stats
-
+from prespec.stats._lazy import brentq, scipy_stats
+from prespec.stats._normal import lower_tail, upper_quantile
 from prespec.stats.intervals import difference_mle
 from prespec.stats.ratios import ratio_mle
 
@@ -38,7 +38,7 @@ class Size:
 
 
 def _z(alpha: float) -> float:
-    return float(stats.norm.isf(alpha))
+    return float(upper_quantile(alpha))
 
 
 def _check(alpha: float, power: float | None = None) -> None:
@@ -55,10 +55,10 @@ def _up(x: float) -> int:
 def _tails(effect: float, threshold: float, sd: float, two_sided: bool) -> float:
     """Φ((effect − threshold)/sd), plus the far tail Φ((−effect − threshold)/sd) if two-sided
     (effect >= 0: the statistic's numerator at the assumed rates, on the side they lie)."""
-    near = float(stats.norm.cdf((effect - threshold) / sd))
+    near = float(lower_tail((effect - threshold) / sd))
     if not two_sided:
         return near
-    return near + float(stats.norm.cdf((-effect - threshold) / sd))
+    return near + float(lower_tail((-effect - threshold) / sd))
 
 
 def _rate(name: str, p: float) -> float:
@@ -184,7 +184,7 @@ def margin_power(p1: float, p2: float, n1: float, n2: float, alpha: float, *, ma
         effect = -effect
     elif alternative != "greater":
         raise ValueError(f"a margin test is one-sided (greater or less), got {alternative!r}")
-    return float(stats.norm.cdf((effect - _z(alpha) * null_sd) / alt_sd))
+    return float(lower_tail((effect - _z(alpha) * null_sd) / alt_sd))
 
 
 def margin_n(p1: float, p2: float, alpha: float, power: float, *, margin: float, measure: str,
@@ -331,6 +331,7 @@ def k_group_power(rates: Sequence[float], sizes: Sequence[float], level: float) 
         raise ValueError(f"level must be in (0, 1), got {level!r}")
     df = len(rates) - 1
     lam = float(sum(sizes)) * _noncentrality_per_unit(rates, _shares(sizes))
+    stats = scipy_stats()
     return float(stats.ncx2.sf(stats.chi2.isf(level, df), df, lam))
 
 
@@ -346,8 +347,9 @@ def k_group_n(rates: Sequence[float], level: float, power: float,
     if unit <= 0.0:
         raise ValueError("the assumed rates are equal: there is no difference to detect")
     df = k - 1
+    stats = scipy_stats()
     crit = float(stats.chi2.isf(level, df))
-    lam = optimize.brentq(lambda x: stats.ncx2.sf(crit, df, x) - power, 1e-9, 1e6, xtol=1e-12)
+    lam = brentq(lambda x: stats.ncx2.sf(crit, df, x) - power, 1e-9, 1e6, xtol=1e-12)
     total = lam / unit
     sizes = tuple(_up(total * wi) for wi in w)
     return Size(sizes, k_group_power(rates, sizes, level), total * w[0])

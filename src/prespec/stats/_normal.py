@@ -41,6 +41,12 @@ def normal_p_values(z: np.ndarray, alternative: str) -> np.ndarray:
     return np.minimum(1.0, 2.0 * by_value(_upper_tail, np.abs(np.asarray(z, dtype=float))))
 
 
+def lower_tail(z: float) -> np.float64:
+    """The standard normal's distribution function at ``z``, scipy.stats.norm.cdf(z) as scipy
+    computes it (``ndtr(z)``)."""
+    return np.float64(special.ndtr(z))
+
+
 def _upper_tail(z: np.ndarray) -> np.ndarray:
     return np.asarray(special.ndtr(-np.asarray(z, dtype=float)), dtype=float)
 
