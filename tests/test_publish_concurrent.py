@@ -212,6 +212,42 @@ def test_a_kernel_started_ahead_runs_the_notebook_with_the_same_bytes(
     assert _no_notebook_thread()
 
 
+def test_the_page_exporter_made_while_the_data_are_read_gives_the_same_bytes(
+        demo_results: dict[str, Any], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    first, first_manifest = _build(tmp_path / "first", demo_results, False, monkeypatch)
+    monkeypatch.setattr(publish, "FIGURES_WITH_KERNEL", True)
+    taken: list[Any] = []
+    original = render._take_warmed
+
+    def spy() -> Any:
+        taken.append(original())
+        return taken[-1]
+
+    monkeypatch.setattr(render, "_take_warmed", spy)
+    out: dict[str, Any] = {}
+
+    def a_run() -> None:  # a thread of its own: no exporter made in it yet, as in a new process
+        try:
+            with publish.kernel_ahead():
+                (tmp_path / "warm").mkdir()
+                out["built"] = publish.build_report(tmp_path / "warm" / "report", demo_results)
+        except BaseException as exc:  # noqa: BLE001 (raised below)
+            out["error"] = exc
+
+    thread = threading.Thread(target=a_run)
+    thread.start()
+    thread.join()
+    assert "error" not in out, out.get("error")
+    tmp, manifest = out["built"]
+    assert len(taken) == 1 and taken[0] is not None  # the exporter made ahead, not a new one
+    assert manifest == first_manifest
+    assert _files(tmp) == first
+    assert render._WARMED == []
+    assert not any(t.name == "prespec-warm" and t.is_alive() for t in threading.enumerate())
+    # this thread made an exporter in its first build, and everything is loaded: no thread
+    assert render.warm_ahead() is None
+
+
 def test_a_kernel_started_ahead_and_not_used_is_shut_down(tmp_path: Path) -> None:
     for wait in (0.0, 3.0):  # abandoned while starting, and once it has started
         ahead = render.start_kernel_ahead()

@@ -651,10 +651,11 @@ _EXPORTERS = threading.local()
 
 def _html_exporter() -> Any:
     """The page's exporter, made once per thread (its template compiled once; an exporter
-    registers filters as it exports, so two threads never share one)."""
+    registers filters as it exports, so two threads never share one). The first thread to
+    ask takes the one :func:`warm_ahead` made, once its thread has ended."""
     exporter = getattr(_EXPORTERS, "exporter", None)
     if exporter is None:
-        exporter = _EXPORTERS.exporter = _new_html_exporter()
+        exporter = _EXPORTERS.exporter = _take_warmed() or _new_html_exporter()
     return exporter
 
 
@@ -678,11 +679,74 @@ def _warm_html() -> None:
     the page: the first export in a process costs about a second (imports, the template,
     the filters' own imports), which is then paid while the kernel starts, not after the
     cells. A failure here is left to the report's own export, which says it."""
+    with contextlib.suppress(Exception):  # the report's export raises it, in one line
+        _exercise(_html_exporter())
+
+
+def _exercise(exporter: Any) -> None:
+    """Export a notebook of one cell with ``exporter``, discarding the page."""
     cell = nbformat.v4.new_code_cell(outputs=[nbformat.v4.new_output(
         "display_data", data={"text/html": "<p>warm</p>", "image/png": "iVBORw0KGgo="})])
-    try:
-        _html_exporter().from_notebook_node(
-            nbformat.v4.new_notebook(cells=[cell, nbformat.v4.new_markdown_cell("warm")]),
-            resources={"metadata": {"name": "warm"}})
-    except Exception:  # noqa: BLE001 (the report's export raises it, in one line)
-        return
+    exporter.from_notebook_node(
+        nbformat.v4.new_notebook(cells=[cell, nbformat.v4.new_markdown_cell("warm")]),
+        resources={"metadata": {"name": "warm"}})
+
+
+# --- the report's libraries, loaded while a run reads its data ---------------------------------
+
+_WARMED: list[tuple[threading.Thread, dict[str, Any]]] = []
+_WARMED_LOCK = threading.Lock()
+#: What the figures and the notebook's client import: loaded by :func:`warm_ahead` (only
+#: imported: matplotlib's settings are global, and the thread changes none of them while
+#: figures may be drawn).
+FIGURE_MODULES = ("matplotlib.figure", "matplotlib.backends.backend_agg", "matplotlib.style",
+                  "matplotlib.ticker", "prespec.report.figures", "prespec.report.flow",
+                  "prespec.report.bayes", "prespec.report.looks", "prespec.report.families",
+                  "papermill")
+
+
+def warm_ahead() -> threading.Thread | None:
+    """Import what the figures need, and make and exercise the page's exporter, in a thread
+    of their own, while a run reads and reduces its data (an engine that counts outside
+    Python's lock, as duckdb and the servers do, leaves the thread free to run): about 1.3 s
+    that a run would otherwise pay after its data, once per process. The exporter goes to
+    the first :func:`_html_exporter` call, which waits for the thread. Nothing is started
+    when this thread already holds an exporter and matplotlib is loaded (a second run of the
+    same process); the thread (to join), or None. A failure in it is left to the report,
+    which meets it again and says it."""
+    import sys
+
+    need_exporter = getattr(_EXPORTERS, "exporter", None) is None
+    if not need_exporter and all(name in sys.modules for name in FIGURE_MODULES):
+        return None
+    made: dict[str, Any] = {}
+
+    def work() -> None:
+        import importlib
+
+        with contextlib.suppress(Exception):
+            for name in FIGURE_MODULES:
+                importlib.import_module(name)
+        if need_exporter:
+            with contextlib.suppress(Exception):
+                exporter = _new_html_exporter()
+                _exercise(exporter)
+                made["exporter"] = exporter
+
+    thread = threading.Thread(target=work, name="prespec-warm", daemon=True)
+    with _WARMED_LOCK:
+        _WARMED.append((thread, made))
+    thread.start()
+    return thread
+
+
+def _take_warmed() -> Any:
+    """The exporter a :func:`warm_ahead` thread made (waiting for the thread), or None."""
+    with _WARMED_LOCK:
+        waiting = list(_WARMED)
+        _WARMED.clear()
+    exporter = None
+    for thread, made in waiting:
+        thread.join()
+        exporter = exporter or made.get("exporter")
+    return exporter

@@ -94,15 +94,18 @@ def _takes_alongside(render_notebook: Callable[..., Any]) -> bool:
 def kernel_ahead() -> Iterator[None]:
     """The report notebook's kernel started now, in a thread, so that it starts (and imports
     what the cells need) while the run reads and reduces its data; shut down on leaving if
-    no notebook took it (``render.KernelAhead``). A stand-in renderer (tests) gets none."""
+    no notebook took it (``render.KernelAhead``). Meanwhile another thread imports what the
+    figures and the page need (``render.warm_ahead``). A stand-in renderer (tests) gets
+    neither."""
     import prespec.report
 
     if not (FIGURES_WITH_KERNEL and _takes_alongside(prespec.report.render_notebook)):
         yield
         return
-    from prespec.report.render import close_kernel_ahead, start_kernel_ahead
+    from prespec.report.render import close_kernel_ahead, start_kernel_ahead, warm_ahead
 
     ahead = start_kernel_ahead()
+    warm_ahead()
     try:
         yield
     finally:
