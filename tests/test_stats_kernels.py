@@ -23,8 +23,8 @@ from prespec.design.exactpower import FisherTables
 from prespec.stats import graphical, intervals, margins, multiplicity, ratios, single, tables, trend
 from prespec.stats._normal import (
     chi_square_p_value,
-    lower_tail,
     chi_square_p_values,
+    lower_tail,
     normal_p_value,
     normal_p_values,
     upper_quantile,
