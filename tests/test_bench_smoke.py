@@ -96,6 +96,8 @@ def test_the_demo_phases_benchmark_times_every_phase() -> None:
     assert re.search(r"(?m)^baseline: papermill, empty notebook\s+[\d.]+ ms$", out), out
     assert re.search(r"(?m)^report / empty notebook \(median of the runs' ratios\): [\d.]+ "
                      r"\(goal: at most 1\.50; figures beside the kernel\)$", out), out
+    assert re.search(r"(?m)^first demo of the process \(loads matplotlib and nbconvert\): "
+                     r"report [\d.]+ ms, [\d.]+ times its empty notebook$", out), out
 
 
 def demo_phases_module() -> ModuleType:
