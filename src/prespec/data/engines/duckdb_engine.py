@@ -95,10 +95,10 @@ class DuckDBEngine(AggregatingEngine):
                                           "preserve_insertion_order": False})
         # DuckDB never draws its own bar (it does for ``python -c``, taking that for an
         # interactive session); it tracks progress, for our bar, only when one is asked for
-        # (``query_progress`` is -1 otherwise)
+        # (``query_progress`` is -1 otherwise; set either way, since DuckDB's default follows
+        # what it takes for an interactive session)
         self.con.execute("SET enable_progress_bar_print = false")
-        if progress is not None:
-            self.con.execute("SET enable_progress_bar = true")
+        self.con.execute(f"SET enable_progress_bar = {'false' if progress is None else 'true'}")
         self._kinds: dict[str, str] | None = None
         self._checked = False
         self._shown = False
